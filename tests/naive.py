@@ -1,0 +1,15 @@
+"""Plain-numpy twins of the compiled kernels, for checking them."""
+
+import numpy as np
+
+
+def assign_nearest(points, centres):
+    """Nearest centre by brute force: labels (lowest index on ties) and squared distances."""
+    d2 = ((points[:, None, :] - centres[None, :, :]) ** 2).sum(axis=2)
+    labels = d2.argmin(axis=1)
+    return labels, d2[np.arange(points.shape[0]), labels]
+
+
+def inertia(points, weights, centres):
+    """Weighted sum of squared distances to the nearest centre."""
+    return float(weights @ assign_nearest(points, centres)[1])

@@ -1,0 +1,157 @@
+"""Weighted k-means: kernels, seeding, restarts, locked centres.
+
+References: scikit-learn's KMeans (test-only reference implementation);
+the equivalence of a weight-w point and w repeated points follows from the
+definition of the weighted k-means objective.
+"""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+from hypothesis.extra.numpy import arrays
+
+from quantize import kmeans
+from quantize._kernels import assign_nearest
+from quantize.kmeans import INITS, PaletteSizeWarning
+
+import naive
+
+
+def blobs(seed, n_blobs=6, per=300, d=3, spread=2.0):
+    rng = np.random.default_rng(seed)
+    centres = rng.uniform(0, 100, (n_blobs, d))
+    pts = np.concatenate([rng.normal(c, spread, (per, d)) for c in centres])
+    w = rng.integers(1, 30, pts.shape[0]).astype(float)
+    return pts, w
+
+
+def test_assign_kernel_matches_numpy_twin():
+    rng = np.random.default_rng(1)
+    pts = rng.uniform(-50, 100, (5000, 3))
+    cen = rng.uniform(-50, 100, (17, 3))
+    labels, d2 = assign_nearest(pts, cen)
+    ref_l, ref_d2 = naive.assign_nearest(pts, cen)
+    np.testing.assert_array_equal(labels, ref_l)
+    np.testing.assert_allclose(d2, ref_d2, rtol=1e-12)
+
+
+def test_assign_ties_take_lowest_index():
+    pts = np.array([[0.0, 0, 0]])
+    cen = np.array([[1.0, 0, 0], [-1.0, 0, 0]])
+    assert assign_nearest(pts, cen)[0][0] == 0
+
+
+def test_toy_case_by_hand():
+    # Two pairs of points 1 apart, 10 apart from each other: the optimum puts
+    # a centre at each pair's midpoint, cost 4 * 0.5**2 = 1 (worked by hand).
+    pts = np.array([[0.0, 0, 0], [0, 0, 1], [10, 0, 0], [10, 0, 1]])
+    res = kmeans(pts, 2, seed=3)
+    assert res.inertia == pytest.approx(1.0)
+    assert sorted(map(tuple, res.centres)) == [(0, 0, 0.5), (10, 0, 0.5)]
+
+
+@pytest.mark.parametrize("k", [3, 6, 12])
+@pytest.mark.parametrize("seed", [0, 1])
+def test_inertia_not_worse_than_scikit_learn(k, seed):
+    # Reference: sklearn.cluster.KMeans with the same data, weights, k and
+    # number of restarts; ours must reach at most 1.005 x its inertia.
+    from sklearn.cluster import KMeans
+
+    pts, w = blobs(seed)
+    ours = kmeans(pts, k, weights=w, restarts=8, seed=seed)
+    ref = KMeans(n_clusters=k, n_init=8, random_state=seed).fit(pts, sample_weight=w)
+    assert ours.inertia <= 1.005 * ref.inertia_
+    assert ours.inertia == pytest.approx(naive.inertia(pts, w, ours.centres))
+
+
+def test_weights_equal_repeated_points():
+    rng = np.random.default_rng(5)
+    pts = rng.uniform(0, 50, (60, 3))
+    w = rng.integers(1, 5, 60)
+    rep = np.repeat(pts, w, axis=0)
+    a = kmeans(pts, 4, weights=w.astype(float), restarts=6, seed=2)
+    b = kmeans(rep, 4, restarts=6, seed=2)
+    # Same objective: the best costs agree, and a's centres are as good on b's data.
+    assert a.inertia == pytest.approx(b.inertia, rel=1e-9)
+    assert naive.inertia(rep, np.ones(len(rep)), a.centres) == pytest.approx(b.inertia, rel=1e-9)
+
+
+@pytest.mark.parametrize("init", list(INITS))
+def test_same_seed_bit_identical(init):
+    pts, w = blobs(2)
+    a = kmeans(pts, 5, weights=w, seed=11, init=init)
+    b = kmeans(pts, 5, weights=w, seed=11, init=init)
+    assert a.centres.tobytes() == b.centres.tobytes()
+    np.testing.assert_array_equal(a.labels, b.labels)
+
+
+def test_generator_seed_is_threaded():
+    pts, w = blobs(2)
+    a = kmeans(pts, 5, weights=w, seed=np.random.default_rng(4))
+    b = kmeans(pts, 5, weights=w, seed=np.random.default_rng(4))
+    assert a.centres.tobytes() == b.centres.tobytes()
+
+
+def test_locked_centres_never_move():
+    pts, w = blobs(3)
+    fixed = np.array([[50.0, 0, 0], [0, 0, 0]])
+    res = kmeans(pts, 6, weights=w, fixed=fixed, seed=0)
+    np.testing.assert_array_equal(res.centres[:2], fixed)
+    assert len(res.centres) == 6
+
+
+def test_k_capped_at_distinct_points_without_duplicates():
+    pts = np.array([[0.0, 0, 0], [1, 1, 1], [0, 0, 0], [5, 5, 5]])
+    with pytest.warns(PaletteSizeWarning, match="only 3 distinct"):
+        res = kmeans(pts, 5)
+    assert len(res.centres) == 3
+    assert len(np.unique(res.centres, axis=0)) == 3
+    assert res.inertia == 0.0
+
+
+def test_empty_cluster_is_reseeded_not_dropped():
+    # Start with a centre far from all data: it gets no points in the first
+    # assignment and must be moved onto the data, not dropped.
+    pts, w = blobs(4, n_blobs=3)
+    start = np.array([pts[0], pts[400], pts[800], [1e4, 1e4, 1e4]])
+    res = kmeans(pts, 4, weights=w, init_centres=start)
+    assert len(res.centres) == 4
+    assert np.abs(res.centres).max() < 1e3
+    assert len(np.unique(res.labels)) == 4
+
+
+@pytest.mark.parametrize("bad, match", [
+    (dict(k=0), "at least 1"),
+    (dict(k=2, fixed=np.zeros((3, 3))), "locked"),
+    (dict(k=2, init="nope"), "k-means\\+\\+, random, farthest"),
+    (dict(k=2, weights=-np.ones(10)), "non-negative"),
+    (dict(k=2, restarts=0), "restarts"),
+])
+def test_bad_arguments(bad, match):
+    pts = np.random.default_rng(0).normal(size=(10, 3))
+    with pytest.raises(ValueError, match=match):
+        kmeans(pts, **bad)
+
+
+point_sets = arrays(np.float64, st.tuples(st.integers(8, 60), st.just(3)),
+                    elements=st.floats(-100, 100, allow_nan=False, width=32))
+
+
+@settings(max_examples=40, deadline=None)
+@given(pts=point_sets, k=st.integers(1, 6), seed=st.integers(0, 2**16), n_fixed=st.integers(0, 1))
+def test_properties(pts, k, seed, n_fixed):
+    rng = np.random.default_rng(seed)
+    w = rng.integers(1, 10, pts.shape[0]).astype(float)
+    fixed = pts[:1] + 0.5 if n_fixed else None
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PaletteSizeWarning)
+        res = kmeans(pts, k, weights=w, seed=seed, restarts=2, fixed=fixed)
+        again = kmeans(pts, k, weights=w, seed=seed, restarts=2, fixed=fixed)
+    h = np.array(res.history)
+    assert np.all(np.diff(h) <= 1e-9 * max(h[0], 1.0))  # cost never rises across Lloyd steps
+    assert res.labels.min() >= 0 and res.labels.max() < len(res.centres)
+    if fixed is not None:
+        np.testing.assert_array_equal(res.centres[0], fixed[0])
+    assert res.centres.tobytes() == again.centres.tobytes()
