@@ -19,11 +19,14 @@ def _assign_kernel():
     if "assign" not in _compiled:
         import numba
 
-        @numba.njit(parallel=True, cache=True, nogil=True, fastmath=False)
+        # Serial on purpose: the work per call is small (distinct colours, not
+        # pixels), and numba's worker threads cost more than they save when
+        # the machine is shared.
+        @numba.njit(cache=True, nogil=True, fastmath=False)
         def assign(points, centres, labels, dist2):
             n, d = points.shape
             k = centres.shape[0]
-            for i in numba.prange(n):
+            for i in range(n):
                 best = np.inf
                 arg = 0
                 for j in range(k):

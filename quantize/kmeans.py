@@ -59,6 +59,8 @@ def _weighted_pick(rng: np.random.Generator, pot: np.ndarray, size: int) -> np.n
     return np.minimum(idx, pot.size - 1)
 
 
+# Weighted sums are written (w * x).sum(), not w @ x: a 1-D matmul goes to
+# multi-threaded BLAS, whose spinning threads slow a shared machine badly.
 def _sq_dist_to(points: np.ndarray, centre: np.ndarray) -> np.ndarray:
     diff = points - centre
     return np.einsum("ij,ij->i", diff, diff)
@@ -83,7 +85,7 @@ def _init_kmeanspp(points, weights, k, fixed, rng):
         best_cost, best_d2, best_c = np.inf, None, None
         for c in cands:
             nd2 = np.minimum(d2, _sq_dist_to(points, points[c]))
-            cost = float(weights @ nd2)
+            cost = float((weights * nd2).sum())
             if cost < best_cost:
                 best_cost, best_d2, best_c = cost, nd2, c
         centres.append(points[best_c])
@@ -165,7 +167,7 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
     centres = centres.copy()
     history = []
     labels, d2 = assign_nearest(points, centres)
-    history.append(float(weights @ d2))
+    history.append(float((weights * d2).sum()))
     n_iter = 0
     for n_iter in range(1, max_iter + 1):
         wsum = np.bincount(labels, weights=weights, minlength=k)
@@ -190,7 +192,7 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
         shift = float(((new - centres) ** 2).sum())
         centres = new
         new_labels, d2 = assign_nearest(points, centres)
-        history.append(float(weights @ d2))
+        history.append(float((weights * d2).sum()))
         unchanged = np.array_equal(new_labels, labels)
         labels = new_labels
         if unchanged or shift <= tol:
@@ -318,7 +320,8 @@ def kmeans(
             stacklevel=2,
         )
     # Per-coordinate mean variance, as the tolerance scale.
-    mean_var = float(w @ ((pts - (w @ pts) / w.sum()) ** 2).sum(axis=1)) / w.sum() / d
+    mu = (w[:, None] * pts).sum(axis=0) / w.sum()
+    mean_var = float((w * ((pts - mu) ** 2).sum(axis=1)).sum()) / w.sum() / d
     abs_tol = tol * max(mean_var, 1e-12)
 
     if init_centres is not None:

@@ -73,7 +73,7 @@ def delta_e_stats(delta_e, weights) -> dict[str, float]:
     de, w = de[live], w[live]
     med, p95 = weighted_quantile(de, w, [0.5, 0.95])
     return {
-        "mean": float(w @ de / w.sum()),
+        "mean": float((w * de).sum() / w.sum()),
         "median": float(med),
         "p95": float(p95),
         "max": float(de.max()),

@@ -1,0 +1,322 @@
+"""Fitting a palette to one image or a set: the engine's main entry point.
+
+image(s) -> perceptual distinct colours with pixel weights -> weighted
+k-means++ with restarts on a binned sample -> refinement on every distinct
+colour -> 8-bit palette -> ΔE00 per candidate size -> the chosen size.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Callable, Sequence
+
+import numpy as np
+
+from .kmeans import PaletteSizeWarning, check_init, kmeans
+from .palette import Palette, parse_colour
+from .selection import choose_k, check_rule, robust_error
+
+__all__ = ["fit_palette", "Candidate", "fit_candidates", "parse_k", "load_samples"]
+
+#: Largest palette the engine fits.
+MAX_K = 4096
+
+
+@dataclass(frozen=True, eq=False)
+class Candidate:
+    """One fitted palette size: its palette and what it costs."""
+
+    k: int
+    palette: Palette
+    inertia: float
+    delta_e: dict
+    robust: float
+    labels: np.ndarray
+    per_colour_de: np.ndarray
+
+
+def parse_k(k) -> list[int]:
+    """Candidate sizes from an int, a ``range``, a ``(lo, hi)`` pair or ``"lo-hi"``.
+
+    Ranges are inclusive of both ends for pairs and strings.
+
+    Raises
+    ------
+    ValueError
+        Below 1, above the engine's maximum, empty, or min > max.
+    """
+    if isinstance(k, str):
+        text = k.strip()
+        if "-" in text:
+            lo, _, hi = text.partition("-")
+            try:
+                k = (int(lo), int(hi))
+            except ValueError:
+                raise ValueError(f"palette size {text!r} is not N or MIN-MAX") from None
+        else:
+            try:
+                k = int(text)
+            except ValueError:
+                raise ValueError(f"palette size {text!r} is not N or MIN-MAX") from None
+    if isinstance(k, (int, np.integer)) and not isinstance(k, bool):
+        ks = [int(k)]
+    elif isinstance(k, range):
+        ks = list(k)
+    elif isinstance(k, (tuple, list)) and len(k) == 2:
+        lo, hi = int(k[0]), int(k[1])
+        if lo > hi:
+            raise ValueError(f"palette size range {lo}-{hi} has min > max")
+        ks = list(range(lo, hi + 1))
+    else:
+        raise ValueError(f"palette size must be an int or a range, got {k!r}")
+    if not ks:
+        raise ValueError("palette size range is empty")
+    if min(ks) < 1:
+        raise ValueError(f"palette size must be at least 1, got {min(ks)}")
+    if max(ks) > MAX_K:
+        raise ValueError(f"palette size must be at most {MAX_K}, got {max(ks)}")
+    return sorted(set(ks))
+
+
+def _as_list(images) -> list:
+    if isinstance(images, (list, tuple)):
+        items = list(images)
+    else:
+        items = [images]
+    if not items:
+        raise ValueError("no images given: the image set is empty")
+    return items
+
+
+def load_samples(images, *, weighting: str = "equal", max_pixels=None):
+    """Load and sample one image or several; return (pooled sample, pictures' sources, notes)."""
+    from .images import as_picture, load_image
+    from .sampling import pool_samples, sample_picture
+
+    samples, sources, notes = [], [], []
+    for item in _as_list(images):
+        if isinstance(item, (str, bytes)) or hasattr(item, "__fspath__"):
+            pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
+        else:
+            pic = as_picture(item)
+        samples.append(sample_picture(pic))
+        sources.append(pic.source)
+        notes.extend(f"{pic.source}: {w}" for w in pic.warnings)
+    return pool_samples(samples, weighting=weighting), sources, notes
+
+
+def _rng_for(seed, k):
+    # A per-size stream: the k=6 palette of a 2-12 range equals a lone k=6 fit.
+    if isinstance(seed, np.random.Generator):
+        return seed
+    return np.random.default_rng(np.random.SeedSequence([0 if seed is None else int(seed), int(k)]))
+
+
+def _to_palette(centres, fixed_rgb8, space, locked_n):
+    from .colourspace import clip_to_gamut, from_space
+
+    rgb = np.round(clip_to_gamut(from_space(centres, space)) * 255).astype(np.uint8)
+    rgb[:locked_n] = fixed_rgb8
+    # Rounding to 8 bits can make two centres the same colour: keep one.
+    _, first = np.unique(rgb, axis=0, return_index=True)
+    keep = np.sort(first)
+    return Palette(rgb8=rgb[keep], locked=np.arange(len(rgb))[keep] < locked_n, space=space), keep.size < len(rgb)
+
+
+REFINES = ("robust", "none")
+
+
+def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0, locked=(),
+                   init="k-means++", metric="space", refine: str = "robust",
+                   progress: Callable | None = None) -> list[Candidate]:
+    """Fit one palette per size in ``ks`` to a colour sample.
+
+    Each size seeds and restarts on the binned sample, then runs Lloyd to
+    convergence on every distinct colour with its true weight (the k-means
+    fit, whose cost is reported as ``inertia``).  With ``refine="robust"``
+    the palette is then refined under a truncated loss
+    (:func:`quantize.refine.robust_refine`): swaps on the binned sample,
+    trimmed Lloyd on every distinct colour.  Sizes above the number of
+    distinct colours collapse to that number (each size appears once).
+    """
+    from .refine import robust_refine
+
+    if refine not in REFINES:
+        raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
+    from .mapping import map_sample
+    from .colourspace import srgb8_to_space
+
+    fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
+    fixed = srgb8_to_space(fixed_rgb8, space) if len(fixed_rgb8) else None
+    if len(fixed_rgb8) and len({tuple(c) for c in fixed_rgb8}) != len(fixed_rgb8):
+        raise ValueError("the same locked colour is given twice")
+    m = len(fixed_rgb8)
+    if m > min(ks):
+        raise ValueError(f"{m} locked colours do not fit in a palette of {min(ks)}")
+    full_pts = sample.points(space)
+    bin_pts, bin_w = sample.binned(space)
+    out: list[Candidate] = []
+    seen = set()
+    for k in ks:
+        rng = _rng_for(seed, k)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PaletteSizeWarning)
+            coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
+            fine = kmeans(full_pts, len(coarse.centres), weights=sample.weights, fixed=fixed,
+                          init_centres=coarse.centres)
+        centres = fine.centres
+        if refine == "robust":
+            centres = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
+            centres = robust_refine(full_pts, sample.weights, centres, n_fixed=m, max_swaps=0)
+        pal, merged = _to_palette(centres, fixed_rgb8, space, m)
+        if pal.k in seen:
+            if progress:
+                progress(k)
+            continue
+        seen.add(pal.k)
+        labels, de = map_sample(sample, pal, metric=metric)
+        from .measure import delta_e_stats
+
+        notes = []
+        if pal.k < k:
+            notes.append(f"asked for {k} colours; the image has {sample.n_colours} distinct colours"
+                         + (" and rounding to 8 bits merged some" if merged else "")
+                         + f", so the palette has {pal.k}")
+        cand = Candidate(k=pal.k, palette=Palette(pal.rgb8, pal.locked, space, fit={"notes": notes}),
+                         inertia=float(fine.inertia), delta_e=delta_e_stats(de, sample.weights),
+                         robust=robust_error(de, sample.weights), labels=labels, per_colour_de=de)
+        out.append(cand)
+        if progress:
+            progress(k)
+    return out
+
+
+def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, locked=(),
+                rule: str = "bic", target: float | None = None, target_stat: str = "mean",
+                init: str = "k-means++", weighting: str = "equal", metric: str = "space",
+                refine: str = "robust", max_pixels=None, progress: Callable | None = None) -> Palette:
+    """Fit an N-colour palette to one image or a set of images.
+
+    Parameters
+    ----------
+    images : path, Picture, PIL image, ndarray, or a list of them
+        Several images are pooled into one weighted colour sample.
+    k : int, range, (min, max) or "min-max", default=16
+        Palette size, or the sizes to choose from by ``rule``.
+    space : {"lab", "oklab", "cam16ucs"}, default="lab"
+        Perceptual space of the fit.
+    restarts : int, default=8
+        k-means++ restarts per size; the lowest k-means cost is kept.
+    seed : int or numpy Generator, default=0
+        Same seed, same palette (bit-identical).
+    locked : sequence of colour specs, default=()
+        Colours held fixed (hex ``"#f4efe1"`` or Lab ``"95,1,6"``); they come
+        first in the palette and are written exactly.
+    rule : {"bic", "target"}, default="bic"
+        How k is chosen from a range; see :mod:`quantize.selection`.
+    target : float, optional
+        ΔE00 target of the ``"target"`` rule.
+    target_stat : {"mean", "p95"}, default="mean"
+    init : {"k-means++", "random", "farthest"}, default="k-means++"
+    weighting : {"equal", "pixels"}, default="equal"
+        How pooled images count: equally, or by pixel count.
+    metric : {"space", "ciede2000"}, default="space"
+        Nearest-colour metric used to measure each candidate.
+    refine : {"robust", "none"}, default="robust"
+        After the k-means fit, refine the palette under a truncated loss so
+        that anti-aliased edges and compression noise do not take colours
+        from real inks (:mod:`quantize.refine`).  ``"none"`` keeps the pure
+        k-means palette.  The k-means cost is reported either way.
+    max_pixels : int, optional
+        Decompression-bomb limit for files.
+    progress : callable, optional
+        Called with each k as it is fitted.
+
+    Returns
+    -------
+    Palette
+        ``palette.fit`` records the settings, the candidates (k, k-means
+        cost, ΔE00 statistics, penalised score) and the reason for the k.
+
+    Raises
+    ------
+    ImageReadError
+        A file cannot be read.
+    ValueError
+        Bad k, space, rule, seeding or locked colours; an empty image set.
+
+    References
+    ----------
+    .. [1] D. Arthur and S. Vassilvitskii, "k-means++: the advantages of
+       careful seeding", SODA 2007, 1027-1035.
+    .. [2] G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
+       formula: implementation notes, supplementary test data, and
+       mathematical observations", Color Research & Application 30(1),
+       21-30, 2005.
+    .. [3] G. Schwarz, "Estimating the dimension of a model", Annals of
+       Statistics 6(2), 461-464, 1978.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> img = np.zeros((4, 4, 3), np.uint8); img[:, 2:] = (200, 30, 40)
+    >>> pal = fit_palette(img, 2)
+    >>> sorted(pal.hex)
+    ['#000000', '#c81e28']
+    """
+    from .colourspace import check_space
+
+    check_space(space)
+    check_rule(rule)
+    check_init(init)
+    if restarts < 1:
+        raise ValueError(f"restarts must be at least 1, got {restarts}")
+    ks = parse_k(k)
+    if rule == "target" and (target is None or not target > 0):
+        raise ValueError(f"the target rule needs a positive ΔE00 target, got {target!r}")
+    sample, sources, notes = load_samples(images, weighting=weighting, max_pixels=max_pixels)
+    ks_eff = [kk for kk in ks if kk <= max(sample.n_colours, 1)] or [sample.n_colours]
+    if len(ks_eff) < len(ks) or ks_eff[-1] < ks[-1]:
+        if ks_eff[-1] < ks[-1] and ks_eff[-1] < min(ks):
+            ks_eff = [sample.n_colours]
+        notes.append(f"the image set has only {sample.n_colours} distinct colours; "
+                     f"palette sizes above {sample.n_colours} were not fitted")
+    cands = fit_candidates(sample, ks_eff, space=space, restarts=restarts, seed=seed, locked=locked,
+                           init=init, metric=metric, refine=refine, progress=progress)
+    ks_c = [c.k for c in cands]
+    choice = choose_k(ks_c, [c.delta_e for c in cands], [c.robust for c in cands],
+                      rule=rule if len(cands) > 1 else "bic", target=target, target_stat=target_stat)
+    chosen = cands[ks_c.index(choice.k)]
+    reason = choice.reason if len(cands) > 1 else "fixed palette size"
+    if len(ks) == 1 and chosen.k < ks[0]:
+        reason = f"asked for {ks[0]}; only {chosen.k} distinct colours are available"
+    fit = {
+        "k": chosen.k,
+        "rule": rule if len(cands) > 1 else "fixed",
+        "reason": reason,
+        "k_requested": ks[0] if len(ks) == 1 else [ks[0], ks[-1]],
+        "space": space,
+        "restarts": restarts,
+        "seed": seed if not isinstance(seed, np.random.Generator) else None,
+        "init": init,
+        "weighting": weighting,
+        "metric": metric,
+        "refine": refine,
+        "target": target,
+        "target_stat": target_stat,
+        "images": sources,
+        "n_pixels": sample.n_pixels,
+        "n_distinct": sample.n_colours,
+        "inertia": chosen.inertia,
+        "delta_e": chosen.delta_e,
+        "candidates": [
+            {"k": c.k, "inertia": c.inertia, "delta_e": c.delta_e, "robust_error": c.robust, "score": s}
+            for c, s in zip(cands, choice.scores)
+        ],
+        "notes": notes + list(chosen.palette.fit.get("notes", [])),
+    }
+    if fit["notes"]:
+        for n in fit["notes"]:
+            warnings.warn(n, PaletteSizeWarning if "distinct" in n else UserWarning, stacklevel=2)
+    return Palette(chosen.palette.rgb8, chosen.palette.locked, space, fit=fit)

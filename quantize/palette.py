@@ -1,0 +1,317 @@
+"""The Palette object and its JSON file.
+
+A palette is what a job keeps: the colours as they are written (8-bit sRGB),
+their CIELAB values, which are locked, the space they were fitted in and the
+settings of the fit.  ``Palette.apply`` maps any image onto it without
+refitting.
+
+File format (JSON, UTF-8)::
+
+    {
+      "format": "quantize.palette",
+      "version": 1,
+      "space": "lab",
+      "colours": [
+        {"hex": "#1f3a5c", "lab": [24.31, -0.52, -21.77], "locked": false, "name": null},
+        ...
+      ],
+      "fit": {... settings and results of the fit, free-form ...}
+    }
+
+``hex`` is authoritative; ``lab`` is written for people and other tools and is
+checked on load (a file whose Lab disagrees with its hex by more than 0.5 ΔE00
+has been edited by hand inconsistently and is refused).
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Sequence
+
+import numpy as np
+
+from .errors import PaletteFileError
+
+__all__ = ["Palette", "parse_colour", "FORMAT_NAME", "FORMAT_VERSION"]
+
+FORMAT_NAME = "quantize.palette"
+FORMAT_VERSION = 1
+_HEX = re.compile(r"^#?([0-9a-fA-F]{6})$")
+
+
+def parse_colour(spec) -> np.ndarray:
+    """A colour given as sRGB hex (``"#c8102e"``) or CIELAB (``"53.2,80.1,67.2"``).
+
+    Parameters
+    ----------
+    spec : str or sequence of 3 numbers
+        Hex with or without ``#``; or L*, a*, b* as a comma-separated string
+        or a 3-sequence (L* 0-100).
+
+    Returns
+    -------
+    ndarray of shape (3,), uint8
+        The 8-bit sRGB colour; Lab outside the sRGB gamut is clipped.
+
+    Raises
+    ------
+    ValueError
+        The text is neither form, or L* is outside 0-100.
+    """
+    from .colourspace import clip_to_gamut, lab_to_srgb
+
+    if isinstance(spec, str):
+        m = _HEX.match(spec.strip())
+        if m:
+            h = m.group(1)
+            return np.array([int(h[i:i + 2], 16) for i in (0, 2, 4)], dtype=np.uint8)
+        parts = spec.split(",")
+        try:
+            lab = [float(p) for p in parts]
+        except ValueError:
+            lab = []
+        if len(lab) != 3:
+            raise ValueError(f"colour {spec!r} is neither sRGB hex (#rrggbb) nor L,a,b")
+    else:
+        lab = [float(v) for v in spec]
+        if len(lab) != 3:
+            raise ValueError(f"colour {spec!r} must have 3 components (L, a, b)")
+    if not 0 <= lab[0] <= 100 or not all(np.isfinite(lab)):
+        raise ValueError(f"colour {spec!r}: L* must be within 0-100")
+    rgb = clip_to_gamut(lab_to_srgb(np.array(lab)))
+    return np.round(rgb * 255).astype(np.uint8)
+
+
+@dataclass(frozen=True, eq=False)
+class Palette:
+    """A fixed set of colours to reduce images to.
+
+    Attributes
+    ----------
+    rgb8 : ndarray of shape (k, 3), uint8
+        The colours as written into output files.
+    locked : ndarray of shape (k,), bool
+        Colours that were held fixed in the fit (substrate, brand colours).
+    space : str
+        Perceptual space of the fit and of nearest-colour mapping.
+    names : tuple of str or None
+        Optional names (inks); None entries are unnamed.
+    fit : dict
+        Settings and results of the fit (k rule, scores, k-means cost...).
+    """
+
+    rgb8: np.ndarray
+    locked: np.ndarray
+    space: str = "lab"
+    names: tuple = ()
+    fit: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        rgb = np.asarray(self.rgb8)
+        if rgb.ndim != 2 or rgb.shape[1] != 3 or rgb.shape[0] < 1:
+            raise ValueError(f"palette colours must have shape (k, 3), got {rgb.shape}")
+        object.__setattr__(self, "rgb8", rgb.astype(np.uint8))
+        lk = np.zeros(len(rgb), bool) if self.locked is None else np.asarray(self.locked, bool)
+        if lk.shape != (len(rgb),):
+            raise ValueError(f"locked flags must have shape ({len(rgb)},), got {lk.shape}")
+        object.__setattr__(self, "locked", lk)
+        names = tuple(self.names) if self.names else (None,) * len(rgb)
+        if len(names) != len(rgb):
+            raise ValueError(f"{len(names)} names for {len(rgb)} colours")
+        object.__setattr__(self, "names", names)
+
+    def __len__(self) -> int:
+        return int(self.rgb8.shape[0])
+
+    @property
+    def k(self) -> int:
+        """Number of colours."""
+        return len(self)
+
+    @property
+    def hex(self) -> list[str]:
+        """Colours as ``#rrggbb`` strings."""
+        return ["#{:02x}{:02x}{:02x}".format(*map(int, c)) for c in self.rgb8]
+
+    @property
+    def lab(self) -> np.ndarray:
+        """CIELAB (D65) of the written colours, shape (k, 3)."""
+        from .colourspace import srgb8_to_space
+
+        return srgb8_to_space(self.rgb8, "lab")
+
+    def points(self, space: str | None = None) -> np.ndarray:
+        """The written colours in ``space`` (default: the fit's space)."""
+        from .colourspace import srgb8_to_space
+
+        return srgb8_to_space(self.rgb8, space or self.space)
+
+    def apply(self, image, *, dither: str = "none", metric: str = "space", **options):
+        """Map an image onto this palette (out-of-sample, no refit).
+
+        Parameters
+        ----------
+        image : path, Picture, PIL image or ndarray
+            The image to reduce.
+        dither : str, default="none"
+            Dithering method; ``"none"`` maps every pixel to its nearest
+            colour.
+        metric : {"space", "ciede2000"}, default="space"
+            Nearest by Euclidean distance in the palette's space, or by
+            CIEDE2000.
+        **options
+            Passed to :func:`quantize.mapping.map_picture`.
+
+        Returns
+        -------
+        MappedImage
+            ``.indices``, ``.rgb``, ``.delta_e`` (mean, median, p95, max ΔE00)
+            and ``.coverage`` (percent per colour).
+        """
+        from .mapping import map_picture
+
+        return map_picture(image, self, dither=dither, metric=metric, **options)
+
+    # -- JSON -------------------------------------------------------------
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON document as a dict."""
+        lab = self.lab
+        return {
+            "format": FORMAT_NAME,
+            "version": FORMAT_VERSION,
+            "space": self.space,
+            "colours": [
+                {
+                    "hex": h,
+                    "lab": [round(float(v), 4) for v in lab[i]],
+                    "locked": bool(self.locked[i]),
+                    "name": self.names[i],
+                }
+                for i, h in enumerate(self.hex)
+            ],
+            "fit": _jsonable(self.fit),
+        }
+
+    def save(self, path, *, force: bool = False) -> Path:
+        """Write the palette as JSON, atomically.
+
+        Raises
+        ------
+        OutputError
+            The file exists and ``force`` is false, or cannot be written.
+        """
+        from .images import atomic_write_text
+
+        text = json.dumps(self.to_dict(), indent=2, ensure_ascii=False) + "\n"
+        atomic_write_text(path, text, force=force)
+        return Path(path)
+
+    @classmethod
+    def load(cls, path) -> "Palette":
+        """Read a palette JSON file written by :meth:`save`.
+
+        Raises
+        ------
+        PaletteFileError
+            Missing or unreadable file, not JSON, a foreign format, a newer
+            version, or a bad entry; the message names the file and the
+            place.
+        """
+        p = Path(path)
+        try:
+            text = p.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            raise PaletteFileError(f"{p}: no such palette file") from None
+        except IsADirectoryError:
+            raise PaletteFileError(f"{p}: is a folder, not a palette file") from None
+        except (OSError, UnicodeDecodeError) as exc:
+            raise PaletteFileError(f"{p}: cannot read palette file ({exc.__class__.__name__})") from None
+        try:
+            doc = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise PaletteFileError(f"{p}: not JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+        return cls.from_dict(doc, source=str(p))
+
+    @classmethod
+    def from_dict(cls, doc, *, source: str = "<palette>") -> "Palette":
+        """Build a palette from its JSON document, validating every field."""
+        from .colourspace import SPACES, delta_e_ciede2000, srgb8_to_space
+
+        def bad(where, what):
+            raise PaletteFileError(f"{source}: {where}: {what}")
+
+        if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
+            bad("format", f"not a quantize palette (expected \"format\": \"{FORMAT_NAME}\")")
+        ver = doc.get("version")
+        if not isinstance(ver, int) or ver < 1:
+            bad("version", f"expected a positive integer, got {ver!r}")
+        if ver > FORMAT_VERSION:
+            bad("version", f"file is version {ver}; this quantize reads up to {FORMAT_VERSION}")
+        space = doc.get("space", "lab")
+        if space not in SPACES:
+            bad("space", f"unknown space {space!r}; expected one of {', '.join(SPACES)}")
+        cols = doc.get("colours")
+        if not isinstance(cols, list) or not cols:
+            bad("colours", "expected a non-empty list")
+        rgb, locked, names, labs = [], [], [], []
+        for i, c in enumerate(cols):
+            where = f"colours[{i}]"
+            if not isinstance(c, dict):
+                bad(where, "expected an object with 'hex'")
+            h = c.get("hex")
+            m = _HEX.match(h) if isinstance(h, str) else None
+            if not m:
+                bad(f"{where}.hex", f"expected '#rrggbb', got {h!r}")
+            rgb.append([int(m.group(1)[j:j + 2], 16) for j in (0, 2, 4)])
+            lk = c.get("locked", False)
+            if not isinstance(lk, bool):
+                bad(f"{where}.locked", f"expected true or false, got {lk!r}")
+            locked.append(lk)
+            nm = c.get("name")
+            if nm is not None and not isinstance(nm, str):
+                bad(f"{where}.name", f"expected text or null, got {nm!r}")
+            names.append(nm)
+            lab = c.get("lab")
+            if lab is not None:
+                if (not isinstance(lab, list) or len(lab) != 3
+                        or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in lab)):
+                    bad(f"{where}.lab", f"expected [L, a, b], got {lab!r}")
+                labs.append((i, lab))
+        rgb8 = np.array(rgb, dtype=np.uint8)
+        if labs:
+            idx = [i for i, _ in labs]
+            de = delta_e_ciede2000(srgb8_to_space(rgb8[idx], "lab"), np.array([l for _, l in labs], float))
+            worst = int(np.argmax(de))
+            if de[worst] > 0.5:
+                bad(f"colours[{idx[worst]}]", f"lab {labs[worst][1]} disagrees with hex "
+                    f"{cols[idx[worst]]['hex']} by ΔE00 {de[worst]:.2f}")
+        if len({tuple(c) for c in rgb}) != len(rgb):
+            bad("colours", "the same colour is listed twice")
+        fit = doc.get("fit", {})
+        if not isinstance(fit, dict):
+            bad("fit", "expected an object")
+        return cls(rgb8=rgb8, locked=np.array(locked), space=space, names=tuple(names), fit=fit)
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, float) and not np.isfinite(obj):
+        return None
+    return obj
+
+
+def palette_from_colours(colours: Sequence, *, locked=None, space: str = "lab", names=()) -> Palette:
+    """A palette from colour specs (hex or Lab, see :func:`parse_colour`)."""
+    rgb = np.array([parse_colour(c) for c in colours], dtype=np.uint8)
+    return Palette(rgb8=rgb, locked=locked, space=space, names=tuple(names))

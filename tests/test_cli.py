@@ -1,0 +1,185 @@
+"""The command line through click's CliRunner, plus real subprocess calls."""
+
+import json
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from PIL import Image
+
+from quantize import Palette
+from quantize.cli import main
+
+from artwork import flat_artwork
+
+
+@pytest.fixture()
+def art(tmp_path):
+    rgb, _ = flat_artwork(4, seed=11, jpeg_quality=85)
+    p = tmp_path / "art.png"
+    Image.fromarray(rgb).save(p, dpi=(300, 300))
+    return p
+
+
+def run(*args):
+    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+
+
+def test_reduce_indexed_png_with_palette_and_json(art, tmp_path):
+    out = tmp_path / "out.png"
+    r = run("reduce", art, "-o", out, "-k", "2-8", "--keep-palette", "--json")
+    assert r.exit_code == 0, r.output
+    summary = json.loads(r.stdout)
+    assert summary["k"] == 4 and summary["rule"] == "bic"
+    assert set(summary["delta_e"]) == {"mean", "median", "p95", "max"}
+    assert sum(c["coverage"] for c in summary["palette"]) == pytest.approx(100, abs=0.01)
+    with Image.open(out) as im:
+        assert im.mode == "P"
+        assert round(im.info["dpi"][0]) == 300
+        assert len(im.getcolors()) <= 4
+    pal = Palette.load(tmp_path / "out.palette.json")
+    assert pal.k == 4
+
+
+def test_reduce_human_summary_and_formats(art, tmp_path):
+    for ext, mode in [("tif", "RGB"), ("jpg", "RGB")]:
+        out = tmp_path / f"o.{ext}"
+        r = run("reduce", art, "-o", out, "-k", "3", "--lock", "#ffffff", "--space", "oklab",
+                "--seed", "2", "--restarts", "2", "--seeding", "farthest", "--nearest", "ciede2000")
+        assert r.exit_code == 0, r.output
+        assert "3 colours" in r.output and "ΔE00: mean" in r.output and "locked" in r.output
+        with Image.open(out) as im:
+            assert im.mode == mode
+
+
+def test_reduce_target_rule(art, tmp_path):
+    r = run("reduce", art, "-o", tmp_path / "t.png", "--target", "3", "--json")
+    assert r.exit_code == 0, r.output
+    s = json.loads(r.stdout)
+    assert s["rule"] == "target" and s["delta_e"]["mean"] <= 3
+
+
+def test_refuses_existing_output_and_input(art, tmp_path):
+    out = tmp_path / "out.png"
+    out.write_bytes(b"precious")
+    r = run("reduce", art, "-o", out, "-k", "3")
+    assert r.exit_code == 1 and "already exists" in r.output
+    assert out.read_bytes() == b"precious"
+    r = run("reduce", art, "-o", art, "-k", "3", "--force")
+    assert r.exit_code == 1 and "input" in r.output
+    assert run("reduce", art, "-o", out, "-k", "3", "--force").exit_code == 0
+
+
+def test_fit_then_apply(art, tmp_path):
+    other, _ = flat_artwork(4, seed=12)
+    p2 = tmp_path / "second.png"
+    Image.fromarray(other).save(p2)
+    pj = tmp_path / "shared.json"
+    r = run("fit", art, p2, "-o", pj, "-k", "6", "--weighting", "pixels", "--json")
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["k"] == 6
+    outdir = tmp_path / "mapped"
+    r = run("apply", pj, art, p2, "-o", outdir, "--json")
+    assert r.exit_code == 0, r.output
+    s = json.loads(r.stdout)
+    assert [os.path.basename(o) for o in s["outputs"]] == ["art.png", "second.png"]
+    pal = Palette.load(pj)
+    with Image.open(outdir / "art.png") as im:
+        used = {tuple(c) for _, c in im.convert("RGB").getcolors()}
+    assert used <= {tuple(map(int, c)) for c in pal.rgb8}
+    r = run("apply", pj, art, "-o", outdir, "--format", "tif")
+    assert r.exit_code == 0 and (outdir / "art.tif").exists()
+
+
+def _file(name, data):
+    def make(d):
+        p = d / name
+        p.write_bytes(data)
+        return p
+    return make
+
+
+@pytest.mark.parametrize("make, code, words", [
+    (lambda d: d / "missing.png", 2, "does not exist"),
+    (lambda d: d, 2, "directory"),
+    (_file("bad.png", b"\x89PNG\r\n\x1a\nbroken"), 1, "bad.png"),
+    (_file("empty.jpg", b""), 1, "empty.jpg"),
+    (_file("notes.png", b"hello, not an image"), 1, "notes.png"),
+])
+def test_bad_inputs_one_line_and_nothing_written(tmp_path, make, code, words):
+    src = make(tmp_path)
+    out = tmp_path / "o" / "out.png"
+    out.parent.mkdir()
+    r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "3"])
+    assert r.exit_code == code, r.output
+    assert words in r.output
+    assert "Traceback" not in r.output
+    assert len([ln for ln in r.output.strip().splitlines() if ln.strip()]) <= 3
+    assert not any(out.parent.iterdir())
+
+
+def test_unwritable_or_missing_output_folder(art, tmp_path):
+    r = run("reduce", art, "-o", tmp_path / "nope" / "o.png", "-k", "3")
+    assert r.exit_code == 1 and "does not exist" in r.output
+    # /proc refuses new files even to root, so this holds whoever runs the tests.
+    r = run("reduce", art, "-o", "/proc/quantize-test-out.png", "-k", "3")
+    assert r.exit_code == 1 and "Traceback" not in r.output
+    assert "quantize-test-out.png" in r.output
+    assert not os.path.exists("/proc/quantize-test-out.png")
+
+
+@pytest.mark.parametrize("args, words", [
+    (["-k", "9-3"], "MIN is larger"),
+    (["-k", "0"], "at least 1"),
+    (["-k", "300"], "256"),
+    (["--space", "hsv"], "hsv"),
+    (["--rule", "target"], "--target"),
+    (["--lock", "purple"], "purple"),
+])
+def test_bad_option_values(art, tmp_path, args, words):
+    r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "o.png"), *args])
+    assert r.exit_code in (1, 2), r.output
+    assert words in r.output and "Traceback" not in r.output
+    assert not (tmp_path / "o.png").exists()
+
+
+def test_apply_bad_palette_file(art, tmp_path):
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"format": "other"}')
+    r = run("apply", bad, art, "-o", tmp_path / "out")
+    assert r.exit_code == 1 and "bad.json" in r.output and "format" in r.output
+
+
+def test_debug_shows_traceback(tmp_path):
+    bad = tmp_path / "bad.png"
+    bad.write_bytes(b"junk")
+    r = CliRunner().invoke(main, ["--debug", "reduce", str(bad), "-o", str(tmp_path / "o.png")])
+    assert r.exit_code != 0 and r.exc_info is not None
+
+
+def test_real_subprocess_entry_points(art, tmp_path):
+    out = tmp_path / "sub.png"
+    p = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(art), "-o", str(out), "-k", "4", "--json"],
+                       capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    assert json.loads(p.stdout)["k"] == 4
+    p = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(tmp_path / "nope.png"), "-o", str(out)],
+                       capture_output=True, text=True)
+    assert p.returncode == 2 and "Traceback" not in p.stderr
+    exe = os.path.join(os.path.dirname(sys.executable), "quantize")
+    if not os.path.exists(exe):
+        pytest.skip("console script not installed in this environment (pip install . creates it)")
+    p = subprocess.run([exe, "--help"], capture_output=True, text=True)
+    assert p.returncode == 0 and "reduce" in p.stdout
+
+
+def test_help_does_not_import_heavy_modules():
+    code = ("import sys; from click.testing import CliRunner; from quantize.cli import main; "
+            "CliRunner().invoke(main, ['--help']); "
+            "print(sorted(m for m in ('numpy', 'colour', 'skimage', 'numba', 'matplotlib') if m in sys.modules))")
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    assert p.stdout.strip() == "[]"

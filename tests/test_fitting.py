@@ -1,0 +1,138 @@
+"""fit_palette and Palette.apply end to end on small images.
+
+Sources: the flat-colour checks are exact by construction (an image of N
+flat colours has an N-colour palette of zero error); ΔE00 values are
+computed with skimage.color.deltaE_ciede2000 as an independent reference.
+"""
+
+import warnings
+
+import numpy as np
+import pytest
+from skimage.color import deltaE_ciede2000, rgb2lab
+
+from quantize import fit_palette
+from quantize.colourspace import srgb_to_lab
+from quantize.images import as_picture
+from quantize.kmeans import PaletteSizeWarning
+
+from artwork import flat_artwork
+
+INKS = np.array([[244, 239, 225], [200, 16, 46], [31, 58, 92], [242, 169, 0], [0, 122, 94]], np.uint8)
+
+
+def stripes(colours, h=40, w=50):
+    img = np.zeros((h, w * len(colours), 3), np.uint8)
+    for i, c in enumerate(colours):
+        img[:, i * w:(i + 1) * w] = c
+    return img
+
+
+def test_flat_colours_come_back_exactly():
+    img = stripes(INKS)
+    pal = fit_palette(img, k=5)
+    lab_true = rgb2lab(INKS[None] / 255.0)[0]
+    lab_fit = rgb2lab(pal.rgb8[None] / 255.0)[0]
+    # each true ink has a palette colour within ΔE00 0.5 (skimage as reference)
+    for lab in lab_true:
+        assert deltaE_ciede2000(lab[None], lab_fit).min() < 0.5
+    res = pal.apply(img)
+    assert res.delta_e["max"] < 0.5
+    np.testing.assert_array_equal(res.rgb, img)
+    np.testing.assert_allclose(np.sort(res.coverage), [20.0] * 5)
+
+
+def test_same_seed_same_palette_and_range_member_matches_single_fit():
+    rgb, _ = flat_artwork(5, seed=7, jpeg_quality=85)
+    a = fit_palette(rgb, k=6, seed=3)
+    b = fit_palette(rgb, k=6, seed=3)
+    c = fit_palette(rgb, k=(6, 6), seed=3)
+    assert a.rgb8.tobytes() == b.rgb8.tobytes() == c.rgb8.tobytes()
+
+
+def test_locked_colour_is_kept_exactly():
+    rgb, _ = flat_artwork(4, seed=2, jpeg_quality=85)
+    pal = fit_palette(rgb, k=5, locked=["#123456", "50,20,-10"])
+    assert pal.hex[0] == "#123456"
+    assert pal.locked.tolist()[:2] == [True, True] and not pal.locked[2:].any()
+    assert pal.fit["k"] == 5
+
+
+def test_fewer_distinct_colours_than_k_says_so():
+    img = stripes(INKS[:3])
+    with pytest.warns(PaletteSizeWarning, match="only 3 distinct"):
+        pal = fit_palette(img, k=8)
+    assert pal.k == 3
+    assert len({tuple(c) for c in pal.rgb8}) == 3
+    assert "only 3" in pal.fit["reason"]
+
+
+def test_transparent_pixels_take_no_part():
+    img = stripes(INKS[:2])
+    rgba = np.dstack([img, np.full(img.shape[:2], 255, np.uint8)])
+    rgba[:, :10, :3] = (0, 255, 0)   # a colour that only occurs under alpha 0
+    rgba[:, :10, 3] = 0
+    pal = fit_palette(rgba, k=3)
+    assert pal.k == 2 and "#00ff00" not in pal.hex
+    res = pal.apply(rgba)
+    assert res.coverage.sum() == pytest.approx(100.0)
+    np.testing.assert_array_equal(res.alpha, rgba[..., 3])
+    assert res.delta_e["max"] < 0.5
+
+
+def test_pooled_images_equal_weighting():
+    big = stripes([INKS[0]], h=200, w=200)
+    small = stripes([INKS[1]], h=10, w=10)
+    pal = fit_palette([big, small], k=2)
+    assert sorted(pal.hex) == sorted(["#f4efe1", "#c8102e"])
+    with pytest.raises(ValueError, match="empty"):
+        fit_palette([], k=2)
+
+
+def test_delta_e_matches_independent_reference():
+    rgb, _ = flat_artwork(6, seed=4, jpeg_quality=85)
+    pal = fit_palette(rgb, k=4)
+    res = pal.apply(rgb)
+    # Our sRGB->Lab is checked against colour-science in test_colourspace; the
+    # ΔE00 here is scikit-image's independent implementation.
+    de = deltaE_ciede2000(srgb_to_lab(rgb / 255.0), srgb_to_lab(res.rgb / 255.0))
+    assert res.delta_e["mean"] == pytest.approx(de.mean(), rel=1e-6)
+    assert res.delta_e["max"] == pytest.approx(de.max(), rel=1e-6)
+    assert res.delta_e["p95"] == pytest.approx(np.quantile(de, 0.95, method="inverted_cdf"), rel=1e-6)
+
+
+def test_mapping_is_exact_nearest_out_of_sample():
+    rgb, _ = flat_artwork(5, seed=5)
+    pal = fit_palette(rgb, k=5)
+    other, _ = flat_artwork(5, seed=6, jpeg_quality=85)
+    res = pal.apply(other)
+    lab = srgb_to_lab(other / 255.0).reshape(-1, 3)
+    plab = pal.lab
+    d2 = ((lab[:, None] - plab[None]) ** 2).sum(-1)
+    np.testing.assert_array_equal(res.indices.ravel(), d2.argmin(1))
+    res2 = pal.apply(other, metric="ciede2000")
+    de = np.stack([deltaE_ciede2000(lab, np.broadcast_to(p, lab.shape)) for p in plab], 1)
+    np.testing.assert_array_equal(res2.indices.ravel(), de.argmin(1))
+    assert res2.delta_e["mean"] <= res.delta_e["mean"] + 1e-9
+
+
+@pytest.mark.parametrize("space", ["lab", "oklab", "cam16ucs"])
+def test_every_space_fits(space):
+    img = stripes(INKS[:3])
+    pal = fit_palette(img, k=3, space=space)
+    assert pal.space == space
+    assert pal.apply(img).delta_e["max"] < 0.5
+
+
+@pytest.mark.parametrize("kw, match", [
+    (dict(k=0), "at least 1"),
+    (dict(k=(5, 3)), "min > max"),
+    (dict(k="x"), "not N or MIN-MAX"),
+    (dict(space="hsv"), "lab, oklab, cam16ucs"),
+    (dict(rule="elbow"), "bic, target"),
+    (dict(rule="target", k=(2, 4)), "positive"),
+    (dict(k=2, locked=["#000000"] * 3), "locked"),
+])
+def test_bad_settings(kw, match):
+    with pytest.raises(ValueError, match=match):
+        fit_palette(stripes(INKS[:2]), **kw)

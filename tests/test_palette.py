@@ -1,0 +1,92 @@
+"""The Palette object, its colour parsing and its JSON file."""
+
+import json
+
+import numpy as np
+import pytest
+
+from quantize import Palette, PaletteFileError, parse_colour
+from quantize.colourspace import srgb_to_lab
+
+
+def test_parse_hex_and_lab():
+    np.testing.assert_array_equal(parse_colour("#c8102e"), [200, 16, 46])
+    np.testing.assert_array_equal(parse_colour("C8102E"), [200, 16, 46])
+    # L*=100, a*=b*=0 is the D65 white of sRGB (IEC 61966-2-1): #ffffff.
+    np.testing.assert_array_equal(parse_colour("100,0,0"), [255, 255, 255])
+    np.testing.assert_array_equal(parse_colour((0, 0, 0)), [0, 0, 0])
+
+
+@pytest.mark.parametrize("bad", ["#12345", "red", "1,2", "120,0,0", "a,b,c"])
+def test_parse_rejects(bad):
+    with pytest.raises(ValueError, match="colour|L\\*"):
+        parse_colour(bad)
+
+
+def make_palette():
+    rgb = np.array([[244, 239, 225], [200, 16, 46], [31, 58, 92]], np.uint8)
+    return Palette(rgb, locked=[True, False, False], names=("paper", None, "navy"),
+                   fit={"k": 3, "seed": np.int64(4), "scores": np.array([1.5, 2.5])})
+
+
+def test_json_round_trip(tmp_path):
+    pal = make_palette()
+    p = pal.save(tmp_path / "p.json")
+    doc = json.loads(p.read_text())
+    assert doc["format"] == "quantize.palette" and doc["version"] == 1
+    assert [c["hex"] for c in doc["colours"]] == ["#f4efe1", "#c8102e", "#1f3a5c"]
+    # Lab stored beside hex agrees with an independent sRGB->Lab conversion.
+    np.testing.assert_allclose(doc["colours"][1]["lab"], srgb_to_lab(np.array([200, 16, 46]) / 255), atol=1e-3)
+    back = Palette.load(p)
+    np.testing.assert_array_equal(back.rgb8, pal.rgb8)
+    np.testing.assert_array_equal(back.locked, pal.locked)
+    assert back.names == pal.names and back.space == "lab"
+    assert back.fit["scores"] == [1.5, 2.5]
+
+
+def test_save_refuses_existing_without_force(tmp_path):
+    from quantize.errors import OutputError
+
+    pal = make_palette()
+    p = tmp_path / "p.json"
+    p.write_text("keep me")
+    with pytest.raises(OutputError):
+        pal.save(p)
+    assert p.read_text() == "keep me"
+    pal.save(p, force=True)
+    assert Palette.load(p).k == 3
+
+
+def _write(tmp_path, doc):
+    p = tmp_path / "bad.json"
+    p.write_text(doc if isinstance(doc, str) else json.dumps(doc))
+    return p
+
+
+GOOD = {"format": "quantize.palette", "version": 1, "space": "lab",
+        "colours": [{"hex": "#000000", "lab": [0, 0, 0], "locked": False}]}
+
+
+@pytest.mark.parametrize("mutate, where", [
+    (lambda d: "{not json", "line 1"),
+    (lambda d: {**d, "format": "something-else"}, "format"),
+    (lambda d: {**d, "version": 9}, "version 9"),
+    (lambda d: {**d, "space": "hsv"}, "space"),
+    (lambda d: {**d, "colours": []}, "colours"),
+    (lambda d: {**d, "colours": [{"hex": "#zz0000"}]}, "colours\\[0\\].hex"),
+    (lambda d: {**d, "colours": [{"hex": "#000000", "locked": "yes"}]}, "colours\\[0\\].locked"),
+    (lambda d: {**d, "colours": [{"hex": "#000000", "lab": [50, 0, 0]}]}, "disagrees"),
+    (lambda d: {**d, "colours": [{"hex": "#000000"}, {"hex": "#000000"}]}, "twice"),
+])
+def test_bad_files_name_file_and_place(tmp_path, mutate, where):
+    p = _write(tmp_path, mutate(GOOD))
+    with pytest.raises(PaletteFileError, match=where) as info:
+        Palette.load(p)
+    assert str(p) in str(info.value)
+
+
+def test_missing_and_folder(tmp_path):
+    with pytest.raises(PaletteFileError, match="no such"):
+        Palette.load(tmp_path / "nope.json")
+    with pytest.raises(PaletteFileError, match="folder"):
+        Palette.load(tmp_path)
