@@ -35,8 +35,9 @@ RUNNERS = {
     "quantize": """
 import sys, quantize
 src, dst, k = sys.argv[1], sys.argv[2], int(sys.argv[3])
-pal = quantize.fit_palette(src, k=k, seed=0)
-pal.apply(src).save(dst, force=True)
+pic = quantize.load_image(src)
+pal = quantize.fit_palette(pic, k=k, seed=0)
+pal.apply(pic).save(dst, force=True)
 """,
     "median-cut": """
 import sys

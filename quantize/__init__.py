@@ -21,8 +21,8 @@ __version__ = "0.1.0"
 
 # public name -> module that defines it
 _EXPORTS = {
-    "kmeans": "kmeans",
-    "KMeansResult": "kmeans",
+    "kmeans": "clustering",
+    "KMeansResult": "clustering",
     "fit_palette": "fitting",
     "Palette": "palette",
     "parse_colour": "palette",
@@ -65,7 +65,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs only
     from .errors import ImageReadError, OutputError, PaletteFileError, QuantizeError
     from .fitting import fit_palette
     from .images import Picture, as_picture, load_image, save_image
-    from .kmeans import KMeansResult, kmeans
+    from .clustering import KMeansResult, kmeans
     from .mapping import MappedImage, map_picture
     from .palette import Palette, parse_colour
     from .sampling import ColourSample, sample_picture

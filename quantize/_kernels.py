@@ -1,9 +1,11 @@
-"""Compiled inner kernels shared by the clustering and mapping stages.
+"""Inner kernels shared by the clustering and mapping stages.
 
-Each kernel has a small Python front that prepares contiguous float64 arrays;
-the kernels themselves assume clean input.  numba is imported on first use,
-and compiled code is cached on disk, so a later process pays only the load.
-The plain-numpy twin of every kernel lives in ``tests/naive.py``.
+The kernels assume clean input (contiguous float64 arrays of matching
+dimension).  Their plain brute-force twins live in ``tests/naive.py``.
+
+The assignment is plain numpy on purpose: it runs on distinct colours, not
+pixels, so a handful of vectorised passes is fast enough, and loading a JIT
+compiler would cost a second of start-up on every command.
 """
 
 from __future__ import annotations
@@ -12,41 +14,16 @@ import numpy as np
 
 __all__ = ["assign_nearest"]
 
-_compiled: dict = {}
-
-
-def _assign_kernel():
-    if "assign" not in _compiled:
-        import numba
-
-        # Serial on purpose: the work per call is small (distinct colours, not
-        # pixels), and numba's worker threads cost more than they save when
-        # the machine is shared.
-        @numba.njit(cache=True, nogil=True, fastmath=False)
-        def assign(points, centres, labels, dist2):
-            n, d = points.shape
-            k = centres.shape[0]
-            for i in range(n):
-                best = np.inf
-                arg = 0
-                for j in range(k):
-                    s = 0.0
-                    for t in range(d):
-                        diff = points[i, t] - centres[j, t]
-                        s += diff * diff
-                    # Strict '<' keeps the lowest index on ties, like argmin.
-                    if s < best:
-                        best = s
-                        arg = j
-                labels[i] = arg
-                dist2[i] = best
-
-        _compiled["assign"] = assign
-    return _compiled["assign"]
+#: Points per block: keeps the temporaries in cache.
+_BLOCK = 1 << 16
 
 
 def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest centre of every point by squared Euclidean distance.
+
+    Distances are computed directly as sums of squared coordinate
+    differences (no ``|x|^2 - 2 x.c + |c|^2`` expansion, whose rounding can
+    pick the wrong centre for near ties).
 
     Parameters
     ----------
@@ -62,9 +39,28 @@ def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray,
     """
     points = np.ascontiguousarray(points, dtype=np.float64)
     centres = np.ascontiguousarray(centres, dtype=np.float64)
-    n = points.shape[0]
-    labels = np.empty(n, dtype=np.intp)
+    n, d = points.shape
+    labels = np.zeros(n, dtype=np.intp)
     dist2 = np.empty(n, dtype=np.float64)
-    if n:
-        _assign_kernel()(points, centres, labels, dist2)
+    cols = [np.ascontiguousarray(points[:, t]) for t in range(d)]
+    for lo in range(0, n, _BLOCK):
+        hi = min(n, lo + _BLOCK)
+        best = dist2[lo:hi]
+        lab = labels[lo:hi]
+        acc = np.empty(hi - lo)
+        tmp = np.empty(hi - lo)
+        for j in range(centres.shape[0]):
+            np.subtract(cols[0][lo:hi], centres[j, 0], out=acc)
+            np.multiply(acc, acc, out=acc)
+            for t in range(1, d):
+                np.subtract(cols[t][lo:hi], centres[j, t], out=tmp)
+                np.multiply(tmp, tmp, out=tmp)
+                acc += tmp
+            if j == 0:
+                best[:] = acc
+            else:
+                # Strict '<' keeps the lowest index on ties, like argmin.
+                closer = acc < best
+                np.copyto(best, acc, where=closer)
+                lab[closer] = j
     return labels, dist2

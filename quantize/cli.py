@@ -93,8 +93,21 @@ def _fit_kwargs(o: dict) -> dict:
                 metric=o["nearest"], max_pixels=o["max_pixels"])
 
 
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n):
+        pass
+
+
 def _progress(n_steps: int, label: str):
-    """A click progress bar on stderr (hidden when stderr is not a terminal)."""
+    """A click progress bar on stderr; nothing at all when stderr is not a terminal."""
+    if not sys.stderr.isatty():
+        return _NoBar()
     return click.progressbar(length=n_steps, label=label, file=sys.stderr, show_eta=False)
 
 
@@ -162,6 +175,16 @@ def _check_outputs(paths, force: bool, inputs):
             raise _Failure(f"{p}: folder {rp.parent} does not exist")
 
 
+def _report_option(f):
+    return click.option("--report", "report_dir", type=click.Path(file_okay=False), default=None,
+                        help="Write an HTML report page with its images into this folder.")(f)
+
+
+def _report_targets(report_dir):
+    """The report page to check before work; a folder not yet made holds nothing to clobber."""
+    return [Path(report_dir) / "index.html"] if report_dir and Path(report_dir).is_dir() else []
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show full tracebacks on errors.")
 @click.version_option(package_name="quantize")
@@ -183,24 +206,34 @@ def main(ctx, debug):
               help="Reduced image: .png (indexed), .tif or .jpg.")
 @_fit_options
 @click.option("--keep-palette", is_flag=True, help="Also write the palette as OUTPUT-stem.palette.json beside it.")
+@_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def reduce(ctx, image, output, keep_palette, force, as_json, **fit_opts):
+def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_opts):
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""
     t0 = time.perf_counter()
     kwargs = _fit_kwargs(fit_opts)
     out = Path(output)
     pal_path = out.with_name(out.stem + ".palette.json") if keep_palette else None
-    _check_outputs([out] + ([pal_path] if pal_path else []), force, [image])
+    _check_outputs([out] + ([pal_path] if pal_path else []) + _report_targets(report_dir), force, [image])
     _check_indexed_size(out, kwargs["k"])
 
     def work():
-        pal = _fit_with_progress(image, kwargs)
-        res = pal.apply(image, metric=kwargs["metric"], max_pixels=kwargs["max_pixels"])
+        from .images import load_image
+
+        # Load once: fitting and mapping share the picture and its colour sample.
+        pic = load_image(image) if kwargs["max_pixels"] is None else load_image(image, max_pixels=kwargs["max_pixels"])
+        pal = _fit_with_progress(pic, kwargs)
+        res = pal.apply(pic, metric=kwargs["metric"])
         res.save(out, force=force, inputs=[image])
         if pal_path:
             pal.save(pal_path, force=force)
+        if report_dir:
+            from .report import write_report
+
+            write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
+                         title=f"quantize reduce: {Path(image).name}", force=force)
         return pal, res
 
     pal, res = _run(ctx, work)
@@ -209,12 +242,18 @@ def reduce(ctx, image, output, keep_palette, force, as_json, **fit_opts):
         "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit["rule"],
         "reason": pal.fit["reason"], "space": pal.space, "delta_e": res.delta_e,
         "kmeans_cost": pal.fit["inertia"], "palette": rows,
-        "outputs": [str(out)] + ([str(pal_path)] if pal_path else []),
+        "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
+                   + ([str(Path(report_dir) / "index.html")] if report_dir else []),
+        "candidates": pal.fit.get("candidates", []),
         "notes": list(pal.fit.get("notes", [])), "seconds": round(time.perf_counter() - t0, 3),
     }
 
     def human():
         click.echo(f"{image}: {pal.k} colours ({pal.fit['reason']})")
+        if len(pal.fit.get("candidates", [])) > 1:
+            from .sweep import format_table
+
+            click.echo(format_table(pal.fit["candidates"], chosen=pal.k))
         _print_de("ΔE00", res.delta_e)
         _print_palette(rows)
         for n in summary["notes"]:
@@ -282,10 +321,11 @@ def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
 @click.option("--nearest", type=click.Choice(("space", "ciede2000")), default="space", show_default=True,
               help="Map pixels by distance in the palette's space or by ΔE00.")
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, force, as_json):
+def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json):
     """Map IMAGES onto a saved PALETTE (no refit) and write them to a folder."""
     from .palette import Palette
 
@@ -296,6 +336,8 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, force, as_json
         raise _Failure("two inputs share a file name; their outputs would collide")
     if od.exists():
         _check_outputs(outs, force, list(images) + [palette])
+    if report_dir:
+        _check_outputs(_report_targets(report_dir), force, list(images) + [palette])
 
     def work():
         pal = Palette.load(palette)
@@ -307,6 +349,11 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, force, as_json
                 res.save(out, force=force, inputs=list(images) + [palette])
                 results.append(res)
                 bar.update(1)
+        if report_dir:
+            from .report import write_report
+
+            write_report(report_dir, original_picture=list(images), mapped=results, palette=pal,
+                         title=f"quantize apply: {Path(palette).name}", force=force)
         return pal, results
 
     pal, results = _run(ctx, work)
@@ -324,6 +371,14 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, force, as_json
             _print_de(f"{row['input']} -> {row['output']}  ΔE00", row["delta_e"])
 
     _emit(as_json, summary, human)
+
+
+# Commands defined in their own modules; each imports only click at the top.
+from .cli_sweep import sweep as _sweep_command  # noqa: E402
+from .cli_separate import separate as _separate_command  # noqa: E402
+
+main.add_command(_sweep_command)
+main.add_command(_separate_command)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -13,7 +13,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from .kmeans import PaletteSizeWarning, check_init, kmeans
+from .clustering import PaletteSizeWarning, check_init, kmeans
 from .palette import Palette, parse_colour
 from .selection import choose_k, check_rule, robust_error
 

@@ -154,8 +154,7 @@ def choose_k(ks, stats, robust, *, rule: str = "bic", target: float | None = Non
     scores = tuple(float(s) for s in bic_scores(ks, robust, m=m))
     if rule == "bic":
         i = int(np.argmin(scores))
-        reason = (f"lowest penalised score ({scores[i]:.1f}) over k = {ks[0]}..{ks[-1]}; "
-                  f"robust ΔE00 error {robust[i]:.2f}")
+        reason = f"penalised score {scores[i]:.1f}, the lowest over k = {ks[0]}..{ks[-1]}"
         return Choice(ks[i], rule, reason, scores)
     if target is None or not target > 0:
         raise ValueError(f"the target rule needs a positive ΔE00 target, got {target!r}")

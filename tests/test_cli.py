@@ -183,3 +183,25 @@ def test_help_does_not_import_heavy_modules():
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert p.returncode == 0, p.stderr
     assert p.stdout.strip() == "[]"
+
+
+def test_reduce_range_explains_choice_and_writes_report(art, tmp_path):
+    import re
+
+    rep = tmp_path / "report"
+    r = run("reduce", art, "-o", tmp_path / "r.png", "-k", "2-6", "--report", rep)
+    assert r.exit_code == 0, r.output
+    # the candidates table, with the chosen row marked
+    assert re.search(r"^>\s*4\b", r.stdout, flags=re.M), r.stdout
+    page = (rep / "index.html").read_text()
+    srcs = re.findall(r'<img[^>]+src="([^"]+)"', page)
+    assert srcs and all((rep / s).exists() for s in srcs)
+
+
+def test_apply_report(art, tmp_path):
+    pj = tmp_path / "p.json"
+    assert run("fit", art, "-o", pj, "-k", "4").exit_code == 0
+    rep = tmp_path / "rep"
+    r = run("apply", pj, art, "-o", tmp_path / "out", "--report", rep)
+    assert r.exit_code == 0, r.output
+    assert (rep / "index.html").exists()

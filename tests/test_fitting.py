@@ -14,7 +14,7 @@ from skimage.color import deltaE_ciede2000, rgb2lab
 from quantize import fit_palette
 from quantize.colourspace import srgb_to_lab
 from quantize.images import as_picture
-from quantize.kmeans import PaletteSizeWarning
+from quantize.clustering import PaletteSizeWarning
 
 from artwork import flat_artwork
 

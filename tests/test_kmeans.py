@@ -12,7 +12,7 @@ from hypothesis.extra.numpy import arrays
 
 from quantize import kmeans
 from quantize._kernels import assign_nearest
-from quantize.kmeans import INITS, PaletteSizeWarning
+from quantize.clustering import INITS, PaletteSizeWarning
 
 import naive
 

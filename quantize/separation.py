@@ -1,0 +1,974 @@
+"""Separations for screen printing: printable detail, one plate per ink.
+
+A palette-reduced image becomes a set of 1-bit plates (films), one per printed
+ink, knocked out so that no two plates print the same pixel. The substrate
+(garment or paper colour) is a locked palette colour that gets no plate.
+
+Steps of :func:`separate`:
+
+1. **Map** every pixel to its nearest palette colour by ΔE00.
+2. **Clean up printable detail.** A connected region of one colour
+   (4-connected, labelled by :func:`skimage.measure.label`) whose area is
+   below that of a dot of the minimum feature diameter is merged into a
+   neighbouring, larger region; of the neighbours, the colour with the least
+   ΔE00 from the region's colour is taken (ties: the longest shared border).
+   Passes repeat until no region is too small. The number of changed pixels
+   and the ΔE00 the change costs are reported.
+3. **Report thin detail.** Per plate, parts of the ink area that a disk of the
+   minimum line width does not fit (morphological opening with a disk,
+   :mod:`skimage.morphology`) are thin positive lines; gaps in the ink area
+   narrower than it (closing) are thin knock-out gaps. Each is
+   reported with its bounding box in pixels and millimetres. They are not
+   changed: whether they hold is the printer's call.
+4. **Plates**, in print order (light to dark unless given), each with its
+   coverage; an optional underbase (the union of printed areas, choked
+   inward); a composite preview of the plates printed on the substrate.
+
+Default sizes (all "common practice, no source"; set them from the shop's
+screen mesh, emulsion and ink): minimum feature 0.5 mm, minimum line
+0.35 mm (about 1 pt), underbase choke 0.25 mm, 300 dpi when the image records
+none, registration margin 10 mm.
+
+ΔE figures are computed from file data; they are not measurements of a print.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Sequence
+
+import numpy as np
+
+from .errors import OutputError, QuantizeError
+
+__all__ = [
+    "SeparationError", "Plate", "Separation", "separate", "clean_small_regions", "find_thin_features",
+    "underbase_mask", "with_substrate", "mm_to_px", "print_order", "choose_palette",
+    "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM", "DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM",
+]
+
+#: Smallest printable dot diameter, mm (common practice, no source).
+DEFAULT_MIN_FEATURE_MM = 0.5
+#: Thinnest printable line or knock-out gap, mm; about 1 pt (common practice, no source).
+DEFAULT_MIN_LINE_MM = 0.35
+#: How far the underbase is pulled in from the edges of the print, mm (common practice, no source).
+DEFAULT_CHOKE_MM = 0.25
+#: Resolution assumed when the image records none (common practice, no source).
+DEFAULT_DPI = 300.0
+#: Margin around the artwork for registration marks and the label, mm.
+DEFAULT_MARGIN_MM = 10.0
+_MANIFEST_FORMAT = "quantize.separation"
+CAUTION = ("ΔE figures are computed from file data on an assumed sRGB display; they are not a measured "
+           "print. Proof physically and follow the print shop's own standards before a production run.")
+
+
+class SeparationError(QuantizeError):
+    """The separation cannot be made as asked (sizes, order, substrate)."""
+
+
+def mm_to_px(mm: float, dpi: float) -> float:
+    """Millimetres to pixels at ``dpi`` (25.4 mm per inch).
+
+    Examples
+    --------
+    >>> mm_to_px(25.4, 300)
+    300.0
+    """
+    return float(mm) / 25.4 * float(dpi)
+
+
+# --------------------------------------------------------------------------- clean-up
+
+def _label_regions(indices: np.ndarray, opaque: np.ndarray) -> tuple[np.ndarray, int]:
+    from skimage.measure import label
+
+    codes = indices.astype(np.int64) + 1
+    codes[~opaque] = 0  # transparent pixels are no region
+    return label(codes, background=0, connectivity=1, return_num=True)
+
+
+def _adjacent_pairs(labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(a, b) label pairs of 4-neighbouring pixels in different regions, both directions."""
+    pairs = []
+    for x, y in ((labels[:, :-1], labels[:, 1:]), (labels[:-1, :], labels[1:, :])):
+        keep = (x != y) & (x > 0) & (y > 0)
+        pairs.append(np.stack([x[keep], y[keep]]))
+        pairs.append(np.stack([y[keep], x[keep]]))
+    ab = np.concatenate(pairs, axis=1)
+    return ab[0], ab[1]
+
+
+def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: float,
+                        opaque: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
+    """Merge connected single-colour regions smaller than ``min_area`` pixels into a neighbour.
+
+    Parameters
+    ----------
+    indices : (H, W) ndarray of int
+        Palette index per pixel.
+    ink_lab : (k, 3) ndarray
+        CIELAB of the palette colours (ΔE00 between them decides the merge).
+    min_area : float
+        Regions with fewer pixels than this are merged.
+    opaque : (H, W) bool ndarray, optional
+        Pixels that print; transparent ones are left alone and are no
+        region's neighbour.
+
+    Returns
+    -------
+    indices : (H, W) ndarray
+        The cleaned indices (same dtype).
+    report : dict
+        ``pixels_changed``, ``regions_merged``, ``passes``, ``regions_left_small``
+        (regions with no neighbour to merge into), ``delta_e_changed_mean`` and
+        ``delta_e_changed_max`` (ΔE00 from each changed pixel's old colour to its
+        new one) and ``delta_e_image_mean`` (that change averaged over every
+        opaque pixel).
+
+    Notes
+    -----
+    Each pass labels the regions (:func:`skimage.measure.label`), finds the
+    neighbours of every small region along 4-neighbour borders, and merges each
+    small region into the neighbouring region of lowest ΔE00 among those that
+    are larger (by area, then label), unless that small region is itself the
+    target of another merge in this pass. The smallest region always merges,
+    so the passes end.
+
+    Examples
+    --------
+    >>> idx = np.zeros((5, 5), np.uint8); idx[2, 2] = 1
+    >>> lab = np.array([[90.0, 0, 0], [30.0, 0, 0]])
+    >>> out, rep = clean_small_regions(idx, lab, min_area=2)
+    >>> int(out.max()), rep["pixels_changed"]
+    (0, 1)
+    """
+    from .colourspace import delta_e_ciede2000
+
+    idx = np.asarray(indices)
+    op = np.ones(idx.shape, bool) if opaque is None else np.asarray(opaque, bool)
+    lab = np.asarray(ink_lab, float)
+    de_ink = delta_e_ciede2000(lab[:, None, :], lab[None, :, :])
+    out = idx.copy()
+    merged = passes = 0
+    left_small = 0
+    while True:
+        labels, n = _label_regions(out, op)
+        area = np.bincount(labels.ravel(), minlength=n + 1)
+        colour = np.zeros(n + 1, np.int64)
+        colour[labels.ravel()] = out.ravel()
+        small = area < min_area
+        small[0] = False
+        if not small[1:].any():
+            break
+        a, b = _adjacent_pairs(labels)
+        larger = (area[b] > area[a]) | ((area[b] == area[a]) & (b > a))
+        sel = small[a] & larger
+        a, b = a[sel], b[sel]
+        if a.size == 0:
+            left_small = int(small[1:].sum())
+            break
+        key = a * (n + 1) + b
+        uniq, border = np.unique(key, return_counts=True)
+        ua, ub = uniq // (n + 1), uniq % (n + 1)
+        cost = de_ink[colour[ua], colour[ub]]
+        order = np.lexsort((-border, cost, ua))  # per source: cheapest, then longest border
+        ua, ub = ua[order], ub[order]
+        first = np.ones(ua.size, bool)
+        first[1:] = ua[1:] != ua[:-1]
+        src, tgt = ua[first], ub[first]
+        ok = ~np.isin(src, tgt)  # a region that receives a merge waits for the next pass
+        src, tgt = src[ok], tgt[ok]
+        lut = colour.copy()
+        lut[src] = colour[tgt]
+        out = np.where(op, lut[labels], out).astype(idx.dtype)
+        merged += int(src.size)
+        passes += 1
+    changed = (out != idx) & op
+    n_changed = int(changed.sum())
+    de = de_ink[idx[changed].astype(np.intp), out[changed].astype(np.intp)]
+    report = {
+        "min_area_px": float(min_area),
+        "pixels_changed": n_changed,
+        "regions_merged": merged,
+        "passes": passes,
+        "regions_left_small": left_small,
+        "delta_e_changed_mean": float(de.mean()) if n_changed else 0.0,
+        "delta_e_changed_max": float(de.max()) if n_changed else 0.0,
+        "delta_e_image_mean": float(de.sum() / max(int(op.sum()), 1)),
+    }
+    return out, report
+
+
+# --------------------------------------------------------------------------- thin detail
+
+def _odd_width(width_px: float) -> int:
+    # The digital disk {|v| <= r} is 2r+1 pixels across; round the width to the nearest odd count.
+    return max(1, 2 * int(round((width_px - 1.0) / 2.0)) + 1)
+
+
+def find_thin_features(mask: np.ndarray, *, width_px: float, dpi: float, name: str = "",
+                       limit: int = 100) -> tuple[list[dict], dict]:
+    """Thin positive lines and thin knock-out gaps of one plate.
+
+    Parameters
+    ----------
+    mask : (H, W) bool ndarray
+        Where the ink prints.
+    width_px : float
+        Minimum printable width in pixels; it is rounded to an odd number of
+        pixels ``n`` (a disk of radius ``(n - 1) / 2`` pixels).
+    dpi : float
+        For the millimetre coordinates.
+    name : str
+        Ink name written into each item.
+    limit : int, default 100
+        Largest number of items returned (the biggest first); the summary
+        counts them all.
+
+    Returns
+    -------
+    items : list of dict
+        ``ink``, ``kind`` ("line" or "gap"), ``pixels``, the bounding box
+        ``x``, ``y``, ``w``, ``h`` in pixels (x to the right, y down, from the
+        top-left corner) and the same in mm (``x_mm`` ...), and
+        ``width_mm`` (estimated narrowest width, from the distance transform).
+    summary : dict
+        ``lines``, ``gaps`` (counts), ``width_px`` (the odd width used).
+
+    Notes
+    -----
+    Outside the image counts as unprinted, so art cut by the edge is measured
+    as it will print. Only parts at least ``n`` pixels in area are reported:
+    the corners a disk cannot reach are smaller than that.
+
+    Examples
+    --------
+    >>> m = np.zeros((40, 40), bool); m[5:35, 5:20] = True; m[19:21, 20:35] = True
+    >>> items, summary = find_thin_features(m, width_px=5, dpi=300)
+    >>> summary["lines"], items[0]["x"], items[0]["h"]
+    (1, 21, 2)
+    """
+    from scipy import ndimage as ndi
+    from skimage.measure import label
+
+    n = _odd_width(width_px)
+    summary = {"lines": 0, "gaps": 0, "width_px": n, "width_mm": round(n / dpi * 25.4, 4)}
+    mask = np.asarray(mask, bool)
+    if n <= 1 or not mask.any():
+        return [], summary
+    r = (n - 1) // 2
+    pad = r + 2
+    # Work on the plate's bounding box only, padded with unprinted pixels.
+    rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
+    oy, ox = int(rows[0]) - pad, int(cols[0]) - pad
+    m = np.pad(mask[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1], pad)
+    opened, closed = _open_close(m, r)
+    found = []
+    for kind, part, ink_side in (("line", m & ~opened, m), ("gap", closed & ~m, ~m)):
+        lab, count = label(part, connectivity=2, return_num=True)
+        if count == 0:
+            continue
+        area = np.bincount(lab.ravel(), minlength=count + 1)
+        keep = np.flatnonzero(area >= n)
+        keep = keep[keep > 0]
+        summary["lines" if kind == "line" else "gaps"] += int(keep.size)
+        boxes = ndi.find_objects(lab)
+        for j in keep[np.argsort(-area[keep], kind="stable")][:limit]:
+            sy, sx = boxes[j - 1]
+            # Width from the distance transform, in a window around the part only.
+            wy = slice(max(sy.start - n, 0), sy.stop + n)
+            wx = slice(max(sx.start - n, 0), sx.stop + n)
+            dist = ndi.distance_transform_edt(ink_side[wy, wx])
+            inside = lab[wy, wx] == j
+            width = max(1.0, 2.0 * float(dist[inside].max()) - 1.0)
+            y0, x0, y1, x1 = sy.start + oy, sx.start + ox, sy.stop + oy, sx.stop + ox
+            found.append({"ink": name, "kind": kind, "pixels": int(area[j]), "x": x0, "y": y0,
+                          "w": x1 - x0, "h": y1 - y0, "x_mm": _mm(x0, dpi), "y_mm": _mm(y0, dpi),
+                          "w_mm": _mm(x1 - x0, dpi), "h_mm": _mm(y1 - y0, dpi), "width_mm": _mm(width, dpi)})
+    found.sort(key=lambda d: -d["pixels"])
+    return found[:limit], summary
+
+
+def _open_close(m: np.ndarray, r: int) -> tuple[np.ndarray, np.ndarray]:
+    """Opening and closing of ``m`` (padded with unprinted pixels) by the digital disk {|v| <= r}."""
+    from skimage import morphology
+
+    if r <= 8:  # a small footprint is cheaper than distance transforms
+        fp = morphology.disk(r)
+        return morphology.opening(m, fp).astype(bool), morphology.closing(m, fp).astype(bool)
+    eroded = morphology.isotropic_erosion(m, r)
+    # A distance transform needs at least one zero: an empty erosion opens to nothing.
+    opened = morphology.isotropic_dilation(eroded, r) if eroded.any() else np.zeros_like(m)
+    return opened, morphology.isotropic_closing(m, r)
+
+
+def _mm(px: float, dpi: float) -> float:
+    return round(float(px) / dpi * 25.4, 3)
+
+
+def underbase_mask(printed: np.ndarray, choke_px: float) -> np.ndarray:
+    """The underbase: printed areas choked inward by ``choke_px`` pixels.
+
+    A pixel is kept when every pixel within ``choke_px`` of it (centre to
+    centre) prints; outside the image counts as unprinted.
+
+    Examples
+    --------
+    >>> p = np.zeros((7, 7), bool); p[1:6, 1:6] = True
+    >>> int(underbase_mask(p, 1).sum())
+    9
+    """
+    from skimage.morphology import isotropic_erosion
+
+    p = np.asarray(printed, bool)
+    if choke_px <= 0:
+        return p.copy()
+    pad = int(math.ceil(choke_px)) + 1
+    return isotropic_erosion(np.pad(p, pad), choke_px)[pad:-pad, pad:-pad]
+
+
+# --------------------------------------------------------------------------- the separation
+
+@dataclass(frozen=True, eq=False)
+class Plate:
+    """One film: where one ink (or the underbase) prints."""
+
+    name: str
+    index: int | None  # palette index; None for the underbase
+    order: int  # 1 = printed first
+    mask: np.ndarray
+    coverage: float  # percent of the artwork's opaque pixels
+    rgb8: np.ndarray
+    lab: np.ndarray
+    slug: str = ""
+
+
+@dataclass(frozen=True, eq=False)
+class Separation:
+    """The result of :func:`separate`: plates and everything the manifest lists."""
+
+    indices: np.ndarray
+    palette: Any
+    substrate: int | None
+    plates: tuple
+    underbase: Plate | None
+    dpi: float
+    alpha: np.ndarray | None
+    source: str
+    cleanup: dict
+    thin: list
+    thin_summary: dict
+    delta_e: dict
+    settings: dict
+    notes: tuple = ()
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.indices.shape
+
+    @property
+    def rgb(self) -> np.ndarray:
+        """The cleaned, reduced image as 8-bit sRGB."""
+        return self.palette.rgb8[self.indices]
+
+    def coverage(self) -> dict[str, float]:
+        """Percent of the artwork per plate plus the substrate; sums to 100."""
+        out = {p.name: p.coverage for p in self.plates}
+        if self.substrate is not None:
+            out[_ink_name(self.palette, self.substrate)] = self.extra["substrate_coverage"]
+        return out
+
+    def composite_indices(self) -> np.ndarray:
+        """Palette indices of the plates printed in order on the substrate."""
+        base = self.substrate if self.substrate is not None else 0
+        comp = np.full(self.shape, base, dtype=self.indices.dtype)
+        for p in self.plates:
+            comp[p.mask] = p.index
+        return comp
+
+    def manifest(self, files: dict | None = None, *, composite: str | None = None, margin_px: int = 0) -> dict:
+        """The manifest document (JSON-ready).
+
+        ``files`` maps each plate's name to its file names; ``composite`` is
+        the preview's file name and ``margin_px`` the width of the marks margin.
+        """
+        from .colourspace import srgb8_to_space
+
+        files = files or {}
+        pal = self.palette
+        inks = []
+        for i in range(pal.k):
+            inks.append({"index": i, "name": _ink_name(pal, i), "hex": pal.hex[i],
+                         "lab": [round(float(v), 3) for v in pal.lab[i]],
+                         "role": "substrate" if i == self.substrate else "ink"})
+
+        def plate_doc(p: Plate) -> dict:
+            return {"name": p.name, "order": p.order, "palette_index": p.index, "hex": _hex(p.rgb8),
+                    "lab": [round(float(v), 3) for v in srgb8_to_space(p.rgb8, "lab")],
+                    "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, [])}
+
+        h, w = self.shape
+        doc = {
+            "format": _MANIFEST_FORMAT,
+            "version": 1,
+            "source": self.source,
+            "size_px": [w, h],
+            "dpi": self.dpi,
+            "size_mm": [_mm(w, self.dpi), _mm(h, self.dpi)],
+            "substrate": None if self.substrate is None else {
+                "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
+                "coverage_percent": round(self.extra["substrate_coverage"], 4)},
+            "inks": inks,
+            "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
+            "plates": [plate_doc(p) for p in self.plates],
+            "underbase": plate_doc(self.underbase) if self.underbase else None,
+            "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
+            "delta_e": self.delta_e,
+            "cleanup": self.cleanup,
+            "thin_features": {"summary": self.thin_summary, "items": self.thin},
+            "settings": self.settings,
+            "composite": composite,
+            "margin_px": margin_px,
+            "notes": list(self.notes),
+            "caution": CAUTION,
+        }
+        return _jsonable(doc)
+
+    def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
+              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
+        """Write plates (1-bit TIFF, optionally PNG), the composite preview and the manifest.
+
+        Every file is written atomically; existing files are checked before
+        anything is written, so without ``force`` either the whole set is
+        written or nothing is.
+
+        Parameters
+        ----------
+        folder : path
+            Created if missing.
+        force : bool
+            Replace existing files.
+        png : bool
+            Also write each plate as a 1-bit PNG.
+        marks : bool
+            Add a margin with registration marks and a label (ink name,
+            order, file name) around the artwork on every plate.
+        margin_mm : float
+            Width of that margin.
+        stem : str, optional
+            Prefix of the file names (default: the source file's stem).
+        inputs : sequence of path
+            Files never to overwrite.
+
+        Returns
+        -------
+        dict
+            ``manifest`` (path), ``composite`` (path), ``plates`` (name -> paths).
+
+        Raises
+        ------
+        OutputError
+            A file exists without ``force``, or cannot be written.
+        """
+        from .images import atomic_write_bytes, atomic_write_text, save_image
+
+        out = Path(folder)
+        if out.exists() and not out.is_dir():
+            raise OutputError(f"{out}: exists and is not a folder")
+        if stem is None:
+            stem = "art" if self.source.startswith("<") else _slug(Path(self.source).stem)
+        every = ([self.underbase] if self.underbase else []) + list(self.plates)
+        plan = {}
+        for p in every:
+            base = f"{stem}-{p.order:02d}-{p.slug}"
+            plan[p.name] = [out / f"{base}.tif"] + ([out / f"{base}.png"] if png else [])
+        composite = out / f"{stem}-composite.png"
+        manifest = out / f"{stem}-manifest.json"
+        targets = [t for ts in plan.values() for t in ts] + [composite, manifest]
+        if not force:
+            for t in targets:
+                if t.exists():
+                    raise OutputError(f"{t}: already exists; not replaced without force")
+        out.mkdir(parents=True, exist_ok=True)
+        margin = int(round(mm_to_px(margin_mm, self.dpi))) if marks else 0
+        total = len(every)
+        for p in every:
+            label = f"{p.name} | {p.order}/{total} | {plan[p.name][0].name}"
+            img = _plate_image(p.mask, margin, label if marks else None)
+            for t in plan[p.name]:
+                fmt = "TIFF" if t.suffix == ".tif" else "PNG"
+                buf = io.BytesIO()
+                opts = {"compression": "group4"} if fmt == "TIFF" else {"optimize": True}
+                img.save(buf, format=fmt, dpi=(self.dpi, self.dpi), **opts)
+                atomic_write_bytes(t, buf.getvalue(), force=force, inputs=inputs)
+        save_image(composite, self.composite_indices(), self.palette.rgb8, alpha=self.alpha,
+                   dpi=(self.dpi, self.dpi), force=force, inputs=inputs)
+        files = {name: [t.name for t in ts] for name, ts in plan.items()}
+        doc = self.manifest(files, composite=composite.name, margin_px=margin)
+        atomic_write_text(manifest, json.dumps(doc, indent=2, ensure_ascii=False) + "\n",
+                          force=force, inputs=inputs)
+        return {"manifest": manifest, "composite": composite, "plates": plan}
+
+
+def _plate_image(mask: np.ndarray, margin: int, label: str | None):
+    """A 1-bit film: ink black (0), clear white (1); marks and label in the margin."""
+    from PIL import Image, ImageDraw
+
+    h, w = mask.shape
+    canvas = np.zeros((h + 2 * margin, w + 2 * margin), bool)
+    canvas[margin:margin + h, margin:margin + w] = mask
+    img = Image.fromarray(~canvas)
+    if margin >= 8:
+        draw = ImageDraw.Draw(img)
+        r = max(2, int(margin * 0.3))
+        lw = max(1, margin // 40)
+        cx = [margin // 2, w + margin + margin // 2]
+        cy = [margin // 2, h + margin + margin // 2]
+        for x in cx:  # the four corners, outside the artwork
+            for y in cy:
+                draw.ellipse([x - r, y - r, x + r, y + r], outline=0, width=lw)
+                draw.line([x - r - lw, y, x + r + lw, y], fill=0, width=lw)
+                draw.line([x, y - r - lw, x, y + r + lw], fill=0, width=lw)
+        if label:
+            size = max(6, int(margin * 0.3))
+            font = _font(size)
+            room = max(1, w - 2 * lw)
+            while size > 6 and draw.textlength(label, font=font) > room:
+                size -= 1
+                font = _font(size)
+            # Draw on a scratch strip and paste only the margin, so nothing reaches the artwork.
+            strip = Image.new("1", (w, margin), 1)
+            ImageDraw.Draw(strip).text((lw, (margin - size) // 2), label, fill=0, font=font)
+            img.paste(strip, (margin, h + margin))
+    return img
+
+
+def _font(size: int):
+    from PIL import ImageFont
+
+    try:
+        return ImageFont.load_default(size=size)
+    except (TypeError, OSError, ImportError):  # a Pillow without FreeType: fixed-size bitmap font
+        return ImageFont.load_default()
+
+
+def _hex(rgb8) -> str:
+    return "#{:02x}{:02x}{:02x}".format(*map(int, rgb8))
+
+
+def _ink_name(palette, i: int) -> str:
+    return palette.names[i] or f"ink {palette.hex[i]}"
+
+
+def _slug(name: str) -> str:
+    s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    return s or "ink"
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return _jsonable(obj.item())
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None  # JSON has no NaN or infinity
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def with_substrate(palette, colour) -> tuple[Any, int]:
+    """The palette with ``colour`` as its locked substrate, and the substrate's index.
+
+    A palette colour equal to ``colour`` (same 8-bit sRGB) or named like it is
+    used; otherwise the colour is added, locked, in front.
+
+    Examples
+    --------
+    >>> from quantize.palette import Palette
+    >>> pal = Palette(np.array([[200, 16, 46]], np.uint8), None)
+    >>> pal2, i = with_substrate(pal, "#ffffff")
+    >>> pal2.hex, i, bool(pal2.locked[0])
+    (['#ffffff', '#c8102e'], 0, True)
+    """
+    from .palette import Palette, parse_colour
+
+    if isinstance(colour, str):
+        for i, nm in enumerate(palette.names):
+            if nm and nm.casefold() == colour.strip().casefold():
+                return _lock(palette, i), i
+    try:
+        rgb = parse_colour(colour)
+    except ValueError as exc:
+        raise SeparationError(f"substrate: {exc}") from None
+    hit = np.flatnonzero((palette.rgb8 == rgb).all(axis=1))
+    if hit.size:
+        return _lock(palette, int(hit[0])), int(hit[0])
+    names = ("substrate",) + tuple(palette.names)
+    pal = Palette(rgb8=np.vstack([rgb[None], palette.rgb8]), locked=np.r_[True, palette.locked],
+                  space=palette.space, names=names, fit=dict(palette.fit))
+    return pal, 0
+
+
+def _lock(palette, i: int):
+    from .palette import Palette
+
+    lk = palette.locked.copy()
+    lk[i] = True
+    return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=dict(palette.fit))
+
+
+def print_order(palette, printed: Sequence[int], order: Sequence | None = None) -> list[int]:
+    """Palette indices of the printed inks in print order.
+
+    Light to dark (descending L*) unless ``order`` lists every printed ink,
+    by name or palette index.
+
+    Raises
+    ------
+    SeparationError
+        ``order`` names an unknown ink, repeats one, or leaves one out.
+
+    Examples
+    --------
+    >>> from quantize.palette import Palette
+    >>> pal = Palette(np.array([[20, 20, 20], [250, 220, 0]], np.uint8), None)
+    >>> print_order(pal, [0, 1])
+    [1, 0]
+    """
+    printed = [int(i) for i in printed]
+    if order is None:
+        lab = palette.lab
+        return sorted(printed, key=lambda i: (-lab[i, 0], i))
+    names = {_ink_name(palette, i).casefold(): i for i in printed}
+    names.update({palette.hex[i]: i for i in printed})
+    out = []
+    for item in order:
+        if isinstance(item, (int, np.integer)) and not isinstance(item, bool):
+            i = int(item)
+        else:
+            i = names.get(str(item).strip().casefold())
+        if i is None or i not in printed:
+            raise SeparationError(f"print order: {item!r} is not a printed ink; printed inks are "
+                                  + ", ".join(_ink_name(palette, j) for j in printed))
+        if i in out:
+            raise SeparationError(f"print order: {item!r} is listed twice")
+        out.append(i)
+    missing = [_ink_name(palette, i) for i in printed if i not in out]
+    if missing:
+        raise SeparationError(f"print order leaves out {', '.join(missing)}; list every printed ink")
+    return out
+
+
+def separate(image, palette, *, substrate=None, dpi: float | None = None,
+             min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
+             underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
+             max_pixels=None) -> Separation:
+    """Separate an image into one knocked-out 1-bit plate per printed ink.
+
+    Parameters
+    ----------
+    image : path, Picture, PIL image or ndarray
+    palette : Palette
+        The inks and the substrate.
+    substrate : int, str or colour, optional
+        The substrate: a palette index, a palette colour's name, or a colour
+        (added, locked, when the palette lacks it). Default: the palette's
+        locked colour if it has exactly one, else none (every colour prints).
+    dpi : float, optional
+        Output resolution; default the image's, else 300.
+    min_feature_mm : float, default 0.5
+        Diameter of the smallest printable dot; regions of smaller area are
+        merged (0 turns the clean-up off).
+    min_line_mm : float, default 0.35
+        Thinner lines and knock-out gaps are reported (0 turns it off).
+    underbase : bool, default False
+        Add a white underbase plate, printed first.
+    choke_mm : float, default 0.25
+        How far the underbase stays inside the edges of the print.
+    order : sequence of str or int, optional
+        Print order of the inks; default light to dark.
+    max_pixels : int, optional
+        Decompression-bomb limit when ``image`` is a path.
+
+    Returns
+    -------
+    Separation
+
+    Raises
+    ------
+    SeparationError
+        A negative size, a minimum feature size that would erase the image,
+        or a bad print order or substrate.
+    ImageReadError
+        The image cannot be read.
+
+    References
+    ----------
+    .. [1] G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
+       formula: implementation notes, supplementary test data, and
+       mathematical observations", Color Res. Appl. 30(1), 21-30, 2005.
+    .. [2] J. Serra, *Image Analysis and Mathematical Morphology*, Academic
+       Press, 1982 (opening, closing, erosion).
+
+    Examples
+    --------
+    >>> from quantize.palette import Palette
+    >>> img = np.full((40, 40, 3), 255, np.uint8); img[10:30, 10:30] = (200, 16, 46)
+    >>> pal = Palette(np.array([[255, 255, 255], [200, 16, 46]], np.uint8), np.array([True, False]))
+    >>> sep = separate(img, pal, dpi=300)
+    >>> [(p.name, round(p.coverage, 2)) for p in sep.plates]
+    [('ink #c8102e', 25.0)]
+    """
+    from .images import as_picture, load_image
+    from .mapping import map_picture
+
+    for nm, v in (("min_feature_mm", min_feature_mm), ("min_line_mm", min_line_mm), ("choke_mm", choke_mm)):
+        if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
+            raise SeparationError(f"{nm} must be a size of 0 mm or more, got {v!r}")
+    if dpi is not None and not (math.isfinite(dpi) and dpi > 0):
+        raise SeparationError(f"dpi must be positive, got {dpi!r}")
+    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
+        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+    else:
+        pic = as_picture(image)
+    notes = [f"{pic.source}: {w}" for w in pic.warnings]
+    if substrate is None:
+        lk = np.flatnonzero(palette.locked)
+        sub = int(lk[0]) if lk.size == 1 else None
+        if lk.size > 1:
+            notes.append(f"the palette has {lk.size} locked colours; none is taken as the substrate "
+                         "(give one to leave it unprinted)")
+    elif isinstance(substrate, (int, np.integer)) and not isinstance(substrate, bool):
+        if not 0 <= int(substrate) < palette.k:
+            raise SeparationError(f"substrate index {substrate} is not a palette colour (0-{palette.k - 1})")
+        sub = int(substrate)
+    else:
+        palette, sub = with_substrate(palette, substrate)
+    if sub is not None and not palette.names[sub]:
+        from .palette import Palette
+
+        names = list(palette.names)
+        names[sub] = "substrate"
+        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+    if dpi is None:
+        if pic.dpi and pic.dpi[0] > 0:
+            dpi = float(pic.dpi[0])
+            if abs(dpi - round(dpi)) < 0.01:  # PNG stores pixels per metre: 300 dpi reads as 299.9994
+                dpi = float(round(dpi))
+        else:
+            dpi = DEFAULT_DPI
+            notes.append(f"the image records no resolution; {DEFAULT_DPI:g} dpi assumed")
+    from .sampling import sample_picture
+
+    smp = sample_picture(pic)
+    mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+    opaque = pic.opaque
+    n_opaque = int(opaque.sum())
+    idx = mapped.indices
+    ink_lab = palette.lab
+    d_px = mm_to_px(min_feature_mm, dpi)
+    min_area = math.pi * d_px * d_px / 4.0
+    if min_area > n_opaque:
+        raise SeparationError(f"a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at {dpi:g} dpi) "
+                              f"is larger than the whole image ({n_opaque} px): it would erase the image")
+    printed_before = int((opaque & (idx != sub)).sum()) if sub is not None else n_opaque
+    cleaned, report = clean_small_regions(idx, ink_lab, min_area=min_area, opaque=opaque)
+    printed_mask = opaque & (cleaned != sub) if sub is not None else opaque.copy()
+    if printed_before and not printed_mask.any():
+        raise SeparationError(f"a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at {dpi:g} dpi) "
+                              "would erase the image: every printed area is smaller than that")
+    report["min_feature_mm"] = min_feature_mm
+    report["delta_e_source"] = {"before": mapped.delta_e, "after": _source_delta_e(smp, cleaned, ink_lab)}
+    printed = [i for i in range(palette.k) if i != sub and ((cleaned == i) & opaque).any()]
+    unused = [_ink_name(palette, i) for i in range(palette.k) if i != sub and i not in printed]
+    if unused:
+        notes.append(f"no pixel prints {', '.join(unused)} (after clean-up): no plate for it")
+    ordered = print_order(palette, printed, order)
+    names = [_ink_name(palette, i) for i in ordered]
+    seen: dict[str, str] = {}
+    for nm in names:
+        if nm.casefold() in seen:
+            raise SeparationError(f"two printed colours are both called {nm!r}; plates are named after "
+                                  "inks, so every ink needs its own name")
+        seen[nm.casefold()] = nm
+    slugs = _unique_slugs(names)
+    plates = []
+    first = 2 if underbase else 1
+    for o, (i, nm, sl) in enumerate(zip(ordered, names, slugs)):
+        m = (cleaned == i) & opaque
+        plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
+                            rgb8=palette.rgb8[i], lab=ink_lab[i], slug=sl))
+    sub_cov = float(100.0 * ((cleaned == sub) & opaque).sum() / n_opaque) if sub is not None else 0.0
+    ub = None
+    if underbase:
+        ub_mask = underbase_mask(printed_mask, mm_to_px(choke_mm, dpi))
+        white = np.array([255, 255, 255], np.uint8)
+        ub = Plate(name="underbase", index=None, order=1, mask=ub_mask, coverage=float(100.0 * ub_mask.sum() / n_opaque),
+                   rgb8=white, lab=np.array([100.0, 0, 0]), slug="underbase")
+        if "underbase" in [n.casefold() for n in names]:
+            raise SeparationError("an ink is called 'underbase'; rename it, the underbase plate uses that name")
+        if sub is not None and ink_lab[sub, 0] > 60:
+            notes.append("an underbase on a light substrate is usually not needed")
+    thin, thin_summary = [], {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
+    if min_line_mm > 0:
+        w_px = mm_to_px(min_line_mm, dpi)
+        for p in plates:
+            items, summ = find_thin_features(p.mask, width_px=w_px, dpi=dpi, name=p.name)
+            thin.extend(items)
+            thin_summary["lines"] += summ["lines"]
+            thin_summary["gaps"] += summ["gaps"]
+            thin_summary["width_px"], thin_summary["width_mm"] = summ["width_px"], summ["width_mm"]
+        thin.sort(key=lambda d: -d["pixels"])
+        thin = thin[:200]
+    settings = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_area_px": round(min_area, 3),
+                "min_line_mm": min_line_mm, "underbase": underbase, "choke_mm": choke_mm if underbase else None,
+                "order": "given" if order is not None else "light to dark", "mapping": "nearest by ΔE00",
+                "palette_fit": palette.fit}
+    return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
+                      dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=report, thin=thin,
+                      thin_summary=thin_summary, delta_e=report["delta_e_source"]["after"], settings=settings,
+                      notes=tuple(notes + list(mapped.notes)), extra={"substrate_coverage": sub_cov})
+
+
+def _unique_slugs(names: Sequence[str]) -> list[str]:
+    out, seen = [], set()
+    for nm in names:
+        base = _slug(nm)
+        s, k = base, 2
+        while s in seen:
+            s, k = f"{base}-{k}", k + 1
+        seen.add(s)
+        out.append(s)
+    return out
+
+
+def _source_delta_e(smp, indices, ink_lab) -> dict:
+    """ΔE00 statistics between the source pixels and the cleaned-up colours."""
+    from .colourspace import delta_e_ciede2000
+    from .measure import delta_e_stats
+
+    inv = smp.inverse
+    live = inv >= 0
+    k = ink_lab.shape[0]
+    key = inv[live].astype(np.int64) * k + indices.ravel()[live]
+    uniq, counts = np.unique(key, return_counts=True)
+    de = delta_e_ciede2000(smp.points("lab")[uniq // k], ink_lab[uniq % k])
+    return delta_e_stats(de, counts)
+
+
+def choose_palette(image, *, palette=None, library=None, n: int | None = None, snap: bool = False,
+                   substrate=None, seed=0, max_pixels=None) -> tuple[Any, dict]:
+    """The inks to separate ``image`` into, from one of four sources.
+
+    * ``palette`` alone: that palette, with ``substrate`` locked into it.
+    * ``library`` and ``n``: the best ``n`` inks of the library
+      (:func:`quantize.inks.choose_inks`).
+    * ``library``, ``snap`` and ``n`` (or ``palette``): a palette fitted with
+      ``n`` inks (or the given one), each colour moved to its nearest library
+      ink (:func:`quantize.inks.snap_palette`).
+    * neither: a palette fitted to the image, ``n`` inks plus the substrate
+      (``n`` None: 1-8 inks, chosen by the fit's penalised rule).
+
+    Parameters
+    ----------
+    image : path, Picture, PIL image or ndarray
+    palette : Palette, optional
+    library : InkLibrary, optional
+    n : int, optional
+        Printed inks, the substrate not counted.
+    snap : bool, default False
+    substrate : str, optional
+        A colour (hex or L,a,b) or the name of a library ink. Default: the
+        given palette's locked colour if it has exactly one, else white
+        (``#ffffff``).
+    seed : int, default 0
+    max_pixels : int, optional
+
+    Returns
+    -------
+    palette : Palette
+        Substrate locked; its index is ``info["substrate"]``.
+    info : dict
+        How the inks were chosen (method, cost, snaps).
+
+    Raises
+    ------
+    SeparationError
+        An impossible combination (a library without ``n``, a palette and a
+        library without ``snap``).
+    InkLibraryError
+        Fewer inks in the library than asked for.
+
+    Examples
+    --------
+    >>> img = np.full((8, 8, 3), 255, np.uint8); img[:4] = (200, 16, 46)
+    >>> pal, info = choose_palette(img, n=1)
+    >>> pal.hex, info["method"]
+    (['#ffffff', '#c8102e'], 'fitted')
+    """
+    from .images import as_picture, load_image
+
+    if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
+        raise SeparationError(f"number of inks must be at least 1, got {n!r}")
+    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
+        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+    else:
+        pic = as_picture(image)
+    if library is not None and palette is not None and not snap:
+        raise SeparationError("a palette and an ink library were both given: add snap to move the palette's "
+                              "colours onto library inks, or give only one of them")
+    if library is not None and palette is None and n is None:
+        raise SeparationError("choosing inks from a library needs the number of inks (n)")
+    if substrate is None:
+        lk = np.flatnonzero(palette.locked) if palette is not None else np.array([], int)
+        substrate = palette.hex[int(lk[0])] if lk.size == 1 else "#ffffff"
+    if library is not None and not snap:
+        from .inks import choose_inks
+
+        sel = choose_inks(pic, library, n, substrate=substrate, seed=seed)
+        info = {"method": f"best {n} of {len(library)} library inks ({sel.method})",
+                "cost_delta_e": sel.cost, "subsets_evaluated": sel.evaluated, "library": library.describe(),
+                "substrate": 0}
+        return sel.palette, info
+    sub_spec = substrate
+    if library is not None and isinstance(substrate, str) and library.find(substrate) is not None:
+        sub_spec = library.inks[library.find(substrate)].hex
+    if palette is None:
+        from .fitting import fit_palette
+
+        k = n + 1 if n is not None else (2, 9)
+        palette = fit_palette(pic, k, locked=[sub_spec], seed=seed)
+        method = "fitted"
+    else:
+        method = "given palette"
+    palette, sub = with_substrate(palette, sub_spec)
+    info = {"method": method, "substrate": sub}
+    if snap:
+        from .inks import snap_palette
+
+        others = [i for i in range(palette.k) if i != sub]
+        lk = palette.locked.copy()
+        lk[:] = False
+        lk[sub] = True
+        from .palette import Palette
+
+        palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
+        palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
+        if isinstance(substrate, str) and library.find(substrate) is not None:
+            names = list(palette.names)
+            names[0] = library.inks[library.find(substrate)].name
+            palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+        info.update({"method": f"{method}, snapped to library inks", "snaps": snaps,
+                     "library": library.describe(), "colours_snapped": len(others), "substrate": 0})
+    return palette, info

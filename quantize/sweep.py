@@ -1,0 +1,602 @@
+"""The palette-size sweep: colour error at every palette size, before choosing.
+
+For each k of a range (default 2 to 16, at most :data:`MAX_SWEEP_K`) the sweep
+fits a palette and records its k-means cost (pixel-weighted squared error in
+the fitting space), its CIEDE2000 statistics, the penalised score of the
+``"bic"`` rule (:mod:`quantize.selection`) and the k each rule picks.
+
+Warm starts make it cheap and keep the best cost non-increasing in k.  The
+k + 1 fit has, beside the fresh k-means++ restarts, two candidates started
+from the k solution: the worst cluster split in two along its principal
+axis, and the k centres plus one greedy k-means++ addition.  The candidate
+of lowest cost is kept.  Adding a centre to a solution cannot raise its
+cost, and Lloyd iterations never do, so the cost at k + 1 is at most the
+cost at k; a final check on every distinct colour enforces this exactly.
+
+Several images are pooled into one sample (one palette shared by a product
+set) and each image's own ΔE00 is reported beside the pooled figures.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable, Sequence
+
+import numpy as np
+
+__all__ = ["sweep", "sweep_sample", "Sweep", "SweepRow", "parse_sweep_range", "candidate_rows",
+           "format_table", "MAX_SWEEP_K", "DEFAULT_RANGE", "STARTS"]
+
+#: Largest palette size a sweep fits.
+MAX_SWEEP_K = 64
+#: The range swept when none is given.
+DEFAULT_RANGE = (2, 16)
+#: How the kept candidate of a row was started.
+STARTS = {
+    "fresh": "best of the fresh k-means++ restarts",
+    "split": "the k-1 palette with its worst cluster split in two",
+    "add": "the k-1 palette plus one k-means++ addition",
+}
+SWEEP_FORMAT = "quantize.sweep"
+SWEEP_VERSION = 1
+
+
+@dataclass(frozen=True, eq=False)
+class SweepRow:
+    """One palette size of a sweep.
+
+    Attributes
+    ----------
+    k : int
+        Palette size asked for.
+    palette : Palette
+        The fitted palette (``palette.k`` can be below ``k`` when rounding
+        to 8 bits merged two colours).
+    cost : float
+        k-means cost: pixel-weighted sum of squared distances in the fitting
+        space, over every distinct colour.
+    delta_e : dict
+        Pooled ΔE00 ``mean``, ``median``, ``p95``, ``max``.
+    robust : float
+        The rule's robust error ``R_k`` (ΔE00 squared).
+    score : float
+        Penalised score of the ``"bic"`` rule (lower is better).
+    start : str
+        Which candidate was kept, a key of :data:`STARTS`.
+    coverage : ndarray of shape (palette.k,)
+        Percent of pooled pixels per colour.
+    per_image : dict
+        Image source -> ΔE00 statistics of that image alone (several images).
+    """
+
+    k: int
+    palette: object
+    cost: float
+    delta_e: dict
+    robust: float
+    score: float
+    start: str
+    coverage: np.ndarray
+    per_image: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True, eq=False)
+class Sweep:
+    """Result of :func:`sweep`: one row per k and the k each rule picks.
+
+    Attributes
+    ----------
+    rows : list of SweepRow
+        Ascending k.
+    choices : dict
+        Rule name -> :class:`quantize.selection.Choice`; ``"target"`` only
+        when a target was given.
+    rule : str
+        The rule whose pick is :attr:`chosen`.
+    settings : dict
+        Space, seed, restarts, warm, target, images, pixel counts.
+    notes : list of str
+    """
+
+    rows: list
+    choices: dict
+    rule: str
+    settings: dict
+    notes: list = field(default_factory=list)
+
+    @property
+    def ks(self) -> list[int]:
+        """The swept sizes."""
+        return [r.k for r in self.rows]
+
+    @property
+    def chosen(self) -> SweepRow:
+        """The row picked by :attr:`rule`."""
+        return self.row(self.choices[self.rule].k)
+
+    def row(self, k: int) -> SweepRow:
+        """The row of palette size ``k``."""
+        for r in self.rows:
+            if r.k == k:
+                return r
+        raise KeyError(f"k = {k} was not swept (swept {self.ks[0]}..{self.ks[-1]})")
+
+    def candidates(self) -> list[dict]:
+        """Rows in the form of ``palette.fit["candidates"]`` (see :func:`format_table`)."""
+        out = []
+        for r in self.rows:
+            d = {"k": r.k, "colours": r.palette.k, "inertia": r.cost, "delta_e": dict(r.delta_e),
+                 "robust_error": r.robust, "score": r.score, "start": r.start,
+                 "palette": list(r.palette.hex)}
+            if r.per_image:
+                d["per_image"] = {s: dict(v) for s, v in r.per_image.items()}
+            out.append(d)
+        return out
+
+    def to_dict(self) -> dict:
+        """The JSON table as a dict."""
+        return {
+            "format": SWEEP_FORMAT,
+            "version": SWEEP_VERSION,
+            "settings": self.settings,
+            "rule": self.rule,
+            "chosen": self.chosen.k,
+            "choices": {name: {"k": c.k, "reason": c.reason} for name, c in self.choices.items()},
+            "rows": self.candidates(),
+            "notes": list(self.notes),
+        }
+
+    def to_json(self) -> str:
+        """The table as JSON text (UTF-8, indented)."""
+        return json.dumps(_jsonable(self.to_dict()), indent=2, ensure_ascii=False) + "\n"
+
+    def to_csv(self) -> str:
+        """The table as CSV: one row per k, per-image ΔE00 columns after the pooled ones."""
+        sources = list(self.rows[0].per_image) if self.rows and self.rows[0].per_image else []
+        head = ["k", "colours", "kmeans_cost", "de00_mean", "de00_median", "de00_p95", "de00_max",
+                "robust_error", "penalised_score", "start"]
+        head += [f"chosen_{name}" for name in self.choices]
+        for s in sources:
+            head += [f"de00_mean[{s}]", f"de00_p95[{s}]", f"de00_max[{s}]"]
+        head.append("palette")
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(head)
+        for r in self.rows:
+            line = [r.k, r.palette.k, _g(r.cost), _g(r.delta_e["mean"]), _g(r.delta_e["median"]),
+                    _g(r.delta_e["p95"]), _g(r.delta_e["max"]), _g(r.robust), _g(r.score), r.start]
+            line += [int(c.k == r.k) for c in self.choices.values()]
+            for s in sources:
+                st = r.per_image[s]
+                line += [_g(st["mean"]), _g(st["p95"]), _g(st["max"])]
+            line.append(" ".join(r.palette.hex))
+            w.writerow(line)
+        return buf.getvalue()
+
+    def save_csv(self, path, *, force: bool = False):
+        """Write :meth:`to_csv` atomically; raises OutputError if it exists and not ``force``."""
+        from .images import atomic_write_text
+
+        return atomic_write_text(path, self.to_csv(), force=force)
+
+    def save_json(self, path, *, force: bool = False):
+        """Write :meth:`to_json` atomically; raises OutputError if it exists and not ``force``."""
+        from .images import atomic_write_text
+
+        return atomic_write_text(path, self.to_json(), force=force)
+
+    def table(self) -> str:
+        """The terminal table, the chosen row marked (see :func:`format_table`)."""
+        return format_table(self.candidates(), chosen=self.chosen.k,
+                            picks={n: c.k for n, c in self.choices.items()})
+
+
+def _g(x: float) -> str:
+    return f"{float(x):.6g}"
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, float) and not np.isfinite(obj):
+        return None
+    return obj
+
+
+def parse_sweep_range(ks=DEFAULT_RANGE) -> list[int]:
+    """The sizes of a sweep from ``(lo, hi)``, ``"lo-hi"``, a ``range``, or one int.
+
+    Raises
+    ------
+    ValueError
+        min > max, below 1, above :data:`MAX_SWEEP_K`, or not a size.
+
+    Examples
+    --------
+    >>> parse_sweep_range("3-6")
+    [3, 4, 5, 6]
+    """
+    from .fitting import parse_k
+
+    out = parse_k(ks)
+    if out[-1] > MAX_SWEEP_K:
+        raise ValueError(f"a sweep goes up to k = {MAX_SWEEP_K}, got {out[-1]}")
+    return out
+
+
+def _rng(seed, k: int, stream: int) -> np.random.Generator:
+    # Stream 0 is the one quantize.fitting uses for size k, so that the fresh
+    # restarts of a sweep are exactly those of ``fit_palette`` with the same seed.
+    if isinstance(seed, np.random.Generator):
+        return seed
+    words = [0 if seed is None else int(seed), int(k)] + ([stream] if stream else [])
+    return np.random.default_rng(np.random.SeedSequence(words))
+
+
+def _split_worst(points, weights, res, n_fixed):
+    """Start centres for k + 1: the costliest cluster split along its principal axis.
+
+    A Gaussian cut through its mean along an axis of variance ``lam`` has
+    half-means at ``+-sqrt(2 lam / pi)``: the two new centres go there.  A
+    locked centre stays and gains a partner on one side.  None when the
+    worst cluster is a single colour.
+    """
+    from ._kernels import assign_nearest
+
+    centres = res.centres
+    labels, d2 = assign_nearest(points, centres)
+    cost = np.bincount(labels, weights=weights * d2, minlength=len(centres))
+    j = int(np.argmax(cost))
+    members = labels == j
+    w = weights[members]
+    if cost[j] <= 0 or w.sum() <= 0:
+        return None
+    x = points[members]
+    mu = w @ x / w.sum()
+    cov = ((x - mu).T * w) @ (x - mu) / w.sum()
+    lam, vec = np.linalg.eigh(cov)
+    step = np.sqrt(2.0 * max(lam[-1], 0.0) / np.pi) * vec[:, -1]
+    if not np.any(step):
+        return None
+    start = np.vstack([centres, centres[j] + step])
+    if j >= n_fixed:
+        start[j] = centres[j] - step
+    return start
+
+
+def _add_one(points, weights, res, fixed, rng):
+    """Start centres for k + 1: the k centres plus one greedy k-means++ draw."""
+    from .clustering import INITS
+
+    return INITS["k-means++"](points, weights, len(res.centres) + 1, res.centres, rng)
+
+
+def _run_from(points, weights, start, fixed):
+    from .clustering import kmeans
+
+    return kmeans(points, len(start), weights=weights, fixed=fixed, init_centres=start)
+
+
+def _guarded(points, weights, start, fixed):
+    """Lloyd from ``start``, or ``start`` itself if rounding made Lloyd end higher.
+
+    The cost of ``start`` (old centres plus one) is at most the old cost
+    even in floating point: each squared distance can only fall, and the
+    sum is taken in the same order.
+    """
+    from ._kernels import assign_nearest
+    from .clustering import KMeansResult
+
+    res = _run_from(points, weights, start, fixed)
+    labels, d2 = assign_nearest(points, start)
+    c0 = float(weights @ d2)
+    if res.inertia <= c0:
+        return res
+    return KMeansResult(centres=start, labels=labels, inertia=c0, n_iter=0, history=(c0,), k_requested=len(start))
+
+
+def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int = 8, seed=0,
+                 locked=(), init: str = "k-means++", metric: str = "space", refine: str = "robust",
+                 warm: bool = True, rule: str = "bic", target: float | None = None, target_stat: str = "mean",
+                 per_image: Sequence = (), progress: Callable | None = None) -> Sweep:
+    """Sweep an already loaded colour sample; ``ks`` ascending and validated.
+
+    ``per_image`` is a sequence of ``(source, ColourSample)`` pairs whose
+    own ΔE00 is measured against each row's palette.  Other parameters as
+    in :func:`sweep`.
+    """
+    from .colourspace import srgb8_to_space
+    from .fitting import _to_palette
+    from .clustering import PaletteSizeWarning, kmeans
+    from .mapping import map_sample
+    from .measure import coverage_percent, delta_e_stats
+    from .palette import Palette, parse_colour
+    from .refine import robust_refine
+    from .selection import choose_k, robust_error
+
+    fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
+    if len({tuple(c) for c in fixed_rgb8}) != len(fixed_rgb8):
+        raise ValueError("the same locked colour is given twice")
+    n_fixed = len(fixed_rgb8)
+    if n_fixed > ks[0]:
+        raise ValueError(f"{n_fixed} locked colours do not fit in a palette of {ks[0]}")
+    fixed = srgb8_to_space(fixed_rgb8, space) if n_fixed else None
+    full_pts, full_w = sample.points(space), sample.weights
+    bin_pts, bin_w = sample.binned(space)
+
+    rows, notes = [], []
+    prev_coarse = prev_fine = None
+    for k in ks:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PaletteSizeWarning)
+            coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=_rng(seed, k, 0),
+                            fixed=fixed, init=init)
+            start = "fresh"
+            warm_ok = warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1
+            if warm_ok:
+                for name, c0 in (("split", _split_worst(bin_pts, bin_w, prev_coarse, n_fixed)),
+                                 ("add", _add_one(bin_pts, bin_w, prev_coarse, fixed, _rng(seed, k, 1)))):
+                    if c0 is None or len(c0) != k:
+                        continue
+                    cand = _run_from(bin_pts, bin_w, c0, fixed)
+                    if cand.inertia < coarse.inertia:
+                        coarse, start = cand, name
+            fine = kmeans(full_pts, len(coarse.centres), weights=full_w, fixed=fixed,
+                          init_centres=coarse.centres)
+            if warm and prev_fine is not None and len(prev_fine.centres) == k - 1 \
+                    and fine.inertia > prev_fine.inertia:
+                # Binning can mislead the choice; one addition to the previous
+                # full-data solution cannot cost more than it did.
+                c0 = _add_one(full_pts, full_w, prev_fine, fixed, _rng(seed, k, 2))
+                alt = _guarded(full_pts, full_w, c0, fixed) if len(c0) == k else None
+                if alt is not None and alt.inertia <= fine.inertia:
+                    fine, start = alt, "add"
+        prev_coarse, prev_fine = coarse, fine
+        centres = fine.centres
+        if refine == "robust":
+            # The same explicit step as quantize.fitting: the k-means cost is
+            # reported, the refined palette is what a job would print.
+            centres = robust_refine(bin_pts, bin_w, centres, n_fixed=n_fixed)
+            centres = robust_refine(full_pts, full_w, centres, n_fixed=n_fixed, max_swaps=0)
+        pal, merged = _to_palette(centres, fixed_rgb8, space, n_fixed)
+        if pal.k < k:
+            notes.append(f"k = {k}: rounding to 8 bits merged colours; the palette has {pal.k}")
+        pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start})
+        labels, de = map_sample(sample, pal, metric=metric)
+        per = {}
+        for src, smp in per_image:
+            _, de_i = map_sample(smp, pal, metric=metric)
+            per[src] = delta_e_stats(de_i, smp.weights)
+        rows.append(dict(k=k, palette=pal, cost=float(fine.inertia), delta_e=delta_e_stats(de, full_w),
+                         robust=robust_error(de, full_w), start=start,
+                         coverage=coverage_percent(labels, full_w, pal.k), per_image=per))
+        if progress:
+            progress(k)
+
+    kk = [r["k"] for r in rows]
+    stats = [r["delta_e"] for r in rows]
+    rob = [r["robust"] for r in rows]
+    choices = {"bic": choose_k(kk, stats, rob, rule="bic")}
+    if target is not None:
+        choices["target"] = choose_k(kk, stats, rob, rule="target", target=target, target_stat=target_stat)
+    if rule == "target" and "target" not in choices:
+        raise ValueError(f"the target rule needs a positive ΔE00 target, got {target!r}")
+    scores = choices["bic"].scores
+    out_rows = [SweepRow(score=float(s), **r) for r, s in zip(rows, scores)]
+    settings = {"space": space, "restarts": restarts, "init": init, "metric": metric, "refine": refine,
+                "warm": warm,
+                "seed": seed if not isinstance(seed, np.random.Generator) else None,
+                "locked": [f"#{c[0]:02x}{c[1]:02x}{c[2]:02x}" for c in fixed_rgb8.tolist()],
+                "target": target, "target_stat": target_stat, "k_range": [ks[0], ks[-1]],
+                "n_pixels": int(sample.n_pixels), "n_distinct": int(sample.n_colours)}
+    return Sweep(rows=out_rows, choices=choices, rule=rule, settings=settings, notes=notes)
+
+
+def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, seed=0, locked=(),
+          rule: str = "bic", target: float | None = None, target_stat: str = "mean",
+          init: str = "k-means++", weighting: str = "equal", metric: str = "space",
+          refine: str = "robust", warm: bool = True, max_pixels=None, progress: Callable | None = None) -> Sweep:
+    """Fit a palette at every size of a range and tabulate its error.
+
+    Parameters
+    ----------
+    images : path, Picture, PIL image, ndarray, or a list of them
+        Several images are pooled (one palette for the set); each also gets
+        its own ΔE00 columns.
+    ks : (min, max), "min-max", range or int, default=(2, 16)
+        Palette sizes, inclusive, within 1 to :data:`MAX_SWEEP_K`.
+    space : {"lab", "oklab", "cam16ucs"}, default="lab"
+        Perceptual space of the fit; the cost is measured there.
+    restarts : int, default=8
+        Fresh k-means++ restarts per size (the warm starts come on top).
+    seed : int or numpy Generator, default=0
+        Same seed, same sweep.
+    locked : sequence of colour specs, default=()
+        Colours held fixed in every palette (hex or ``"L,a,b"``).
+    rule : {"bic", "target"}, default="bic"
+        The rule whose pick is :attr:`Sweep.chosen`; both are reported.
+    target : float, optional
+        ΔE00 target of the ``"target"`` rule.
+    target_stat : {"mean", "p95"}, default="mean"
+    init : {"k-means++", "random", "farthest"}, default="k-means++"
+        Seeding of the fresh restarts.
+    weighting : {"equal", "pixels"}, default="equal"
+        How pooled images count.
+    metric : {"space", "ciede2000"}, default="space"
+        Nearest-colour metric used to measure each palette.
+    refine : {"robust", "none"}, default="robust"
+        The refinement after each k-means fit, as in
+        :func:`quantize.fitting.fit_palette`; the table's k-means cost is
+        that of the fit before it.
+    warm : bool, default=True
+        Add the warm starts from the previous size (False: fresh restarts
+        only, as :func:`quantize.fitting.fit_palette` does).
+    max_pixels : int, optional
+        Decompression-bomb limit for files.
+    progress : callable, optional
+        Called with each k once it is done.
+
+    Returns
+    -------
+    Sweep
+        ``.rows`` (cost, ΔE00, score, palette per k), ``.choices`` (the k
+        each rule picks) and ``.table()``, ``.to_csv()``, ``.to_json()``.
+
+    Raises
+    ------
+    ValueError
+        A range with min > max, k below 1 or above 64, an empty image set,
+        or a bad space, rule, seeding, target or locked colour.
+    ImageReadError
+        A file cannot be read.
+
+    References
+    ----------
+    .. [1] D. Arthur and S. Vassilvitskii, "k-means++: the advantages of
+       careful seeding", SODA 2007, 1027-1035.
+    .. [2] Y. Linde, A. Buzo and R. M. Gray, "An algorithm for vector
+       quantizer design", IEEE Transactions on Communications 28(1), 84-95,
+       1980 (growing a codebook by splitting).
+    .. [3] G. Schwarz, "Estimating the dimension of a model", Annals of
+       Statistics 6(2), 461-464, 1978.
+    .. [4] G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
+       formula: implementation notes, supplementary test data, and
+       mathematical observations", Color Research & Application 30(1),
+       21-30, 2005.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> img = np.zeros((8, 8, 3), np.uint8); img[:, 4:] = (200, 30, 40); img[:2] = (250, 250, 250)
+    >>> s = sweep(img, (2, 4))
+    >>> s.ks, s.chosen.k
+    ([2, 3], 3)
+    """
+    from .colourspace import check_space
+    from .fitting import REFINES, load_samples
+    from .clustering import check_init
+    from .mapping import check_metric
+    from .sampling import pool_samples
+    from .selection import check_rule
+
+    ks = parse_sweep_range(ks)
+    check_space(space)
+    check_rule(rule)
+    check_init(init)
+    check_metric(metric)
+    if refine not in REFINES:
+        raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
+    if isinstance(restarts, bool) or int(restarts) != restarts or restarts < 1:
+        raise ValueError(f"restarts must be a whole number of at least 1, got {restarts!r}")
+    if weighting not in ("equal", "pixels"):
+        raise ValueError(f"weighting must be 'equal' or 'pixels', got {weighting!r}")
+    if target is not None and not target > 0:
+        raise ValueError(f"a ΔE00 target must be positive, got {target!r}")
+    if rule == "target" and target is None:
+        raise ValueError("the target rule needs a positive ΔE00 target, got None")
+    items = list(images) if isinstance(images, (list, tuple)) else [images]
+    if not items:
+        raise ValueError("no images given: the image set is empty")
+    samples, sources, notes = [], [], []
+    for item in items:
+        smp, src, nts = load_samples(item, max_pixels=max_pixels)
+        samples.append(smp)
+        sources.extend(src)
+        notes.extend(nts)
+    sources = _unique_names(sources)
+    pooled = pool_samples(samples, weighting=weighting)
+    n = pooled.n_colours
+    if ks[-1] > n:
+        notes.append(f"the image set has only {n} distinct colours; sizes above {n} were not swept")
+        ks = [k for k in ks if k <= n] or [n]
+    per = list(zip(sources, samples)) if len(samples) > 1 else []
+    res = sweep_sample(pooled, ks, space=space, restarts=int(restarts), seed=seed, locked=locked, init=init,
+                       metric=metric, refine=refine, warm=warm, rule=rule, target=target, target_stat=target_stat,
+                       per_image=per, progress=progress)
+    res.settings.update(images=sources, weighting=weighting)
+    res.notes[:0] = notes
+    return res
+
+
+def _unique_names(sources: list[str]) -> list[str]:
+    # Two in-memory images are both "<array>": number them so columns differ.
+    seen: dict[str, int] = {}
+    out = []
+    for s in sources:
+        seen[s] = seen.get(s, 0) + 1
+        out.append(s if seen[s] == 1 else f"{s}#{seen[s]}")
+    if len(set(out)) != len(out):
+        return [f"{s}#{i + 1}" for i, s in enumerate(sources)]
+    return out
+
+
+def candidate_rows(candidates) -> list[dict]:
+    """Normalise a Sweep, its rows, or ``palette.fit["candidates"]`` to table dicts."""
+    if isinstance(candidates, Sweep):
+        return candidates.candidates()
+    out = []
+    for c in candidates:
+        if isinstance(c, SweepRow):
+            c = {"k": c.k, "inertia": c.cost, "delta_e": c.delta_e, "robust_error": c.robust,
+                 "score": c.score, "start": c.start}
+        if not isinstance(c, dict) or "k" not in c or "delta_e" not in c:
+            raise ValueError(f"not a sweep row or fit candidate: {c!r}")
+        out.append(c)
+    return out
+
+
+def format_table(candidates, *, chosen: int | None = None, picks: dict | None = None) -> str:
+    """A fixed-width text table of candidates, the chosen row marked with ``>``.
+
+    Parameters
+    ----------
+    candidates : Sweep, list of SweepRow, or list of dict
+        Dicts as in ``palette.fit["candidates"]`` (keys ``k``, ``inertia``,
+        ``delta_e``, ``robust_error``, ``score``), so that ``reduce`` with a
+        range explains its choice with the same table.
+    chosen : int, optional
+        The k to mark; for a Sweep, its chosen row by default.
+    picks : dict, optional
+        Rule name -> k, listed in a last column ("bic", "target").
+
+    Returns
+    -------
+    str
+        Lines joined by newlines, no trailing newline.
+
+    Examples
+    --------
+    >>> rows = [{"k": 2, "inertia": 9.0, "delta_e": {"mean": 5, "p95": 9, "max": 12},
+    ...          "robust_error": 30.0, "score": 250.0}]
+    >>> print(format_table(rows, chosen=2))  # doctest: +NORMALIZE_WHITESPACE
+         k   k-means cost  ΔE00 mean   p95    max  penalised score
+    >    2              9       5.00   9.00  12.00           250.00
+    """
+    if isinstance(candidates, Sweep):
+        if chosen is None:
+            chosen = candidates.chosen.k
+        if picks is None:
+            picks = {n: c.k for n, c in candidates.choices.items()}
+    rows = candidate_rows(candidates)
+    lines = ["     k   k-means cost  ΔE00 mean   p95    max  penalised score"
+             + ("  picked by" if picks else "")]
+    for c in rows:
+        de = c["delta_e"]
+        mark = ">" if c["k"] == chosen else " "
+        line = (f"{mark} {c['k']:>4} {c['inertia']:>14.6g} {de['mean']:>10.2f} {de['p95']:>6.2f} "
+                f"{de['max']:>6.2f} {c['score']:>16.2f}")
+        if picks:
+            by = [name for name, k in picks.items() if k == c["k"]]
+            line += ("  " + ", ".join(by)) if by else ""
+        lines.append(line.rstrip())
+    return "\n".join(lines)

@@ -1,0 +1,343 @@
+"""Sweep plot, swatch strip and the HTML report page, including a real browser.
+
+The browser check runs Debian's chromium headless (the binary the CI
+installs): the page must load with no console message, every image it
+references must load (an inline probe script, added by the test to a copy
+of the page, writes each image's state into the DOM), and a screenshot must
+show the page's content.  A negative control proves the probe catches a
+missing image and a console error.  Without chromium the test is skipped
+with the reason shown.
+"""
+
+import html.parser
+import os
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from quantize import fit_palette
+from quantize.errors import OutputError
+from quantize.report import (REPORT_PAGE, plot_sweep, save_swatches, score_terms, sweep_figure,
+                             swatch_strip, write_report)
+from quantize.selection import bic_scores
+from quantize.sweep import sweep
+
+from artwork import flat_artwork
+
+CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None)
+
+
+@pytest.fixture(scope="module")
+def art():
+    rgb, inks = flat_artwork(4, seed=104, size=160, jpeg_quality=85)
+    return rgb
+
+
+@pytest.fixture(scope="module")
+def art_sweep(art):
+    return sweep(art, (2, 7), restarts=2, target=3.0, target_stat="p95")
+
+
+def _texts(fig):
+    """Drawn, non-empty text artists of a figure with their pixel boxes.
+
+    Tick labels whose tick lies outside the axis view are made but never
+    drawn by matplotlib, so they are left out.
+    """
+    from matplotlib.text import Text
+
+    renderer = fig.canvas.get_renderer()
+    hidden = set()
+    for ax in fig.axes:
+        for labels, lim, coord in ((ax.get_xticklabels(), ax.get_xlim(), 0),
+                                   (ax.get_yticklabels(), ax.get_ylim(), 1)):
+            lo, hi = min(lim), max(lim)
+            for t in labels:
+                v = t.get_position()[coord]
+                if not lo - 1e-9 * abs(hi - lo) <= v <= hi + 1e-9 * abs(hi - lo):
+                    hidden.add(id(t))
+    out = []
+    for t in fig.findobj(Text):
+        if t.get_visible() and t.get_text().strip() and id(t) not in hidden:
+            bb = t.get_window_extent(renderer)
+            if bb.width > 0 and bb.height > 0:
+                out.append((t.get_text(), bb))
+    return out
+
+
+def _assert_no_overlap(fig):
+    fig.canvas.draw()
+    texts = _texts(fig)
+    assert len(texts) > 10
+    for i in range(len(texts)):
+        for j in range(i + 1, len(texts)):
+            (a, ba), (b, bb) = texts[i], texts[j]
+            assert not ba.overlaps(bb), f"text {a!r} overlaps {b!r}"
+    w, h = fig.canvas.get_width_height()
+    for t, bb in texts:
+        assert bb.x0 >= -1 and bb.y0 >= -1 and bb.x1 <= w + 1 and bb.y1 <= h + 1, f"{t!r} is cut off"
+
+
+def test_plot_has_units_legend_and_chosen_mark(art_sweep):
+    fig = sweep_figure(art_sweep)
+    top, bottom = fig.axes
+    assert "ΔE00" in top.get_ylabel()
+    assert "palette size" in bottom.get_xlabel()
+    assert "score" in bottom.get_ylabel()
+    labels = [t.get_text() for t in top.get_legend().get_texts()]
+    assert labels[:3] == ["ΔE00 mean", "ΔE00 95th percentile", "ΔE00 maximum"]
+    assert any("target 3" in t for t in labels)
+    assert len(bottom.get_legend().get_texts()) == 3
+    chosen = art_sweep.chosen.k
+    notes = [t.get_text() for t in top.texts]
+    assert f"chosen: k = {chosen} (bic rule)" in notes
+    if art_sweep.choices["target"].k != chosen:
+        assert f"also: k = {art_sweep.choices['target'].k} (target rule)" in notes
+    # The plotted total is the rule's own score, split into its two terms.
+    err, pen, total = score_terms(art_sweep)
+    np.testing.assert_allclose(total, [r.score for r in art_sweep.rows])
+    np.testing.assert_allclose(err + pen, bic_scores(art_sweep.ks, [r.robust for r in art_sweep.rows]))
+    total_line = [ln for ln in bottom.get_lines() if ln.get_label().startswith("total")][0]
+    np.testing.assert_allclose(total_line.get_ydata(), total)
+    _assert_no_overlap(fig)
+
+
+def test_plot_text_does_not_overlap_on_a_wide_range():
+    # Many distinct colours (invented demo data), 2..32: crowded ticks and two picks.
+    rng = np.random.default_rng(9)
+    img = rng.integers(0, 256, (20, 20, 3), dtype=np.uint8)
+    s = sweep(img, (2, 32), restarts=1, refine="none", target=12.0)
+    assert s.choices["target"].k != s.chosen.k
+    _assert_no_overlap(sweep_figure(s))
+
+
+def test_plot_file_is_a_png_and_not_overwritten(art_sweep, tmp_path):
+    p = plot_sweep(art_sweep, tmp_path / "s.png")
+    with Image.open(p) as im:
+        assert im.format == "PNG" and im.size[0] > 600 and im.size[1] > 400
+    with pytest.raises(OutputError, match="exists"):
+        plot_sweep(art_sweep, p)
+    assert list(tmp_path.iterdir()) == [p]  # no temporary left behind
+
+
+def test_swatch_strip_shows_each_palette_row_by_row(art_sweep, tmp_path):
+    cell, rh = 30, 34
+    img = np.asarray(swatch_strip(art_sweep, cell=cell, row_height=rh))
+    for i, r in enumerate(art_sweep.rows):
+        y = 6 + i * (rh + 6) + rh // 2
+        shown = {tuple(img[y, 150 + j * cell + cell // 2]) for j in range(r.palette.k)}
+        assert shown == {tuple(int(v) for v in c) for c in r.palette.rgb8}
+        # Right of the last swatch the row is background until the label column.
+        assert tuple(img[y, 150 + r.palette.k * cell + 1]) == (255, 255, 255) or r.palette.k == max(
+            q.palette.k for q in art_sweep.rows)
+    i = art_sweep.ks.index(art_sweep.chosen.k)
+    frame_y = 6 + i * (rh + 6) - 3
+    assert (img[frame_y, 10:200] == (0xd6, 0x27, 0x28)).all(axis=1).any()
+    p = save_swatches(art_sweep, tmp_path / "sw.png")
+    with Image.open(p) as im:
+        assert im.size[1] == 6 + len(art_sweep.rows) * 40
+
+
+class _Refs(html.parser.HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.refs, self.imgs = [], []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        for key in ("src", "href"):
+            if key in a:
+                self.refs.append(a[key])
+        if tag == "img":
+            self.imgs.append(a)
+
+
+def _refs(page: Path) -> _Refs:
+    p = _Refs()
+    p.feed(page.read_text(encoding="utf-8"))
+    return p
+
+
+@pytest.fixture(scope="module")
+def report(art, art_sweep, tmp_path_factory):
+    folder = tmp_path_factory.mktemp("report") / "out"
+    pal = art_sweep.chosen.palette
+    mapped = pal.apply(art)
+    emap = tmp_path_factory.mktemp("maps") / "errors.png"
+    Image.fromarray(np.uint8(np.clip(np.abs(art.astype(int) - mapped.rgb.astype(int)) * 8, 0, 255))).save(emap)
+    page = write_report(folder, original_picture=art, mapped=mapped, sweep=art_sweep, error_map_path=emap,
+                        title="Poster <test> & report")
+    return page, pal, mapped
+
+
+def test_report_page_holds_everything_and_only_local_files(report):
+    page, pal, mapped = report
+    text = page.read_text(encoding="utf-8")
+    assert page.name == REPORT_PAGE
+    assert "Poster &lt;test&gt; &amp; report" in text
+    lab = pal.lab
+    for j, hx in enumerate(pal.hex):
+        assert hx in text
+        assert f"{lab[j, 0]:.2f}" in text and f"{mapped.coverage[j]:.2f}" in text
+    for v in mapped.delta_e.values():
+        assert f"{v:.2f}" in text
+    refs = _refs(page)
+    for ref in refs.refs:
+        if ref.startswith("data:"):
+            continue
+        assert not re.match(r"^[a-z]+:|^//|^/", ref), f"non-local reference {ref}"
+        assert (page.parent / ref).is_file(), ref
+    assert "url(http" not in text and "@import" not in text
+    srcs = {i["src"] for i in refs.imgs}
+    assert {"original.png", "result.png", "error-map.png", "sweep.png", "swatches.png"} <= srcs
+    # Side by side at the same size, and the result holds only palette colours.
+    with Image.open(page.parent / "original.png") as o, Image.open(page.parent / "result.png") as r:
+        assert o.size == r.size == (160, 160)
+        res = np.asarray(r.convert("RGB")).reshape(-1, 3)
+    assert {tuple(c) for c in np.unique(res, axis=0)} <= {tuple(int(v) for v in c) for c in pal.rgb8}
+    sizes = {(i["width"], i["height"]) for i in refs.imgs if i["src"] in ("original.png", "result.png")}
+    assert sizes == {("160", "160")}
+    assert text.count('<tr class="chosen">') == 1
+
+
+def test_report_refuses_to_overwrite_and_checks_inputs(report, art, art_sweep, tmp_path):
+    _, pal, mapped = report
+    page = write_report(tmp_path / "own", original_picture=art, mapped=mapped, sweep=art_sweep)
+    before = page.read_bytes()
+    with pytest.raises(OutputError, match="already exists"):
+        write_report(page.parent, original_picture=art, mapped=mapped)
+    assert page.read_bytes() == before
+    write_report(page.parent, original_picture=art, mapped=mapped, force=True)
+    assert "Palette size sweep" not in page.read_text(encoding="utf-8")
+    with pytest.raises(ValueError, match="1 original image"):
+        write_report(tmp_path / "x", original_picture=art, mapped=[mapped, mapped])
+    with pytest.raises(ValueError, match="original is 80x160 px"):
+        write_report(tmp_path / "x", original_picture=art[:, :80], mapped=mapped)
+    with pytest.raises(ValueError, match="error map not found"):
+        write_report(tmp_path / "x", original_picture=art, mapped=mapped, error_map_path=tmp_path / "nope.png")
+    assert not (tmp_path / "x").exists()
+
+
+def test_report_of_a_fit_over_a_range_lists_the_candidates(art, tmp_path):
+    pal = fit_palette(art, (2, 5), restarts=2, locked=["#ffffff"])
+    page = write_report(tmp_path / "r", original_picture=art, mapped=pal.apply(art))
+    text = page.read_text(encoding="utf-8")
+    assert "Palette sizes considered" in text and text.count('<tr class="chosen">') == 1
+    assert text.count('<td class="l">locked</td>') == 1
+    assert pal.fit["reason"].split(";")[0] in text
+
+
+def test_report_of_several_images_and_downscaled_display(tmp_path):
+    a, _ = flat_artwork(3, seed=5, size=120)
+    b, _ = flat_artwork(3, seed=6, size=90)
+    big = np.repeat(np.repeat(a, 3, axis=0), 3, axis=1)  # 360 px
+    pal = fit_palette([big, b], 3, restarts=2)
+    page = write_report(tmp_path / "r", original_picture=[big, b], mapped=[pal.apply(big), pal.apply(b)],
+                        max_side=200)
+    for name in ("original-1.png", "result-1.png"):
+        with Image.open(page.parent / name) as im:
+            assert im.size == (200, 200)
+    with Image.open(page.parent / "result-1.png") as im:
+        colours = {tuple(c) for c in np.unique(np.asarray(im.convert("RGB")).reshape(-1, 3), axis=0)}
+    assert colours <= {tuple(int(v) for v in c) for c in pal.rgb8}
+    assert (page.parent / "original-2.png").is_file()
+
+
+def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
+    from quantize.images import Picture
+
+    rgb = np.zeros((20, 30, 3), np.uint16)
+    rgb[:, 15:] = (65535, 0, 32896)
+    alpha = np.full((20, 30), 65535, np.uint16)
+    alpha[:5] = 0
+    pic = Picture(rgb=rgb, alpha=alpha, bit_depth=16)
+    pal = fit_palette(pic, 2)
+    page = write_report(tmp_path / "r", original_picture=pic, mapped=pal.apply(pic))
+    with Image.open(page.parent / "original.png") as im:
+        px = np.asarray(im)
+    assert im.mode == "RGBA" and tuple(px[10, 20]) == (255, 0, 128, 255) and px[0, 0, 3] == 0
+
+
+def test_report_module_imports_no_matplotlib():
+    code = ("import sys; import quantize.report, quantize.sweep; "
+            "print('matplotlib' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         cwd=Path(__file__).resolve().parents[1])
+    assert out.stdout.strip() == "False"
+
+
+# -- the real browser ------------------------------------------------------
+
+_PROBE = """<script>
+window.addEventListener('load', function () {
+  var imgs = Array.from(document.images);
+  var bad = imgs.filter(function (i) { return !(i.complete && i.naturalWidth > 0); })
+                .map(function (i) { return i.getAttribute('src'); });
+  var out = document.createElement('pre'); out.id = 'probe';
+  out.textContent = 'IMAGES ' + imgs.length + ' BROKEN ' + JSON.stringify(bad);
+  document.body.appendChild(out);
+});
+</script>"""
+
+
+def _chromium(args, url, tmp_path):
+    profile = tmp_path / f"profile-{len(list(tmp_path.iterdir()))}"
+    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+           "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}",
+           "--enable-logging=stderr", "--v=0", "--virtual-time-budget=5000", *args, url]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+
+
+def _probe(page: Path, tmp_path):
+    """(number of images, broken srcs, console lines) of a page, via a probe copy beside it."""
+    probe = page.with_name("probe-" + page.name)
+    probe.write_text(page.read_text(encoding="utf-8").replace("</body>", _PROBE + "</body>"), encoding="utf-8")
+    try:
+        run = _chromium(["--dump-dom"], probe.as_uri(), tmp_path)
+    finally:
+        probe.unlink()
+    m = re.search(r"IMAGES (\d+) BROKEN (\[.*?\])", run.stdout)
+    assert m, f"probe did not run (chromium exit {run.returncode}): {run.stderr[-500:]}"
+    import json
+
+    console = [ln for ln in run.stderr.splitlines() if ":CONSOLE" in ln]
+    return int(m.group(1)), json.loads(m.group(2)), console
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="no chromium browser on this machine (the CI installs Debian's)")
+def test_report_loads_in_a_real_browser(report, tmp_path):
+    page, pal, mapped = report
+    # Negative control: a missing image and a console error must be caught.
+    bad = page.with_name("bad.html")
+    bad.write_text('<!DOCTYPE html><html><head><meta charset="utf-8"><link rel="icon" href="data:,"></head>'
+                   '<body><img src="nowhere.png"><img src="result.png">'
+                   '<script>console.error("deliberate")</script></body></html>', encoding="utf-8")
+    try:
+        n, broken, console = _probe(bad, tmp_path)
+    finally:
+        bad.unlink()
+    assert n == 2 and broken == ["nowhere.png"]
+    assert any("deliberate" in ln for ln in console)
+
+    n, broken, console = _probe(page, tmp_path)
+    assert n == len(_refs(page).imgs) >= 5
+    assert broken == []
+    assert console == []
+
+    shot = tmp_path / "shot.png"
+    run = _chromium(["--window-size=1280,1800", "--hide-scrollbars", f"--screenshot={shot}"], page.as_uri(),
+                    tmp_path)
+    assert shot.is_file(), run.stderr[-500:]
+    px = np.asarray(Image.open(shot).convert("RGB"))
+    assert px.shape[:2] == (1800, 1280)
+    assert px.std() > 20 and len(np.unique(px.reshape(-1, 3), axis=0)) > 200
+    # The palette's most used colour is painted on screen (result image and swatch).
+    top = tuple(int(v) for v in pal.rgb8[int(np.argmax(mapped.coverage))])
+    near = np.abs(px.reshape(-1, 3).astype(int) - top).max(axis=1) <= 2
+    assert near.mean() > 0.01
