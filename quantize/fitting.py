@@ -165,17 +165,24 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
             coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
             fine = kmeans(full_pts, len(coarse.centres), weights=sample.weights, fixed=fixed,
                           init_centres=coarse.centres)
-        centres = fine.centres
+        pal, merged = _to_palette(fine.centres, fixed_rgb8, space, m)
+        labels, de = map_sample(sample, pal, metric=metric)
+        refined = False
         if refine == "robust":
-            centres = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-            centres = robust_refine(full_pts, sample.weights, centres, n_fixed=m, max_swaps=0)
-        pal, merged = _to_palette(centres, fixed_rgb8, space, m)
+            # The robust palette is kept only where it lowers the mean ΔE00:
+            # it helps flat artwork (edges, ringing) and can hurt photos,
+            # whose far-off pixels are real colours, not noise.
+            centres = robust_refine(bin_pts, bin_w, fine.centres, n_fixed=m)
+            centres = robust_refine(full_pts, sample.weights, centres, n_fixed=m, max_swaps=0, max_iter=10)
+            rpal, rmerged = _to_palette(centres, fixed_rgb8, space, m)
+            rlabels, rde = map_sample(sample, rpal, metric=metric)
+            if rpal.k == pal.k and (sample.weights * rde).sum() < (sample.weights * de).sum():
+                pal, merged, labels, de, refined = rpal, rmerged, rlabels, rde, True
         if pal.k in seen:
             if progress:
                 progress(k)
             continue
         seen.add(pal.k)
-        labels, de = map_sample(sample, pal, metric=metric)
         from .measure import delta_e_stats
 
         notes = []
@@ -183,7 +190,8 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
             notes.append(f"asked for {k} colours; the image has {sample.n_colours} distinct colours"
                          + (" and rounding to 8 bits merged some" if merged else "")
                          + f", so the palette has {pal.k}")
-        cand = Candidate(k=pal.k, palette=Palette(pal.rgb8, pal.locked, space, fit={"notes": notes}),
+        cand = Candidate(k=pal.k, palette=Palette(pal.rgb8, pal.locked, space,
+                                                  fit={"notes": notes, "refined": refined}),
                          inertia=float(fine.inertia), delta_e=delta_e_stats(de, sample.weights),
                          robust=robust_error(de, sample.weights), labels=labels, per_colour_de=de)
         out.append(cand)
@@ -309,6 +317,7 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
         "n_pixels": sample.n_pixels,
         "n_distinct": sample.n_colours,
         "inertia": chosen.inertia,
+        "refined": bool(chosen.palette.fit.get("refined")),
         "delta_e": chosen.delta_e,
         "candidates": [
             {"k": c.k, "inertia": c.inertia, "delta_e": c.delta_e, "robust_error": c.robust, "score": s}
