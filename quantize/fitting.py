@@ -135,12 +135,14 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
     Each size seeds and restarts on the binned sample, then runs Lloyd to
     convergence on every distinct colour with its true weight (the k-means
     fit, whose cost is reported as ``inertia``).  With ``refine="robust"``
-    the palette is then refined under a truncated loss
-    (:func:`quantize.refine.robust_refine`): swaps on the binned sample,
-    trimmed Lloyd on every distinct colour.  Sizes above the number of
+    two explicit refinements follow, each kept only if it lowers the mean
+    ΔE00: a truncated-loss refit (:func:`quantize.refine.robust_refine`:
+    swaps on the binned sample, trimmed Lloyd on every distinct colour), then
+    weighted k-medians steps (:func:`quantize.refine.median_polish`).
+    ``palette.fit["refined"]`` names the steps kept.  Sizes above the number of
     distinct colours collapse to that number (each size appears once).
     """
-    from .refine import robust_refine
+    from .refine import median_polish, robust_refine
 
     if refine not in REFINES:
         raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
@@ -167,7 +169,7 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
                           init_centres=coarse.centres)
         pal, merged = _to_palette(fine.centres, fixed_rgb8, space, m)
         labels, de = map_sample(sample, pal, metric=metric)
-        refined = False
+        refined = ""
         if refine == "robust":
             # The robust palette is kept only where it lowers the mean ΔE00:
             # it helps flat artwork (edges, ringing) and can hurt photos,
@@ -177,7 +179,14 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
             rpal, rmerged = _to_palette(centres, fixed_rgb8, space, m)
             rlabels, rde = map_sample(sample, rpal, metric=metric)
             if rpal.k == pal.k and (sample.weights * rde).sum() < (sample.weights * de).sum():
-                pal, merged, labels, de, refined = rpal, rmerged, rlabels, rde, True
+                pal, merged, labels, de, refined = rpal, rmerged, rlabels, rde, "robust"
+            # k-medians steps from the better palette, kept likewise only if
+            # they lower the mean ΔE00 (mean ΔE grows with distance, not its square).
+            mc = median_polish(full_pts, sample.weights, pal.points(space), n_fixed=m)
+            mpal, mmerged = _to_palette(mc, fixed_rgb8, space, m)
+            mlabels, mde = map_sample(sample, mpal, metric=metric)
+            if mpal.k == pal.k and (sample.weights * mde).sum() < (sample.weights * de).sum():
+                pal, merged, labels, de, refined = mpal, mmerged, mlabels, mde, (refined + "+median").lstrip("+")
         if pal.k in seen:
             if progress:
                 progress(k)
@@ -317,7 +326,7 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
         "n_pixels": sample.n_pixels,
         "n_distinct": sample.n_colours,
         "inertia": chosen.inertia,
-        "refined": bool(chosen.palette.fit.get("refined")),
+        "refined": chosen.palette.fit.get("refined") or "none",
         "delta_e": chosen.delta_e,
         "candidates": [
             {"k": c.k, "inertia": c.inertia, "delta_e": c.delta_e, "robust_error": c.robust, "score": s}

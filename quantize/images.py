@@ -486,7 +486,8 @@ def _from_pil(img: Image.Image, name: str, notes: list[_Note]):
     elif mode == "CMYK":
         base = img
     else:
-        base = img.convert("RGB")
+        # convert() copies even when the mode is already right: skip it then.
+        base = img if img.mode == "RGB" else img.convert("RGB")
     colour, desc = _convert_8bit(base, icc, name, notes)
     return colour, alpha, 8, dpi, desc
 
@@ -750,7 +751,7 @@ def _convert_8bit(base: Image.Image, icc: bytes | None, name: str, notes: list[_
             f"{name}: CMYK image without an embedded ICC profile; converted with Pillow's naive "
             "formula, so colours are approximate",
         ))
-    return np.asarray(base.convert("RGB")), None
+    return np.asarray(base if base.mode == "RGB" else base.convert("RGB")), None
 
 
 def _convert_deep(values: np.ndarray, icc: bytes | None, name: str, notes: list[_Note]):

@@ -136,3 +136,30 @@ def test_every_space_fits(space):
 def test_bad_settings(kw, match):
     with pytest.raises(ValueError, match=match):
         fit_palette(stripes(INKS[:2]), **kw)
+
+
+def test_refinement_never_raises_mean_delta_e_and_kmeans_cost_is_reported():
+    # The refinements are kept only when they lower the mean ΔE00, so the
+    # default palette is never worse than the pure k-means one on that score.
+    from skimage import data
+
+    img = data.coffee()[::2, ::2]
+    plain = fit_palette(img, k=6, refine="none")
+    best = fit_palette(img, k=6)
+    assert best.apply(img).delta_e["mean"] <= plain.apply(img).delta_e["mean"] + 1e-12
+    assert best.fit["inertia"] == pytest.approx(plain.fit["inertia"])
+    assert plain.fit["refined"] == "none"
+
+
+def test_median_polish_lowers_mean_distance():
+    # Weiszfeld steps lower the weighted sum of distances (Weiszfeld 1937).
+    from quantize.refine import median_polish
+    from quantize._kernels import assign_nearest
+
+    rng = np.random.default_rng(0)
+    pts = np.concatenate([rng.standard_t(2, (500, 3)) * 3 + c for c in ([0, 0, 0], [40, 10, -10])])
+    w = rng.integers(1, 5, len(pts)).astype(float)
+    start = np.array([[1.0, 1, 1], [38.0, 12, -8]])
+    end = median_polish(pts, w, start)
+    cost = lambda c: float((w * np.sqrt(assign_nearest(pts, c)[1])).sum())
+    assert cost(end) < cost(start)
