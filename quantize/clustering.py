@@ -68,7 +68,6 @@ def _sq_dist_to(points: np.ndarray, centre: np.ndarray) -> np.ndarray:
 
 def _init_kmeanspp(points, weights, k, fixed, rng):
     """Greedy weighted k-means++ (D² sampling, several candidates per step)."""
-    n = points.shape[0]
     n_trials = 2 + int(np.log(k))
     centres = [c for c in fixed]
     if centres:

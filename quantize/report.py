@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import html
 import io
-import shutil
 from pathlib import Path
 from typing import Sequence
 

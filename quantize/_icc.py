@@ -1,0 +1,115 @@
+"""ICC profile maths for 16-bit data: matrix/TRC profiles evaluated in float.
+
+LittleCMS (through Pillow) converts 8-bit pixels only; for 16-bit pixels the
+profile's colorant matrix and tone curves are applied here in float64,
+following ICC.1 (F.3).  Split out of :mod:`quantize.images`.
+"""
+
+
+import functools
+import struct
+from collections.abc import Callable
+
+import numpy as np
+
+
+_LUT_TAGS = (b"A2B0", b"A2B1", b"A2B2", b"D2B0", b"D2B1", b"D2B2")
+_PCS_D50 = np.array([0.9642, 1.0, 0.8249])  # ICC.1:2010 7.2.16, the PCS illuminant
+# Bradford cone-response matrix (Lam 1985), as given in ICC.1:2010 Annex E.
+_BRADFORD = np.array([[0.8951, 0.2664, -0.1614], [-0.7502, 1.7135, 0.0367], [0.0389, -0.0685, 1.0296]])
+
+
+@functools.lru_cache(maxsize=1)
+def _xyz_d50_to_linear_srgb() -> np.ndarray:
+    """Inverse of the sRGB RGB->XYZ matrix, adapted from D65 to the PCS by Bradford.
+
+    This is how LittleCMS builds its own sRGB profile, from the IEC 61966-2-1 primaries.
+    """
+    xy = np.array([[0.64, 0.33], [0.30, 0.60], [0.15, 0.06]])
+    primaries = np.column_stack([xy[:, 0] / xy[:, 1], np.ones(3), (1 - xy.sum(axis=1)) / xy[:, 1]]).T
+    d65 = np.array([0.3127 / 0.3290, 1.0, (1 - 0.3127 - 0.3290) / 0.3290])
+    rgb_to_xyz = primaries * np.linalg.solve(primaries, d65)
+    cone_scale = (_BRADFORD @ _PCS_D50) / (_BRADFORD @ d65)
+    adapt = np.linalg.inv(_BRADFORD) @ np.diag(cone_scale) @ _BRADFORD
+    return np.linalg.inv(adapt @ rgb_to_xyz)
+
+
+def _icc_tags(icc: bytes) -> dict[bytes, bytes]:
+    (count,) = struct.unpack_from(">I", icc, 128)
+    tags = {}
+    for i in range(count):
+        sig, offset, size = struct.unpack_from(">4sII", icc, 132 + 12 * i)
+        tags[sig] = icc[offset : offset + size]
+    return tags
+
+
+def _matrix_trc(icc: bytes):
+    """(3x3 colorant matrix or None for grey, [curves]) of a matrix/TRC profile, else None."""
+    try:
+        tags = _icc_tags(icc)
+        if icc[20:24] != b"XYZ " or any(t in tags for t in _LUT_TAGS):
+            return None
+        if icc[16:20] == b"GRAY":
+            grey = _trc(tags[b"kTRC"])
+            return None if grey is None else (None, [grey])
+        matrix = np.column_stack([
+            np.array(struct.unpack_from(">3i", tags[t], 8)) / 65536.0 for t in (b"rXYZ", b"gXYZ", b"bXYZ")
+        ])  # fmt: skip
+        curves = [_trc(tags[t]) for t in (b"rTRC", b"gTRC", b"bTRC")]
+    except (KeyError, struct.error, ValueError):
+        return None
+    return (matrix, curves) if all(curves) else None
+
+
+def _trc(tag: bytes) -> Callable[[np.ndarray], np.ndarray] | None:
+    """Evaluate an ICC curveType or parametricCurveType (ICC.1:2010 10.5 and 10.15)."""
+    kind = tag[:4]
+    if kind == b"curv":
+        (n,) = struct.unpack_from(">I", tag, 8)
+        if n == 0:
+            return lambda x: x
+        if n == 1:
+            gamma = struct.unpack_from(">H", tag, 12)[0] / 256.0  # u8Fixed8Number
+            return lambda x: x**gamma
+        table = np.frombuffer(tag, ">u2", n, 12) / 65535.0
+        grid = np.linspace(0.0, 1.0, n)
+        return lambda x: np.interp(x, grid, table)
+    if kind == b"para":
+        (ftype,) = struct.unpack_from(">H", tag, 8)
+        count = {0: 1, 1: 3, 2: 4, 3: 5, 4: 7}.get(ftype)
+        if count is None:
+            return None
+        params = np.zeros(7)
+        params[:count] = np.array(struct.unpack_from(f">{count}i", tag, 12)) / 65536.0
+        return functools.partial(_parametric, ftype, *params)
+    return None
+
+
+def _parametric(ftype, g, a, b, c, d, e, f, x):
+    # ICC.1:2010 table 65: types 1 and 2 switch at x = -b/a, types 3 and 4 at x = d.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        power = np.maximum(a * x + b, 0.0) ** g
+        if ftype == 0:
+            return x**g
+        if ftype == 1:
+            return np.where(x >= -b / a, power, 0.0)
+        if ftype == 2:
+            return np.where(x >= -b / a, power + c, c)
+        if ftype == 3:
+            return np.where(x >= d, power, c * x)
+        return np.where(x >= d, power + e, c * x + f)
+
+
+def _apply_matrix_trc(values: np.ndarray, matrix: np.ndarray | None, curves) -> np.ndarray:
+    x = values / 65535.0
+    linear = np.stack([curve(x[..., i]) for i, curve in enumerate(curves)], axis=-1)
+    if matrix is not None:
+        # Device RGB -> PCS XYZ (D50) -> linear sRGB. For a grey profile, linear
+        # grey is Y relative to the PCS white, and so already linear sRGB grey.
+        linear = linear @ (_xyz_d50_to_linear_srgb() @ matrix).T
+    v = np.clip(linear, 0.0, 1.0)
+    encoded = np.where(v <= 0.0031308, 12.92 * v, 1.055 * v ** (1 / 2.4) - 0.055)  # IEC 61966-2-1 eq. (5)
+    return np.rint(np.clip(encoded, 0.0, 1.0) * 65535).astype(np.uint16)
+
+
+# --------------------------------------------------------------------------- writing
