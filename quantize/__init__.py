@@ -9,7 +9,9 @@ weighted k-means++ with restarts, choose its size by a penalised rule or a
 >>> result = pal.apply("sample_images/poster.png")                     # doctest: +SKIP
 >>> result.delta_e["mean"], result.coverage                            # doctest: +SKIP
 
-Names are imported on first use, so ``import quantize`` stays fast.
+Names are imported on first use, so ``import quantize`` stays fast.  (The
+sweep itself is ``quantize.sweep.sweep``: a package attribute cannot be both
+the function and its module.)
 """
 
 from __future__ import annotations
@@ -38,6 +40,12 @@ _EXPORTS = {
     "to_space": "colourspace",
     "from_space": "colourspace",
     "SPACES": "colourspace",
+    "Sweep": "sweep",
+    "load_ink_library": "inks",
+    "choose_inks": "inks",
+    "snap_palette": "inks",
+    "separate": "separation",
+    "Separation": "separation",
     "QuantizeError": "errors",
     "ImageReadError": "errors",
     "PaletteFileError": "errors",
@@ -69,3 +77,6 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs only
     from .mapping import MappedImage, map_picture
     from .palette import Palette, parse_colour
     from .sampling import ColourSample, sample_picture
+    from .inks import choose_inks, load_ink_library, snap_palette
+    from .separation import Separation, separate
+    from .sweep import Sweep
