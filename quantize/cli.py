@@ -376,9 +376,11 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
 # Commands defined in their own modules; each imports only click at the top.
 from .cli_sweep import sweep as _sweep_command  # noqa: E402
 from .cli_separate import separate as _separate_command  # noqa: E402
+from .cli_batch import batch as _batch_command  # noqa: E402
 
 main.add_command(_sweep_command)
 main.add_command(_separate_command)
+main.add_command(_batch_command)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -94,8 +94,14 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None):
     from .images import as_picture, load_image
     from .sampling import pool_samples, sample_picture
 
+    from .sampling import ColourSample
+
     samples, sources, notes = [], [], []
     for item in _as_list(images):
+        if isinstance(item, ColourSample):  # already sampled (e.g. a batch's pooled histogram)
+            samples.append(item)
+            sources.append("<colour sample>")
+            continue
         if isinstance(item, (str, bytes)) or hasattr(item, "__fspath__"):
             pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
         else:
@@ -217,7 +223,7 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
 
     Parameters
     ----------
-    images : path, Picture, PIL image, ndarray, or a list of them
+    images : path, Picture, PIL image, ndarray, ColourSample, or a list of them
         Several images are pooled into one weighted colour sample.
     k : int, range, (min, max) or "min-max", default=16
         Palette size, or the sizes to choose from by ``rule``.

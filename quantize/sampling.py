@@ -26,6 +26,8 @@ __all__ = ["ColourSample", "sample_picture", "pool_samples"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
+#: Opaque pixels from which an 8-bit image is histogrammed densely.
+_DENSE_FROM = 1 << 22
 
 
 @dataclass(frozen=True, eq=False)
@@ -172,9 +174,10 @@ def _sample(picture: Picture) -> ColourSample:
     packed = _pack(picture.rgb.reshape(-1, 3), bits)
     all_opaque = bool(opaque.all())
     sel = packed if all_opaque else packed[opaque]
-    if bits == 8:
+    if bits == 8 and sel.size >= _DENSE_FROM:
         # A dense histogram over all 2**24 codes is several times faster than
-        # sorting for unique values, and exact.
+        # sorting for unique values on large images, and exact; below a few
+        # megapixels, touching its 200 MB of tables costs more than a sort.
         counts = np.bincount(sel, minlength=1 << 24)
         present = np.flatnonzero(counts)
         lut = np.full(1 << 24, -1, dtype=np.int32)  # int32 halves the gather's memory traffic
@@ -184,8 +187,12 @@ def _sample(picture: Picture) -> ColourSample:
         del counts, lut
     else:
         present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
-        inverse = np.full(packed.size, -1, dtype=np.intp)
-        inverse[opaque] = inv_sel.ravel()
+        inv_sel = inv_sel.ravel().astype(np.int32)
+        if all_opaque:
+            inverse = inv_sel
+        else:
+            inverse = np.full(packed.size, -1, dtype=np.int32)
+            inverse[opaque] = inv_sel
         weights = counts.astype(np.float64)
     if not all_opaque:
         inverse[~opaque] = -1

@@ -1,0 +1,805 @@
+"""Batch runs: every image of a folder tree, locally in parallel or on a Dask cluster.
+
+Three ways to choose palettes:
+
+* per image (default): each image gets its own fitted palette, written beside
+  its output as ``NAME.palette.json``;
+* ``palette=FILE``: every image is mapped onto one saved palette;
+* ``shared=True``: one palette is fitted to the whole set first, from the
+  pooled colour histograms of every image (each image counted equally, or by
+  pixel count), saved as ``shared.palette.json`` and applied to every image.
+
+Work is done one image per task, in worker processes
+(:class:`concurrent.futures.ProcessPoolExecutor`, ``spawn`` start method) or
+on a ``dask.distributed`` scheduler.  At most one task per worker is in
+flight, so memory is bounded by the largest image, not by the folder size.
+
+The output tree mirrors the input tree.  ``OUTPUT_DIR/manifest.json`` and
+``manifest.csv`` hold one row per image (status, k, ΔE00 statistics, palette
+entries used, outputs, seconds, peak memory, error text); a rerun reads the
+JSON manifest and skips images whose outputs are newer than their input and
+whose settings are unchanged.  Nothing is written outside OUTPUT_DIR and
+inputs are only read.  An output folder inside the input folder is refused
+unless an ``exclude`` pattern removes it from the inputs.
+"""
+
+from __future__ import annotations
+
+import csv
+import fnmatch
+import hashlib
+import io
+import json
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
+from typing import Callable, Iterable, Iterator, Sequence
+
+import numpy as np
+
+from .errors import OutputError, QuantizeError
+
+__all__ = ["discover_images", "run_batch", "BatchResult", "DEFAULT_INCLUDE", "FORMATS", "MANIFEST_JSON",
+           "MANIFEST_CSV", "SHARED_PALETTE"]
+
+#: Patterns an image file must match when ``include`` is not given.
+DEFAULT_INCLUDE = ("*.png", "*.jpg", "*.jpeg", "*.tif", "*.tiff", "*.bmp", "*.gif", "*.webp")
+#: Output file types.
+FORMATS = ("png", "tif", "jpg")
+MANIFEST_JSON = "manifest.json"
+MANIFEST_CSV = "manifest.csv"
+SHARED_PALETTE = "shared.palette.json"
+_MANIFEST_FORMAT = "quantize.batch-manifest"
+_CSV_FIELDS = ("input", "status", "k", "de_mean", "de_median", "de_p95", "de_max", "entries_used",
+               "outputs", "seconds", "peak_rss_mb", "error")
+_WEIGHTINGS = ("equal", "pixels")
+
+
+@dataclass
+class BatchResult:
+    """What a batch run did.
+
+    Attributes
+    ----------
+    rows : list of dict
+        One per image, as in the manifest.
+    summary : dict
+        Counts: ``total``, ``ok``, ``skipped``, ``failed``, ``not_run``.
+    manifest : dict
+        The whole JSON manifest.
+    manifest_paths : tuple of Path
+        The JSON and CSV manifest files.
+    """
+
+    rows: list
+    summary: dict
+    manifest: dict
+    manifest_paths: tuple = ()
+    notes: list = field(default_factory=list)
+
+    @property
+    def failed(self) -> int:
+        """Number of images that failed."""
+        return self.summary["failed"]
+
+
+# --------------------------------------------------------------------------- discovery
+
+def _parts_match(rel: PurePosixPath, patterns: Sequence[str], *, whole_tree: bool) -> bool:
+    """Does a relative path match a pattern (case-insensitively)?
+
+    A pattern without ``/`` matches the file name, or with ``whole_tree`` any
+    folder name on the way; one with ``/`` matches the relative path (or, with
+    ``whole_tree``, any of its leading folders), and there ``*`` may cross ``/``.
+    """
+    parts = [p.lower() for p in rel.parts]
+    names = parts if whole_tree else parts[-1:]
+    paths = ["/".join(parts[:i]) for i in range(1, len(parts) + 1)] if whole_tree else ["/".join(parts)]
+    for pat in patterns:
+        p = pat.lower().strip("/")
+        pool = paths if "/" in p else names
+        if any(fnmatch.fnmatchcase(s, p) for s in pool):
+            return True
+    return False
+
+
+def _check_patterns(patterns, what):
+    out = tuple(patterns)
+    for p in out:
+        if not isinstance(p, str) or not p.strip("/ "):
+            raise ValueError(f"{what} pattern {p!r} is empty")
+    return out
+
+
+def discover_images(input_dir, *, include: Sequence[str] | None = None, exclude: Sequence[str] = (),
+                    skip: Iterable = ()) -> list[PurePosixPath]:
+    """Image files under ``input_dir``, recursively, as sorted relative paths.
+
+    Parameters
+    ----------
+    input_dir : path-like
+        The folder to search.
+    include : sequence of str, optional
+        Glob patterns a file must match (default :data:`DEFAULT_INCLUDE`).
+        A pattern without ``/`` matches the file name at any depth; one with
+        ``/`` matches the path relative to ``input_dir`` (``*`` may cross
+        folders there).  Matching ignores case.
+    exclude : sequence of str, default=()
+        Glob patterns that remove files; a pattern that matches a folder (by
+        name, or by relative path if it has ``/``) removes everything in it.
+    skip : iterable of path-like, default=()
+        Folders never entered (the output folder).
+
+    Returns
+    -------
+    list of PurePosixPath
+        Hidden files and folders (names starting with ``.``) are left out.
+        Symbolic links to folders are not followed.
+
+    Raises
+    ------
+    QuantizeError
+        ``input_dir`` is missing or not a folder.
+
+    Examples
+    --------
+    >>> discover_images("sample_images", include=["*.png"])  # doctest: +SKIP
+    [PurePosixPath('poster_six_inks.png')]
+    """
+    root = Path(input_dir)
+    if not root.is_dir():
+        raise QuantizeError(f"{root}: {'is not a folder' if root.exists() else 'no such folder'}")
+    include = _check_patterns(DEFAULT_INCLUDE if include is None or not len(include) else include, "include")
+    exclude = _check_patterns(exclude, "exclude")
+    skip_real = {Path(s).resolve() for s in skip}
+    found = []
+    for here, dirs, files in os.walk(root, followlinks=False):
+        base = Path(here)
+        rel_base = PurePosixPath(base.relative_to(root).as_posix())
+        keep = []
+        for d in sorted(dirs):
+            rel = rel_base / d
+            if d.startswith(".") or (base / d).resolve() in skip_real or _parts_match(rel, exclude, whole_tree=True):
+                continue
+            keep.append(d)
+        dirs[:] = keep
+        for f in sorted(files):
+            rel = rel_base / f
+            if f.startswith("."):
+                continue
+            if _parts_match(rel, include, whole_tree=False) and not _parts_match(rel, exclude, whole_tree=True):
+                found.append(rel)
+    return sorted(found)
+
+
+def _check_folders(input_dir: Path, output_dir: Path, exclude) -> None:
+    """Refuse an output folder that would be read back as input, or would hold the input."""
+    src, dst = input_dir.resolve(), output_dir.resolve()
+    if src == dst:
+        raise QuantizeError(f"{output_dir}: is the input folder; outputs must go to a separate folder")
+    if src.is_relative_to(dst):
+        raise QuantizeError(f"{output_dir}: contains the input folder {input_dir}; choose an output folder "
+                            "outside it")
+    if dst.is_relative_to(src):
+        rel = PurePosixPath(dst.relative_to(src).as_posix())
+        if not _parts_match(rel, exclude, whole_tree=True):
+            raise QuantizeError(f"{output_dir}: is inside the input folder {input_dir}, so its images would be "
+                                f"read back as inputs; choose a folder outside it or exclude it "
+                                f"(--exclude '{rel}')")
+
+
+# --------------------------------------------------------------------------- settings and manifest
+
+def _key(obj) -> str:
+    return hashlib.sha256(json.dumps(obj, sort_keys=True).encode()).hexdigest()[:16]
+
+
+def _read_previous(output_dir: Path, notes: list) -> dict:
+    path = output_dir / MANIFEST_JSON
+    if not path.exists():
+        return {}
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+        if doc.get("format") != _MANIFEST_FORMAT or not isinstance(doc.get("images"), list):
+            raise ValueError("not a batch manifest")
+        return doc
+    except (OSError, ValueError) as exc:
+        notes.append(f"{path}: previous manifest unreadable ({exc}); every image is redone")
+        return {}
+
+
+def _up_to_date(prev: dict | None, key: str, src: Path, output_dir: Path) -> bool:
+    if not prev or prev.get("status") not in ("ok", "skipped") or prev.get("settings_key") != key:
+        return False
+    try:
+        t_in = src.stat().st_mtime_ns
+        return all((output_dir / o).stat().st_mtime_ns >= t_in for o in prev["outputs"]) and bool(prev["outputs"])
+    except (OSError, KeyError, TypeError):
+        return False
+
+
+def _csv_text(rows) -> str:
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=_CSV_FIELDS, lineterminator="\n")
+    w.writeheader()
+    for r in rows:
+        de = r.get("delta_e") or {}
+        w.writerow({
+            "input": r["input"], "status": r["status"], "k": r.get("k") or "",
+            **{f"de_{s}": ("" if de.get(s) is None else f"{de[s]:.4f}") for s in ("mean", "median", "p95", "max")},
+            "entries_used": " ".join(map(str, r.get("entries_used") or [])),
+            "outputs": ";".join(r.get("outputs") or []),
+            "seconds": "" if r.get("seconds") is None else f"{r['seconds']:.3f}",
+            "peak_rss_mb": "" if r.get("peak_rss_mb") is None else f"{r['peak_rss_mb']:.1f}",
+            "error": r.get("error") or "",
+        })
+    return buf.getvalue()
+
+
+def _summary(rows) -> dict:
+    counts = {s: sum(r["status"] == s for r in rows) for s in ("ok", "skipped", "failed", "not run")}
+    return {"total": len(rows), "ok": counts["ok"], "skipped": counts["skipped"], "failed": counts["failed"],
+            "not_run": counts["not run"]}
+
+
+def _write_manifest(output_dir: Path, doc: dict) -> tuple[Path, Path]:
+    from .images import atomic_write_text
+
+    from .palette import _jsonable
+
+    j = atomic_write_text(output_dir / MANIFEST_JSON,
+                          json.dumps(_jsonable(doc), indent=2, ensure_ascii=False) + "\n", force=True)
+    c = atomic_write_text(output_dir / MANIFEST_CSV, _csv_text(doc["images"]), force=True)
+    return j, c
+
+
+def _consistency(rows, palette, worst: int) -> dict:
+    """How well one palette serves the set: images by ΔE00, and how many images use each entry."""
+    done = [r for r in rows if r["status"] in ("ok", "skipped") and r.get("delta_e")]
+    ranked = sorted(done, key=lambda r: (-r["delta_e"]["mean"], -r["delta_e"]["p95"], r["input"]))
+    use = [0] * palette.k
+    for r in done:
+        for i in r.get("entries_used") or []:
+            use[i] += 1
+    means = [r["delta_e"]["mean"] for r in done]
+    return {
+        "k": palette.k, "hex": palette.hex,
+        "images_using_entry": use,
+        "unused_entries": [i for i, n in enumerate(use) if n == 0],
+        "delta_e_mean_over_images": {"median": float(np.median(means)), "max": float(np.max(means))} if means
+        else None,
+        "worst": [{"input": r["input"], "delta_e": r["delta_e"]} for r in ranked[:worst]],
+    }
+
+
+# --------------------------------------------------------------------------- per-image work (runs in workers)
+
+def _init_worker(threads: int) -> None:
+    # Spawned workers import numba fresh, so this caps the thread pool of any
+    # parallel kernel: two workers with two threads each on two cores only
+    # fight over the cores.
+    for var in ("NUMBA_NUM_THREADS", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ[var] = str(threads)
+
+
+def _peak_mb() -> float | None:
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on Windows
+        return None
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
+
+
+def _one_line(exc: BaseException) -> str:
+    text = (str(exc) or exc.__class__.__name__).splitlines()[0]
+    if isinstance(exc, MemoryError):
+        return "out of memory while processing this image"
+    if isinstance(exc, (QuantizeError, ValueError, OSError)):
+        return text
+    return f"internal error ({exc.__class__.__name__}: {text}); please report it"
+
+
+def _notes(caught) -> list[str]:
+    seen = []
+    for w in caught:
+        m = str(w.message)
+        if m not in seen:
+            seen.append(m)
+    return seen
+
+
+def process_image(job: dict, palette_doc: dict | None = None) -> dict:
+    """Reduce one image of a batch and return its manifest row (never raises for bad input).
+
+    ``job`` holds ``path``, ``rel``, ``outputs`` (absolute, image first,
+    then the palette file in per-image mode), ``replace`` and the fit
+    settings; ``palette_doc`` is the palette as a JSON dict, or None to fit one.
+    """
+    from .fitting import fit_palette
+    from .images import load_image
+    from .palette import Palette
+
+    t0 = time.perf_counter()
+    row = {"input": job["rel"], "status": "failed", "k": None, "delta_e": None, "entries_used": None,
+           "coverage": None, "outputs": [], "error": None}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            pic = load_image(job["path"], max_pixels=job["max_pixels"])
+            if palette_doc is None:
+                pal = fit_palette(pic, job["k"], space=job["space"], seed=job["seed"], restarts=job["restarts"])
+            else:
+                pal = Palette.from_dict(palette_doc, source="batch palette")
+            res = pal.apply(pic)
+            outs = [Path(p) for p in job["outputs"]]
+            if not outs[0].parent.resolve().is_relative_to(job["output_dir"]):
+                raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "
+                                  "not written")
+            outs[0].parent.mkdir(parents=True, exist_ok=True)
+            res.save(outs[0], force=job["replace"], inputs=[job["path"]])
+            # Recorded as soon as written, so that a later run knows the file is its own to replace.
+            row["outputs"].append(job["outputs_rel"][0])
+            if len(outs) > 1:
+                pal.save(outs[1], force=job["replace"])
+                row["outputs"].append(job["outputs_rel"][1])
+            row.update(status="ok", k=pal.k, delta_e={s: float(v) for s, v in res.delta_e.items()},
+                       entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
+                       coverage=[round(float(c), 4) for c in res.coverage])
+        except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero
+            row["error"] = _one_line(exc)
+    row["notes"] = _notes(caught)
+    row["seconds"] = round(time.perf_counter() - t0, 4)
+    row["peak_rss_mb"] = _peak_mb()
+    return row
+
+
+def sample_image(job: dict) -> dict:
+    """Distinct colours and pixel counts of one image, packed at 16 bits per channel, for pooling."""
+    from .images import load_image
+    from .sampling import sample_picture
+
+    out = {"rel": job["rel"], "error": None}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the mapping pass reports the same notes
+        try:
+            s = sample_picture(load_image(job["path"], max_pixels=job["max_pixels"]))
+            codes = s.codes.astype(np.int64) * (257 if s.bit_depth == 8 else 1)  # 8-bit c is 16-bit 257*c
+            out.update(packed=(codes[:, 0] << 32) | (codes[:, 1] << 16) | codes[:, 2], weights=s.weights,
+                       n_pixels=s.n_pixels, bits=s.bit_depth)
+        except Exception as exc:  # noqa: BLE001 - recorded as this image's failure
+            out["error"] = _one_line(exc)
+    return out
+
+
+# --------------------------------------------------------------------------- shared palette
+
+class _Pool:
+    """Running weighted histogram of the whole set, merged in chunks to bound memory."""
+
+    def __init__(self, weighting: str):
+        self.weighting = weighting
+        self.chunks, self.rows, self.pixels, self.bits = [], 0, [], 8
+
+    def add(self, s: dict) -> None:
+        w = s["weights"] / s["weights"].sum() if self.weighting == "equal" else s["weights"]
+        self.chunks.append((s["packed"], w))
+        self.rows += s["packed"].size
+        self.pixels.append(s["n_pixels"])
+        self.bits = max(self.bits, s["bits"])
+        if self.rows > 4_000_000 and len(self.chunks) > 1:
+            self._merge()
+
+    def _merge(self) -> None:
+        p = np.concatenate([c[0] for c in self.chunks])
+        w = np.concatenate([c[1] for c in self.chunks])
+        uniq, inv = np.unique(p, return_inverse=True)
+        self.chunks = [(uniq, np.bincount(inv.ravel(), weights=w, minlength=uniq.size))]
+        self.rows = uniq.size
+
+    def sample(self):
+        from .sampling import ColourSample
+
+        self._merge()
+        packed, w = self.chunks[0]
+        if self.weighting == "equal":
+            w = w * np.mean(self.pixels)  # the scale pool_samples uses: each image weighs the mean image
+        codes = np.stack([(packed >> 32) & 0xFFFF, (packed >> 16) & 0xFFFF, packed & 0xFFFF], axis=1)
+        codes = (codes // 257).astype(np.uint8) if self.bits == 8 else codes.astype(np.uint16)
+        return ColourSample(codes=codes, weights=w, bit_depth=self.bits, n_pixels=int(sum(self.pixels)))
+
+
+def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
+    """One palette for the pooled sample, by :func:`quantize.fitting.fit_palette`."""
+    import warnings
+
+    from .clustering import PaletteSizeWarning
+    from .fitting import fit_palette
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PaletteSizeWarning)  # recorded in fit["notes"]
+        pal = fit_palette(sample, k=k, space=space, seed=seed, restarts=restarts, weighting=weighting)
+    pal.fit["images"] = n_images
+    return pal
+
+
+# --------------------------------------------------------------------------- executors
+
+_DEAD_WORKER = ("a worker process stopped unexpectedly (out of memory, or a script that starts a batch "
+                "outside an `if __name__ == '__main__':` block)")
+
+
+def _local_map(fn, items: list, extra: tuple, workers: int) -> Iterator[tuple[dict, object]]:
+    """Yield (item, result) with at most ``workers`` items in flight; a dead worker fails its item."""
+    import multiprocessing
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures.process import BrokenProcessPool
+
+    threads = max(1, (os.cpu_count() or 1) // workers)
+    todo = list(reversed(items))
+    while todo:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                                 initializer=_init_worker, initargs=(threads,)) as ex:
+            pending = {}
+            broken = False
+            while todo or pending:
+                while todo and len(pending) < workers and not broken:
+                    item = todo.pop()
+                    try:
+                        pending[ex.submit(fn, item, *extra)] = item
+                    except BrokenProcessPool:
+                        todo.append(item)
+                        broken = True
+                if not pending:
+                    break
+                done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                for f in done:
+                    item = pending.pop(f)
+                    try:
+                        yield item, f.result()
+                    except BrokenProcessPool:
+                        broken = True
+                        yield item, RuntimeError(_DEAD_WORKER)
+                if broken and not pending:
+                    break  # start a fresh pool for what is left
+
+
+def _dask_client(cluster):
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        raise QuantizeError("--cluster needs dask.distributed; install it with: pip install 'quantize[dask]'") \
+            from None
+    address = getattr(cluster, "scheduler_address", cluster)
+    try:
+        return Client(address, timeout="20s", set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise QuantizeError(f"cannot reach the Dask scheduler at {address} ({_one_line(exc)})") from None
+
+
+def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, object]]:
+    """Yield (item, result) from a Dask cluster, one item in flight per worker thread."""
+    from dask.distributed import as_completed
+
+    slots = max(1, sum(client.nthreads().values()))
+    todo = list(reversed(items))
+    owner = {}
+    ac = as_completed(loop=client.loop)
+    while todo and len(owner) < slots:
+        item = todo.pop()
+        fut = client.submit(fn, item, *extra, pure=False)
+        owner[fut.key] = item
+        ac.add(fut)
+    for fut in ac:
+        item = owner.pop(fut.key)
+        try:
+            result = fut.result()
+        except Exception as exc:  # noqa: BLE001 - a lost worker or a task error fails this image only
+            result = exc
+        fut.release()
+        yield item, result
+        if todo:
+            nxt = todo.pop()
+            f2 = client.submit(fn, nxt, *extra, pure=False)
+            owner[f2.key] = nxt
+            ac.add(f2)
+
+
+def _executor(cluster, workers):
+    """(Dask client or None, mapper); ``mapper(fn, items, extra)`` yields (item, result)."""
+    if cluster is not None:
+        client = _dask_client(cluster)
+        return client, lambda fn, items, extra: _dask_map(client, fn, items, extra)
+    if workers == 0:
+        return None, lambda fn, items, extra: ((it, fn(it, *extra)) for it in items)
+    n_workers = workers or os.cpu_count() or 1
+    return None, lambda fn, items, extra: _local_map(fn, items, extra, n_workers)
+
+
+# --------------------------------------------------------------------------- the run
+
+def _plan(rels, src: Path, dst: Path, base: dict, *, fmt, per_image, owned, force, rows) -> list[dict]:
+    """One job per image; images whose outputs would collide are failed into ``rows`` instead."""
+    jobs, by_output = [], {}
+    out_root = dst.resolve()
+    for rel in rels:
+        out_rel = rel.with_suffix("." + fmt).as_posix()
+        outs_rel = [out_rel] + ([rel.with_suffix(".palette.json").as_posix()] if per_image else [])
+        job = dict(base, path=os.path.abspath(src / rel), rel=str(rel), output_dir=str(out_root),
+                   outputs_rel=outs_rel, outputs=[str(out_root / o) for o in outs_rel],
+                   replace=force or any(o in owned for o in outs_rel))
+        by_output.setdefault(out_rel, []).append(job)
+        jobs.append(job)
+    for out_rel, same in by_output.items():
+        if len(same) > 1:
+            names = ", ".join(j["rel"] for j in same)
+            for j in same:
+                rows[j["rel"]] = {"input": j["rel"], "status": "failed", "outputs": [],
+                                  "error": f"{names} would all be written to {out_rel}; rename one"}
+    return [j for j in jobs if j["rel"] not in rows]
+
+
+def _validate(*, shared, palette, shared_weighting, space, restarts, fmt, workers, worst, k):
+    from .colourspace import check_space
+    from .fitting import parse_k
+
+    if shared and palette is not None:
+        raise ValueError("give either a palette file or shared=True, not both")
+    if shared_weighting not in _WEIGHTINGS:
+        raise ValueError(f"shared_weighting must be one of {', '.join(_WEIGHTINGS)}, got {shared_weighting!r}")
+    check_space(space)
+    if restarts < 1:
+        raise ValueError(f"restarts must be at least 1, got {restarts}")
+    if fmt not in FORMATS:
+        raise ValueError(f"unknown output format {fmt!r}; choose one of: {', '.join(FORMATS)}")
+    if workers is not None and workers < 0:
+        raise ValueError(f"workers must be 0 (in this process) or more, got {workers}")
+    if worst < 0:
+        raise ValueError(f"worst must be 0 or more, got {worst}")
+    parse_k(k)
+
+
+def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, exclude: Sequence[str] = (),
+              palette=None, shared: bool = False, shared_weighting: str = "equal", k="2-12",
+              space: str = "lab", seed: int = 0, restarts: int = 8, fmt: str = "png",
+              workers: int | None = None, cluster=None, force: bool = False, max_pixels: int | None = None,
+              worst: int = 10, progress: Callable[[int, int, str], object] | None = None) -> BatchResult:
+    """Reduce every image under ``input_dir`` into a mirrored tree under ``output_dir``.
+
+    Parameters
+    ----------
+    input_dir, output_dir : path-like
+        Folders; ``output_dir`` is created if missing.  It may not be or
+        contain ``input_dir``, nor lie inside it unless ``exclude`` removes it.
+    include, exclude : sequence of str
+        Glob patterns, see :func:`discover_images`.
+    palette : path-like or Palette, optional
+        Map every image onto this saved palette instead of fitting.
+    shared : bool, default=False
+        Fit one palette to the whole set (pooled colour histograms) and map
+        every image onto it.
+    shared_weighting : {"equal", "pixels"}, default="equal"
+        In the pool, each image counts equally, or by its pixel count.
+    k : int or "min-max", default="2-12"
+        Palette size, or the range the penalised rule chooses from.
+    space : {"lab", "oklab", "cam16ucs"}, default="lab"
+    seed : int, default=0
+    restarts : int, default=8
+    fmt : {"png", "tif", "jpg"}, default="png"
+        Output file type.
+    workers : int, optional
+        Worker processes (default ``os.cpu_count()``); ``0`` works in this
+        process, one image after another.  Ignored with ``cluster``.
+    cluster : str, optional
+        Address of a ``dask.distributed`` scheduler (``"tcp://host:8786"``)
+        to run the per-image work on; its workers must see the same paths.
+    force : bool, default=False
+        Redo every image and replace existing files.  Without it, up-to-date
+        images are skipped and only files this batch wrote before are replaced.
+    max_pixels : int, optional
+        Decompression-bomb limit per image (default: the loader's).
+    worst : int, default=10
+        How many worst-fitting images the one-palette report lists.
+    progress : callable, optional
+        ``progress(done, total, rel_path)`` after each unit of work (shared
+        runs count a sampling and a mapping unit per image).
+
+    Returns
+    -------
+    BatchResult
+        Images that fail are rows with ``status="failed"`` and their error
+        text; the run goes on.
+
+    Raises
+    ------
+    QuantizeError
+        Missing input folder, bad output folder, no images found, a palette
+        file that fails to load (:class:`PaletteFileError`), Dask missing or
+        unreachable.  Except for folder problems the manifest is written first.
+    ValueError
+        Bad settings.
+
+    References
+    ----------
+    .. [1] G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
+       formula: implementation notes, supplementary test data, and
+       mathematical observations", Color Research & Application 30(1),
+       21-30, 2005.
+    .. [2] M. Rocklin, "Dask: parallel computation with blocked algorithms
+       and task scheduling", Proceedings of the 14th Python in Science
+       Conference, 130-136, 2015.
+
+    Examples
+    --------
+    >>> res = run_batch("photos", "out", shared=True, k=8)  # doctest: +SKIP
+    >>> res.summary["failed"], res.manifest["palette_report"]["worst"][0]["input"]  # doctest: +SKIP
+    """
+    from .images import DEFAULT_MAX_PIXELS
+
+    _validate(shared=shared, palette=palette, shared_weighting=shared_weighting, space=space,
+              restarts=restarts, fmt=fmt, workers=workers, worst=worst, k=k)
+    src, dst = Path(input_dir), Path(output_dir)
+    exclude = _check_patterns(exclude, "exclude")
+    if not src.is_dir():
+        raise QuantizeError(f"{src}: {'is not a folder' if src.exists() else 'no such folder'}")
+    _check_folders(src, dst, exclude)
+    try:
+        dst.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
+    notes: list = []
+    prev_doc = _read_previous(dst, notes)
+    prev_rows = {r.get("input"): r for r in prev_doc.get("images", []) if isinstance(r, dict)}
+    owned = {o for r in prev_rows.values() for o in (r.get("outputs") or [])}
+    rels = discover_images(src, include=include, exclude=exclude, skip=[dst])
+    mode = "shared" if shared else "palette" if palette is not None else "per-image"
+    from . import __version__
+
+    # The package version is part of the settings: a new engine redoes the images.
+    settings = {"quantize": __version__, "mode": mode, "k": str(k), "space": space, "seed": seed,
+                "restarts": restarts, "format": fmt, "max_pixels": max_pixels}
+    if mode == "shared":
+        settings["weighting"] = shared_weighting
+    elif mode == "palette":  # the fit settings do not change a mapping onto a given palette
+        for name in ("k", "space", "seed", "restarts"):
+            del settings[name]
+    doc = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
+           "settings": settings, "settings_key": None, "summary": None, "palette_report": None, "error": None,
+           "notes": notes, "images": []}
+    rows: dict = {}
+    state = {"written": False}
+    t_run = time.perf_counter()
+
+    def finish(error: str | None = None) -> BatchResult:
+        ordered = []
+        for rel in rels:
+            r = rows.get(str(rel))
+            if r is None:  # never reached this run: keep what an earlier run recorded
+                r = dict(prev_rows.get(str(rel)) or {"input": str(rel), "status": "not run", "outputs": []})
+            ordered.append(r)
+        doc["images"] = ordered
+        doc["summary"] = _summary(ordered)
+        doc["seconds"] = round(time.perf_counter() - t_run, 3)
+        doc["error"] = error
+        if pal_obj is not None and mode != "per-image":
+            doc["palette_report"] = _consistency(ordered, pal_obj, worst)
+        state["written"] = True
+        paths = _write_manifest(dst, doc)
+        return BatchResult(rows=ordered, summary=doc["summary"], manifest=doc, manifest_paths=paths, notes=notes)
+
+    pal_obj, done0 = None, 0
+    if not rels:
+        msg = (f"{src}: no images found (include {', '.join(include or DEFAULT_INCLUDE)}"
+               + (f"; exclude {', '.join(exclude)})" if exclude else ")"))
+        finish(msg)
+        raise QuantizeError(msg)
+
+    base = {"k": k, "space": space, "seed": seed, "restarts": restarts,
+            "max_pixels": DEFAULT_MAX_PIXELS if max_pixels is None else max_pixels}
+    jobs = _plan(rels, src, dst, base, fmt=fmt, per_image=mode == "per-image", owned=owned, force=force,
+                 rows=rows)
+    client = None
+    try:
+        client, mapper = _executor(cluster, workers)
+        palette_doc = None
+        if mode == "palette":
+            from .palette import Palette
+
+            pal_obj = palette if isinstance(palette, Palette) else Palette.load(palette)
+        elif mode == "shared":
+            pal_obj, done0 = _shared_palette(src, dst, rels, jobs, rows, prev_doc, settings, force, mapper,
+                                             progress, doc, notes)
+            if pal_obj is None:
+                msg = "no image of the set could be read, so no shared palette was fitted"
+                finish(msg)
+                raise QuantizeError(msg)
+        if pal_obj is not None:
+            palette_doc = pal_obj.to_dict()
+            settings["palette"] = {"space": pal_obj.space, "hex": pal_obj.hex}
+            if client is not None:
+                # Sent once to every worker rather than with every task.
+                palette_doc = client.scatter([palette_doc], broadcast=True, hash=False)[0]
+        key = _key(settings)
+        doc["settings_key"] = key
+        todo = []
+        for j in jobs:
+            if j["rel"] in rows:
+                continue
+            prev = prev_rows.get(j["rel"])
+            if not force and _up_to_date(prev, key, Path(j["path"]), dst):
+                rows[j["rel"]] = dict(prev, status="skipped", seconds=0.0)
+            else:
+                todo.append(j)
+        total = done0 + len(todo)
+        for i, (job, result) in enumerate(mapper(process_image, todo, (palette_doc,)), start=1):
+            if isinstance(result, BaseException):
+                result = {"input": job["rel"], "status": "failed", "outputs": [], "error": _one_line(result)}
+            result["settings_key"] = key
+            rows[job["rel"]] = result
+            if progress:
+                progress(done0 + i, total, job["rel"])
+        return finish()
+    except BaseException as exc:
+        if not state["written"]:
+            finish("interrupted" if isinstance(exc, KeyboardInterrupt) else _one_line(exc))
+        raise
+    finally:
+        if client is not None:
+            client.close()
+
+
+def _shared_palette(src, dst, rels, jobs, rows, prev_doc, settings, force, mapper, progress, doc, notes):
+    """Fit the shared palette once (or reuse the last run's for an unchanged set) and save it.
+
+    Returns the palette (None if no image could be read) and the progress units done.
+    """
+    from .palette import Palette
+
+    fit_settings = {k: settings[k] for k in ("k", "space", "seed", "restarts", "weighting", "max_pixels")}
+    stamp = []
+    for rel in rels:
+        try:
+            st = (src / rel).stat()
+            stamp.append([str(rel), st.st_size, st.st_mtime_ns])
+        except OSError:
+            stamp.append([str(rel), None, None])
+    fingerprint = _key({"fit": fit_settings, "images": stamp})
+    path = dst / SHARED_PALETTE
+    prev_shared = prev_doc.get("shared") or {}
+    doc["shared"] = {"palette_file": SHARED_PALETTE, "fingerprint": fingerprint, "weighting": settings["weighting"],
+                     "reused": False, "sampling_failed": []}
+    if not force and prev_shared.get("fingerprint") == fingerprint and path.exists():
+        try:
+            pal = Palette.load(path)
+            doc["shared"]["reused"] = True
+            doc["shared"]["fit"] = pal.fit
+            for rel, err in prev_shared.get("sampling_failed", []):
+                rows[rel] = {"input": rel, "status": "failed", "outputs": [], "error": err}
+            doc["shared"]["sampling_failed"] = prev_shared.get("sampling_failed", [])
+            return pal, 0
+        except QuantizeError as exc:
+            notes.append(f"{path}: cannot reuse the saved shared palette ({exc}); refitting")
+    pool = _Pool(settings["weighting"])
+    total = 2 * len(jobs)
+    for i, (job, s) in enumerate(mapper(sample_image, jobs, ()), start=1):
+        if isinstance(s, BaseException):
+            s = {"error": _one_line(s)}
+        if s["error"]:
+            rows[job["rel"]] = {"input": job["rel"], "status": "failed", "outputs": [], "error": s["error"]}
+            doc["shared"]["sampling_failed"].append([job["rel"], s["error"]])
+        else:
+            pool.add(s)
+        if progress:
+            progress(i, total, job["rel"])
+    if not pool.pixels:
+        return None, len(jobs)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pal = _fit_pooled(pool.sample(), k=settings["k"], space=settings["space"], seed=settings["seed"],
+                          restarts=settings["restarts"], weighting=settings["weighting"],
+                          n_images=len(pool.pixels))
+    pal.save(path, force=force or prev_shared.get("palette_file") == SHARED_PALETTE)
+    doc["shared"]["fit"] = pal.fit
+    notes.extend(f"shared palette: {n}" for n in pal.fit["notes"])
+    return pal, len(jobs)
