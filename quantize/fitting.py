@@ -133,6 +133,51 @@ def _to_palette(centres, fixed_rgb8, space, locked_n):
 REFINES = ("robust", "none")
 
 
+def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "space", refine: str = "robust"):
+    """Turn k-means centres into the 8-bit palette a job writes.
+
+    With ``refine="robust"`` two explicit refinements are tried, each kept
+    only if it lowers the mean ΔE00 over the sample: a truncated-loss refit
+    (:func:`quantize.refine.robust_refine`), then weighted k-medians steps
+    (:func:`quantize.refine.median_polish`).  The first ``len(fixed_rgb8)``
+    centres are locked.
+
+    Returns
+    -------
+    palette, merged, labels, delta_e, refined
+        ``merged``: rounding to 8 bits merged colours; ``labels`` and
+        ``delta_e`` per distinct colour; ``refined`` names the steps kept
+        ("", "robust", "median" or "robust+median").
+    """
+    from .mapping import map_sample
+    from .refine import median_polish, robust_refine
+
+    m = len(fixed_rgb8)
+    w = sample.weights
+    pal, merged = _to_palette(centres, fixed_rgb8, space, m)
+    labels, de = map_sample(sample, pal, metric=metric)
+    if refine == "none":
+        return pal, merged, labels, de, ""
+    steps = []
+    # The robust refit helps flat artwork (edges, ringing) and can hurt photos,
+    # whose far-off pixels are real colours; k-medians aims at mean ΔE, which
+    # grows with distance rather than its square.
+    bin_pts, bin_w = sample.binned(space)
+    full_pts = sample.points(space)
+    robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
+    robust = robust_refine(full_pts, w, robust, n_fixed=m, max_swaps=0, max_iter=10)
+    for name, make in (("robust", lambda: robust),
+                       ("median", lambda: median_polish(full_pts, w, pal.points(space), n_fixed=m))):
+        cpal, cmerged = _to_palette(make(), fixed_rgb8, space, m)
+        if cpal.k != pal.k:
+            continue
+        clabels, cde = map_sample(sample, cpal, metric=metric)
+        if (w * cde).sum() < (w * de).sum():
+            pal, merged, labels, de = cpal, cmerged, clabels, cde
+            steps.append(name)
+    return pal, merged, labels, de, "+".join(steps)
+
+
 def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0, locked=(),
                    init="k-means++", metric="space", refine: str = "robust",
                    progress: Callable | None = None) -> list[Candidate]:
@@ -148,11 +193,8 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
     ``palette.fit["refined"]`` names the steps kept.  Sizes above the number of
     distinct colours collapse to that number (each size appears once).
     """
-    from .refine import median_polish, robust_refine
-
     if refine not in REFINES:
         raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
-    from .mapping import map_sample
     from .colourspace import srgb8_to_space
 
     fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
@@ -173,26 +215,8 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
             coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
             fine = kmeans(full_pts, len(coarse.centres), weights=sample.weights, fixed=fixed,
                           init_centres=coarse.centres)
-        pal, merged = _to_palette(fine.centres, fixed_rgb8, space, m)
-        labels, de = map_sample(sample, pal, metric=metric)
-        refined = ""
-        if refine == "robust":
-            # The robust palette is kept only where it lowers the mean ΔE00:
-            # it helps flat artwork (edges, ringing) and can hurt photos,
-            # whose far-off pixels are real colours, not noise.
-            centres = robust_refine(bin_pts, bin_w, fine.centres, n_fixed=m)
-            centres = robust_refine(full_pts, sample.weights, centres, n_fixed=m, max_swaps=0, max_iter=10)
-            rpal, rmerged = _to_palette(centres, fixed_rgb8, space, m)
-            rlabels, rde = map_sample(sample, rpal, metric=metric)
-            if rpal.k == pal.k and (sample.weights * rde).sum() < (sample.weights * de).sum():
-                pal, merged, labels, de, refined = rpal, rmerged, rlabels, rde, "robust"
-            # k-medians steps from the better palette, kept likewise only if
-            # they lower the mean ΔE00 (mean ΔE grows with distance, not its square).
-            mc = median_polish(full_pts, sample.weights, pal.points(space), n_fixed=m)
-            mpal, mmerged = _to_palette(mc, fixed_rgb8, space, m)
-            mlabels, mde = map_sample(sample, mpal, metric=metric)
-            if mpal.k == pal.k and (sample.weights * mde).sum() < (sample.weights * de).sum():
-                pal, merged, labels, de, refined = mpal, mmerged, mlabels, mde, (refined + "+median").lstrip("+")
+        pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
+                                                          metric=metric, refine=refine)
         if pal.k in seen:
             if progress:
                 progress(k)

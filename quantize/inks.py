@@ -699,7 +699,7 @@ def subset_cost(d: np.ndarray, w: np.ndarray, subset: Sequence[int], base: np.nd
     m = d[:, list(subset)].min(axis=1) if len(subset) else np.full(d.shape[0], np.inf)
     if base is not None:
         m = np.minimum(m, base)
-    return float(w @ m / w.sum())
+    return float((w * m).sum() / w.sum())
 
 
 def _exact(d, w, n, base):

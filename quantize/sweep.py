@@ -262,7 +262,7 @@ def _split_worst(points, weights, res, n_fixed):
     if cost[j] <= 0 or w.sum() <= 0:
         return None
     x = points[members]
-    mu = w @ x / w.sum()
+    mu = (w[:, None] * x).sum(axis=0) / w.sum()
     cov = ((x - mu).T * w) @ (x - mu) / w.sum()
     lam, vec = np.linalg.eigh(cov)
     step = np.sqrt(2.0 * max(lam[-1], 0.0) / np.pi) * vec[:, -1]
@@ -299,7 +299,7 @@ def _guarded(points, weights, start, fixed):
 
     res = _run_from(points, weights, start, fixed)
     labels, d2 = assign_nearest(points, start)
-    c0 = float(weights @ d2)
+    c0 = float((weights * d2).sum())
     if res.inertia <= c0:
         return res
     return KMeansResult(centres=start, labels=labels, inertia=c0, n_iter=0, history=(c0,), k_requested=len(start))
@@ -316,12 +316,11 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     in :func:`sweep`.
     """
     from .colourspace import srgb8_to_space
-    from .fitting import _to_palette
+    from .fitting import finish_palette
     from .clustering import PaletteSizeWarning, kmeans
     from .mapping import map_sample
     from .measure import coverage_percent, delta_e_stats
     from .palette import Palette, parse_colour
-    from .refine import robust_refine
     from .selection import choose_k, robust_error
 
     fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
@@ -362,17 +361,13 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
                 if alt is not None and alt.inertia <= fine.inertia:
                     fine, start = alt, "add"
         prev_coarse, prev_fine = coarse, fine
-        centres = fine.centres
-        if refine == "robust":
-            # The same explicit step as quantize.fitting: the k-means cost is
-            # reported, the refined palette is what a job would print.
-            centres = robust_refine(bin_pts, bin_w, centres, n_fixed=n_fixed)
-            centres = robust_refine(full_pts, full_w, centres, n_fixed=n_fixed, max_swaps=0)
-        pal, merged = _to_palette(centres, fixed_rgb8, space, n_fixed)
+        # The same explicit refinements as quantize.fitting: the k-means cost
+        # is reported, the refined palette is what a job would print.
+        pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
+                                                          metric=metric, refine=refine)
         if pal.k < k:
             notes.append(f"k = {k}: rounding to 8 bits merged colours; the palette has {pal.k}")
-        pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start})
-        labels, de = map_sample(sample, pal, metric=metric)
+        pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
         per = {}
         for src, smp in per_image:
             _, de_i = map_sample(smp, pal, metric=metric)
