@@ -247,10 +247,10 @@ def _summary(rows) -> dict:
 def _write_manifest(output_dir: Path, doc: dict) -> tuple[Path, Path]:
     from .images import atomic_write_text
 
-    from .palette import _jsonable
+    from .output import to_jsonable
 
     j = atomic_write_text(output_dir / MANIFEST_JSON,
-                          json.dumps(_jsonable(doc), indent=2, ensure_ascii=False) + "\n", force=True)
+                          json.dumps(to_jsonable(doc), indent=2, ensure_ascii=False) + "\n", force=True)
     c = atomic_write_text(output_dir / MANIFEST_CSV, _csv_text(doc["images"]), force=True)
     return j, c
 

@@ -33,7 +33,7 @@ def _run(ctx: click.Context, fn):
     try:
         return fn()
     except (QuantizeError, ValueError, OSError) as exc:
-        if ctx.find_root().obj.get("debug"):
+        if (ctx.find_root().obj or {}).get("debug"):
             raise
         msg = str(exc) or exc.__class__.__name__
         if isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:

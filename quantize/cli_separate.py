@@ -20,27 +20,6 @@ _CHOKE_MM = 0.25
 _MARGIN_MM = 10.0
 
 
-class _Failure(click.ClickException):
-    def show(self, file=None):
-        click.echo(f"quantize: error: {self.message}", err=True)
-
-
-def _run(ctx: click.Context, fn):
-    """Call ``fn``; a user-caused error becomes one line and exit code 1."""
-    from .errors import QuantizeError
-
-    try:
-        return fn()
-    except (QuantizeError, ValueError, OSError) as exc:
-        root = ctx.find_root().obj
-        if isinstance(root, dict) and root.get("debug"):
-            raise
-        msg = str(exc) or exc.__class__.__name__
-        if isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
-            msg = f"{exc.filename}: {msg}"
-        raise _Failure(msg.splitlines()[0]) from None
-
-
 @click.command("separate")
 @click.argument("image", type=click.Path(exists=True, dir_okay=False))
 @click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
@@ -109,6 +88,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
         notes = list(sep.notes) + (list(lib.notes) if lib else [])
         return sep, written, notes
+
+    from .cli import _run  # here, not at the top: cli imports this module
 
     sep, written, notes = _run(ctx, work)
     doc = json.loads(Path(written["manifest"]).read_text(encoding="utf-8"))

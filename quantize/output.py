@@ -287,3 +287,22 @@ def _publish(tmp: str, target: Path, name: str, force: bool) -> None:
 def _discard(tmp: str) -> None:
     with contextlib.suppress(FileNotFoundError):
         os.unlink(tmp)
+
+
+def to_jsonable(obj):
+    """``obj`` with numpy arrays and scalars as plain lists and numbers, NaN/inf as None.
+
+    Used for every JSON document the package writes (palettes, sweeps,
+    manifests), so they load in any JSON reader.
+    """
+    if isinstance(obj, dict):
+        return {str(k): to_jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return to_jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return to_jsonable(obj.item())
+    if isinstance(obj, float) and not np.isfinite(obj):
+        return None
+    return obj

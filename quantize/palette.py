@@ -179,6 +179,8 @@ class Palette:
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON document as a dict."""
+        from .output import to_jsonable
+
         lab = self.lab
         return {
             "format": FORMAT_NAME,
@@ -193,7 +195,7 @@ class Palette:
                 }
                 for i, h in enumerate(self.hex)
             ],
-            "fit": _jsonable(self.fit),
+            "fit": to_jsonable(self.fit),
         }
 
     def save(self, path, *, force: bool = False) -> Path:
@@ -295,20 +297,6 @@ class Palette:
         if not isinstance(fit, dict):
             bad("fit", "expected an object")
         return cls(rgb8=rgb8, locked=np.array(locked), space=space, names=tuple(names), fit=fit)
-
-
-def _jsonable(obj):
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    return obj
 
 
 def palette_from_colours(colours: Sequence, *, locked=None, space: str = "lab", names=()) -> Palette:

@@ -44,6 +44,8 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from .output import to_jsonable
+
 from .errors import OutputError, QuantizeError
 
 __all__ = [
@@ -438,7 +440,7 @@ class Separation:
             "notes": list(self.notes),
             "caution": CAUTION,
         }
-        return _jsonable(doc)
+        return to_jsonable(doc)
 
     def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
               margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
@@ -569,22 +571,6 @@ def _ink_name(palette, i: int) -> str:
 def _slug(name: str) -> str:
     s = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
     return s or "ink"
-
-
-def _jsonable(obj):
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return _jsonable(obj.item())
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None  # JSON has no NaN or infinity
-    if isinstance(obj, Path):
-        return str(obj)
-    return obj
 
 
 def with_substrate(palette, colour) -> tuple[Any, int]:

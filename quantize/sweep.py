@@ -28,6 +28,8 @@ from typing import Callable, Sequence
 
 import numpy as np
 
+from .output import to_jsonable
+
 __all__ = ["sweep", "sweep_sample", "Sweep", "SweepRow", "parse_sweep_range", "candidate_rows",
            "format_table", "MAX_SWEEP_K", "DEFAULT_RANGE", "STARTS"]
 
@@ -152,7 +154,7 @@ class Sweep:
 
     def to_json(self) -> str:
         """The table as JSON text (UTF-8, indented)."""
-        return json.dumps(_jsonable(self.to_dict()), indent=2, ensure_ascii=False) + "\n"
+        return json.dumps(to_jsonable(self.to_dict()), indent=2, ensure_ascii=False) + "\n"
 
     def to_csv(self) -> str:
         """The table as CSV: one row per k, per-image ΔE00 columns after the pooled ones."""
@@ -197,20 +199,6 @@ class Sweep:
 
 def _g(x: float) -> str:
     return f"{float(x):.6g}"
-
-
-def _jsonable(obj):
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, float) and not np.isfinite(obj):
-        return None
-    return obj
 
 
 def parse_sweep_range(ks=DEFAULT_RANGE) -> list[int]:
