@@ -46,6 +46,10 @@ _EXPORTS = {
     "snap_palette": "inks",
     "separate": "separation",
     "Separation": "separation",
+    "DITHERS": "dither",
+    "dither_picture": "dither",
+    "filtered_delta_e": "perception",
+    "save_error_map": "errormap",
     "QuantizeError": "errors",
     "ImageReadError": "errors",
     "PaletteFileError": "errors",
@@ -80,3 +84,6 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs only
     from .inks import choose_inks, load_ink_library, snap_palette
     from .separation import Separation, separate
     from .sweep import Sweep
+    from .dither import DITHERS, dither_picture
+    from .errormap import save_error_map
+    from .perception import filtered_delta_e

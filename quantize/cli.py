@@ -15,6 +15,8 @@ from pathlib import Path
 
 import click
 
+from .cli_dither import dither_options, error_map_paths, pop_dither_options, run_dither_outputs
+
 SPACE_NAMES = ("lab", "oklab", "cam16ucs")
 SEEDINGS = ("k-means++", "random", "farthest")
 
@@ -205,6 +207,7 @@ def main(ctx, debug):
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
               help="Reduced image: .png (indexed), .tif or .jpg.")
 @_fit_options
+@dither_options
 @click.option("--keep-palette", is_flag=True, help="Also write the palette as OUTPUT-stem.palette.json beside it.")
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
@@ -213,10 +216,12 @@ def main(ctx, debug):
 def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_opts):
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""
     t0 = time.perf_counter()
+    dopts = pop_dither_options(fit_opts)
     kwargs = _fit_kwargs(fit_opts)
     out = Path(output)
     pal_path = out.with_name(out.stem + ".palette.json") if keep_palette else None
-    _check_outputs([out] + ([pal_path] if pal_path else []) + _report_targets(report_dir), force, [image])
+    emap = [Path(dopts.error_map)] if dopts.error_map else []
+    _check_outputs([out] + ([pal_path] if pal_path else []) + emap + _report_targets(report_dir), force, [image])
     _check_indexed_size(out, kwargs["k"])
 
     def work():
@@ -225,7 +230,8 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if kwargs["max_pixels"] is None else load_image(image, max_pixels=kwargs["max_pixels"])
         pal = _fit_with_progress(pic, kwargs)
-        res = pal.apply(pic, metric=kwargs["metric"])
+        res = pal.apply(pic, **dopts.apply_kwargs(), metric=kwargs["metric"])
+        res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
         res.save(out, force=force, inputs=[image])
         if pal_path:
             pal.save(pal_path, force=force)
@@ -233,10 +239,11 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from .report import write_report
 
             write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
+                         error_map_path=dextra["error_map"],
                          title=f"quantize reduce: {Path(image).name}", force=force)
-        return pal, res
+        return pal, res, dextra, dlines
 
-    pal, res = _run(ctx, work)
+    pal, res, dextra, dlines = _run(ctx, work)
     rows = _palette_rows(pal, res.coverage)
     summary = {
         "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit["rule"],
@@ -246,7 +253,10 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
         "candidates": pal.fit.get("candidates", []),
         "notes": list(pal.fit.get("notes", [])), "seconds": round(time.perf_counter() - t0, 3),
+        **dextra,
     }
+    if dextra["error_map"]:
+        summary["outputs"].append(dextra["error_map"])
 
     def human():
         click.echo(f"{image}: {pal.k} colours ({pal.fit['reason']})")
@@ -254,7 +264,9 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from .sweep import format_table
 
             click.echo(format_table(pal.fit["candidates"], chosen=pal.k))
-        _print_de("ΔE00", res.delta_e)
+        _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", res.delta_e)
+        for line in dlines:
+            click.echo(line)
         _print_palette(rows)
         for n in summary["notes"]:
             click.echo(f"note: {n}")
@@ -321,15 +333,18 @@ def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
 @click.option("--nearest", type=click.Choice(("space", "ciede2000")), default="space", show_default=True,
               help="Map pixels by distance in the palette's space or by ΔE00.")
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@dither_options
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json):
+def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json, **dither_opts):
     """Map IMAGES onto a saved PALETTE (no refit) and write them to a folder."""
     from .palette import Palette
 
     t0 = time.perf_counter()
+    dopts = pop_dither_options(dither_opts)
+    maps = error_map_paths(dopts, images)
     od = Path(outdir)
     outs = [od / (Path(im).stem + "." + fmt) for im in images]
     if len(set(outs)) != len(outs):
@@ -338,28 +353,34 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         _check_outputs(outs, force, list(images) + [palette])
     if report_dir:
         _check_outputs(_report_targets(report_dir), force, list(images) + [palette])
+    if dopts.error_map:
+        _check_outputs(maps, force, list(images) + [palette])
 
     def work():
         pal = Palette.load(palette)
         od.mkdir(parents=True, exist_ok=True)
-        results = []
+        results, extras = [], []
+        inputs = list(images) + [palette]
         with _progress(len(images), "mapping") as bar:
-            for im, out in zip(images, outs):
-                res = pal.apply(im, metric=nearest, max_pixels=max_pixels)
-                res.save(out, force=force, inputs=list(images) + [palette])
+            for im, out, emap in zip(images, outs, maps):
+                res = pal.apply(im, **dopts.apply_kwargs(), metric=nearest, max_pixels=max_pixels)
+                res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
+                                                         error_map_path=emap)
+                res.save(out, force=force, inputs=inputs)
                 results.append(res)
+                extras.append((dextra, dlines))
                 bar.update(1)
         if report_dir:
             from .report import write_report
 
             write_report(report_dir, original_picture=list(images), mapped=results, palette=pal,
                          title=f"quantize apply: {Path(palette).name}", force=force)
-        return pal, results
+        return pal, results, extras
 
-    pal, results = _run(ctx, work)
+    pal, results, extras = _run(ctx, work)
     per_image = [{"input": str(im), "output": str(out), "delta_e": r.delta_e,
-                  "coverage": [round(float(c), 3) for c in r.coverage]}
-                 for im, out, r in zip(images, outs, results)]
+                  "coverage": [round(float(c), 3) for c in r.coverage], **ex}
+                 for im, out, r, (ex, _) in zip(images, outs, results, extras)]
     summary = {"command": "apply", "palette_file": str(palette), "k": pal.k, "rule": "saved palette",
                "palette": _palette_rows(pal), "images": per_image, "outputs": [str(o) for o in outs],
                "seconds": round(time.perf_counter() - t0, 3)}
@@ -367,8 +388,10 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
     def human():
         click.echo(f"{palette}: {pal.k} colours")
         _print_palette(_palette_rows(pal))
-        for row in per_image:
+        for row, (_, lines) in zip(per_image, extras):
             _print_de(f"{row['input']} -> {row['output']}  ΔE00", row["delta_e"])
+            for line in lines:
+                click.echo(f"  {line}")
 
     _emit(as_json, summary, human)
 

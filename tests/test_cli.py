@@ -205,3 +205,44 @@ def test_apply_report(art, tmp_path):
     r = run("apply", pj, art, "-o", tmp_path / "out", "--report", rep)
     assert r.exit_code == 0, r.output
     assert (rep / "index.html").exists()
+
+
+def test_reduce_with_dither_filtered_report_and_error_map(tmp_path):
+    from PIL import Image as PILImage
+
+    # a smooth ramp: the case dithering exists for
+    ramp = np.tile(np.linspace(0, 255, 256).astype(np.uint8)[None, :, None], (64, 1, 3))
+    src = tmp_path / "ramp.png"
+    PILImage.fromarray(ramp).save(src)
+    out, emap = tmp_path / "r.png", tmp_path / "err.png"
+    r = run("reduce", src, "-o", out, "-k", "4", "--dither", "floyd-steinberg", "--view-dpi", "150",
+            "--view-distance", "400", "--error-map", emap, "--json")
+    assert r.exit_code == 0, r.output
+    s = json.loads(r.stdout)
+    assert s["dither"]["method"] == "floyd-steinberg"
+    assert set(s["delta_e_filtered"]) >= {"mean", "p95"} and s["viewing"]["dpi"] == 150
+    assert s["delta_e_filtered"]["mean"] < s["delta_e"]["mean"]
+    assert emap.exists() and str(emap) in s["outputs"]
+    r = run("reduce", src, "-o", tmp_path / "h.png", "-k", "4", "--dither", "bayer4")
+    assert r.exit_code == 0 and "dither: bayer4" in r.stdout
+
+
+def test_apply_with_dither(art, tmp_path):
+    pj = tmp_path / "p.json"
+    assert run("fit", art, "-o", pj, "-k", "4").exit_code == 0
+    r = run("apply", pj, art, "-o", tmp_path / "out", "--dither", "blue-noise", "--json")
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["images"][0]["dither"]["method"] == "blue-noise"
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--dither", "sparkle"], "floyd-steinberg"),
+    (["--dither-strength", "1.5"], "1.5"),
+    (["--view-dpi", "-3", "--view-distance", "300"], "-3"),
+    (["--view-dpi", "300"], "--view-distance"),
+])
+def test_bad_dither_options(art, tmp_path, args, words):
+    r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "o.png"), *args])
+    assert r.exit_code == 2, r.output
+    assert words in r.output and "Traceback" not in r.output
+    assert not (tmp_path / "o.png").exists()

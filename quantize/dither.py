@@ -1,0 +1,637 @@
+"""Dithering: mapping onto a palette so that areas, not pixels, match.
+
+Every method works in **linear light**.  Error diffusion accumulates the
+difference between the wanted and the chosen colour as linear RGB, and the
+ordered methods mix two palette colours in the proportion that reproduces the
+pixel's linear RGB.  The eye (and a densitometer) averages light, not
+gamma-encoded code values, so this keeps the mean colour of an area: diffusing
+encoded values instead would render a 50 % encoded grey (21.4 % light) as half
+white, visibly too bright.  The *choice* of colour at each pixel is still
+perceptual: nearest in the palette's working space (CIELAB or OKLab; CIELAB for
+a CAM16-UCS palette, whose model cannot run in the compiled kernel), or by
+CIEDE2000 with ``metric="ciede2000"``.
+
+Rules every method keeps
+
+* Fully transparent pixels are never dithered into: they hold index 0, and
+  error diffusion gives them no error (their share goes to the open
+  neighbours instead).
+* A pixel that is exactly a locked palette colour keeps that colour; it
+  neither takes nor passes on error, so a locked substrate stays clean.
+* Error that would fall off the image edge is shared among the neighbours that
+  exist, so no light is lost at borders.
+
+Methods (:data:`DITHERS`)
+
+========================  =========================================================
+``none``                  nearest colour, no dither
+``floyd-steinberg``       error diffusion, 4 neighbours (Floyd & Steinberg 1976)
+``jarvis-judice-ninke``   error diffusion, 12 neighbours (Jarvis, Judice & Ninke 1976)
+``stucki``                error diffusion, 12 neighbours (Stucki 1981)
+``bayer2/4/8``            ordered, recursive dispersed-dot matrix (Bayer 1973)
+``blue-noise``            ordered, 64 x 64 void-and-cluster mask (Ulichney 1993)
+``clustered-dot``         ordered, 8 x 8 clustered-dot cell, dots of 4 px or more (screens)
+========================  =========================================================
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+__all__ = [
+    "CLUSTERED_CELL",
+    "CLUSTERED_MIN_DOT",
+    "DITHERS",
+    "DitherMethod",
+    "bayer_matrix",
+    "blue_noise_ranks",
+    "cache_dir",
+    "check_dither",
+    "check_strength",
+    "clustered_dot_matrix",
+    "clustered_dot_size_mm",
+    "dither_indices",
+    "dither_picture",
+    "threshold_matrix",
+]
+
+_REF_FS = ("R. W. Floyd and L. Steinberg, \"An adaptive algorithm for spatial greyscale\", "
+           "Proceedings of the Society for Information Display 17(2), 75-77, 1976.")
+_REF_JJN = ("J. F. Jarvis, C. N. Judice and W. H. Ninke, \"A survey of techniques for the display of "
+            "continuous tone pictures on bilevel displays\", Computer Graphics and Image Processing "
+            "5(1), 13-40, 1976, doi:10.1016/S0146-664X(76)80003-2.")
+_REF_STUCKI = ("P. Stucki, \"MECCA - a multiple-error correction computation algorithm for bi-level "
+               "image hardcopy reproduction\", IBM Research Report RZ1060, IBM Research Laboratory, "
+               "Zurich, 1981.")
+_REF_BAYER = ("B. E. Bayer, \"An optimum method for two-level rendition of continuous-tone pictures\", "
+              "IEEE International Conference on Communications, Conference Record, 26-11 to 26-15, 1973.")
+_REF_VAC = ("R. Ulichney, \"The void-and-cluster method for dither array generation\", Proc. SPIE 1913, "
+            "Human Vision, Visual Processing, and Digital Display IV, 332-343, 1993, doi:10.1117/12.152707.")
+_REF_CLUSTER = ("R. Ulichney, *Digital Halftoning*, MIT Press, Cambridge MA, 1987, chapter 6 "
+                "(clustered-dot ordered dither).")
+
+
+@dataclass(frozen=True)
+class DitherMethod:
+    """One dithering method.
+
+    Attributes
+    ----------
+    name : str
+    kind : {"none", "diffusion", "ordered"}
+    weights : tuple of (dy, dx, weight), for error diffusion
+        Neighbours ahead in scan order and their shares (they sum to 1).
+    matrix : str or None, for ordered methods
+        Name understood by :func:`threshold_matrix`.
+    reference : str
+        Full citation of the published method.
+    """
+
+    name: str
+    kind: str
+    weights: tuple = ()
+    matrix: str | None = None
+    reference: str = ""
+
+
+def _spread(rows, divisor):
+    """(dy, dx, w) triples from kernel rows written as in the papers: row 0
+    starts right of the current pixel, later rows are centred on it."""
+    out = []
+    for dy, row in enumerate(rows):
+        half = len(row) // 2
+        for i, v in enumerate(row):
+            dx = i + 1 if dy == 0 else i - half
+            if v:
+                out.append((dy, dx, v / divisor))
+    return tuple(out)
+
+
+#: Dithering methods by name (the one name -> method table).
+DITHERS: dict[str, DitherMethod] = {
+    "none": DitherMethod("none", "none", reference="nearest colour, no dither"),
+    "floyd-steinberg": DitherMethod("floyd-steinberg", "diffusion",
+                                    _spread([[7], [3, 5, 1]], 16), reference=_REF_FS),
+    "jarvis-judice-ninke": DitherMethod("jarvis-judice-ninke", "diffusion",
+                                        _spread([[7, 5], [3, 5, 7, 5, 3], [1, 3, 5, 3, 1]], 48),
+                                        reference=_REF_JJN),
+    "stucki": DitherMethod("stucki", "diffusion",
+                           _spread([[8, 4], [2, 4, 8, 4, 2], [1, 2, 4, 2, 1]], 42), reference=_REF_STUCKI),
+    "bayer2": DitherMethod("bayer2", "ordered", matrix="bayer2", reference=_REF_BAYER),
+    "bayer4": DitherMethod("bayer4", "ordered", matrix="bayer4", reference=_REF_BAYER),
+    "bayer8": DitherMethod("bayer8", "ordered", matrix="bayer8", reference=_REF_BAYER),
+    "blue-noise": DitherMethod("blue-noise", "ordered", matrix="blue-noise", reference=_REF_VAC),
+    "clustered-dot": DitherMethod("clustered-dot", "ordered", matrix="clustered-dot", reference=_REF_CLUSTER),
+}
+
+
+def check_dither(name: str) -> DitherMethod:
+    """The method called ``name`` (case-insensitive).
+
+    Raises
+    ------
+    ValueError
+        Unknown name; the message lists every valid one.
+
+    Examples
+    --------
+    >>> check_dither("Floyd-Steinberg").kind
+    'diffusion'
+    """
+    key = name.lower() if isinstance(name, str) else name
+    if key not in DITHERS:
+        raise ValueError(f"unknown dither {name!r}; valid names: {', '.join(DITHERS)}")
+    return DITHERS[key]
+
+
+def check_strength(strength) -> float:
+    """Return ``strength`` as a float if it is within 0-1, else raise ValueError naming it."""
+    try:
+        value = float(strength)
+    except (TypeError, ValueError):
+        raise ValueError(f"dither strength must be a number in 0-1, got {strength!r}") from None
+    if not 0.0 <= value <= 1.0:
+        raise ValueError(f"dither strength must be within 0-1, got {strength!r}")
+    return value
+
+
+# --------------------------------------------------------------------------- threshold matrices
+
+def bayer_matrix(n: int) -> np.ndarray:
+    """Bayer's dispersed-dot index matrix of size ``n`` (a power of two).
+
+    Built by the recursion M(2n) = [[4M, 4M+2], [4M+3, 4M+1]] from M(1) = [[0]].
+
+    Returns
+    -------
+    ndarray of shape (n, n), int
+        A permutation of 0 .. n*n - 1.
+
+    References
+    ----------
+    .. [1] B. E. Bayer, "An optimum method for two-level rendition of
+       continuous-tone pictures", IEEE International Conference on
+       Communications, 1973, 26-11 to 26-15.
+
+    Examples
+    --------
+    >>> bayer_matrix(2)
+    array([[0, 2],
+           [3, 1]])
+    """
+    if n < 1 or n & (n - 1):
+        raise ValueError(f"Bayer matrix size must be a power of two, got {n!r}")
+    m = np.zeros((1, 1), dtype=np.int64)
+    while m.shape[0] < n:
+        m = np.block([[4 * m, 4 * m + 2], [4 * m + 3, 4 * m + 1]])
+    return m
+
+
+#: Cell of the clustered-dot screen in pixels (the screen ruling is dpi / cell).
+CLUSTERED_CELL = 8
+#: Smallest dot (and smallest hole) of the clustered-dot screen, in pixels:
+#: the 2 x 2 block at the cell centre (at the cell corners for holes).
+CLUSTERED_MIN_DOT = 4
+
+
+def clustered_dot_matrix(cell: int = 8) -> np.ndarray:
+    """A clustered-dot index matrix: one round dot per ``cell`` x ``cell`` pixels.
+
+    Cells are ranked by the spot function cos(2 pi u) + cos(2 pi v) (u, v the
+    offset from the cell centre in cell widths): the dot grows from the
+    centre as a disc, meets its neighbours in a checkerboard at 50 % and then
+    leaves shrinking round holes at the corners.  Ties are broken by angle so
+    the order is fixed.  At ``dpi`` the screen has ``dpi / cell`` lines per
+    inch, and a dot covering a fraction c of its cell is about
+    ``2 * sqrt(c * cell**2 / pi)`` pixels across (:func:`clustered_dot_size_mm`).
+    The ``clustered-dot`` dither (:func:`threshold_matrix`) also gives the
+    first :data:`CLUSTERED_MIN_DOT` ranks one threshold, so its smallest dot
+    is the 2 x 2 pixel block at the cell centre, never a lone pixel.
+
+    References
+    ----------
+    .. [1] R. Ulichney, *Digital Halftoning*, MIT Press, 1987, chapter 6.
+
+    Examples
+    --------
+    >>> m = clustered_dot_matrix(4)
+    >>> sorted(m.ravel().tolist()) == list(range(16))
+    True
+    """
+    if cell < 2:
+        raise ValueError(f"clustered-dot cell must be at least 2 pixels, got {cell!r}")
+    c = (np.arange(cell) + 0.5) / cell - 0.5
+    u, v = np.meshgrid(c, c, indexing="ij")
+    spot = np.cos(2 * np.pi * u) + np.cos(2 * np.pi * v)
+    angle = np.arctan2(v, u)
+    order = np.lexsort((angle.ravel(), -np.round(spot.ravel(), 12)))
+    ranks = np.empty(cell * cell, dtype=np.int64)
+    ranks[order] = np.arange(cell * cell)
+    return ranks.reshape(cell, cell)
+
+
+def clustered_dot_size_mm(coverage: float, *, dpi: float, cell: int = 8) -> float:
+    """Diameter in mm of the clustered dot that covers ``coverage`` (0-1) of its cell.
+
+    The dot covers ``round(coverage * cell**2)`` pixels of 25.4/dpi mm; this
+    is the diameter of a disc of that area.
+
+    Examples
+    --------
+    >>> round(clustered_dot_size_mm(1 / 64, dpi=300), 3)  # one pixel
+    0.096
+    """
+    if dpi <= 0:
+        raise ValueError(f"dpi must be positive, got {dpi!r}")
+    pixels = max(round(coverage * cell * cell), 0)
+    return float(2.0 * np.sqrt(pixels / np.pi) * 25.4 / dpi)
+
+
+def cache_dir() -> Path:
+    """Folder for generated masks: ``$QUANTIZE_CACHE_DIR``, else ``$XDG_CACHE_HOME/quantize``
+    (``~/.cache/quantize``)."""
+    env = os.environ.get("QUANTIZE_CACHE_DIR")
+    if env:
+        return Path(env)
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "quantize"
+
+
+def _void_and_cluster(size: int, sigma: float, seed: int) -> np.ndarray:
+    """Ulichney's void-and-cluster ranks on a size x size torus (numpy, exact
+    incremental energies, first index wins a tie, so the result is fixed)."""
+    n = size * size
+    d = np.minimum(np.arange(size), size - np.arange(size)).astype(np.float64)
+    gauss = np.exp(-(d[:, None] ** 2 + d[None, :] ** 2) / (2.0 * sigma * sigma))
+    rolled = {}
+
+    def kernel_at(i):
+        if i not in rolled:
+            rolled[i] = np.roll(gauss, (i // size, i % size), axis=(0, 1)).ravel()
+        return rolled[i]
+
+    rng = np.random.default_rng(seed)
+    ones = np.zeros(n, dtype=bool)
+    ones[rng.choice(n, n // 10, replace=False)] = True
+    energy = np.zeros(n)
+    for i in np.flatnonzero(ones):
+        energy += kernel_at(i)
+
+    def tightest_cluster(pattern, e):
+        return int(np.argmax(np.where(pattern, e, -np.inf)))
+
+    def largest_void(pattern, e):
+        return int(np.argmin(np.where(pattern, np.inf, e)))
+
+    # Relax the random start into the prototype: move the tightest cluster
+    # into the largest void until that is where it came from.
+    for _ in range(10 * n):
+        c = tightest_cluster(ones, energy)
+        ones[c] = False
+        energy -= kernel_at(c)
+        v = largest_void(ones, energy)
+        ones[v] = True
+        energy += kernel_at(v)
+        if v == c:
+            break
+    ranks = np.empty(n, dtype=np.int64)
+    # Phase 1: remove clusters from a copy of the prototype, ranks going down.
+    pat, e = ones.copy(), energy.copy()
+    for rank in range(int(ones.sum()) - 1, -1, -1):
+        c = tightest_cluster(pat, e)
+        pat[c] = False
+        e -= kernel_at(c)
+        ranks[c] = rank
+    # Phases 2 and 3: fill voids, ranks going up.  Past half full Ulichney
+    # swaps roles and picks the tightest cluster of zeros; with a linear
+    # filter that is the same pixel as the largest void of ones.
+    pat, e = ones.copy(), energy.copy()
+    for rank in range(int(ones.sum()), n):
+        v = largest_void(pat, e)
+        pat[v] = True
+        e += kernel_at(v)
+        ranks[v] = rank
+    return ranks.reshape(size, size)
+
+
+@functools.lru_cache(maxsize=8)
+def blue_noise_ranks(size: int = 64, *, sigma: float = 1.5, seed: int = 0) -> np.ndarray:
+    """Blue-noise index matrix by the void-and-cluster method, generated here.
+
+    Computed once per process and kept in :func:`cache_dir` as a ``.npy``
+    file (written atomically; an unreadable or foreign file is recomputed, an
+    unwritable folder only costs the computation).  Never downloaded.
+
+    Parameters
+    ----------
+    size : int, default=64
+        Side of the square, toroidal mask.
+    sigma : float, default=1.5
+        Spread in pixels of the Gaussian filter that measures clusters and
+        voids (the value Ulichney recommends, from memory).
+    seed : int, default=0
+        Seed of the random starting pattern (10 % ones).
+
+    Returns
+    -------
+    ndarray of shape (size, size), int64, read-only
+        A permutation of 0 .. size*size - 1.
+
+    References
+    ----------
+    .. [1] R. Ulichney, "The void-and-cluster method for dither array
+       generation", Proc. SPIE 1913, 332-343, 1993, doi:10.1117/12.152707.
+
+    Examples
+    --------
+    >>> r = blue_noise_ranks(16)  # doctest: +SKIP
+    >>> sorted(r.ravel().tolist()) == list(range(256))  # doctest: +SKIP
+    True
+    """
+    if size < 4:
+        raise ValueError(f"blue-noise mask size must be at least 4, got {size!r}")
+    path = cache_dir() / f"blue-noise-vac-{size}-s{sigma:g}-seed{seed}-v1.npy"
+    ranks = None
+    try:
+        got = np.load(path, allow_pickle=False)
+        if got.shape == (size, size) and np.array_equal(np.sort(got.ravel()), np.arange(size * size)):
+            ranks = got.astype(np.int64)
+    except (OSError, ValueError, EOFError):
+        pass
+    if ranks is None:
+        ranks = _void_and_cluster(size, sigma, seed)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npy")
+            try:
+                with os.fdopen(fd, "wb") as fh:
+                    np.save(fh, ranks.astype(np.int32))
+                os.replace(tmp, path)
+            except BaseException:
+                os.unlink(tmp)
+                raise
+        except OSError:
+            pass  # a read-only cache costs only the computation
+    ranks.flags.writeable = False
+    return ranks
+
+
+def threshold_matrix(name: str) -> np.ndarray:
+    """Thresholds in (0, 1) of an ordered method: (rank + 0.5) / cells.
+
+    ``name`` is ``bayer2``, ``bayer4``, ``bayer8``, ``blue-noise`` or
+    ``clustered-dot``.
+    """
+    if name.startswith("bayer"):
+        ranks = bayer_matrix(int(name[5:]))
+    elif name == "blue-noise":
+        ranks = blue_noise_ranks(64)
+    elif name == "clustered-dot":
+        ranks = clustered_dot_matrix(CLUSTERED_CELL)
+    else:
+        raise ValueError(f"unknown threshold matrix {name!r}")
+    thresholds = (ranks + 0.5) / ranks.size
+    if name == "clustered-dot":
+        # The first dot pixels (and the last hole pixels) share one threshold,
+        # their mean, so a dot or a hole is never smaller than MIN_DOT pixels:
+        # single pixels do not hold ink on a screen.  Tones between are
+        # rounded to none or a whole minimum dot.
+        for part in (ranks < CLUSTERED_MIN_DOT, ranks >= ranks.size - CLUSTERED_MIN_DOT):
+            thresholds[part] = thresholds[part].mean()
+    return thresholds
+
+
+# --------------------------------------------------------------------------- dithering
+
+def _kernel_inputs(pic, palette, metric):
+    """Arrays the compiled kernels take (see quantize._dither_kernels)."""
+    from . import _dither_kernels as dk
+    from . import colourspace as cs
+    from ._dither_kernels import CLEAR, OPEN, PINNED
+
+    space = palette.space if palette.space in ("lab", "oklab") else "lab"
+    if metric == "ciede2000":
+        space = "lab"
+    if space == "lab":
+        mat, mat2, code = cs._M_RGB_TO_T, np.zeros((3, 3)), 0
+    else:
+        mat, mat2, code = cs._M_RGB_TO_LMS, cs._M2_LMS_TO_OKLAB, 1
+    lut = cs.srgb_to_linear(np.arange(pic.max_code + 1) / pic.max_code)
+    codes = np.ascontiguousarray(pic.rgb)
+    state = np.full(pic.shape, OPEN, dtype=np.uint8)
+    pinned = np.zeros(pic.shape, dtype=np.uint16)  # read only where state is PINNED
+    if pic.alpha is not None:
+        state[pic.alpha == 0] = CLEAR
+    scale = 257 if pic.bit_depth == 16 else 1
+    for j in np.flatnonzero(palette.locked):
+        hit = np.all(codes == palette.rgb8[j].astype(codes.dtype) * scale, axis=2) & (state == OPEN)
+        state[hit] = PINNED
+        pinned[hit] = j
+    pal_lin = np.ascontiguousarray(cs.srgb_to_linear(palette.rgb8 / 255.0))
+    pal_pts = np.ascontiguousarray(cs.srgb8_to_space(palette.rgb8, space if metric == "space" else "lab"))
+    mat_lab = np.ascontiguousarray(cs._M_RGB_TO_T)
+    # Palette CIELAB along the kernels' own arithmetic, so that a pixel that
+    # is exactly its palette colour measures exactly 0.
+    pal_lab = np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin])
+    return dict(codes=codes, lut=lut, state=state, pinned=pinned, pal_lin=pal_lin, pal_pts=pal_pts,
+                pal_lab=pal_lab, mat=np.ascontiguousarray(mat), mat2=np.ascontiguousarray(mat2),
+                mat_lab=mat_lab, space=code, metric=0 if metric == "space" else 1, choice_space=space)
+
+
+def _diffuse_measured(args, a, out) -> np.ndarray:
+    """Diffuse band by band and measure each finished band on worker threads.
+
+    Diffusion is sequential; the ΔE00 of the rows it has finished is not, so
+    the other cores measure them meanwhile (the kernels release the GIL).
+    Same indices as one :func:`quantize._dither_kernels.diffuse` call.
+    """
+    from concurrent.futures import ThreadPoolExecutor
+
+    import numba
+
+    from . import _dither_kernels as dk
+
+    h = out.shape[0]
+    de = np.empty(out.shape, dtype=np.float64)
+    err = np.zeros((dk.error_rows(args[10]), out.shape[1], 3))
+    band = max(16, h // 64)
+    with ThreadPoolExecutor(max_workers=max(numba.get_num_threads(), 1)) as pool:
+        jobs = []
+        for y0 in range(0, h, band):
+            y1 = min(h, y0 + band)
+            dk.diffuse_rows(*args, err, y0, y1, out)
+            jobs.append(pool.submit(dk.delta_e_rows, a["codes"], a["lut"], a["state"], out, a["pal_lab"],
+                                    a["mat_lab"], y0, y1, de))
+        for job in jobs:
+            job.result()
+    return de
+
+
+def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
+                   serpentine: bool = True, measure: bool = False) -> tuple[np.ndarray, dict]:
+    """Palette index of every pixel under a dither, without the statistics.
+
+    Parameters are those of :func:`dither_picture` (``method`` must not be
+    ``"none"``), and ``measure``: also measure the per-pixel CIEDE2000.
+
+    Returns
+    -------
+    indices : ndarray of shape (H, W), uint8 (uint16 above 256 colours)
+    arrays : dict
+        The kernels' inputs; with ``measure`` (always, for ordered methods)
+        also ``"delta_e"``, the per-pixel CIEDE2000 (H, W), NaN where
+        transparent.
+
+    Raises
+    ------
+    ValueError
+        Unknown or ``"none"`` method, unknown metric, strength outside 0-1.
+    """
+    from . import _dither_kernels as dk
+    from .images import as_picture
+    from .mapping import check_metric
+
+    m = check_dither(method)
+    if m.kind == "none":
+        raise ValueError("dither_indices needs a dithering method, not 'none'")
+    strength = check_strength(strength)
+    check_metric(metric)
+    pic = as_picture(pic)
+    arrays = _kernel_inputs(pic, palette, metric)
+    dtype = np.uint8 if len(palette) <= 256 else np.uint16
+    out = np.empty(pic.shape, dtype=dtype)
+    a = arrays
+    if m.kind == "diffusion":
+        off = np.array(m.weights, dtype=np.float64)
+        args = (a["codes"], a["lut"], a["state"], a["pinned"], a["pal_lin"], a["pal_pts"], a["mat"],
+                a["mat2"], a["space"], a["metric"], np.ascontiguousarray(off[:, 0].astype(np.int64)),
+                np.ascontiguousarray(off[:, 1].astype(np.int64)), np.ascontiguousarray(off[:, 2]),
+                float(strength), bool(serpentine))
+        if measure:
+            arrays["delta_e"] = _diffuse_measured(args, a, out)
+        else:
+            dk.diffuse(*args, out)
+    else:
+        # An ordered pixel depends on its colour and place only: bracket each
+        # distinct colour once, then threshold the pixels.
+        from .sampling import sample_picture
+
+        smp = sample_picture(pic)
+        n = smp.n_colours
+        near, other = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
+        share, de_near, de_other = np.empty(n), np.empty(n), np.empty(n)
+        dk.bracket(np.ascontiguousarray(smp.codes), a["lut"], a["pal_lin"], a["pal_pts"], a["pal_lab"], a["mat"],
+                   a["mat2"], a["mat_lab"], a["space"], a["metric"], near, other, share, de_near, de_other)
+        thr = np.ascontiguousarray(threshold_matrix(m.matrix))
+        arrays["delta_e"] = np.empty(pic.shape, dtype=np.float64)
+        dk.ordered(smp.inverse.reshape(pic.shape), a["state"], a["pinned"], thr, float(strength), near, other,
+                   share, de_near, de_other, out, arrays["delta_e"])
+    return out, arrays
+
+
+def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
+                   serpentine: bool = True):
+    """Reduce an image to ``palette`` with a dither.
+
+    Parameters
+    ----------
+    pic : Picture, path, PIL image or ndarray
+        See :func:`quantize.images.as_picture`.
+    palette : Palette
+    method : str
+        A key of :data:`DITHERS`.
+    strength : float, default=1.0
+        0-1.  Error diffusion passes on this fraction of each pixel's error;
+        ordered methods mix in this fraction of the partner colour.  0 gives
+        the undithered mapping.
+    metric : {"space", "ciede2000"}, default="space"
+        How the colour of each pixel is chosen: Euclidean distance in the
+        palette's space (CIELAB for a CAM16-UCS palette), or CIEDE2000.
+    serpentine : bool, default=True
+        Error diffusion only: scan odd rows right to left (reduces the
+        diagonal "worm" texture of raster scanning).
+
+    Returns
+    -------
+    MappedImage
+        ``delta_e`` holds the plain per-pixel CIEDE2000 statistics (mean,
+        median, p95, max); ``extra`` records ``dither``, ``strength``,
+        ``serpentine``, ``error_space`` ("linear light") and
+        ``choice_space``.  For spatially filtered statistics see
+        :func:`quantize.perception.with_filtered_delta_e`.
+
+    Raises
+    ------
+    ValueError
+        Unknown method or metric; strength outside 0-1.
+
+    References
+    ----------
+    .. [1] R. W. Floyd and L. Steinberg, "An adaptive algorithm for spatial
+       greyscale", Proc. SID 17(2), 75-77, 1976.
+    .. [2] J. F. Jarvis, C. N. Judice and W. H. Ninke, "A survey of
+       techniques for the display of continuous tone pictures on bilevel
+       displays", Computer Graphics and Image Processing 5(1), 13-40, 1976.
+    .. [3] P. Stucki, "MECCA - a multiple-error correction computation
+       algorithm for bi-level image hardcopy reproduction", IBM Research
+       Report RZ1060, 1981.
+    .. [4] B. E. Bayer, "An optimum method for two-level rendition of
+       continuous-tone pictures", IEEE ICC, 1973, 26-11 to 26-15.
+    .. [5] R. Ulichney, "The void-and-cluster method for dither array
+       generation", Proc. SPIE 1913, 332-343, 1993.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from quantize.palette import Palette
+    >>> pal = Palette(rgb8=np.array([[0, 0, 0], [255, 255, 255]]), locked=None)
+    >>> grey = np.full((32, 32, 3), 128, np.uint8)
+    >>> out = dither_picture(grey, pal, method="floyd-steinberg")  # doctest: +SKIP
+    >>> round(float(out.indices.mean()), 2)  # share of white: the light of sRGB 128  # doctest: +SKIP
+    0.22
+    """
+    from .images import as_picture
+    from .mapping import MappedImage, check_metric, map_picture
+    from .perception import pixel_delta_e_stats
+
+    m = check_dither(method)
+    strength = check_strength(strength)
+    check_metric(metric)
+    pic = as_picture(pic)
+    if m.kind == "none":
+        return map_picture(pic, palette, metric=metric)
+    idx, arrays = dither_indices(pic, palette, method=m.name, strength=strength, metric=metric,
+                                 serpentine=serpentine, measure=True)
+    from . import _dither_kernels as dk
+
+    de = arrays["delta_e"]
+    clear = arrays["state"] == dk.CLEAR if pic.alpha is not None else None
+    if clear is not None and clear.any():
+        values, used = de[~clear], idx[~clear]
+    else:  # flat views: no copies of a 12-megapixel array
+        values, used = de.ravel(), idx.ravel()
+    counts = np.bincount(used, minlength=len(palette))
+    notes = list(pic.warnings)
+    if arrays["choice_space"] != palette.space and metric == "space":
+        notes.append(f"dither chose colours by distance in CIELAB (the {palette.space} model "
+                     "does not run in the compiled kernel)")
+    return MappedImage(
+        indices=idx,
+        palette=palette,
+        alpha=pic.alpha,
+        delta_e=pixel_delta_e_stats(values, overwrite=True),
+        coverage=100.0 * counts / counts.sum(),
+        source=pic.source,
+        dpi=pic.dpi,
+        bit_depth=pic.bit_depth,
+        notes=tuple(notes),
+        extra={"dither": m.name, "strength": strength, "serpentine": bool(serpentine) if m.kind == "diffusion"
+               else None, "error_space": "linear light", "choice_space": arrays["choice_space"],
+               "metric": metric},
+    )

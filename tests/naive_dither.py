@@ -1,0 +1,99 @@
+"""Plain-Python/numpy twins of the dithering kernels in quantize._dither_kernels.
+
+Written for clarity, pixel by pixel, from the public colour functions: a
+full-size error image instead of a rolling buffer, conversions through
+encoded sRGB, CIEDE2000 from quantize.colourspace (checked against Sharma et
+al. 2005 in test_colourspace.py).  Slow; for small images only.
+"""
+
+import numpy as np
+
+from quantize.colourspace import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
+
+
+def _choose(target_lin, pal_pts, pal_lab, space, metric):
+    rgb = linear_to_srgb(target_lin)
+    if metric == "space":
+        d = ((pal_pts - to_space(rgb, space)) ** 2).sum(axis=1)
+    else:
+        d = delta_e_ciede2000(srgb_to_lab(rgb)[None, :], pal_lab)
+    return int(np.argmin(d))  # first index on ties
+
+
+def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="space", strength=1.0,
+            serpentine=True, low=-1.0, high=2.0):
+    """Error diffusion in linear light.
+
+    rgb: (H, W, 3) encoded floats; clear: (H, W) bool (transparent);
+    pinned: (H, W) int, palette index or -1; weights: [(dy, dx, w), ...].
+    """
+    h, w = clear.shape
+    lin = srgb_to_linear(rgb)
+    pal_lin = srgb_to_linear(palette_rgb8 / 255.0)
+    pal_pts = to_space(palette_rgb8 / 255.0, space)
+    pal_lab = srgb_to_lab(palette_rgb8 / 255.0)
+    err = np.zeros((h, w, 3))
+    out = np.zeros((h, w), dtype=int)
+
+    def is_open(yy, xx):
+        return 0 <= yy < h and 0 <= xx < w and not clear[yy, xx] and pinned[yy, xx] < 0
+
+    for y in range(h):
+        sign = -1 if (serpentine and y % 2 == 1) else 1
+        xs = range(w - 1, -1, -1) if sign < 0 else range(w)
+        for x in xs:
+            if clear[y, x]:
+                continue
+            if pinned[y, x] >= 0:
+                out[y, x] = pinned[y, x]
+                continue
+            target = np.clip(lin[y, x] + err[y, x], low, high)
+            j = _choose(target, pal_pts, pal_lab, space, metric)
+            out[y, x] = j
+            e = strength * (target - pal_lin[j])
+            spots = [(y + dy, x + sign * dx, wt) for dy, dx, wt in weights if is_open(y + dy, x + sign * dx)]
+            total = sum(wt for _, _, wt in spots)
+            for yy, xx, wt in spots:
+                err[yy, xx] += e * wt / total
+    return out
+
+
+def ordered(rgb, clear, pinned, palette_rgb8, thresholds, *, space="lab", metric="space", strength=1.0):
+    """Two-colour ordered dither: nearest colour p, partner q whose segment p-q
+    passes closest to the pixel in linear RGB, q where threshold < strength * alpha."""
+    h, w = clear.shape
+    lin = srgb_to_linear(rgb)
+    pal_lin = srgb_to_linear(palette_rgb8 / 255.0)
+    pal_pts = to_space(palette_rgb8 / 255.0, space)
+    pal_lab = srgb_to_lab(palette_rgb8 / 255.0)
+    th, tw = thresholds.shape
+    out = np.zeros((h, w), dtype=int)
+    for y in range(h):
+        for x in range(w):
+            if clear[y, x]:
+                continue
+            if pinned[y, x] >= 0:
+                out[y, x] = pinned[y, x]
+                continue
+            c = lin[y, x]
+            p = _choose(c, pal_pts, pal_lab, space, metric)
+            best, partner, alpha = np.sum((c - pal_lin[p]) ** 2), p, 0.0
+            for q in range(len(pal_lin)):
+                d = pal_lin[q] - pal_lin[p]
+                if q == p or not d.any():
+                    continue
+                a = float((c - pal_lin[p]) @ d / (d @ d))
+                if a <= 0:
+                    continue
+                a = min(a, 1.0)
+                dist = np.sum((c - pal_lin[p] - a * d) ** 2)
+                if dist < best:
+                    best, partner, alpha = dist, q, a
+            out[y, x] = partner if thresholds[y % th, x % tw] < strength * alpha else p
+    return out
+
+
+def pixel_delta_e(rgb, clear, indices, palette_rgb8):
+    """CIEDE2000 of each pixel to its palette colour, NaN where transparent."""
+    de = delta_e_ciede2000(srgb_to_lab(rgb), srgb_to_lab(palette_rgb8 / 255.0)[indices])
+    return np.where(clear, np.nan, de)
