@@ -66,9 +66,8 @@ def _sq_dist_to(points: np.ndarray, centre: np.ndarray) -> np.ndarray:
     return np.einsum("ij,ij->i", diff, diff)
 
 
-def _init_kmeanspp(points, weights, k, fixed, rng):
-    """Greedy weighted k-means++ (D² sampling, several candidates per step)."""
-    n_trials = 2 + int(np.log(k))
+def _first_centres(points, weights, fixed, rng):
+    """The locked centres, or one weighted random point; and each point's squared distance to them."""
     centres = [c for c in fixed]
     if centres:
         _, d2 = assign_nearest(points, np.asarray(centres))
@@ -76,6 +75,13 @@ def _init_kmeanspp(points, weights, k, fixed, rng):
         first = _weighted_pick(rng, weights, 1)[0]
         centres.append(points[first])
         d2 = _sq_dist_to(points, points[first])
+    return centres, d2
+
+
+def _init_kmeanspp(points, weights, k, fixed, rng):
+    """Greedy weighted k-means++ (D² sampling, several candidates per step)."""
+    n_trials = 2 + int(np.log(k))
+    centres, d2 = _first_centres(points, weights, fixed, rng)
     while len(centres) < k:
         pot = weights * d2
         if pot.sum() <= 0:
@@ -129,13 +135,7 @@ def _init_random(points, weights, k, fixed, rng):
 
 def _init_farthest(points, weights, k, fixed, rng):
     """Farthest-point traversal from a weighted random start (or the locked centres)."""
-    centres = [c for c in fixed]
-    if centres:
-        _, d2 = assign_nearest(points, np.asarray(centres))
-    else:
-        first = _weighted_pick(rng, weights, 1)[0]
-        centres.append(points[first])
-        d2 = _sq_dist_to(points, points[first])
+    centres, d2 = _first_centres(points, weights, fixed, rng)
     while len(centres) < k:
         far = int(np.argmax(d2))
         if d2[far] <= 0:
