@@ -161,13 +161,15 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "sp
     steps = []
     # The robust refit helps flat artwork (edges, ringing) and can hurt photos,
     # whose far-off pixels are real colours; k-medians aims at mean ΔE, which
-    # grows with distance rather than its square.
+    # grows with distance rather than its square.  Most iterations run on the
+    # binned sample; the last ones, and every comparison, on every colour.
     bin_pts, bin_w = sample.binned(space)
     full_pts = sample.points(space)
     robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-    robust = robust_refine(full_pts, w, robust, n_fixed=m, max_swaps=0, max_iter=10)
+    robust = robust_refine(full_pts, w, robust, n_fixed=m, max_swaps=0, max_iter=4)
     for name, make in (("robust", lambda: robust),
-                       ("median", lambda: median_polish(full_pts, w, pal.points(space), n_fixed=m))):
+                       ("median", lambda: median_polish(full_pts, w, median_polish(
+                           bin_pts, bin_w, pal.points(space), n_fixed=m), n_fixed=m, iters=2))):
         cpal, cmerged = _to_palette(make(), fixed_rgb8, space, m)
         if cpal.k != pal.k:
             continue

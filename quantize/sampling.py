@@ -93,6 +93,9 @@ class ColourSample:
         points : ndarray of shape (m, 3)
         weights : ndarray of shape (m,)
         """
+        key = ("binned", space, max_points)
+        if key in self._points:
+            return self._points[key]
         pts = self.points(space)
         if self.n_colours <= max_points:
             return pts, self.weights
@@ -104,6 +107,7 @@ class ColourSample:
         means = np.empty((cells.size, pts.shape[1]))
         for j in range(pts.shape[1]):
             means[:, j] = np.bincount(inv, weights=self.weights * pts[:, j], minlength=cells.size) / w
+        self._points[key] = (means, w)  # every palette size and refinement reuses it
         return means, w
 
 
