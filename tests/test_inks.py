@@ -341,7 +341,7 @@ def test_swap_search_repairs_a_greedy_start():
     lib = _library(np.array([[50, 50, 50], [125, 125, 125], [200, 200, 200]], np.uint8))
     px = srgb8_to_space(np.array([[50, 50, 50], [200, 200, 200]], np.uint8), "lab")
     d = _distance_matrix(px, srgb8_to_space(lib.rgb8, "lab"))
-    assert 1 in _greedy(d, np.array([8.0, 8.0]), 2, None)  # the greedy start holds the mid grey
+    assert {1} <= set(_greedy(d, np.array([8.0, 8.0]), 2, None))  # the greedy start holds the mid grey
     sel = choose_inks(img, lib, 2, method="search", restarts=1)
     assert sorted(sel.chosen) == [0, 2] and sel.cost == pytest.approx(0.0, abs=1e-9)
 
