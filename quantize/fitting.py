@@ -324,13 +324,12 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     ks = parse_k(k)
     if rule == "target" and (target is None or not target > 0):
         raise ValueError(f"the target rule needs a positive ΔE00 target, got {target!r}")
-    sample, sources, notes = load_samples(images, weighting=weighting, max_pixels=max_pixels)
-    ks_eff = [kk for kk in ks if kk <= max(sample.n_colours, 1)] or [sample.n_colours]
-    if len(ks_eff) < len(ks) or ks_eff[-1] < ks[-1]:
-        if ks_eff[-1] < ks[-1] and ks_eff[-1] < min(ks):
-            ks_eff = [sample.n_colours]
-        notes.append(f"the image set has only {sample.n_colours} distinct colours; "
-                     f"palette sizes above {sample.n_colours} were not fitted")
+    sample, sources, load_notes = load_samples(images, weighting=weighting, max_pixels=max_pixels)
+    size_notes = []
+    ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]
+    if max(ks) > sample.n_colours:
+        size_notes.append(f"the image set has only {sample.n_colours} distinct colours; "
+                          f"palette sizes above {sample.n_colours} were not fitted")
     cands = fit_candidates(sample, ks_eff, space=space, restarts=restarts, seed=seed, locked=locked,
                            init=init, metric=metric, refine=refine, progress=progress)
     ks_c = [c.k for c in cands]
@@ -364,9 +363,9 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
             {"k": c.k, "inertia": c.inertia, "delta_e": c.delta_e, "robust_error": c.robust, "score": s}
             for c, s in zip(cands, choice.scores)
         ],
-        "notes": notes + list(chosen.palette.fit.get("notes", [])),
+        "notes": load_notes + size_notes + list(chosen.palette.fit.get("notes", [])),
     }
-    if fit["notes"]:
-        for n in fit["notes"]:
-            warnings.warn(n, PaletteSizeWarning if "distinct" in n else UserWarning, stacklevel=2)
+    # Loading already warned about its own notes; these are the fit's.
+    for n in size_notes + list(chosen.palette.fit.get("notes", [])):
+        warnings.warn(n, PaletteSizeWarning, stacklevel=2)
     return Palette(chosen.palette.rgb8, chosen.palette.locked, space, fit=fit)
