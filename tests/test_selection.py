@@ -54,3 +54,17 @@ def test_rule_validation():
         check_rule("elbow")
     with pytest.raises(ValueError, match="positive"):
         choose_k([2, 3], [{"mean": 1}] * 2, [1, 1], rule="target", target=None)
+
+
+def test_pooled_artworks_count_the_union_of_their_inks():
+    # Two generated 4-ink artworks with different inks (seeds 1 and 2), pooled:
+    # the rule must count 8.  The closest pair across the two sets is about
+    # ΔE00 8 apart (checked below), plainly two colours to a viewer.
+    from skimage.color import deltaE_ciede2000, rgb2lab
+
+    a, inks_a = flat_artwork(4, seed=1, jpeg_quality=85)
+    b, inks_b = flat_artwork(4, seed=2, jpeg_quality=85)
+    la, lb = rgb2lab(inks_a[None] / 255.0)[0], rgb2lab(inks_b[None] / 255.0)[0]
+    assert min(deltaE_ciede2000(x[None], lb).min() for x in la) > 5
+    assert fit_palette([a, b], k=(2, 12)).k == 8
+    assert fit_palette([a, a], k=(2, 12)).k == 4
