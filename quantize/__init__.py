@@ -42,8 +42,8 @@ _EXPORTS = {
     "SPACES": "colourspace",
     "Sweep": "sweep",
     "load_ink_library": "inks",
-    "choose_inks": "inks",
-    "snap_palette": "inks",
+    "choose_inks": "ink_choice",
+    "snap_palette": "ink_choice",
     "separate": "separation",
     "Separation": "separation",
     "DITHERS": "dither",
@@ -81,7 +81,8 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs only
     from .mapping import MappedImage, map_picture
     from .palette import Palette, parse_colour
     from .sampling import ColourSample, sample_picture
-    from .inks import choose_inks, load_ink_library, snap_palette
+    from .ink_choice import choose_inks, snap_palette
+    from .inks import load_ink_library
     from .separation import Separation, separate
     from .sweep import Sweep
     from .dither import DITHERS, dither_picture

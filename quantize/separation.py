@@ -859,10 +859,10 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
 
     * ``palette`` alone: that palette, with ``substrate`` locked into it.
     * ``library`` and ``n``: the best ``n`` inks of the library
-      (:func:`quantize.inks.choose_inks`).
+      (:func:`quantize.ink_choice.choose_inks`).
     * ``library``, ``snap`` and ``n`` (or ``palette``): a palette fitted with
       ``n`` inks (or the given one), each colour moved to its nearest library
-      ink (:func:`quantize.inks.snap_palette`).
+      ink (:func:`quantize.ink_choice.snap_palette`).
     * neither: a palette fitted to the image, ``n`` inks plus the substrate
       (``n`` None: 1-8 inks, chosen by the fit's penalised rule).
 
@@ -920,7 +920,7 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
         lk = np.flatnonzero(palette.locked) if palette is not None else np.array([], int)
         substrate = palette.hex[int(lk[0])] if lk.size == 1 else "#ffffff"
     if library is not None and not snap:
-        from .inks import choose_inks
+        from .ink_choice import choose_inks
 
         sel = choose_inks(pic, library, n, substrate=substrate, seed=seed)
         info = {"method": f"best {n} of {len(library)} library inks ({sel.method})",
@@ -941,7 +941,7 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
     palette, sub = with_substrate(palette, sub_spec)
     info = {"method": method, "substrate": sub}
     if snap:
-        from .inks import snap_palette
+        from .ink_choice import snap_palette
 
         others = [i for i in range(palette.k) if i != sub]
         lk = palette.locked.copy()

@@ -12,10 +12,8 @@ import json
 import numpy as np
 import pytest
 
-from quantize.inks import (
-    InkLibraryError, adapt_lab, bradford_matrix, choose_inks, load_ink_library, parse_ink_library,
-    snap_palette, subset_cost,
-)
+from quantize.ink_choice import choose_inks, snap_palette, subset_cost
+from quantize.inks import InkLibraryError, adapt_lab, bradford_matrix, load_ink_library, parse_ink_library
 from quantize.palette import Palette
 
 from artwork import flat_artwork
@@ -334,7 +332,7 @@ def test_swap_search_repairs_a_greedy_start():
     # Greedy takes the mid grey first (best single ink), then can only add one end;
     # one swap (mid -> the other end) reaches cost 0, the optimum.
     from quantize.colourspace import srgb8_to_space
-    from quantize.inks import _distance_matrix, _greedy
+    from quantize.ink_choice import _distance_matrix, _greedy
 
     img = np.zeros((4, 4, 3), np.uint8)
     img[:2], img[2:] = 50, 200

@@ -1,0 +1,368 @@
+"""Choosing inks from a library: best N of M for an image, or snapping a palette.
+
+Split from :mod:`quantize.inks`, which reads the libraries.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+
+from .inks import InkLibrary, InkLibraryError
+
+__all__ = ["InkSelection", "SELECTION_METHODS", "choose_inks", "snap_palette", "subset_cost"]
+
+
+#: Subset-selection methods: "exact" enumerates every subset, "search" is a
+#: greedy start plus swap local search with restarts, "auto" is exact when
+#: there are few subsets.
+SELECTION_METHODS = ("auto", "exact", "search")
+_EXACT_LIMIT = 3000  # subsets enumerated by "auto" before it switches to search
+
+
+@dataclass(frozen=True, eq=False)
+class InkSelection:
+    """The inks chosen for an image.
+
+    Attributes
+    ----------
+    chosen : tuple of int
+        Library indices of the chosen inks, best first by pixel share.
+    cost : float
+        Pixel-weighted mean ΔE00 of the image mapped onto chosen inks + substrate.
+    method : str
+        "exact" or "search".
+    evaluated : int
+        Subsets whose cost was computed.
+    palette : Palette
+        Substrate first (locked, when given), then the chosen inks, named.
+    """
+
+    chosen: tuple
+    cost: float
+    method: str
+    evaluated: int
+    palette: Any
+    details: dict = field(default_factory=dict)
+
+
+def _distance_matrix(lab_px: np.ndarray, lab_inks: np.ndarray) -> np.ndarray:
+    from .colourspace import delta_e_ciede2000
+
+    d = np.empty((lab_px.shape[0], lab_inks.shape[0]))
+    for j in range(lab_inks.shape[0]):  # column by column: no (n, M, 3) temporaries
+        d[:, j] = delta_e_ciede2000(lab_px, lab_inks[j])
+    return d
+
+
+def subset_cost(d: np.ndarray, w: np.ndarray, subset: Sequence[int], base: np.ndarray | None = None) -> float:
+    """Weighted mean of each row's smallest distance over ``subset`` (and ``base``).
+
+    Parameters
+    ----------
+    d : ndarray of shape (n, M)
+        Distance of every colour to every ink.
+    w : ndarray of shape (n,)
+        Weights (pixel counts).
+    subset : sequence of int
+        Ink columns in use.
+    base : ndarray of shape (n,), optional
+        Distance to colours that are always present (the substrate).
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> d = np.array([[1.0, 5.0], [4.0, 2.0]])
+    >>> subset_cost(d, np.array([1.0, 1.0]), [0])
+    2.5
+    """
+    m = d[:, list(subset)].min(axis=1) if len(subset) else np.full(d.shape[0], np.inf)
+    if base is not None:
+        m = np.minimum(m, base)
+    return float((w * m).sum() / w.sum())
+
+
+def _exact(d, w, n, base):
+    best, best_s, count = np.inf, (), 0
+    for s in itertools.combinations(range(d.shape[1]), n):
+        c = subset_cost(d, w, s, base)
+        count += 1
+        if c < best - 1e-12:
+            best, best_s = c, s
+    return list(best_s), best, count
+
+
+def _swap_search(d, w, start, base, count):
+    """Best-improvement 1-swap local search from ``start``."""
+    s = list(start)
+    wsum = w.sum()
+    m_all = d.shape[1]
+    cur = subset_cost(d, w, s, base)
+    while True:
+        sub = d[:, s]
+        order = np.argsort(sub, axis=1)
+        first = np.take_along_axis(sub, order[:, :1], axis=1)[:, 0]
+        second = (np.take_along_axis(sub, order[:, 1:2], axis=1)[:, 0] if len(s) > 1
+                  else np.full(d.shape[0], np.inf))
+        outside = np.setdiff1d(np.arange(m_all), s)
+        if outside.size == 0:
+            return s, cur, count
+        best = (cur, None, None)
+        for pos in range(len(s)):
+            # Distance to the subset without s[pos]: the second nearest where s[pos] was nearest.
+            rest = np.where(order[:, 0] == pos, second, first)
+            if base is not None:
+                rest = np.minimum(rest, base)
+            costs = w @ np.minimum(rest[:, None], d[:, outside]) / wsum
+            count += outside.size
+            j = int(np.argmin(costs))
+            if costs[j] < best[0] - 1e-12 * max(1.0, cur):
+                best = (float(costs[j]), pos, int(outside[j]))
+        if best[1] is None:
+            return s, cur, count
+        cur = best[0]
+        s[best[1]] = best[2]
+
+
+def _greedy(d, w, n, base):
+    s: list[int] = []
+    cur = base.copy() if base is not None else np.full(d.shape[0], np.inf)
+    for _ in range(n):
+        costs = w @ np.minimum(cur[:, None], d)
+        costs[s] = np.inf
+        j = int(np.argmin(costs))
+        s.append(j)
+        cur = np.minimum(cur, d[:, j])
+    return s
+
+
+def _search(d, w, n, base, restarts, rng):
+    s, c, count = _swap_search(d, w, _greedy(d, w, n, base), base, 0)
+    for _ in range(restarts - 1):
+        start = rng.choice(d.shape[1], size=n, replace=False)
+        s2, c2, count = _swap_search(d, w, start, base, count)
+        if c2 < c - 1e-12:
+            s, c = s2, c2
+    return s, c, count
+
+
+def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: str = "auto",
+                restarts: int = 4, seed=0, max_colours: int = 50_000) -> InkSelection:
+    """Choose the ``n`` library inks that reproduce an image best.
+
+    The cost of a set of inks is the pixel-weighted mean ΔE00 between every
+    pixel and the nearest colour among those inks and the substrate. This is
+    the k-median (facility location) problem on the ink library, NP-hard in
+    general; ``"search"`` starts from the greedy choice (add the ink that
+    lowers the cost most, n times), improves it by the best single swap of a
+    chosen ink for an unchosen one until no swap helps, and repeats from
+    ``restarts - 1`` random starts, keeping the best.
+
+    Parameters
+    ----------
+    image : path, Picture, PIL image, ndarray or ColourSample
+    library : InkLibrary
+    n : int
+        Number of inks to print (the substrate is not counted).
+    substrate : int, str or colour, optional
+        The substrate: a library index or ink name (then it is not a
+        candidate), or a colour (hex or L,a,b). It is always present and gets
+        no plate.
+    method : {"auto", "exact", "search"}, default "auto"
+        "auto" enumerates every subset when there are at most 3000 of them.
+    restarts : int, default 4
+        Local searches for "search" (the first from the greedy start).
+    seed : int or numpy Generator, default 0
+    max_colours : int, default 50000
+        Above this many distinct colours, the weighted cell means of
+        :meth:`ColourSample.binned` stand in for the distinct colours.
+
+    Returns
+    -------
+    InkSelection
+
+    Raises
+    ------
+    InkLibraryError
+        The library has fewer candidate inks than ``n``.
+    ValueError
+        Bad ``n``, ``method``, ``restarts`` or substrate.
+
+    References
+    ----------
+    .. [1] O. Kariv and S. L. Hakimi, "An algorithmic approach to network
+       location problems. II: The p-medians", SIAM J. Appl. Math. 37(3),
+       539-560, 1979 (NP-hardness).
+    .. [2] M. B. Teitz and P. Bart, "Heuristic methods for estimating the
+       generalized vertex median of a weighted graph", Operations Research
+       16(5), 955-961, 1968 (the swap search).
+    .. [3] V. Arya et al., "Local search heuristics for k-median and facility
+       location problems", SIAM J. Comput. 33(3), 544-562, 2004.
+
+    Examples
+    --------
+    >>> lib = parse_ink_library("Red,#c8102e\\nBlue,#1f3a93\\nGold,#f2b705\\n")
+    >>> img = np.zeros((4, 4, 3), np.uint8); img[:, :2] = (200, 16, 46)
+    >>> sel = choose_inks(img, lib, 1, substrate="#000000")
+    >>> [lib.names[i] for i in sel.chosen]
+    ['Red']
+    """
+    from .colourspace import srgb8_to_space
+    from .palette import Palette
+    from .sampling import ColourSample, sample_picture
+
+    if method not in SELECTION_METHODS:
+        raise ValueError(f"unknown selection method {method!r}; choose one of: {', '.join(SELECTION_METHODS)}")
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+        raise ValueError(f"number of inks must be a whole number of at least 1, got {n!r}")
+    if restarts < 1:
+        raise ValueError(f"restarts must be at least 1, got {restarts}")
+    sub_idx, sub_lab, sub_rgb, sub_name = _resolve_substrate(substrate, library)
+    candidates = [j for j in range(len(library)) if j != sub_idx]
+    if len(candidates) < n:
+        extra = " besides the substrate" if sub_idx is not None else ""
+        raise InkLibraryError(f"{library.source}: asked for {n} inks but the library has only "
+                              f"{len(candidates)}{extra}")
+    sample = image if isinstance(image, ColourSample) else sample_picture(_picture(image))
+    if sample.n_colours > max_colours:
+        lab_px, w = sample.binned("lab", max_points=max_colours)
+    else:
+        lab_px, w = sample.points("lab"), sample.weights
+    # Map by the colours actually written (preview sRGB), so the cost is what mapping gives.
+    ink_lab = srgb8_to_space(library.rgb8[candidates], "lab")
+    d = _distance_matrix(lab_px, ink_lab)
+    base = _distance_matrix(lab_px, srgb8_to_space(sub_rgb, "lab")[None])[:, 0] if sub_rgb is not None else None
+    use = method
+    if method == "auto":
+        use = "exact" if math.comb(len(candidates), n) <= _EXACT_LIMIT else "search"
+    if use == "exact":
+        s, cost, count = _exact(d, w, n, base)
+    else:
+        rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+        s, cost, count = _search(d, w, n, base, restarts, rng)
+    # Order by pixel share, most used first.
+    full = d[:, s] if base is None else np.column_stack([d[:, s], base])
+    share = np.bincount(np.argmin(full, axis=1), weights=w, minlength=full.shape[1])[:len(s)]
+    s = [s[i] for i in np.argsort(-share, kind="stable")]
+    chosen = tuple(candidates[i] for i in s)
+    rgb = [library.inks[j].rgb8 for j in chosen]
+    names = [library.inks[j].name for j in chosen]
+    locked = [False] * len(chosen)
+    if sub_rgb is not None:
+        rgb, names, locked = [sub_rgb] + rgb, [sub_name] + names, [True] + locked
+    pal = Palette(rgb8=np.array(rgb, np.uint8), locked=np.array(locked), space="lab", names=tuple(names),
+                  fit={"inks": library.describe(), "selection": use, "cost_delta_e": cost})
+    return InkSelection(chosen=chosen, cost=cost, method=use, evaluated=count, palette=pal,
+                        details={"candidates": len(candidates), "n": n, "substrate": sub_name})
+
+
+def _picture(image):
+    from .images import as_picture, load_image
+
+    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
+        return load_image(image)
+    return as_picture(image)
+
+
+def _resolve_substrate(substrate, library: InkLibrary | None):
+    """(library index or None, lab or None, rgb8 or None, name) of a substrate spec."""
+    from .colourspace import srgb8_to_space
+    from .palette import parse_colour
+
+    if substrate is None:
+        return None, None, None, None
+    if isinstance(substrate, (int, np.integer)) and not isinstance(substrate, bool):
+        if library is None or not 0 <= substrate < len(library):
+            raise ValueError(f"substrate index {substrate} is not an ink of the library")
+        ink = library.inks[int(substrate)]
+        return int(substrate), ink.lab, ink.rgb8, ink.name
+    if isinstance(substrate, str) and library is not None:
+        j = library.find(substrate)
+        if j is not None:
+            ink = library.inks[j]
+            return j, ink.lab, ink.rgb8, ink.name
+    try:
+        rgb = parse_colour(substrate)
+    except ValueError:
+        raise ValueError(f"substrate {substrate!r} is neither a colour (#rrggbb or L,a,b) nor an ink "
+                         "of the library") from None
+    return None, srgb8_to_space(rgb, "lab"), rgb, "substrate"
+
+
+def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, list[dict]]:
+    """Replace each unlocked palette colour by a library ink, each ink used once.
+
+    The assignment minimises the total ΔE00 between fitted colours and
+    inks (Hungarian method, scipy), so two fitted colours never snap to the
+    same ink. Locked colours (the substrate) stay as they are.
+
+    Parameters
+    ----------
+    palette : Palette
+    library : InkLibrary
+    substrate : str, optional
+        Name of a library ink that is the substrate: it is not a candidate.
+
+    Returns
+    -------
+    palette : Palette
+        Locked colours first, then the snapped inks, named after them.
+    snaps : list of dict
+        Per unlocked colour: ``fitted`` hex, ``ink`` name, ``ink_hex``,
+        ``delta_e`` (ΔE00 between the fitted colour and the ink's Lab).
+
+    Raises
+    ------
+    InkLibraryError
+        Fewer library inks than colours to snap.
+
+    References
+    ----------
+    .. [1] H. W. Kuhn, "The Hungarian method for the assignment problem",
+       Naval Research Logistics Quarterly 2, 83-97, 1955.
+
+    Examples
+    --------
+    >>> from quantize.palette import Palette
+    >>> lib = parse_ink_library("Red,#c8102e\\nBlue,#1f3a93\\n")
+    >>> pal = Palette(np.array([[198, 20, 50]], np.uint8), None)
+    >>> snapped, snaps = snap_palette(pal, lib)
+    >>> snaps[0]["ink"], snapped.hex
+    ('Red', ['#c8102e'])
+    """
+    from scipy.optimize import linear_sum_assignment
+
+    from .palette import Palette
+
+    free = np.flatnonzero(~palette.locked)
+    skip = library.find(substrate) if isinstance(substrate, str) else None
+    candidates = [j for j in range(len(library)) if j != skip]
+    if len(candidates) < free.size:
+        raise InkLibraryError(f"{library.source}: {free.size} colours to snap but the library has only "
+                              f"{len(candidates)} inks")
+    fitted_lab = palette.lab[free]
+    d = _distance_matrix(fitted_lab, library.lab[candidates])
+    rows, cols = linear_sum_assignment(d)
+    pick = dict(zip(rows.tolist(), cols.tolist()))
+    lk = np.flatnonzero(palette.locked)
+    rgb = [palette.rgb8[i] for i in lk]
+    names = [palette.names[i] or "substrate" for i in lk]
+    snaps = []
+    for r, i in enumerate(free):
+        ink = library.inks[candidates[pick[r]]]
+        rgb.append(ink.rgb8)
+        names.append(ink.name)
+        snaps.append({"fitted": palette.hex[i], "ink": ink.name, "ink_hex": ink.hex,
+                      "delta_e": round(float(d[r, pick[r]]), 3)})
+    fit = dict(palette.fit)
+    fit.update({"inks": library.describe(), "snaps": snaps})
+    out = Palette(rgb8=np.array(rgb, np.uint8), locked=np.arange(len(rgb)) < lk.size, space=palette.space,
+                  names=tuple(names), fit=fit)
+    return out, snaps
