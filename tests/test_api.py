@@ -10,7 +10,7 @@ def test_every_public_name_resolves_after_all_submodules_are_imported():
     # A submodule named like a public function would shadow it once imported
     # (quantize.kmeans once did); import everything first, then check.
     for mod in ("clustering", "fitting", "palette", "mapping", "images", "sampling", "colourspace",
-                "sweep", "inks", "ink_choice", "separation", "selection", "refine", "measure", "output",
+                "sweep", "inks", "ink_choice", "cleanup", "separation", "selection", "refine", "measure", "output",
                 "dither", "perception", "errormap", "batch"):
         importlib.import_module(f"quantize.{mod}")
     for name in quantize.__all__:
