@@ -72,7 +72,8 @@ def test_transparent_pixels_take_no_part():
     rgba = np.dstack([img, np.full(img.shape[:2], 255, np.uint8)])
     rgba[:, :10, :3] = (0, 255, 0)   # a colour that only occurs under alpha 0
     rgba[:, :10, 3] = 0
-    pal = fit_palette(rgba, k=3)
+    with pytest.warns(PaletteSizeWarning, match="only 2 distinct"):
+        pal = fit_palette(rgba, k=3)
     assert pal.k == 2 and "#00ff00" not in pal.hex
     res = pal.apply(rgba)
     assert res.coverage.sum() == pytest.approx(100.0)
