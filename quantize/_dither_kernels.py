@@ -93,6 +93,36 @@ def to_space(r, g, b, mat, mat2, space):
 
 
 @numba.njit(cache=True, nogil=True)
+def _primed(a1, b1, a2, b2):
+    """a' and C' of both colours (Sharma et al. 2005, eqs. 2-6)."""
+    c1 = math.sqrt(a1 * a1 + b1 * b1)
+    c2 = math.sqrt(a2 * a2 + b2 * b2)
+    cbar = 0.5 * (c1 + c2)
+    c7 = cbar**7
+    g = 0.5 * (1.0 - math.sqrt(c7 / (c7 + _POW25_7)))
+    a1p, a2p = (1.0 + g) * a1, (1.0 + g) * a2
+    return a1p, a2p, math.sqrt(a1p * a1p + b1 * b1), math.sqrt(a2p * a2p + b2 * b2)
+
+
+@numba.njit(cache=True, nogil=True)
+def _weighted(L1, L2, c1p, c2p, dl, dc, dh, t, hdeg):
+    """The weighted total of eqs. 17-22, given the differences, T and the mean hue in degrees."""
+    u = (hdeg - 275.0) / 25.0
+    dtheta = math.radians(30.0) * math.exp(-u * u)
+    lbar = 0.5 * (L1 + L2)
+    cbarp = 0.5 * (c1p + c2p)
+    c7p = cbarp**7
+    rc = 2.0 * math.sqrt(c7p / (c7p + _POW25_7))
+    l50 = (lbar - 50.0) * (lbar - 50.0)
+    sl = 1.0 + 0.015 * l50 / math.sqrt(20.0 + l50)
+    sc = 1.0 + 0.045 * cbarp
+    sh = 1.0 + 0.015 * cbarp * t
+    rt = -math.sin(2.0 * dtheta) * rc
+    x, y, z = dl / sl, dc / sc, dh / sh
+    return math.sqrt(max(x * x + y * y + z * z + rt * y * z, 0.0))
+
+
+@numba.njit(cache=True, nogil=True)
 def ciede2000(L1, a1, b1, L2, a2, b2):
     """CIEDE2000 of two CIELAB colours (kL = kC = kH = 1), Sharma et al. (2005).
 
@@ -104,14 +134,7 @@ def ciede2000(L1, a1, b1, L2, a2, b2):
     eleven such calls).  Opposite hues, where the bisector is undefined, go
     through the angle form of :func:`ciede2000_angles`.
     """
-    c1 = math.sqrt(a1 * a1 + b1 * b1)
-    c2 = math.sqrt(a2 * a2 + b2 * b2)
-    cbar = 0.5 * (c1 + c2)
-    c7 = cbar**7
-    g = 0.5 * (1.0 - math.sqrt(c7 / (c7 + _POW25_7)))
-    a1p, a2p = (1.0 + g) * a1, (1.0 + g) * a2
-    c1p = math.sqrt(a1p * a1p + b1 * b1)
-    c2p = math.sqrt(a2p * a2p + b2 * b2)
+    a1p, a2p, c1p, c2p = _primed(a1, b1, a2, b2)
     cc = c1p * c2p
     if cc == 0.0:
         # Eq. 10-14 for a neutral colour: no hue difference, and the mean
@@ -151,32 +174,13 @@ def ciede2000(L1, a1, b1, L2, a2, b2):
     hdeg = math.degrees(math.atan2(sh, ch))
     if hdeg < 0.0:
         hdeg += 360.0
-    u = (hdeg - 275.0) / 25.0
-    dtheta = math.radians(30.0) * math.exp(-u * u)
-    lbar = 0.5 * (L1 + L2)
-    cbarp = 0.5 * (c1p + c2p)
-    c7p = cbarp**7
-    rc = 2.0 * math.sqrt(c7p / (c7p + _POW25_7))
-    l50 = (lbar - 50.0) * (lbar - 50.0)
-    sl = 1.0 + 0.015 * l50 / math.sqrt(20.0 + l50)
-    sc = 1.0 + 0.045 * cbarp
-    sh_ = 1.0 + 0.015 * cbarp * t
-    rt = -math.sin(2.0 * dtheta) * rc
-    x, y, z = dl / sl, dc / sc, dh / sh_
-    return math.sqrt(max(x * x + y * y + z * z + rt * y * z, 0.0))
+    return _weighted(L1, L2, c1p, c2p, dl, dc, dh, t, hdeg)
 
 
 @numba.njit(cache=True, nogil=True)
 def ciede2000_angles(L1, a1, b1, L2, a2, b2):
     """CIEDE2000 in the angle form of Sharma et al. (2005), eqs. 1-22."""
-    c1 = math.sqrt(a1 * a1 + b1 * b1)
-    c2 = math.sqrt(a2 * a2 + b2 * b2)
-    cbar = 0.5 * (c1 + c2)
-    c7 = cbar**7
-    g = 0.5 * (1.0 - math.sqrt(c7 / (c7 + _POW25_7)))
-    a1p, a2p = (1.0 + g) * a1, (1.0 + g) * a2
-    c1p = math.sqrt(a1p * a1p + b1 * b1)
-    c2p = math.sqrt(a2p * a2p + b2 * b2)
+    a1p, a2p, c1p, c2p = _primed(a1, b1, a2, b2)
     h1p = math.atan2(b1, a1p) if (a1p != 0.0 or b1 != 0.0) else 0.0
     h2p = math.atan2(b2, a2p) if (a2p != 0.0 or b2 != 0.0) else 0.0
     if h1p < 0.0:
@@ -200,21 +204,9 @@ def ciede2000_angles(L1, a1, b1, L2, a2, b2):
             hbar += 2.0 * math.pi if hbar < 2.0 * math.pi else -2.0 * math.pi
         hbar *= 0.5
     dh = 2.0 * math.sqrt(cc) * math.sin(0.5 * dhp)
-    lbar = 0.5 * (L1 + L2)
-    cbarp = 0.5 * (c1p + c2p)
     t = (1.0 - 0.17 * math.cos(hbar - math.radians(30.0)) + 0.24 * math.cos(2.0 * hbar)
          + 0.32 * math.cos(3.0 * hbar + math.radians(6.0)) - 0.20 * math.cos(4.0 * hbar - math.radians(63.0)))
-    u = (math.degrees(hbar) - 275.0) / 25.0
-    dtheta = math.radians(30.0) * math.exp(-u * u)
-    c7p = cbarp**7
-    rc = 2.0 * math.sqrt(c7p / (c7p + _POW25_7))
-    l50 = (lbar - 50.0) * (lbar - 50.0)
-    sl = 1.0 + 0.015 * l50 / math.sqrt(20.0 + l50)
-    sc = 1.0 + 0.045 * cbarp
-    sh = 1.0 + 0.015 * cbarp * t
-    rt = -math.sin(2.0 * dtheta) * rc
-    x, y, z = dl / sl, dc / sc, dh / sh
-    return math.sqrt(max(x * x + y * y + z * z + rt * y * z, 0.0))
+    return _weighted(L1, L2, c1p, c2p, dl, dc, dh, t, math.degrees(hbar))
 
 
 @numba.njit(cache=True, nogil=True)
