@@ -322,13 +322,18 @@ def filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, pp
 
 
 def with_filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, ppd=None):
-    """A copy of ``mapped`` whose ``extra`` also holds the filtered statistics.
+    """A copy of ``mapped`` that also reports the filtered statistics.
 
-    ``extra["delta_e_filtered"]`` gets mean/median/p95/max of the S-CIELAB
-    filtered ΔE00 and ``extra["viewing"]`` the condition (``dpi``,
-    ``distance_mm``, ``ppd``).  ``delta_e`` keeps the plain statistics.
+    ``delta_e`` keeps the plain statistics under ``mean``, ``median``,
+    ``p95``, ``max`` and gains the S-CIELAB filtered ones as
+    ``filtered_mean``, ``filtered_median``, ``filtered_p95``,
+    ``filtered_max``; ``extra["delta_e_filtered"]`` holds the same four as a
+    dict and ``extra["viewing"]`` the condition (``dpi``, ``distance_mm``,
+    ``ppd``).
     """
     ppd_value = viewing_ppd(dpi=dpi, distance_mm=distance_mm, ppd=ppd)
     stats = filtered_delta_e(original_picture, mapped, ppd=ppd_value)
     viewing = {"dpi": dpi, "distance_mm": distance_mm, "ppd": round(ppd_value, 3)}
-    return dataclasses.replace(mapped, extra={**mapped.extra, "delta_e_filtered": stats, "viewing": viewing})
+    both = {**mapped.delta_e, **{f"filtered_{k}": v for k, v in stats.items()}}
+    return dataclasses.replace(mapped, delta_e=both,
+                               extra={**mapped.extra, "delta_e_filtered": stats, "viewing": viewing})

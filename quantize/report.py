@@ -439,9 +439,11 @@ def _page(title, pics, results, pal, sweep, files, sizes, suffix) -> str:
             f'<figure><img src="result{s}.png" width="{w}" height="{h}" alt="reduced image">'
             f"<figcaption>Result: {r.palette.k} colours</figcaption></figure></div>")
         de = r.delta_e
+        rows = [["plain"] + [f"{de[k]:.2f}" for k in ("mean", "median", "p95", "max")]]
+        if "filtered_mean" in de:
+            rows.append(["filtered (S-CIELAB)"] + [f"{de['filtered_' + k]:.2f}" for k in ("mean", "median", "p95", "max")])
         parts.append("<h3>ΔE00 per pixel</h3>" + _table(
-            ["mean", "median", "95th percentile", "maximum"],
-            [[f"{de['mean']:.2f}", f"{de['median']:.2f}", f"{de['p95']:.2f}", f"{de['max']:.2f}"]], left=()))
+            ["ΔE00", "mean", "median", "95th percentile", "maximum"], rows))
         maps = [name for name, (kind, j) in files.items() if kind == "map" and j == i]
         if maps:
             parts.append(f'<h3>Error map</h3><img class="wide" src="{e(maps[0])}" alt="ΔE00 error map">')

@@ -222,6 +222,9 @@ def test_reduce_with_dither_filtered_report_and_error_map(tmp_path):
     assert s["dither"]["method"] == "floyd-steinberg"
     assert set(s["delta_e_filtered"]) >= {"mean", "p95"} and s["viewing"]["dpi"] == 150
     assert s["delta_e_filtered"]["mean"] < s["delta_e"]["mean"]
+    # both sets in .delta_e, each named for what it is
+    assert s["delta_e"]["filtered_mean"] == s["delta_e_filtered"]["mean"]
+    assert {"mean", "median", "p95", "max"} <= set(s["delta_e"])
     assert emap.exists() and str(emap) in s["outputs"]
     r = run("reduce", src, "-o", tmp_path / "h.png", "-k", "4", "--dither", "bayer4")
     assert r.exit_code == 0 and "dither: bayer4" in r.stdout
@@ -246,3 +249,14 @@ def test_bad_dither_options(art, tmp_path, args, words):
     assert r.exit_code == 2, r.output
     assert words in r.output and "Traceback" not in r.output
     assert not (tmp_path / "o.png").exists()
+
+
+def test_target_stat_p95_and_pixel_limit(art, tmp_path):
+    r = run("reduce", art, "-o", tmp_path / "p.png", "--target", "6", "--target-stat", "p95", "--json")
+    assert r.exit_code == 0, r.output
+    s = json.loads(r.stdout)
+    assert s["rule"] == "target" and s["delta_e"]["p95"] <= 6
+    # the decompression-bomb guard: the 320 x 320 artwork is over a 1000-pixel limit
+    r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "b.png"), "--max-pixels", "1000"])
+    assert r.exit_code == 1 and "art.png" in r.output and "Traceback" not in r.output
+    assert not (tmp_path / "b.png").exists()

@@ -150,7 +150,11 @@ def test_with_filtered_delta_e_keeps_plain_and_names_filtered():
     pal = _palette([[0, 0, 0], [128, 128, 128], [255, 255, 255]])
     res = pal.apply(ramp, dither="floyd-steinberg")
     both = qp.with_filtered_delta_e(ramp, res, dpi=300, distance_mm=400)
-    assert both.delta_e == res.delta_e
+    # .delta_e holds both, named: the plain statistics unchanged, the filtered ones prefixed
+    assert {k: both.delta_e[k] for k in res.delta_e} == res.delta_e
+    assert {k: both.delta_e[f"filtered_{k}"] for k in ("mean", "median", "p95", "max")} \
+        == both.extra["delta_e_filtered"]
+    assert set(res.delta_e) == {"mean", "median", "p95", "max"}  # the input is not modified
     assert set(both.extra["delta_e_filtered"]) == {"mean", "median", "p95", "max"}
     assert both.extra["viewing"] == {"dpi": 300, "distance_mm": 400,
                                      "ppd": round(qp.pixels_per_degree(dpi=300, distance_mm=400), 3)}
