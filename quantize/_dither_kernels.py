@@ -93,15 +93,20 @@ def to_space(r, g, b, mat, mat2, space):
 
 
 @numba.njit(cache=True, nogil=True)
-def _primed(a1, b1, a2, b2):
-    """a' and C' of both colours (Sharma et al. 2005, eqs. 2-6)."""
-    c1 = math.sqrt(a1 * a1 + b1 * b1)
-    c2 = math.sqrt(a2 * a2 + b2 * b2)
+def primed_c(a1, b1, c1, a2, b2, c2):
+    """a' and C' of both colours from a, b and C*ab (Sharma et al. 2005, eqs. 2-6)."""
     cbar = 0.5 * (c1 + c2)
-    c7 = cbar**7
+    c7 = cbar * cbar
+    c7 = c7 * c7 * c7 * cbar  # products: a power call costs several times more
     g = 0.5 * (1.0 - math.sqrt(c7 / (c7 + _POW25_7)))
     a1p, a2p = (1.0 + g) * a1, (1.0 + g) * a2
     return a1p, a2p, math.sqrt(a1p * a1p + b1 * b1), math.sqrt(a2p * a2p + b2 * b2)
+
+
+@numba.njit(cache=True, nogil=True)
+def _primed(a1, b1, a2, b2):
+    """a' and C' of both colours (Sharma et al. 2005, eqs. 2-6)."""
+    return primed_c(a1, b1, math.sqrt(a1 * a1 + b1 * b1), a2, b2, math.sqrt(a2 * a2 + b2 * b2))
 
 
 @numba.njit(cache=True, nogil=True)
@@ -111,7 +116,8 @@ def _weighted(L1, L2, c1p, c2p, dl, dc, dh, t, hdeg):
     dtheta = math.radians(30.0) * math.exp(-u * u)
     lbar = 0.5 * (L1 + L2)
     cbarp = 0.5 * (c1p + c2p)
-    c7p = cbarp**7
+    c7p = cbarp * cbarp
+    c7p = c7p * c7p * c7p * cbarp
     rc = 2.0 * math.sqrt(c7p / (c7p + _POW25_7))
     l50 = (lbar - 50.0) * (lbar - 50.0)
     sl = 1.0 + 0.015 * l50 / math.sqrt(20.0 + l50)
@@ -135,6 +141,12 @@ def ciede2000(L1, a1, b1, L2, a2, b2):
     through the angle form of :func:`ciede2000_angles`.
     """
     a1p, a2p, c1p, c2p = _primed(a1, b1, a2, b2)
+    return from_primed(L1, a1, b1, L2, a2, b2, a1p, a2p, c1p, c2p)
+
+
+@numba.njit(cache=True, nogil=True)
+def from_primed(L1, a1, b1, L2, a2, b2, a1p, a2p, c1p, c2p):
+    """The rest of :func:`ciede2000`, given a' and C' of both colours."""
     cc = c1p * c2p
     if cc == 0.0:
         # Eq. 10-14 for a neutral colour: no hue difference, and the mean

@@ -3,22 +3,110 @@
 The kernels assume clean input (contiguous float64 arrays of matching
 dimension).  Their plain brute-force twins live in ``tests/naive.py``.
 
-The assignment is plain numpy on purpose: it runs on distinct colours, not
-pixels, so a handful of vectorised passes is fast enough, and loading a JIT
-compiler would cost a second of start-up on every command.
+The work runs in compiled loops (:mod:`quantize._engine_kernels`, numba).
+Loading a JIT compiler costs about half a second even from its disk cache,
+so :func:`warm_up` starts that load in a background thread as soon as an
+entry point knows it will fit or map: the image decodes and is sampled
+while the compiler loads (both release the interpreter lock for most of
+their time).  :func:`assign_nearest_numpy` is the vectorised fallback for
+inputs too small to be worth waiting for the compiler.
 """
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 
-__all__ = ["assign_nearest"]
+__all__ = ["assign_nearest", "assign_nearest_numpy", "nearest_ciede2000", "ciede2000_to", "warm_up"]
+
+#: Below this many point-centre pairs the numpy kernel runs instead of
+#: waiting for the compiler (it takes a few milliseconds there).
+_SMALL = 1 << 15
+
+_lock = threading.Lock()
+_state: dict = {}
+
+
+def _load():
+    try:
+        from . import _engine_kernels as ek
+
+        pts = np.zeros((2, 3))
+        lab = np.zeros(2, dtype=np.intp)
+        out = np.zeros(2)
+        ek.assign_euclid(pts, pts, lab, out)
+        ek.assign_ciede2000(pts, pts, lab, out)
+        ek.ciede2000_to(pts, pts, lab, out)
+        _state["module"] = ek
+    except BaseException as exc:  # re-raised in the caller's thread by _kernels()
+        _state["error"] = exc
+
+
+def warm_up() -> None:
+    """Start loading the compiled kernels in a background thread (idempotent)."""
+    with _lock:
+        if "thread" not in _state:
+            t = threading.Thread(target=_load, name="quantize-kernels", daemon=True)
+            _state["thread"] = t
+            t.start()
+
+
+def _kernels():
+    warm_up()
+    _state["thread"].join()
+    if "error" in _state:
+        raise RuntimeError(f"the compiled kernels failed to load: {_state['error']}") from _state["error"]
+    return _state["module"]
 
 #: Points per block: keeps the temporaries in cache.
 _BLOCK = 1 << 16
 
 
 def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact nearest centre of every point by squared Euclidean distance.
+
+    Compiled for large inputs, :func:`assign_nearest_numpy` for small ones;
+    both give bit-identical labels and distances.
+    """
+    points = np.ascontiguousarray(points, dtype=np.float64)
+    centres = np.ascontiguousarray(centres, dtype=np.float64)
+    if points.shape[0] * centres.shape[0] < _SMALL and "module" not in _state:
+        return assign_nearest_numpy(points, centres)
+    labels = np.empty(points.shape[0], dtype=np.intp)
+    dist2 = np.empty(points.shape[0], dtype=np.float64)
+    _kernels().assign_euclid(points, centres, labels, dist2)
+    return labels, dist2
+
+
+def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact nearest palette colour of every CIELAB colour by CIEDE2000.
+
+    Returns
+    -------
+    labels : ndarray of shape (n,), intp
+        The lowest index wins a tie.
+    delta_e : ndarray of shape (n,), float64
+    """
+    lab = np.ascontiguousarray(lab, dtype=np.float64)
+    pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
+    labels = np.empty(lab.shape[0], dtype=np.intp)
+    de = np.empty(lab.shape[0], dtype=np.float64)
+    _kernels().assign_ciede2000(lab, pal_lab, labels, de)
+    return labels, de
+
+
+def ciede2000_to(lab: np.ndarray, pal_lab: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """CIEDE2000 of every CIELAB colour to the palette colour ``labels`` names."""
+    lab = np.ascontiguousarray(lab, dtype=np.float64)
+    pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
+    labels = np.ascontiguousarray(labels, dtype=np.intp)
+    de = np.empty(lab.shape[0], dtype=np.float64)
+    _kernels().ciede2000_to(lab, pal_lab, labels, de)
+    return de
+
+
+def assign_nearest_numpy(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest centre of every point by squared Euclidean distance.
 
     Distances are computed directly as sums of squared coordinate

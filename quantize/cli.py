@@ -76,8 +76,9 @@ def _fit_options(f):
                      help="k-means++ restarts per palette size."),
         click.option("--seeding", type=click.Choice(SEEDINGS), default="k-means++", show_default=True,
                      help="How each restart picks its first centres."),
-        click.option("--nearest", type=click.Choice(("space", "ciede2000")), default="space", show_default=True,
-                     help="Map pixels by distance in the fitting space or by ΔE00."),
+        click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+                     help="Map pixels by ΔE00 or by distance in the fitting space; auto: ΔE00, "
+                          "or the space's distance when dithering."),
         click.option("--max-pixels", type=click.IntRange(min=1), default=None,
                      help="Refuse images larger than this (decompression-bomb guard; default Pillow's limit)."),
     ]
@@ -86,13 +87,21 @@ def _fit_options(f):
     return f
 
 
+#: Choices of --nearest; "auto" leaves the choice to quantize.mapping.resolve_metric.
+NEAREST = ("auto", "ciede2000", "space")
+
+
+def _metric(nearest: str) -> str | None:
+    return None if nearest == "auto" else nearest
+
+
 def _fit_kwargs(o: dict) -> dict:
     rule = o["rule"] or ("target" if o["target"] is not None else "bic")
     if rule == "target" and o["target"] is None:
         raise click.UsageError("--rule target needs --target DELTA_E")
     return dict(k=o["colours"], space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
                 locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
-                metric=o["nearest"], max_pixels=o["max_pixels"])
+                metric=_metric(o["nearest"]), max_pixels=o["max_pixels"])
 
 
 class _NoBar:
@@ -330,8 +339,9 @@ def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
               help="Folder for the reduced images (created if missing).")
 @click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
               help="Output file type: indexed PNG, RGB TIFF or JPEG.")
-@click.option("--nearest", type=click.Choice(("space", "ciede2000")), default="space", show_default=True,
-              help="Map pixels by distance in the palette's space or by ΔE00.")
+@click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+              help="Map pixels by ΔE00 or by distance in the palette's space; auto: ΔE00, "
+                   "or the space's distance when dithering.")
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
 @dither_options
 @_report_option
@@ -363,7 +373,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         inputs = list(images) + [palette]
         with _progress(len(images), "mapping") as bar:
             for im, out, emap in zip(images, outs, maps):
-                res = pal.apply(im, **dopts.apply_kwargs(), metric=nearest, max_pixels=max_pixels)
+                res = pal.apply(im, **dopts.apply_kwargs(), metric=_metric(nearest), max_pixels=max_pixels)
                 res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
                                                          error_map_path=emap)
                 res.save(out, force=force, inputs=inputs)

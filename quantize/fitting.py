@@ -119,10 +119,10 @@ def _rng_for(seed, k):
     return np.random.default_rng(np.random.SeedSequence([0 if seed is None else int(seed), int(k)]))
 
 
-def _to_palette(centres, fixed_rgb8, space, locked_n):
+def _to_palette(centres, fixed_rgb8, space, locked_n, centre_space=None):
     from .colourspace import clip_to_gamut, from_space
 
-    rgb = np.round(clip_to_gamut(from_space(centres, space)) * 255).astype(np.uint8)
+    rgb = np.round(clip_to_gamut(from_space(centres, centre_space or space)) * 255).astype(np.uint8)
     rgb[:locked_n] = fixed_rgb8
     # Rounding to 8 bits can make two centres the same colour: keep one.
     _, first = np.unique(rgb, axis=0, return_index=True)
@@ -133,13 +133,22 @@ def _to_palette(centres, fixed_rgb8, space, locked_n):
 REFINES = ("robust", "none")
 
 
-def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "space", refine: str = "robust"):
+def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust"):
     """Turn k-means centres into the 8-bit palette a job writes.
 
     With ``refine="robust"`` two explicit refinements are tried, each kept
-    only if it lowers the mean ΔE00 over the sample: a truncated-loss refit
-    (:func:`quantize.refine.robust_refine`), then weighted k-medians steps
-    (:func:`quantize.refine.median_polish`).  The first ``len(fixed_rgb8)``
+    only if it lowers the mean ΔE00 over every distinct colour:
+
+    1. a truncated-loss refit (:func:`quantize.refine.robust_refine`), for
+       flat artwork whose anti-aliased edges would otherwise take a colour;
+    2. weighted k-medians steps from the better palette so far: under
+       CIEDE2000 (:func:`quantize.refine.ciede2000_medians`) when colours
+       are mapped by CIEDE2000, else in the fitting space
+       (:func:`quantize.refine.median_polish`).  Mean ΔE grows with
+       distance, not its square, so these move centres toward medians.
+
+    Most iterations run on the binned sample, the last ones and every
+    comparison on every distinct colour.  The first ``len(fixed_rgb8)``
     centres are locked.
 
     Returns
@@ -150,7 +159,7 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "sp
         ("", "robust", "median" or "robust+median").
     """
     from .mapping import map_sample
-    from .refine import median_polish, robust_refine
+    from .refine import ciede2000_medians, median_polish, robust_refine
 
     m = len(fixed_rgb8)
     w = sample.weights
@@ -159,18 +168,24 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "sp
     if refine == "none":
         return pal, merged, labels, de, ""
     steps = []
-    # The robust refit helps flat artwork (edges, ringing) and can hurt photos,
-    # whose far-off pixels are real colours; k-medians aims at mean ΔE, which
-    # grows with distance rather than its square.  Most iterations run on the
-    # binned sample; the last ones, and every comparison, on every colour.
     bin_pts, bin_w = sample.binned(space)
     full_pts = sample.points(space)
-    robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-    robust = robust_refine(full_pts, w, robust, n_fixed=m, max_swaps=0, max_iter=4)
-    for name, make in (("robust", lambda: robust),
-                       ("median", lambda: median_polish(full_pts, w, median_polish(
-                           bin_pts, bin_w, pal.points(space), n_fixed=m), n_fixed=m, iters=2))):
-        cpal, cmerged = _to_palette(make(), fixed_rgb8, space, m)
+
+    def medians():
+        if metric == "ciede2000":
+            bin_lab, bin_lw = sample.binned("lab")
+            c = ciede2000_medians(bin_lab, bin_lw, pal.lab, n_fixed=m, iters=30)
+            return ciede2000_medians(sample.points("lab"), w, c, n_fixed=m, iters=2, polish=()), "lab"
+        c = median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m)
+        return median_polish(full_pts, w, c, n_fixed=m, iters=2), None
+
+    def robust():
+        c = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
+        return robust_refine(full_pts, w, c, n_fixed=m, max_swaps=0, max_iter=4), None
+
+    for name, make in (("robust", robust), ("median", medians)):
+        c, c_space = make()
+        cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
         if cpal.k != pal.k:
             continue
         clabels, cde = map_sample(sample, cpal, metric=metric)
@@ -181,7 +196,7 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "sp
 
 
 def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0, locked=(),
-                   init="k-means++", metric="space", refine: str = "robust",
+                   init="k-means++", metric="ciede2000", refine: str = "robust",
                    progress: Callable | None = None) -> list[Candidate]:
     """Fit one palette per size in ``ks`` to a colour sample.
 
@@ -243,7 +258,7 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
 
 def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, locked=(),
                 rule: str = "bic", target: float | None = None, target_stat: str = "mean",
-                init: str = "k-means++", weighting: str = "equal", metric: str = "space",
+                init: str = "k-means++", weighting: str = "equal", metric: str | None = None,
                 refine: str = "robust", max_pixels=None, progress: Callable | None = None) -> Palette:
     """Fit an N-colour palette to one image or a set of images.
 
@@ -270,8 +285,9 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     init : {"k-means++", "random", "farthest"}, default="k-means++"
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count: equally, or by pixel count.
-    metric : {"space", "ciede2000"}, default="space"
-        Nearest-colour metric used to measure each candidate.
+    metric : {"ciede2000", "space"}, optional
+        Nearest-colour metric the palette is refined for and each candidate
+        measured with (default CIEDE2000, as :meth:`Palette.apply` maps).
     refine : {"robust", "none"}, default="robust"
         After the k-means fit, refine the palette under a truncated loss so
         that anti-aliased edges and compression noise do not take colours
@@ -314,9 +330,13 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     >>> sorted(pal.hex)
     ['#000000', '#c81e28']
     """
+    from ._kernels import warm_up
     from .colourspace import check_space
+    from .mapping import resolve_metric
 
+    warm_up()  # the compiled kernels load while the images decode
     check_space(space)
+    metric = resolve_metric(metric)
     check_rule(rule)
     check_init(init)
     if restarts < 1:

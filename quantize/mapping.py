@@ -15,7 +15,7 @@ import numpy as np
 
 from .measure import coverage_percent, delta_e_stats
 
-__all__ = ["MappedImage", "map_picture", "map_sample", "METRICS", "check_metric"]
+__all__ = ["MappedImage", "map_picture", "map_sample", "METRICS", "check_metric", "resolve_metric"]
 
 #: Nearest-colour metrics.
 METRICS = ("space", "ciede2000")
@@ -26,6 +26,20 @@ def check_metric(name: str) -> str:
     if name not in METRICS:
         raise ValueError(f"unknown mapping metric {name!r}; choose one of: {', '.join(METRICS)}")
     return name
+
+
+def resolve_metric(metric: str | None, dither: str = "none") -> str:
+    """The nearest-colour metric to use: ``metric``, or the default for ``dither``.
+
+    The default (``None``) is CIEDE2000, the measure users judge results
+    by.  Error diffusion and ordered dithers pick a colour per pixel rather
+    than per distinct colour, and there CIEDE2000 would cost one evaluation
+    per pixel and palette colour, so they default to the palette space's
+    Euclidean distance.
+    """
+    if metric is None:
+        return "ciede2000" if dither == "none" else "space"
+    return check_metric(metric)
 
 
 @dataclass(frozen=True, eq=False)
@@ -88,20 +102,11 @@ def nearest(points, lab, palette, *, metric: str = "space") -> np.ndarray:
     ``points`` are in the palette's space, ``lab`` the same colours in
     CIELAB (used by the ``"ciede2000"`` metric).
     """
-    from ._kernels import assign_nearest
-    from .colourspace import delta_e_ciede2000
+    from ._kernels import assign_nearest, nearest_ciede2000
 
     if metric == "space":
         return assign_nearest(points, palette.points())[0]
-    plab = palette.lab
-    best = np.full(lab.shape[0], np.inf)
-    labels = np.zeros(lab.shape[0], dtype=np.intp)
-    for j in range(plab.shape[0]):
-        de = delta_e_ciede2000(lab, plab[j])
-        better = de < best
-        best[better] = de[better]
-        labels[better] = j
-    return labels
+    return nearest_ciede2000(lab, palette.lab)[0]
 
 
 def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
@@ -114,15 +119,16 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
     delta_e : ndarray of shape (n,)
         CIEDE2000 of each distinct colour to its palette colour.
     """
-    from .colourspace import delta_e_ciede2000
+    from ._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
 
     lab = sample.points("lab")
-    pts = sample.points(palette.space) if metric == "space" else None
-    labels = nearest(pts, lab, palette, metric=metric)
-    return labels, delta_e_ciede2000(lab, palette.lab[labels])
+    if metric == "ciede2000":
+        return nearest_ciede2000(lab, palette.lab)
+    labels = assign_nearest(sample.points(palette.space), palette.points())[0]
+    return labels, ciede2000_to(lab, palette.lab, labels)
 
 
-def map_picture(image, palette, *, dither: str = "none", metric: str = "space",
+def map_picture(image, palette, *, dither: str = "none", metric: str | None = None,
                 strength: float = 1.0, serpentine: bool = True, max_pixels=None, sample=None) -> MappedImage:
     """Reduce an image to ``palette``.
 
@@ -134,9 +140,10 @@ def map_picture(image, palette, *, dither: str = "none", metric: str = "space",
     dither : str, default="none"
         ``"none"``: every pixel takes its nearest colour.  Other methods are
         listed in :data:`quantize.dither.DITHERS`.
-    metric : {"space", "ciede2000"}, default="space"
-        Nearest colour by Euclidean distance in the palette's space, or by
-        CIEDE2000.
+    metric : {"ciede2000", "space"}, optional
+        Nearest colour by CIEDE2000, or by Euclidean distance in the
+        palette's space.  Default: CIEDE2000 without dithering, the space's
+        distance with it (:func:`resolve_metric`).
     strength : float, default=1.0
         Dither strength in 0-1 (ignored without dithering).
     serpentine : bool, default=True
@@ -160,7 +167,10 @@ def map_picture(image, palette, *, dither: str = "none", metric: str = "space",
     from .images import as_picture, load_image
     from .sampling import sample_picture
 
-    check_metric(metric)
+    from ._kernels import warm_up
+
+    warm_up()
+    metric = resolve_metric(metric, dither)
     if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
     else:

@@ -149,7 +149,7 @@ class Palette:
 
         return srgb8_to_space(self.rgb8, space or self.space)
 
-    def apply(self, image, *, dither: str = "none", metric: str = "space", **options):
+    def apply(self, image, *, dither: str = "none", metric: str | None = None, **options):
         """Map an image onto this palette (out-of-sample, no refit).
 
         Parameters
@@ -159,9 +159,10 @@ class Palette:
         dither : str, default="none"
             Dithering method; ``"none"`` maps every pixel to its nearest
             colour.
-        metric : {"space", "ciede2000"}, default="space"
-            Nearest by Euclidean distance in the palette's space, or by
-            CIEDE2000.
+        metric : {"ciede2000", "space"}, optional
+            Nearest by CIEDE2000, or by Euclidean distance in the palette's
+            space.  Default: CIEDE2000 without dithering, the space's
+            distance with it.
         **options
             Passed to :func:`quantize.mapping.map_picture`.
 

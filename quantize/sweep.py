@@ -294,7 +294,7 @@ def _guarded(points, weights, start, fixed):
 
 
 def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int = 8, seed=0,
-                 locked=(), init: str = "k-means++", metric: str = "space", refine: str = "robust",
+                 locked=(), init: str = "k-means++", metric: str = "ciede2000", refine: str = "robust",
                  warm: bool = True, rule: str = "bic", target: float | None = None, target_stat: str = "mean",
                  per_image: Sequence = (), progress: Callable | None = None) -> Sweep:
     """Sweep an already loaded colour sample; ``ks`` ascending and validated.
@@ -387,7 +387,7 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
 
 def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, seed=0, locked=(),
           rule: str = "bic", target: float | None = None, target_stat: str = "mean",
-          init: str = "k-means++", weighting: str = "equal", metric: str = "space",
+          init: str = "k-means++", weighting: str = "equal", metric: str | None = None,
           refine: str = "robust", warm: bool = True, max_pixels=None, progress: Callable | None = None) -> Sweep:
     """Fit a palette at every size of a range and tabulate its error.
 
@@ -415,8 +415,9 @@ def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, se
         Seeding of the fresh restarts.
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count.
-    metric : {"space", "ciede2000"}, default="space"
-        Nearest-colour metric used to measure each palette.
+    metric : {"ciede2000", "space"}, optional
+        Nearest-colour metric used to refine and measure each palette
+        (default CIEDE2000).
     refine : {"robust", "none"}, default="robust"
         The refinement after each k-means fit, as in
         :func:`quantize.fitting.fit_palette`; the table's k-means cost is
@@ -468,15 +469,18 @@ def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, se
     from .colourspace import check_space
     from .fitting import REFINES, load_samples
     from .clustering import check_init
-    from .mapping import check_metric
+    from ._kernels import warm_up
+    from .mapping import resolve_metric
     from .sampling import pool_samples
     from .selection import check_rule
+
+    warm_up()  # the compiled kernels load while the images decode
 
     ks = parse_sweep_range(ks)
     check_space(space)
     check_rule(rule)
     check_init(init)
-    check_metric(metric)
+    metric = resolve_metric(metric)
     if refine not in REFINES:
         raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
     if isinstance(restarts, bool) or int(restarts) != restarts or restarts < 1:

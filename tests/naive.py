@@ -13,3 +13,12 @@ def assign_nearest(points, centres):
 def inertia(points, weights, centres):
     """Weighted sum of squared distances to the nearest centre."""
     return float(weights @ assign_nearest(points, centres)[1])
+
+
+def nearest_ciede2000(lab, pal_lab):
+    """Nearest palette colour by CIEDE2000, trying every colour (numpy ΔE00)."""
+    from quantize.colourspace import delta_e_ciede2000
+
+    de = np.stack([delta_e_ciede2000(lab, c) for c in pal_lab], axis=1)
+    labels = de.argmin(axis=1)
+    return labels, de

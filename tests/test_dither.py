@@ -403,7 +403,10 @@ def test_dithered_result_reports_plain_statistics(photo):
 def test_strength_zero_is_the_undithered_mapping(method):
     img = _ramp(16, 64)
     pal = _ramp_palette(img, 3)
-    assert_array_equal(pal.apply(img, dither=method, strength=0.0).indices, pal.apply(img).indices)
+    # Dithers pick colours by the space's distance unless told otherwise.
+    assert_array_equal(pal.apply(img, dither=method, strength=0.0).indices, pal.apply(img, metric="space").indices)
+    assert_array_equal(pal.apply(img, dither=method, strength=0.0, metric="ciede2000").indices,
+                       pal.apply(img).indices)
 
 
 @pytest.mark.parametrize("method", DIFFUSIONS + ("bayer4",))
@@ -451,7 +454,7 @@ def test_cam16ucs_palette_chooses_in_cielab_with_a_note():
 def test_none_routes_to_plain_mapping():
     img = _ramp(8, 32)
     pal = _ramp_palette(img)
-    assert_array_equal(qd.dither_picture(img, pal, method="none").indices, pal.apply(img).indices)
+    assert_array_equal(qd.dither_picture(img, pal, method="none").indices, pal.apply(img, metric="space").indices)
 
 
 # --------------------------------------------------------------------------- command-line options

@@ -1,0 +1,105 @@
+"""The compiled kernels of the fitting and mapping stages against plain twins.
+
+Sources: Sharma, Wu & Dalal (2005), Table 1, for CIEDE2000 (the 34 pairs of
+``test_colourspace.SHARMA_2005``); the twins in ``tests/naive.py`` scan every
+palette colour with the numpy CIEDE2000 of :mod:`quantize.colourspace`,
+itself held to those pairs.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose, assert_array_equal
+
+import naive
+from quantize import _kernels
+from quantize import _engine_kernels as ek
+from quantize.colourspace import delta_e_ciede2000, srgb8_to_space
+from test_colourspace import SHARMA_2005
+
+
+def _srgb_lab(rng, n):
+    return srgb8_to_space(rng.integers(0, 256, (n, 3)).astype(np.uint8), "lab")
+
+
+def test_sharma_pairs_through_the_nearest_search():
+    # Each pair as a one-colour palette: the search returns the published ΔE00
+    # (Sharma et al. 2005, Table 1) to 1e-4.
+    for row in SHARMA_2005:
+        labels, de = _kernels.nearest_ciede2000(row[None, :3], row[None, 3:6])
+        assert labels[0] == 0
+        assert de[0] == pytest.approx(row[6], abs=1e-4)
+    de = _kernels.ciede2000_to(SHARMA_2005[:, :3], SHARMA_2005[:, 3:6], np.arange(34))
+    assert_allclose(de, SHARMA_2005[:, 6], atol=1e-4)
+
+
+@pytest.mark.parametrize("k", [1, 2, 5, 16, 64])
+def test_nearest_ciede2000_equals_a_full_scan(k):
+    rng = np.random.default_rng(k)
+    lab = _srgb_lab(rng, 4000)
+    pal = _srgb_lab(rng, k)
+    labels, de = _kernels.nearest_ciede2000(lab, pal)
+    ref_labels, ref_de = naive.nearest_ciede2000(lab, pal)
+    best = ref_de[np.arange(len(lab)), ref_labels]
+    assert_allclose(de, best, rtol=0, atol=1e-9)
+    # Labels agree wherever the nearest colour is not tied within rounding.
+    second = np.sort(ref_de, axis=1)[:, 1] if k > 1 else np.full(len(lab), np.inf)
+    clear = second - best > 1e-9
+    assert clear.mean() > 0.99
+    assert_array_equal(labels[clear], ref_labels[clear])
+
+
+def test_nearest_ciede2000_lowest_index_wins_a_tie():
+    rng = np.random.default_rng(3)
+    lab = _srgb_lab(rng, 2000)
+    pal = _srgb_lab(rng, 6)
+    doubled = np.vstack([pal, pal])  # every colour twice: ties everywhere
+    labels, de = _kernels.nearest_ciede2000(lab, doubled)
+    assert labels.max() < 6
+    labels1, de1 = _kernels.nearest_ciede2000(lab, pal)
+    assert_array_equal(labels, labels1)
+    assert_array_equal(de, de1)
+
+
+def test_neutral_and_opposite_hues():
+    # Zero chroma and hues 180 degrees apart take the special branches of the
+    # formula (Sharma et al. 2005, eqs. 10-14): still equal to the numpy form.
+    lab = np.array([[50.0, 0, 0], [50, 10, 0], [50, -10, 0], [60, 0, 20], [60, 0, -20], [0, 0, 0], [100, 0, 0]])
+    pal = np.array([[50.0, 0, 0], [50, -10, 0], [60, 0, -20], [100, 0, 0]])
+    labels, de = _kernels.nearest_ciede2000(lab, pal)
+    ref_labels, ref_de = naive.nearest_ciede2000(lab, pal)
+    assert_allclose(de, ref_de[np.arange(len(lab)), ref_labels], atol=1e-9)
+
+
+lab_colour = st.tuples(st.floats(0, 100), st.floats(-128, 128), st.floats(-128, 128))
+
+
+@settings(max_examples=300, deadline=None)
+@given(lab_colour, lab_colour)
+def test_lower_bound_never_exceeds_ciede2000(p, q):
+    # The pruning bound must hold for every pair, blue region (large R_T) included.
+    (L1, a1, b1), (L2, a2, b2) = p, q
+    c1, c2 = np.hypot(a1, b1), np.hypot(a2, b2)
+    a1p, a2p, c1p, c2p = ek.primed_c(a1, b1, c1, a2, b2, c2)
+    dp2 = (a2p - a1p) ** 2 + (b2 - b1) ** 2
+    bound = ek._lower_bound2(L1, L2, c2p - c1p, dp2, c1p, c2p)
+    exact = float(delta_e_ciede2000([L1, a1, b1], [L2, a2, b2]))
+    assert bound <= exact**2 * (1 + 1e-9) + 1e-12
+    assert ek._lightness2(L1, L2) <= exact**2 * (1 + 1e-9) + 1e-12
+
+
+def test_compiled_euclidean_assignment_is_bit_identical_to_numpy():
+    rng = np.random.default_rng(5)
+    pts = rng.normal(size=(70_000, 3)) * 30
+    centres = rng.normal(size=(12, 3)) * 30
+    centres[7] = centres[2]  # a tie: the lowest index must win in both
+    lab_c, d_c = _kernels.assign_nearest(pts, centres)
+    lab_n, d_n = _kernels.assign_nearest_numpy(pts, centres)
+    assert_array_equal(lab_c, lab_n)
+    assert_array_equal(d_c, d_n)
+    ref_labels, ref_d = naive.assign_nearest(pts, centres)
+    assert_array_equal(lab_c, ref_labels)
+    assert_allclose(d_c, ref_d, rtol=1e-12)
