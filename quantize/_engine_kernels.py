@@ -3,9 +3,11 @@
 Imported only through :mod:`quantize._kernels`, which loads this module in a
 background thread while the image decodes (:func:`quantize._kernels.warm_up`).
 The kernels assume clean input: C-contiguous float64 arrays of matching
-dimension, preallocated outputs.  Each one loops over points in parallel and
-every point's result depends on that point alone, so results do not depend on
-the number of threads.  Plain numpy twins live in ``tests/naive.py``.
+dimension, preallocated outputs.  Each point's result depends on that point
+alone, so :mod:`quantize._kernels` runs large inputs in row blocks on
+several threads (the kernels release the interpreter lock) and the result
+does not depend on the number of threads.  Plain numpy twins live in
+``tests/naive.py``.
 
 References: G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
 formula: implementation notes, supplementary test data, and mathematical
@@ -30,7 +32,7 @@ _T_MAX = 1.5725
 _SIN60 = 0.8660254037844387
 
 
-@numba.njit(cache=True, nogil=True, parallel=True)
+@numba.njit(cache=True, nogil=True)
 def assign_euclid(points, centres, labels, dist2):
     """Nearest centre by squared Euclidean distance; the lowest index wins a tie.
 
@@ -39,7 +41,7 @@ def assign_euclid(points, centres, labels, dist2):
     """
     n, d = points.shape
     k = centres.shape[0]
-    for i in numba.prange(n):
+    for i in range(n):
         best = np.inf
         arg = 0
         for j in range(k):
@@ -86,7 +88,7 @@ def _lower_bound2(L1, L2, dc, dp2, c1p, c2p):
     return _lightness2(L1, L2) + y * y + zz
 
 
-@numba.njit(cache=True, nogil=True, parallel=True)
+@numba.njit(cache=True, nogil=True)
 def assign_ciede2000(lab, pal_lab, labels, de):
     """Nearest palette colour by CIEDE2000, exactly, and its ΔE00.
 
@@ -101,7 +103,7 @@ def assign_ciede2000(lab, pal_lab, labels, de):
     pc = np.empty(k)
     for j in range(k):
         pc[j] = np.sqrt(pal_lab[j, 1] * pal_lab[j, 1] + pal_lab[j, 2] * pal_lab[j, 2])
-    for i in numba.prange(n):
+    for i in range(n):
         L, a, b = lab[i, 0], lab[i, 1], lab[i, 2]
         c = np.sqrt(a * a + b * b)
         j0 = 0
@@ -136,9 +138,9 @@ def assign_ciede2000(lab, pal_lab, labels, de):
         de[i] = best
 
 
-@numba.njit(cache=True, nogil=True, parallel=True)
-def ciede2000_to(lab, pal_lab, labels, de):
+@numba.njit(cache=True, nogil=True)
+def ciede2000_to(lab, labels, pal_lab, de):
     """CIEDE2000 of every colour to the palette colour its label names."""
-    for i in numba.prange(lab.shape[0]):
+    for i in range(lab.shape[0]):
         j = labels[i]
         de[i] = ciede2000(lab[i, 0], lab[i, 1], lab[i, 2], pal_lab[j, 0], pal_lab[j, 1], pal_lab[j, 2])

@@ -14,6 +14,7 @@ inputs too small to be worth waiting for the compiler.
 
 from __future__ import annotations
 
+import os
 import threading
 
 import numpy as np
@@ -23,12 +24,21 @@ __all__ = ["assign_nearest", "assign_nearest_numpy", "nearest_ciede2000", "ciede
 #: Below this many point-centre pairs the numpy kernel runs instead of
 #: waiting for the compiler (it takes a few milliseconds there).
 _SMALL = 1 << 15
+#: Point-centre pairs per thread below which one thread does the work:
+#: handing a block to another thread costs tens of microseconds.
+_PER_THREAD = 1 << 19
 
 _lock = threading.Lock()
 _state: dict = {}
 
 
 def _load():
+    import sys
+
+    # The load is mostly interpreter work: hand the lock back to the thread
+    # that is decoding and sampling the image every 0.5 ms instead of 5 ms.
+    interval = sys.getswitchinterval()
+    sys.setswitchinterval(min(interval, 5e-4))
     try:
         from . import _engine_kernels as ek
 
@@ -37,10 +47,20 @@ def _load():
         out = np.zeros(2)
         ek.assign_euclid(pts, pts, lab, out)
         ek.assign_ciede2000(pts, pts, lab, out)
-        ek.ciede2000_to(pts, pts, lab, out)
+        ek.ciede2000_to(pts, lab, pts, out)
         _state["module"] = ek
+        # The compiler leaves a few hundred thousand long-lived objects; the
+        # cyclic collector would walk them on every full collection and once
+        # more at interpreter exit (a quarter of a second).  Freezing moves
+        # every object alive now to the permanent generation; reference
+        # counting still frees them as usual.
+        import gc
+
+        gc.freeze()
     except BaseException as exc:  # re-raised in the caller's thread by _kernels()
         _state["error"] = exc
+    finally:
+        sys.setswitchinterval(interval)
 
 
 def warm_up() -> None:
@@ -50,6 +70,48 @@ def warm_up() -> None:
             t = threading.Thread(target=_load, name="quantize-kernels", daemon=True)
             _state["thread"] = t
             t.start()
+
+
+def _loading() -> bool:
+    t = _state.get("thread")
+    return t is not None and t.is_alive()
+
+
+def _threads() -> int:
+    # NUMBA_NUM_THREADS is what a batch worker sets to share the cores.
+    try:
+        return max(1, int(os.environ.get("NUMBA_NUM_THREADS") or os.cpu_count() or 1))
+    except ValueError:
+        return 1
+
+
+_pool: dict = {}
+
+
+def _run(kernel, n: int, k: int, row_args: tuple, shared: tuple, outs: tuple) -> None:
+    """``kernel(*rows, *shared, *outs)`` over row blocks, on threads when it pays.
+
+    ``row_args`` and ``outs`` are split along their first axis; every row's
+    result depends on that row alone, so the split does not change it.  The
+    kernels release the interpreter lock; threads rather than a parallel
+    JIT loop, because a loop whose threads spin while waiting for each other
+    stalls on a machine shared with other work.
+    """
+    parts = min(_threads(), max(1, (n * k) // _PER_THREAD))
+    if parts == 1:
+        kernel(*row_args, *shared, *outs)
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    with _lock:
+        pool = _pool.get(parts)
+        if pool is None:
+            pool = _pool[parts] = ThreadPoolExecutor(max_workers=parts, thread_name_prefix="quantize")
+    edges = np.linspace(0, n, parts + 1).astype(int)
+    jobs = [pool.submit(kernel, *(a[lo:hi] for a in row_args), *shared, *(o[lo:hi] for o in outs))
+            for lo, hi in zip(edges[:-1], edges[1:])]
+    for job in jobs:
+        job.result()
 
 
 def _kernels():
@@ -66,16 +128,18 @@ _BLOCK = 1 << 16
 def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest centre of every point by squared Euclidean distance.
 
-    Compiled for large inputs, :func:`assign_nearest_numpy` for small ones;
-    both give bit-identical labels and distances.
+    Compiled, or :func:`assign_nearest_numpy` for small inputs and while the
+    compiled kernels are still loading; both give bit-identical labels and
+    distances.
     """
     points = np.ascontiguousarray(points, dtype=np.float64)
     centres = np.ascontiguousarray(centres, dtype=np.float64)
-    if points.shape[0] * centres.shape[0] < _SMALL and "module" not in _state:
+    if "module" not in _state and (points.shape[0] * centres.shape[0] < _SMALL or _loading()):
+        # Do not wait for the compiler: the restarts run meanwhile.
         return assign_nearest_numpy(points, centres)
     labels = np.empty(points.shape[0], dtype=np.intp)
     dist2 = np.empty(points.shape[0], dtype=np.float64)
-    _kernels().assign_euclid(points, centres, labels, dist2)
+    _run(_kernels().assign_euclid, len(points), len(centres), (points,), (centres,), (labels, dist2))
     return labels, dist2
 
 
@@ -92,7 +156,8 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray,
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     labels = np.empty(lab.shape[0], dtype=np.intp)
     de = np.empty(lab.shape[0], dtype=np.float64)
-    _kernels().assign_ciede2000(lab, pal_lab, labels, de)
+    # A CIEDE2000 costs about ten squared distances.
+    _run(_kernels().assign_ciede2000, len(lab), 10 * len(pal_lab), (lab,), (pal_lab,), (labels, de))
     return labels, de
 
 
@@ -102,7 +167,7 @@ def ciede2000_to(lab: np.ndarray, pal_lab: np.ndarray, labels: np.ndarray) -> np
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     labels = np.ascontiguousarray(labels, dtype=np.intp)
     de = np.empty(lab.shape[0], dtype=np.float64)
-    _kernels().ciede2000_to(lab, pal_lab, labels, de)
+    _run(_kernels().ciede2000_to, len(lab), 10, (lab, labels), (pal_lab,), (de,))
     return de
 
 

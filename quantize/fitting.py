@@ -21,6 +21,9 @@ __all__ = ["fit_palette", "Candidate", "fit_candidates", "parse_k", "load_sample
 
 #: Largest palette the engine fits.
 MAX_K = 4096
+#: Lloyd iterations on every distinct colour after the binned restarts have
+#: converged: the binned solution is close, and the refinements follow.
+FINE_ITER = 10
 
 
 @dataclass(frozen=True, eq=False)
@@ -231,7 +234,7 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
             warnings.simplefilter("ignore", PaletteSizeWarning)
             coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
             fine = kmeans(full_pts, len(coarse.centres), weights=sample.weights, fixed=fixed,
-                          init_centres=coarse.centres)
+                          init_centres=coarse.centres, max_iter=FINE_ITER)
         pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
                                                           metric=metric, refine=refine)
         if pal.k in seen:

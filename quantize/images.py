@@ -283,6 +283,9 @@ def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -
     >>> pic.shape, pic.bit_depth  # doctest: +SKIP
     ((1200, 900), 8)
     """
+    from ._kernels import warm_up
+
+    warm_up()  # a loaded image is about to be fitted or mapped: load the kernels meanwhile
     picture, notes = _read_file(path, max_pixels)
     for category, text in notes:
         warnings.warn(text, category, stacklevel=2)

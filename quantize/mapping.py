@@ -184,9 +184,7 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
     labels, de = map_sample(smp, palette, metric=metric)
     k = len(palette)
     dtype = np.uint8 if k <= 256 else np.uint16
-    lut = labels.astype(dtype)
-    inv = smp.inverse
-    idx = np.where(inv >= 0, lut[np.maximum(inv, 0)], 0).astype(dtype).reshape(smp.shape)
+    idx = smp.index_image(labels, dtype=dtype)
     return MappedImage(
         indices=idx,
         palette=palette,

@@ -15,22 +15,57 @@ sees every distinct colour with its true weight.
 from __future__ import annotations
 
 import weakref
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .images import Picture
 
-__all__ = ["ColourSample", "sample_picture", "pool_samples"]
+if TYPE_CHECKING:
+    import numpy.typing as npt
+
+__all__ = ["ColourSample", "pool_samples", "sample_picture"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
-#: Opaque pixels from which an 8-bit image is histogrammed densely.
-_DENSE_FROM = 1 << 22
+#: Opaque pixels from which an 8-bit image is histogrammed densely: from
+#: about a quarter of a megapixel the fixed cost of the 2**24 table is less
+#: than that of sorting (benchmarks/bench_sampling.py).
+_DENSE_FROM = 1 << 19
+#: Packed code given to transparent pixels on the dense path: one past the
+#: last 8-bit colour, so that one table lookup also handles transparency.
+_CLEAR = 1 << 24
+#: Pixels per block when gathering through a table.  numpy casts any index
+#: that is not intp to intp first; per block, that cast stays in cache
+#: instead of becoming a 96 MB temporary for 12 megapixels.
+_BLOCK = 1 << 18
 
 
-@dataclass(frozen=True, eq=False)
+class _LazyInverse:
+    """``ColourSample.inverse``: kept when given, else built on first access.
+
+    The dense path keeps only the pixels' packed codes; most callers want an
+    index image (:meth:`ColourSample.index_image`), which one lookup in a
+    small table indexed by packed code gives directly, so the int32 row of
+    every pixel is only built for callers that ask for it.
+    """
+
+    def __get__(self, obj, objtype=None):
+        if obj is None:
+            return None  # the dataclass default
+        inverse = obj.__dict__.get("_inverse")
+        if inverse is None and obj._packed is not None:
+            inverse = obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1)
+            obj.__dict__["_inverse"] = inverse  # frozen: bypass __setattr__, as a cache
+        return inverse
+
+    def __set__(self, obj, value):
+        obj.__dict__["_inverse"] = value
+
+
+@dataclass(frozen=True, eq=False, repr=False)
 class ColourSample:
     """Distinct opaque colours of one image (or a pooled set) with weights.
 
@@ -42,9 +77,11 @@ class ColourSample:
         Pixel count of each colour (scaled when images are pooled).
     bit_depth : int
         8 or 16: the scale of ``codes``.
-    inverse : ndarray of shape (H*W,), integer, or None
+    inverse : ndarray of shape (H*W,), int32, or None
         For a single image: the row of ``codes`` of every pixel, -1 for
-        fully transparent pixels.  None for a pooled sample.
+        fully transparent pixels.  None for a pooled sample.  For large 8-bit
+        images it is built on first access; :meth:`index_image` does not
+        need it.
     shape : tuple of int or None
         ``(H, W)`` of the single image, None for a pooled sample.
     n_pixels : int
@@ -54,10 +91,75 @@ class ColourSample:
     codes: np.ndarray
     weights: np.ndarray
     bit_depth: int
-    inverse: np.ndarray | None = None
+    inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
-    _points: dict = field(default_factory=dict, repr=False)
+    _points: dict = field(default_factory=dict)
+    #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
+    #: where transparent.
+    _packed: np.ndarray | None = None
+
+    def __repr__(self) -> str:
+        # Not the dataclass repr: it would print (and build) ``inverse``.
+        return (f"ColourSample(n_colours={self.n_colours}, bit_depth={self.bit_depth}, "
+                f"shape={self.shape}, n_pixels={self.n_pixels})")
+
+    def index_image(self, labels: np.ndarray, *, dtype: npt.DTypeLike = None) -> np.ndarray:
+        """Spread one value per distinct colour onto the pixels of the image.
+
+        Parameters
+        ----------
+        labels : array_like of shape (n_colours,), integer
+            A value for every row of ``codes``, typically its palette index.
+        dtype : dtype, optional
+            Of the result, default that of ``labels``.  ``labels`` are cast
+            to it as by ``labels.astype(dtype)``.
+
+        Returns
+        -------
+        ndarray of shape (H, W)
+            ``labels[inverse]`` for every opaque pixel, 0 for fully
+            transparent ones.
+
+        Raises
+        ------
+        ValueError
+            The sample is pooled (it has no pixels), or ``labels`` does not
+            hold one value per distinct colour.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> from quantize.images import as_picture
+        >>> pic = as_picture(np.array([[[255, 0, 0], [0, 0, 255], [255, 0, 0]]], np.uint8))
+        >>> s = sample_picture(pic)
+        >>> s.index_image(np.array([7, 3]), dtype=np.uint8).tolist()
+        [[3, 7, 3]]
+        """
+        if self.shape is None:
+            raise ValueError("a pooled colour sample has no pixels to spread labels onto")
+        labels = np.asarray(labels)
+        if labels.shape != (self.n_colours,):
+            raise ValueError(
+                f"labels must hold one value per distinct colour, shape ({self.n_colours},); got {labels.shape}"
+            )
+        values = labels.astype(labels.dtype if dtype is None else dtype)
+        return self._spread(values, 0).reshape(self.shape)
+
+    def _spread(self, values: np.ndarray, fill) -> np.ndarray:
+        """``values`` of each pixel's colour, ``fill`` where transparent; flat."""
+        if self._packed is not None:
+            # np.empty, not np.zeros: only rows of present colours (and the
+            # transparent slot) are ever read, and an untouched page of a
+            # fresh table costs nothing.
+            table = np.empty(_CLEAR + 1, dtype=values.dtype)
+            table[_pack(self.codes, 8)] = values
+            table[_CLEAR] = fill
+            return _take_blocks(table, self._packed)
+        table = np.empty(values.size + 1, dtype=values.dtype)
+        table[:-1] = values
+        table[-1] = fill  # the row -1 of transparent pixels reads this slot
+        return _take_blocks(table, self.inverse)
 
     @property
     def n_colours(self) -> int:
@@ -135,9 +237,32 @@ def _unpack(packed: np.ndarray, bit_depth: int) -> np.ndarray:
     return out
 
 
+def _pack_pixels(rgb: np.ndarray, dtype) -> np.ndarray:
+    """``_pack`` of every pixel of an (H, W, 3) uint8 image, in one pass, flat."""
+    flat = np.ascontiguousarray(rgb).reshape(-1)
+    n = flat.size // 3
+    out = np.empty(n, dtype=dtype)
+    # The four bytes R G B R' from a pixel's start, read as one big-endian
+    # word, are R<<24 | G<<16 | B<<8 | R': shifting out R' packs the pixel.
+    # The last pixel has no fourth byte and is packed alone.
+    words = np.ndarray((n - 1,), dtype=">u4", buffer=flat, strides=(3,))
+    np.right_shift(words, 8, out=out[:-1])
+    r, g, b = (int(c) for c in flat[-3:])
+    out[-1] = (r << 16) | (g << 8) | b
+    return out
+
+
+def _take_blocks(table: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """``table[index]`` for an in-range index (negative counts from the end)."""
+    out = np.empty(index.size, dtype=table.dtype)
+    for i in range(0, index.size, _BLOCK):
+        np.take(table, index[i:i + _BLOCK], out=out[i:i + _BLOCK], mode="wrap")
+    return out
+
+
 # One sample per picture object: fitting and mapping the same picture (as
 # ``quantize reduce`` does) collapse it once.
-_CACHE: "weakref.WeakKeyDictionary[Picture, ColourSample]" = weakref.WeakKeyDictionary()
+_CACHE: weakref.WeakKeyDictionary[Picture, ColourSample] = weakref.WeakKeyDictionary()
 
 
 def sample_picture(picture: Picture) -> ColourSample:
@@ -151,8 +276,8 @@ def sample_picture(picture: Picture) -> ColourSample:
     Returns
     -------
     ColourSample
-        With ``inverse`` set, so that per-colour results can be spread back
-        onto pixels exactly.
+        With ``shape`` and ``inverse`` set, so that per-colour results can be
+        spread back onto pixels exactly (see :meth:`ColourSample.index_image`).
 
     Examples
     --------
@@ -174,39 +299,57 @@ def sample_picture(picture: Picture) -> ColourSample:
 def _sample(picture: Picture) -> ColourSample:
     h, w = picture.rgb.shape[:2]
     bits = picture.bit_depth
-    opaque = picture.opaque.ravel()
-    packed = _pack(picture.rgb.reshape(-1, 3), bits)
-    all_opaque = bool(opaque.all())
+    opaque = None if picture.alpha is None else picture.opaque.ravel()  # no alpha: every pixel is opaque
+    all_opaque = opaque is None or bool(opaque.all())
+    n_opaque = h * w if all_opaque else int(np.count_nonzero(opaque))
+    if bits == 8 and n_opaque >= _DENSE_FROM:
+        return _sample_dense(picture.rgb, None if all_opaque else ~opaque, n_opaque)
+    packed = _pack_pixels(picture.rgb, np.uint32) if bits == 8 else _pack(picture.rgb.reshape(-1, 3), bits)
     sel = packed if all_opaque else packed[opaque]
-    if bits == 8 and sel.size >= _DENSE_FROM:
-        # A dense histogram over all 2**24 codes is several times faster than
-        # sorting for unique values on large images, and exact; below a few
-        # megapixels, touching its 200 MB of tables costs more than a sort.
-        counts = np.bincount(sel, minlength=1 << 24)
-        present = np.flatnonzero(counts)
-        lut = np.full(1 << 24, -1, dtype=np.int32)  # int32 halves the gather's memory traffic
-        lut[present] = np.arange(present.size, dtype=np.int32)
-        inverse = lut[packed]
-        weights = counts[present].astype(np.float64)
-        del counts, lut
+    present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
+    inv_sel = inv_sel.ravel().astype(np.int32)
+    if all_opaque:
+        inverse = inv_sel
     else:
-        present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
-        inv_sel = inv_sel.ravel().astype(np.int32)
-        if all_opaque:
-            inverse = inv_sel
-        else:
-            inverse = np.full(packed.size, -1, dtype=np.int32)
-            inverse[opaque] = inv_sel
-        weights = counts.astype(np.float64)
-    if not all_opaque:
-        inverse[~opaque] = -1
+        inverse = np.full(packed.size, -1, dtype=np.int32)
+        inverse[opaque] = inv_sel
     return ColourSample(
         codes=_unpack(present, bits),
-        weights=weights,
+        weights=counts.astype(np.float64),
         bit_depth=bits,
         inverse=inverse,
         shape=(h, w),
-        n_pixels=int(sel.size),
+        n_pixels=n_opaque,
+    )
+
+
+def _sample_dense(rgb: np.ndarray, clear: np.ndarray | None, n_opaque: int) -> ColourSample:
+    """Sample an 8-bit image through a histogram over all 2**24 codes.
+
+    Exact, and several times faster than sorting from a quarter of a
+    megapixel; below that, touching the 128 MB table costs more than a sort.
+    """
+    # int64 because bincount casts any other index to it, a 96 MB copy.
+    packed = _pack_pixels(rgb, np.int64)
+    if clear is not None:
+        # max(code, _CLEAR * clear) is the code or _CLEAR, as every code is
+        # below _CLEAR: branch-free, unlike a masked assignment, which
+        # mispredicts on scattered transparency and is about three times slower.
+        flags = clear.view(np.uint8)
+        for i in range(0, packed.size, _BLOCK):
+            block = packed[i:i + _BLOCK]
+            np.maximum(block, flags[i:i + _BLOCK] * np.int64(_CLEAR), out=block)
+    counts = np.bincount(packed, minlength=_CLEAR + 1)
+    present = np.flatnonzero(counts[:_CLEAR] != 0)  # on bools: several times faster than on the counts
+    weights = counts[present].astype(np.float64)
+    del counts
+    return ColourSample(
+        codes=_unpack(present, 8),
+        weights=weights,
+        bit_depth=8,
+        shape=rgb.shape[:2],
+        n_pixels=n_opaque,
+        _packed=packed.astype(np.uint32),  # kept for the lifetime of the sample: half the memory
     )
 
 
