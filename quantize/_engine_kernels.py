@@ -22,7 +22,7 @@ import numpy as np
 
 from ._dither_kernels import ciede2000, from_primed, primed_c
 
-__all__ = ["assign_euclid", "assign_ciede2000", "ciede2000_to"]
+__all__ = ["assign_euclid", "assign_ciede2000", "ciede2000_to", "centre_sums"]
 
 _POW25_7 = 25.0**7
 #: The largest value of CIEDE2000's hue weighting T over all hues (found by
@@ -89,20 +89,26 @@ def _lower_bound2(L1, L2, dc, dp2, c1p, c2p):
 
 
 @numba.njit(cache=True, nogil=True)
-def assign_ciede2000(lab, pal_lab, labels, de):
+def assign_ciede2000(lab, pal_lab, order, sl_max, labels, de):
     """Nearest palette colour by CIEDE2000, exactly, and its ΔE00.
 
-    The colour nearest in CIELAB is measured first; any other colour whose
-    angle-free lower bound (:func:`_lower_bound2`) is not below the best
-    square so far cannot be nearer and is skipped.  The result equals a full
-    scan with :func:`quantize._dither_kernels.ciede2000`, the lowest index
-    winning a tie.
+    The colour nearest in CIELAB is measured first.  The others are visited
+    outward in lightness from the colour's own (``order`` sorts the palette
+    by L*): since S_L <= ``sl_max`` over the data, once (dL* / sl_max)^2
+    exceeds the best square so far no colour further out in that direction
+    can be nearer.  A visited colour whose angle-free lower bound
+    (:func:`_lower_bound2`) is not below the best square is skipped too.  The
+    result equals a full scan with :func:`quantize._dither_kernels.ciede2000`,
+    the lowest index winning a tie.
     """
     n = lab.shape[0]
     k = pal_lab.shape[0]
     pc = np.empty(k)
+    sorted_l = np.empty(k)
     for j in range(k):
         pc[j] = np.sqrt(pal_lab[j, 1] * pal_lab[j, 1] + pal_lab[j, 2] * pal_lab[j, 2])
+        sorted_l[j] = pal_lab[order[j], 0]
+    inv_sl2 = 1.0 / (sl_max * sl_max)
     for i in range(n):
         L, a, b = lab[i, 0], lab[i, 1], lab[i, 2]
         c = np.sqrt(a * a + b * b)
@@ -117,23 +123,29 @@ def assign_ciede2000(lab, pal_lab, labels, de):
         a1p, a2p, c1p, c2p = primed_c(a, b, c, pal_lab[j0, 1], pal_lab[j0, 2], pc[j0])
         best = from_primed(L, a, b, pal_lab[j0, 0], pal_lab[j0, 1], pal_lab[j0, 2], a1p, a2p, c1p, c2p)
         arg = j0
-        for j in range(k):
-            if j == j0:
-                continue
-            L2, a2, b2 = pal_lab[j, 0], pal_lab[j, 1], pal_lab[j, 2]
-            # Margins of 1e-9 keep rounding in the bounds from skipping a tie.
-            limit = best * best * (1.0 + 1e-9) + 1e-300
-            if _lightness2(L, L2) > limit:
-                continue
-            a1p, a2p, c1p, c2p = primed_c(a, b, c, a2, b2, pc[j])
-            dc = c2p - c1p
-            dp2 = (a2p - a1p) * (a2p - a1p) + (b2 - b) * (b2 - b)
-            if _lower_bound2(L, L2, dc, dp2, c1p, c2p) > limit:
-                continue
-            s = from_primed(L, a, b, L2, a2, b2, a1p, a2p, c1p, c2p)
-            if s < best or (s == best and j < arg):
-                best = s
-                arg = j
+        start = np.searchsorted(sorted_l, L)
+        for direction in (-1, 1):
+            r = start - 1 if direction < 0 else start
+            while 0 <= r < k:
+                j = order[r]
+                r += direction
+                L2 = pal_lab[j, 0]
+                # Margins of 1e-9 keep rounding in the bounds from skipping a tie.
+                limit = best * best * (1.0 + 1e-9) + 1e-300
+                if (L2 - L) * (L2 - L) * inv_sl2 > limit:
+                    break
+                if j == j0 or _lightness2(L, L2) > limit:
+                    continue
+                a2, b2 = pal_lab[j, 1], pal_lab[j, 2]
+                a1p, a2p, c1p, c2p = primed_c(a, b, c, a2, b2, pc[j])
+                dc = c2p - c1p
+                dp2 = (a2p - a1p) * (a2p - a1p) + (b2 - b) * (b2 - b)
+                if _lower_bound2(L, L2, dc, dp2, c1p, c2p) > limit:
+                    continue
+                s = from_primed(L, a, b, L2, a2, b2, a1p, a2p, c1p, c2p)
+                if s < best or (s == best and j < arg):
+                    best = s
+                    arg = j
         labels[i] = arg
         de[i] = best
 
@@ -144,3 +156,20 @@ def ciede2000_to(lab, labels, pal_lab, de):
     for i in range(lab.shape[0]):
         j = labels[i]
         de[i] = ciede2000(lab[i, 0], lab[i, 1], lab[i, 2], pal_lab[j, 0], pal_lab[j, 1], pal_lab[j, 2])
+
+
+@numba.njit(cache=True, nogil=True)
+def centre_sums(points, weights, labels, sums, wsum):
+    """Per-label sums of ``weights`` and of ``weights * points``, in point order.
+
+    The order and rounding are those of ``np.bincount(labels, weights=...)``
+    (each product rounded, then added in index order), so both give
+    bit-identical sums.
+    """
+    d = points.shape[1]
+    for i in range(points.shape[0]):
+        j = labels[i]
+        wi = weights[i]
+        wsum[j] += wi
+        for t in range(d):
+            sums[j, t] += wi * points[i, t]

@@ -19,7 +19,7 @@ import threading
 
 import numpy as np
 
-__all__ = ["assign_nearest", "assign_nearest_numpy", "nearest_ciede2000", "ciede2000_to", "warm_up"]
+__all__ = ["assign_nearest", "assign_nearest_numpy", "centre_sums", "nearest_ciede2000", "ciede2000_to", "warm_up"]
 
 #: Below this many point-centre pairs the numpy kernel runs instead of
 #: waiting for the compiler (it takes a few milliseconds there).
@@ -46,8 +46,9 @@ def _load():
         lab = np.zeros(2, dtype=np.intp)
         out = np.zeros(2)
         ek.assign_euclid(pts, pts, lab, out)
-        ek.assign_ciede2000(pts, pts, lab, out)
+        ek.assign_ciede2000(pts, pts, lab, 1.0, lab, out)
         ek.ciede2000_to(pts, lab, pts, out)
+        ek.centre_sums(pts, out, lab, np.zeros((2, 3)), np.zeros(2))
         _state["module"] = ek
         # The compiler leaves a few hundred thousand long-lived objects; the
         # cyclic collector would walk them on every full collection and once
@@ -143,6 +144,26 @@ def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray,
     return labels, dist2
 
 
+def centre_sums(points: np.ndarray, weights: np.ndarray, labels: np.ndarray, k: int):
+    """Per-label sum of weights, shape (k,), and of weighted points, shape (k, d).
+
+    Bit-identical to ``np.bincount`` per coordinate, which runs instead while
+    the compiled kernels load.
+    """
+    points = np.ascontiguousarray(points, dtype=np.float64)
+    weights = np.ascontiguousarray(weights, dtype=np.float64)
+    labels = np.ascontiguousarray(labels, dtype=np.intp)
+    if "module" not in _state and (points.shape[0] < _SMALL or _loading()):
+        wsum = np.bincount(labels, weights=weights, minlength=k)
+        sums = np.stack([np.bincount(labels, weights=weights * points[:, t], minlength=k)
+                         for t in range(points.shape[1])], axis=1)
+        return wsum, sums
+    wsum = np.zeros(k)
+    sums = np.zeros((k, points.shape[1]))
+    _kernels().centre_sums(points, weights, labels, sums, wsum)
+    return wsum, sums
+
+
 def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest palette colour of every CIELAB colour by CIEDE2000.
 
@@ -156,8 +177,16 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray,
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     labels = np.empty(lab.shape[0], dtype=np.intp)
     de = np.empty(lab.shape[0], dtype=np.float64)
+    if lab.shape[0] == 0:
+        return labels, de
+    order = np.argsort(pal_lab[:, 0], kind="stable")
+    # S_L grows with the distance of the mean lightness from 50 (eq. 19 of
+    # Sharma et al. 2005); no mean lies further from 50 than the furthest colour.
+    far = max(float(np.abs(lab[:, 0] - 50.0).max()), float(np.abs(pal_lab[:, 0] - 50.0).max()))
+    sl_max = 1.0 + 0.015 * far * far / np.sqrt(20.0 + far * far)
     # A CIEDE2000 costs about ten squared distances.
-    _run(_kernels().assign_ciede2000, len(lab), 10 * len(pal_lab), (lab,), (pal_lab,), (labels, de))
+    _run(_kernels().assign_ciede2000, len(lab), 10 * len(pal_lab), (lab,), (pal_lab, order, sl_max),
+         (labels, de))
     return labels, de
 
 

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ._kernels import assign_nearest
+from ._kernels import assign_nearest, centre_sums
 
 __all__ = ["kmeans", "KMeansResult", "INITS", "check_init", "PaletteSizeWarning"]
 
@@ -87,14 +87,13 @@ def _init_kmeanspp(points, weights, k, fixed, rng):
         if pot.sum() <= 0:
             break
         cands = _weighted_pick(rng, pot, n_trials)
-        best_cost, best_d2, best_c = np.inf, None, None
-        for c in cands:
-            nd2 = np.minimum(d2, _sq_dist_to(points, points[c]))
-            cost = float((weights * nd2).sum())
-            if cost < best_cost:
-                best_cost, best_d2, best_c = cost, nd2, c
-        centres.append(points[best_c])
-        d2 = best_d2
+        # All candidates at once: one pass over the points instead of n_trials.
+        diff = points[None, :, :] - points[cands][:, None, :]
+        nd2 = np.minimum(d2[None, :], np.einsum("tij,tij->ti", diff, diff))
+        costs = (weights[None, :] * nd2).sum(axis=1)
+        best = int(np.argmin(costs))  # the first of equal costs, as a loop with '<' keeps
+        centres.append(points[cands[best]])
+        d2 = nd2[best]
     return np.array(centres, dtype=np.float64)
 
 
@@ -169,10 +168,7 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
     history.append(float((weights * d2).sum()))
     n_iter = 0
     for n_iter in range(1, max_iter + 1):
-        wsum = np.bincount(labels, weights=weights, minlength=k)
-        new = np.empty_like(centres)
-        for j in range(d):
-            new[:, j] = np.bincount(labels, weights=weights * points[:, j], minlength=k)
+        wsum, new = centre_sums(points, weights, labels, k)
         filled = wsum > 0
         new[filled] /= wsum[filled, None]
         new[~filled] = centres[~filled]
@@ -197,6 +193,29 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
         if unchanged or shift <= tol:
             break
     return centres, labels, history, n_iter
+
+
+def tolerance_scale(points: np.ndarray, weights: np.ndarray) -> float:
+    """Weighted mean per-coordinate variance: the scale of the stopping tolerance."""
+    mu = (weights[:, None] * points).sum(axis=0) / weights.sum()
+    mean_var = float((weights * ((points - mu) ** 2).sum(axis=1)).sum()) / weights.sum() / points.shape[1]
+    return max(mean_var, 1e-12)
+
+
+def lloyd_from(points: np.ndarray, weights: np.ndarray, centres: np.ndarray, *, n_fixed: int = 0,
+               max_iter: int = 300, abs_tol: float = 0.0) -> KMeansResult:
+    """Lloyd iterations from ``centres`` on clean data, for the engine's inner loops.
+
+    :func:`kmeans` without the checks: ``points`` (n, d) and ``weights``
+    (n,) contiguous float64, positive weights, the first ``n_fixed`` centres
+    locked.  ``abs_tol`` is the absolute squared-shift tolerance, e.g.
+    ``1e-4 * tolerance_scale(points, weights)``.  The fitting and sweep
+    stages validate their sample once and call this per palette size.
+    """
+    c, labels, history, n_iter = _lloyd(points, weights, np.array(centres, dtype=np.float64), n_fixed,
+                                        max_iter, abs_tol)
+    return KMeansResult(centres=c, labels=labels, inertia=history[-1], n_iter=n_iter,
+                        history=tuple(history), k_requested=len(c))
 
 
 def kmeans(
@@ -318,10 +337,7 @@ def kmeans(
             PaletteSizeWarning,
             stacklevel=2,
         )
-    # Per-coordinate mean variance, as the tolerance scale.
-    mu = (w[:, None] * pts).sum(axis=0) / w.sum()
-    mean_var = float((w * ((pts - mu) ** 2).sum(axis=1)).sum()) / w.sum() / d
-    abs_tol = tol * max(mean_var, 1e-12)
+    abs_tol = tol * tolerance_scale(pts, w)
 
     if init_centres is not None:
         start = np.asarray(init_centres, dtype=np.float64)

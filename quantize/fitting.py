@@ -13,7 +13,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from .clustering import PaletteSizeWarning, check_init, kmeans
+from .clustering import PaletteSizeWarning, check_init, kmeans, lloyd_from, tolerance_scale
 from .palette import Palette, parse_colour
 from .selection import choose_k, check_rule, robust_error
 
@@ -23,7 +23,7 @@ __all__ = ["fit_palette", "Candidate", "fit_candidates", "parse_k", "load_sample
 MAX_K = 4096
 #: Lloyd iterations on every distinct colour after the binned restarts have
 #: converged: the binned solution is close, and the refinements follow.
-FINE_ITER = 10
+FINE_ITER = 4
 
 
 @dataclass(frozen=True, eq=False)
@@ -136,11 +136,23 @@ def _to_palette(centres, fixed_rgb8, space, locked_n, centre_space=None):
 REFINES = ("robust", "none")
 
 
+def _binned_delta_e(sample, pal, metric):
+    """ΔE00 of every binned cell to its palette colour, and the cells' weights."""
+    from ._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
+
+    lab, w = sample.binned("lab")
+    if metric == "ciede2000":
+        return nearest_ciede2000(lab, pal.lab)[1], w
+    labels = assign_nearest(sample.binned(pal.space)[0], pal.points())[0]
+    return ciede2000_to(lab, pal.lab, labels), w
+
+
 def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust"):
     """Turn k-means centres into the 8-bit palette a job writes.
 
-    With ``refine="robust"`` two explicit refinements are tried, each kept
-    only if it lowers the mean ΔE00 over every distinct colour:
+    With ``refine="robust"`` two explicit refinements are tried on the
+    binned sample (:meth:`ColourSample.binned`), each kept only if it lowers
+    the mean ΔE00 there:
 
     1. a truncated-loss refit (:func:`quantize.refine.robust_refine`), for
        flat artwork whose anti-aliased edges would otherwise take a colour;
@@ -150,8 +162,10 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
        (:func:`quantize.refine.median_polish`).  Mean ΔE grows with
        distance, not its square, so these move centres toward medians.
 
-    Most iterations run on the binned sample, the last ones and every
-    comparison on every distinct colour.  The first ``len(fixed_rgb8)``
+    The palette kept is then mapped and measured on every distinct colour.
+    Below 20 000 distinct colours the binned sample is every distinct colour,
+    so the comparison is exact; above, cells of similar colours stand in for
+    their members in the comparison only.  The first ``len(fixed_rgb8)``
     centres are locked.
 
     Returns
@@ -165,36 +179,30 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     from .refine import ciede2000_medians, median_polish, robust_refine
 
     m = len(fixed_rgb8)
-    w = sample.weights
     pal, merged = _to_palette(centres, fixed_rgb8, space, m)
-    labels, de = map_sample(sample, pal, metric=metric)
-    if refine == "none":
-        return pal, merged, labels, de, ""
     steps = []
-    bin_pts, bin_w = sample.binned(space)
-    full_pts = sample.points(space)
+    if refine != "none":
+        bin_pts, bin_w = sample.binned(space)
+        de, _ = _binned_delta_e(sample, pal, metric)
+        cost = float((bin_w * de).sum())
 
-    def medians():
-        if metric == "ciede2000":
-            bin_lab, bin_lw = sample.binned("lab")
-            c = ciede2000_medians(bin_lab, bin_lw, pal.lab, n_fixed=m, iters=30)
-            return ciede2000_medians(sample.points("lab"), w, c, n_fixed=m, iters=2, polish=()), "lab"
-        c = median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m)
-        return median_polish(full_pts, w, c, n_fixed=m, iters=2), None
+        def medians():
+            if metric == "ciede2000":
+                return ciede2000_medians(sample.binned("lab")[0], bin_w, pal.lab, n_fixed=m, iters=15), "lab"
+            return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
 
-    def robust():
-        c = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-        return robust_refine(full_pts, w, c, n_fixed=m, max_swaps=0, max_iter=4), None
-
-    for name, make in (("robust", robust), ("median", medians)):
-        c, c_space = make()
-        cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
-        if cpal.k != pal.k:
-            continue
-        clabels, cde = map_sample(sample, cpal, metric=metric)
-        if (w * cde).sum() < (w * de).sum():
-            pal, merged, labels, de = cpal, cmerged, clabels, cde
-            steps.append(name)
+        for name, make in (("robust", lambda: (robust_refine(bin_pts, bin_w, centres, n_fixed=m), None)),
+                           ("median", medians)):
+            c, c_space = make()
+            cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
+            if cpal.k != pal.k:
+                continue
+            cde, _ = _binned_delta_e(sample, cpal, metric)
+            ccost = float((bin_w * cde).sum())
+            if ccost < cost:
+                pal, merged, cost = cpal, cmerged, ccost
+                steps.append(name)
+    labels, de = map_sample(sample, pal, metric=metric)
     return pal, merged, labels, de, "+".join(steps)
 
 
@@ -203,13 +211,12 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
                    progress: Callable | None = None) -> list[Candidate]:
     """Fit one palette per size in ``ks`` to a colour sample.
 
-    Each size seeds and restarts on the binned sample, then runs Lloyd to
-    convergence on every distinct colour with its true weight (the k-means
-    fit, whose cost is reported as ``inertia``).  With ``refine="robust"``
-    two explicit refinements follow, each kept only if it lowers the mean
-    ΔE00: a truncated-loss refit (:func:`quantize.refine.robust_refine`:
-    swaps on the binned sample, trimmed Lloyd on every distinct colour), then
-    weighted k-medians steps (:func:`quantize.refine.median_polish`).
+    Each size seeds and restarts on the binned sample, then runs Lloyd on
+    every distinct colour with its true weight, at most :data:`FINE_ITER`
+    iterations from the binned solution (the k-means fit, whose cost is
+    reported as ``inertia``).  With ``refine="robust"`` the explicit
+    refinements of :func:`finish_palette` follow, each kept only if it
+    lowers the mean ΔE00.
     ``palette.fit["refined"]`` names the steps kept.  Sizes above the number of
     distinct colours collapse to that number (each size appears once).
     """
@@ -225,6 +232,7 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
     if m > min(ks):
         raise ValueError(f"{m} locked colours do not fit in a palette of {min(ks)}")
     full_pts = sample.points(space)
+    full_tol = 1e-4 * tolerance_scale(full_pts, sample.weights)
     bin_pts, bin_w = sample.binned(space)
     out: list[Candidate] = []
     seen = set()
@@ -233,8 +241,8 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PaletteSizeWarning)
             coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
-            fine = kmeans(full_pts, len(coarse.centres), weights=sample.weights, fixed=fixed,
-                          init_centres=coarse.centres, max_iter=FINE_ITER)
+            fine = lloyd_from(full_pts, sample.weights, coarse.centres, n_fixed=m, max_iter=FINE_ITER,
+                              abs_tol=full_tol)
         pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
                                                           metric=metric, refine=refine)
         if pal.k in seen:

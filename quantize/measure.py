@@ -44,12 +44,48 @@ def weighted_quantile(values, weights, q) -> np.ndarray:
     """
     v = np.asarray(values, dtype=np.float64)
     w = np.asarray(weights, dtype=np.float64)
+    qq = np.asarray(q, dtype=np.float64)
+    if v.size > _SORT_BELOW and np.isfinite(v).all() and v.max() > v.min():
+        return _bucketed_quantile(v, w, qq)
     order = np.argsort(v, kind="stable")
     cum = np.cumsum(w[order])
-    qq = np.asarray(q, dtype=np.float64)
     # A tiny relative slack makes 0.95 * 100 pixels count as 95, not 95.0000001.
     idx = np.searchsorted(cum, qq * cum[-1] * (1 - 1e-12), side="left")
     return v[order][np.minimum(idx, v.size - 1)]
+
+
+#: Above this many values, :func:`weighted_quantile` selects instead of sorting.
+_SORT_BELOW = 1 << 16
+_BUCKETS = 4096
+
+
+def _bucketed_quantile(v, w, qq):
+    """The same quantiles as the sorted form, sorting only one bucket per quantile.
+
+    Values go into equal-width buckets, a monotone map, so the bucket in
+    which the cumulative weight crosses ``q`` holds the answer; only its
+    members are sorted, with the weight of all lower buckets carried in.
+    """
+    lo, hi = float(v.min()), float(v.max())
+    b = np.minimum(((v - lo) * (_BUCKETS / (hi - lo))).astype(np.intp), _BUCKETS - 1)
+    bw = np.bincount(b, weights=w, minlength=_BUCKETS)
+    cum_b = np.cumsum(bw)
+    targets = qq.ravel() * cum_b[-1] * (1 - 1e-12)
+    out = np.empty(targets.size)
+    for t, target in enumerate(targets):
+        j = min(int(np.searchsorted(cum_b, target, side="left")), _BUCKETS - 1)
+        members = np.flatnonzero(b == j)
+        order = np.argsort(v[members], kind="stable")
+        before = cum_b[j - 1] if j > 0 else 0.0
+        cum = before + np.cumsum(w[members][order])
+        i = int(np.searchsorted(cum, target, side="left"))
+        if i >= members.size:  # the bucket sums rounded differently: sort after all
+            order = np.argsort(v, kind="stable")
+            i = int(np.searchsorted(np.cumsum(w[order]), target, side="left"))
+            out[t] = v[order][min(i, v.size - 1)]
+            continue
+        out[t] = v[members][order][i]
+    return out.reshape(qq.shape)
 
 
 def delta_e_stats(delta_e, weights) -> dict[str, float]:

@@ -43,6 +43,11 @@ STARTS = {
     "split": "the k-1 palette with its worst cluster split in two",
     "add": "the k-1 palette plus one k-means++ addition",
 }
+#: Lloyd steps on every distinct colour per size.  A sweep fits every size
+#: in the range, so it takes one step (the binned restarts have converged,
+#: and one step cannot raise the cost) where a single fit takes
+#: :data:`quantize.fitting.FINE_ITER`.
+SWEEP_FINE_ITER = 1
 SWEEP_FORMAT = "quantize.sweep"
 SWEEP_VERSION = 1
 
@@ -269,13 +274,13 @@ def _add_one(points, weights, res, fixed, rng):
     return INITS["k-means++"](points, weights, len(res.centres) + 1, res.centres, rng)
 
 
-def _run_from(points, weights, start, fixed):
-    from .clustering import kmeans
+def _run_from(points, weights, start, n_fixed, abs_tol, max_iter=300):
+    from .clustering import lloyd_from
 
-    return kmeans(points, len(start), weights=weights, fixed=fixed, init_centres=start)
+    return lloyd_from(points, weights, start, n_fixed=n_fixed, max_iter=max_iter, abs_tol=abs_tol)
 
 
-def _guarded(points, weights, start, fixed):
+def _guarded(points, weights, start, n_fixed, abs_tol):
     """Lloyd from ``start``, or ``start`` itself if rounding made Lloyd end higher.
 
     The cost of ``start`` (old centres plus one) is at most the old cost
@@ -285,7 +290,7 @@ def _guarded(points, weights, start, fixed):
     from ._kernels import assign_nearest
     from .clustering import KMeansResult
 
-    res = _run_from(points, weights, start, fixed)
+    res = _run_from(points, weights, start, n_fixed, abs_tol, max_iter=SWEEP_FINE_ITER)
     labels, d2 = assign_nearest(points, start)
     c0 = float((weights * d2).sum())
     if res.inertia <= c0:
@@ -305,7 +310,7 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     """
     from .colourspace import srgb8_to_space
     from .fitting import finish_palette
-    from .clustering import PaletteSizeWarning, kmeans
+    from .clustering import PaletteSizeWarning, kmeans, tolerance_scale
     from .mapping import map_sample
     from .measure import coverage_percent, delta_e_stats
     from .palette import Palette, parse_colour
@@ -320,6 +325,8 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     fixed = srgb8_to_space(fixed_rgb8, space) if n_fixed else None
     full_pts, full_w = sample.points(space), sample.weights
     bin_pts, bin_w = sample.binned(space)
+    full_tol = 1e-4 * tolerance_scale(full_pts, full_w)
+    bin_tol = 1e-4 * tolerance_scale(bin_pts, bin_w)
 
     rows, notes = [], []
     prev_coarse = prev_fine = None
@@ -335,17 +342,16 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
                                  ("add", _add_one(bin_pts, bin_w, prev_coarse, fixed, _rng(seed, k, 1)))):
                     if c0 is None or len(c0) != k:
                         continue
-                    cand = _run_from(bin_pts, bin_w, c0, fixed)
+                    cand = _run_from(bin_pts, bin_w, c0, n_fixed, bin_tol)
                     if cand.inertia < coarse.inertia:
                         coarse, start = cand, name
-            fine = kmeans(full_pts, len(coarse.centres), weights=full_w, fixed=fixed,
-                          init_centres=coarse.centres)
+            fine = _run_from(full_pts, full_w, coarse.centres, n_fixed, full_tol, max_iter=SWEEP_FINE_ITER)
             if warm and prev_fine is not None and len(prev_fine.centres) == k - 1 \
                     and fine.inertia > prev_fine.inertia:
                 # Binning can mislead the choice; one addition to the previous
                 # full-data solution cannot cost more than it did.
                 c0 = _add_one(full_pts, full_w, prev_fine, fixed, _rng(seed, k, 2))
-                alt = _guarded(full_pts, full_w, c0, fixed) if len(c0) == k else None
+                alt = _guarded(full_pts, full_w, c0, n_fixed, full_tol) if len(c0) == k else None
                 if alt is not None and alt.inertia <= fine.inertia:
                     fine, start = alt, "add"
         prev_coarse, prev_fine = coarse, fine

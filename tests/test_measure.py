@@ -42,3 +42,18 @@ def test_coverage_reports_unused_colours_as_zero():
     cov = coverage_percent([0, 0, 2], [1.0, 1.0, 2.0], 4)
     np.testing.assert_allclose(cov, [50.0, 0.0, 50.0, 0.0])
     assert cov.sum() == pytest.approx(100.0)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_large_inputs_select_the_same_quantiles_as_numpy(seed):
+    # Above 65 536 values the quantiles come from one sorted bucket each; the
+    # reference is numpy's inverted-CDF quantile over the repeated values
+    # (Hyndman & Fan 1996, definition 1), with ties and zero weights present.
+    rng = np.random.default_rng(seed)
+    n = 100_000
+    v = np.round(rng.gamma(2.0, 2.0, n), 2)
+    w = rng.integers(0, 6, n)
+    w[:3] = 1
+    q = [0.0, 0.01, 0.5, 0.95, 0.999, 1.0]
+    expect = np.quantile(np.repeat(v, w), q, method="inverted_cdf")
+    np.testing.assert_array_equal(weighted_quantile(v, w.astype(float), q), expect)
