@@ -41,6 +41,24 @@ def assign_euclid(points, centres, labels, dist2):
     """
     n, d = points.shape
     k = centres.shape[0]
+    if d == 3:  # colours: unrolled, the same sums in the same order
+        for i in range(n):
+            p0, p1, p2 = points[i, 0], points[i, 1], points[i, 2]
+            best = np.inf
+            arg = 0
+            for j in range(k):
+                u0 = p0 - centres[j, 0]
+                u1 = p1 - centres[j, 1]
+                u2 = p2 - centres[j, 2]
+                s = u0 * u0
+                s += u1 * u1
+                s += u2 * u2
+                if s < best:
+                    best = s
+                    arg = j
+            labels[i] = arg
+            dist2[i] = best
+        return
     for i in range(n):
         best = np.inf
         arg = 0

@@ -81,9 +81,12 @@ def _loading() -> bool:
 def _threads() -> int:
     # NUMBA_NUM_THREADS is what a batch worker sets to share the cores.
     try:
-        return max(1, int(os.environ.get("NUMBA_NUM_THREADS") or os.cpu_count() or 1))
+        return max(1, int(os.environ.get("NUMBA_NUM_THREADS") or _CPUS))
     except ValueError:
         return 1
+
+
+_CPUS = os.cpu_count() or 1
 
 
 _pool: dict = {}

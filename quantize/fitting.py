@@ -147,8 +147,9 @@ def _binned_delta_e(sample, pal, metric):
     return ciede2000_to(lab, pal.lab, labels), w
 
 
-def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust"):
-    """Turn k-means centres into the 8-bit palette a job writes.
+def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000",
+                   refine: str = "robust"):
+    """Turn k-means centres into the 8-bit palette a job writes (the binned phase).
 
     With ``refine="robust"`` two explicit refinements are tried on the
     binned sample (:meth:`ColourSample.binned`), each kept only if it lowers
@@ -162,48 +163,63 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
        (:func:`quantize.refine.median_polish`).  Mean ΔE grows with
        distance, not its square, so these move centres toward medians.
 
-    The palette kept is then mapped and measured on every distinct colour.
-    Below 20 000 distinct colours the binned sample is every distinct colour,
-    so the comparison is exact; above, cells of similar colours stand in for
-    their members in the comparison only.  The first ``len(fixed_rgb8)``
-    centres are locked.
+    Below 20 000 distinct colours the binned sample is every distinct
+    colour, so the comparison is exact; above, cells of similar colours
+    stand in for their members in the comparison only: the palette kept is
+    then mapped and measured on every distinct colour
+    (:func:`finish_palette`).  The first ``len(fixed_rgb8)`` centres are
+    locked.
 
     Returns
     -------
-    palette, merged, labels, delta_e, refined
-        ``merged``: rounding to 8 bits merged colours; ``labels`` and
-        ``delta_e`` per distinct colour; ``refined`` names the steps kept
-        ("", "robust", "median" or "robust+median").
+    palette, merged, refined
+        ``merged``: rounding to 8 bits merged colours; ``refined`` names the
+        steps kept ("", "robust", "median" or "robust+median").
     """
-    from .mapping import map_sample
     from .refine import ciede2000_medians, median_polish, robust_refine
 
     m = len(fixed_rgb8)
     pal, merged = _to_palette(centres, fixed_rgb8, space, m)
     steps = []
-    if refine != "none":
-        bin_pts, bin_w = sample.binned(space)
-        de, _ = _binned_delta_e(sample, pal, metric)
-        cost = float((bin_w * de).sum())
+    if refine == "none":
+        return pal, merged, ""
+    bin_pts, bin_w = sample.binned(space)
+    de, _ = _binned_delta_e(sample, pal, metric)
+    cost = float((bin_w * de).sum())
 
-        def medians():
-            if metric == "ciede2000":
-                return ciede2000_medians(sample.binned("lab")[0], bin_w, pal.lab, n_fixed=m, iters=15), "lab"
-            return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
+    def medians():
+        if metric == "ciede2000":
+            return ciede2000_medians(sample.binned("lab")[0], bin_w, pal.lab, n_fixed=m, iters=15), "lab"
+        return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
 
-        for name, make in (("robust", lambda: (robust_refine(bin_pts, bin_w, centres, n_fixed=m), None)),
-                           ("median", medians)):
-            c, c_space = make()
-            cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
-            if cpal.k != pal.k:
-                continue
-            cde, _ = _binned_delta_e(sample, cpal, metric)
-            ccost = float((bin_w * cde).sum())
-            if ccost < cost:
-                pal, merged, cost = cpal, cmerged, ccost
-                steps.append(name)
+    for name, make in (("robust", lambda: (robust_refine(bin_pts, bin_w, centres, n_fixed=m), None)),
+                       ("median", medians)):
+        c, c_space = make()
+        cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
+        if cpal.k != pal.k:
+            continue
+        cde, _ = _binned_delta_e(sample, cpal, metric)
+        ccost = float((bin_w * cde).sum())
+        if ccost < cost:
+            pal, merged, cost = cpal, cmerged, ccost
+            steps.append(name)
+    return pal, merged, "+".join(steps)
+
+
+def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust"):
+    """:func:`refine_palette`, then map and measure every distinct colour.
+
+    Returns
+    -------
+    palette, merged, labels, delta_e, refined
+        As :func:`refine_palette`, with ``labels`` and ``delta_e`` per
+        distinct colour.
+    """
+    from .mapping import map_sample
+
+    pal, merged, refined = refine_palette(sample, centres, fixed_rgb8, space=space, metric=metric, refine=refine)
     labels, de = map_sample(sample, pal, metric=metric)
-    return pal, merged, labels, de, "+".join(steps)
+    return pal, merged, labels, de, refined
 
 
 def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0, locked=(),

@@ -298,6 +298,21 @@ def _guarded(points, weights, start, n_fixed, abs_tol):
     return KMeansResult(centres=start, labels=labels, inertia=c0, n_iter=0, history=(c0,), k_requested=len(start))
 
 
+def _measure_row(sample, pal, metric, per_image) -> dict:
+    """ΔE00 statistics, robust error and coverage of one sweep row on every distinct colour."""
+    from .mapping import map_sample
+    from .measure import coverage_percent, delta_e_stats
+    from .selection import robust_error
+
+    labels, de = map_sample(sample, pal, metric=metric)
+    w = sample.weights
+    per = {}
+    for src, smp in per_image:
+        per[src] = delta_e_stats(map_sample(smp, pal, metric=metric)[1], smp.weights)
+    return dict(delta_e=delta_e_stats(de, w), robust=robust_error(de, w),
+                coverage=coverage_percent(labels, w, pal.k), per_image=per)
+
+
 def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int = 8, seed=0,
                  locked=(), init: str = "k-means++", metric: str = "ciede2000", refine: str = "robust",
                  warm: bool = True, rule: str = "bic", target: float | None = None, target_stat: str = "mean",
@@ -308,13 +323,13 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     own ΔE00 is measured against each row's palette.  Other parameters as
     in :func:`sweep`.
     """
-    from .colourspace import srgb8_to_space
-    from .fitting import finish_palette
+    from concurrent.futures import ThreadPoolExecutor
+
     from .clustering import PaletteSizeWarning, kmeans, tolerance_scale
-    from .mapping import map_sample
-    from .measure import coverage_percent, delta_e_stats
+    from .colourspace import srgb8_to_space
+    from .fitting import refine_palette
     from .palette import Palette, parse_colour
-    from .selection import choose_k, robust_error
+    from .selection import choose_k
 
     fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
     if len({tuple(c) for c in fixed_rgb8}) != len(fixed_rgb8):
@@ -328,49 +343,53 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     full_tol = 1e-4 * tolerance_scale(full_pts, full_w)
     bin_tol = 1e-4 * tolerance_scale(bin_pts, bin_w)
 
-    rows, notes = [], []
+    rows, notes, pending = [], [], []
     prev_coarse = prev_fine = None
-    for k in ks:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", PaletteSizeWarning)
-            coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=_rng(seed, k, 0),
-                            fixed=fixed, init=init)
-            start = "fresh"
-            warm_ok = warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1
-            if warm_ok:
-                for name, c0 in (("split", _split_worst(bin_pts, bin_w, prev_coarse, n_fixed)),
-                                 ("add", _add_one(bin_pts, bin_w, prev_coarse, fixed, _rng(seed, k, 1)))):
-                    if c0 is None or len(c0) != k:
-                        continue
-                    cand = _run_from(bin_pts, bin_w, c0, n_fixed, bin_tol)
-                    if cand.inertia < coarse.inertia:
-                        coarse, start = cand, name
-            fine = _run_from(full_pts, full_w, coarse.centres, n_fixed, full_tol, max_iter=SWEEP_FINE_ITER)
-            if warm and prev_fine is not None and len(prev_fine.centres) == k - 1 \
-                    and fine.inertia > prev_fine.inertia:
-                # Binning can mislead the choice; one addition to the previous
-                # full-data solution cannot cost more than it did.
-                c0 = _add_one(full_pts, full_w, prev_fine, fixed, _rng(seed, k, 2))
-                alt = _guarded(full_pts, full_w, c0, n_fixed, full_tol) if len(c0) == k else None
-                if alt is not None and alt.inertia <= fine.inertia:
-                    fine, start = alt, "add"
-        prev_coarse, prev_fine = coarse, fine
-        # The same explicit refinements as quantize.fitting: the k-means cost
-        # is reported, the refined palette is what a job would print.
-        pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
-                                                          metric=metric, refine=refine)
-        if pal.k < k:
-            notes.append(f"k = {k}: rounding to 8 bits merged colours; the palette has {pal.k}")
-        pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
-        per = {}
-        for src, smp in per_image:
-            _, de_i = map_sample(smp, pal, metric=metric)
-            per[src] = delta_e_stats(de_i, smp.weights)
-        rows.append(dict(k=k, palette=pal, cost=float(fine.inertia), delta_e=delta_e_stats(de, full_w),
-                         robust=robust_error(de, full_w), start=start,
-                         coverage=coverage_percent(labels, full_w, pal.k), per_image=per))
-        if progress:
-            progress(k)
+    measurer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="quantize-sweep")
+    try:
+        for k in ks:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", PaletteSizeWarning)
+                coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=_rng(seed, k, 0),
+                                fixed=fixed, init=init)
+                start = "fresh"
+                warm_ok = warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1
+                if warm_ok:
+                    for name, c0 in (("split", _split_worst(bin_pts, bin_w, prev_coarse, n_fixed)),
+                                     ("add", _add_one(bin_pts, bin_w, prev_coarse, fixed, _rng(seed, k, 1)))):
+                        if c0 is None or len(c0) != k:
+                            continue
+                        cand = _run_from(bin_pts, bin_w, c0, n_fixed, bin_tol)
+                        if cand.inertia < coarse.inertia:
+                            coarse, start = cand, name
+                fine = _run_from(full_pts, full_w, coarse.centres, n_fixed, full_tol, max_iter=SWEEP_FINE_ITER)
+                if warm and prev_fine is not None and len(prev_fine.centres) == k - 1 \
+                        and fine.inertia > prev_fine.inertia:
+                    # Binning can mislead the choice; one addition to the previous
+                    # full-data solution cannot cost more than it did.
+                    c0 = _add_one(full_pts, full_w, prev_fine, fixed, _rng(seed, k, 2))
+                    alt = _guarded(full_pts, full_w, c0, n_fixed, full_tol) if len(c0) == k else None
+                    if alt is not None and alt.inertia <= fine.inertia:
+                        fine, start = alt, "add"
+            prev_coarse, prev_fine = coarse, fine
+            # The same explicit refinements as quantize.fitting: the k-means cost
+            # is reported, the refined palette is what a job would print.
+            pal, merged, refined = refine_palette(sample, fine.centres, fixed_rgb8, space=space, metric=metric,
+                                                  refine=refine)
+            if pal.k < k:
+                notes.append(f"k = {k}: rounding to 8 bits merged colours; the palette has {pal.k}")
+            pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
+            # Measuring a size on every distinct colour needs nothing from the
+            # next size: it runs on a second core while the next size is fitted.
+            pending.append((dict(k=k, palette=pal, cost=float(fine.inertia), start=start),
+                            measurer.submit(_measure_row, sample, pal, metric, per_image)))
+            if progress:
+                progress(k)
+        for row, job in pending:
+            row.update(job.result())
+            rows.append(row)
+    finally:
+        measurer.shutdown(cancel_futures=True)
 
     kk = [r["k"] for r in rows]
     stats = [r["delta_e"] for r in rows]

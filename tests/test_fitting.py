@@ -5,7 +5,6 @@ flat colours has an N-colour palette of zero error); ΔE00 values are
 computed with skimage.color.deltaE_ciede2000 as an independent reference.
 """
 
-import warnings
 
 import numpy as np
 import pytest
@@ -13,7 +12,6 @@ from skimage.color import deltaE_ciede2000, rgb2lab
 
 from quantize import fit_palette
 from quantize.colourspace import srgb_to_lab
-from quantize.images import as_picture
 from quantize.clustering import PaletteSizeWarning
 
 from artwork import flat_artwork
