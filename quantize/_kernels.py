@@ -33,12 +33,6 @@ _state: dict = {}
 
 
 def _load():
-    import sys
-
-    # The load is mostly interpreter work: hand the lock back to the thread
-    # that is decoding and sampling the image every 0.5 ms instead of 5 ms.
-    interval = sys.getswitchinterval()
-    sys.setswitchinterval(min(interval, 5e-4))
     try:
         from . import _engine_kernels as ek
 
@@ -60,8 +54,6 @@ def _load():
         gc.freeze()
     except BaseException as exc:  # re-raised in the caller's thread by _kernels()
         _state["error"] = exc
-    finally:
-        sys.setswitchinterval(interval)
 
 
 def warm_up() -> None:

@@ -140,10 +140,10 @@ def _binned_delta_e(sample, pal, metric):
     """ΔE00 of every binned cell to its palette colour, and the cells' weights."""
     from ._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
 
-    lab, w = sample.binned("lab")
+    lab, w = sample.binned("lab", bits=None)
     if metric == "ciede2000":
         return nearest_ciede2000(lab, pal.lab)[1], w
-    labels = assign_nearest(sample.binned(pal.space)[0], pal.points())[0]
+    labels = assign_nearest(sample.binned(pal.space, bits=None)[0], pal.points())[0]
     return ciede2000_to(lab, pal.lab, labels), w
 
 
@@ -183,13 +183,16 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     steps = []
     if refine == "none":
         return pal, merged, ""
-    bin_pts, bin_w = sample.binned(space)
+    # The finest cell grid within the point budget: the refinements compare
+    # mean ΔE00, which needs a closer stand-in than the restarts do.
+    bin_pts, bin_w = sample.binned(space, bits=None)
     de, _ = _binned_delta_e(sample, pal, metric)
     cost = float((bin_w * de).sum())
 
     def medians():
         if metric == "ciede2000":
-            return ciede2000_medians(sample.binned("lab")[0], bin_w, pal.lab, n_fixed=m, iters=15), "lab"
+            return ciede2000_medians(sample.binned("lab", bits=None)[0], bin_w, pal.lab, n_fixed=m,
+                                     iters=15), "lab"
         return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
 
     for name, make in (("robust", lambda: (robust_refine(bin_pts, bin_w, centres, n_fixed=m), None)),

@@ -182,35 +182,58 @@ class ColourSample:
             self._points[space] = np.ascontiguousarray(pts, dtype=np.float64)
         return self._points[space]
 
-    def binned(self, space: str, *, max_points: int = 20_000) -> tuple[np.ndarray, np.ndarray]:
-        """Weighted cell means for the restarts.
+    def binned(self, space: str, *, max_points: int = 20_000, bits: int | None = _BIN_BITS
+               ) -> tuple[np.ndarray, np.ndarray]:
+        """Weighted cell means: a small stand-in for the distinct colours.
 
-        Colours are grouped by the top five bits of each sRGB channel; each
-        cell becomes one point at the weighted mean of its members' perceptual
-        coordinates, carrying their total weight.  Below ``max_points``
-        distinct colours nothing is binned.
+        Colours are grouped by the top ``bits`` bits of each sRGB channel;
+        each cell becomes one point at the weighted mean of its members'
+        perceptual coordinates, carrying their total weight.  Below
+        ``max_points`` distinct colours nothing is binned.
+
+        Parameters
+        ----------
+        space : str
+            Perceptual space of the cell means.
+        max_points : int, default=20000
+        bits : int or None, default=5
+            Bits per channel.  The restarts use 5 (at most 32 768 cells).
+            None takes the finest grid, 7 bits down to 5, with at most
+            ``max_points`` cells: the refinements use that.
 
         Returns
         -------
         points : ndarray of shape (m, 3)
         weights : ndarray of shape (m,)
         """
-        key = ("binned", space, max_points)
+        key = ("binned", space, max_points, bits)
         if key in self._points:
             return self._points[key]
         pts = self.points(space)
         if self.n_colours <= max_points:
             return pts, self.weights
-        shift = self.bit_depth - _BIN_BITS
-        c = self.codes.astype(np.int64) >> shift
-        cell = (c[:, 0] << (2 * _BIN_BITS)) | (c[:, 1] << _BIN_BITS) | c[:, 2]
-        cells, inv = np.unique(cell, return_inverse=True)
-        w = np.bincount(inv, weights=self.weights, minlength=cells.size)
-        means = np.empty((cells.size, pts.shape[1]))
+        inv, n_cells = self._cells(max_points, bits)
+        w = np.bincount(inv, weights=self.weights, minlength=n_cells)
+        means = np.empty((n_cells, pts.shape[1]))
         for j in range(pts.shape[1]):
-            means[:, j] = np.bincount(inv, weights=self.weights * pts[:, j], minlength=cells.size) / w
+            means[:, j] = np.bincount(inv, weights=self.weights * pts[:, j], minlength=n_cells) / w
         self._points[key] = (means, w)  # every palette size and refinement reuses it
         return means, w
+
+    def _cells(self, max_points: int, bits: int | None) -> tuple[np.ndarray, int]:
+        """Cell of every distinct colour (numbered in code order) and the cell count."""
+        key = ("cells", max_points, bits)
+        if key in self._points:
+            return self._points[key]
+        for b in ((bits,) if bits is not None else (7, 6, _BIN_BITS)):
+            shift = self.bit_depth - b
+            c = self.codes.astype(np.int64) >> shift
+            cell = (c[:, 0] << (2 * b)) | (c[:, 1] << b) | c[:, 2]
+            cells, inv = np.unique(cell, return_inverse=True)
+            if cells.size <= max_points or bits is not None:
+                break
+        self._points[key] = (inv.ravel(), int(cells.size))
+        return self._points[key]
 
 
 def _pack(rgb: np.ndarray, bit_depth: int) -> np.ndarray:
