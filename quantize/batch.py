@@ -26,7 +26,6 @@ unless an ``exclude`` pattern removes it from the inputs.
 from __future__ import annotations
 
 import csv
-import fnmatch
 import hashlib
 import io
 import json
@@ -34,18 +33,18 @@ import os
 import time
 import warnings
 from dataclasses import dataclass, field
-from pathlib import Path, PurePosixPath
-from typing import Callable, Iterable, Iterator, Sequence
+from pathlib import Path
+from typing import Callable, Sequence
 
 import numpy as np
 
+from .batch_files import DEFAULT_INCLUDE, _check_folders, _check_patterns, discover_images
+from .batch_workers import _executor, _one_line
 from .errors import OutputError, QuantizeError
 
 __all__ = ["discover_images", "run_batch", "BatchResult", "DEFAULT_INCLUDE", "FORMATS", "MANIFEST_JSON",
            "MANIFEST_CSV", "SHARED_PALETTE"]
 
-#: Patterns an image file must match when ``include`` is not given.
-DEFAULT_INCLUDE = ("*.png", "*.jpg", "*.jpeg", "*.tif", "*.tiff", "*.bmp", "*.gif", "*.webp")
 #: Output file types.
 FORMATS = ("png", "tif", "jpg")
 MANIFEST_JSON = "manifest.json"
@@ -83,111 +82,6 @@ class BatchResult:
     def failed(self) -> int:
         """Number of images that failed."""
         return self.summary["failed"]
-
-
-# --------------------------------------------------------------------------- discovery
-
-def _parts_match(rel: PurePosixPath, patterns: Sequence[str], *, whole_tree: bool) -> bool:
-    """Does a relative path match a pattern (case-insensitively)?
-
-    A pattern without ``/`` matches the file name, or with ``whole_tree`` any
-    folder name on the way; one with ``/`` matches the relative path (or, with
-    ``whole_tree``, any of its leading folders), and there ``*`` may cross ``/``.
-    """
-    parts = [p.lower() for p in rel.parts]
-    names = parts if whole_tree else parts[-1:]
-    paths = ["/".join(parts[:i]) for i in range(1, len(parts) + 1)] if whole_tree else ["/".join(parts)]
-    for pat in patterns:
-        p = pat.lower().strip("/")
-        pool = paths if "/" in p else names
-        if any(fnmatch.fnmatchcase(s, p) for s in pool):
-            return True
-    return False
-
-
-def _check_patterns(patterns, what):
-    out = tuple(patterns)
-    for p in out:
-        if not isinstance(p, str) or not p.strip("/ "):
-            raise ValueError(f"{what} pattern {p!r} is empty")
-    return out
-
-
-def discover_images(input_dir, *, include: Sequence[str] | None = None, exclude: Sequence[str] = (),
-                    skip: Iterable = ()) -> list[PurePosixPath]:
-    """Image files under ``input_dir``, recursively, as sorted relative paths.
-
-    Parameters
-    ----------
-    input_dir : path-like
-        The folder to search.
-    include : sequence of str, optional
-        Glob patterns a file must match (default :data:`DEFAULT_INCLUDE`).
-        A pattern without ``/`` matches the file name at any depth; one with
-        ``/`` matches the path relative to ``input_dir`` (``*`` may cross
-        folders there).  Matching ignores case.
-    exclude : sequence of str, default=()
-        Glob patterns that remove files; a pattern that matches a folder (by
-        name, or by relative path if it has ``/``) removes everything in it.
-    skip : iterable of path-like, default=()
-        Folders never entered (the output folder).
-
-    Returns
-    -------
-    list of PurePosixPath
-        Hidden files and folders (names starting with ``.``) are left out.
-        Symbolic links to folders are not followed.
-
-    Raises
-    ------
-    QuantizeError
-        ``input_dir`` is missing or not a folder.
-
-    Examples
-    --------
-    >>> discover_images("sample_images", include=["*.png"])  # doctest: +SKIP
-    [PurePosixPath('poster_six_inks.png')]
-    """
-    root = Path(input_dir)
-    if not root.is_dir():
-        raise QuantizeError(f"{root}: {'is not a folder' if root.exists() else 'no such folder'}")
-    include = _check_patterns(DEFAULT_INCLUDE if include is None or not len(include) else include, "include")
-    exclude = _check_patterns(exclude, "exclude")
-    skip_real = {Path(s).resolve() for s in skip}
-    found = []
-    for here, dirs, files in os.walk(root, followlinks=False):
-        base = Path(here)
-        rel_base = PurePosixPath(base.relative_to(root).as_posix())
-        keep = []
-        for d in sorted(dirs):
-            rel = rel_base / d
-            if d.startswith(".") or (base / d).resolve() in skip_real or _parts_match(rel, exclude, whole_tree=True):
-                continue
-            keep.append(d)
-        dirs[:] = keep
-        for f in sorted(files):
-            rel = rel_base / f
-            if f.startswith("."):
-                continue
-            if _parts_match(rel, include, whole_tree=False) and not _parts_match(rel, exclude, whole_tree=True):
-                found.append(rel)
-    return sorted(found)
-
-
-def _check_folders(input_dir: Path, output_dir: Path, exclude) -> None:
-    """Refuse an output folder that would be read back as input, or would hold the input."""
-    src, dst = input_dir.resolve(), output_dir.resolve()
-    if src == dst:
-        raise QuantizeError(f"{output_dir}: is the input folder; outputs must go to a separate folder")
-    if src.is_relative_to(dst):
-        raise QuantizeError(f"{output_dir}: contains the input folder {input_dir}; choose an output folder "
-                            "outside it")
-    if dst.is_relative_to(src):
-        rel = PurePosixPath(dst.relative_to(src).as_posix())
-        if not _parts_match(rel, exclude, whole_tree=True):
-            raise QuantizeError(f"{output_dir}: is inside the input folder {input_dir}, so its images would be "
-                                f"read back as inputs; choose a folder outside it or exclude it "
-                                f"(--exclude '{rel}')")
 
 
 # --------------------------------------------------------------------------- settings and manifest
@@ -276,29 +170,12 @@ def _consistency(rows, palette, worst: int) -> dict:
 
 # --------------------------------------------------------------------------- per-image work (runs in workers)
 
-def _init_worker(threads: int) -> None:
-    # Spawned workers import numba fresh, so this caps the thread pool of any
-    # parallel kernel: two workers with two threads each on two cores only
-    # fight over the cores.
-    for var in ("NUMBA_NUM_THREADS", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ[var] = str(threads)
-
-
 def _peak_mb() -> float | None:
     try:
         import resource
     except ImportError:  # pragma: no cover - not on Windows
         return None
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
-
-
-def _one_line(exc: BaseException) -> str:
-    text = (str(exc) or exc.__class__.__name__).splitlines()[0]
-    if isinstance(exc, MemoryError):
-        return "out of memory while processing this image"
-    if isinstance(exc, (QuantizeError, ValueError, OSError)):
-        return text
-    return f"internal error ({exc.__class__.__name__}: {text}); please report it"
 
 
 def _notes(caught) -> list[str]:
@@ -422,99 +299,6 @@ def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
         pal = fit_palette(sample, k=k, space=space, seed=seed, restarts=restarts, weighting=weighting)
     pal.fit["images"] = n_images
     return pal
-
-
-# --------------------------------------------------------------------------- executors
-
-_DEAD_WORKER = ("a worker process stopped unexpectedly (out of memory, or a script that starts a batch "
-                "outside an `if __name__ == '__main__':` block)")
-
-
-def _local_map(fn, items: list, extra: tuple, workers: int) -> Iterator[tuple[dict, object]]:
-    """Yield (item, result) with at most ``workers`` items in flight; a dead worker fails its item."""
-    import multiprocessing
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-    from concurrent.futures.process import BrokenProcessPool
-
-    threads = max(1, (os.cpu_count() or 1) // workers)
-    todo = list(reversed(items))
-    while todo:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                                 initializer=_init_worker, initargs=(threads,)) as ex:
-            pending = {}
-            broken = False
-            while todo or pending:
-                while todo and len(pending) < workers and not broken:
-                    item = todo.pop()
-                    try:
-                        pending[ex.submit(fn, item, *extra)] = item
-                    except BrokenProcessPool:
-                        todo.append(item)
-                        broken = True
-                if not pending:
-                    break
-                done, _ = wait(pending, return_when=FIRST_COMPLETED)
-                for f in done:
-                    item = pending.pop(f)
-                    try:
-                        yield item, f.result()
-                    except BrokenProcessPool:
-                        broken = True
-                        yield item, RuntimeError(_DEAD_WORKER)
-                if broken and not pending:
-                    break  # start a fresh pool for what is left
-
-
-def _dask_client(cluster):
-    try:
-        from dask.distributed import Client
-    except ImportError:
-        raise QuantizeError("--cluster needs dask.distributed; install it with: pip install 'quantize[dask]'") \
-            from None
-    address = getattr(cluster, "scheduler_address", cluster)
-    try:
-        return Client(address, timeout="20s", set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
-        raise QuantizeError(f"cannot reach the Dask scheduler at {address} ({_one_line(exc)})") from None
-
-
-def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, object]]:
-    """Yield (item, result) from a Dask cluster, one item in flight per worker thread."""
-    from dask.distributed import as_completed
-
-    slots = max(1, sum(client.nthreads().values()))
-    todo = list(reversed(items))
-    owner = {}
-    ac = as_completed(loop=client.loop)
-    while todo and len(owner) < slots:
-        item = todo.pop()
-        fut = client.submit(fn, item, *extra, pure=False)
-        owner[fut.key] = item
-        ac.add(fut)
-    for fut in ac:
-        item = owner.pop(fut.key)
-        try:
-            result = fut.result()
-        except Exception as exc:  # noqa: BLE001 - a lost worker or a task error fails this image only
-            result = exc
-        fut.release()
-        yield item, result
-        if todo:
-            nxt = todo.pop()
-            f2 = client.submit(fn, nxt, *extra, pure=False)
-            owner[f2.key] = nxt
-            ac.add(f2)
-
-
-def _executor(cluster, workers):
-    """(Dask client or None, mapper); ``mapper(fn, items, extra)`` yields (item, result)."""
-    if cluster is not None:
-        client = _dask_client(cluster)
-        return client, lambda fn, items, extra: _dask_map(client, fn, items, extra)
-    if workers == 0:
-        return None, lambda fn, items, extra: ((it, fn(it, *extra)) for it in items)
-    n_workers = workers or os.cpu_count() or 1
-    return None, lambda fn, items, extra: _local_map(fn, items, extra, n_workers)
 
 
 # --------------------------------------------------------------------------- the run

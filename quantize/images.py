@@ -49,7 +49,6 @@ from __future__ import annotations
 
 import contextlib
 import functools
-import io
 import os
 import struct
 import sys
@@ -64,7 +63,7 @@ from typing import Union
 import numpy as np
 from PIL import Image, ImageOps
 
-from quantize._icc import _LUT_TAGS, _apply_matrix_trc, _icc_tags, _matrix_trc  # noqa: F401
+from quantize._icc import _convert_8bit, _convert_deep, _short  # noqa: F401
 from quantize.errors import ImageReadError, QuantizeError
 
 __all__ = [
@@ -697,100 +696,6 @@ def _picture_from_array(arr: np.ndarray) -> Picture:
 # --------------------------------------------------------------------------- ICC
 
 @functools.lru_cache(maxsize=1)
-def _srgb_profile():
-    from PIL import ImageCms
-
-    return ImageCms.createProfile("sRGB")
-
-
-def _load_profile(icc: bytes, name: str, notes: list[_Note]):
-    from PIL import ImageCms
-
-    try:
-        profile = ImageCms.ImageCmsProfile(io.BytesIO(icc))
-        desc = ImageCms.getProfileDescription(profile).strip() or "unnamed profile"
-    except (ImageCms.PyCMSError, OSError, ValueError, TypeError) as exc:
-        notes.append((ProfileWarning, f"{name}: embedded ICC profile is unreadable ({_short(exc)}); pixels treated as sRGB"))
-        return None, None
-    return profile, desc
-
-
-def _short(exc: BaseException) -> str:
-    return (str(exc).splitlines() or [type(exc).__name__])[0][:100]
-
-
-def _convert_8bit(base: Image.Image, icc: bytes | None, name: str, notes: list[_Note]):
-    """Pillow image in L, RGB or CMYK -> ((H, W, 3) uint8 sRGB, profile description)."""
-    if icc:
-        from PIL import ImageCms
-
-        profile, desc = _load_profile(icc, name, notes)
-        if profile is not None:
-            try:
-                if base.mode != "L":
-                    transform = ImageCms.buildTransform(
-                        profile, _srgb_profile(), base.mode, "RGB",
-                        renderingIntent=ImageCms.Intent.RELATIVE_COLORIMETRIC,
-                    )  # fmt: skip
-                    return np.asarray(ImageCms.applyTransform(base, transform)), desc
-                # LittleCMS's optimised grey->RGB transform resamples the curve on a
-                # coarse grid, which puts shadows up to 10 codes off for a linear grey
-                # TRC (LittleCMS 2.19). Converting the 256 levels unoptimised is exact and cheap.
-                transform = ImageCms.buildTransform(
-                    profile, _srgb_profile(), "L", "RGB",
-                    renderingIntent=ImageCms.Intent.RELATIVE_COLORIMETRIC, flags=ImageCms.Flags.NOOPTIMIZE,
-                )  # fmt: skip
-                ramp = Image.frombytes("L", (256, 1), bytes(range(256)))
-                return np.asarray(ImageCms.applyTransform(ramp, transform))[0][np.asarray(base)], desc
-            except (ImageCms.PyCMSError, ValueError, OSError) as exc:
-                notes.append((
-                    ProfileWarning,
-                    f"{name}: embedded ICC profile {desc!r} cannot convert {base.mode} pixels "
-                    f"({_short(exc)}); pixels treated as sRGB",
-                ))
-    elif base.mode == "CMYK":
-        notes.append((
-            ProfileWarning,
-            f"{name}: CMYK image without an embedded ICC profile; converted with Pillow's naive "
-            "formula, so colours are approximate",
-        ))
-    return np.asarray(base if base.mode == "RGB" else base.convert("RGB")), None
-
-
-def _convert_deep(values: np.ndarray, icc: bytes | None, name: str, notes: list[_Note]):
-    """(H, W, 1|3) uint16 -> (colour, bit_depth, profile description)."""
-    if not icc:
-        return values, 16, None
-    profile, desc = _load_profile(icc, name, notes)
-    if profile is None:
-        return values, 16, None
-    space = b"GRAY" if values.shape[2] == 1 else b"RGB "
-    if icc[16:20] != space:
-        notes.append((
-            ProfileWarning,
-            f"{name}: embedded ICC profile {desc!r} is for {icc[16:20].decode('latin-1').strip()} data, "
-            f"not {space.decode().strip()}; pixels treated as sRGB",
-        ))
-        return values, 16, None
-    model = _matrix_trc(icc)
-    if model is not None:
-        return _apply_matrix_trc(values, *model), 16, desc
-    notes.append((
-        ProfileWarning,
-        f"{name}: ICC profile {desc!r} is table-based and Pillow's LittleCMS converts colour only at "
-        "8 bits; the 16-bit data were reduced to 8 bits before conversion",
-    ))
-    v8 = _to_8bit(values)
-    base = Image.fromarray(v8[..., 0] if values.shape[2] == 1 else v8)
-    colour, desc = _convert_8bit(base, icc, name, notes)
-    return colour, 8, desc
-
-
-# LittleCMS uses a LUT tag, when one is present, in preference to the matrix.
-
-
-
-
 def __getattr__(name: str):
     # save_image and the atomic writers live in quantize.output (which imports
     # this module); resolving them on first use avoids an import cycle.

@@ -622,7 +622,9 @@ def test_grey_profile_on_16_bit_rgb_is_refused(tmp_path):
 
 def test_table_profile_on_16_bit_is_converted_at_8_bits(tmp_path, monkeypatch):
     # Stands in for a LUT-based profile: the matrix/TRC reader declines it.
-    monkeypatch.setattr(images, "_matrix_trc", lambda icc: None)
+    from quantize import _icc
+
+    monkeypatch.setattr(_icc, "_matrix_trc", lambda icc: None)
     values = _rng().integers(0, 65536, (6, 6, 3), dtype=np.uint16)
     profile = _adobe_rgb_profile()
     path = tmp_path / "lut16.png"
