@@ -121,11 +121,23 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
     """
     from ._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
 
+    # The last mapping is kept with the sample: fitting measures the palette
+    # it returns, and applying that palette to the same picture would
+    # otherwise repeat the work.
+    key = ("mapped", palette.rgb8.tobytes(), palette.space, metric)
+    last = sample._points.get("mapped")
+    if last is not None and last[0] == key:
+        return last[1], last[2]
     lab = sample.points("lab")
     if metric == "ciede2000":
-        return nearest_ciede2000(lab, palette.lab)
-    labels = assign_nearest(sample.points(palette.space), palette.points())[0]
-    return labels, ciede2000_to(lab, palette.lab, labels)
+        labels, de = nearest_ciede2000(lab, palette.lab)
+    else:
+        labels = assign_nearest(sample.points(palette.space), palette.points())[0]
+        de = ciede2000_to(lab, palette.lab, labels)
+    labels.setflags(write=False)
+    de.setflags(write=False)
+    sample._points["mapped"] = (key, labels, de)
+    return labels, de
 
 
 def map_picture(image, palette, *, dither: str = "none", metric: str | None = None,
