@@ -103,3 +103,37 @@ def test_compiled_euclidean_assignment_is_bit_identical_to_numpy():
     ref_labels, ref_d = naive.assign_nearest(pts, centres)
     assert_array_equal(lab_c, ref_labels)
     assert_allclose(d_c, ref_d, rtol=1e-12)
+
+
+def test_compiled_cluster_sums_are_bit_identical_to_bincount():
+    # While the compiled kernels load, the cluster sums come from np.bincount;
+    # a palette must not depend on which one ran.
+    rng = np.random.default_rng(8)
+    pts = rng.normal(size=(50_000, 3)) * 40
+    w = rng.integers(1, 1000, 50_000).astype(float) / 7.0
+    labels = rng.integers(0, 9, 50_000)
+    wsum, sums = _kernels.centre_sums(pts, w, labels, 9)
+    assert_array_equal(wsum, np.bincount(labels, weights=w, minlength=9))
+    for t in range(3):
+        assert_array_equal(sums[:, t], np.bincount(labels, weights=w * pts[:, t], minlength=9))
+
+
+def test_mapping_cache_is_keyed_by_palette_and_metric():
+    from quantize.images import as_picture
+    from quantize.mapping import map_sample
+    from quantize.palette import Palette
+    from quantize.sampling import sample_picture
+
+    rng = np.random.default_rng(2)
+    smp = sample_picture(as_picture(rng.integers(0, 256, (40, 40, 3)).astype(np.uint8)))
+    a = Palette(rgb8=np.array([[0, 0, 0], [255, 255, 255], [200, 30, 40]], np.uint8), locked=np.zeros(3, bool), space="lab")
+    b = Palette(rgb8=np.array([[0, 0, 0], [255, 255, 255], [30, 40, 200]], np.uint8), locked=np.zeros(3, bool), space="lab")
+    la, da = map_sample(smp, a, metric="ciede2000")
+    lb, db = map_sample(smp, b, metric="ciede2000")
+    ref_l, ref_d = naive.nearest_ciede2000(smp.points("lab"), b.lab)
+    assert_array_equal(lb, ref_l)
+    assert not np.array_equal(da, db)
+    la2, da2 = map_sample(smp, a, metric="ciede2000")
+    assert_array_equal(la2, la) and np.array_equal(da2, da)
+    ls, _ = map_sample(smp, a, metric="space")
+    assert_array_equal(ls, naive.assign_nearest(smp.points("lab"), a.points())[0])
