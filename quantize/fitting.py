@@ -186,6 +186,9 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     # The finest cell grid within the point budget: the refinements compare
     # mean ΔE00, which needs a closer stand-in than the restarts do.
     bin_pts, bin_w = sample.binned(space, bits=None)
+    # The robust refit needs no CIEDE2000, so it runs first: in a fresh
+    # process the compiled CIEDE2000 kernels may still be loading.
+    robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
     de, _ = _binned_delta_e(sample, pal, metric)
     cost = float((bin_w * de).sum())
 
@@ -195,8 +198,7 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
                                      iters=15), "lab"
         return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
 
-    for name, make in (("robust", lambda: (robust_refine(bin_pts, bin_w, centres, n_fixed=m), None)),
-                       ("median", medians)):
+    for name, make in (("robust", lambda: (robust, None)), ("median", medians)):
         c, c_space = make()
         cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
         if cpal.k != pal.k:
