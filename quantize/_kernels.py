@@ -32,7 +32,34 @@ _lock = threading.Lock()
 _state: dict = {}
 
 
+class _NoScipyLinalgHere:
+    """Import finder that declines ``scipy.linalg`` to the thread loading the kernels.
+
+    On its first compilation numba imports ``scipy.linalg`` (a sixth of a
+    second) only to learn whether BLAS is there for ``np.dot`` and
+    friends, which these kernels never call.  Declined, numba notes "no
+    BLAS": its ``np.correlate`` and ``np.convolve`` then use their own loop
+    in this process, and its linear algebra imports scipy when first
+    compiled.  Other threads, and this one after loading, import as usual.
+    """
+
+    def __init__(self, thread):
+        self.thread = thread
+
+    def find_spec(self, name, path=None, target=None):
+        if threading.current_thread() is self.thread and (name == "scipy.linalg"
+                                                          or name.startswith("scipy.linalg.")):
+            raise ModuleNotFoundError(f"{name} is not needed by quantize's kernels", name=name)
+        return None
+
+
 def _load():
+    import sys
+
+    finder = None
+    if "scipy.linalg" not in sys.modules:
+        finder = _NoScipyLinalgHere(threading.current_thread())
+        sys.meta_path.insert(0, finder)
     try:
         from . import _engine_kernels as ek
 
@@ -54,6 +81,9 @@ def _load():
         gc.freeze()
     except BaseException as exc:  # re-raised in the caller's thread by _kernels()
         _state["error"] = exc
+    finally:
+        if finder is not None:
+            sys.meta_path.remove(finder)
 
 
 def warm_up() -> None:

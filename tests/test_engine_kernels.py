@@ -148,3 +148,27 @@ def test_compiled_ciede2000_agrees_with_colour_science():
     ours = _kernels.ciede2000_to(a, b, np.arange(5000))
     ref = colour.delta_E(a, b, method="CIE 2000")
     assert_allclose(ours, ref, rtol=0, atol=1e-6)
+
+
+def test_kernel_load_leaves_scipy_and_numba_linear_algebra_working():
+    # The load declines scipy.linalg to its own thread only (numba asks for it
+    # to find BLAS); afterwards scipy imports and numba's np.dot compiles.
+    import subprocess
+    import sys
+
+    code = (
+        "import numpy as np, numba\n"
+        "from quantize import _kernels\n"
+        "_kernels.warm_up(); _kernels._kernels()\n"
+        "import scipy.linalg\n"
+        "@numba.njit\n"
+        "def f(a, b):\n"
+        "    return np.dot(a, b)\n"
+        "a = np.arange(6.0).reshape(2, 3)\n"
+        "assert np.allclose(f(a, a.T), a @ a.T)\n"
+        "assert np.allclose(scipy.linalg.inv(np.eye(2) * 2), np.eye(2) / 2)\n"
+        "print('ok')\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "ok"
