@@ -124,7 +124,7 @@ def main():
     args = ap.parse_args()
     out = Path(args.out)
     out.mkdir(exist_ok=True)
-    repeats = 1 if args.quick else 3
+    repeats = 1 if args.quick else 5
     print(f"# quantize engine benchmark, {time.strftime('%Y-%m-%d')}, "
           f"{platform.processor() or platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}\n")
 
