@@ -144,7 +144,12 @@ def _kernels():
     warm_up()
     _state["thread"].join()
     if "error" in _state:
-        raise RuntimeError(f"the compiled kernels failed to load: {_state['error']}") from _state["error"]
+        from .errors import QuantizeError
+
+        exc = _state["error"]
+        reason = (str(exc) or type(exc).__name__).splitlines()[0]
+        raise QuantizeError(f"the compiled kernels (numba) failed to load: {reason}; reinstall quantize "
+                            "with its dependencies (pip install --force-reinstall .)") from exc
     return _state["module"]
 
 #: Points per block: keeps the temporaries in cache.

@@ -172,3 +172,25 @@ def test_kernel_load_leaves_scipy_and_numba_linear_algebra_working():
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=False)
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == "ok"
+
+
+def test_a_kernel_load_failure_is_one_clear_line_on_the_command_line(monkeypatch, tmp_path):
+    # Stands in for a broken numba install: the load recorded an error.
+    import threading
+
+    from click.testing import CliRunner
+    from PIL import Image
+
+    from quantize.cli import main
+
+    done = threading.Thread(target=lambda: None)
+    done.start()
+    done.join()
+    monkeypatch.setattr(_kernels, "_state", {"thread": done, "error": ImportError("libllvmlite.so: cannot open")})
+    img = tmp_path / "in.png"
+    Image.fromarray(np.random.default_rng(0).integers(0, 256, (20, 20, 3)).astype(np.uint8)).save(img)
+    res = CliRunner().invoke(main, ["reduce", str(img), "-o", str(tmp_path / "out.png"), "-k", "3"])
+    assert res.exit_code == 1
+    assert "compiled kernels (numba) failed to load: libllvmlite.so: cannot open" in res.output
+    assert "Traceback" not in res.output
+    assert not (tmp_path / "out.png").exists()
