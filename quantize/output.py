@@ -83,8 +83,9 @@ def save_image(
     instead, and k > 256 an RGB(A) PNG. TIFF: RGB or RGBA (unassociated alpha),
     LZW-compressed. JPEG: RGB, quality 95, no chroma subsampling (4:4:4), so
     flat-colour edges stay crisp. No ICC profile is embedded; the values are sRGB.
-    Pillow writes PNG resolution as whole pixels per metre, so 300 dpi reads back
-    as 299.9994.
+    Indexed PNGs come from :mod:`quantize._png` (unfiltered rows, zlib level 6,
+    compressed on several threads), the others from Pillow. PNG records the
+    resolution as whole pixels per metre, so 300 dpi reads back as 299.9994.
 
     Examples
     --------
@@ -102,6 +103,12 @@ def save_image(
     idx, palette, a8 = _check_raster(indices, palette_rgb, alpha)
     dpi = _check_dpi(dpi)
     image, options, note = _plan_encoding(fmt, idx, palette, a8)
+    if image is None:  # an indexed PNG: quantize's own encoder (quantize._png)
+        from ._png import indexed_png
+
+        data = indexed_png(options["indices"], options["palette"], transparent=options["transparent"], dpi=dpi)
+        written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
+        return written
     if dpi is not None:
         options["dpi"] = dpi
     written = _atomic_write(target, lambda fh: image.save(fh, format=fmt, **options), force=force, inputs=inputs)
@@ -143,18 +150,20 @@ def _check_dpi(dpi) -> tuple[float, float] | None:
 
 
 def _plan_encoding(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None):
-    """The Pillow image to write, its save options and a warning (or None)."""
+    """The Pillow image to write, its save options and a warning (or None).
+
+    For an indexed PNG the image is None and the options hold the indices,
+    palette and transparent index for :func:`quantize._png.indexed_png`.
+    """
     k = len(palette)
     binary = a8 is None or bool(((a8 == 0) | (a8 == 255)).all())
     if fmt == "PNG" and binary and k + (a8 is not None) <= 256:
-        options = {}
+        transparent = None
         if a8 is not None:
             palette = np.vstack([palette, [[255, 255, 255]]]).astype(np.uint8)
             idx = np.where(a8 == 0, k, idx)
-            options["transparency"] = k
-        image = Image.frombytes("P", (idx.shape[1], idx.shape[0]), idx.astype(np.uint8).tobytes())
-        image.putpalette(palette.tobytes(), rawmode="RGB")
-        return image, options, None
+            transparent = k
+        return None, {"indices": idx.astype(np.uint8), "palette": palette, "transparent": transparent}, None
     rgb = palette[idx]
     if fmt == "JPEG":
         note = None

@@ -905,21 +905,28 @@ def test_bad_destinations(tmp_path, monkeypatch):
         save_image(tmp_path / "out.png", _indices(), PALETTE)
 
 
-def test_failed_write_leaves_nothing_behind(tmp_path, monkeypatch):
-    path = tmp_path / "out.png"
+@pytest.mark.parametrize("suffix", [".png", ".tif"])
+def test_failed_write_leaves_nothing_behind(tmp_path, monkeypatch, suffix):
+    # Indexed PNGs come from quantize's own encoder, TIFFs from Pillow: a disk
+    # that fills up half-way through either leaves the old file as it was.
+    path = tmp_path / f"out{suffix}"
     save_image(path, _indices(), PALETTE)
     before = path.read_bytes()
 
     def broken_save(self, fp, *args, **kwargs):
-        fp.write(b"\x89PNG half a file")
+        fp.write(b"II*\x00 half a file")
+        raise OSError(28, "No space left on device")
+
+    def broken_fsync(fd):
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(Image.Image, "save", broken_save)
+    monkeypatch.setattr(os, "fsync", broken_fsync)
     with pytest.raises(OutputError, match="No space left on device") as exc:
         save_image(path, np.zeros((12, 16), int), PALETTE, force=True)
     _one_line_naming(exc, path)
     assert path.read_bytes() == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.png"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == [path.name]
 
 
 def test_atomic_text_and_bytes(tmp_path):
