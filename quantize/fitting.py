@@ -157,9 +157,10 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
 
     1. a truncated-loss refit (:func:`quantize.refine.robust_refine`), for
        flat artwork whose anti-aliased edges would otherwise take a colour;
-    2. weighted k-medians steps from the better palette so far: under
-       CIEDE2000 (:func:`quantize.refine.ciede2000_medians`) when colours
-       are mapped by CIEDE2000, else in the fitting space
+    2. weighted k-medians steps from the better palette so far, and for
+       palettes of up to :data:`SECOND_START_K` colours from the other one
+       too: under CIEDE2000 (:func:`quantize.refine.ciede2000_medians`) when
+       colours are mapped by CIEDE2000, else in the fitting space
        (:func:`quantize.refine.median_polish`).  Mean ΔE grows with
        distance, not its square, so these move centres toward medians.
 
@@ -180,7 +181,7 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
 
     m = len(fixed_rgb8)
     pal, merged = _to_palette(centres, fixed_rgb8, space, m)
-    steps = []
+    steps = ""
     if refine == "none":
         return pal, merged, ""
     # The finest cell grid within the point budget: the refinements compare
@@ -192,23 +193,40 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     de, _ = _binned_delta_e(sample, pal, metric)
     cost = float((bin_w * de).sum())
 
-    def medians():
+    def medians(start):
         if metric == "ciede2000":
-            return ciede2000_medians(sample.binned("lab", bits=None)[0], bin_w, pal.lab, n_fixed=m,
+            return ciede2000_medians(sample.binned("lab", bits=None)[0], bin_w, start.lab, n_fixed=m,
                                      iters=15), "lab"
-        return median_polish(bin_pts, bin_w, pal.points(space), n_fixed=m), None
+        return median_polish(bin_pts, bin_w, start.points(space), n_fixed=m), None
 
-    for name, make in (("robust", lambda: (robust, None)), ("median", medians)):
-        c, c_space = make()
+    def consider(name, c, c_space):
+        nonlocal pal, merged, cost, steps
         cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
         if cpal.k != pal.k:
-            continue
+            return None
         cde, _ = _binned_delta_e(sample, cpal, metric)
         ccost = float((bin_w * cde).sum())
         if ccost < cost:
-            pal, merged, cost = cpal, cmerged, ccost
-            steps.append(name)
-    return pal, merged, "+".join(steps)
+            pal, merged, cost, steps = cpal, cmerged, ccost, name
+        return cpal
+
+    kmeans_pal = pal
+    robust_pal = consider("robust", robust, None)
+    # The k-medians start from the better palette so far, and for small
+    # palettes also from the other one: with few colours the local optima
+    # lie far apart, and a second start costs little.
+    starts = [pal]
+    other = kmeans_pal if pal is not kmeans_pal else robust_pal
+    if other is not None and len(centres) <= SECOND_START_K:
+        starts.append(other)
+    for start in starts:
+        consider("robust+median" if start is robust_pal else "median", *medians(start))
+    return pal, merged, steps
+
+
+#: Palettes up to this size start the k-medians steps from both the k-means
+#: and the robust palette (:func:`refine_palette`).
+SECOND_START_K = 8
 
 
 def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust"):

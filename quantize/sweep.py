@@ -298,18 +298,26 @@ def _guarded(points, weights, start, n_fixed, abs_tol):
     return KMeansResult(centres=start, labels=labels, inertia=c0, n_iter=0, history=(c0,), k_requested=len(start))
 
 
-def _measure_row(sample, pal, metric, per_image) -> dict:
-    """ΔE00 statistics, robust error and coverage of one sweep row on every distinct colour."""
+def _finish_row(sample, centres, fixed_rgb8, k, start, space, metric, refine, per_image) -> dict:
+    """One sweep row after its k-means fit: the refined palette and its figures on every distinct colour.
+
+    The same explicit refinements as :mod:`quantize.fitting`: the k-means
+    cost is reported, the refined palette is what a job would print.
+    """
+    from .fitting import refine_palette
     from .mapping import map_sample
     from .measure import coverage_percent, delta_e_stats
+    from .palette import Palette
     from .selection import robust_error
 
+    pal, _, refined = refine_palette(sample, centres, fixed_rgb8, space=space, metric=metric, refine=refine)
+    pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
     labels, de = map_sample(sample, pal, metric=metric)
     w = sample.weights
     per = {}
     for src, smp in per_image:
         per[src] = delta_e_stats(map_sample(smp, pal, metric=metric)[1], smp.weights)
-    return dict(delta_e=delta_e_stats(de, w), robust=robust_error(de, w),
+    return dict(palette=pal, delta_e=delta_e_stats(de, w), robust=robust_error(de, w),
                 coverage=coverage_percent(labels, w, pal.k), per_image=per)
 
 
@@ -327,8 +335,7 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
 
     from .clustering import PaletteSizeWarning, kmeans, tolerance_scale
     from .colourspace import srgb8_to_space
-    from .fitting import refine_palette
-    from .palette import Palette, parse_colour
+    from .palette import parse_colour
     from .selection import choose_k
 
     fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
@@ -345,7 +352,11 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
 
     rows, notes, pending = [], [], []
     prev_coarse = prev_fine = None
-    measurer = ThreadPoolExecutor(max_workers=1, thread_name_prefix="quantize-sweep")
+    # Cached on the sample before the worker threads share it.
+    sample.binned(space, bits=None)
+    sample.binned("lab", bits=None)
+    sample.points("lab")
+    measurer = ThreadPoolExecutor(max_workers=2, thread_name_prefix="quantize-sweep")
     try:
         for k in ks:
             with warnings.catch_warnings():
@@ -372,21 +383,18 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
                     if alt is not None and alt.inertia <= fine.inertia:
                         fine, start = alt, "add"
             prev_coarse, prev_fine = coarse, fine
-            # The same explicit refinements as quantize.fitting: the k-means cost
-            # is reported, the refined palette is what a job would print.
-            pal, merged, refined = refine_palette(sample, fine.centres, fixed_rgb8, space=space, metric=metric,
-                                                  refine=refine)
-            if pal.k < k:
-                notes.append(f"k = {k}: rounding to 8 bits merged colours; the palette has {pal.k}")
-            pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
-            # Measuring a size on every distinct colour needs nothing from the
-            # next size: it runs on a second core while the next size is fitted.
-            pending.append((dict(k=k, palette=pal, cost=float(fine.inertia), start=start),
-                            measurer.submit(_measure_row, sample, pal, metric, per_image)))
+            # Refining and measuring a size need nothing from the next size:
+            # they run on worker threads while the next size is fitted.
+            pending.append((dict(k=k, cost=float(fine.inertia), start=start),
+                            measurer.submit(_finish_row, sample, fine.centres, fixed_rgb8, k, start, space,
+                                            metric, refine, per_image)))
             if progress:
                 progress(k)
         for row, job in pending:
             row.update(job.result())
+            if row["palette"].k < row["k"]:
+                notes.append(f"k = {row['k']}: rounding to 8 bits merged colours; the palette has "
+                             f"{row['palette'].k}")
             rows.append(row)
     finally:
         measurer.shutdown(cancel_futures=True)
