@@ -112,6 +112,16 @@ def indexed_png(indices: np.ndarray, palette: np.ndarray, *, transparent: int | 
     bytes
         The whole file.  The bit depth is the smallest of 1, 2, 4 and 8
         that holds ``k`` colours.
+
+    Examples
+    --------
+    >>> import io
+    >>> import numpy as np
+    >>> from PIL import Image
+    >>> data = indexed_png(np.array([[0, 1], [1, 0]], np.uint8), np.array([[0, 0, 0], [255, 0, 0]], np.uint8))
+    >>> im = Image.open(io.BytesIO(data))
+    >>> im.mode, im.size, np.asarray(im).tolist()
+    ('P', (2, 2), [[0, 1], [1, 0]])
     """
     idx = np.ascontiguousarray(indices, dtype=np.uint8)
     pal = np.ascontiguousarray(palette, dtype=np.uint8).reshape(-1, 3)

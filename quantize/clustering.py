@@ -211,6 +211,14 @@ def lloyd_from(points: np.ndarray, weights: np.ndarray, centres: np.ndarray, *, 
     locked.  ``abs_tol`` is the absolute squared-shift tolerance, e.g.
     ``1e-4 * tolerance_scale(points, weights)``.  The fitting and sweep
     stages validate their sample once and call this per palette size.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = np.array([[0.0, 0, 0], [0, 0, 2], [10, 0, 0], [10, 0, 2]])
+    >>> res = lloyd_from(pts, np.ones(4), np.array([[1.0, 0, 0], [9, 0, 0]]))
+    >>> res.centres.tolist(), float(res.inertia)
+    ([[0.0, 0.0, 1.0], [10.0, 0.0, 1.0]], 4.0)
     """
     c, labels, history, n_iter = _lloyd(points, weights, np.array(centres, dtype=np.float64), n_fixed,
                                         max_iter, abs_tol)

@@ -339,10 +339,12 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
         Nearest-colour metric the palette is refined for and each candidate
         measured with (default CIEDE2000, as :meth:`Palette.apply` maps).
     refine : {"robust", "none"}, default="robust"
-        After the k-means fit, refine the palette under a truncated loss so
-        that anti-aliased edges and compression noise do not take colours
-        from real inks (:mod:`quantize.refine`).  ``"none"`` keeps the pure
-        k-means palette.  The k-means cost is reported either way.
+        After the k-means fit, try the explicit refinements of
+        :func:`refine_palette`, each kept only if it lowers the mean ΔE00: a
+        truncated-loss refit, so that anti-aliased edges and compression
+        noise do not take colours from real inks, and weighted k-medians
+        steps under CIEDE2000 (:mod:`quantize.refine`).  ``"none"`` keeps the
+        pure k-means palette.  The k-means cost is reported either way.
     max_pixels : int, optional
         Decompression-bomb limit for files.
     progress : callable, optional
@@ -371,6 +373,12 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
        21-30, 2005.
     .. [3] G. Schwarz, "Estimating the dimension of a model", Annals of
        Statistics 6(2), 461-464, 1978.
+    .. [4] E. Weiszfeld, "Sur le point pour lequel la somme des distances de
+       n points donnés est minimum", Tôhoku Mathematical Journal 43,
+       355-386, 1937 (the k-medians update).
+    .. [5] J. A. Cuesta-Albertos, A. Gordaliza and C. Matrán, "Trimmed
+       k-means: an attempt to robustify quantizers", Annals of Statistics
+       25(2), 553-576, 1997 (the truncated-loss refit).
 
     Examples
     --------

@@ -184,6 +184,13 @@ def compass_polish(lab, weights, centres, labels, *, n_fixed: int = 0,
     .. [1] T. G. Kolda, R. M. Lewis and V. Torczon, "Optimization by direct
        search: new perspectives on some classical and modern methods",
        SIAM Review 45(3), 385-482, 2003.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lab = np.array([[50.0, 0, 0], [50, 0, 0], [54, 0, 0]])
+    >>> compass_polish(lab, np.ones(3), np.array([[53.0, 0, 0]]), np.zeros(3, int)).round(2).tolist()
+    [[50.0, 0.0, 0.0]]
     """
     from ._kernels import ciede2000_to
 
@@ -254,6 +261,14 @@ def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8
        formula: implementation notes, supplementary test data, and
        mathematical observations", Color Research & Application 30(1),
        21-30, 2005.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lab = np.array([[50.0, 0, 0], [51, 0, 0], [52, 0, 0], [70, 40, 20]])
+    >>> c = ciede2000_medians(lab, np.ones(4), np.array([[40.0, 0, 0], [70, 40, 20]]), n_fixed=1)
+    >>> c[0].tolist(), bool(abs(c[1, 0] - 70) < 1)
+    ([40.0, 0.0, 0.0], True)
     """
     from ._kernels import ciede2000_to, nearest_ciede2000
 
