@@ -20,7 +20,7 @@ import pytest
 import tifffile
 from PIL import Image, ImageCms, ImageOps
 
-from quantize import images
+from quantize import _deep, images
 from quantize.errors import ImageReadError, OutputError, QuantizeError
 from quantize.images import (
     ImageWarning,
@@ -471,7 +471,7 @@ def test_16_bit_tiff_without_codec_uses_pillow_route(tmp_path, monkeypatch):
     values = _rng().integers(0, 65536, (8, 10, 4), dtype=np.uint16)
     path = tmp_path / "codec.tif"
     tifffile.imwrite(path, values, photometric="rgb", extrasamples=["unassalpha"], compression="zlib")
-    monkeypatch.setattr(images, "_tifffile_decodes", lambda page: False)
+    monkeypatch.setattr(_deep, "_tifffile_decodes", lambda page: False)
     pic = load_image(path)
     assert pic.bit_depth == 16
     assert np.array_equal(pic.rgb, values[..., :3]) and np.array_equal(pic.alpha, values[..., 3])
@@ -481,7 +481,7 @@ def test_16_bit_tiff_without_codec_planar_falls_back_to_8_bits(tmp_path, monkeyp
     values = _rng().integers(0, 65536, (3, 8, 10), dtype=np.uint16)
     path = tmp_path / "planar.tif"
     tifffile.imwrite(path, values, photometric="rgb", planarconfig="separate", compression="zlib")
-    monkeypatch.setattr(images, "_tifffile_decodes", lambda page: False)
+    monkeypatch.setattr(_deep, "_tifffile_decodes", lambda page: False)
     with pytest.warns(ImageWarning, match="imagecodecs"):
         pic = load_image(path)
     assert pic.bit_depth == 8
