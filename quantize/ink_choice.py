@@ -14,7 +14,7 @@ import numpy as np
 
 from .inks import InkLibrary, InkLibraryError
 
-__all__ = ["InkSelection", "SELECTION_METHODS", "choose_inks", "snap_palette", "subset_cost"]
+__all__ = ["InkSelection", "SELECTION_METHODS", "choose_inks", "choose_palette", "snap_palette", "subset_cost"]
 
 
 #: Subset-selection methods: "exact" enumerates every subset, "search" is a
@@ -208,6 +208,7 @@ def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: s
 
     Examples
     --------
+    >>> from quantize.inks import parse_ink_library
     >>> lib = parse_ink_library("Red,#c8102e\\nBlue,#1f3a93\\nGold,#f2b705\\n")
     >>> img = np.zeros((4, 4, 3), np.uint8); img[:, :2] = (200, 16, 46)
     >>> sel = choose_inks(img, lib, 1, substrate="#000000")
@@ -331,6 +332,7 @@ def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, 
     Examples
     --------
     >>> from quantize.palette import Palette
+    >>> from quantize.inks import parse_ink_library
     >>> lib = parse_ink_library("Red,#c8102e\\nBlue,#1f3a93\\n")
     >>> pal = Palette(np.array([[198, 20, 50]], np.uint8), None)
     >>> snapped, snaps = snap_palette(pal, lib)
@@ -366,3 +368,107 @@ def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, 
     out = Palette(rgb8=np.array(rgb, np.uint8), locked=np.arange(len(rgb)) < lk.size, space=palette.space,
                   names=tuple(names), fit=fit)
     return out, snaps
+
+
+def choose_palette(image, *, palette=None, library=None, n: int | None = None, snap: bool = False,
+                   substrate=None, seed=0, max_pixels=None) -> tuple[Any, dict]:
+    """The inks to separate ``image`` into, from one of four sources.
+
+    * ``palette`` alone: that palette, with ``substrate`` locked into it.
+    * ``library`` and ``n``: the best ``n`` inks of the library
+      (:func:`quantize.ink_choice.choose_inks`).
+    * ``library``, ``snap`` and ``n`` (or ``palette``): a palette fitted with
+      ``n`` inks (or the given one), each colour moved to its nearest library
+      ink (:func:`quantize.ink_choice.snap_palette`).
+    * neither: a palette fitted to the image, ``n`` inks plus the substrate
+      (``n`` None: 1-8 inks, chosen by the fit's penalised rule).
+
+    Parameters
+    ----------
+    image : path, Picture, PIL image or ndarray
+    palette : Palette, optional
+    library : InkLibrary, optional
+    n : int, optional
+        Printed inks, the substrate not counted.
+    snap : bool, default False
+    substrate : str, optional
+        A colour (hex or L,a,b) or the name of a library ink. Default: the
+        given palette's locked colour if it has exactly one, else white
+        (``#ffffff``).
+    seed : int, default 0
+    max_pixels : int, optional
+
+    Returns
+    -------
+    palette : Palette
+        Substrate locked; its index is ``info["substrate"]``.
+    info : dict
+        How the inks were chosen (method, cost, snaps).
+
+    Raises
+    ------
+    SeparationError
+        An impossible combination (a library without ``n``, a palette and a
+        library without ``snap``).
+    InkLibraryError
+        Fewer inks in the library than asked for.
+
+    Examples
+    --------
+    >>> img = np.full((8, 8, 3), 255, np.uint8); img[:4] = (200, 16, 46)
+    >>> pal, info = choose_palette(img, n=1)
+    >>> pal.hex, info["method"]
+    (['#ffffff', '#c8102e'], 'fitted')
+    """
+    from .images import as_picture, load_image
+    from .separation import SeparationError, with_substrate
+
+    if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
+        raise SeparationError(f"number of inks must be at least 1, got {n!r}")
+    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
+        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+    else:
+        pic = as_picture(image)
+    if library is not None and palette is not None and not snap:
+        raise SeparationError("a palette and an ink library were both given: add snap to move the palette's "
+                              "colours onto library inks, or give only one of them")
+    if library is not None and palette is None and n is None:
+        raise SeparationError("choosing inks from a library needs the number of inks (n)")
+    if substrate is None:
+        lk = np.flatnonzero(palette.locked) if palette is not None else np.array([], int)
+        substrate = palette.hex[int(lk[0])] if lk.size == 1 else "#ffffff"
+    if library is not None and not snap:
+        sel = choose_inks(pic, library, n, substrate=substrate, seed=seed)
+        info = {"method": f"best {n} of {len(library)} library inks ({sel.method})",
+                "cost_delta_e": sel.cost, "subsets_evaluated": sel.evaluated, "library": library.describe(),
+                "substrate": 0}
+        return sel.palette, info
+    sub_spec = substrate
+    if library is not None and isinstance(substrate, str) and library.find(substrate) is not None:
+        sub_spec = library.inks[library.find(substrate)].hex
+    if palette is None:
+        from .fitting import fit_palette
+
+        k = n + 1 if n is not None else (2, 9)
+        palette = fit_palette(pic, k, locked=[sub_spec], seed=seed)
+        method = "fitted"
+    else:
+        method = "given palette"
+    palette, sub = with_substrate(palette, sub_spec)
+    info = {"method": method, "substrate": sub}
+    if snap:
+        others = [i for i in range(palette.k) if i != sub]
+        lk = palette.locked.copy()
+        lk[:] = False
+        lk[sub] = True
+        from .palette import Palette
+
+        palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
+        palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
+        if isinstance(substrate, str) and library.find(substrate) is not None:
+            names = list(palette.names)
+            names[0] = library.inks[library.find(substrate)].name
+            palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+        info.update({"method": f"{method}, snapped to library inks", "snaps": snaps,
+                     "library": library.describe(), "colours_snapped": len(others), "substrate": 0})
+    return palette, info
