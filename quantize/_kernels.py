@@ -86,6 +86,20 @@ def _load():
             sys.meta_path.remove(finder)
 
 
+def _after_fork_in_child() -> None:
+    # A forked child has only the forking thread: the pool's workers, and a
+    # load still running in the parent, are gone.  Start afresh when needed.
+    global _lock
+    _lock = threading.Lock()
+    _pool.clear()
+    if "module" not in _state:
+        _state.clear()
+
+
+if hasattr(os, "register_at_fork"):  # POSIX
+    os.register_at_fork(after_in_child=_after_fork_in_child)
+
+
 def warm_up() -> None:
     """Start loading the compiled kernels in a background thread (idempotent)."""
     with _lock:

@@ -194,3 +194,36 @@ def test_a_kernel_load_failure_is_one_clear_line_on_the_command_line(monkeypatch
     assert "compiled kernels (numba) failed to load: libllvmlite.so: cannot open" in res.output
     assert "Traceback" not in res.output
     assert not (tmp_path / "out.png").exists()
+
+
+@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
+def test_a_forked_child_gets_a_fresh_thread_pool():
+    # A script may fork worker processes after quantize has run: the parent's
+    # pool threads do not exist in the child, so the child must make its own.
+    import os
+
+    rng = np.random.default_rng(4)
+    lab = _srgb_lab(rng, 300_000)
+    pal = _srgb_lab(rng, 8)
+    labels, de = _kernels.nearest_ciede2000(lab, pal)  # large enough to use the pool
+    assert _kernels._pool
+    pid = os.fork()
+    if pid == 0:  # the child: report by exit status only
+        ok = not _kernels._pool
+        l2, d2 = _kernels.nearest_ciede2000(lab, pal)
+        ok = ok and np.array_equal(l2, labels) and np.array_equal(d2, de)
+        os._exit(0 if ok else 1)
+    _, status = os.waitpid(pid, 0)
+    assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
+
+
+def test_a_load_interrupted_by_fork_starts_again_in_the_child():
+    saved = dict(_kernels._state)
+    try:
+        _kernels._state.clear()
+        _kernels._state["thread"] = object()  # a load that was running in the parent
+        _kernels._after_fork_in_child()
+        assert "thread" not in _kernels._state
+    finally:
+        _kernels._state.clear()
+        _kernels._state.update(saved)
