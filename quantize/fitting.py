@@ -273,24 +273,44 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
     full_pts = sample.points(space)
     full_tol = 1e-4 * tolerance_scale(full_pts, sample.weights)
     bin_pts, bin_w = sample.binned(space)
-    out: list[Candidate] = []
-    seen = set()
-    for k in ks:
-        rng = _rng_for(seed, k)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", PaletteSizeWarning)
-            coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
-            fine = lloyd_from(full_pts, sample.weights, coarse.centres, n_fixed=m, max_iter=FINE_ITER,
-                              abs_tol=full_tol)
-        pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, space=space,
-                                                          metric=metric, refine=refine)
-        if pal.k in seen:
+    # A range of sizes refines and measures each size on worker threads
+    # while the next size is fitted; the sizes do not depend on each other.
+    pool = None
+    if len(ks) > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        sample.binned(space, bits=None)  # cached before the threads share the sample
+        sample.binned("lab", bits=None)
+        sample.points("lab")
+        pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="quantize-fit")
+    jobs = []
+    try:
+        for k in ks:
+            rng = _rng_for(seed, k)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", PaletteSizeWarning)
+                coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
+                fine = lloyd_from(full_pts, sample.weights, coarse.centres, n_fixed=m, max_iter=FINE_ITER,
+                                  abs_tol=full_tol)
+            args = (sample, fine.centres, fixed_rgb8)
+            kw = dict(space=space, metric=metric, refine=refine)
+            job = pool.submit(finish_palette, *args, **kw) if pool else finish_palette(*args, **kw)
+            jobs.append((k, fine, job))
             if progress:
                 progress(k)
+        results = [(k, fine, job.result() if pool else job) for k, fine, job in jobs]
+    finally:
+        if pool:
+            pool.shutdown(cancel_futures=True)
+
+    from .measure import delta_e_stats
+
+    out: list[Candidate] = []
+    seen = set()
+    for k, fine, (pal, merged, labels, de, refined) in results:
+        if pal.k in seen:
             continue
         seen.add(pal.k)
-        from .measure import delta_e_stats
-
         notes = []
         if pal.k < k:
             notes.append(f"asked for {k} colours; the image has {sample.n_colours} distinct colours"
@@ -301,8 +321,6 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
                          inertia=float(fine.inertia), delta_e=delta_e_stats(de, sample.weights),
                          robust=robust_error(de, sample.weights), labels=labels, per_colour_de=de)
         out.append(cand)
-        if progress:
-            progress(k)
     return out
 
 
