@@ -8,8 +8,12 @@ Loading a JIT compiler costs about half a second even from its disk cache,
 so :func:`warm_up` starts that load in a background thread as soon as an
 entry point knows it will fit or map: the image decodes and is sampled
 while the compiler loads (both release the interpreter lock for most of
-their time).  :func:`assign_nearest_numpy` is the vectorised fallback for
-inputs too small to be worth waiting for the compiler.
+their time).  Meanwhile the Euclidean assignment and the cluster sums run
+as numpy code that gives bit-identical results (:func:`assign_nearest_numpy`
+and ``np.bincount``), so a palette never depends on how long the load took;
+the CIEDE2000 kernels wait for it.  DEVELOPERS.md ("The compiled kernels")
+lists the rest: the thread pool, ``gc.freeze`` and the scipy import the load
+declines.
 """
 
 from __future__ import annotations
