@@ -87,13 +87,15 @@ def _init_kmeanspp(points, weights, k, fixed, rng):
         if pot.sum() <= 0:
             break
         cands = _weighted_pick(rng, pot, n_trials)
-        # All candidates at once: one pass over the points instead of n_trials.
-        diff = points[None, :, :] - points[cands][:, None, :]
-        nd2 = np.minimum(d2[None, :], np.einsum("tij,tij->ti", diff, diff))
-        costs = (weights[None, :] * nd2).sum(axis=1)
-        best = int(np.argmin(costs))  # the first of equal costs, as a loop with '<' keeps
-        centres.append(points[cands[best]])
-        d2 = nd2[best]
+        # One candidate at a time: temporaries stay the size of the data.
+        best_cost, best_d2, best_c = np.inf, None, None
+        for c in cands:
+            nd2 = np.minimum(d2, _sq_dist_to(points, points[c]))
+            cost = float((weights * nd2).sum())
+            if cost < best_cost:
+                best_cost, best_d2, best_c = cost, nd2, c
+        centres.append(points[best_c])
+        d2 = best_d2
     return np.array(centres, dtype=np.float64)
 
 

@@ -7,6 +7,7 @@ colour -> 8-bit palette -> ΔE00 per candidate size -> the chosen size.
 
 from __future__ import annotations
 
+import contextlib
 import warnings
 from dataclasses import dataclass
 from typing import Callable, Sequence
@@ -137,14 +138,14 @@ REFINES = ("robust", "none")
 
 
 def _binned_delta_e(sample, pal, metric):
-    """ΔE00 of every binned cell to its palette colour, and the cells' weights."""
+    """ΔE00 of every cell of the refinement grid to its palette colour."""
     from ._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
 
-    lab, w = sample.binned("lab", bits=None)
+    lab = sample.binned("lab", bits=None)[0]
     if metric == "ciede2000":
-        return nearest_ciede2000(lab, pal.lab)[1], w
+        return nearest_ciede2000(lab, pal.lab)[1]
     labels = assign_nearest(sample.binned(pal.space, bits=None)[0], pal.points())[0]
-    return ciede2000_to(lab, pal.lab, labels), w
+    return ciede2000_to(lab, pal.lab, labels)
 
 
 def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000",
@@ -190,8 +191,7 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     # The robust refit needs no CIEDE2000, so it runs first: in a fresh
     # process the compiled CIEDE2000 kernels may still be loading.
     robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-    de, _ = _binned_delta_e(sample, pal, metric)
-    cost = float((bin_w * de).sum())
+    cost = float((bin_w * _binned_delta_e(sample, pal, metric)).sum())
 
     def medians(start):
         if metric == "ciede2000":
@@ -204,8 +204,7 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
         cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
         if cpal.k != pal.k:
             return None
-        cde, _ = _binned_delta_e(sample, cpal, metric)
-        ccost = float((bin_w * cde).sum())
+        ccost = float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
         if ccost < cost:
             pal, merged, cost, steps = cpal, cmerged, ccost, name
         return cpal
@@ -245,6 +244,37 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     return pal, merged, labels, de, refined
 
 
+@contextlib.contextmanager
+def size_workers(sample, space: str, parallel: bool):
+    """``submit(fn, *args, **kwargs)`` for the per-size work after each k-means fit.
+
+    Refining and measuring one palette size need nothing from the next
+    size, so with ``parallel`` they run on two worker threads while the
+    next size is fitted (the compiled kernels release the interpreter
+    lock).  Otherwise ``submit`` runs ``fn`` at once.  Either way it returns
+    a future; results do not depend on the threads.
+    """
+    from concurrent.futures import Future, ThreadPoolExecutor
+
+    if not parallel:
+        def now(fn, *args, **kwargs):
+            done = Future()
+            done.set_result(fn(*args, **kwargs))
+            return done
+
+        yield now
+        return
+    # Cached on the sample before the threads share it.
+    sample.binned(space, bits=None)
+    sample.binned("lab", bits=None)
+    sample.points("lab")
+    pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="quantize-size")
+    try:
+        yield pool.submit
+    finally:
+        pool.shutdown(cancel_futures=True)
+
+
 def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0, locked=(),
                    init="k-means++", metric="ciede2000", refine: str = "robust",
                    progress: Callable | None = None) -> list[Candidate]:
@@ -273,18 +303,8 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
     full_pts = sample.points(space)
     full_tol = 1e-4 * tolerance_scale(full_pts, sample.weights)
     bin_pts, bin_w = sample.binned(space)
-    # A range of sizes refines and measures each size on worker threads
-    # while the next size is fitted; the sizes do not depend on each other.
-    pool = None
-    if len(ks) > 1:
-        from concurrent.futures import ThreadPoolExecutor
-
-        sample.binned(space, bits=None)  # cached before the threads share the sample
-        sample.binned("lab", bits=None)
-        sample.points("lab")
-        pool = ThreadPoolExecutor(max_workers=2, thread_name_prefix="quantize-fit")
     jobs = []
-    try:
+    with size_workers(sample, space, len(ks) > 1) as submit:
         for k in ks:
             rng = _rng_for(seed, k)
             with warnings.catch_warnings():
@@ -292,16 +312,11 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
                 coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=rng, fixed=fixed, init=init)
                 fine = lloyd_from(full_pts, sample.weights, coarse.centres, n_fixed=m, max_iter=FINE_ITER,
                                   abs_tol=full_tol)
-            args = (sample, fine.centres, fixed_rgb8)
-            kw = dict(space=space, metric=metric, refine=refine)
-            job = pool.submit(finish_palette, *args, **kw) if pool else finish_palette(*args, **kw)
-            jobs.append((k, fine, job))
+            jobs.append((k, fine, submit(finish_palette, sample, fine.centres, fixed_rgb8, space=space,
+                                         metric=metric, refine=refine)))
             if progress:
                 progress(k)
-        results = [(k, fine, job.result() if pool else job) for k, fine, job in jobs]
-    finally:
-        if pool:
-            pool.shutdown(cancel_futures=True)
+        results = [(k, fine, job.result()) for k, fine, job in jobs]
 
     from .measure import delta_e_stats
 

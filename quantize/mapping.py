@@ -96,19 +96,6 @@ class MappedImage:
                           dpi=self.dpi, force=force, inputs=inputs)
 
 
-def nearest(points, lab, palette, *, metric: str = "space") -> np.ndarray:
-    """Index of the nearest palette colour for each point (exact search).
-
-    ``points`` are in the palette's space, ``lab`` the same colours in
-    CIELAB (used by the ``"ciede2000"`` metric).
-    """
-    from ._kernels import assign_nearest, nearest_ciede2000
-
-    if metric == "space":
-        return assign_nearest(points, palette.points())[0]
-    return nearest_ciede2000(lab, palette.lab)[0]
-
-
 def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
     """Map the distinct colours of a sample onto a palette.
 

@@ -304,15 +304,15 @@ def _finish_row(sample, centres, fixed_rgb8, k, start, space, metric, refine, pe
     The same explicit refinements as :mod:`quantize.fitting`: the k-means
     cost is reported, the refined palette is what a job would print.
     """
-    from .fitting import refine_palette
+    from .fitting import finish_palette
     from .mapping import map_sample
     from .measure import coverage_percent, delta_e_stats
     from .palette import Palette
     from .selection import robust_error
 
-    pal, _, refined = refine_palette(sample, centres, fixed_rgb8, space=space, metric=metric, refine=refine)
+    pal, _, labels, de, refined = finish_palette(sample, centres, fixed_rgb8, space=space, metric=metric,
+                                                 refine=refine)
     pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
-    labels, de = map_sample(sample, pal, metric=metric)
     w = sample.weights
     per = {}
     for src, smp in per_image:
@@ -331,10 +331,9 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     own ΔE00 is measured against each row's palette.  Other parameters as
     in :func:`sweep`.
     """
-    from concurrent.futures import ThreadPoolExecutor
-
     from .clustering import PaletteSizeWarning, kmeans, tolerance_scale
     from .colourspace import srgb8_to_space
+    from .fitting import size_workers
     from .palette import parse_colour
     from .selection import choose_k
 
@@ -352,12 +351,7 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
 
     rows, notes, pending = [], [], []
     prev_coarse = prev_fine = None
-    # Cached on the sample before the worker threads share it.
-    sample.binned(space, bits=None)
-    sample.binned("lab", bits=None)
-    sample.points("lab")
-    measurer = ThreadPoolExecutor(max_workers=2, thread_name_prefix="quantize-sweep")
-    try:
+    with size_workers(sample, space, True) as submit:
         for k in ks:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
@@ -386,8 +380,8 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
             # Refining and measuring a size need nothing from the next size:
             # they run on worker threads while the next size is fitted.
             pending.append((dict(k=k, cost=float(fine.inertia), start=start),
-                            measurer.submit(_finish_row, sample, fine.centres, fixed_rgb8, k, start, space,
-                                            metric, refine, per_image)))
+                            submit(_finish_row, sample, fine.centres, fixed_rgb8, k, start, space, metric,
+                                   refine, per_image)))
             if progress:
                 progress(k)
         for row, job in pending:
@@ -396,8 +390,6 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
                 notes.append(f"k = {row['k']}: rounding to 8 bits merged colours; the palette has "
                              f"{row['palette'].k}")
             rows.append(row)
-    finally:
-        measurer.shutdown(cancel_futures=True)
 
     kk = [r["k"] for r in rows]
     stats = [r["delta_e"] for r in rows]

@@ -7,7 +7,6 @@ scikit-image as reference implementations.
 
 from __future__ import annotations
 
-import doctest
 import math
 import subprocess
 import sys
@@ -465,10 +464,3 @@ def test_cam16ucs_keeps_numpy_print_options():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=Path(__file__).resolve().parents[1])
     assert out.stdout.strip() == "False"
-
-
-def test_docstring_examples_run():
-    # The test session has imported colour-science itself, hence printoptions.
-    with np.printoptions(legacy=False):
-        result = doctest.testmod(cs, optionflags=doctest.NORMALIZE_WHITESPACE)
-    assert result.attempted >= 15 and result.failed == 0
