@@ -42,6 +42,10 @@ class KMeansResult:
     k_requested : int
         The ``k`` asked for; ``len(centres)`` is smaller when there were too
         few distinct points.
+    runs : tuple of (ndarray, float)
+        The converged centres and inertia of every restart, in the order
+        they ran (the kept one included).  Later steps may start from
+        restarts that are not the lowest in inertia.
     """
 
     centres: np.ndarray
@@ -50,6 +54,7 @@ class KMeansResult:
     n_iter: int
     history: tuple = field(default=())
     k_requested: int = 0
+    runs: tuple = ()
 
 
 def _weighted_pick(rng: np.random.Generator, pot: np.ndarray, size: int) -> np.ndarray:
@@ -360,11 +365,13 @@ def kmeans(
         starts = None
 
     best = None
+    runs = []
     for r in range(1 if starts else restarts):
         c0 = starts[r] if starts else INITS[init](pts, w, k_eff, fx, rng)
         if c0.shape[0] < k_eff:  # seeding ran out of distinct points
             c0 = np.vstack([c0, np.repeat(c0[-1:], k_eff - c0.shape[0], axis=0)])
         centres, labels, history, n_iter = _lloyd(pts, w, c0, m, max_iter, abs_tol)
+        runs.append((centres, history[-1]))
         if best is None or history[-1] < best[2][-1]:
             best = (centres, labels, history, n_iter)
     centres, labels, history, n_iter = best
@@ -381,4 +388,5 @@ def kmeans(
         n_iter=n_iter,
         history=tuple(history),
         k_requested=k,
+        runs=tuple(runs),
     )

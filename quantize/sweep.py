@@ -298,7 +298,7 @@ def _guarded(points, weights, start, n_fixed, abs_tol):
     return KMeansResult(centres=start, labels=labels, inertia=c0, n_iter=0, history=(c0,), k_requested=len(start))
 
 
-def _finish_row(sample, centres, fixed_rgb8, k, start, space, metric, refine, per_image) -> dict:
+def _finish_row(sample, centres, fixed_rgb8, k, start, space, metric, refine, per_image, others=()) -> dict:
     """One sweep row after its k-means fit: the refined palette and its figures on every distinct colour.
 
     The same explicit refinements as :mod:`quantize.fitting`: the k-means
@@ -311,7 +311,7 @@ def _finish_row(sample, centres, fixed_rgb8, k, start, space, metric, refine, pe
     from .selection import robust_error
 
     pal, _, labels, de, refined = finish_palette(sample, centres, fixed_rgb8, space=space, metric=metric,
-                                                 refine=refine)
+                                                 refine=refine, others=others)
     pal = Palette(pal.rgb8, pal.locked, space, fit={"k": k, "start": start, "refined": refined})
     w = sample.weights
     per = {}
@@ -355,8 +355,8 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
         for k in ks:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
-                coarse = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=_rng(seed, k, 0),
-                                fixed=fixed, init=init)
+                coarse = fresh = kmeans(bin_pts, k, weights=bin_w, restarts=restarts, seed=_rng(seed, k, 0),
+                                        fixed=fixed, init=init)
                 start = "fresh"
                 warm_ok = warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1
                 if warm_ok:
@@ -367,6 +367,8 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
                         cand = _run_from(bin_pts, bin_w, c0, n_fixed, bin_tol)
                         if cand.inertia < coarse.inertia:
                             coarse, start = cand, name
+                # Every fresh restart but the kept one: the k-medians may start there too.
+                others = [c for c, _ in fresh.runs if c is not coarse.centres]
                 fine = _run_from(full_pts, full_w, coarse.centres, n_fixed, full_tol, max_iter=SWEEP_FINE_ITER)
                 if warm and prev_fine is not None and len(prev_fine.centres) == k - 1 \
                         and fine.inertia > prev_fine.inertia:
@@ -381,7 +383,7 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
             # they run on worker threads while the next size is fitted.
             pending.append((dict(k=k, cost=float(fine.inertia), start=start),
                             submit(_finish_row, sample, fine.centres, fixed_rgb8, k, start, space, metric,
-                                   refine, per_image)))
+                                   refine, per_image, others)))
             if progress:
                 progress(k)
         for row, job in pending:

@@ -152,6 +152,36 @@ def test_refinement_never_raises_mean_delta_e_and_kmeans_cost_is_reported():
     assert plain.fit["refined"] == "none"
 
 
+def test_starts_from_other_restarts_only_lower_the_mean_delta_e():
+    # scikit-image's "astronaut" sample photo at 4 colours: the restart of
+    # lowest k-means cost is not the best start for the k-medians steps.
+    # A start from another restart is kept only where it lowers the mean
+    # ΔE00 of the refinement grid, so it can never make the palette worse.
+    from skimage import data
+
+    from quantize.clustering import kmeans
+    from quantize.fitting import _binned_delta_e, refine_palette
+    from quantize.images import as_picture
+    from quantize.sampling import sample_picture
+
+    smp = sample_picture(as_picture(data.astronaut()))
+    pts, w = smp.binned("lab")
+    km = kmeans(pts, 4, weights=w, restarts=8, seed=0)
+    others = [c for c, _ in km.runs if c is not km.centres]
+    fixed = np.zeros((0, 3), np.uint8)
+    grid_w = smp.binned("lab", bits=None)[1]
+
+    def grid_mean(pal):
+        return float((grid_w * _binned_delta_e(smp, pal, "ciede2000")).sum() / grid_w.sum())
+
+    alone = refine_palette(smp, km.centres, fixed, space="lab")[0]
+    helped = refine_palette(smp, km.centres, fixed, space="lab", others=others)[0]
+    assert grid_mean(helped) <= grid_mean(alone)
+    # Measured on this photo when the step was added: 8.56 -> 8.34 mean ΔE00
+    # on every pixel; the test asks for a 1 % gain on the grid.
+    assert grid_mean(helped) < 0.99 * grid_mean(alone)
+
+
 def test_median_polish_lowers_mean_distance():
     # Weiszfeld steps lower the weighted sum of distances (Weiszfeld 1937).
     from quantize.refine import median_polish

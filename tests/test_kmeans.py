@@ -92,6 +92,20 @@ def test_generator_seed_is_threaded():
     assert a.centres.tobytes() == b.centres.tobytes()
 
 
+def test_every_restart_is_recorded_and_the_lowest_is_kept():
+    pts, w = blobs(2)
+    res = kmeans(pts, 5, weights=w, restarts=6, seed=3)
+    assert len(res.runs) == 6
+    costs = [cost for _, cost in res.runs]
+    assert res.inertia == min(costs)
+    kept = [c for c, cost in res.runs if c is res.centres]
+    assert len(kept) == 1
+    for c, cost in res.runs:
+        # Each recorded inertia is the cost of its centres (independent numpy scan).
+        d2 = ((pts[:, None, :] - c[None]) ** 2).sum(-1).min(1)
+        assert cost == pytest.approx(float((w * d2).sum()), rel=1e-9)
+
+
 def test_locked_centres_never_move():
     pts, w = blobs(3)
     fixed = np.array([[50.0, 0, 0], [0, 0, 0]])
