@@ -1,4 +1,4 @@
-"""Ink libraries: the inks a shop has on the shelf, and choosing among them.
+"""Ink libraries: the inks a shop has on the shelf, read from CSV, JSON or CGATS files.
 
 An ink library is read from one of three kinds of file:
 
@@ -19,15 +19,12 @@ An ink library is read from one of three kinds of file:
 Measured Lab values are normally relative to D50 (ISO 13655), while this
 package works in CIELAB relative to the D65 white of sRGB. Each library
 records its illuminant (D50 unless the file says otherwise) and its Lab values
-are adapted to D65 with the Bradford chromatic adaptation transform, through
-colour-science (imported only when a Lab library is read). sRGB hex inks are
-D65 already and are not adapted.
+are adapted to D65 with the Bradford chromatic adaptation transform
+(:mod:`quantize.adaptation`). sRGB hex inks are D65 already and are not
+adapted.
 
-Selection. :func:`choose_inks` picks N inks from a library for an image,
-minimising the pixel-weighted ΔE00 of the image mapped onto the chosen inks
-(plus the substrate, which is always there). :func:`snap_palette` instead
-moves each colour of a fitted palette to its nearest library ink (each ink
-used once) and reports the ΔE00 of every snap.
+Choosing among the inks of a library for an image (:func:`choose_inks`,
+:func:`snap_palette`) lives in :mod:`quantize.ink_choice`.
 
 ΔE figures here are computed from file data; they are not measurements of a
 print.
@@ -46,6 +43,8 @@ from typing import Any
 
 import numpy as np
 
+# Adaptation lives in its own module; its public names stay importable here.
+from .adaptation import ILLUMINANTS, _check_illuminant, _check_observer, adapt_lab, bradford_matrix
 from .errors import QuantizeError
 
 __all__ = [
@@ -53,10 +52,6 @@ __all__ = [
     "load_ink_library", "parse_ink_library", "adapt_lab", "bradford_matrix",
 ]
 
-#: Illuminants a library may name; their whites come from colour-science
-#: (CIE 15:2004 chromaticities for the 2 and 10 degree observers).
-ILLUMINANTS = ("A", "C", "D50", "D55", "D65", "D75")
-_OBSERVERS = {2: "CIE 1931 2 Degree Standard Observer", 10: "CIE 1964 10 Degree Standard Observer"}
 _HEX = re.compile(r"^#?([0-9a-fA-F]{6})$")
 # A CGATS token: a double-quoted string (may hold spaces) or a run of non-blanks.
 _CGATS_TOKEN = re.compile(r'"((?:[^"]|"")*)"|(\S+)')
@@ -157,116 +152,6 @@ class InkLibrary:
         return {"source": self.source, "format": self.file_format, "illuminant": self.illuminant,
                 "observer": self.observer, "adapted_to": "D65" if self.illuminant != "D65" else None,
                 "n_inks": len(self)}
-
-
-# --------------------------------------------------------------------------- adaptation
-
-def _white_xyz(name: str, observer: int) -> np.ndarray:
-    import colour
-
-    xy = colour.CCS_ILLUMINANTS[_OBSERVERS[observer]][name]
-    return colour.xy_to_XYZ(xy)
-
-
-def bradford_matrix(source_white, target_white) -> np.ndarray:
-    """The Bradford chromatic adaptation matrix between two whites.
-
-    Parameters
-    ----------
-    source_white, target_white : array_like of shape (3,)
-        CIE XYZ of the whites, Y = 1.
-
-    Returns
-    -------
-    ndarray of shape (3, 3)
-        ``M`` with ``XYZ_target = M @ XYZ_source``.
-
-    References
-    ----------
-    .. [1] K. M. Lam, "Metamerism and colour constancy", PhD thesis,
-       University of Bradford, 1985 (the Bradford cone matrix).
-    .. [2] M. D. Fairchild, *Color Appearance Models*, 3rd ed., Wiley, 2013,
-       ch. 9-10 (von Kries-type transforms).
-
-    Examples
-    --------
-    >>> m = bradford_matrix([0.96422, 1.0, 0.82521], [0.95047, 1.0, 1.08883])
-    >>> [round(float(v), 4) for v in m[0]]
-    [0.9556, -0.023, 0.0632]
-    """
-    from colour.adaptation import matrix_chromatic_adaptation_VonKries
-
-    s = np.asarray(source_white, dtype=np.float64)
-    t = np.asarray(target_white, dtype=np.float64)
-    if s.shape != (3,) or t.shape != (3,) or not (s > 0).all() or not (t > 0).all():
-        raise ValueError(f"whites must be positive XYZ triples, got {s} and {t}")
-    return np.asarray(matrix_chromatic_adaptation_VonKries(s, t, transform="Bradford"), dtype=np.float64)
-
-
-def adapt_lab(lab, *, illuminant: str = "D50", observer: int = 2) -> np.ndarray:
-    """CIELAB relative to ``illuminant`` -> CIELAB relative to D65 (sRGB white), by Bradford.
-
-    Parameters
-    ----------
-    lab : array_like of shape (..., 3)
-        L* 0-100, relative to the white of ``illuminant`` for ``observer``.
-    illuminant : str, default "D50"
-        One of :data:`ILLUMINANTS`.
-    observer : {2, 10}, default 2
-
-    Returns
-    -------
-    ndarray of shape (..., 3)
-        CIELAB relative to the D65 white of IEC 61966-2-1, the package's
-        working white. Lab that is already D65 (2 degree) is returned as is.
-
-    Raises
-    ------
-    ValueError
-        Unknown illuminant or observer.
-
-    References
-    ----------
-    .. [1] ISO 13655:2017, Graphic technology - Spectral measurement and
-       colorimetric computation for graphic arts images (D50, 2 degrees).
-    .. [2] M. D. Fairchild, *Color Appearance Models*, 3rd ed., Wiley, 2013.
-    .. [3] CIE 15:2004, *Colorimetry*, 3rd ed. (CIELAB).
-
-    Examples
-    --------
-    >>> [round(float(v), 6) + 0.0 for v in adapt_lab([100.0, 0.0, 0.0])]  # D50 white -> D65 white
-    [100.0, 0.0, 0.0]
-    """
-    from .colourspace import _WHITE_XYZ, _lab_to_t, _t_to_lab
-
-    ill = _check_illuminant(illuminant)
-    obs = _check_observer(observer)
-    lab = np.asarray(lab, dtype=np.float64)
-    if lab.ndim == 0 or lab.shape[-1] != 3:
-        raise ValueError(f"lab must have shape (..., 3), got {lab.shape}")
-    if ill == "D65" and obs == 2:
-        return lab.copy()
-    src = _white_xyz(ill, obs)
-    xyz = _lab_to_t(lab) * src
-    out = xyz @ bradford_matrix(src, _WHITE_XYZ).T
-    return _t_to_lab(out / _WHITE_XYZ)
-
-
-def _check_illuminant(name) -> str:
-    key = str(name).strip().upper()
-    if key not in ILLUMINANTS:
-        raise ValueError(f"unknown illuminant {name!r}; choose one of: {', '.join(ILLUMINANTS)}")
-    return key
-
-
-def _check_observer(observer) -> int:
-    try:
-        obs = int(str(observer).strip().rstrip("°").strip())
-    except ValueError:
-        obs = -1
-    if obs not in _OBSERVERS:
-        raise ValueError(f"unknown observer {observer!r}; choose 2 or 10 (degrees)")
-    return obs
 
 
 # --------------------------------------------------------------------------- reading

@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 from quantize.ink_choice import choose_inks, snap_palette, subset_cost
-from quantize.inks import InkLibraryError, adapt_lab, bradford_matrix, load_ink_library, parse_ink_library
+from quantize.adaptation import adapt_lab, bradford_matrix
+from quantize.inks import InkLibraryError, load_ink_library, parse_ink_library
 from quantize.palette import Palette
 
 from artwork import flat_artwork
@@ -192,7 +193,7 @@ def test_adaptation_matrix_equals_css_color_4_published_matrix():
                           [-0.028369706963208136, 1.0099954580058226, 0.021041398966943008],
                           [0.012314001688319899, -0.020507696433477912, 1.3303659366080753]])
     from quantize.colourspace import _WHITE_XYZ
-    from quantize.inks import _white_xyz
+    from quantize.adaptation import _white_xyz
 
     m = bradford_matrix(_white_xyz("D50", 2), _WHITE_XYZ)
     # The spec's matrix was computed with rounded intermediate matrices: agreement to 1e-6.
