@@ -23,7 +23,8 @@ import threading
 
 import numpy as np
 
-__all__ = ["assign_nearest", "assign_nearest_numpy", "centre_sums", "nearest_ciede2000", "ciede2000_to", "warm_up"]
+__all__ = ["assign_nearest", "assign_nearest_numpy", "centre_sums", "nearest_ciede2000", "ciede2000_to", "warm_up",
+           "compiled", "forget_cached"]
 
 #: Below this many point-centre pairs the numpy kernel runs instead of
 #: waiting for the compiler (it takes a few milliseconds there).
@@ -57,6 +58,99 @@ class _NoScipyLinalgHere:
         return None
 
 
+def _fallback_cache_dir() -> str:
+    import tempfile
+
+    try:
+        who = str(os.getuid())
+    except AttributeError:  # Windows
+        import getpass
+
+        who = getpass.getuser()
+    return os.path.join(tempfile.gettempdir(), f"quantize-numba-{who}")
+
+
+def _private(folder: str) -> bool:
+    """Whether ``folder`` is a real folder of this user that nobody else can write."""
+    import stat
+
+    st = os.lstat(folder)
+    if not stat.S_ISDIR(st.st_mode):
+        return False
+    if hasattr(os, "getuid"):
+        return st.st_uid == os.getuid() and not st.st_mode & 0o022
+    return True
+
+
+def compiled(name: str):
+    """The compiled-kernel module ``quantize.<name>``, imported where numba can cache it.
+
+    numba keeps compiled code beside the module or, if that folder is
+    read-only, in the user's cache folder.  When neither can be written (a
+    read-only install run by a user without a writable home) its import
+    fails; the cache then goes to a private folder in the system's
+    temporary folder, and only the first run there compiles.
+    """
+    import importlib
+    import sys
+
+    full = f"{__package__}.{name}"
+    if full in sys.modules:
+        return sys.modules[full]
+    try:
+        return importlib.import_module(full)
+    except RuntimeError as exc:
+        if "no locator available" not in str(exc):
+            raise
+        import numba
+
+        if numba.config.CACHE_DIR:
+            raise RuntimeError(f"numba cannot write its cache folder {numba.config.CACHE_DIR}; set "
+                               "NUMBA_CACHE_DIR to a writable folder") from exc
+        folder = _fallback_cache_dir()
+        os.makedirs(folder, mode=0o700, exist_ok=True)
+        if not _private(folder):
+            # numba loads pickled code from its cache: never from a folder
+            # that somebody else could have written.
+            raise RuntimeError(f"numba has nowhere to cache compiled code, and {folder} is not a private "
+                               "folder of this user; set NUMBA_CACHE_DIR to a writable folder") from exc
+        numba.config.CACHE_DIR = folder
+        return importlib.import_module(full)
+
+
+def forget_cached(*names: str) -> bool:
+    """Empty numba's on-disk cache index of every compiled function in these modules.
+
+    For a cache that cannot be read back (a damaged file): the next call
+    compiles afresh and writes the cache anew.  Returns whether any index
+    was emptied.
+    """
+    import sys
+
+    emptied = False
+    for name in names:
+        module = sys.modules.get(f"{__package__}.{name}")
+        for obj in vars(module).values() if module else ():
+            cache = getattr(obj, "_cache", None)
+            if callable(getattr(cache, "flush", None)):
+                try:
+                    cache.flush()
+                    emptied = True
+                except OSError:
+                    pass
+    return emptied
+
+
+def _warm_calls(ek) -> None:
+    pts = np.zeros((2, 3))
+    lab = np.zeros(2, dtype=np.intp)
+    out = np.zeros(2)
+    ek.assign_euclid(pts, pts, lab, out)
+    ek.assign_ciede2000(pts, pts, lab, 1.0, lab, out)
+    ek.ciede2000_to(pts, lab, pts, out)
+    ek.centre_sums(pts, out, lab, np.zeros((2, 3)), np.zeros(2))
+
+
 def _load():
     import sys
 
@@ -65,15 +159,14 @@ def _load():
         finder = _NoScipyLinalgHere(threading.current_thread())
         sys.meta_path.insert(0, finder)
     try:
-        from . import _engine_kernels as ek
-
-        pts = np.zeros((2, 3))
-        lab = np.zeros(2, dtype=np.intp)
-        out = np.zeros(2)
-        ek.assign_euclid(pts, pts, lab, out)
-        ek.assign_ciede2000(pts, pts, lab, 1.0, lab, out)
-        ek.ciede2000_to(pts, lab, pts, out)
-        ek.centre_sums(pts, out, lab, np.zeros((2, 3)), np.zeros(2))
+        ek = compiled("_engine_kernels")
+        try:
+            _warm_calls(ek)
+        except Exception:
+            # A cache file that cannot be read back: compile afresh, once.
+            if not forget_cached("_engine_kernels", "_dither_kernels"):
+                raise
+            _warm_calls(ek)
         _state["module"] = ek
         # The compiler leaves a few hundred thousand long-lived objects; the
         # cyclic collector would walk them on every full collection and once
@@ -166,8 +259,9 @@ def _kernels():
 
         exc = _state["error"]
         reason = (str(exc) or type(exc).__name__).splitlines()[0]
-        raise QuantizeError(f"the compiled kernels (numba) failed to load: {reason}; reinstall quantize "
-                            "with its dependencies (pip install --force-reinstall .)") from exc
+        if "NUMBA_CACHE_DIR" not in reason:
+            reason += "; reinstall quantize with its dependencies (pip install --force-reinstall .)"
+        raise QuantizeError(f"the compiled kernels (numba) failed to load: {reason}") from exc
     return _state["module"]
 
 #: Points per block: keeps the temporaries in cache.

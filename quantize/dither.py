@@ -165,9 +165,11 @@ def check_strength(strength) -> float:
 
 def _kernel_inputs(pic, palette, metric):
     """Arrays the compiled kernels take (see quantize._dither_kernels)."""
-    from . import _dither_kernels as dk
     from . import colourspace as cs
-    from ._dither_kernels import CLEAR, OPEN, PINNED
+    from ._kernels import compiled
+
+    dk = compiled("_dither_kernels")
+    CLEAR, OPEN, PINNED = dk.CLEAR, dk.OPEN, dk.PINNED
 
     space = palette.space if palette.space in ("lab", "oklab") else "lab"
     if metric == "ciede2000":
@@ -209,8 +211,9 @@ def _diffuse_measured(args, a, out) -> np.ndarray:
 
     import numba
 
-    from . import _dither_kernels as dk
+    from ._kernels import compiled
 
+    dk = compiled("_dither_kernels")
     h = out.shape[0]
     de = np.empty(out.shape, dtype=np.float64)
     err = np.zeros((dk.error_rows(args[10]), out.shape[1], 3))
@@ -247,7 +250,7 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     ValueError
         Unknown or ``"none"`` method, unknown metric, strength outside 0-1.
     """
-    from . import _dither_kernels as dk
+    from ._kernels import forget_cached
     from .images import as_picture
     from .mapping import check_metric
 
@@ -260,13 +263,30 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     arrays = _kernel_inputs(pic, palette, metric)
     dtype = np.uint8 if len(palette) <= 256 else np.uint16
     out = np.empty(pic.shape, dtype=dtype)
+    try:
+        _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out)
+    except MemoryError:
+        raise
+    except Exception:
+        # A compiled-kernel cache file that cannot be read back: compile afresh, once.
+        if not forget_cached("_dither_kernels", "_engine_kernels"):
+            raise
+        _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out)
+    return out, arrays
+
+
+def _run_method(m, pic, arrays, strength, serpentine, measure, out) -> None:
+    """Run the kernels of method ``m``; fills ``out`` (and ``arrays["delta_e"]``)."""
+    from ._kernels import compiled
+
+    dk = compiled("_dither_kernels")
     a = arrays
     if m.kind == "diffusion":
         off = np.array(m.weights, dtype=np.float64)
         args = (a["codes"], a["lut"], a["state"], a["pinned"], a["pal_lin"], a["pal_pts"], a["mat"],
                 a["mat2"], a["space"], a["metric"], np.ascontiguousarray(off[:, 0].astype(np.int64)),
                 np.ascontiguousarray(off[:, 1].astype(np.int64)), np.ascontiguousarray(off[:, 2]),
-                float(strength), bool(serpentine))
+                strength, serpentine)
         if measure:
             arrays["delta_e"] = _diffuse_measured(args, a, out)
         else:
@@ -284,9 +304,8 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
                    a["mat2"], a["mat_lab"], a["space"], a["metric"], near, other, share, de_near, de_other)
         thr = np.ascontiguousarray(threshold_matrix(m.matrix))
         arrays["delta_e"] = np.empty(pic.shape, dtype=np.float64)
-        dk.ordered(smp.inverse.reshape(pic.shape), a["state"], a["pinned"], thr, float(strength), near, other,
+        dk.ordered(smp.inverse.reshape(pic.shape), a["state"], a["pinned"], thr, strength, near, other,
                    share, de_near, de_other, out, arrays["delta_e"])
-    return out, arrays
 
 
 def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
@@ -362,8 +381,9 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
         return map_picture(pic, palette, metric=metric)
     idx, arrays = dither_indices(pic, palette, method=m.name, strength=strength, metric=metric,
                                  serpentine=serpentine, measure=True)
-    from . import _dither_kernels as dk
+    from ._kernels import compiled
 
+    dk = compiled("_dither_kernels")
     de = arrays["delta_e"]
     clear = arrays["state"] == dk.CLEAR if pic.alpha is not None else None
     if clear is not None and clear.any():
