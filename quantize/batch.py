@@ -90,18 +90,44 @@ def _key(obj) -> str:
     return hashlib.sha256(json.dumps(obj, sort_keys=True).encode()).hexdigest()[:16]
 
 
-def _read_previous(output_dir: Path, notes: list) -> dict:
-    path = output_dir / MANIFEST_JSON
+def _read_previous(output_dir: Path, notes: list, force: bool) -> dict:
+    """The last run's manifest, checked before any work: a manifest that is not ours is someone
+    else's file, and is replaced only with ``force``."""
+    path, csv_path = output_dir / MANIFEST_JSON, output_dir / MANIFEST_CSV
+    for p in (path, csv_path):
+        if p.is_dir():
+            raise OutputError(f"{p}: is a folder; the batch writes its manifest there")
     if not path.exists():
+        if csv_path.exists() and not force:
+            raise OutputError(f"{csv_path}: exists without a batch {MANIFEST_JSON} beside it; not replaced "
+                              "without force")
         return {}
     try:
         doc = json.loads(path.read_text(encoding="utf-8"))
-        if doc.get("format") != _MANIFEST_FORMAT or not isinstance(doc.get("images"), list):
-            raise ValueError("not a batch manifest")
-        return doc
-    except (OSError, ValueError) as exc:
-        notes.append(f"{path}: previous manifest unreadable ({exc}); every image is redone")
+        if not isinstance(doc, dict) or doc.get("format") != _MANIFEST_FORMAT or not isinstance(doc.get("images"),
+                                                                                                 list):
+            raise ValueError(f'no "format": "{_MANIFEST_FORMAT}" with its images')
+    except (OSError, ValueError, RecursionError) as exc:
+        if not force:
+            raise OutputError(f"{path}: exists and is not a readable batch manifest ({_one_line(exc)}); "
+                              "not replaced without force") from None
+        notes.append(f"{path}: previous manifest unreadable ({_one_line(exc)}); every image is redone")
         return {}
+    rows = [r for r in doc["images"] if _usable_row(r)]
+    if len(rows) < len(doc["images"]):
+        notes.append(f"{path}: {len(doc['images']) - len(rows)} unreadable row(s) in the previous manifest; "
+                     "those images are redone")
+    doc["images"] = rows
+    if not isinstance(doc.get("shared"), (dict, type(None))):
+        doc["shared"] = None
+    return doc
+
+
+def _usable_row(r) -> bool:
+    # A hand-edited manifest must not stop the run: a row of the wrong shape is dropped.
+    outs = (r.get("outputs") or []) if isinstance(r, dict) else None
+    return (isinstance(r, dict) and isinstance(r.get("input"), str) and isinstance(outs, list)
+            and all(isinstance(o, str) for o in outs))
 
 
 def _up_to_date(prev: dict | None, key: str, src: Path, output_dir: Path) -> bool:
@@ -398,7 +424,8 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
     Raises
     ------
     QuantizeError
-        Missing input folder, bad output folder, no images found, a palette
+        Missing input folder, bad output folder (one holding a manifest that no
+        batch wrote is refused without ``force``), no images found, a palette
         file that fails to load (:class:`PaletteFileError`), Dask missing or
         unreachable.  Except for folder problems the manifest is written first.
     ValueError
@@ -433,7 +460,12 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
     except OSError as exc:
         raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
     notes: list = []
-    prev_doc = _read_previous(dst, notes)
+    prev_doc = _read_previous(dst, notes, force)
+    if shared and (dst / SHARED_PALETTE).is_dir():
+        raise OutputError(f"{dst / SHARED_PALETTE}: is a folder; the shared palette is written there")
+    if (shared and not force and (dst / SHARED_PALETTE).exists()
+            and (prev_doc.get("shared") or {}).get("palette_file") != SHARED_PALETTE):
+        raise OutputError(f"{dst / SHARED_PALETTE}: already exists; not replaced without force")
     prev_rows = {r.get("input"): r for r in prev_doc.get("images", []) if isinstance(r, dict)}
     owned = {o for r in prev_rows.values() for o in (r.get("outputs") or [])}
     rels = discover_images(src, include=include, exclude=exclude, skip=[dst])

@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import sys
 import time
+import warnings
 from pathlib import Path
 
 import click
@@ -38,7 +39,9 @@ def _run(ctx: click.Context, fn):
         if (ctx.find_root().obj or {}).get("debug"):
             raise
         msg = str(exc) or exc.__class__.__name__
-        if isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
+        if isinstance(exc, OSError) and exc.strerror and exc.filename is not None:
+            msg = f"{exc.filename}: {exc.strerror}"  # not "[Errno 2] ...: 'name'"
+        elif isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
             msg = f"{exc.filename}: {msg}"
         raise _Failure(msg.splitlines()[0]) from None
 
@@ -174,8 +177,10 @@ def _emit(as_json: bool, summary: dict, human):
 
 
 def _check_outputs(paths, force: bool, inputs):
-    """Refuse before any work: an existing output (without --force) or an input as output."""
+    """Refuse before any work: an existing output (without --force), an input as output, or a
+    folder that cannot take the file."""
     ins = {Path(p).resolve() for p in inputs}
+    folders = {}
     for p in paths:
         rp = Path(p).resolve()
         if rp in ins:
@@ -184,6 +189,23 @@ def _check_outputs(paths, force: bool, inputs):
             raise _Failure(f"{p}: already exists (use --force to replace it)")
         if not rp.parent.is_dir():
             raise _Failure(f"{p}: folder {rp.parent} does not exist")
+        folders.setdefault(rp.parent, p)
+    for folder, p in folders.items():
+        _probe_folder(folder, p)
+
+
+def _probe_folder(folder: Path, name) -> None:
+    """Create and remove a scratch file, so that a folder which takes no files is refused before
+    any output is written. ``os.access`` is no test: it says yes to root even in /proc."""
+    import os
+    import tempfile
+
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".quantize-", suffix=".probe", dir=folder)
+    except OSError as exc:
+        raise _Failure(f"{name}: cannot write in folder {folder} ({exc.strerror or exc})") from None
+    os.close(fd)
+    os.unlink(tmp)
 
 
 def _report_option(f):
@@ -192,8 +214,26 @@ def _report_option(f):
 
 
 def _report_targets(report_dir):
-    """The report page to check before work; a folder not yet made holds nothing to clobber."""
-    return [Path(report_dir) / "index.html"] if report_dir and Path(report_dir).is_dir() else []
+    """The report page to check before work. A folder not yet made holds nothing to clobber, but
+    the folder it will be made in must take files."""
+    if not report_dir:
+        return []
+    folder = Path(report_dir)
+    if folder.is_dir():
+        return [folder / "index.html"]
+    base = folder.resolve().parent
+    while not base.exists():
+        base = base.parent
+    if not base.is_dir():
+        raise _Failure(f"{report_dir}: cannot make the report folder; {base} is a file")
+    _probe_folder(base, report_dir)
+    return []
+
+
+def _warning_line(message, category, filename, lineno, line=None) -> str:
+    """Warnings as one line, like errors, without the source line Python adds."""
+    text = (str(message).splitlines() or [category.__name__])[0]
+    return f"quantize: warning: {text}\n"
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -209,6 +249,10 @@ def main(ctx, debug):
     """
     ctx.ensure_object(dict)
     ctx.obj["debug"] = debug
+    if not debug:
+        saved = warnings.formatwarning
+        warnings.formatwarning = _warning_line
+        ctx.call_on_close(lambda: setattr(warnings, "formatwarning", saved))
 
 
 @main.command()

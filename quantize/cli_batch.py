@@ -30,6 +30,8 @@ class _Bar:
         self.bar = None
 
     def __call__(self, done: int, total: int, item: str) -> None:
+        if not sys.stderr.isatty():  # click would still print the label: a stray line in a log
+            return
         if self.bar is None:
             self.bar = click.progressbar(length=max(total, 1), label="batch", file=sys.stderr, show_eta=False)
             self.bar.__enter__()
@@ -132,5 +134,7 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
             click.echo(f"note: {n}")
         click.echo("manifest: " + ", ".join(summary["manifest"]))
     if s["failed"]:
-        click.echo(f"quantize: error: {s['failed']} of {s['total']} images failed (see the manifest)", err=True)
+        names = ", ".join(f["input"] for f in failed[:3]) + (", ..." if len(failed) > 3 else "")
+        click.echo(f"quantize: error: {s['failed']} of {s['total']} images failed: {names} (see the manifest)",
+                   err=True)
         ctx.exit(EXIT_IMAGES_FAILED)

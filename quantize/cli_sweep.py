@@ -67,7 +67,7 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     """Fit a palette at every size from MIN to MAX to IMAGES (pooled) and tabulate
     the k-means cost, ΔE00 mean / p95 / max and the penalised score; mark the
     size each rule picks."""
-    from .cli import _check_outputs, _emit, _progress, _run
+    from .cli import _check_outputs, _emit, _progress, _report_targets, _run
 
     t0 = time.perf_counter()
     rule = rule or ("target" if target is not None else "bic")
@@ -76,9 +76,7 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     files = [p for p in (table_csv, table_json, plot, swatches) if p]
     if len({Path(p).resolve() for p in files}) != len(files):
         raise click.UsageError("two outputs name the same file")
-    _check_outputs(files, force, images)
-    if report_dir and not force and (Path(report_dir) / "index.html").exists():
-        _check_outputs([Path(report_dir) / "index.html"], force, images)
+    _check_outputs(files + _report_targets(report_dir), force, images)
 
     def work():
         from .sweep import sweep as run_sweep

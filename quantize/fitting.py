@@ -68,6 +68,8 @@ def parse_k(k) -> list[int]:
     elif isinstance(k, range):
         ks = list(k)
     elif isinstance(k, (tuple, list)) and len(k) == 2:
+        if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in k):
+            raise ValueError(f"palette size range must be two whole numbers, got {k!r}")
         lo, hi = int(k[0]), int(k[1])
         if lo > hi:
             raise ValueError(f"palette size range {lo}-{hi} has min > max")

@@ -8,6 +8,7 @@ file is replaced only with ``force``, and an input never.  Split out of
 
 
 import contextlib
+import io
 import os
 import tempfile
 import warnings
@@ -111,7 +112,16 @@ def save_image(
         return written
     if dpi is not None:
         options["dpi"] = dpi
-    written = _atomic_write(target, lambda fh: image.save(fh, format=fmt, **options), force=force, inputs=inputs)
+    # Encoded in memory, then written by Python: Pillow's encoders write to a
+    # real file through its descriptor and do not notice a short write, so on
+    # a full disk a JPEG came out cut short with no error.
+    buf = io.BytesIO()
+    try:
+        image.save(buf, format=fmt, **options)
+    except OSError as exc:
+        raise OutputError(f"{os.fspath(path)}: writing failed ({exc.strerror or exc})") from exc
+    data = buf.getvalue()
+    written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
     if note:
         warnings.warn(f"{os.fspath(path)}: {note}", ImageWarning, stacklevel=2)
     return written

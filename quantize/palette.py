@@ -39,7 +39,7 @@ __all__ = ["Palette", "parse_colour", "FORMAT_NAME", "FORMAT_VERSION"]
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
-_HEX = re.compile(r"^#?([0-9a-fA-F]{6})$")
+_HEX = re.compile(r"^#?([0-9a-fA-F]{6})\Z")  # \Z: "$" would let a trailing newline through
 
 
 def parse_colour(spec) -> np.ndarray:
@@ -76,7 +76,10 @@ def parse_colour(spec) -> np.ndarray:
         if len(lab) != 3:
             raise ValueError(f"colour {spec!r} is neither sRGB hex (#rrggbb) nor L,a,b")
     else:
-        lab = [float(v) for v in spec]
+        try:
+            lab = [float(v) for v in spec]
+        except (TypeError, ValueError):
+            raise ValueError(f"colour {spec!r} is neither sRGB hex (#rrggbb) nor L,a,b") from None
         if len(lab) != 3:
             raise ValueError(f"colour {spec!r} must have 3 components (L, a, b)")
     if not 0 <= lab[0] <= 100 or not all(np.isfinite(lab)):
@@ -237,6 +240,8 @@ class Palette:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:
             raise PaletteFileError(f"{p}: not JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+        except RecursionError:
+            raise PaletteFileError(f"{p}: not a palette (JSON nested too deeply)") from None
         return cls.from_dict(doc, source=str(p))
 
     @classmethod
@@ -250,12 +255,12 @@ class Palette:
         if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
             bad("format", f"not a quantize palette (expected \"format\": \"{FORMAT_NAME}\")")
         ver = doc.get("version")
-        if not isinstance(ver, int) or ver < 1:
+        if not isinstance(ver, int) or isinstance(ver, bool) or ver < 1:
             bad("version", f"expected a positive integer, got {ver!r}")
         if ver > FORMAT_VERSION:
-            bad("version", f"file is version {ver}; this quantize reads up to {FORMAT_VERSION}")
+            bad("version", f"file is version {str(ver)[:20]}; this quantize reads up to {FORMAT_VERSION}")
         space = doc.get("space", "lab")
-        if space not in SPACES:
+        if not isinstance(space, str) or space not in SPACES:
             bad("space", f"unknown space {space!r}; expected one of {', '.join(SPACES)}")
         cols = doc.get("colours")
         if not isinstance(cols, list) or not cols:
@@ -283,6 +288,8 @@ class Palette:
                 if (not isinstance(lab, list) or len(lab) != 3
                         or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in lab)):
                     bad(f"{where}.lab", f"expected [L, a, b], got {lab!r}")
+                if not all(_finite(v) for v in lab):  # Python's json reads NaN, Infinity and huge integers
+                    bad(f"{where}.lab", f"expected finite numbers, got {lab!r}")
                 labs.append((i, lab))
         rgb8 = np.array(rgb, dtype=np.uint8)
         if labs:
@@ -298,6 +305,13 @@ class Palette:
         if not isinstance(fit, dict):
             bad("fit", "expected an object")
         return cls(rgb8=rgb8, locked=np.array(locked), space=space, names=tuple(names), fit=fit)
+
+
+def _finite(v) -> bool:
+    try:
+        return bool(np.isfinite(float(v)))
+    except OverflowError:
+        return False
 
 
 def palette_from_colours(colours: Sequence, *, locked=None, space: str = "lab", names=()) -> Palette:

@@ -230,9 +230,13 @@ class Separation:
         ------
         OutputError
             A file exists without ``force``, or cannot be written.
+        SeparationError
+            ``marks`` with a margin that is not a positive, finite size.
         """
         from .images import atomic_write_bytes, atomic_write_text, save_image
 
+        if marks and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm) and margin_mm > 0):
+            raise SeparationError(f"margin_mm must be a positive size in mm, got {margin_mm!r}")
         out = Path(folder)
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder")
@@ -519,14 +523,14 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     d_px = mm_to_px(min_feature_mm, dpi)
     min_area = math.pi * d_px * d_px / 4.0
     if min_area > n_opaque:
-        raise SeparationError(f"a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at {dpi:g} dpi) "
-                              f"is larger than the whole image ({n_opaque} px): it would erase the image")
+        raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
+                              f"{dpi:g} dpi) is larger than the whole image ({n_opaque} px): it would erase the image")
     printed_before = int((opaque & (idx != sub)).sum()) if sub is not None else n_opaque
     cleaned, report = clean_small_regions(idx, ink_lab, min_area=min_area, opaque=opaque)
     printed_mask = opaque & (cleaned != sub) if sub is not None else opaque.copy()
     if printed_before and not printed_mask.any():
-        raise SeparationError(f"a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at {dpi:g} dpi) "
-                              "would erase the image: every printed area is smaller than that")
+        raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
+                              f"{dpi:g} dpi) would erase the image: every printed area is smaller than that")
     report["min_feature_mm"] = min_feature_mm
     report["delta_e_source"] = {"before": mapped.delta_e, "after": _source_delta_e(smp, cleaned, ink_lab)}
     printed = [i for i in range(palette.k) if i != sub and ((cleaned == i) & opaque).any()]

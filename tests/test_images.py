@@ -907,8 +907,9 @@ def test_bad_destinations(tmp_path, monkeypatch):
 
 @pytest.mark.parametrize("suffix", [".png", ".tif"])
 def test_failed_write_leaves_nothing_behind(tmp_path, monkeypatch, suffix):
-    # Indexed PNGs come from quantize's own encoder, TIFFs from Pillow: a disk
-    # that fills up half-way through either leaves the old file as it was.
+    # Indexed PNGs come from quantize's own encoder, TIFFs from Pillow: a
+    # failure while encoding or writing either leaves the old file as it was
+    # (tests/test_write_faults.py fills a disk for real).
     path = tmp_path / f"out{suffix}"
     save_image(path, _indices(), PALETTE)
     before = path.read_bytes()

@@ -1,0 +1,317 @@
+"""Hostile input at the command line and the public entry points.
+
+Each test is one class of fault found by a hostile-input audit. The project's
+rule is the oracle (RULES.md, docs/batch.md "Bad input"): a one-line message
+that names the file and the problem, no traceback, exit code 1 for a
+QuantizeError and 2 for bad usage, and nothing already on disk lost,
+changed or half-written.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from PIL import Image
+
+from quantize.cli import main
+from quantize.fitting import parse_k
+from quantize.palette import parse_colour
+
+# /proc takes no new files, even from root (os.access says it would): a folder
+# nobody can write in, whoever runs the tests.
+UNWRITABLE = Path("/proc")
+
+
+def _art(h=24, w=32, seed=0) -> np.ndarray:
+    """Three flat colours with a little noise: invented data, only to have an image."""
+    rng = np.random.default_rng(seed)
+    inks = np.array([[200, 16, 46], [31, 58, 147], [242, 242, 236]])
+    band = (np.arange(w) * 3 // w)[None, :].repeat(h, axis=0)
+    return np.clip(inks[band] + rng.integers(-4, 5, (h, w, 3)), 0, 255).astype(np.uint8)
+
+
+def _png(path: Path, rgb=None) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    Image.fromarray(_art() if rgb is None else rgb).save(path)
+    return path
+
+
+def _palette_doc(**over) -> dict:
+    # The file format in quantize/palette.py's module docstring.
+    doc = {"format": "quantize.palette", "version": 1, "space": "lab",
+           "colours": [{"hex": h, "locked": False, "name": None} for h in ("#c8102e", "#1f3a93", "#f2f2ec")],
+           "fit": {}}
+    doc.update(over)
+    return doc
+
+
+def _snapshot(root: Path) -> dict:
+    return {p.relative_to(root).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def _cli(*args):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def _assert_one_line_failure(r, code: int, *words: str) -> str:
+    """Exit ``code``, no exception escaped click, stderr one 'quantize: error:' line naming ``words``."""
+    assert r.exit_code == code, r.output
+    assert isinstance(r.exception, SystemExit), repr(r.exception)  # anything else is a traceback
+    assert "Traceback" not in r.output
+    lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("quantize: error:"), r.stderr
+    for w in words:
+        assert w in lines[0], lines[0]
+    return lines[0]
+
+
+# --------------------------------------------------------------------------- palette files
+
+def _deep(path: Path) -> None:
+    path.write_text("[" * 100_000 + "]" * 100_000)
+
+
+def _doc(**over):
+    return lambda path: path.write_text(json.dumps(_palette_doc(**over)))
+
+
+def _lab(value):
+    def write(path: Path):
+        doc = _palette_doc()
+        doc["colours"][0]["lab"] = value
+        path.write_text(json.dumps(doc))  # Python's json writes NaN and Infinity as bare words
+    return write
+
+
+@pytest.mark.parametrize("write, words", [
+    # RFC 8259 section 6: NaN and Infinity are not JSON numbers; Python's reader takes them anyway.
+    (_lab([float("nan"), 0.0, 0.0]), "colours[0].lab"),
+    (_lab([50.0, float("inf"), 0.0]), "colours[0].lab"),
+    (_lab([10 ** 400, 0, 0]), "colours[0].lab"),
+    # The palette format: "version" is a positive integer; true is a JSON boolean (RFC 8259 section 3).
+    (_doc(version=True), "version"),
+    # The palette format: "space" is one of the space names, never a list (was a TypeError).
+    (_doc(space=["lab"]), "space"),
+    # "#rrggbb" and nothing after it: a regex "$" also matched before a trailing newline.
+    (_doc(colours=[{"hex": "#123456\n"}]), "colours[0].hex"),
+    # Nesting deeper than the JSON reader's recursion limit (was a RecursionError).
+    (_deep, "nested"),
+], ids=["lab-nan", "lab-inf", "lab-huge-int", "version-true", "space-list", "hex-newline", "deep-nesting"])
+def test_bad_palette_file_is_refused_naming_file_and_place(tmp_path, write, words):
+    img = _png(tmp_path / "art.png")
+    pal = tmp_path / "bad.palette.json"
+    write(pal)
+    before = _snapshot(tmp_path)
+    for args in (["apply", pal, img, "-o", tmp_path / "out"],
+                 ["separate", img, "-o", tmp_path / "sep", "--palette", pal]):
+        r = _cli(*args)
+        _assert_one_line_failure(r, 1, "bad.palette.json", words)
+        assert _snapshot(tmp_path) == before  # nothing written, nothing changed
+        assert not (tmp_path / "out").exists() and not (tmp_path / "sep").exists()
+
+
+# --------------------------------------------------------------------------- outputs
+
+@pytest.mark.parametrize("args, named", [
+    # The error map was written first, then the output failed: a stray e.png was left.
+    (["-o", UNWRITABLE / "qz-out.png", "--error-map", "{tmp}/e.png"], "qz-out.png"),
+    (["-o", "{tmp}/o.png", "--error-map", UNWRITABLE / "qz-e.png"], "qz-e.png"),
+    # The reduced image was written, then the report folder could not be made: o.png was left.
+    (["-o", "{tmp}/o.png", "--report", UNWRITABLE / "qz-rep"], "qz-rep"),
+    (["-o", "{tmp}/o.png", "--report", "{tmp}/a-file/rep"], "rep"),
+], ids=["output-unwritable", "error-map-unwritable", "report-unwritable", "report-under-a-file"])
+def test_reduce_refuses_an_unwritable_destination_before_any_work(tmp_path, args, named):
+    img = _png(tmp_path / "art.png")
+    (tmp_path / "a-file").write_bytes(b"precious")
+    before = _snapshot(tmp_path)
+    args = [str(a).replace("{tmp}", str(tmp_path)) for a in args]
+    r = _cli("reduce", img, "-k", "2", "--restarts", "1", *args)
+    _assert_one_line_failure(r, 1, named)
+    assert _snapshot(tmp_path) == before  # no partial set of outputs, the file under "rep" untouched
+    assert not any(p.name.startswith(".") for p in tmp_path.iterdir())  # no scratch or .part file
+
+
+def test_sweep_and_apply_refuse_an_unwritable_report_folder_before_any_work(tmp_path):
+    img = _png(tmp_path / "art.png")
+    pal = tmp_path / "p.json"
+    pal.write_text(json.dumps(_palette_doc()))
+    before = _snapshot(tmp_path)
+    r = _cli("sweep", img, "-k", "2-3", "--restarts", "1", "--table-csv", tmp_path / "t.csv",
+             "--report", UNWRITABLE / "qz-srep")
+    _assert_one_line_failure(r, 1, "qz-srep")
+    r = _cli("apply", pal, img, "-o", tmp_path / "out", "--report", UNWRITABLE / "qz-arep")
+    _assert_one_line_failure(r, 1, "qz-arep")
+    assert _snapshot(tmp_path) == before and not (tmp_path / "out").exists()
+
+
+def test_os_errors_read_as_name_and_reason(tmp_path):
+    # Was "[Errno 2] No such file or directory: '/proc/...'", Python's repr of the error.
+    img = _png(tmp_path / "art.png")
+    pal = tmp_path / "p.json"
+    pal.write_text(json.dumps(_palette_doc()))
+    r = _cli("apply", pal, img, "-o", UNWRITABLE / "qz-apply")
+    line = _assert_one_line_failure(r, 1, str(UNWRITABLE / "qz-apply"))
+    assert "[Errno" not in line and "'" not in line
+
+
+# --------------------------------------------------------------------------- batch
+
+def test_batch_reports_bad_files_by_name_on_one_line_and_does_the_good_ones(tmp_path):
+    # docs/batch.md "Bad input": a corrupt image or a dangling link fails that image, the run goes
+    # on, exit code 1, `quantize: error: N of M images failed` on stderr.
+    src = tmp_path / "in"
+    _png(src / "good.png")
+    _png(src / "sub" / "sp ace ünï.png")
+    (src / "broken.png").write_bytes((src / "good.png").read_bytes()[:200])
+    (src / "gone.png").symlink_to(src / "deleted-before-reading.png")  # listed, then unreadable
+    before = _snapshot(src)
+    r = _cli("batch", src, "-o", tmp_path / "out", "-k", "2", "--restarts", "1", "--workers", "0")
+    # The progress bar's label went to stderr even when it was no terminal: a second line.
+    line = _assert_one_line_failure(r, 1, "2 of 4 images failed", "broken.png", "gone.png")
+    assert "good.png" not in line
+    assert "failed: broken.png:" in r.stdout and "failed: gone.png:" in r.stdout
+    assert (tmp_path / "out" / "good.png").is_file() and (tmp_path / "out" / "sub" / "sp ace ünï.png").is_file()
+    assert _snapshot(src) == before
+
+
+def _foreign_manifest_json(out: Path) -> Path:
+    (out / "manifest.json").write_text('{"made by": "another program"}')
+    return out / "manifest.json"
+
+
+def _foreign_manifest_csv(out: Path) -> Path:
+    (out / "manifest.csv").write_text("sku,colour\n1,red\n")
+    return out / "manifest.csv"
+
+
+def _not_json_manifest(out: Path) -> Path:
+    (out / "manifest.json").write_text("shipping notes, not JSON")
+    return out / "manifest.json"
+
+
+def _manifest_folder(out: Path) -> Path:
+    (out / "manifest.json").mkdir()
+    (out / "manifest.json" / "keep.txt").write_text("mine")
+    return out / "manifest.json"
+
+
+def _foreign_shared(out: Path) -> Path:
+    (out / "shared.palette.json").write_text(json.dumps(_palette_doc()))
+    return out / "shared.palette.json"
+
+
+def _shared_folder(out: Path) -> Path:
+    (out / "shared.palette.json").mkdir()
+    return out / "shared.palette.json"
+
+
+@pytest.mark.parametrize("make, shared", [
+    (_foreign_manifest_json, False),   # was replaced without --force
+    (_foreign_manifest_csv, False),    # was replaced without --force
+    (_not_json_manifest, False),       # was replaced without --force
+    (_manifest_folder, False),         # every image was done, then the manifest failed
+    (_foreign_shared, True),           # was refused only after sampling every image
+    (_shared_folder, True),
+], ids=["foreign-json", "foreign-csv", "not-json", "json-is-folder", "foreign-shared", "shared-is-folder"])
+def test_batch_never_replaces_a_file_it_did_not_write(tmp_path, make, shared):
+    src = tmp_path / "in"
+    _png(src / "a.png")
+    out = tmp_path / "out"
+    out.mkdir()
+    target = make(out)
+    before = _snapshot(tmp_path)
+    r = _cli("batch", src, "-o", out, "-k", "2", "--restarts", "1", "--workers", "0", *(["--shared"] * shared))
+    _assert_one_line_failure(r, 1, target.name)
+    assert _snapshot(tmp_path) == before  # no image written, the foreign file byte for byte as it was
+    assert target.exists()
+
+
+def test_batch_with_force_replaces_an_unreadable_manifest(tmp_path):
+    src = tmp_path / "in"
+    _png(src / "a.png")
+    out = tmp_path / "out"
+    out.mkdir()
+    _not_json_manifest(out)
+    r = _cli("batch", src, "-o", out, "-k", "2", "--restarts", "1", "--workers", "0", "--force")
+    assert r.exit_code == 0, r.output
+    assert json.loads((out / "manifest.json").read_text())["format"] == "quantize.batch-manifest"
+
+
+def test_batch_survives_malformed_rows_in_its_own_manifest(tmp_path):
+    # A hand-edited manifest of ours: rows of the wrong shape (was a TypeError traceback).
+    src = tmp_path / "in"
+    _png(src / "a.png")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "manifest.json").write_text(json.dumps({
+        "format": "quantize.batch-manifest", "shared": [1],
+        "images": [1, "x", {"input": 5}, {"input": "a.png", "status": "ok", "outputs": 5}]}))
+    r = _cli("batch", src, "-o", out, "-k", "2", "--restarts", "1", "--workers", "0")
+    assert r.exit_code == 0, r.output
+    assert isinstance(r.exception, SystemExit) or r.exception is None
+    assert "4 unreadable row(s)" in r.stdout and (out / "a.png").is_file()
+
+
+# --------------------------------------------------------------------------- separations
+
+def test_separate_names_the_file_when_clean_up_would_erase_it(tmp_path):
+    # One pixel is smaller than the smallest printable dot at any sensible setting.
+    img = _png(tmp_path / "dot.png", np.array([[[200, 16, 46]]], np.uint8))
+    before = _snapshot(tmp_path)
+    r = _cli("separate", img, "-o", tmp_path / "sep", "-n", "1")
+    assert "Traceback" not in r.output and isinstance(r.exception, SystemExit)
+    assert r.exit_code == 1
+    errors = [ln for ln in r.stderr.splitlines() if ln.startswith("quantize: error:")]
+    assert len(errors) == 1 and "dot.png" in errors[0] and "erase" in errors[0]
+    assert _snapshot(tmp_path) == before and not (tmp_path / "sep").exists()
+
+
+def test_separate_refuses_a_margin_that_is_not_a_number(tmp_path):
+    # click's FloatRange lets NaN through (every comparison with NaN is false); was
+    # "cannot convert float NaN to integer", naming nothing.
+    img = _png(tmp_path / "art.png")
+    r = _cli("separate", img, "-o", tmp_path / "sep", "-n", "2", "--marks", "--margin-mm", "nan")
+    _assert_one_line_failure(r, 1, "margin_mm", "nan")
+    assert not (tmp_path / "sep").exists()
+
+
+# --------------------------------------------------------------------------- warnings
+
+def test_warnings_print_as_one_line_without_source_code(tmp_path):
+    # A real process: inside pytest, warnings are recorded rather than printed.
+    frames = [Image.fromarray(_art(seed=s)).convert("P") for s in range(3)]
+    gif = tmp_path / "anim ünï.gif"
+    frames[0].save(gif, save_all=True, append_images=frames[1:], duration=50)
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    p = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(gif), "-o", str(tmp_path / "o.png"),
+                        "-k", "2", "--restarts", "1"], capture_output=True, text=True, env=env, check=False)
+    assert p.returncode == 0, p.stderr
+    lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+    assert lines and all(ln.startswith("quantize: warning: ") for ln in lines), p.stderr
+    assert any("anim ünï.gif" in ln and "frames" in ln for ln in lines)
+    assert "load_image(" not in p.stderr and ".py:" not in p.stderr
+
+
+# --------------------------------------------------------------------------- library validators
+
+@pytest.mark.parametrize("spec", [None, 5, ["a", "b", "c"], [None, 0, 0]])
+def test_parse_colour_refuses_non_colours_with_a_value_error(spec):
+    # Was TypeError ("'int' object is not iterable") or "could not convert string to float".
+    with pytest.raises(ValueError, match="neither sRGB hex"):
+        parse_colour(spec)
+
+
+@pytest.mark.parametrize("k", [(1, None), (5, "x"), (2.0, 4.0), (True, 3)])
+def test_parse_k_refuses_a_range_of_non_integers(k):
+    # Was a TypeError from int(None), or "invalid literal for int()", naming no option.
+    with pytest.raises(ValueError, match="palette size range must be two whole numbers"):
+        parse_k(k)

@@ -1,0 +1,86 @@
+"""Outputs on a disk that fills up while they are written.
+
+A file-size limit (``RLIMIT_FSIZE``, with ``SIGXFSZ`` ignored) makes the
+kernel refuse writes past a size, as a full disk does: the first write that
+crosses it is cut short, the next fails.  The limit is half the size of the
+output written without it.  Each case runs the command line in
+a child process with the limit set, and checks that the error is one line
+naming the file, that no output or temporary file is left, and that a file
+already there (replaced with ``--force``) is untouched.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from PIL import Image
+
+resource = pytest.importorskip("resource")
+
+_RUN_LIMITED = (
+    "import resource, runpy, signal, sys\n"
+    "signal.signal(signal.SIGXFSZ, signal.SIG_IGN)\n"
+    "limit = int(sys.argv.pop(1))\n"
+    "resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))\n"
+    "sys.argv = ['quantize'] + sys.argv[1:]\n"
+    "runpy.run_module('quantize', run_name='__main__')\n"
+)
+
+
+@pytest.fixture(scope="module")
+def photo(tmp_path_factory) -> Path:
+    # scikit-image's "astronaut" sample photo at a quarter of its area: its
+    # JPEG at 8 colours fits in one write of Pillow's encoder (under 64 KiB),
+    # the case where a short write went unnoticed.
+    from skimage import data
+
+    path = tmp_path_factory.mktemp("src") / "astronaut.png"
+    Image.fromarray(data.astronaut()[::2, ::2]).save(path)
+    return path
+
+
+@pytest.fixture(scope="module")
+def whole_sizes(photo, tmp_path_factory) -> dict:
+    """Size of each output written without a limit (the control), which reads back whole."""
+    folder = tmp_path_factory.mktemp("whole")
+    sizes = {}
+    for ext in (".png", ".jpg", ".tif"):
+        out = folder / f"out{ext}"
+        res = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(photo), "-o", str(out), "-k", "8"],
+                             capture_output=True, text=True, check=False)
+        assert res.returncode == 0, res.stderr
+        with Image.open(out) as im:
+            im.load()
+            assert im.size == (256, 256)
+        sizes[ext] = out.stat().st_size
+    return sizes
+
+
+def _limited(limit: int, *args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-c", _RUN_LIMITED, str(limit), *args], capture_output=True, text=True,
+                          check=False)
+
+
+@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif"])
+def test_a_full_disk_leaves_no_output_and_says_so(photo, whole_sizes, tmp_path, ext):
+    out = tmp_path / f"out{ext}"
+    res = _limited(whole_sizes[ext] // 2, "reduce", str(photo), "-o", str(out), "-k", "8")
+    assert res.returncode == 1, res.stderr
+    lines = res.stderr.strip().splitlines()
+    assert "Traceback" not in res.stderr
+    assert lines[-1].startswith(f"quantize: error: {out}: writing failed"), lines
+    assert list(tmp_path.iterdir()) == []  # neither the output nor a temporary file
+
+
+@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif"])
+def test_a_full_disk_keeps_the_file_it_would_replace(photo, whole_sizes, tmp_path, ext):
+    out = tmp_path / f"out{ext}"
+    out.write_bytes(b"the previous proof")
+    res = _limited(whole_sizes[ext] // 2, "reduce", str(photo), "-o", str(out), "-k", "8", "--force")
+    assert res.returncode == 1, res.stderr
+    assert out.read_bytes() == b"the previous proof"
+    assert sorted(p.name for p in tmp_path.iterdir()) == [out.name]
