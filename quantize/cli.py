@@ -329,6 +329,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
 
 
 def _check_indexed_size(out: Path, k: str):
+    """Refuse a palette size above 256 where the output is an indexed PNG."""
     top = int(k.split("-")[-1])
     if out.suffix.lower() == ".png" and top > 256:
         raise click.BadParameter(f"{top} colours do not fit an indexed PNG (at most 256)",

@@ -9,6 +9,8 @@ from __future__ import annotations
 import json
 import sys
 
+from pathlib import Path
+
 import click
 
 SPACE_NAMES = ("lab", "oklab", "cam16ucs")
@@ -98,6 +100,9 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
 
     if shared and palette_file:
         raise click.UsageError("give either --palette or --shared, not both")
+    from .cli import _check_indexed_size
+
+    _check_indexed_size(Path(f"image.{fmt}"), colours)  # as reduce: an indexed PNG holds 256 colours
     bar = _Bar()
     try:
         res = run_batch(input_dir, output_dir, include=include or None, exclude=exclude, palette=palette_file,

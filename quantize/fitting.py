@@ -15,7 +15,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from .clustering import PaletteSizeWarning, check_init, kmeans, lloyd_from, tolerance_scale
-from .palette import Palette, parse_colour
+from .palette import Palette, parse_locked
 from .selection import choose_k, check_rule, robust_error
 
 __all__ = ["fit_palette", "Candidate", "fit_candidates", "parse_k", "load_samples"]
@@ -321,13 +321,9 @@ def fit_candidates(sample, ks: Sequence[int], *, space="lab", restarts=8, seed=0
         raise ValueError(f"unknown refinement {refine!r}; choose one of: {', '.join(REFINES)}")
     from .colourspace import srgb8_to_space
 
-    fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
+    fixed_rgb8 = parse_locked(locked, min(ks))
     fixed = srgb8_to_space(fixed_rgb8, space) if len(fixed_rgb8) else None
-    if len(fixed_rgb8) and len({tuple(c) for c in fixed_rgb8}) != len(fixed_rgb8):
-        raise ValueError("the same locked colour is given twice")
     m = len(fixed_rgb8)
-    if m > min(ks):
-        raise ValueError(f"{m} locked colours do not fit in a palette of {min(ks)}")
     full_pts = sample.points(space)
     full_tol = 1e-4 * tolerance_scale(full_pts, sample.weights)
     bin_pts, bin_w = sample.binned(space)
@@ -464,6 +460,7 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     ks = parse_k(k)
     if rule == "target" and (target is None or not target > 0):
         raise ValueError(f"the target rule needs a positive ΔE00 target, got {target!r}")
+    parse_locked(locked, min(ks))  # before any image is read
     sample, sources, load_notes = load_samples(images, weighting=weighting, max_pixels=max_pixels)
     size_notes = []
     ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]

@@ -35,7 +35,7 @@ import numpy as np
 
 from .errors import PaletteFileError
 
-__all__ = ["Palette", "parse_colour", "FORMAT_NAME", "FORMAT_VERSION"]
+__all__ = ["Palette", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
@@ -312,6 +312,39 @@ def _finite(v) -> bool:
         return bool(np.isfinite(float(v)))
     except OverflowError:
         return False
+
+
+def parse_locked(locked, k_min: int) -> np.ndarray:
+    """Locked colours as 8-bit sRGB, shape (m, 3), checked against the smallest palette size.
+
+    ``locked`` is a sequence of colour specs (see :func:`parse_colour`); one
+    spec on its own (a hex string, or one L, a, b triple) counts as a
+    one-colour sequence, not as a sequence of characters or numbers.
+
+    Raises
+    ------
+    ValueError
+        A spec that is not a colour, the same colour twice, or more locked
+        colours than ``k_min``.
+
+    Examples
+    --------
+    >>> parse_locked("#ffffff", 4).tolist()
+    [[255, 255, 255]]
+    >>> parse_locked([(100, 0, 0), "#000000"], 4).tolist()
+    [[255, 255, 255], [0, 0, 0]]
+    """
+    if locked is None:
+        locked = ()
+    elif isinstance(locked, str) or (isinstance(locked, (tuple, list, np.ndarray)) and len(locked) == 3
+                                     and all(isinstance(v, (int, float, np.number)) for v in locked)):
+        locked = (locked,)
+    rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
+    if len({tuple(c) for c in rgb8.tolist()}) != len(rgb8):
+        raise ValueError("the same locked colour is given twice")
+    if len(rgb8) > k_min:
+        raise ValueError(f"{len(rgb8)} locked colours do not fit in a palette of {k_min}")
+    return rgb8
 
 
 def palette_from_colours(colours: Sequence, *, locked=None, space: str = "lab", names=()) -> Palette:

@@ -173,15 +173,11 @@ def sweep_sample(sample, ks: Sequence[int], *, space: str = "lab", restarts: int
     from .clustering import PaletteSizeWarning, kmeans, tolerance_scale
     from .colourspace import srgb8_to_space
     from .fitting import size_workers
-    from .palette import parse_colour
+    from .palette import parse_locked
     from .selection import choose_k
 
-    fixed_rgb8 = np.array([parse_colour(c) for c in locked], dtype=np.uint8).reshape(-1, 3)
-    if len({tuple(c) for c in fixed_rgb8}) != len(fixed_rgb8):
-        raise ValueError("the same locked colour is given twice")
+    fixed_rgb8 = parse_locked(locked, ks[0])
     n_fixed = len(fixed_rgb8)
-    if n_fixed > ks[0]:
-        raise ValueError(f"{n_fixed} locked colours do not fit in a palette of {ks[0]}")
     fixed = srgb8_to_space(fixed_rgb8, space) if n_fixed else None
     full_pts, full_w = sample.points(space), sample.weights
     bin_pts, bin_w = sample.binned(space)
@@ -357,6 +353,9 @@ def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, se
         raise ValueError(f"a ΔE00 target must be positive, got {target!r}")
     if rule == "target" and target is None:
         raise ValueError("the target rule needs a positive ΔE00 target, got None")
+    from .palette import parse_locked
+
+    parse_locked(locked, ks[0])  # before any image is read
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
         raise ValueError("no images given: the image set is empty")

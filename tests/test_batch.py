@@ -419,3 +419,11 @@ def test_dask_missing_gives_a_clear_message(tree, tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "dask.distributed", None)  # import now raises ImportError
     with pytest.raises(QuantizeError, match=r"pip install 'quantize\[dask\]'"):
         run_batch(tree, tmp_path / "out", cluster="tcp://127.0.0.1:1", **FAST)
+
+
+def test_more_than_256_colours_are_refused_for_png_as_reduce_refuses_them(tree, tmp_path):
+    # An indexed PNG holds at most 256 colours (PNG specification, PLTE chunk).
+    res = CliRunner().invoke(batch, [str(tree), "-o", str(tmp_path / "out"), "-k", "300"])
+    assert res.exit_code == 2
+    assert "300 colours do not fit an indexed PNG (at most 256)" in res.output
+    assert not (tmp_path / "out").exists()

@@ -90,3 +90,29 @@ def test_missing_and_folder(tmp_path):
         Palette.load(tmp_path / "nope.json")
     with pytest.raises(PaletteFileError, match="folder"):
         Palette.load(tmp_path)
+
+
+def test_one_locked_colour_may_be_given_on_its_own():
+    # A bare hex string or one L, a, b triple is one colour, not a sequence
+    # of characters or numbers.  Lab of sRGB white (IEC 61966-2-1): L* = 100.
+    from quantize.palette import parse_locked
+
+    assert parse_locked("#f0e6d2", 3).tolist() == [[240, 230, 210]]
+    assert parse_locked((100.0, 0.0, 0.0), 3).tolist() == [[255, 255, 255]]
+    assert parse_locked(["#f0e6d2", (100, 0, 0)], 3).tolist() == [[240, 230, 210], [255, 255, 255]]
+    with pytest.raises(ValueError, match="given twice"):
+        parse_locked(["#FFFFFF", (100, 0, 0)], 3)
+    with pytest.raises(ValueError, match="do not fit in a palette of 1"):
+        parse_locked(["#000000", "#ffffff"], 1)
+
+
+def test_fit_palette_takes_a_bare_locked_colour_and_checks_it_before_reading(tmp_path):
+    from quantize import fit_palette
+
+    rgb = np.zeros((8, 8, 3), np.uint8)
+    rgb[:, 4:] = [200, 30, 40]
+    pal = fit_palette(rgb, 3, locked="#f0e6d2")
+    assert pal.hex[0] == "#f0e6d2" and bool(pal.locked[0])
+    # A bad lock fails before the (missing) image is opened.
+    with pytest.raises(ValueError, match="neither sRGB hex"):
+        fit_palette(tmp_path / "missing.png", 3, locked="not a colour")
