@@ -412,16 +412,28 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         _check_outputs(maps, force, list(images) + [palette])
 
     def work():
+        from .errors import QuantizeError
+        from .images import check_image_file
+
         pal = Palette.load(palette)
+        for im in images:  # a file that is not an image stops the run before any output
+            check_image_file(im, max_pixels=max_pixels)
         od.mkdir(parents=True, exist_ok=True)
         results, extras = [], []
         inputs = list(images) + [palette]
         with _progress(len(images), "mapping") as bar:
             for im, out, emap in zip(images, outs, maps):
-                res = pal.apply(im, **dopts.apply_kwargs(), metric=_metric(nearest), max_pixels=max_pixels)
-                res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
-                                                         error_map_path=emap)
-                res.save(out, force=force, inputs=inputs)
+                try:
+                    res = pal.apply(im, **dopts.apply_kwargs(), metric=_metric(nearest), max_pixels=max_pixels)
+                    res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
+                                                             error_map_path=emap)
+                    res.save(out, force=force, inputs=inputs)
+                except QuantizeError as exc:
+                    if results:  # damage found only when decoding: say what is already written
+                        done = ", ".join(str(o) for o in outs[:len(results)])
+                        raise QuantizeError(f"{exc}; written before it ({len(results)} of {len(images)}): "
+                                            f"{done}") from exc
+                    raise
                 results.append(res)
                 extras.append((dextra, dlines))
                 bar.update(1)

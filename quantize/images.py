@@ -73,6 +73,7 @@ __all__ = [
     "ProfileWarning",
     "as_picture",
     "atomic_write_bytes",
+    "check_image_file",
     "atomic_write_text",
     "load_image",
     "save_image",
@@ -367,7 +368,7 @@ def _reason(exc: BaseException) -> str:
     return f"cannot decode the image ({text})"
 
 
-def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_Note]]:
+def _file_head(path: PathLike, max_pixels: int | None) -> tuple[str, Path, bytes]:
     if max_pixels is not None and max_pixels < 1:
         raise ValueError(f"max_pixels must be a positive integer or None, got {max_pixels!r}")
     name = os.fspath(path)
@@ -383,6 +384,34 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
         raise ImageReadError(f"{name}: cannot read the file ({exc.strerror or exc})") from exc
     if not head:
         raise ImageReadError(f"{name}: file is empty (0 bytes)")
+    return name, p, head
+
+
+def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -> tuple[int, int]:
+    """Check that ``path`` is an image this package can open, from its header alone.
+
+    A cheap test before a run that writes one output per input, so that a
+    file that is missing, empty, not an image or over the pixel limit stops
+    the run before anything is written.  Damage past the header shows only
+    when the pixels are decoded (:func:`load_image`).
+
+    Returns
+    -------
+    (width, height)
+
+    Raises
+    ------
+    ImageReadError
+        As :func:`load_image` for those faults.
+    """
+    name, p, _ = _file_head(path, max_pixels)
+    with _decode_errors(name), _open_pil(p) as img:
+        _check_pixels(name, img.size, max_pixels)
+        return int(img.size[0]), int(img.size[1])
+
+
+def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_Note]]:
+    name, p, head = _file_head(path, max_pixels)
 
     from . import _deep
 

@@ -94,6 +94,38 @@ def test_fit_then_apply(art, tmp_path):
     assert r.exit_code == 0 and (outdir / "art.tif").exists()
 
 
+def test_apply_stops_before_any_output_when_an_input_is_not_an_image(art, tmp_path):
+    pj = tmp_path / "p.json"
+    assert run("fit", art, "-o", pj, "-k", "4").exit_code == 0
+    bad = tmp_path / "notes.png"
+    bad.write_text("not an image")
+    outdir = tmp_path / "mapped"
+    r = run("apply", pj, art, bad, "-o", outdir)
+    assert r.exit_code == 1
+    assert f"{bad}: not an image file" in r.output
+    assert not outdir.exists()
+
+
+def test_apply_says_which_outputs_were_written_before_damage_found_in_decoding(art, tmp_path):
+    # A JPEG cut short after its header: only decoding finds the damage.
+    # scikit-image's "chelsea" sample photo.
+    from skimage import data
+
+    pj = tmp_path / "p.json"
+    assert run("fit", art, "-o", pj, "-k", "4").exit_code == 0
+    whole = tmp_path / "cat.jpg"
+    Image.fromarray(data.chelsea()).save(whole, quality=90)
+    cut = tmp_path / "cut.jpg"
+    cut.write_bytes(whole.read_bytes()[: whole.stat().st_size // 2])
+    outdir = tmp_path / "mapped"
+    r = run("apply", pj, art, cut, "-o", outdir)
+    assert r.exit_code == 1
+    line = r.output.strip().splitlines()[-1]
+    assert f"{cut}: file is truncated or damaged" in line
+    assert f"written before it (1 of 2): {outdir / 'art.png'}" in line
+    assert sorted(p.name for p in outdir.iterdir()) == ["art.png"]
+
+
 def _file(name, data):
     def make(d):
         p = d / name
