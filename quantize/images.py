@@ -431,8 +431,32 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
                 if frames > 1:
                     notes.append((ImageWarning, f"{name}: holds {frames} frames or pages; only the first is used"))
                 img.load()
+                if img.format == "PNG":
+                    _check_png_complete(img, p, name)
                 picture = _finish(name, *_from_pil(img, name, notes), notes)
     return picture, notes
+
+
+def _check_png_complete(img: Image.Image, path: Path, name: str) -> None:
+    """Refuse a PNG whose image data ends before its last row.
+
+    Pillow fills the missing rows with zeros and reports nothing when the
+    compressed data ends cleanly, early.  Missing rows come out as zeros at
+    the bottom (or in every other row, interlaced), so the data is counted
+    only when one of the last two rows is all zeros.
+    """
+    h = img.size[1]
+    tail = np.asarray(img.crop((0, max(0, h - 2), img.size[0], h)))
+    if tail.reshape(tail.shape[0], -1).any(axis=1).all():
+        return
+    from ._png import image_data_bytes
+
+    with open(path, "rb") as fh:
+        counted = image_data_bytes(fh)
+    if counted is not None and counted[0] < counted[1]:
+        got, expected = counted
+        raise ImageReadError(f"{name}: file is truncated or damaged (its image data stops after "
+                             f"{100.0 * got / expected:.0f} % of the image)")
 
 
 def _open_pil(path: Path) -> Image.Image:

@@ -961,3 +961,66 @@ def test_save_image_validates_arrays(tmp_path, indices, palette, kwargs, match):
     with pytest.raises(ValueError, match=match):
         save_image(tmp_path / "x.png", indices, palette, **kwargs)
     assert not list(tmp_path.iterdir())
+
+
+# --------------------------------------------------------------------------- PNG data that ends early
+
+def _png(width, height, rows: bytes, *, interlace=0) -> bytes:
+    """An 8-bit RGB PNG from filtered row bytes (PNG specification, ISO/IEC 15948)."""
+    def chunk(kind, body):
+        return struct.pack(">I", len(body)) + kind + body + struct.pack(">I", zlib.crc32(kind + body) & 0xFFFFFFFF)
+
+    ihdr = struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, interlace)
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr) + chunk(b"IDAT", zlib.compress(rows))
+            + chunk(b"IEND", b""))
+
+
+def _rows(pixels: np.ndarray) -> bytes:
+    return b"".join(b"\x00" + row.tobytes() for row in pixels)
+
+
+def _adam7(pixels: np.ndarray) -> bytes:
+    # The seven passes of Adam7 interlacing (PNG specification, section 8.2).
+    passes = ((0, 0, 8, 8), (4, 0, 8, 8), (0, 4, 4, 8), (2, 0, 4, 4), (0, 2, 2, 4), (1, 0, 2, 2), (0, 1, 1, 2))
+    return b"".join(_rows(pixels[y0::dy, x0::dx]) for x0, y0, dx, dy in passes if pixels[y0::dy, x0::dx].size)
+
+
+@pytest.fixture()
+def cat_pixels():
+    # A 29 x 37 crop of scikit-image's "chelsea" sample photo: odd sizes exercise
+    # the partial Adam7 blocks.
+    from skimage import data
+
+    return np.ascontiguousarray(data.chelsea()[100:129, 200:237])
+
+
+def test_a_png_whose_data_ends_before_its_last_row_is_refused(tmp_path, cat_pixels):
+    h, w = cat_pixels.shape[:2]
+    path = tmp_path / "short.png"
+    path.write_bytes(_png(w, h + 10, _rows(cat_pixels)))  # the header promises 10 rows more
+    with Image.open(path) as im:
+        im.load()  # Pillow itself reads it, the missing rows as zeros
+        assert not np.asarray(im)[h:].any()
+    with pytest.raises(ImageReadError, match="truncated or damaged") as exc:
+        load_image(path)
+    _one_line_naming(exc, path)
+
+
+def test_complete_pngs_with_black_last_rows_are_read(tmp_path, cat_pixels):
+    pixels = cat_pixels.copy()
+    pixels[-3:] = 0  # black last rows make the reader count the data, and it is all there
+    for interlace, rows in ((0, _rows(pixels)), (1, _adam7(pixels))):
+        path = tmp_path / f"black-{interlace}.png"
+        path.write_bytes(_png(pixels.shape[1], pixels.shape[0], rows, interlace=interlace))
+        with Image.open(path) as im:
+            np.testing.assert_array_equal(np.asarray(im.convert("RGB")), pixels)  # Pillow agrees it is whole
+        np.testing.assert_array_equal(load_image(path).rgb, pixels)
+
+
+def test_an_interlaced_png_that_ends_early_is_refused(tmp_path, cat_pixels):
+    data = _adam7(cat_pixels)
+    path = tmp_path / "short-interlaced.png"
+    path.write_bytes(_png(cat_pixels.shape[1], cat_pixels.shape[0], data[: len(data) * 3 // 4], interlace=1))
+    with pytest.raises(ImageReadError, match="truncated or damaged") as exc:
+        load_image(path)
+    _one_line_naming(exc, path)
