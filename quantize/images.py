@@ -312,6 +312,12 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
         elif head[:4] in _TIFF_MAGIC:
             deep = _deep.read_tiff16(p, name, max_pixels, notes)
         if deep is not None:
+            if head[:8] == _PNG_SIGNATURE:
+                colour, alpha = deep[0], deep[1]
+                tail = colour[-2:].reshape(min(2, len(colour)), -1)
+                if alpha is not None:
+                    tail = np.concatenate([tail, alpha[-2:].reshape(len(tail), -1)], axis=1)
+                _check_png_complete(tail, p, name)
             picture = _finish(name, *_finish_deep(name, *deep, notes), notes)
         else:
             with _open_pil(p) as img:
@@ -321,22 +327,23 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
                     notes.append((ImageWarning, f"{name}: holds {frames} frames or pages; only the first is used"))
                 img.load()
                 if img.format == "PNG":
-                    _check_png_complete(img, p, name)
+                    h = img.size[1]
+                    tail = np.asarray(img.crop((0, max(0, h - 2), img.size[0], h)))
+                    _check_png_complete(tail.reshape(tail.shape[0], -1), p, name)
                 picture = _finish(name, *_from_pil(img, name, notes), notes)
     return picture, notes
 
 
-def _check_png_complete(img: Image.Image, path: Path, name: str) -> None:
+def _check_png_complete(tail: np.ndarray, path: Path, name: str) -> None:
     """Refuse a PNG whose image data ends before its last row.
 
     Pillow fills the missing rows with zeros and reports nothing when the
     compressed data ends cleanly, early.  Missing rows come out as zeros at
     the bottom (or in every other row, interlaced), so the data is counted
-    only when one of the last two rows is all zeros.
+    only when one of the last two stored rows (``tail``, one row of samples
+    per line, alpha included) is all zeros.
     """
-    h = img.size[1]
-    tail = np.asarray(img.crop((0, max(0, h - 2), img.size[0], h)))
-    if tail.reshape(tail.shape[0], -1).any(axis=1).all():
+    if tail.any(axis=1).all():
         return
     from ._png import image_data_bytes
 

@@ -1024,3 +1024,29 @@ def test_an_interlaced_png_that_ends_early_is_refused(tmp_path, cat_pixels):
     with pytest.raises(ImageReadError, match="truncated or damaged") as exc:
         load_image(path)
     _one_line_naming(exc, path)
+
+
+def test_a_16_bit_png_whose_data_ends_early_is_refused(tmp_path, cat_pixels):
+    # 16-bit colour PNGs take the reader that keeps both bytes; the same check applies.
+    # Samples are scikit-image's "chelsea" crop scaled to 16 bits (x 257).
+    deep = (cat_pixels.astype(">u2") * 257).astype(">u2")
+    h, w = deep.shape[:2]
+
+    def chunk(kind, body):
+        return struct.pack(">I", len(body)) + kind + body + struct.pack(">I", zlib.crc32(kind + body) & 0xFFFFFFFF)
+
+    def png16(height):
+        ihdr = struct.pack(">IIBBBBB", w, height, 16, 2, 0, 0, 0)
+        return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr) + chunk(b"IDAT", zlib.compress(_rows(deep)))
+                + chunk(b"IEND", b""))
+
+    whole = tmp_path / "whole16.png"
+    whole.write_bytes(png16(h))
+    pic = load_image(whole)
+    assert pic.bit_depth == 16
+    np.testing.assert_array_equal(pic.rgb, deep.astype(np.uint16))
+    short = tmp_path / "short16.png"
+    short.write_bytes(png16(h + 7))
+    with pytest.raises(ImageReadError, match="truncated or damaged") as exc:
+        load_image(short)
+    _one_line_naming(exc, short)
