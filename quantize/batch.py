@@ -212,6 +212,13 @@ def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
 
 # --------------------------------------------------------------------------- the run
 
+def _written_since(path: Path, since_ns: int) -> bool:
+    try:
+        return path.is_file() and path.stat().st_mtime_ns >= since_ns
+    except OSError:
+        return False
+
+
 def _plan(rels, src: Path, dst: Path, base: dict, *, fmt, per_image, owned, force, rows) -> list[dict]:
     """One job per image; images whose outputs would collide are failed into ``rows`` instead."""
     jobs, by_output = [], {}
@@ -367,8 +374,10 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
            "settings": settings, "settings_key": None, "summary": None, "palette_report": None, "error": None,
            "notes": notes, "images": []}
     rows: dict = {}
+    planned: dict = {}  # input -> the outputs its job would write
     state = {"written": False}
     t_run = time.perf_counter()
+    started_ns = time.time_ns()
 
     def finish(error: str | None = None) -> BatchResult:
         ordered = []
@@ -376,6 +385,11 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
             r = rows.get(str(rel))
             if r is None:  # never reached this run: keep what an earlier run recorded
                 r = dict(prev_rows.get(str(rel)) or {"input": str(rel), "status": "not run", "outputs": []})
+                # A worker may have finished this image after the run was stopped: its
+                # files are this run's own, so they are listed for the next run to replace.
+                late = [o for o in planned.get(str(rel), ()) if _written_since(dst / o, started_ns)]
+                if late:
+                    r["outputs"] = sorted(set(r.get("outputs") or []) | set(late))
             ordered.append(r)
         doc["images"] = ordered
         doc["summary"] = _summary(ordered)
@@ -398,6 +412,7 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
             "max_pixels": DEFAULT_MAX_PIXELS if max_pixels is None else max_pixels}
     jobs = _plan(rels, src, dst, base, fmt=fmt, per_image=mode == "per-image", owned=owned, force=force,
                  rows=rows)
+    planned.update((j["rel"], j["outputs_rel"]) for j in jobs)
     client = None
     try:
         client, mapper = _executor(cluster, workers)
@@ -431,7 +446,8 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
             else:
                 todo.append(j)
         total = done0 + len(todo)
-        for i, (job, result) in enumerate(mapper(process_image, todo, (palette_doc,)), start=1):
+        results = state["results"] = mapper(process_image, todo, (palette_doc,))
+        for i, (job, result) in enumerate(results, start=1):
             if isinstance(result, BaseException):
                 result = {"input": job["rel"], "status": "failed", "outputs": [], "error": _one_line(result)}
             result["settings_key"] = key
@@ -440,6 +456,14 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
                 progress(done0 + i, total, job["rel"])
         return finish()
     except BaseException as exc:
+        results = state.get("results")
+        if results is not None and hasattr(results, "close"):
+            # Let the images already in the workers finish (one per worker), so
+            # that the manifest lists every file this run wrote.
+            try:
+                results.close()
+            except BaseException:  # a second interrupt while waiting
+                pass
         if not state["written"]:
             finish("interrupted" if isinstance(exc, KeyboardInterrupt) else _one_line(exc))
         raise

@@ -92,26 +92,37 @@ def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, obj
 
     slots = max(1, sum(client.nthreads().values()))
     todo = list(reversed(items))
-    owner = {}
+    owner, running = {}, {}
     ac = as_completed(loop=client.loop)
     while todo and len(owner) < slots:
         item = todo.pop()
         fut = client.submit(fn, item, *extra, pure=False)
         owner[fut.key] = item
+        running[fut.key] = fut
         ac.add(fut)
-    for fut in ac:
-        item = owner.pop(fut.key)
-        try:
-            result = fut.result()
-        except Exception as exc:  # noqa: BLE001 - a lost worker or a task error fails this image only
-            result = exc
-        fut.release()
-        yield item, result
-        if todo:
-            nxt = todo.pop()
-            f2 = client.submit(fn, nxt, *extra, pure=False)
-            owner[f2.key] = nxt
-            ac.add(f2)
+    try:
+        for fut in ac:
+            item = owner.pop(fut.key)
+            running.pop(fut.key, None)
+            try:
+                result = fut.result()
+            except Exception as exc:  # noqa: BLE001 - a lost worker or a task error fails this image only
+                result = exc
+            fut.release()
+            yield item, result
+            if todo:
+                nxt = todo.pop()
+                f2 = client.submit(fn, nxt, *extra, pure=False)
+                owner[f2.key] = nxt
+                running[f2.key] = f2
+                ac.add(f2)
+    finally:
+        if running:
+            # Stopped early: let the images already on the workers finish, so
+            # that the manifest written next lists every file they wrote.
+            from dask.distributed import wait
+
+            wait(list(running.values()))
 
 
 def _executor(cluster, workers):

@@ -230,6 +230,25 @@ def _report_targets(report_dir):
     return []
 
 
+def _stop_on_terminate(ctx: click.Context) -> None:
+    """Treat SIGTERM (a job scheduler, ``kill``) as Ctrl-C.
+
+    Python's default for SIGTERM ends the process on the spot, which can
+    leave a temporary ``.part`` file beside an output being written.  As an
+    interrupt, the atomic writers remove it and the run stops with one line.
+    """
+    import signal
+
+    def interrupt(signum, frame):
+        raise KeyboardInterrupt
+
+    try:
+        saved = signal.signal(signal.SIGTERM, interrupt)
+    except (ValueError, AttributeError):  # not the main thread, or no SIGTERM here
+        return
+    ctx.call_on_close(lambda: signal.signal(signal.SIGTERM, saved))
+
+
 def _warning_line(message, category, filename, lineno, line=None) -> str:
     """Warnings as one line, like errors, without the source line Python adds."""
     text = (str(message).splitlines() or [category.__name__])[0]
@@ -249,6 +268,7 @@ def main(ctx, debug):
     """
     ctx.ensure_object(dict)
     ctx.obj["debug"] = debug
+    _stop_on_terminate(ctx)
     if not debug:
         saved = warnings.formatwarning
         warnings.formatwarning = _warning_line

@@ -329,6 +329,30 @@ def test_an_interrupted_run_still_writes_its_manifest(tree, tmp_path):
     assert [r["status"] for r in res.rows] == ["skipped", "skipped", "failed", "ok"]
 
 
+def test_images_still_in_the_workers_when_a_run_stops_are_listed_and_redone(tmp_path):
+    # Two worker processes: when the run stops after the first result, the
+    # other worker is still busy with an image and finishes it.  The manifest
+    # must list that image's files, so that the rerun may replace them rather
+    # than fail on them as someone else's.
+    root = tmp_path / "in"
+    for i in range(6):
+        _write(root / f"p{i}.png", flat_artwork(3, 10 + i, size=40)[0])
+
+    def stop_at_first(done, total, item):
+        raise KeyboardInterrupt
+
+    out = tmp_path / "out"
+    with pytest.raises(KeyboardInterrupt):
+        run_batch(root, out, workers=2, progress=stop_at_first, **FAST)
+    doc = _manifest(out)
+    written = {p.name for p in out.iterdir()} - {MANIFEST_JSON, MANIFEST_CSV}
+    listed = {o for r in doc["images"] for o in r["outputs"]}
+    assert written and written <= listed
+    res = run_batch(root, out, workers=2, **FAST)
+    assert res.failed == 0
+    assert {r["status"] for r in res.rows} <= {"ok", "skipped"}
+
+
 # --------------------------------------------------------------------------- bad folders
 
 def test_empty_folder(tmp_path):
@@ -427,3 +451,24 @@ def test_more_than_256_colours_are_refused_for_png_as_reduce_refuses_them(tree, 
     assert res.exit_code == 2
     assert "300 colours do not fit an indexed PNG (at most 256)" in res.output
     assert not (tmp_path / "out").exists()
+
+
+def test_images_still_on_dask_workers_when_a_run_stops_are_listed_and_redone(tmp_path, dask_cluster):
+    # As with local workers: every file on disk after the stop is in the manifest, and the
+    # rerun completes.  (With this in-process cluster the tasks still running are usually
+    # cancelled when the client closes, so the wait for them is seldom exercised here.)
+    root = tmp_path / "in"
+    for i in range(6):
+        _write(root / f"p{i}.png", flat_artwork(3, 20 + i, size=40)[0])
+
+    def stop_at_first(done, total, item):
+        raise KeyboardInterrupt
+
+    out = tmp_path / "out"
+    with pytest.raises(KeyboardInterrupt):
+        run_batch(root, out, cluster=dask_cluster.scheduler_address, progress=stop_at_first, **FAST)
+    doc = _manifest(out)
+    written = {p.name for p in out.iterdir()} - {MANIFEST_JSON, MANIFEST_CSV}
+    assert written <= {o for r in doc["images"] for o in r["outputs"]}
+    res = run_batch(root, out, cluster=dask_cluster.scheduler_address, **FAST)
+    assert res.failed == 0
