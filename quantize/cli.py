@@ -49,7 +49,8 @@ def _run(ctx: click.Context, fn):
 def _k_option(value: str) -> str:
     from_ = value.strip()
     parts = from_.split("-")
-    if not all(p.strip().isdigit() for p in parts) or len(parts) > 2:
+    # isascii: str.isdigit (and int) also take other scripts' digits and superscripts.
+    if not all(p.strip().isascii() and p.strip().isdigit() for p in parts) or len(parts) > 2:
         raise click.BadParameter(f"{value!r} is not N or MIN-MAX (e.g. 6 or 2-12)")
     nums = [int(p) for p in parts]
     if nums[0] < 1:

@@ -167,6 +167,8 @@ def test_unwritable_or_missing_output_folder(art, tmp_path):
     (["-k", "9-3"], "MIN is larger"),
     (["-k", "0"], "at least 1"),
     (["-k", "300"], "256"),
+    (["-k", "\u0663"], "is not N or MIN-MAX"),  # ARABIC-INDIC DIGIT THREE, which int() reads as 3
+    (["-k", "2-\u00b9\u00b2"], "is not N or MIN-MAX"),  # superscript digits
     (["--space", "hsv"], "hsv"),
     (["--rule", "target"], "--target"),
     (["--lock", "purple"], "purple"),
