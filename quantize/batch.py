@@ -462,8 +462,11 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
             # that the manifest lists every file this run wrote.
             try:
                 results.close()
-            except BaseException:  # a second interrupt while waiting
-                pass
+            except KeyboardInterrupt:  # a second interrupt while waiting
+                notes.append("stopped again while images were finishing in the workers; the manifest may "
+                             "not list all of their files")
+            except Exception as err:  # noqa: BLE001 - the manifest is still written, and says so
+                notes.append(f"could not wait for the images still in the workers ({_one_line(err)})")
         if not state["written"]:
             finish("interrupted" if isinstance(exc, KeyboardInterrupt) else _one_line(exc))
         raise

@@ -120,9 +120,11 @@ def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, obj
         if running:
             # Stopped early: let the images already on the workers finish, so
             # that the manifest written next lists every file they wrote.
-            from dask.distributed import wait
-
-            wait(list(running.values()))
+            for f in running.values():
+                try:
+                    f.result()
+                except Exception:  # noqa: BLE001 - its failure is for the next run to find
+                    pass
 
 
 def _executor(cluster, workers):

