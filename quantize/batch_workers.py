@@ -94,12 +94,16 @@ def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, obj
     todo = list(reversed(items))
     owner, running = {}, {}
     ac = as_completed(loop=client.loop)
-    while todo and len(owner) < slots:
+
+    def submit_next():
         item = todo.pop()
         fut = client.submit(fn, item, *extra, pure=False)
         owner[fut.key] = item
         running[fut.key] = fut
         ac.add(fut)
+
+    while todo and len(owner) < slots:
+        submit_next()
     try:
         for fut in ac:
             item = owner.pop(fut.key)
@@ -111,11 +115,7 @@ def _dask_map(client, fn, items: list, extra: tuple) -> Iterator[tuple[dict, obj
             fut.release()
             yield item, result
             if todo:
-                nxt = todo.pop()
-                f2 = client.submit(fn, nxt, *extra, pure=False)
-                owner[f2.key] = nxt
-                running[f2.key] = f2
-                ac.add(f2)
+                submit_next()
     finally:
         if running:
             # Stopped early: let the images already on the workers finish, so

@@ -334,21 +334,25 @@ def test_images_still_in_the_workers_when_a_run_stops_are_listed_and_redone(tmp_
     # other worker is still busy with an image and finishes it.  The manifest
     # must list that image's files, so that the rerun may replace them rather
     # than fail on them as someone else's.
+    _stop_at_first_result_then_rerun(tmp_path, seed=10, workers=2)
+
+
+def _stop_at_first_result_then_rerun(tmp_path, *, seed, **where):
+    """Stop a run at its first result; every file on disk must be in the manifest, and a rerun complete."""
     root = tmp_path / "in"
     for i in range(6):
-        _write(root / f"p{i}.png", flat_artwork(3, 10 + i, size=40)[0])
+        _write(root / f"p{i}.png", flat_artwork(3, seed + i, size=40)[0])
 
     def stop_at_first(done, total, item):
         raise KeyboardInterrupt
 
     out = tmp_path / "out"
     with pytest.raises(KeyboardInterrupt):
-        run_batch(root, out, workers=2, progress=stop_at_first, **FAST)
+        run_batch(root, out, progress=stop_at_first, **where, **FAST)
     doc = _manifest(out)
     written = {p.name for p in out.iterdir()} - {MANIFEST_JSON, MANIFEST_CSV}
-    listed = {o for r in doc["images"] for o in r["outputs"]}
-    assert written and written <= listed
-    res = run_batch(root, out, workers=2, **FAST)
+    assert written and written <= {o for r in doc["images"] for o in r["outputs"]}
+    res = run_batch(root, out, **where, **FAST)
     assert res.failed == 0
     assert {r["status"] for r in res.rows} <= {"ok", "skipped"}
 
@@ -457,18 +461,4 @@ def test_images_still_on_dask_workers_when_a_run_stops_are_listed_and_redone(tmp
     # As with local workers: the images already on the cluster finish before the manifest is
     # written, so every file on disk after the stop is in it, and the rerun completes.  Without
     # the wait the race is lost only now and then (about one run in eight here).
-    root = tmp_path / "in"
-    for i in range(6):
-        _write(root / f"p{i}.png", flat_artwork(3, 20 + i, size=40)[0])
-
-    def stop_at_first(done, total, item):
-        raise KeyboardInterrupt
-
-    out = tmp_path / "out"
-    with pytest.raises(KeyboardInterrupt):
-        run_batch(root, out, cluster=dask_cluster.scheduler_address, progress=stop_at_first, **FAST)
-    doc = _manifest(out)
-    written = {p.name for p in out.iterdir()} - {MANIFEST_JSON, MANIFEST_CSV}
-    assert written <= {o for r in doc["images"] for o in r["outputs"]}
-    res = run_batch(root, out, cluster=dask_cluster.scheduler_address, **FAST)
-    assert res.failed == 0
+    _stop_at_first_result_then_rerun(tmp_path, seed=20, cluster=dask_cluster.scheduler_address)
