@@ -24,7 +24,7 @@ import threading
 import numpy as np
 
 __all__ = ["assign_nearest", "assign_nearest_numpy", "centre_sums", "nearest_ciede2000", "ciede2000_to", "warm_up",
-           "compiled", "forget_cached"]
+           "compiled", "forget_cached", "with_fresh_cache"]
 
 #: Below this many point-centre pairs the numpy kernel runs instead of
 #: waiting for the compiler (it takes a few milliseconds there).
@@ -141,6 +141,28 @@ def forget_cached(*names: str) -> bool:
     return emptied
 
 
+#: The compiled-kernel modules (the engine's call the dither module's CIEDE2000).
+_KERNEL_MODULES = ("_engine_kernels", "_dither_kernels")
+
+
+def with_fresh_cache(run):
+    """``run()``; if it fails, empty numba's cache of the kernel modules and ``run()`` once more.
+
+    A cache file that cannot be read back (a damaged disk, a copy cut short)
+    fails the first call that loads it; the second compiles afresh and
+    writes the cache anew.  Out of memory is not retried, nor a failure
+    where no cache index could be emptied.
+    """
+    try:
+        return run()
+    except MemoryError:
+        raise
+    except Exception:
+        if not forget_cached(*_KERNEL_MODULES):
+            raise
+        return run()
+
+
 def _warm_calls(ek) -> None:
     pts = np.zeros((2, 3))
     lab = np.zeros(2, dtype=np.intp)
@@ -160,13 +182,7 @@ def _load():
         sys.meta_path.insert(0, finder)
     try:
         ek = compiled("_engine_kernels")
-        try:
-            _warm_calls(ek)
-        except Exception:
-            # A cache file that cannot be read back: compile afresh, once.
-            if not forget_cached("_engine_kernels", "_dither_kernels"):
-                raise
-            _warm_calls(ek)
+        with_fresh_cache(lambda: _warm_calls(ek))
         _state["module"] = ek
         # The compiler leaves a few hundred thousand long-lived objects; the
         # cyclic collector would walk them on every full collection and once

@@ -250,7 +250,7 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     ValueError
         Unknown or ``"none"`` method, unknown metric, strength outside 0-1.
     """
-    from ._kernels import forget_cached
+    from ._kernels import with_fresh_cache
     from .images import as_picture
     from .mapping import check_metric
 
@@ -263,15 +263,7 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     arrays = _kernel_inputs(pic, palette, metric)
     dtype = np.uint8 if len(palette) <= 256 else np.uint16
     out = np.empty(pic.shape, dtype=dtype)
-    try:
-        _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out)
-    except MemoryError:
-        raise
-    except Exception:
-        # A compiled-kernel cache file that cannot be read back: compile afresh, once.
-        if not forget_cached("_dither_kernels", "_engine_kernels"):
-            raise
-        _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out)
+    with_fresh_cache(lambda: _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out))
     return out, arrays
 
 

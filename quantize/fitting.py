@@ -228,7 +228,7 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     if other is not None and len(centres) <= SECOND_START_K:
         starts.append(other)
     if len(centres) <= SECOND_START_K:
-        alt = _best_other(sample, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost)
+        alt = _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost)
         if alt is not None:
             starts.append(alt)
     for start in starts:
@@ -236,14 +236,14 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     return pal, merged, steps
 
 
-def _best_other(sample, others, fixed_rgb8, space, m, metric, kept, kept_cost):
+def _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kept, kept_cost):
     """The palette of lowest mean ΔE00 among other restarts' centres, if below ``kept_cost``."""
     best, best_cost = None, kept_cost
     for c in others:
         cpal, _ = _to_palette(c, fixed_rgb8, space, m)
         if cpal.k != kept.k or np.array_equal(cpal.rgb8, kept.rgb8):
             continue
-        ccost = float((sample.binned("lab", bits=None)[1] * _binned_delta_e(sample, cpal, metric)).sum())
+        ccost = float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
         if ccost < best_cost:
             best, best_cost = cpal, ccost
     return best
