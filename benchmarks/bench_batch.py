@@ -2,7 +2,7 @@
 
 Generates N product-photo-like JPEGs of about 2 megapixels (a shaded object on
 a graded background, with sensor-like noise; invented data, for timing only),
-runs ``quantize.batch.run_batch`` over them with each worker count, and
+runs ``quantize.batch.run.run_batch`` over them with each worker count, and
 prints images per second, the speed-up and the peak resident memory of a
 worker side by side.  Writes docs/benchmarks_batch.md.
 
@@ -92,7 +92,7 @@ def ceiling(fn) -> float:
 
 
 def run(src: Path, out: Path, workers: int, k, restarts: int, palette):
-    from quantize.batch import run_batch
+    from quantize.batch.run import run_batch
 
     t0 = time.perf_counter()
     res = run_batch(src, out, workers=workers, k=k, restarts=restarts, palette=palette, force=True)

@@ -63,10 +63,11 @@ def main(argv=None):
     import numba
     from skimage import data
 
-    from quantize.dither import DITHERS, dither_indices
-    from quantize.fitting import fit_palette
-    from quantize.images import Picture, as_picture
-    from quantize.perception import filtered_delta_e
+    from quantize.core.picture import Picture
+    from quantize.fit.engine import fit_palette
+    from quantize.io.read import as_picture
+    from quantize.quality.perception import filtered_delta_e
+    from quantize.render.dither import DITHERS, dither_indices
 
     img = _photo()
     pic = as_picture(img)

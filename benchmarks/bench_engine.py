@@ -88,7 +88,7 @@ def run_contender(name, src, dst, k):
 def mean_de(src, dst):
     from PIL import Image
 
-    from quantize.colourspace import delta_e_ciede2000, srgb8_to_space
+    from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
 
     a = np.asarray(Image.open(src).convert("RGB"))
     b = np.asarray(Image.open(dst).convert("RGB"))
@@ -153,8 +153,8 @@ def main():
     print(f"## {w * h / 1e6:.0f}-megapixel photo, k = 16 (whole process)\n")
     print(table(rows, ["contender", "seconds (median)", "time / median-cut", "peak MiB", "mean ΔE00"]))
 
-    from skimage import data
     from PIL import Image
+    from skimage import data
 
     qrows = []
     for name in ("astronaut", "chelsea", "coffee", "rocket"):

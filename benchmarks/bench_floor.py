@@ -14,7 +14,7 @@ The search: ``--starts`` starting palettes, a third each from
 * D-sampling under CIEDE2000 (k-means++'s rule with ΔE00 for distance),
 
 each run to convergence by the CIEDE2000 k-medians of
-:func:`quantize.refine.ciede2000_medians` on the binned colours; the eight
+:func:`quantize.fit.refine.ciede2000_medians` on the binned colours; the eight
 best are then refined again on every distinct colour with its true weight,
 rounded to 8-bit sRGB and measured.  The result is an upper bound on the
 best possible mean ΔE00 for that palette size, not a proof of optimality:
@@ -32,7 +32,6 @@ import warnings
 from pathlib import Path
 
 import numpy as np
-
 from bench_engine import RUNNERS, mean_de, run_contender, table
 
 
@@ -40,11 +39,11 @@ def search(name: str, k: int, starts: int, seed: int = 1):
     """Best mean ΔE00 found for one photo and palette size."""
     from skimage import data
 
-    from quantize._kernels import nearest_ciede2000
-    from quantize.colourspace import clip_to_gamut, from_space, srgb8_to_space
-    from quantize.images import as_picture
-    from quantize.refine import ciede2000_medians
-    from quantize.sampling import sample_picture
+    from quantize.colour.spaces import clip_to_gamut, from_space, srgb8_to_space
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.refine import ciede2000_medians
+    from quantize.io.read import as_picture
+    from quantize.kernels.nearest import nearest_ciede2000
 
     def written(c):
         rgb = np.round(clip_to_gamut(from_space(c, "lab")) * 255).astype(np.uint8)

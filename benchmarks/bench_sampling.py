@@ -4,7 +4,7 @@ Runs, side by side in one run, the sampling stage as it was (copied below as
 the "before" contender: a dense int64 ``np.bincount``, ``np.flatnonzero``, a
 filled int32 table of 2**24 rows and an eager int32 ``inverse``; labels spread
 with ``np.where`` and a second gather) and as it is now
-(``quantize.sampling``: packed codes kept, ``inverse`` built on first access,
+(``quantize.core.sampling``: packed codes kept, ``inverse`` built on first access,
 labels spread by :meth:`ColourSample.index_image` with one lookup per pixel).
 Every measurement is made in a fresh subprocess, because page faults on big
 fresh tables are a large part of the cost and a warm process hides them; the
@@ -69,7 +69,7 @@ def _old_unpack(packed, bit_depth):
 
 
 def old_sample(picture):
-    """The former ``quantize.sampling._sample``: (codes, weights, inverse, shape)."""
+    """The former ``quantize.core.sampling._sample``: (codes, weights, inverse, shape)."""
     h, w = picture.rgb.shape[:2]
     bits = picture.bit_depth
     opaque = picture.opaque.ravel()
@@ -108,7 +108,7 @@ def old_index_image(inverse, shape, labels, dtype):
 
 def _picture(image: str, alpha: bool):
     from quantize import load_image
-    from quantize.images import Picture
+    from quantize.core.picture import Picture
 
     pic = load_image(image, max_pixels=None)
     if alpha:
@@ -128,7 +128,7 @@ def _peak_mb() -> float:
 
 
 def _run_once(contender: str, pic) -> dict:
-    from quantize import sampling
+    from quantize.core import sampling as sampling
 
     t0 = time.perf_counter()
     if contender == "before":
@@ -158,7 +158,7 @@ def child(contender: str, image: str, alpha: bool) -> None:
 
 
 def check(image: str) -> None:
-    from quantize import sampling
+    from quantize.core import sampling as sampling
 
     for alpha in (False, True):
         pic = _picture(image, alpha)

@@ -43,9 +43,9 @@ def main(argv=None) -> int:
     ap.add_argument("--write", type=Path, default=None, help="write the Markdown table to this file")
     args = ap.parse_args(argv)
 
-    from quantize.images import as_picture
-    from quantize.sampling import sample_picture
-    from quantize.sweep import sweep_sample
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.sweep import sweep_sample
+    from quantize.io.read import as_picture
 
     img = photo_12mp()
     t0 = time.perf_counter()

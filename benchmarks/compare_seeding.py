@@ -17,9 +17,9 @@ from pathlib import Path
 
 import numpy as np
 
-from quantize.clustering import INITS, kmeans
-from quantize.images import as_picture, load_image
-from quantize.sampling import sample_picture
+from quantize.core.sampling import sample_picture
+from quantize.fit.clustering import INITS, kmeans
+from quantize.io.read import as_picture, load_image
 
 
 def images():

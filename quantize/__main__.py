@@ -1,5 +1,5 @@
 """``python -m quantize``: the same command line as ``quantize``."""
 
-from .cli import main
+from quantize.cli.main import main
 
 main(prog_name="quantize")

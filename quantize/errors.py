@@ -28,3 +28,7 @@ class PaletteFileError(QuantizeError):
 
 class OutputError(QuantizeError):
     """An output cannot be written (exists, is an input, folder unwritable)."""
+
+
+class SeparationError(QuantizeError):
+    """The separation cannot be made as asked (sizes, order, substrate)."""

@@ -33,7 +33,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from .errors import PaletteFileError
+from quantize.errors import PaletteFileError
 
 __all__ = ["Palette", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
 
@@ -61,7 +61,7 @@ def parse_colour(spec) -> np.ndarray:
     ValueError
         The text is neither form, or L* is outside 0-100.
     """
-    from .colourspace import clip_to_gamut, lab_to_srgb
+    from quantize.colour.spaces import clip_to_gamut, lab_to_srgb
 
     if isinstance(spec, str):
         m = _HEX.match(spec.strip())
@@ -142,13 +142,13 @@ class Palette:
     @property
     def lab(self) -> np.ndarray:
         """CIELAB (D65) of the written colours, shape (k, 3)."""
-        from .colourspace import srgb8_to_space
+        from quantize.colour.spaces import srgb8_to_space
 
         return srgb8_to_space(self.rgb8, "lab")
 
     def points(self, space: str | None = None) -> np.ndarray:
         """The written colours in ``space`` (default: the fit's space)."""
-        from .colourspace import srgb8_to_space
+        from quantize.colour.spaces import srgb8_to_space
 
         return srgb8_to_space(self.rgb8, space or self.space)
 
@@ -167,7 +167,7 @@ class Palette:
             space.  Default: CIEDE2000 without dithering, the space's
             distance with it.
         **options
-            Passed to :func:`quantize.mapping.map_picture`.
+            Passed to :func:`quantize.render.mapping.map_picture`.
 
         Returns
         -------
@@ -175,7 +175,7 @@ class Palette:
             ``.indices``, ``.rgb``, ``.delta_e`` (mean, median, p95, max ΔE00)
             and ``.coverage`` (percent per colour).
         """
-        from .mapping import map_picture
+        from quantize.render.mapping import map_picture
 
         return map_picture(image, self, dither=dither, metric=metric, **options)
 
@@ -183,7 +183,7 @@ class Palette:
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON document as a dict."""
-        from .output import to_jsonable
+        from quantize.io.write import to_jsonable
 
         lab = self.lab
         return {
@@ -210,7 +210,7 @@ class Palette:
         OutputError
             The file exists and ``force`` is false, or cannot be written.
         """
-        from .images import atomic_write_text
+        from quantize.io.write import atomic_write_text
 
         text = json.dumps(self.to_dict(), indent=2, ensure_ascii=False) + "\n"
         atomic_write_text(path, text, force=force)
@@ -247,7 +247,7 @@ class Palette:
     @classmethod
     def from_dict(cls, doc, *, source: str = "<palette>") -> "Palette":
         """Build a palette from its JSON document, validating every field."""
-        from .colourspace import SPACES, delta_e_ciede2000, srgb8_to_space
+        from quantize.colour.spaces import SPACES, delta_e_ciede2000, srgb8_to_space
 
         def bad(where, what):
             raise PaletteFileError(f"{source}: {where}: {what}")

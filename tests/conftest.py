@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 from PIL import Image
 
-# The tests import the package from the checkout, installed or not.
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+def pytest_report_header(config):
+    # The suite tests the installed package: CI installs it as the README
+    # says, a developer with an editable install (DEVELOPERS.md).
+    import quantize
+
+    return f"quantize imported from {Path(quantize.__file__).parent}"
 
 
 @pytest.fixture

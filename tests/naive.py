@@ -17,7 +17,7 @@ def inertia(points, weights, centres):
 
 def nearest_ciede2000(lab, pal_lab):
     """Nearest palette colour by CIEDE2000, trying every colour (numpy ΔE00)."""
-    from quantize.colourspace import delta_e_ciede2000
+    from quantize.colour.spaces import delta_e_ciede2000
 
     de = np.stack([delta_e_ciede2000(lab, c) for c in pal_lab], axis=1)
     labels = de.argmin(axis=1)

@@ -1,14 +1,14 @@
-"""Plain-Python/numpy twins of the dithering kernels in quantize._dither_kernels.
+"""Plain-Python/numpy twins of the dithering kernels in quantize.kernels.dither_loops.
 
 Written for clarity, pixel by pixel, from the public colour functions: a
 full-size error image instead of a rolling buffer, conversions through
-encoded sRGB, CIEDE2000 from quantize.colourspace (checked against Sharma et
+encoded sRGB, CIEDE2000 from quantize.colour.spaces (checked against Sharma et
 al. 2005 in test_colourspace.py).  Slow; for small images only.
 """
 
 import numpy as np
 
-from quantize.colourspace import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
+from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
 
 
 def _choose(target_lin, pal_pts, pal_lab, space, metric):

@@ -1,7 +1,12 @@
 """The public API: names importable from ``quantize`` and stable."""
 
 import importlib
+import os
+import pkgutil
+from pathlib import Path
 import inspect
+
+import pytest
 
 import quantize
 
@@ -9,10 +14,9 @@ import quantize
 def test_every_public_name_resolves_after_all_submodules_are_imported():
     # A submodule named like a public function would shadow it once imported
     # (quantize.kmeans once did); import everything first, then check.
-    for mod in ("clustering", "fitting", "palette", "mapping", "images", "sampling", "colourspace",
-                "sweep", "inks", "ink_choice", "cleanup", "separation", "selection", "refine", "measure", "output",
-                "dither", "perception", "errormap", "batch"):
-        importlib.import_module(f"quantize.{mod}")
+    for info in pkgutil.walk_packages(quantize.__path__, "quantize."):
+        if not info.name.endswith("__main__"):
+            importlib.import_module(info.name)
     for name in quantize.__all__:
         obj = getattr(quantize, name)
         assert not inspect.ismodule(obj), name
@@ -30,3 +34,9 @@ def test_documented_signatures():
         assert fp.parameters[kw].kind is inspect.Parameter.KEYWORD_ONLY
     assert inspect.signature(quantize.Palette.apply).parameters["dither"].default == "none"
     assert callable(quantize.Palette.save) and callable(quantize.Palette.load)
+
+
+@pytest.mark.skipif(not os.environ.get("CI"), reason="CI installs the package; a developer may use an editable install")
+def test_ci_tests_the_installed_package_not_the_checkout():
+    checkout = Path(__file__).resolve().parents[1]
+    assert checkout not in Path(quantize.__file__).resolve().parents

@@ -12,12 +12,14 @@ from pathlib import Path, PurePosixPath
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 from click.testing import CliRunner
 from PIL import Image
 
-from artwork import flat_artwork
-from quantize.batch import MANIFEST_CSV, MANIFEST_JSON, SHARED_PALETTE, _Pool, discover_images, run_batch
-from quantize.cli_batch import batch
+from quantize.batch.files import discover_images
+from quantize.batch.manifest import MANIFEST_CSV, MANIFEST_JSON
+from quantize.batch.run import SHARED_PALETTE, _Pool, run_batch
+from quantize.cli.batch import batch
 from quantize.errors import PaletteFileError, QuantizeError
 
 FAST = dict(k=3, restarts=1)  # small, fixed palettes keep each run to a fraction of a second
@@ -210,10 +212,10 @@ def test_rerun_skips_up_to_date_and_redoes_the_rest(tree, tmp_path):
 # --------------------------------------------------------------------------- one palette for a set
 
 def test_pool_matches_the_engine_pooling():
-    # The batch pool merges images as they arrive; it must equal quantize.sampling.pool_samples.
-    from quantize.batch import sample_image
-    from quantize.images import as_picture
-    from quantize.sampling import pool_samples, sample_picture
+    # The batch pool merges images as they arrive; it must equal quantize.core.sampling.pool_samples.
+    from quantize.batch.run import sample_image
+    from quantize.core.sampling import pool_samples, sample_picture
+    from quantize.io.read import as_picture
 
     rng = np.random.default_rng(0)
     imgs = [rng.integers(0, 6, (h, 9, 3)).astype(np.uint8) * 40 for h in (3, 11, 20)]
@@ -235,7 +237,7 @@ def test_pool_matches_the_engine_pooling():
 def test_shared_weighting_equal_versus_pixels(tmp_path):
     # One large red image and two small blue ones, k=1.  Counted equally, blue holds 2/3 of the
     # pooled weight; counted by pixels, red holds 3600/4400.  The one colour must follow the weight.
-    from quantize.colourspace import delta_e_ciede2000, srgb_to_lab
+    from quantize.colour.spaces import delta_e_ciede2000, srgb_to_lab
 
     root = tmp_path / "in"
     red, blue = np.array([200, 30, 40], np.uint8), np.array([30, 40, 200], np.uint8)
@@ -407,7 +409,7 @@ def test_cli_summary_and_exit_code(tree, tmp_path):
 
 def test_cli_subprocess_one_line_error(tmp_path):
     (tmp_path / "in").mkdir()
-    code = "from quantize.cli_batch import batch; batch()"
+    code = "from quantize.cli.batch import batch; batch()"
     p = subprocess.run([sys.executable, "-c", code, str(tmp_path / "in"), "-o", str(tmp_path / "out")],
                        capture_output=True, text=True, cwd=Path(__file__).resolve().parents[1])
     assert p.returncode == 1

@@ -7,13 +7,12 @@ import sys
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 from click.testing import CliRunner
 from PIL import Image
 
 from quantize import Palette
-from quantize.cli import main
-
-from artwork import flat_artwork
+from quantize.cli.main import main
 
 
 @pytest.fixture()
@@ -211,7 +210,7 @@ def test_real_subprocess_entry_points(art, tmp_path):
 
 
 def test_help_does_not_import_heavy_modules():
-    code = ("import sys; from click.testing import CliRunner; from quantize.cli import main; "
+    code = ("import sys; from click.testing import CliRunner; from quantize.cli.main import main; "
             "CliRunner().invoke(main, ['--help']); "
             "print(sorted(m for m in ('numpy', 'colour', 'skimage', 'numba', 'matplotlib') if m in sys.modules))")
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)

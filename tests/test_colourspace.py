@@ -1,4 +1,4 @@
-"""Tests of quantize.colourspace against published data and reference libraries.
+"""Tests of quantize.colour.spaces against published data and reference libraries.
 
 Sources: Sharma, Wu & Dalal (2005) for CIEDE2000; IEC 61966-2-1:1999 for sRGB;
 CIE 15:2004 for CIELAB; Ottosson (2020) for OKLab; colour-science and
@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-from quantize import colourspace as cs
+from quantize.colour import spaces as cs
 
 colour = pytest.importorskip("colour")
 
@@ -446,7 +446,7 @@ def test_check_space_lists_valid_names():
 
 def test_hot_path_does_not_import_colour_science():
     # RULES: colour-science (2 s to import) stays off the Lab/OKLab/Delta E path.
-    code = ("import sys, numpy as np; from quantize import colourspace as cs; "
+    code = ("import sys, numpy as np; from quantize.colour import spaces as cs; "
             "x = np.zeros((4, 3), np.uint8); a = cs.srgb8_to_space(x, 'lab'); "
             "cs.srgb8_to_space(x, 'oklab'); cs.delta_e_ciede2000(a, a); "
             "cs.from_space(cs.to_space(x / 255, 'oklab'), 'oklab'); "
@@ -459,7 +459,7 @@ def test_hot_path_does_not_import_colour_science():
 def test_cam16ucs_keeps_numpy_print_options():
     # Importing colour-science switches numpy to 1.13-style printing; the lazy
     # import in quantize must not leak that into the caller's session.
-    code = ("import numpy as np; from quantize import colourspace as cs; "
+    code = ("import numpy as np; from quantize.colour import spaces as cs; "
             "cs.srgb_to_cam16ucs([0.5, 0.5, 0.5]); print(np.get_printoptions()['legacy'])")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=Path(__file__).resolve().parents[1])

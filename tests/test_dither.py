@@ -1,4 +1,4 @@
-"""Tests of quantize.dither and its compiled kernels.
+"""Tests of quantize.render.dither and its compiled kernels.
 
 Kernel twins (tests named ``test_twin_*``) also run with NUMBA_DISABLE_JIT=1
 in a subprocess (``test_twins_pass_with_jit_disabled``), so the kernels'
@@ -18,10 +18,10 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-from quantize import dither as qd
-from quantize.colourspace import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear
-from quantize.images import Picture
+from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear
+from quantize.core.picture import Picture
 from quantize.palette import Palette
+from quantize.render import dither as qd
 
 DIFFUSIONS = ("floyd-steinberg", "jarvis-judice-ninke", "stucki")
 ORDERED = ("bayer2", "bayer4", "bayer8", "blue-noise", "clustered-dot")
@@ -66,7 +66,7 @@ def test_registry_and_validator_list_every_name():
 
 
 def test_cli_names_match_registry():
-    from quantize.cli_dither import DITHER_NAMES
+    from quantize.cli.dither_options import DITHER_NAMES
 
     assert DITHER_NAMES == tuple(qd.DITHERS)
 
@@ -275,7 +275,7 @@ def test_twin_sixteen_bit_input():
 def test_twin_pixel_delta_e_and_ciede2000_scalar():
     from test_colourspace import SHARMA_2005
 
-    from quantize import _dither_kernels as dk
+    from quantize.kernels import dither_loops as dk
 
     # The scalar CIEDE2000 of the kernels against Sharma, Wu & Dalal (2005), Table 1.
     for row in SHARMA_2005:
@@ -365,7 +365,7 @@ def test_encoded_grey_renders_as_its_light():
 def photo():
     from skimage import data
 
-    from quantize.fitting import fit_palette
+    from quantize.fit.engine import fit_palette
 
     img = data.chelsea()  # scikit-image sample photograph
     return img, fit_palette(img, k=16, restarts=2, seed=0)
@@ -379,7 +379,7 @@ def test_mean_colour_kept_on_a_photo(photo, method):
 
 
 def test_dithered_result_reports_plain_statistics(photo):
-    from quantize.measure import delta_e_stats
+    from quantize.quality.stats import delta_e_stats
 
     img, pal = photo
     out = pal.apply(img, dither="floyd-steinberg", serpentine=False)
@@ -463,7 +463,7 @@ def _command():
     """A stand-in command wired the way reduce/apply use the options."""
     import click
 
-    from quantize.cli_dither import dither_options, pop_dither_options, run_dither_outputs
+    from quantize.cli.dither_options import dither_options, pop_dither_options, run_dither_outputs
 
     @click.command()
     @click.argument("image")
@@ -533,7 +533,7 @@ def test_cli_bad_options_are_refused(ramp_file, tmp_path, args, shown):
 
 
 def test_error_map_paths_never_collide():
-    from quantize.cli_dither import DitherChoice, error_map_paths
+    from quantize.cli.dither_options import DitherChoice, error_map_paths
 
     one = error_map_paths(DitherChoice(error_map="maps/e.png"), ["a/x.png"])
     assert one == [Path("maps/e.png")]

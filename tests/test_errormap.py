@@ -1,4 +1,4 @@
-"""Tests of quantize.errormap: the per-pixel ΔE00 picture with its legend."""
+"""Tests of quantize.report.errormap: the per-pixel ΔE00 picture with its legend."""
 
 from __future__ import annotations
 
@@ -11,11 +11,11 @@ import pytest
 from numpy.testing import assert_array_equal
 from PIL import Image
 
-from quantize import errormap as em
-from quantize.colourspace import delta_e_ciede2000, srgb_to_lab
+from quantize.colour.spaces import delta_e_ciede2000, srgb_to_lab
+from quantize.core.picture import Picture
 from quantize.errors import OutputError
-from quantize.images import Picture
 from quantize.palette import Palette
+from quantize.report import errormap as em
 
 
 @pytest.fixture(autouse=True)
@@ -113,7 +113,7 @@ def test_bad_options(kwargs, match):
 
 def test_matplotlib_is_imported_only_when_drawing():
     root = Path(__file__).resolve().parents[1]
-    code = ("import sys; import quantize.errormap, quantize.perception, quantize.dither, quantize.cli_dither; "
+    code = ("import sys; import quantize.report.errormap, quantize.quality.perception, quantize.render.dither, quantize.cli.dither_options; "
             "print(sorted(m for m in ('matplotlib', 'numba', 'colour') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], cwd=root, capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"

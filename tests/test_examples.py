@@ -16,10 +16,11 @@ import pytest
 import quantize
 
 # quantize.__main__ runs the command line when imported.
-MODULES = sorted(m.name for m in pkgutil.iter_modules(quantize.__path__, "quantize.") if m.name != "quantize.__main__")
+# walk_packages finds the modules of every stage package too.
+MODULES = sorted(m.name for m in pkgutil.walk_packages(quantize.__path__, "quantize.") if m.name != "quantize.__main__")
 
 #: Modules whose examples are part of their documentation.
-MIN_EXAMPLES = {"quantize.colourspace": 15}
+MIN_EXAMPLES = {"quantize.colour.spaces": 15}
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -8,13 +8,12 @@ computed with skimage.color.deltaE_ciede2000 as an independent reference.
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 from skimage.color import deltaE_ciede2000, rgb2lab
 
 from quantize import fit_palette
-from quantize.colourspace import srgb_to_lab
-from quantize.clustering import PaletteSizeWarning
-
-from artwork import flat_artwork
+from quantize.colour.spaces import srgb_to_lab
+from quantize.fit.clustering import PaletteSizeWarning
 
 INKS = np.array([[244, 239, 225], [200, 16, 46], [31, 58, 92], [242, 169, 0], [0, 122, 94]], np.uint8)
 
@@ -159,10 +158,10 @@ def test_starts_from_other_restarts_only_lower_the_mean_delta_e():
     # ΔE00 of the refinement grid, so it can never make the palette worse.
     from skimage import data
 
-    from quantize.clustering import kmeans
-    from quantize.fitting import _binned_delta_e, refine_palette
-    from quantize.images import as_picture
-    from quantize.sampling import sample_picture
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.clustering import kmeans
+    from quantize.fit.engine import _binned_delta_e, refine_palette
+    from quantize.io.read import as_picture
 
     smp = sample_picture(as_picture(data.astronaut()))
     pts, w = smp.binned("lab")
@@ -184,8 +183,8 @@ def test_starts_from_other_restarts_only_lower_the_mean_delta_e():
 
 def test_median_polish_lowers_mean_distance():
     # Weiszfeld steps lower the weighted sum of distances (Weiszfeld 1937).
-    from quantize.refine import median_polish
-    from quantize._kernels import assign_nearest
+    from quantize.fit.refine import median_polish
+    from quantize.kernels.nearest import assign_nearest
 
     rng = np.random.default_rng(0)
     pts = np.concatenate([rng.standard_t(2, (500, 3)) * 3 + c for c in ([0, 0, 0], [40, 10, -10])])

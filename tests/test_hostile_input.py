@@ -21,8 +21,8 @@ import pytest
 from click.testing import CliRunner
 from PIL import Image
 
-from quantize.cli import main
-from quantize.fitting import parse_k
+from quantize.cli.main import main
+from quantize.fit.engine import parse_k
 from quantize.palette import parse_colour
 
 # /proc takes no new files, even from root (os.access says it would): a folder

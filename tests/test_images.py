@@ -1,4 +1,4 @@
-"""Tests for quantize.images: decoding, ICC conversion, orientation, atomic writes.
+"""Tests for quantize.io.read: decoding, ICC conversion, orientation, atomic writes.
 
 Every test image is made in tmp_path, by Pillow, tifffile, or the small PNG and
 ICC writers below. The writers follow the published specifications, so the
@@ -20,18 +20,12 @@ import pytest
 import tifffile
 from PIL import Image, ImageCms, ImageOps
 
-from quantize import _deep, images
+from quantize.core.picture import ImageWarning, Picture, ProfileWarning
 from quantize.errors import ImageReadError, OutputError, QuantizeError
-from quantize.images import (
-    ImageWarning,
-    Picture,
-    ProfileWarning,
-    as_picture,
-    atomic_write_bytes,
-    atomic_write_text,
-    load_image,
-    save_image,
-)
+from quantize.io import _decode, _deep
+from quantize.io import read as images
+from quantize.io.read import as_picture, load_image
+from quantize.io.write import atomic_write_bytes, atomic_write_text, save_image
 
 RNG_SEED = 20240601
 
@@ -408,7 +402,7 @@ def test_16_bit_png_all_filters_exact(tmp_path, channels, interlace):
 def test_16_bit_png_unexpected_pillow_decoder_warns(tmp_path, monkeypatch):
     # If a future Pillow decodes 16-bit PNG with another rawmode, the file is read at
     # 8 bits with a warning, never joined wrongly.
-    monkeypatch.setitem(images._PNG16_RAWMODE, 2, "RGB;16X")
+    monkeypatch.setitem(_decode.PNG16_RAWMODE, 2, "RGB;16X")
     values = _rng().integers(0, 65536, (4, 5, 3), dtype=np.uint16)
     path = tmp_path / "future.png"
     path.write_bytes(_png16(values))
@@ -622,7 +616,7 @@ def test_grey_profile_on_16_bit_rgb_is_refused(tmp_path):
 
 def test_table_profile_on_16_bit_is_converted_at_8_bits(tmp_path, monkeypatch):
     # Stands in for a LUT-based profile: the matrix/TRC reader declines it.
-    from quantize import _icc
+    from quantize.io import _icc as _icc
 
     monkeypatch.setattr(_icc, "_matrix_trc", lambda icc: None)
     values = _rng().integers(0, 65536, (6, 6, 3), dtype=np.uint16)

@@ -11,13 +11,12 @@ import json
 
 import numpy as np
 import pytest
-
-from quantize.ink_choice import choose_inks, snap_palette, subset_cost
-from quantize.adaptation import adapt_lab, bradford_matrix
-from quantize.inks import InkLibraryError, load_ink_library, parse_ink_library
-from quantize.palette import Palette
-
 from artwork import flat_artwork
+
+from quantize.colour.adaptation import adapt_lab, bradford_matrix
+from quantize.palette import Palette
+from quantize.separation.choice import choose_inks, snap_palette, subset_cost
+from quantize.separation.inks import InkLibraryError, load_ink_library, parse_ink_library
 
 # An invented CGATS file in the style instruments write: a file identifier,
 # standard and declared keywords, comments, extra fields (CMYK and a
@@ -88,7 +87,7 @@ def test_duplicate_ink_names_give_a_clear_message():
 
 
 def test_json_library(tmp_path):
-    doc = {"format": "quantize.inks", "version": 1, "illuminant": "D65",
+    doc = {"format": "quantize.separation.inks", "version": 1, "illuminant": "D65",
            "inks": [{"name": "Dune", "lab": [80.0, 5.0, 30.0]}, {"name": "Night", "hex": "#101820"}]}
     p = tmp_path / "shelf.json"
     p.write_text(json.dumps(doc))
@@ -192,10 +191,10 @@ def test_adaptation_matrix_equals_css_color_4_published_matrix():
     published = np.array([[0.9554734527042182, -0.023098536874261423, 0.0632593086610217],
                           [-0.028369706963208136, 1.0099954580058226, 0.021041398966943008],
                           [0.012314001688319899, -0.020507696433477912, 1.3303659366080753]])
-    from quantize.colourspace import _WHITE_XYZ
-    from quantize.adaptation import _white_xyz
+    from quantize.colour.adaptation import _white_xyz
+    from quantize.colour.spaces import D65_WHITE_XYZ
 
-    m = bradford_matrix(_white_xyz("D50", 2), _WHITE_XYZ)
+    m = bradford_matrix(_white_xyz("D50", 2), D65_WHITE_XYZ)
     # The spec's matrix was computed with rounded intermediate matrices: agreement to 1e-6.
     np.testing.assert_allclose(m, published, atol=1e-6)
 
@@ -265,7 +264,7 @@ def test_search_matches_brute_force_on_small_libraries(seed, m, n):
 
 
 def test_selection_cost_is_the_error_of_the_image_mapped_onto_the_inks():
-    from quantize.mapping import map_picture
+    from quantize.render.mapping import map_picture
 
     img, inks = flat_artwork(4, 7, size=64, jpeg_quality=70)
     rng = np.random.default_rng(7)
@@ -304,7 +303,7 @@ def test_subset_cost_hand_worked():
 
 
 def test_snap_reports_delta_e_and_uses_each_ink_once():
-    from quantize.colourspace import delta_e_ciede2000, srgb8_to_space
+    from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
 
     lib = parse_ink_library("Harbour Red,50,70,45\nBay Blue,35,10,-55\nReed,60,-40,35\n", source="s.csv")
     # Two fitted colours both nearest to the red: the assignment gives them different inks.
@@ -332,8 +331,8 @@ def test_swap_search_repairs_a_greedy_start():
     # Hand-worked: half the pixels dark grey, half light grey; inks dark, mid and light grey.
     # Greedy takes the mid grey first (best single ink), then can only add one end;
     # one swap (mid -> the other end) reaches cost 0, the optimum.
-    from quantize.colourspace import srgb8_to_space
-    from quantize.ink_choice import _distance_matrix, _greedy
+    from quantize.colour.spaces import srgb8_to_space
+    from quantize.separation.choice import _distance_matrix, _greedy
 
     img = np.zeros((4, 4, 3), np.uint8)
     img[:2], img[2:] = 50, 200

@@ -43,8 +43,8 @@ def test_a_damaged_cache_is_compiled_afresh_with_the_same_result(tmp_path):
     first = _reduce(src, tmp_path / "a.png", env, "--dither", "floyd-steinberg")
     assert first.returncode == 0, first.stderr
     files = [p for p in (tmp_path / "cache").rglob("*") if p.suffix in (".nbi", ".nbc")]
-    assert any(p.name.startswith("_engine_kernels") for p in files)
-    assert any(p.name.startswith("_dither_kernels") for p in files)
+    assert any(p.name.startswith("engine_loops") for p in files)
+    assert any(p.name.startswith("dither_loops") for p in files)
     # Index files that are not pickles, data files cut short.
     for p in files:
         p.write_bytes(b"garbage\n" if p.suffix == ".nbi" else p.read_bytes()[:40])
@@ -105,3 +105,20 @@ def test_a_temporary_cache_folder_others_can_write_is_refused(tmp_path):
     assert "reinstall" not in lines[0]
     assert not (tmp_path / "out.png").exists()
     assert list(shared.iterdir()) == []
+
+
+def test_a_failure_that_is_not_the_cache_is_not_retried(monkeypatch):
+    # Recompiling cannot fix a fault in the kernel's own work: only a cache
+    # that numba could not read back earns a second run.
+    from quantize.kernels import loading
+
+    emptied, calls = [], []
+    monkeypatch.setattr(loading, "forget_cached", lambda *names: emptied.append(names) or True)
+
+    def fails():
+        calls.append(1)
+        raise ValueError("a kernel fault")
+
+    with pytest.raises(ValueError, match="a kernel fault"):
+        loading.with_fresh_cache(fails)
+    assert calls == [1] and emptied == []

@@ -5,16 +5,16 @@ the equivalence of a weight-w point and w repeated points follows from the
 definition of the weighted k-means objective.
 """
 
+import naive
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from quantize import kmeans
-from quantize._kernels import assign_nearest
-from quantize.clustering import INITS, PaletteSizeWarning
-
-import naive
+from quantize.fit.clustering import INITS, PaletteSizeWarning
+from quantize.kernels.nearest import assign_nearest
 
 
 def blobs(seed, n_blobs=6, per=300, d=3, spread=2.0):

@@ -6,9 +6,10 @@ definition 1) on the pixels written out one by one.
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from quantize.measure import coverage_percent, delta_e_stats, weighted_quantile
+from quantize.quality.stats import coverage_percent, delta_e_stats, weighted_quantile
 
 
 @settings(max_examples=60, deadline=None)

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from quantize import Palette, PaletteFileError, parse_colour
-from quantize.colourspace import srgb_to_lab
+from quantize.colour.spaces import srgb_to_lab
 
 
 def test_parse_hex_and_lab():

@@ -1,4 +1,4 @@
-"""Tests of quantize.perception: S-CIELAB filtered ΔE00 (Zhang & Wandell 1996)."""
+"""Tests of quantize.quality.perception: S-CIELAB filtered ΔE00 (Zhang & Wandell 1996)."""
 
 from __future__ import annotations
 
@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from quantize import perception as qp
-from quantize.colourspace import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_xyz
-from quantize.images import Picture
+from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_xyz
+from quantize.core.picture import Picture
 from quantize.palette import Palette
+from quantize.quality import perception as qp
 
 
 @pytest.fixture(autouse=True)
@@ -178,7 +178,7 @@ def test_transparent_pixels_are_left_out():
 
 
 def test_pixel_stats_equal_the_weighted_statistics():
-    from quantize.measure import delta_e_stats
+    from quantize.quality.stats import delta_e_stats
 
     rng = np.random.default_rng(5)
     for n in (1, 2, 20, 101, 1000):

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from quantize import _png
+from quantize.io import _png as _png
 
 
 def _decode(data: bytes) -> Image.Image:

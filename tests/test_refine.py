@@ -1,4 +1,4 @@
-"""The k-medians refinements under CIEDE2000 (quantize.refine).
+"""The k-medians refinements under CIEDE2000 (quantize.fit.refine).
 
 Sources: CIEDE2000 per Sharma, Wu & Dalal (2005) (the kernels are held to
 their Table 1 in test_engine_kernels.py); scikit-image's bundled photos as
@@ -8,15 +8,15 @@ palette the refinement must improve on.
 
 from __future__ import annotations
 
+import naive
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_array_equal
 
-import naive
-from quantize.colourspace import srgb8_to_space
-from quantize.refine import ciede2000_medians, compass_polish
+from quantize.colour.spaces import srgb8_to_space
+from quantize.fit.refine import ciede2000_medians, compass_polish
 
 
 def _weighted_de(lab, w, centres):
@@ -40,7 +40,7 @@ def test_medians_never_raise_the_sum_and_keep_locked_centres(seed, k, n_fixed):
 @settings(max_examples=25, deadline=None)
 @given(st.integers(0, 10_000), st.integers(1, 5))
 def test_compass_polish_never_raises_the_cost_for_fixed_labels(seed, k):
-    from quantize._kernels import ciede2000_to
+    from quantize.kernels.nearest import ciede2000_to
 
     rng = np.random.default_rng(seed)
     lab = srgb8_to_space(rng.integers(0, 256, (200, 3)).astype(np.uint8), "lab")
@@ -74,9 +74,9 @@ def test_refined_palette_beats_reference_kmeans_on_a_photo(k):
     # lower mean ΔE00 is the least they must achieve.
     skimage_data = pytest.importorskip("skimage.data")
     sklearn_cluster = pytest.importorskip("sklearn.cluster")
-    from quantize._kernels import assign_nearest, ciede2000_to, nearest_ciede2000
-    from quantize.images import as_picture
-    from quantize.sampling import sample_picture
+    from quantize.core.sampling import sample_picture
+    from quantize.io.read import as_picture
+    from quantize.kernels.nearest import assign_nearest, ciede2000_to, nearest_ciede2000
 
     smp = sample_picture(as_picture(skimage_data.coffee()[::2, ::2]))
     lab, w = smp.points("lab"), smp.weights

@@ -19,16 +19,22 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 from PIL import Image
 
 from quantize import fit_palette
 from quantize.errors import OutputError
-from quantize.report import (REPORT_PAGE, plot_sweep, save_swatches, score_terms, sweep_figure,
-                             swatch_strip, write_report)
-from quantize.selection import bic_scores
-from quantize.sweep import sweep
-
-from artwork import flat_artwork
+from quantize.fit.selection import bic_scores
+from quantize.fit.sweep import sweep
+from quantize.report.page import (
+    REPORT_PAGE,
+    plot_sweep,
+    save_swatches,
+    score_terms,
+    swatch_strip,
+    sweep_figure,
+    write_report,
+)
 
 CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None)
 
@@ -250,7 +256,7 @@ def test_report_of_several_images_and_downscaled_display(tmp_path):
 
 
 def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
-    from quantize.images import Picture
+    from quantize.core.picture import Picture
 
     rgb = np.zeros((20, 30, 3), np.uint16)
     rgb[:, 15:] = (65535, 0, 32896)
@@ -265,7 +271,7 @@ def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
 
 
 def test_report_module_imports_no_matplotlib():
-    code = ("import sys; import quantize.report, quantize.sweep; "
+    code = ("import sys; import quantize.report.page, quantize.fit.sweep; "
             "print('matplotlib' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=Path(__file__).resolve().parents[1])

@@ -1,4 +1,4 @@
-"""Tests for quantize.sampling: distinct colours, pixel counts and the pixel index.
+"""Tests for quantize.core.sampling: distinct colours, pixel counts and the pixel index.
 
 The reference for every check is a plain ``np.unique(..., axis=0)`` over the
 opaque pixels' RGB rows, written out below: it sorts rows lexicographically
@@ -16,9 +16,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from quantize import sampling
-from quantize.images import Picture
-from quantize.sampling import pool_samples, sample_picture
+from quantize.core import sampling as sampling
+from quantize.core.picture import Picture
+from quantize.core.sampling import pool_samples, sample_picture
 
 RNG_SEED = 20240611
 

@@ -8,11 +8,10 @@ the rule (generated data, no outside source).
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 
 from quantize import fit_palette
-from quantize.selection import bic_scores, check_rule, choose_k
-
-from artwork import flat_artwork
+from quantize.fit.selection import bic_scores, check_rule, choose_k
 
 
 @pytest.mark.parametrize("n_inks", range(3, 11))

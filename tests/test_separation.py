@@ -14,17 +14,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from artwork import flat_artwork
 from click.testing import CliRunner
 from PIL import Image
 
-from quantize.errors import OutputError
+from quantize.errors import OutputError, SeparationError
 from quantize.palette import Palette
-from quantize.separation import (
-    SeparationError, clean_small_regions, find_thin_features, print_order, separate, underbase_mask,
-    with_substrate,
-)
-
-from artwork import flat_artwork
+from quantize.separation.choice import with_substrate
+from quantize.separation.cleanup import clean_small_regions, find_thin_features, underbase_mask
+from quantize.separation.plates import print_order, separate
 
 WHITE, RED, BLUE, GOLD = (255, 255, 255), (200, 16, 46), (31, 58, 147), (242, 183, 5)
 
@@ -78,7 +76,7 @@ def test_composite_equals_the_quantised_image_pixel_for_pixel(separation, tmp_pa
 
 
 def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
-    from quantize.mapping import map_picture
+    from quantize.render.mapping import map_picture
 
     img, pal, _ = artwork
     mapped = map_picture(img, pal, metric="ciede2000")
@@ -164,7 +162,7 @@ def test_registration_marks_and_label_stay_outside_the_artwork(separation, tmp_p
 def test_manifest_lists_plates_inks_coverage_order_and_settings(separation, tmp_path):
     written = separation.write(tmp_path, stem="job")
     doc = json.loads(written["manifest"].read_text(encoding="utf-8"))
-    assert doc["format"] == "quantize.separation" and doc["dpi"] == 300
+    assert doc["format"] == "quantize.separation.plates" and doc["dpi"] == 300
     assert doc["print_order"] == ["underbase"] + [p.name for p in separation.plates]
     assert [p["name"] for p in doc["plates"]] == [p.name for p in separation.plates]
     assert all(Path(tmp_path, f).exists() for p in doc["plates"] for f in p["files"])
@@ -198,7 +196,7 @@ def test_small_region_merges_into_the_cheapest_neighbour():
     idx[:, 10:] = 1
     idx[9:11, 9:11] = 2
     rgb = np.array([RED, BLUE, (170, 20, 50)], np.uint8)
-    from quantize.colourspace import srgb8_to_space
+    from quantize.colour.spaces import srgb8_to_space
 
     lab = srgb8_to_space(rgb, "lab")
     out, rep = clean_small_regions(idx, lab, min_area=5)
@@ -290,7 +288,7 @@ def test_transparent_pixels_print_nothing():
 # --------------------------------------------------------------------------- CLI
 
 def _cli():
-    from quantize.cli_separate import separate as command
+    from quantize.cli.separate import separate as command
 
     return command
 
@@ -343,7 +341,8 @@ def test_cli_errors_are_one_line(job, tmp_path):
 
 
 def test_cli_defaults_match_the_library():
-    from quantize import cli_separate, separation
+    from quantize.cli import separate as cli_separate
+    from quantize.separation import plates as separation
 
     assert cli_separate._MIN_FEATURE_MM == separation.DEFAULT_MIN_FEATURE_MM
     assert cli_separate._MIN_LINE_MM == separation.DEFAULT_MIN_LINE_MM
@@ -364,7 +363,7 @@ def test_cli_in_a_real_subprocess(job):
     d, _ = job
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
     out = d / "out3"
-    proc = subprocess.run([sys.executable, "-m", "quantize.cli_separate", str(d / "poster.png"), "-o", str(out),
+    proc = subprocess.run([sys.executable, "-m", "quantize.cli.separate", str(d / "poster.png"), "-o", str(out),
                            "--inks", str(d / "shelf.csv"), "-n", "3", "--marks"],
                           capture_output=True, text=True, env=env)
     assert proc.returncode == 0, proc.stderr
@@ -387,8 +386,8 @@ def test_cli_with_a_saved_palette(job, tmp_path):
 
 
 def test_choose_palette_refuses_ambiguous_sources(job):
-    from quantize.inks import parse_ink_library
-    from quantize.separation import choose_palette
+    from quantize.separation.choice import choose_palette
+    from quantize.separation.inks import parse_ink_library
 
     d, _ = job
     lib = parse_ink_library("A,#000000\nB,#ffffff\n")
@@ -399,7 +398,7 @@ def test_choose_palette_refuses_ambiguous_sources(job):
 
 
 def test_cli_module_imports_only_click():
-    code = ("import sys, quantize.cli_separate; "
+    code = ("import sys, quantize.cli.separate; "
             "print(sorted(m for m in ('numpy', 'PIL', 'skimage', 'colour') if m in sys.modules))")
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
@@ -413,7 +412,7 @@ def test_opening_and_closing_equal_scipy_with_the_same_disk(r):
     from skimage.draw import disk as draw_disk
     from skimage.morphology import disk
 
-    from quantize.separation import _open_close
+    from quantize.separation.cleanup import _open_close
 
     rng = np.random.default_rng(r)
     m = np.zeros((160, 160), bool)
@@ -440,7 +439,7 @@ def test_duplicate_palette_names_and_unused_inks():
 
 
 def test_substrate_defaults_to_the_palettes_locked_colour_else_white():
-    from quantize.separation import choose_palette
+    from quantize.separation.choice import choose_palette
 
     img = np.full((24, 24, 3), 27, np.uint8)
     img[:12] = RED

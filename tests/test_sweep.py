@@ -14,15 +14,15 @@ import json
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings, strategies as st
+from artwork import flat_artwork
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from quantize import fit_palette
 from quantize.errors import OutputError
-from quantize.selection import bic_scores
-from quantize.sweep import (MAX_SWEEP_K, Sweep, candidate_rows, format_table, parse_sweep_range,
-                            sweep)
-
-from artwork import flat_artwork
+from quantize.fit.selection import bic_scores
+from quantize.fit.sweep import MAX_SWEEP_K, parse_sweep_range, sweep
+from quantize.fit.sweep_result import Sweep, candidate_rows, format_table
 
 
 def _blob_image(seed, n_blobs, size=48, spread=12.0):
@@ -64,8 +64,8 @@ def test_costs_not_worse_than_scikit_learn(photo_sweep, photo):
     # (tolerance: common practice, no source).
     from sklearn.cluster import KMeans
 
-    from quantize.sampling import sample_picture
-    from quantize.images import as_picture
+    from quantize.core.sampling import sample_picture
+    from quantize.io.read import as_picture
 
     smp = sample_picture(as_picture(photo))
     pts, w = smp.points("lab"), smp.weights
@@ -154,7 +154,7 @@ def test_csv_and_json_tables_round_trip(photo_sweep, tmp_path):
     assert sum(int(r["chosen_bic"]) for r in rows) == 1
     assert sum(int(r["chosen_target"]) for r in rows) == 1
     doc = json.loads(photo_sweep.to_json())
-    assert doc["format"] == "quantize.sweep" and doc["chosen"] == photo_sweep.chosen.k
+    assert doc["format"] == "quantize.fit.sweep" and doc["chosen"] == photo_sweep.chosen.k
     assert [r["k"] for r in doc["rows"]] == photo_sweep.ks
     assert doc["choices"]["target"]["k"] == photo_sweep.choices["target"].k
     out = photo_sweep.save_csv(tmp_path / "t.csv")
@@ -224,7 +224,7 @@ def test_other_bad_input():
 def _cli(args):
     from click.testing import CliRunner
 
-    from quantize.cli_sweep import sweep as command
+    from quantize.cli.sweep import sweep as command
 
     return CliRunner().invoke(command, args, obj={}, catch_exceptions=False)
 
@@ -308,10 +308,10 @@ def test_cli_module_imports_only_click_and_runs_as_a_process(image_files):
     from pathlib import Path
 
     root = Path(__file__).resolve().parents[1]
-    code = "import sys, quantize.cli_sweep; print('numpy' in sys.modules)"
+    code = "import sys, quantize.cli.sweep; print('numpy' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=root)
     assert out.stdout.strip() == "False"
-    run = [sys.executable, "-c", "from quantize.cli_sweep import sweep; sweep(prog_name='quantize sweep', obj={})",
+    run = [sys.executable, "-c", "from quantize.cli.sweep import sweep; sweep(prog_name='quantize sweep', obj={})",
            str(image_files[0]), "-k", "2-4", "--restarts", "1"]
     proc = subprocess.run(run, capture_output=True, text=True, cwd=root)
     assert proc.returncode == 0, proc.stderr

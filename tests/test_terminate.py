@@ -21,7 +21,7 @@ pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
 
 _SLOW_PUBLISH = (
     "import pathlib, runpy, sys, time\n"
-    "import quantize.output as out\n"
+    "import quantize.io.write as out\n"
     "ready = pathlib.Path(sys.argv.pop(1))\n"
     "real = out._publish\n"
     "def slow(tmp, target, name, force):\n"

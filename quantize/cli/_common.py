@@ -1,0 +1,233 @@
+"""What the commands share: option groups, progress, printing, output checks and one-line failures.
+
+Only click is imported at the top, so that ``quantize --help`` answers at once;
+the library is imported inside the functions that need it.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import click
+
+SPACE_NAMES = ("lab", "oklab", "cam16ucs")
+SEEDINGS = ("k-means++", "random", "farthest")
+
+
+class _Failure(click.ClickException):
+    """A one-line failure with exit code 1."""
+
+    def show(self, file=None):
+        click.echo(f"quantize: error: {self.message}", err=True)
+
+
+def _run(ctx: click.Context, fn):
+    """Call ``fn``; turn user-caused errors into a one-line message and exit 1."""
+    from quantize.errors import QuantizeError
+
+    try:
+        return fn()
+    except (QuantizeError, ValueError, OSError) as exc:
+        if (ctx.find_root().obj or {}).get("debug"):
+            raise
+        msg = str(exc) or exc.__class__.__name__
+        if isinstance(exc, OSError) and exc.strerror and exc.filename is not None:
+            msg = f"{exc.filename}: {exc.strerror}"  # not "[Errno 2] ...: 'name'"
+        elif isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
+            msg = f"{exc.filename}: {msg}"
+        raise _Failure(msg.splitlines()[0]) from None
+
+
+def _k_option(value: str) -> str:
+    from_ = value.strip()
+    parts = from_.split("-")
+    # isascii: str.isdigit (and int) also take other scripts' digits and superscripts.
+    if not all(p.strip().isascii() and p.strip().isdigit() for p in parts) or len(parts) > 2:
+        raise click.BadParameter(f"{value!r} is not N or MIN-MAX (e.g. 6 or 2-12)")
+    nums = [int(p) for p in parts]
+    if nums[0] < 1:
+        raise click.BadParameter(f"{value!r}: a palette needs at least 1 colour")
+    if len(nums) == 2 and nums[0] > nums[1]:
+        raise click.BadParameter(f"{value!r}: MIN is larger than MAX")
+    return from_
+
+
+def _fit_options(f):
+    """Options shared by every command that fits a palette."""
+    opts = [
+        click.option("-k", "--colours", "colours", default="2-12", show_default=True, callback=lambda c, p, v: _k_option(v),
+                     help="Palette size N, or MIN-MAX to let the rule choose."),
+        click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
+                     help="Perceptual space the palette is fitted in."),
+        click.option("--rule", type=click.Choice(("bic", "target")), default=None,
+                     help="How N is chosen from a range: penalised score (bic, default) or a ΔE00 target."),
+        click.option("--target", "target", type=click.FloatRange(min=0, min_open=True), default=None,
+                     help="ΔE00 target for --rule target (implies it)."),
+        click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
+                     help="Which ΔE00 statistic the target applies to."),
+        click.option("--lock", "locked", multiple=True, metavar="COLOUR",
+                     help="Hold a colour fixed (substrate, brand colour): #rrggbb or L,a,b. Repeatable."),
+        click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palette."),
+        click.option("--restarts", type=click.IntRange(min=1), default=8, show_default=True,
+                     help="k-means++ restarts per palette size."),
+        click.option("--seeding", type=click.Choice(SEEDINGS), default="k-means++", show_default=True,
+                     help="How each restart picks its first centres."),
+        click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+                     help="Map pixels by ΔE00 or by distance in the fitting space; auto: ΔE00, "
+                          "or the space's distance when dithering."),
+        click.option("--max-pixels", type=click.IntRange(min=1), default=None,
+                     help="Refuse images larger than this (decompression-bomb guard; default Pillow's limit)."),
+    ]
+    for opt in reversed(opts):
+        f = opt(f)
+    return f
+
+
+#: Choices of --nearest; "auto" leaves the choice to quantize.render.mapping.resolve_metric.
+NEAREST = ("auto", "ciede2000", "space")
+
+
+def _metric(nearest: str) -> str | None:
+    return None if nearest == "auto" else nearest
+
+
+def _fit_kwargs(o: dict) -> dict:
+    rule = o["rule"] or ("target" if o["target"] is not None else "bic")
+    if rule == "target" and o["target"] is None:
+        raise click.UsageError("--rule target needs --target DELTA_E")
+    return dict(k=o["colours"], space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
+                locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
+                metric=_metric(o["nearest"]), max_pixels=o["max_pixels"])
+
+
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n):
+        pass
+
+
+def _progress(n_steps: int, label: str):
+    """A click progress bar on stderr; nothing at all when stderr is not a terminal."""
+    if not sys.stderr.isatty():
+        return _NoBar()
+    return click.progressbar(length=n_steps, label=label, file=sys.stderr, show_eta=False)
+
+
+def _fit_with_progress(images, kwargs):
+    from quantize.fit.engine import fit_palette, parse_k
+
+    n = len(parse_k(kwargs["k"]))
+    with _progress(n, "fitting") as bar:
+        return fit_palette(images, progress=lambda k: bar.update(1), **kwargs)
+
+
+def _swatch(hexcode: str) -> str:
+    if not sys.stdout.isatty():
+        return ""
+    r, g, b = (int(hexcode[i:i + 2], 16) for i in (1, 3, 5))
+    return click.style("    ", bg=(r, g, b)) + " "
+
+
+def _palette_rows(palette, coverage=None):
+    rows = []
+    lab = palette.lab
+    for i, h in enumerate(palette.hex):
+        row = {"index": i, "hex": h, "lab": [round(float(v), 2) for v in lab[i]],
+               "locked": bool(palette.locked[i])}
+        if palette.names[i]:
+            row["name"] = palette.names[i]
+        if coverage is not None:
+            row["coverage"] = round(float(coverage[i]), 3)
+        rows.append(row)
+    return rows
+
+
+def _print_palette(rows):
+    for r in rows:
+        cov = f"{r['coverage']:6.2f} %" if "coverage" in r else ""
+        flag = " locked" if r["locked"] else ""
+        unused = "  (unused: no pixel maps here)" if "coverage" in r and r["coverage"] == 0 else ""
+        L, a, b = r["lab"]
+        click.echo(f"  {r['index']:>3} {_swatch(r['hex'])}{r['hex']}  Lab {L:6.2f} {a:7.2f} {b:7.2f}  {cov}{flag}{unused}")
+
+
+def _print_de(label, stats):
+    click.echo(f"{label}: mean {stats['mean']:.2f}  median {stats['median']:.2f}  "
+               f"p95 {stats['p95']:.2f}  max {stats['max']:.2f}")
+
+
+def _emit(as_json: bool, summary: dict, human):
+    if as_json:
+        click.echo(json.dumps(summary, indent=2, ensure_ascii=False))
+    else:
+        human()
+        click.echo(f"done in {summary['seconds']:.2f} s")
+
+
+def _check_outputs(paths, force: bool, inputs):
+    """Refuse before any work: an existing output (without --force), an input as output, or a
+    folder that cannot take the file."""
+    ins = {Path(p).resolve() for p in inputs}
+    folders = {}
+    for p in paths:
+        rp = Path(p).resolve()
+        if rp in ins:
+            raise _Failure(f"{p}: is an input file; refusing to overwrite an input")
+        if rp.exists() and not force:
+            raise _Failure(f"{p}: already exists (use --force to replace it)")
+        if not rp.parent.is_dir():
+            raise _Failure(f"{p}: folder {rp.parent} does not exist")
+        folders.setdefault(rp.parent, p)
+    for folder, p in folders.items():
+        _probe_folder(folder, p)
+
+
+def _probe_folder(folder: Path, name) -> None:
+    """Create and remove a scratch file, so that a folder which takes no files is refused before
+    any output is written. ``os.access`` is no test: it says yes to root even in /proc."""
+    import os
+    import tempfile
+
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".quantize-", suffix=".probe", dir=folder)
+    except OSError as exc:
+        raise _Failure(f"{name}: cannot write in folder {folder} ({exc.strerror or exc})") from None
+    os.close(fd)
+    os.unlink(tmp)
+
+
+def _report_option(f):
+    return click.option("--report", "report_dir", type=click.Path(file_okay=False), default=None,
+                        help="Write an HTML report page with its images into this folder.")(f)
+
+
+def _report_targets(report_dir):
+    """The report page to check before work. A folder not yet made holds nothing to clobber, but
+    the folder it will be made in must take files."""
+    if not report_dir:
+        return []
+    folder = Path(report_dir)
+    if folder.is_dir():
+        return [folder / "index.html"]
+    base = folder.resolve().parent
+    while not base.exists():
+        base = base.parent
+    if not base.is_dir():
+        raise _Failure(f"{report_dir}: cannot make the report folder; {base} is a file")
+    _probe_folder(base, report_dir)
+    return []
+
+
+def _check_indexed_size(out: Path, k: str):
+    """Refuse a palette size above 256 where the output is an indexed PNG."""
+    top = int(k.split("-")[-1])
+    if out.suffix.lower() == ".png" and top > 256:
+        raise click.BadParameter(f"{top} colours do not fit an indexed PNG (at most 256)",
+                                 param_hint="'-k' / '--colours'")

@@ -1,0 +1,110 @@
+"""``quantize apply``: a saved palette onto images."""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import click
+
+from ._common import (
+    NEAREST,
+    _check_outputs,
+    _emit,
+    _Failure,
+    _metric,
+    _palette_rows,
+    _print_de,
+    _print_palette,
+    _progress,
+    _report_option,
+    _report_targets,
+    _run,
+)
+from .dither_options import dither_options, error_map_paths, pop_dither_options, run_dither_outputs
+
+
+@click.command()
+@click.argument("palette", type=click.Path(exists=True, dir_okay=False))
+@click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
+@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+              help="Folder for the reduced images (created if missing).")
+@click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
+              help="Output file type: indexed PNG, RGB TIFF or JPEG.")
+@click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+              help="Map pixels by ΔE00 or by distance in the palette's space; auto: ΔE00, "
+                   "or the space's distance when dithering.")
+@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@dither_options
+@_report_option
+@click.option("--force", is_flag=True, help="Replace existing outputs.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@click.pass_context
+def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json, **dither_opts):
+    """Map IMAGES onto a saved PALETTE (no refit) and write them to a folder."""
+    from quantize.palette import Palette
+
+    t0 = time.perf_counter()
+    dopts = pop_dither_options(dither_opts)
+    maps = error_map_paths(dopts, images)
+    od = Path(outdir)
+    outs = [od / (Path(im).stem + "." + fmt) for im in images]
+    if len(set(outs)) != len(outs):
+        raise _Failure("two inputs share a file name; their outputs would collide")
+    if od.exists():
+        _check_outputs(outs, force, list(images) + [palette])
+    if report_dir:
+        _check_outputs(_report_targets(report_dir), force, list(images) + [palette])
+    if dopts.error_map:
+        _check_outputs(maps, force, list(images) + [palette])
+
+    def work():
+        from quantize.errors import QuantizeError
+        from quantize.io.read import check_image_file
+
+        pal = Palette.load(palette)
+        for im in images:  # a file that is not an image stops the run before any output
+            check_image_file(im, max_pixels=max_pixels)
+        od.mkdir(parents=True, exist_ok=True)
+        results, extras = [], []
+        inputs = list(images) + [palette]
+        with _progress(len(images), "mapping") as bar:
+            for im, out, emap in zip(images, outs, maps):
+                try:
+                    res = pal.apply(im, **dopts.apply_kwargs(), metric=_metric(nearest), max_pixels=max_pixels)
+                    res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
+                                                             error_map_path=emap)
+                    res.save(out, force=force, inputs=inputs)
+                except QuantizeError as exc:
+                    if results:  # damage found only when decoding: say what is already written
+                        done = ", ".join(str(o) for o in outs[:len(results)])
+                        raise QuantizeError(f"{exc}; written before it ({len(results)} of {len(images)}): "
+                                            f"{done}") from exc
+                    raise
+                results.append(res)
+                extras.append((dextra, dlines))
+                bar.update(1)
+        if report_dir:
+            from quantize.report.page import write_report
+
+            write_report(report_dir, original_picture=list(images), mapped=results, palette=pal,
+                         title=f"quantize apply: {Path(palette).name}", force=force)
+        return pal, results, extras
+
+    pal, results, extras = _run(ctx, work)
+    per_image = [{"input": str(im), "output": str(out), "delta_e": r.delta_e,
+                  "coverage": [round(float(c), 3) for c in r.coverage], **ex}
+                 for im, out, r, (ex, _) in zip(images, outs, results, extras)]
+    summary = {"command": "apply", "palette_file": str(palette), "k": pal.k, "rule": "saved palette",
+               "palette": _palette_rows(pal), "images": per_image, "outputs": [str(o) for o in outs],
+               "seconds": round(time.perf_counter() - t0, 3)}
+
+    def human():
+        click.echo(f"{palette}: {pal.k} colours")
+        _print_palette(_palette_rows(pal))
+        for row, (_, lines) in zip(per_image, extras):
+            _print_de(f"{row['input']} -> {row['output']}  ΔE00", row["delta_e"])
+            for line in lines:
+                click.echo(f"  {line}")
+
+    _emit(as_json, summary, human)

@@ -1,0 +1,183 @@
+"""Command-line options of the dithering stage, for ``reduce`` and ``apply``.
+
+Only click is imported at the top, so ``quantize --help`` stays fast; the
+library is imported inside the functions.  Use::
+
+    @dither_options
+    def reduce(ctx, ..., **opts):
+        choice = pop_dither_options(opts)          # before the other options are read
+        res = pal.apply(image, **choice.apply_kwargs(), metric=..., max_pixels=...)
+        res, extra, lines = run_dither_outputs(image, res, choice, force=force, inputs=[image])
+        summary.update(extra)                      # JSON: dither, delta_e_filtered, viewing, error_map
+        for line in lines: click.echo(line)        # human summary
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import click
+
+__all__ = [
+    "DITHER_NAMES",
+    "DitherChoice",
+    "dither_options",
+    "error_map_paths",
+    "pop_dither_options",
+    "run_dither_outputs",
+]
+
+#: Names of quantize.render.dither.DITHERS, repeated here so that --help needs no
+#: import of the library (a test keeps the two in step).
+DITHER_NAMES = ("none", "floyd-steinberg", "jarvis-judice-ninke", "stucki", "bayer2", "bayer4", "bayer8",
+                "blue-noise", "clustered-dot")
+_KEYS = ("dither", "dither_strength", "serpentine", "view_dpi", "view_distance", "error_map", "error_map_kind")
+
+
+@dataclass(frozen=True)
+class DitherChoice:
+    """The dithering options of one command invocation."""
+
+    dither: str = "none"
+    strength: float = 1.0
+    serpentine: bool = True
+    view_dpi: float | None = None
+    view_distance: float | None = None
+    error_map: str | None = None
+    error_map_kind: str = "plain"
+
+    @property
+    def viewing(self) -> bool:
+        """True when a viewing condition was given (filtered ΔE00 is reported)."""
+        return self.view_dpi is not None
+
+    def apply_kwargs(self) -> dict:
+        """Keyword arguments for ``Palette.apply`` / ``map_picture``."""
+        return {"dither": self.dither, "strength": self.strength, "serpentine": self.serpentine}
+
+
+def _check(choice: DitherChoice) -> DitherChoice:
+    if (choice.view_dpi is None) != (choice.view_distance is None):
+        raise click.UsageError("--view-dpi and --view-distance go together: give both, or neither")
+    if choice.error_map_kind == "filtered" and not choice.viewing:
+        raise click.UsageError("--error-map-kind filtered needs --view-dpi and --view-distance")
+    if choice.error_map is not None and Path(choice.error_map).suffix.lower() != ".png":
+        raise click.BadParameter(f"{choice.error_map!r}: the error map is written as PNG; name it *.png",
+                                 param_hint="'--error-map'")
+    return choice
+
+
+def dither_options(f):
+    """Decorator adding --dither, --dither-strength, --serpentine/--raster,
+    --view-dpi, --view-distance, --error-map and --error-map-kind."""
+    opts = [
+        click.option("--dither", type=click.Choice(DITHER_NAMES, case_sensitive=False), default="none",
+                     show_default=True, help="Dithering method (error diffusion, ordered or clustered-dot)."),
+        click.option("--dither-strength", type=click.FloatRange(0.0, 1.0), default=1.0, show_default=True,
+                     help="Share of the dither, 0 (none) to 1 (full)."),
+        click.option("--serpentine/--raster", default=True, show_default=True,
+                     help="Error diffusion scans alternate rows backwards, or every row left to right."),
+        click.option("--view-dpi", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="DPI",
+                     help="Output resolution for the filtered (S-CIELAB) ΔE00 report."),
+        click.option("--view-distance", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="MM",
+                     help="Viewing distance in mm for the filtered ΔE00 report."),
+        click.option("--error-map", type=click.Path(dir_okay=False), default=None, metavar="FILE.png",
+                     help="Also write a picture of per-pixel ΔE00 with its colour scale."),
+        click.option("--error-map-kind", type=click.Choice(("plain", "filtered")), default="plain",
+                     show_default=True, help="Plain ΔE00, or filtered as seen at the viewing condition."),
+    ]
+    for opt in reversed(opts):
+        f = opt(f)
+    return f
+
+
+def pop_dither_options(opts: dict) -> DitherChoice:
+    """Remove the dithering options from a command's ``**opts`` and return them checked.
+
+    Raises
+    ------
+    click.UsageError
+        --view-dpi without --view-distance (or the reverse), or a filtered
+        error map without a viewing condition.
+    """
+    got = {k: opts.pop(k) for k in _KEYS if k in opts}
+    choice = DitherChoice(
+        dither=str(got.get("dither", "none")).lower(),
+        strength=float(got.get("dither_strength", 1.0)),
+        serpentine=bool(got.get("serpentine", True)),
+        view_dpi=got.get("view_dpi"),
+        view_distance=got.get("view_distance"),
+        error_map=got.get("error_map"),
+        error_map_kind=got.get("error_map_kind", "plain"),
+    )
+    return _check(choice)
+
+
+def error_map_paths(choice: DitherChoice, images) -> list[Path | None]:
+    """Error-map file for each input: FILE.png itself for one image, else
+    FILE-<image stem>.png beside it (so several inputs never collide)."""
+    images = list(images)
+    if choice.error_map is None:
+        return [None] * len(images)
+    base = Path(choice.error_map)
+    if len(images) == 1:
+        return [base]
+    return [base.with_name(f"{base.stem}-{Path(im).stem}{base.suffix}") for im in images]
+
+
+def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = False, inputs=(),
+                       error_map_path=None):
+    """Filtered ΔE00 and the error map for one reduced image.
+
+    Parameters
+    ----------
+    image : path or image
+        The input (the original pixels).
+    result : MappedImage
+        What ``Palette.apply`` returned for it.
+    choice : DitherChoice
+    force : bool
+        Replace an existing error map.
+    inputs : sequence of paths
+        Files the error map must never overwrite.
+    error_map_path : path, optional
+        Overrides ``choice.error_map`` (see :func:`error_map_paths`).
+
+    Returns
+    -------
+    result : MappedImage
+        With ``extra["delta_e_filtered"]`` and ``extra["viewing"]`` when a
+        viewing condition was given.
+    summary : dict
+        For the JSON summary: ``dither`` (name, strength, serpentine),
+        ``delta_e_filtered`` and ``viewing`` (or None), ``error_map`` (path
+        or None).
+    lines : list of str
+        For the human summary, each naming which ΔE it reports.
+    """
+    summary = {"dither": {"method": choice.dither, "strength": choice.strength,
+                          "serpentine": choice.serpentine}, "delta_e_filtered": None, "viewing": None,
+               "error_map": None}
+    lines = []
+    if choice.dither != "none":
+        scan = ", serpentine" if choice.serpentine else ", raster"
+        lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
+    if choice.viewing:
+        from quantize.quality.perception import with_filtered_delta_e
+
+        result = with_filtered_delta_e(image, result, dpi=choice.view_dpi, distance_mm=choice.view_distance)
+        s, v = result.extra["delta_e_filtered"], result.extra["viewing"]
+        summary["delta_e_filtered"], summary["viewing"] = s, v
+        lines.append(f"ΔE00 filtered (S-CIELAB, {v['dpi']:g} dpi at {v['distance_mm']:g} mm, "
+                     f"{v['ppd']:.1f} px/degree): mean {s['mean']:.2f}  median {s['median']:.2f}  "
+                     f"p95 {s['p95']:.2f}  max {s['max']:.2f}")
+    target = error_map_path if error_map_path is not None else choice.error_map
+    if target is not None:
+        from quantize.report.errormap import save_error_map
+
+        save_error_map(target, image, result, kind=choice.error_map_kind, dpi=choice.view_dpi,
+                       distance_mm=choice.view_distance, force=force, inputs=inputs)
+        summary["error_map"] = str(target)
+        lines.append(f"error map ({choice.error_map_kind} ΔE00): {target}")
+    return result, summary, lines

@@ -1,0 +1,60 @@
+"""``quantize fit``: one palette for one or many images, saved as JSON."""
+
+from __future__ import annotations
+
+import time
+
+import click
+
+from ._common import (
+    _check_outputs,
+    _emit,
+    _fit_kwargs,
+    _fit_options,
+    _fit_with_progress,
+    _palette_rows,
+    _print_de,
+    _print_palette,
+    _run,
+)
+
+
+@click.command()
+@click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Palette JSON file to write.")
+@_fit_options
+@click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
+              help="Pooled images count equally, or by their pixel count.")
+@click.option("--force", is_flag=True, help="Replace an existing palette file.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@click.pass_context
+def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
+    """Fit one palette to one or many IMAGES (pooled) and save it as JSON."""
+    t0 = time.perf_counter()
+    kwargs = _fit_kwargs(fit_opts)
+    kwargs["weighting"] = weighting
+    _check_outputs([output], force, images)
+
+    def work():
+        pal = _fit_with_progress(list(images), kwargs)
+        pal.save(output, force=force)
+        return pal
+
+    pal = _run(ctx, work)
+    rows = _palette_rows(pal)
+    summary = {
+        "command": "fit", "inputs": list(images), "k": pal.k, "rule": pal.fit["rule"],
+        "reason": pal.fit["reason"], "space": pal.space, "delta_e": pal.fit["delta_e"],
+        "kmeans_cost": pal.fit["inertia"], "palette": rows, "outputs": [str(output)],
+        "notes": list(pal.fit.get("notes", [])), "seconds": round(time.perf_counter() - t0, 3),
+    }
+
+    def human():
+        click.echo(f"{len(images)} image(s): {pal.k} colours ({pal.fit['reason']})")
+        _print_de("ΔE00 over the pooled set", pal.fit["delta_e"])
+        _print_palette(rows)
+        for n in summary["notes"]:
+            click.echo(f"note: {n}")
+        click.echo(f"wrote {output}")
+
+    _emit(as_json, summary, human)

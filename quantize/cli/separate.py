@@ -1,0 +1,131 @@
+"""``quantize separate``: one 1-bit plate per ink, for screen printing.
+
+Registered on the main group by ``quantize.cli.main``. Only click is imported at
+module level, so ``quantize --help`` stays fast.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+
+import click
+
+from ._common import _run
+
+# Defaults repeated here so that --help needs no library import; the tests
+# check they equal quantize.separation.plates's.
+_MIN_FEATURE_MM = 0.5
+_MIN_LINE_MM = 0.35
+_CHOKE_MM = 0.25
+_MARGIN_MM = 10.0
+
+
+@click.command("separate")
+@click.argument("image", type=click.Path(exists=True, dir_okay=False))
+@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+              help="Folder for the plates, preview and manifest (created if missing).")
+@click.option("--palette", "palette_file", type=click.Path(exists=True, dir_okay=False),
+              help="Use the colours of a saved palette JSON.")
+@click.option("--inks", "inks_file", type=click.Path(exists=True, dir_okay=False),
+              help="Ink library (CSV, JSON or CGATS text) to choose the inks from.")
+@click.option("-n", "--ink-count", "n", type=click.IntRange(min=1), default=None,
+              help="Number of printed inks (substrate not counted). Needed with --inks.")
+@click.option("--snap", is_flag=True,
+              help="Fit (or take --palette), then move each colour to its nearest library ink.")
+@click.option("--illuminant", default=None, metavar="NAME",
+              help="Illuminant of the library's Lab values when the file does not say (default D50).")
+@click.option("--substrate", default=None, metavar="COLOUR",
+              help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate. "
+                   "Default: the --palette's locked colour, else #ffffff.")
+@click.option("--dpi", type=click.FloatRange(min=1), default=None,
+              help="Output resolution (default: the image's, else 300).")
+@click.option("--min-feature-mm", type=click.FloatRange(min=0), default=_MIN_FEATURE_MM, show_default=True,
+              help="Smallest printable dot diameter; smaller areas are merged into a neighbour (0: off).")
+@click.option("--min-line-mm", type=click.FloatRange(min=0), default=_MIN_LINE_MM, show_default=True,
+              help="Thinner lines and knock-out gaps are reported with their location (0: off).")
+@click.option("--underbase", is_flag=True, help="Add a white underbase plate (for dark substrates), printed first.")
+@click.option("--choke-mm", type=click.FloatRange(min=0), default=_CHOKE_MM, show_default=True,
+              help="How far the underbase is pulled in from the print's edges.")
+@click.option("--marks", is_flag=True, help="Add registration marks and a label in a margin around the artwork.")
+@click.option("--margin-mm", type=click.FloatRange(min=1), default=_MARGIN_MM, show_default=True,
+              help="Margin width for --marks.")
+@click.option("--order", default=None, metavar="INK,INK,...",
+              help="Print order of the inks by name (default light to dark).")
+@click.option("--png", is_flag=True, help="Also write every plate as a 1-bit PNG.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Random seed for fitting and ink search.")
+@click.option("--force", is_flag=True, help="Replace existing files.")
+@click.option("--json", "as_json", is_flag=True, help="Print the manifest as JSON.")
+@click.pass_context
+def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, min_feature_mm,
+             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json):
+    """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
+
+    Inks come from --palette, from an ink library (--inks with -n, or --snap),
+    or are fitted to the image (-n inks). Also written: a composite preview
+    PNG of the plates printed in order on the substrate, and a manifest JSON.
+    ΔE figures come from file data, not a measured print: proof physically.
+    """
+    t0 = time.perf_counter()
+    if snap and not inks_file:
+        raise click.UsageError("--snap needs --inks FILE")
+    if inks_file and not palette_file and n is None:
+        raise click.UsageError("--inks needs -n N (how many inks to print)")
+    if palette_file and inks_file and not snap:
+        raise click.UsageError("--palette and --inks together need --snap")
+    order_list = [s.strip() for s in order.split(",") if s.strip()] if order else None
+
+    def work():
+        from quantize.palette import Palette
+        from quantize.separation.choice import choose_palette
+        from quantize.separation.inks import load_ink_library
+        from quantize.separation.plates import separate as run
+
+        pal = Palette.load(palette_file) if palette_file else None
+        lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
+        pal, info = choose_palette(image, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
+        sep = run(image, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
+                  underbase=underbase, choke_mm=choke_mm, order=order_list)
+        sep.settings["inks_from"] = info
+        written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
+        notes = list(sep.notes) + (list(lib.notes) if lib else [])
+        return sep, written, notes
+
+    sep, written, notes = _run(ctx, work)
+    doc = json.loads(Path(written["manifest"]).read_text(encoding="utf-8"))
+    if as_json:
+        doc["manifest_file"] = str(written["manifest"])
+        doc["seconds"] = round(time.perf_counter() - t0, 3)
+        click.echo(json.dumps(doc, indent=2, ensure_ascii=False))
+        return
+    click.echo(f"{image}: {len(sep.plates)} plate(s) at {sep.dpi:g} dpi "
+               f"({doc['settings']['inks_from']['method']})")
+    for p in ([sep.underbase] if sep.underbase else []) + list(sep.plates):
+        click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> {written['plates'][p.name][0].name}")
+    if doc["substrate"]:
+        click.echo(f"      substrate {doc['substrate']['name']} ({doc['substrate']['hex']}) "
+                   f"{doc['substrate']['coverage_percent']:7.2f} %  (no plate)")
+    for s in doc["settings"]["inks_from"].get("snaps", []):
+        click.echo(f"  snap {s['fitted']} -> {s['ink']} ({s['ink_hex']}): ΔE00 {s['delta_e']:.2f}")
+    c = sep.cleanup
+    click.echo(f"clean-up: {c['pixels_changed']} pixel(s) changed in {c['regions_merged']} region(s) below "
+               f"{c['min_feature_mm']:g} mm; ΔE00 of the change: mean {c['delta_e_image_mean']:.3f} over the "
+               f"image, {c['delta_e_changed_mean']:.2f} over changed pixels")
+    t = sep.thin_summary
+    if t["lines"] or t["gaps"]:
+        click.echo(f"thin detail below {min_line_mm:g} mm: {t['lines']} line(s), {t['gaps']} gap(s); "
+                   "largest:")
+        for item in sep.thin[:5]:
+            click.echo(f"  {item['kind']:<4} {item['ink']}: at x {item['x_mm']:.1f} mm, y {item['y_mm']:.1f} mm, "
+                       f"{item['w_mm']:.1f} x {item['h_mm']:.1f} mm, about {item['width_mm']:.2f} mm wide")
+    d = sep.delta_e
+    click.echo(f"ΔE00 to the source: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
+    for note in notes:
+        click.echo(f"note: {note}")
+    click.echo(f"wrote {written['manifest']} and {written['composite'].name}")
+    click.echo(f"done in {time.perf_counter() - t0:.2f} s")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    separate()

@@ -1,0 +1,133 @@
+"""``quantize sweep``: the colour error at every palette size, before choosing.
+
+Only click is imported at module level so that ``quantize --help`` stays
+fast; the library is imported inside the command.  Register it on the main
+group with ``main.add_command(sweep)``.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import click
+
+from ._common import SPACE_NAMES, _check_outputs, _emit, _progress, _report_targets, _run
+
+
+def _range_option(ctx, param, value: str) -> list[int]:
+    from quantize.fit.sweep import parse_sweep_range
+
+    try:
+        return parse_sweep_range(value)
+    except ValueError as exc:
+        raise click.BadParameter(f"{value!r}: {exc}") from None
+
+
+def _png_path(ctx, param, value):
+    if value is not None and Path(value).suffix.lower() != ".png":
+        raise click.BadParameter(f"{value}: must be a .png file")
+    return value
+
+
+@click.command()
+@click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
+@click.option("-k", "--colours", "ks", default="2-16", show_default=True, callback=_range_option,
+              metavar="MIN-MAX", help="Palette sizes to sweep, inclusive (at most 64).")
+@click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
+              help="Perceptual space the palettes are fitted in.")
+@click.option("--rule", type=click.Choice(("bic", "target")), default=None,
+              help="Rule whose pick is marked: penalised score (bic, default) or a ΔE00 target.")
+@click.option("--target", type=click.FloatRange(min=0, min_open=True), default=None,
+              help="ΔE00 target: also report the smallest size that meets it.")
+@click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
+              help="Which ΔE00 statistic the target applies to.")
+@click.option("--lock", "locked", multiple=True, metavar="COLOUR",
+              help="Hold a colour fixed in every palette: #rrggbb or L,a,b. Repeatable.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same sweep.")
+@click.option("--restarts", type=click.IntRange(min=1), default=8, show_default=True,
+              help="Fresh k-means++ restarts per size (warm starts come on top).")
+@click.option("--cold", is_flag=True, help="Fresh restarts only: no warm start from the previous size.")
+@click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
+              help="Pooled images count equally, or by their pixel count.")
+@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@click.option("--table-csv", type=click.Path(dir_okay=False), default=None, help="Write the table as CSV.")
+@click.option("--table-json", type=click.Path(dir_okay=False), default=None, help="Write the table as JSON.")
+@click.option("--plot", type=click.Path(dir_okay=False), default=None, callback=_png_path,
+              help="Write the error-per-size plot (.png).")
+@click.option("--swatches", type=click.Path(dir_okay=False), default=None, callback=_png_path,
+              help="Write the palette of every size, one row per size (.png).")
+@click.option("--report", "report_dir", type=click.Path(file_okay=False), default=None,
+              help="Write an HTML report page with its images into this folder.")
+@click.option("--force", is_flag=True, help="Replace existing outputs.")
+@click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@click.pass_context
+def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, restarts, cold, weighting,
+          max_pixels, table_csv, table_json, plot, swatches, report_dir, force, as_json):
+    """Fit a palette at every size from MIN to MAX to IMAGES (pooled) and tabulate
+    the k-means cost, ΔE00 mean / p95 / max and the penalised score; mark the
+    size each rule picks."""
+
+    t0 = time.perf_counter()
+    rule = rule or ("target" if target is not None else "bic")
+    if rule == "target" and target is None:
+        raise click.UsageError("--rule target needs --target DELTA_E")
+    files = [p for p in (table_csv, table_json, plot, swatches) if p]
+    if len({Path(p).resolve() for p in files}) != len(files):
+        raise click.UsageError("two outputs name the same file")
+    _check_outputs(files + _report_targets(report_dir), force, images)
+
+    def work():
+        from quantize.fit.sweep import sweep as run_sweep
+
+        with _progress(len(ks), "sweeping") as bar:
+            res = run_sweep(list(images), (ks[0], ks[-1]), space=space, restarts=restarts, seed=seed, locked=list(locked),
+                            rule=rule, target=target, target_stat=target_stat, weighting=weighting,
+                            warm=not cold, max_pixels=max_pixels, progress=lambda k: bar.update(1))
+        written = []
+        if table_csv:
+            written.append(str(res.save_csv(table_csv, force=force)))
+        if table_json:
+            written.append(str(res.save_json(table_json, force=force)))
+        if plot or swatches:
+            from quantize.report.page import plot_sweep, save_swatches
+
+            if plot:
+                written.append(str(plot_sweep(res, plot, force=force)))
+            if swatches:
+                written.append(str(save_swatches(res, swatches, force=force)))
+        if report_dir:
+            from quantize.report.page import write_report
+
+            pal = res.chosen.palette
+            mapped = [pal.apply(im, max_pixels=max_pixels) for im in images]
+            title = f"Palette size sweep: {', '.join(Path(i).name for i in images)}"
+            written.append(str(write_report(report_dir, original_picture=list(images), mapped=mapped,
+                                            palette=pal, sweep=res, title=title, force=force)))
+        return res, written
+
+    res, written = _run(ctx, work)
+    summary = {
+        "command": "sweep", "inputs": list(images), "k_range": [ks[0], ks[-1]], "space": space,
+        "rule": rule, "chosen": res.chosen.k,
+        "choices": {n: {"k": c.k, "reason": c.reason} for n, c in res.choices.items()},
+        "rows": res.candidates(), "outputs": written, "notes": list(res.notes),
+        "seconds": round(time.perf_counter() - t0, 3),
+    }
+
+    def human():
+        click.echo(f"{len(images)} image(s), k = {ks[0]}..{res.ks[-1]} in {space}; > marks the {rule} rule's pick")
+        click.echo(res.table())
+        for name, c in res.choices.items():
+            click.echo(f"{name} rule: k = {c.k} ({c.reason})")
+        if len(images) > 1:
+            row = res.chosen
+            for src, st in row.per_image.items():
+                click.echo(f"  at k = {row.k}: {src}  ΔE00 mean {st['mean']:.2f}  p95 {st['p95']:.2f}  "
+                           f"max {st['max']:.2f}")
+        for n in res.notes:
+            click.echo(f"note: {n}")
+        if written:
+            click.echo("wrote " + ", ".join(written))
+
+    _emit(as_json, summary, human)

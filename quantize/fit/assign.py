@@ -1,0 +1,67 @@
+"""Assigning colours to palette entries: the nearest-colour metrics and the sample mapping.
+
+The fit stage measures each candidate palette with the same assignment the
+render stage later uses for every pixel, so both take it from here.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from quantize.kernels.nearest import assign_nearest, ciede2000_to, nearest_ciede2000
+
+__all__ = ["METRICS", "check_metric", "resolve_metric", "map_sample"]
+
+#: Nearest-colour metrics.
+METRICS = ("space", "ciede2000")
+
+
+def check_metric(name: str) -> str:
+    """Return ``name`` if it is a known mapping metric, else raise ValueError."""
+    if name not in METRICS:
+        raise ValueError(f"unknown mapping metric {name!r}; choose one of: {', '.join(METRICS)}")
+    return name
+
+
+def resolve_metric(metric: str | None, dither: str = "none") -> str:
+    """The nearest-colour metric to use: ``metric``, or the default for ``dither``.
+
+    The default (``None``) is CIEDE2000, the measure users judge results
+    by.  Error diffusion and ordered dithers pick a colour per pixel rather
+    than per distinct colour, and there CIEDE2000 would cost one evaluation
+    per pixel and palette colour, so they default to the palette space's
+    Euclidean distance.
+    """
+    if metric is None:
+        return "ciede2000" if dither == "none" else "space"
+    return check_metric(metric)
+
+
+def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
+    """Map the distinct colours of a sample onto a palette.
+
+    Returns
+    -------
+    labels : ndarray of shape (n,)
+        Palette index of each distinct colour.
+    delta_e : ndarray of shape (n,)
+        CIEDE2000 of each distinct colour to its palette colour.
+    """
+
+    # The last mapping is kept with the sample: fitting measures the palette
+    # it returns, and applying that palette to the same picture would
+    # otherwise repeat the work.
+    key = ("mapped", palette.rgb8.tobytes(), palette.space, metric)
+    last = sample._points.get("mapped")
+    if last is not None and last[0] == key:
+        return last[1], last[2]
+    lab = sample.points("lab")
+    if metric == "ciede2000":
+        labels, de = nearest_ciede2000(lab, palette.lab)
+    else:
+        labels = assign_nearest(sample.points(palette.space), palette.points())[0]
+        de = ciede2000_to(lab, palette.lab, labels)
+    labels.setflags(write=False)
+    de.setflags(write=False)
+    sample._points["mapped"] = (key, labels, de)
+    return labels, de

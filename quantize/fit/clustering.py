@@ -1,0 +1,392 @@
+"""Weighted k-means: k-means++ seeding, Lloyd iterations, restarts, locked centres.
+
+The clustering stage.  Points are colours in a perceptual space and weights
+are pixel counts, so a weighted point is exactly equivalent to that many
+repeated points.  The assignment step is exact nearest-centre search,
+compiled with numba; everything else is plain numpy.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from quantize.kernels.nearest import assign_nearest, centre_sums
+
+__all__ = ["kmeans", "KMeansResult", "INITS", "check_init", "PaletteSizeWarning"]
+
+
+class PaletteSizeWarning(UserWarning):
+    """The palette came out smaller than asked (too few distinct colours)."""
+
+
+@dataclass(frozen=True, eq=False)
+class KMeansResult:
+    """Outcome of :func:`kmeans`.
+
+    Attributes
+    ----------
+    centres : ndarray of shape (k, d)
+        Cluster centres; locked centres first, unchanged.
+    labels : ndarray of shape (n,)
+        Index of the nearest centre of every point.
+    inertia : float
+        Weighted sum of squared distances of the points to their centres.
+    n_iter : int
+        Lloyd iterations of the kept restart.
+    history : tuple of float
+        Inertia after each assignment step of the kept restart
+        (non-increasing).
+    k_requested : int
+        The ``k`` asked for; ``len(centres)`` is smaller when there were too
+        few distinct points.
+    runs : tuple of (ndarray, float)
+        The converged centres and inertia of every restart, in the order
+        they ran (the kept one included).  Later steps may start from
+        restarts that are not the lowest in inertia.
+    """
+
+    centres: np.ndarray
+    labels: np.ndarray
+    inertia: float
+    n_iter: int
+    history: tuple = field(default=())
+    k_requested: int = 0
+    runs: tuple = ()
+
+
+def _weighted_pick(rng: np.random.Generator, pot: np.ndarray, size: int) -> np.ndarray:
+    """Indices drawn with probability proportional to ``pot`` (with replacement)."""
+    cum = np.cumsum(pot)
+    idx = np.searchsorted(cum, rng.random(size) * cum[-1], side="right")
+    return np.minimum(idx, pot.size - 1)
+
+
+# Weighted sums are written (w * x).sum(), not w @ x: a 1-D matmul goes to
+# multi-threaded BLAS, whose spinning threads slow a shared machine badly.
+def _sq_dist_to(points: np.ndarray, centre: np.ndarray) -> np.ndarray:
+    diff = points - centre
+    return np.einsum("ij,ij->i", diff, diff)
+
+
+def _first_centres(points, weights, fixed, rng):
+    """The locked centres, or one weighted random point; and each point's squared distance to them."""
+    centres = [c for c in fixed]
+    if centres:
+        _, d2 = assign_nearest(points, np.asarray(centres))
+    else:
+        first = _weighted_pick(rng, weights, 1)[0]
+        centres.append(points[first])
+        d2 = _sq_dist_to(points, points[first])
+    return centres, d2
+
+
+def _init_kmeanspp(points, weights, k, fixed, rng):
+    """Greedy weighted k-means++ (D² sampling, several candidates per step)."""
+    n_trials = 2 + int(np.log(k))
+    centres, d2 = _first_centres(points, weights, fixed, rng)
+    while len(centres) < k:
+        pot = weights * d2
+        if pot.sum() <= 0:
+            break
+        cands = _weighted_pick(rng, pot, n_trials)
+        # One candidate at a time: temporaries stay the size of the data.
+        best_cost, best_d2, best_c = np.inf, None, None
+        for c in cands:
+            nd2 = np.minimum(d2, _sq_dist_to(points, points[c]))
+            cost = float((weights * nd2).sum())
+            if cost < best_cost:
+                best_cost, best_d2, best_c = cost, nd2, c
+        centres.append(points[best_c])
+        d2 = best_d2
+    return np.array(centres, dtype=np.float64)
+
+
+def _count_distinct_upto(points, fixed, need):
+    """How many distinct points differ from ``fixed``, counting no further than ``need``.
+
+    Farthest-point steps find one new distinct point each while any point is
+    still away from every centre: O(n * need), no sort of the data.
+    """
+    if need <= 0:
+        return 0
+    if len(fixed):
+        _, d2 = assign_nearest(points, fixed)
+        found = 0
+    else:
+        d2 = _sq_dist_to(points, points[0])
+        found = 1
+    while found < need:
+        far = int(np.argmax(d2))
+        if d2[far] <= 0:
+            break
+        found += 1
+        d2 = np.minimum(d2, _sq_dist_to(points, points[far]))
+    return found
+
+
+def _init_random(points, weights, k, fixed, rng):
+    """k - len(fixed) distinct points drawn at random, weighted by count."""
+    uniq, inv = np.unique(points, axis=0, return_inverse=True)
+    w = np.bincount(inv.ravel(), weights=weights, minlength=uniq.shape[0])
+    if len(fixed):
+        _, d2 = assign_nearest(uniq, fixed)
+        w = np.where(d2 > 0, w, 0.0)
+    free = min(k - len(fixed), int((w > 0).sum()))
+    pick = rng.choice(uniq.shape[0], size=free, replace=False, p=w / w.sum())
+    return np.vstack([fixed.reshape(-1, points.shape[1]), uniq[pick]])
+
+
+def _init_farthest(points, weights, k, fixed, rng):
+    """Farthest-point traversal from a weighted random start (or the locked centres)."""
+    centres, d2 = _first_centres(points, weights, fixed, rng)
+    while len(centres) < k:
+        far = int(np.argmax(d2))
+        if d2[far] <= 0:
+            break
+        centres.append(points[far])
+        d2 = np.minimum(d2, _sq_dist_to(points, points[far]))
+    return np.array(centres, dtype=np.float64)
+
+
+#: Seeding methods by name.
+INITS = {
+    "k-means++": _init_kmeanspp,
+    "random": _init_random,
+    "farthest": _init_farthest,
+}
+
+
+def check_init(name: str) -> str:
+    """Return ``name`` if it is a known seeding method, else raise ValueError."""
+    if name not in INITS:
+        raise ValueError(f"unknown seeding {name!r}; choose one of: {', '.join(INITS)}")
+    return name
+
+
+def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
+    """Lloyd iterations from ``centres``; empty free clusters are re-seeded."""
+    k, d = centres.shape
+    centres = centres.copy()
+    history = []
+    labels, d2 = assign_nearest(points, centres)
+    history.append(float((weights * d2).sum()))
+    n_iter = 0
+    for n_iter in range(1, max_iter + 1):
+        wsum, new = centre_sums(points, weights, labels, k)
+        filled = wsum > 0
+        new[filled] /= wsum[filled, None]
+        new[~filled] = centres[~filled]
+        new[:n_fixed] = centres[:n_fixed]
+        empty = np.flatnonzero(~filled[n_fixed:]) + n_fixed
+        if empty.size:
+            # Move each empty centre onto the point that costs most now: the
+            # cost can only fall, and no centre is dropped.
+            pot = weights * d2
+            for e in empty:
+                far = int(np.argmax(pot))
+                if pot[far] <= 0:
+                    break
+                new[e] = points[far]
+                pot[far] = 0.0
+        shift = float(((new - centres) ** 2).sum())
+        centres = new
+        new_labels, d2 = assign_nearest(points, centres)
+        history.append(float((weights * d2).sum()))
+        unchanged = np.array_equal(new_labels, labels)
+        labels = new_labels
+        if unchanged or shift <= tol:
+            break
+    return centres, labels, history, n_iter
+
+
+def tolerance_scale(points: np.ndarray, weights: np.ndarray) -> float:
+    """Weighted mean per-coordinate variance: the scale of the stopping tolerance."""
+    mu = (weights[:, None] * points).sum(axis=0) / weights.sum()
+    mean_var = float((weights * ((points - mu) ** 2).sum(axis=1)).sum()) / weights.sum() / points.shape[1]
+    return max(mean_var, 1e-12)
+
+
+def lloyd_from(points: np.ndarray, weights: np.ndarray, centres: np.ndarray, *, n_fixed: int = 0,
+               max_iter: int = 300, abs_tol: float = 0.0) -> KMeansResult:
+    """Lloyd iterations from ``centres`` on clean data, for the engine's inner loops.
+
+    :func:`kmeans` without the checks: ``points`` (n, d) and ``weights``
+    (n,) contiguous float64, positive weights, the first ``n_fixed`` centres
+    locked.  ``abs_tol`` is the absolute squared-shift tolerance, e.g.
+    ``1e-4 * tolerance_scale(points, weights)``.  The fitting and sweep
+    stages validate their sample once and call this per palette size.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = np.array([[0.0, 0, 0], [0, 0, 2], [10, 0, 0], [10, 0, 2]])
+    >>> res = lloyd_from(pts, np.ones(4), np.array([[1.0, 0, 0], [9, 0, 0]]))
+    >>> res.centres.tolist(), float(res.inertia)
+    ([[0.0, 0.0, 1.0], [10.0, 0.0, 1.0]], 4.0)
+    """
+    c, labels, history, n_iter = _lloyd(points, weights, np.array(centres, dtype=np.float64), n_fixed,
+                                        max_iter, abs_tol)
+    return KMeansResult(centres=c, labels=labels, inertia=history[-1], n_iter=n_iter,
+                        history=tuple(history), k_requested=len(c))
+
+
+def kmeans(
+    points,
+    k: int,
+    *,
+    weights=None,
+    restarts: int = 8,
+    seed: int | np.random.Generator | None = 0,
+    fixed=None,
+    init: str = "k-means++",
+    init_centres=None,
+    max_iter: int = 300,
+    tol: float = 1e-4,
+) -> KMeansResult:
+    """Weighted k-means clustering with k-means++ seeding and restarts.
+
+    Each restart seeds ``k`` centres, then alternates the assignment step
+    (every point to its nearest centre, exactly) and the update step (every
+    free centre to the weighted mean of its points) until no label changes
+    or the centres move less than ``tol``.  The restart of lowest inertia is
+    kept.  A free centre that loses all its points is moved onto the point
+    that currently costs most, so the result always has ``k`` centres.
+
+    Parameters
+    ----------
+    points : array_like of shape (n, d)
+        The data, e.g. distinct colours in CIELAB.
+    k : int
+        Number of centres, locked ones included.  Capped at the number of
+        distinct points (with a :class:`PaletteSizeWarning`).
+    weights : array_like of shape (n,), optional
+        Non-negative weight of each point (pixel counts); default all 1.
+        A point of weight w is equivalent to w repeated points.
+    restarts : int, default=8
+        Number of independent seedings; the lowest-inertia result is kept.
+    seed : int, numpy Generator or None, default=0
+        Source of randomness, threaded through every restart.  The same
+        seed gives a bit-identical result.
+    fixed : array_like of shape (m, d), optional
+        Locked centres: they are the first ``m`` centres of the result and
+        never move; the other ``k - m`` are fitted around them.
+    init : {"k-means++", "random", "farthest"}, default="k-means++"
+        Seeding: greedy weighted D² sampling (k-means++); ``k`` distinct
+        points drawn at random with probability proportional to weight; or
+        farthest-point traversal from a weighted random start.
+    init_centres : array_like of shape (k, d), optional
+        Start from these centres instead of seeding (one run, no restarts);
+        the first ``m`` must equal ``fixed``.
+    max_iter : int, default=300
+        Lloyd iterations per restart at most.
+    tol : float, default=1e-4
+        Stop when the summed squared centre shift falls below ``tol`` times
+        the weighted mean variance of the data.
+
+    Returns
+    -------
+    KMeansResult
+
+    Raises
+    ------
+    ValueError
+        Bad shapes, negative or all-zero weights, ``k < 1``, more locked
+        centres than ``k``, or an unknown ``init``.
+
+    References
+    ----------
+    .. [1] S. Lloyd, "Least squares quantization in PCM", IEEE Transactions
+       on Information Theory 28(2), 129-137, 1982.
+    .. [2] D. Arthur and S. Vassilvitskii, "k-means++: the advantages of
+       careful seeding", Proceedings of the 18th ACM-SIAM Symposium on
+       Discrete Algorithms (SODA), 1027-1035, 2007.
+    .. [3] T. F. Gonzalez, "Clustering to minimize the maximum intercluster
+       distance", Theoretical Computer Science 38, 293-306, 1985
+       (farthest-point traversal).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> pts = np.array([[0.0, 0, 0], [0, 0, 1], [10, 0, 0], [10, 0, 1]])
+    >>> res = kmeans(pts, 2, seed=1)
+    >>> sorted(res.centres[:, 0].tolist()), float(res.inertia)
+    ([0.0, 10.0], 1.0)
+    """
+    pts = np.ascontiguousarray(points, dtype=np.float64)
+    if pts.ndim != 2 or pts.shape[0] == 0:
+        raise ValueError(f"points must have shape (n, d) with n >= 1, got {pts.shape}")
+    n, d = pts.shape
+    w = np.ones(n) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
+    if w.shape != (n,):
+        raise ValueError(f"weights must have shape ({n},), got {w.shape}")
+    if not np.all(np.isfinite(w)) or (w < 0).any() or w.sum() <= 0:
+        raise ValueError("weights must be finite, non-negative and not all zero")
+    if not np.all(np.isfinite(pts)):
+        raise ValueError("points must be finite")
+    k = int(k)
+    if k < 1:
+        raise ValueError(f"k must be at least 1, got {k}")
+    if restarts < 1:
+        raise ValueError(f"restarts must be at least 1, got {restarts}")
+    check_init(init)
+    fx = np.zeros((0, d)) if fixed is None else np.asarray(fixed, dtype=np.float64).reshape(-1, d)
+    m = fx.shape[0]
+    if m > k:
+        raise ValueError(f"{m} locked centres do not fit in k={k}")
+    rng = np.random.default_rng(seed)
+
+    # Zero-weight points cannot hold a centre; distinct positive points bound k.
+    keep = w > 0
+    if not keep.all():
+        pts, w = pts[keep], w[keep]
+    if init_centres is not None:
+        k_eff = np.shape(init_centres)[0]
+    else:
+        k_eff = m + _count_distinct_upto(pts, fx, k - m)
+    if k_eff < k:
+        warnings.warn(
+            f"only {k_eff} distinct colours are available; the palette has {k_eff}, not {k}",
+            PaletteSizeWarning,
+            stacklevel=2,
+        )
+    abs_tol = tol * tolerance_scale(pts, w)
+
+    if init_centres is not None:
+        start = np.asarray(init_centres, dtype=np.float64)
+        if start.shape != (k_eff, d):
+            raise ValueError(f"init_centres must have shape ({k_eff}, {d}), got {start.shape}")
+        start = start.copy()
+        start[:m] = fx
+        starts = [start]
+    else:
+        starts = None
+
+    best = None
+    runs = []
+    for r in range(1 if starts else restarts):
+        c0 = starts[r] if starts else INITS[init](pts, w, k_eff, fx, rng)
+        if c0.shape[0] < k_eff:  # seeding ran out of distinct points
+            c0 = np.vstack([c0, np.repeat(c0[-1:], k_eff - c0.shape[0], axis=0)])
+        centres, labels, history, n_iter = _lloyd(pts, w, c0, m, max_iter, abs_tol)
+        runs.append((centres, history[-1]))
+        if best is None or history[-1] < best[2][-1]:
+            best = (centres, labels, history, n_iter)
+    centres, labels, history, n_iter = best
+    if not keep.all():
+        full = np.full(keep.size, -1, dtype=labels.dtype)
+        full[keep] = labels
+        # Zero-weight points still get their nearest centre.
+        full[~keep] = assign_nearest(np.ascontiguousarray(np.asarray(points, float)[~keep]), centres)[0]
+        labels = full
+    return KMeansResult(
+        centres=centres,
+        labels=labels,
+        inertia=history[-1],
+        n_iter=n_iter,
+        history=tuple(history),
+        k_requested=k,
+        runs=tuple(runs),
+    )

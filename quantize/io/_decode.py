@@ -1,0 +1,77 @@
+"""Decoding helpers shared by the readers and the writer of :mod:`quantize.io`."""
+
+from __future__ import annotations
+
+import struct
+import threading
+import warnings
+import zlib
+from pathlib import Path
+
+import numpy as np
+from PIL import Image
+
+from quantize.core.picture import ImageWarning
+from quantize.errors import ImageReadError
+
+_Note = tuple[type, str]
+# What decoders raise on damaged or foreign data. Our own bugs (TypeError,
+# AttributeError...) are deliberately not listed, so they keep their tracebacks.
+DECODE_ERRORS: tuple[type[BaseException], ...] = (
+    OSError, SyntaxError, ValueError, EOFError, IndexError, KeyError,
+    struct.error, zlib.error, MemoryError, Image.DecompressionBombError,
+)  # fmt: skip
+
+# 16-bit PNG colour types that Pillow narrows to 8 bits, with the rawmode its
+# decoder uses for each (ISO/IEC 15948:2004, table 11.1).
+PNG16_RAWMODE = {2: "RGB;16B", 4: "LA;16B", 6: "RGBA;16B"}
+_LIMIT_LOCK = threading.Lock()
+
+
+def open_pil(path: Path) -> Image.Image:
+    """``Image.open`` with Pillow's pixel limit replaced by the caller's own."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", Image.DecompressionBombWarning)
+        try:
+            return Image.open(path)
+        except Image.DecompressionBombError:
+            pass
+        # Pillow refuses before saying how big the image is. Lift its limit for
+        # the header read only, so that max_pixels decides and the message can
+        # name the size.
+        with _LIMIT_LOCK:
+            saved, Image.MAX_IMAGE_PIXELS = Image.MAX_IMAGE_PIXELS, None
+            try:
+                return Image.open(path)
+            finally:
+                Image.MAX_IMAGE_PIXELS = saved
+
+
+def check_pixels(name: str, size: tuple[int, int], max_pixels: int | None) -> None:
+    count = int(size[0]) * int(size[1])
+    if max_pixels is not None and count > max_pixels:
+        raise ImageReadError(
+            f"{name}: {size[0]} x {size[1]} = {count:,} pixels exceeds the limit of "
+            f"{max_pixels:,} (decompression-bomb guard; raise max_pixels to allow it)"
+        )
+
+
+def dpi_pair(value: object) -> tuple[float, float] | None:
+    try:
+        x, y = (float(v) for v in value)  # type: ignore[union-attr]
+    except (TypeError, ValueError):
+        return None
+    return (x, y) if x > 0 and y > 0 and np.isfinite(x) and np.isfinite(y) else None
+
+
+def exif_orientation(img: Image.Image, name: str, notes: list[_Note]) -> int:
+    try:
+        return int(img.getexif().get(0x0112, 1))
+    except (*DECODE_ERRORS, TypeError):
+        notes.append((ImageWarning, f"{name}: unreadable EXIF data; orientation ignored"))
+        return 1
+
+
+def to_8bit(a: np.ndarray) -> np.ndarray:
+    """uint16 codes -> nearest uint8 codes (v / 257, rounded)."""
+    return ((a.astype(np.uint32) * 255 + 32767) // 65535).astype(np.uint8)

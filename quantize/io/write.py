@@ -1,0 +1,337 @@
+"""Writing results: reduced images and atomic file writes.
+
+Every output goes to a temporary file in the target folder and is renamed
+into place, so an interrupted run leaves no half-written file; an existing
+file is replaced only with ``force``, and an input never.  Split out of
+Readers are in :mod:`quantize.io.read`.
+"""
+
+
+import contextlib
+import io
+import os
+import tempfile
+import warnings
+from collections.abc import Callable, Iterable
+from pathlib import Path
+from typing import IO, Union
+
+import numpy as np
+from PIL import Image
+
+from quantize.core.picture import ImageWarning
+from quantize.errors import OutputError
+from quantize.io._decode import dpi_pair, to_8bit
+
+PathLike = Union[str, "os.PathLike[str]"]
+
+def save_image(
+    path: PathLike,
+    indices: np.ndarray,
+    palette_rgb: np.ndarray,
+    *,
+    alpha: np.ndarray | None = None,
+    dpi: tuple[float, float] | None = None,
+    force: bool = False,
+    inputs: Iterable[PathLike] = (),
+) -> Path:
+    """Write a palette-reduced image, atomically, in the format its extension names.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Output file. Its extension selects the format (see `SAVE_FORMATS`):
+        ``.png``, ``.tif``/``.tiff`` or ``.jpg``/``.jpeg``.
+    indices : (H, W) ndarray of int
+        Palette index of every pixel.
+    palette_rgb : (k, 3) ndarray of uint8
+        sRGB colour of each palette entry.
+    alpha : (H, W) ndarray of uint8, uint16 or bool, optional
+        Opacity, 0 = fully transparent.
+    dpi : (float, float), optional
+        Resolution to record in the file.
+    force : bool, default False
+        Replace `path` if it already exists.
+    inputs : iterable of path-like, default ()
+        The images this output was made from. `path` is never allowed to be
+        one of them, even with `force`.
+
+    Returns
+    -------
+    pathlib.Path
+        `path`, once it is complete on disk.
+
+    Raises
+    ------
+    OutputError
+        Unknown extension; the path is a folder, an input, or already exists
+        without `force`; the folder is missing or not writable; writing failed.
+        A file already at `path` is left as it was.
+    ValueError
+        `indices`, `palette_rgb`, `alpha` or `dpi` have the wrong shape, dtype
+        or range.
+
+    Warns
+    -----
+    ImageWarning
+        A JPEG was asked for with transparent pixels. They are flattened onto white.
+
+    Notes
+    -----
+    PNG: a palette (P) image when k <= 256 and alpha is absent or only fully
+    transparent / fully opaque. Fully transparent pixels are given one extra
+    white palette entry that carries tRNS alpha 0 (the other indices stay as
+    given). Partial alpha, or k = 256 with transparency, gives an 8-bit RGBA PNG
+    instead, and k > 256 an RGB(A) PNG. TIFF: RGB or RGBA (unassociated alpha),
+    LZW-compressed. JPEG: RGB, quality 95, no chroma subsampling (4:4:4), so
+    flat-colour edges stay crisp. No ICC profile is embedded; the values are sRGB.
+    Indexed PNGs come from :mod:`quantize.io._png` (unfiltered rows, zlib level 6,
+    compressed on several threads), the others from Pillow. PNG records the
+    resolution as whole pixels per metre, so 300 dpi reads back as 299.9994.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> save_image("out.png", np.zeros((4, 4), int), np.array([[200, 30, 40]], np.uint8))  # doctest: +SKIP
+    PosixPath('out.png')
+    """
+    target = Path(path)
+    fmt = SAVE_FORMATS.get(target.suffix.lower())
+    if fmt is None:
+        raise OutputError(
+            f"{os.fspath(path)}: unsupported output extension {target.suffix or '(none)'!r}; "
+            f"use one of {', '.join(SAVE_FORMATS)}"
+        )
+    idx, palette, a8 = _check_raster(indices, palette_rgb, alpha)
+    dpi = _check_dpi(dpi)
+    image, options, note = _plan_encoding(fmt, idx, palette, a8)
+    if image is None:  # an indexed PNG: quantize's own encoder (quantize.io._png)
+        from ._png import indexed_png
+
+        data = indexed_png(options["indices"], options["palette"], transparent=options["transparent"], dpi=dpi)
+        written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
+        return written
+    if dpi is not None:
+        options["dpi"] = dpi
+    # Encoded in memory, then written by Python: Pillow's encoders write to a
+    # real file through its descriptor and do not notice a short write, so on
+    # a full disk a JPEG came out cut short with no error.
+    buf = io.BytesIO()
+    try:
+        image.save(buf, format=fmt, **options)
+    except OSError as exc:
+        raise OutputError(f"{os.fspath(path)}: writing failed ({exc.strerror or exc})") from exc
+    data = buf.getvalue()
+    written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
+    if note:
+        warnings.warn(f"{os.fspath(path)}: {note}", ImageWarning, stacklevel=2)
+    return written
+
+#: Output extensions :func:`save_image` understands, and the format each selects.
+SAVE_FORMATS: dict[str, str] = {
+    ".png": "PNG",
+    ".tif": "TIFF",
+    ".tiff": "TIFF",
+    ".jpg": "JPEG",
+    ".jpeg": "JPEG",
+}
+
+
+def _check_raster(indices, palette_rgb, alpha):
+    idx = np.asarray(indices)
+    if idx.ndim != 2 or idx.size == 0 or idx.dtype.kind not in "iu":
+        raise ValueError(f"indices must be a non-empty (H, W) integer array, got shape {idx.shape} dtype {idx.dtype}")
+    palette = np.asarray(palette_rgb)
+    if palette.ndim != 2 or palette.shape[1] != 3 or len(palette) == 0 or palette.dtype != np.uint8:
+        raise ValueError(
+            f"palette_rgb must be a non-empty (k, 3) uint8 array, got shape {palette.shape} dtype {palette.dtype}"
+        )
+    lo, hi = int(idx.min()), int(idx.max())
+    if lo < 0 or hi >= len(palette):
+        raise ValueError(f"indices run from {lo} to {hi}, outside the palette's 0 to {len(palette) - 1}")
+    if alpha is None:
+        return idx, palette, None
+    a = np.asarray(alpha)
+    if a.shape != idx.shape or a.dtype not in (np.uint8, np.uint16, np.bool_):
+        raise ValueError(
+            f"alpha must be a {idx.shape} uint8, uint16 or bool array, got shape {a.shape} dtype {a.dtype}"
+        )
+    a8 = a.astype(np.uint8) * 255 if a.dtype == np.bool_ else to_8bit(a) if a.dtype == np.uint16 else a
+    return idx, palette, None if (a8 == 255).all() else a8
+
+
+def _check_dpi(dpi) -> tuple[float, float] | None:
+    if dpi is None:
+        return None
+    checked = dpi_pair(dpi)
+    if checked is None:
+        raise ValueError(f"dpi must be two positive finite numbers, got {dpi!r}")
+    return checked
+
+
+def _plan_encoding(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None):
+    """The Pillow image to write, its save options and a warning (or None).
+
+    For an indexed PNG the image is None and the options hold the indices,
+    palette and transparent index for :func:`quantize.io._png.indexed_png`.
+    """
+    k = len(palette)
+    binary = a8 is None or bool(((a8 == 0) | (a8 == 255)).all())
+    if fmt == "PNG" and binary and k + (a8 is not None) <= 256:
+        transparent = None
+        if a8 is not None:
+            palette = np.vstack([palette, [[255, 255, 255]]]).astype(np.uint8)
+            idx = np.where(a8 == 0, k, idx)
+            transparent = k
+        return None, {"indices": idx.astype(np.uint8), "palette": palette, "transparent": transparent}, None
+    rgb = palette[idx]
+    if fmt == "JPEG":
+        note = None
+        if a8 is not None:
+            a = a8[..., None] / 255.0
+            rgb = np.rint(rgb * a + 255.0 * (1.0 - a)).astype(np.uint8)
+            note = f"JPEG has no transparency; {int((a8 < 255).sum())} transparent pixels flattened onto white"
+        return Image.fromarray(rgb), {"quality": 95, "subsampling": 0}, note
+    image = Image.fromarray(rgb if a8 is None else np.dstack([rgb, a8]))
+    return image, ({"compression": "tiff_lzw"} if fmt == "TIFF" else {}), None
+
+
+def atomic_write_bytes(
+    path: PathLike, data: bytes, *, force: bool = False, inputs: Iterable[PathLike] = ()
+) -> Path:
+    """Write `data` to `path` atomically: the file is complete, or not there at all.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Destination file.
+    data : bytes
+        The whole content.
+    force : bool, default False
+        Replace an existing file.
+    inputs : iterable of path-like, default ()
+        Files that must never be overwritten, even with `force`.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    OutputError
+        As for :func:`save_image`.
+
+    Examples
+    --------
+    >>> atomic_write_bytes("palette.bin", b"\\x00\\x01")  # doctest: +SKIP
+    PosixPath('palette.bin')
+    """
+    return _atomic_write(Path(path), lambda fh: fh.write(data), force=force, inputs=inputs)
+
+
+def atomic_write_text(
+    path: PathLike, text: str, *, force: bool = False, inputs: Iterable[PathLike] = ()
+) -> Path:
+    """Write `text` as UTF-8 to `path` atomically. Options as :func:`atomic_write_bytes`.
+
+    Examples
+    --------
+    >>> atomic_write_text("report.txt", "6 inks\\n", force=True)  # doctest: +SKIP
+    PosixPath('report.txt')
+    """
+    return atomic_write_bytes(path, text.encode("utf-8"), force=force, inputs=inputs)
+
+
+def _atomic_write(target: Path, write: Callable[[IO[bytes]], object], *, force: bool, inputs) -> Path:
+    name = os.fspath(target)
+    _check_target(target, name, force, inputs)
+    mode = _new_file_mode(target)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    except OSError as exc:
+        raise OutputError(f"{name}: cannot create a file in {target.parent} ({exc.strerror or exc})") from exc
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.chmod(tmp, mode)
+        _publish(tmp, target, name, force)
+    except OSError as exc:
+        _discard(tmp)
+        raise OutputError(f"{name}: writing failed ({exc.strerror or exc})") from exc
+    except BaseException:
+        _discard(tmp)
+        raise
+    return target
+
+
+def _check_target(target: Path, name: str, force: bool, inputs) -> None:
+    if target.is_dir():
+        raise OutputError(f"{name}: is a folder; give a file name")
+    folder = target.parent
+    if not folder.is_dir():
+        raise OutputError(f"{name}: folder {os.fspath(folder) or '.'} does not exist")
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise OutputError(f"{name}: folder {os.fspath(folder) or '.'} is not writable")
+    resolved = target.resolve()
+    for source in inputs:
+        src = Path(source)
+        same = src.resolve() == resolved
+        if not same and src.exists() and target.exists():
+            same = os.path.samefile(src, target)
+        if same:
+            raise OutputError(f"{name}: is one of the input images; refusing to overwrite an input")
+    if not force and os.path.lexists(target):
+        raise OutputError(f"{name}: already exists; not replaced without force")
+
+
+def _new_file_mode(target: Path) -> int:
+    with contextlib.suppress(OSError):
+        return os.stat(target).st_mode & 0o7777  # a replaced file keeps its permissions
+    # mkstemp creates 0600. A new file should get the usual 0666 less the umask,
+    # which can only be read by setting it.
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+def _publish(tmp: str, target: Path, name: str, force: bool) -> None:
+    if force:
+        os.replace(tmp, target)
+        return
+    # A hard link fails if the name is taken, so a file created since the check is never clobbered.
+    try:
+        os.link(tmp, target)
+    except FileExistsError:
+        raise OutputError(f"{name}: already exists; not replaced without force") from None
+    except OSError:  # a filesystem without hard links
+        if os.path.lexists(target):
+            raise OutputError(f"{name}: already exists; not replaced without force") from None
+        os.replace(tmp, target)
+        return
+    os.unlink(tmp)
+
+
+def _discard(tmp: str) -> None:
+    with contextlib.suppress(FileNotFoundError):
+        os.unlink(tmp)
+
+
+def to_jsonable(obj):
+    """``obj`` with numpy arrays and scalars as plain lists and numbers, NaN/inf as None.
+
+    Used for every JSON document the package writes (palettes, sweeps,
+    manifests), so they load in any JSON reader.
+    """
+    if isinstance(obj, dict):
+        return {str(k): to_jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [to_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return to_jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return to_jsonable(obj.item())
+    if isinstance(obj, float) and not np.isfinite(obj):
+        return None
+    return obj

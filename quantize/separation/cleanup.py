@@ -1,0 +1,262 @@
+"""Printable detail: regions too small to print, thin lines and gaps, the underbase choke.
+
+Pure functions on index images, used by :mod:`quantize.separation.plates`.  Region
+labelling and morphology are scikit-image's (imported when used).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from quantize.core.units import px_to_mm
+
+__all__ = ["clean_small_regions", "find_thin_features", "underbase_mask"]
+
+
+def _label_regions(indices: np.ndarray, opaque: np.ndarray) -> tuple[np.ndarray, int]:
+    from skimage.measure import label
+
+    codes = indices.astype(np.int64) + 1
+    codes[~opaque] = 0  # transparent pixels are no region
+    return label(codes, background=0, connectivity=1, return_num=True)
+
+
+def _adjacent_pairs(labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(a, b) label pairs of 4-neighbouring pixels in different regions, both directions."""
+    pairs = []
+    for x, y in ((labels[:, :-1], labels[:, 1:]), (labels[:-1, :], labels[1:, :])):
+        keep = (x != y) & (x > 0) & (y > 0)
+        pairs.append(np.stack([x[keep], y[keep]]))
+        pairs.append(np.stack([y[keep], x[keep]]))
+    ab = np.concatenate(pairs, axis=1)
+    return ab[0], ab[1]
+
+
+def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: float,
+                        opaque: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
+    """Merge connected single-colour regions smaller than ``min_area`` pixels into a neighbour.
+
+    Parameters
+    ----------
+    indices : (H, W) ndarray of int
+        Palette index per pixel.
+    ink_lab : (k, 3) ndarray
+        CIELAB of the palette colours (ΔE00 between them decides the merge).
+    min_area : float
+        Regions with fewer pixels than this are merged.
+    opaque : (H, W) bool ndarray, optional
+        Pixels that print; transparent ones are left alone and are no
+        region's neighbour.
+
+    Returns
+    -------
+    indices : (H, W) ndarray
+        The cleaned indices (same dtype).
+    report : dict
+        ``pixels_changed``, ``regions_merged``, ``passes``, ``regions_left_small``
+        (regions with no neighbour to merge into), ``delta_e_changed_mean`` and
+        ``delta_e_changed_max`` (ΔE00 from each changed pixel's old colour to its
+        new one) and ``delta_e_image_mean`` (that change averaged over every
+        opaque pixel).
+
+    Notes
+    -----
+    Each pass labels the regions (:func:`skimage.measure.label`), finds the
+    neighbours of every small region along 4-neighbour borders, and merges each
+    small region into the neighbouring region of lowest ΔE00 among those that
+    are larger (by area, then label), unless that small region is itself the
+    target of another merge in this pass. The smallest region always merges,
+    so the passes end.
+
+    Examples
+    --------
+    >>> idx = np.zeros((5, 5), np.uint8); idx[2, 2] = 1
+    >>> lab = np.array([[90.0, 0, 0], [30.0, 0, 0]])
+    >>> out, rep = clean_small_regions(idx, lab, min_area=2)
+    >>> int(out.max()), rep["pixels_changed"]
+    (0, 1)
+    """
+    from quantize.colour.spaces import delta_e_ciede2000
+
+    idx = np.asarray(indices)
+    op = np.ones(idx.shape, bool) if opaque is None else np.asarray(opaque, bool)
+    lab = np.asarray(ink_lab, float)
+    de_ink = delta_e_ciede2000(lab[:, None, :], lab[None, :, :])
+    out = idx.copy()
+    merged = passes = 0
+    left_small = 0
+    while True:
+        labels, n = _label_regions(out, op)
+        area = np.bincount(labels.ravel(), minlength=n + 1)
+        colour = np.zeros(n + 1, np.int64)
+        colour[labels.ravel()] = out.ravel()
+        small = area < min_area
+        small[0] = False
+        if not small[1:].any():
+            break
+        a, b = _adjacent_pairs(labels)
+        larger = (area[b] > area[a]) | ((area[b] == area[a]) & (b > a))
+        sel = small[a] & larger
+        a, b = a[sel], b[sel]
+        if a.size == 0:
+            left_small = int(small[1:].sum())
+            break
+        key = a * (n + 1) + b
+        uniq, border = np.unique(key, return_counts=True)
+        ua, ub = uniq // (n + 1), uniq % (n + 1)
+        cost = de_ink[colour[ua], colour[ub]]
+        order = np.lexsort((-border, cost, ua))  # per source: cheapest, then longest border
+        ua, ub = ua[order], ub[order]
+        first = np.ones(ua.size, bool)
+        first[1:] = ua[1:] != ua[:-1]
+        src, tgt = ua[first], ub[first]
+        ok = ~np.isin(src, tgt)  # a region that receives a merge waits for the next pass
+        src, tgt = src[ok], tgt[ok]
+        lut = colour.copy()
+        lut[src] = colour[tgt]
+        out = np.where(op, lut[labels], out).astype(idx.dtype)
+        merged += int(src.size)
+        passes += 1
+    changed = (out != idx) & op
+    n_changed = int(changed.sum())
+    de = de_ink[idx[changed].astype(np.intp), out[changed].astype(np.intp)]
+    report = {
+        "min_area_px": float(min_area),
+        "pixels_changed": n_changed,
+        "regions_merged": merged,
+        "passes": passes,
+        "regions_left_small": left_small,
+        "delta_e_changed_mean": float(de.mean()) if n_changed else 0.0,
+        "delta_e_changed_max": float(de.max()) if n_changed else 0.0,
+        "delta_e_image_mean": float(de.sum() / max(int(op.sum()), 1)),
+    }
+    return out, report
+
+
+# --------------------------------------------------------------------------- thin detail
+
+def _odd_width(width_px: float) -> int:
+    # The digital disk {|v| <= r} is 2r+1 pixels across; round the width to the nearest odd count.
+    return max(1, 2 * int(round((width_px - 1.0) / 2.0)) + 1)
+
+
+def find_thin_features(mask: np.ndarray, *, width_px: float, dpi: float, name: str = "",
+                       limit: int = 100) -> tuple[list[dict], dict]:
+    """Thin positive lines and thin knock-out gaps of one plate.
+
+    Parameters
+    ----------
+    mask : (H, W) bool ndarray
+        Where the ink prints.
+    width_px : float
+        Minimum printable width in pixels; it is rounded to an odd number of
+        pixels ``n`` (a disk of radius ``(n - 1) / 2`` pixels).
+    dpi : float
+        For the millimetre coordinates.
+    name : str
+        Ink name written into each item.
+    limit : int, default 100
+        Largest number of items returned (the biggest first); the summary
+        counts them all.
+
+    Returns
+    -------
+    items : list of dict
+        ``ink``, ``kind`` ("line" or "gap"), ``pixels``, the bounding box
+        ``x``, ``y``, ``w``, ``h`` in pixels (x to the right, y down, from the
+        top-left corner) and the same in mm (``x_mm`` ...), and
+        ``width_mm`` (estimated narrowest width, from the distance transform).
+    summary : dict
+        ``lines``, ``gaps`` (counts), ``width_px`` (the odd width used).
+
+    Notes
+    -----
+    Outside the image counts as unprinted, so art cut by the edge is measured
+    as it will print. Only parts at least ``n`` pixels in area are reported:
+    the corners a disk cannot reach are smaller than that.
+
+    Examples
+    --------
+    >>> m = np.zeros((40, 40), bool); m[5:35, 5:20] = True; m[19:21, 20:35] = True
+    >>> items, summary = find_thin_features(m, width_px=5, dpi=300)
+    >>> summary["lines"], items[0]["x"], items[0]["h"]
+    (1, 21, 2)
+    """
+    from scipy import ndimage as ndi
+    from skimage.measure import label
+
+    n = _odd_width(width_px)
+    summary = {"lines": 0, "gaps": 0, "width_px": n, "width_mm": round(px_to_mm(n, dpi), 4)}
+    mask = np.asarray(mask, bool)
+    if n <= 1 or not mask.any():
+        return [], summary
+    r = (n - 1) // 2
+    pad = r + 2
+    # Work on the plate's bounding box only, padded with unprinted pixels.
+    rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
+    oy, ox = int(rows[0]) - pad, int(cols[0]) - pad
+    m = np.pad(mask[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1], pad)
+    opened, closed = _open_close(m, r)
+    found = []
+    for kind, part, ink_side in (("line", m & ~opened, m), ("gap", closed & ~m, ~m)):
+        lab, count = label(part, connectivity=2, return_num=True)
+        if count == 0:
+            continue
+        area = np.bincount(lab.ravel(), minlength=count + 1)
+        keep = np.flatnonzero(area >= n)
+        keep = keep[keep > 0]
+        summary["lines" if kind == "line" else "gaps"] += int(keep.size)
+        boxes = ndi.find_objects(lab)
+        for j in keep[np.argsort(-area[keep], kind="stable")][:limit]:
+            sy, sx = boxes[j - 1]
+            # Width from the distance transform, in a window around the part only.
+            wy = slice(max(sy.start - n, 0), sy.stop + n)
+            wx = slice(max(sx.start - n, 0), sx.stop + n)
+            dist = ndi.distance_transform_edt(ink_side[wy, wx])
+            inside = lab[wy, wx] == j
+            width = max(1.0, 2.0 * float(dist[inside].max()) - 1.0)
+            y0, x0, y1, x1 = sy.start + oy, sx.start + ox, sy.stop + oy, sx.stop + ox
+            found.append({"ink": name, "kind": kind, "pixels": int(area[j]), "x": x0, "y": y0,
+                          "w": x1 - x0, "h": y1 - y0, "x_mm": round(px_to_mm(x0, dpi), 3), "y_mm": round(px_to_mm(y0, dpi), 3),
+                          "w_mm": round(px_to_mm(x1 - x0, dpi), 3), "h_mm": round(px_to_mm(y1 - y0, dpi), 3), "width_mm": round(px_to_mm(width, dpi), 3)})
+    found.sort(key=lambda d: -d["pixels"])
+    return found[:limit], summary
+
+
+def _open_close(m: np.ndarray, r: int) -> tuple[np.ndarray, np.ndarray]:
+    """Opening and closing of ``m`` (padded with unprinted pixels) by the digital disk {|v| <= r}."""
+    from skimage import morphology
+
+    if r <= 8:  # a small footprint is cheaper than distance transforms
+        fp = morphology.disk(r)
+        return morphology.opening(m, fp).astype(bool), morphology.closing(m, fp).astype(bool)
+    eroded = morphology.isotropic_erosion(m, r)
+    # A distance transform needs at least one zero: an empty erosion opens to nothing.
+    opened = morphology.isotropic_dilation(eroded, r) if eroded.any() else np.zeros_like(m)
+    return opened, morphology.isotropic_closing(m, r)
+
+
+def underbase_mask(printed: np.ndarray, choke_px: float) -> np.ndarray:
+    """The underbase: printed areas choked inward by ``choke_px`` pixels.
+
+    A pixel is kept when every pixel within ``choke_px`` of it (centre to
+    centre) prints; outside the image counts as unprinted.
+
+    Examples
+    --------
+    >>> p = np.zeros((7, 7), bool); p[1:6, 1:6] = True
+    >>> int(underbase_mask(p, 1).sum())
+    9
+    """
+    from skimage.morphology import isotropic_erosion
+
+    p = np.asarray(printed, bool)
+    if choke_px <= 0:
+        return p.copy()
+    pad = int(math.ceil(choke_px)) + 1
+    return isotropic_erosion(np.pad(p, pad), choke_px)[pad:-pad, pad:-pad]
+
+
+# --------------------------------------------------------------------------- the separation
