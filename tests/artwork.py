@@ -67,3 +67,103 @@ def flat_artwork(n_inks, seed=0, *, size=320, jpeg_quality=None, min_de=15.0, su
         buf.seek(0)
         small = Image.open(buf).convert("RGB")
     return np.asarray(small).copy(), inks
+
+
+# --------------------------------------------------------------------------- what real files add
+# Generated stand-ins for customer art: small inks, lettering and strokes,
+# scans, JPEG chroma and shading.  Invented data, with the true inks known.
+
+
+def _lab(rgb8):
+    from skimage.color import rgb2lab
+
+    return rgb2lab(np.asarray(rgb8, dtype=np.float64)[None] / 255.0)[0]
+
+
+def far_colour(inks, rng, min_de=20.0):
+    """A colour at least ``min_de`` CIEDE2000 from every ink (skimage's CIEDE2000)."""
+    from skimage.color import deltaE_ciede2000
+
+    labs = _lab(inks)
+    while True:
+        c = rng.integers(0, 256, 3)
+        if deltaE_ciede2000(np.broadcast_to(_lab(c[None])[0], labs.shape), labs).min() >= min_de:
+            return c.astype(np.uint8)
+
+
+def add_spot(rgb, inks, share, seed=0, *, min_de=20.0, supersample=4):
+    """Paint one compact disc of a new ink covering ``share`` of the image.
+
+    Returns (rgb, inks with the new ink last).
+    """
+    rng = np.random.default_rng(seed + 1000)
+    colour = far_colour(inks, rng, min_de)
+    h, w = rgb.shape[:2]
+    r = np.sqrt(share * h * w / np.pi)
+    big = Image.fromarray(rgb).resize((w * supersample, h * supersample), Image.Resampling.NEAREST)
+    x, y = rng.uniform(2 * r, w - 2 * r), rng.uniform(2 * r, h - 2 * r)
+    s = supersample
+    ImageDraw.Draw(big).ellipse([s * (x - r), s * (y - r), s * (x + r), s * (y + r)],
+                                fill=tuple(int(v) for v in colour))
+    return np.asarray(big.resize((w, h), Image.Resampling.BOX)).copy(), np.vstack([inks, colour[None]])
+
+
+def jpeg(rgb, quality=75, subsampling="4:2:0"):
+    """``rgb`` through a JPEG file (4:2:0 chroma by default, as cameras and the web use)."""
+    buf = io.BytesIO()
+    Image.fromarray(rgb).save(buf, format="JPEG", quality=quality, subsampling=subsampling)
+    buf.seek(0)
+    return np.asarray(Image.open(buf).convert("RGB")).copy()
+
+
+#: The multiplier a cream paper applies to each channel in :func:`scan`.
+PAPER_TINT = np.array([0.97, 0.96, 0.92])
+
+
+def scan(rgb, seed=0, *, blur=0.8, noise=3.0, quality=75):
+    """A simulated scan: Gaussian blur (px), a paper tint, sensor noise (8-bit codes), JPEG.
+
+    The inks of the result are ``inks * PAPER_TINT`` (:func:`scanned_inks`).
+    """
+    from PIL import ImageFilter
+
+    rng = np.random.default_rng(seed)
+    a = np.asarray(Image.fromarray(rgb).filter(ImageFilter.GaussianBlur(blur))).astype(np.float64)
+    a = a * PAPER_TINT + rng.normal(0.0, noise, a.shape)
+    return jpeg(np.clip(np.rint(a), 0, 255).astype(np.uint8), quality)
+
+
+def scanned_inks(inks):
+    """The inks as :func:`scan` leaves them (tinted; noise and blur average out inside a region)."""
+    return np.clip(np.rint(np.asarray(inks, dtype=np.float64) * PAPER_TINT), 0, 255).astype(np.uint8)
+
+
+def shaded(rgb, *, low=0.93, high=1.04):
+    """A gentle left-to-right shading across the sheet (channel gain from ``low`` to ``high``)."""
+    gain = np.linspace(low, high, rgb.shape[1])[None, :, None]
+    return np.clip(np.rint(rgb * gain), 0, 255).astype(np.uint8)
+
+
+def lettering_artwork(n_inks, seed=0, *, size=320, min_de=20.0, supersample=4):
+    """Text at several sizes, thin strokes and a block per ink, anti-aliased.
+
+    Returns (rgb, inks); the first ink is the background.  Each ink has a
+    block of several per cent, so every ink is a coherent region, and its
+    lettering and strokes add edges of every pair of inks.
+    """
+    from PIL import ImageFont
+
+    rng = np.random.default_rng(seed)
+    inks = _ink_colours(n_inks, rng, min_de)
+    s = supersample
+    big = Image.new("RGB", (size * s, size * s), tuple(int(v) for v in inks[0]))
+    draw = ImageDraw.Draw(big)
+    step = size * s // max(n_inks - 1, 1)
+    for i, ink in enumerate(inks[1:]):
+        colour = tuple(int(v) for v in ink)
+        draw.rectangle([i * step + 8 * s, size * s // 2, i * step + step - 8 * s, size * s * 3 // 4], fill=colour)
+        font = ImageFont.load_default(size=(6 + 6 * i) * s)
+        draw.text((4 * s, (10 + 34 * i) * s), "Harbour Kite Co. 1987", fill=colour, font=font)
+        draw.line([(0, (size - 60 + 12 * i) * s), (size * s, (size - 70 + 15 * i) * s)], fill=colour, width=s)
+    small = big.resize((size, size), Image.Resampling.BOX)
+    return np.asarray(small).copy(), inks

@@ -1,0 +1,104 @@
+"""Flat regions: where the inks of a picture sit.
+
+The inks of generated artwork are known (tests/artwork.py, invented data);
+the ΔE00 between colours is measured with colour-science's CIEDE2000
+(Sharma, Wu & Dalal 2005), an implementation outside the project.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from colour import delta_E
+from skimage.color import rgb2lab
+
+from artwork import add_spot, flat_artwork, jpeg, lettering_artwork, scan, scanned_inks
+from quantize.core.picture import Picture
+from quantize.core.regions import find_regions
+
+#: Regions a printer would count: 0.1 % of the image (see docs/method.md).
+MIN_SHARE = 0.001
+
+
+def _ink_lab(inks):
+    return rgb2lab(np.asarray(inks, dtype=np.float64)[None] / 255.0)[0]
+
+
+def _big(regions):
+    keep = regions.share >= MIN_SHARE
+    return regions.lab[keep], regions.share[keep]
+
+
+def _nearest_de(labs, to):
+    return np.array([delta_E(np.broadcast_to(x, to.shape), to, method="CIE 2000").min() for x in labs])
+
+
+CASES = {
+    "flat": lambda rgb, inks, seed: (rgb, inks),
+    "jpeg q75 4:2:0": lambda rgb, inks, seed: (jpeg(rgb, 75), inks),
+    "scan": lambda rgb, inks, seed: (scan(rgb, seed), scanned_inks(inks)),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+@pytest.mark.parametrize("n_inks,seed", [(3, 1), (5, 2), (8, 3)])
+def test_every_ink_is_a_region_and_every_region_an_ink(case, n_inks, seed):
+    rgb, inks = CASES[case](*flat_artwork(n_inks, seed), seed)
+    labs, _ = _big(find_regions(Picture(rgb)))
+    truth = _ink_lab(inks)
+    # Each ink has a region of its own colour (within ΔE00 2, the goal for a palette colour) ...
+    assert _nearest_de(truth, labs).max() < 2.0
+    # ... and no region is a colour that is no ink: anti-aliased edges and noise are no regions.
+    assert _nearest_de(labs, truth).max() < 2.0
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_lettering_and_strokes_make_no_regions_of_their_own(case):
+    rgb, inks = CASES[case](*lettering_artwork(4, 5), 5)
+    labs, _ = _big(find_regions(Picture(rgb)))
+    truth = _ink_lab(inks)
+    assert _nearest_de(truth, labs).max() < 2.0
+    # 4:2:0 chroma bleeds the ground into the inside of thin strokes: a
+    # stroke's region may drift from its ink, but never so far (ΔE00 10, the
+    # difference that makes another ink) that it would pass for one.
+    assert _nearest_de(labs, truth).max() < (2.0 if case == "flat" else 10.0)
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+@pytest.mark.parametrize("share", [0.003, 0.005])
+def test_a_small_spot_of_ink_is_a_region_with_its_area(case, share):
+    rgb, inks = add_spot(*flat_artwork(5, 7), share, seed=7)
+    rgb, inks = CASES[case](rgb, inks, 7)
+    regions = find_regions(Picture(rgb))
+    spot = _ink_lab(inks[-1:])
+    de = _nearest_de(regions.lab, spot)
+    hit = de < 3.0
+    assert hit.any()
+    if case == "flat":
+        # The rim the window takes off is added back: the area is the painted one, within a quarter.
+        # (JPEG and scan noise may split a small saturated spot into several regions.)
+        assert regions.share[hit].sum() == pytest.approx(share, rel=0.25)
+
+
+def test_transparent_pixels_are_no_region_and_not_counted():
+    rgb = np.full((80, 80, 3), 240, np.uint8)
+    rgb[:, 40:] = (30, 60, 160)
+    alpha = np.full((80, 80), 255, np.uint8)
+    alpha[:40] = 0
+    regions = find_regions(Picture(rgb, alpha=alpha))
+    assert regions.n_pixels == 80 * 40
+    assert (regions.labels[:38] == 0).all()
+    assert regions.share.sum() == pytest.approx(1.0, abs=0.05)
+
+
+def test_a_large_picture_is_analysed_at_a_reduced_scale_with_the_same_shares():
+    rgb, _ = flat_artwork(4, 11, size=400)
+    big = np.repeat(np.repeat(rgb, 3, axis=0), 3, axis=1)  # 1200 x 1200: the same art, 9x the pixels
+    full = find_regions(Picture(big), max_pixels=2_000_000)
+    reduced = find_regions(Picture(big), max_pixels=200_000)
+    assert full.scale == 1 and reduced.scale == 3
+    a, b = _big(full), _big(reduced)
+    order_a, order_b = np.argsort(-a[1]), np.argsort(-b[1])
+    n = min(len(order_a), len(order_b), 5)
+    assert np.allclose(a[1][order_a][:n], b[1][order_b][:n], atol=0.01)
+    assert _nearest_de(a[0][order_a][:n], b[0][order_b][:n]).max() < 1.0
