@@ -16,7 +16,9 @@ inside.  :func:`find_regions` separates the two:
    the noise of a saturated ink counts as the eye and CIEDE2000 weigh it.
    An edge between two inks, however soft, crosses the window and is not
    flat; a gentle shading is.
-3. Flat pixels that touch (8-connected) form a region.  A region's colour
+3. Flat pixels that touch (8-connected) form a region, if its core holds
+   a disc of :data:`MIN_CORE_RADIUS` pixels (thin flat runs are hairlines
+   and the length of a seam).  A region's colour
    is the median CIELAB of its pixels in the unsmoothed picture.  Its area
    counts the pixels within :data:`RIM` pixels of it that belong to no other
    region: the window took that rim off every region's edge.
@@ -46,7 +48,7 @@ from quantize.colour.spaces import srgb_to_lab
 
 from .picture import Picture
 
-__all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "ANALYSIS_PIXELS"]
+__all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN_CORE_RADIUS", "ANALYSIS_PIXELS"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -61,6 +63,10 @@ FLAT_THRESHOLD = 6.0
 SMOOTHING = (1.0, 1.0)
 #: Width in pixels of the rim the 5 x 5 window takes off a region.
 RIM = 3
+#: The smallest inscribed radius, in pixels, of a region's flat core: with the
+#: rim, an area of ink at least about 9 px across.  Thinner flat runs are the
+#: insides of hairlines and blurred seams.
+MIN_CORE_RADIUS = 2.0
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 1_000_000
 _WINDOW = 5
@@ -149,6 +155,13 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     # A transparent pixel is no ink; nor is an opaque one beside it.
     flat = (spread < threshold) & ndi.binary_erosion(opaque, np.ones((3, 3)), border_value=1)
     labels, n = ndi.label(flat, structure=np.ones((3, 3), dtype=bool))
+    if n:
+        # A seam can be flat along its length: a core too thin to hold a disc
+        # of MIN_CORE_RADIUS is a line or a stroke's edge, not an area of ink.
+        depth = ndi.maximum(ndi.distance_transform_edt(flat), labels, np.arange(1, n + 1))
+        thick = np.r_[False, np.asarray(depth) >= MIN_CORE_RADIUS]
+        flat = thick[labels]
+        labels, n = ndi.label(flat, structure=np.ones((3, 3), dtype=bool))
     index = np.arange(1, n + 1)
     if n:
         median = np.stack([ndi.median(lab[..., c], labels, index) for c in range(3)], axis=1)
