@@ -19,6 +19,8 @@ from pathlib import Path
 
 import click
 
+from quantize.render.methods import DITHERS
+
 __all__ = [
     "DITHER_NAMES",
     "DitherChoice",
@@ -28,10 +30,9 @@ __all__ = [
     "run_dither_outputs",
 ]
 
-#: Names of quantize.render.dither.DITHERS, repeated here so that --help needs no
-#: import of the library (a test keeps the two in step).
-DITHER_NAMES = ("none", "floyd-steinberg", "jarvis-judice-ninke", "stucki", "bayer2", "bayer4", "bayer8",
-                "blue-noise", "clustered-dot")
+#: Names of the dithering methods, read from the table that defines them
+#: (quantize.render.methods imports no numpy, so --help stays fast).
+DITHER_NAMES = tuple(DITHERS)
 _KEYS = ("dither", "dither_strength", "serpentine", "view_dpi", "view_distance", "error_map", "error_map_kind")
 
 
@@ -147,8 +148,8 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
     Returns
     -------
     result : MappedImage
-        With ``extra["delta_e_filtered"]`` and ``extra["viewing"]`` when a
-        viewing condition was given.
+        With ``filtered`` (the filtered ΔE00 and its viewing condition) when
+        a viewing condition was given.
     summary : dict
         For the JSON summary: ``dither`` (name, strength, serpentine),
         ``delta_e_filtered`` and ``viewing`` (or None), ``error_map`` (path
@@ -167,7 +168,7 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
         from quantize.quality.perception import with_filtered_delta_e
 
         result = with_filtered_delta_e(image, result, dpi=choice.view_dpi, distance_mm=choice.view_distance)
-        s, v = result.extra["delta_e_filtered"], result.extra["viewing"]
+        s, v = result.filtered.stats, result.filtered.viewing
         summary["delta_e_filtered"], summary["viewing"] = s, v
         lines.append(f"ΔE00 filtered (S-CIELAB, {v['dpi']:g} dpi at {v['distance_mm']:g} mm, "
                      f"{v['ppd']:.1f} px/degree): mean {s['mean']:.2f}  median {s['median']:.2f}  "
