@@ -81,7 +81,7 @@ def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
     img, pal, _ = artwork
     mapped = map_picture(img, pal, metric="ciede2000")
     changed = (mapped.indices != separation.indices).sum()
-    assert changed == separation.cleanup["pixels_changed"] > 0  # JPEG noise specks were merged
+    assert changed == separation.cleanup.pixels_changed > 0  # JPEG noise specks were merged
     assert changed < 0.02 * mapped.indices.size
 
 
@@ -170,7 +170,7 @@ def test_manifest_lists_plates_inks_coverage_order_and_settings(separation, tmp_
     assert sum(doc["coverage_percent"].values()) == pytest.approx(100, abs=1e-3)
     assert {i["name"] for i in doc["inks"]} == {"paper", "Dune", "Reef", "Kelp", "Ember"}
     assert doc["settings"]["min_feature_mm"] == 0.5 and doc["settings"]["choke_mm"] == 0.3
-    assert doc["cleanup"]["pixels_changed"] == separation.cleanup["pixels_changed"]
+    assert doc["cleanup"]["pixels_changed"] == separation.cleanup.pixels_changed
     assert "not a measured print" in doc["caution"] and doc["composite"] == "job-composite.png"
     lab = [p["lab"][0] for p in doc["plates"]]
     assert lab == sorted(lab, reverse=True)  # light to dark
@@ -201,14 +201,14 @@ def test_small_region_merges_into_the_cheapest_neighbour():
     lab = srgb8_to_space(rgb, "lab")
     out, rep = clean_small_regions(idx, lab, min_area=5)
     assert (out[9:11, 9:11] == 0).all()  # into red: far cheaper than blue
-    assert rep["pixels_changed"] == 4 and rep["regions_merged"] == 1
+    assert rep.pixels_changed == 4 and rep.regions_merged == 1
     # Sharma et al. (2005) ΔE00, as computed by scikit-image, for the one change made.
-    assert rep["delta_e_changed_mean"] == pytest.approx(float(deltaE_ciede2000(lab[2], lab[0])), abs=1e-6)
-    assert rep["delta_e_image_mean"] == pytest.approx(rep["delta_e_changed_mean"] * 4 / 400)
+    assert rep.delta_e_changed_mean == pytest.approx(float(deltaE_ciede2000(lab[2], lab[0])), abs=1e-6)
+    assert rep.delta_e_image_mean == pytest.approx(rep.delta_e_changed_mean * 4 / 400)
     # Regions at or above the minimum are left alone.
     out2, rep2 = clean_small_regions(idx, lab, min_area=4)
     np.testing.assert_array_equal(out2, idx)
-    assert rep2["pixels_changed"] == 0
+    assert rep2.pixels_changed == 0
 
 
 def test_cluster_of_small_regions_is_absorbed():
@@ -217,7 +217,7 @@ def test_cluster_of_small_regions_is_absorbed():
     idx[10:16, 10:16] = rng.integers(1, 4, (6, 6))  # confetti of three colours
     lab = np.array([[90.0, 0, 0], [50.0, 60, 30], [40.0, 10, -50], [60.0, -40, 30]])
     out, rep = clean_small_regions(idx, lab, min_area=50)
-    assert (out == 0).all() and rep["passes"] >= 1 and rep["regions_left_small"] == 0
+    assert (out == 0).all() and rep.passes >= 1 and rep.regions_left_small == 0
 
 
 def test_minimum_feature_that_would_erase_the_image_is_refused():
@@ -341,13 +341,15 @@ def test_cli_errors_are_one_line(job, tmp_path):
 
 
 def test_cli_defaults_match_the_library():
-    from quantize.cli import separate as cli_separate
-    from quantize.separation import plates as separation
+    import inspect
 
-    assert cli_separate._MIN_FEATURE_MM == separation.DEFAULT_MIN_FEATURE_MM
-    assert cli_separate._MIN_LINE_MM == separation.DEFAULT_MIN_LINE_MM
-    assert cli_separate._CHOKE_MM == separation.DEFAULT_CHOKE_MM
-    assert cli_separate._MARGIN_MM == separation.DEFAULT_MARGIN_MM
+    from quantize.cli.separate import separate as cli_separate
+    from quantize.separation.plates import Separation
+
+    options = {p.name: p.default for p in cli_separate.params}
+    library = {**inspect.signature(separate).parameters, **inspect.signature(Separation.write).parameters}
+    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm"):
+        assert options[name] == library[name].default, name
 
 
 def test_cli_bad_print_order_writes_nothing(job, tmp_path):
