@@ -454,3 +454,80 @@ def test_substrate_defaults_to_the_palettes_locked_colour_else_white():
     pal, info = choose_palette(art)  # fitted: 1-8 inks chosen by the rule, white locked
     assert pal.hex[info["substrate"]] == "#ffffff" and pal.locked[info["substrate"]]
     assert 2 <= pal.k - 1 <= 8 and pal.locked.sum() == 1
+
+
+# --------------------------------------------------------------------------- the manifest, value by value
+
+def test_manifest_values_match_an_independent_computation(tmp_path):
+    # Flat artwork drawn here with exact ink colours, so every figure of the
+    # manifest follows from the drawing: areas by counting, sizes by
+    # 25.4 mm per inch, CIELAB and CIEDE2000 by scikit-image (Sharma et al.
+    # 2005), the choke by scipy's Euclidean distance transform.
+    from scipy import ndimage as ndi
+    from skimage.color import deltaE_ciede2000, rgb2lab
+
+    h, w, dpi = 80, 120, 300.0
+    inks = {"paper": WHITE, "Red": RED, "Blue": BLUE, "Gold": GOLD}
+    img = np.empty((h, w, 3), np.uint8)
+    img[:] = WHITE
+    img[10:40, 10:60] = RED  # 1500 px
+    img[50:70, 70:110] = BLUE  # 800 px
+    img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
+    img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
+    pal = _palette(*inks.values(), names=tuple(inks))
+    sep = separate(img, pal, dpi=dpi, underbase=True)
+    doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
+
+    lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}
+    speck_de = float(deltaE_ciede2000(lab["Blue"], lab["Red"]))
+    de_tol = 0.01  # scikit-image's sRGB -> CIELAB differs from ours in the last digits of its constants
+    n = h * w
+    area = {"Red": 1500, "Blue": 800, "Gold": 80}
+    area["paper"] = n - sum(area.values())
+    printed = np.zeros((h, w), bool)
+    printed[10:40, 10:60] = printed[50:70, 70:110] = printed[5:7, 70:110] = True
+    choke_px = 0.25 / 25.4 * dpi  # the default choke
+    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] > choke_px)
+    min_area = np.pi * (0.5 / 25.4 * dpi) ** 2 / 4  # a dot of the default 0.5 mm
+
+    assert doc["size_px"] == [w, h] and doc["dpi"] == dpi
+    assert doc["size_mm"] == pytest.approx([w * 25.4 / dpi, h * 25.4 / dpi], abs=1e-3)
+    order = sorted(("Red", "Blue", "Gold"), key=lambda name: -lab[name][0])  # light to dark by L*
+    assert doc["print_order"] == ["underbase"] + order
+    assert [(p["name"], p["order"]) for p in doc["plates"]] == [(name, i + 2) for i, name in enumerate(order)]
+    for p in doc["plates"]:
+        assert p["coverage_percent"] == pytest.approx(100 * area[p["name"]] / n, abs=1e-4)
+        assert p["lab"] == pytest.approx(lab[p["name"]], abs=1e-2)
+        assert p["hex"] == "#{:02x}{:02x}{:02x}".format(*inks[p["name"]])
+        assert p["files"] == [f"job-{p['order']:02d}-{p['name'].lower()}.tif"]
+    assert doc["underbase"]["coverage_percent"] == pytest.approx(100 * under.sum() / n, abs=1e-4)
+    assert doc["substrate"] == {"name": "paper", "hex": "#ffffff",
+                                "coverage_percent": pytest.approx(100 * area["paper"] / n, abs=1e-4)}
+    assert doc["coverage_percent"] == pytest.approx({k: 100 * v / n for k, v in area.items()}, abs=1e-4)
+    assert [(i["name"], i["role"]) for i in doc["inks"]] == [("paper", "substrate"), ("Red", "ink"),
+                                                             ("Blue", "ink"), ("Gold", "ink")]
+    # The speck is merged into the red around it; that is the only change.
+    c = doc["cleanup"]
+    assert (c["pixels_changed"], c["regions_merged"], c["passes"], c["regions_left_small"]) == (4, 1, 1, 0)
+    assert c["min_area_px"] == pytest.approx(min_area) and c["min_feature_mm"] == 0.5
+    assert c["delta_e_changed_mean"] == pytest.approx(speck_de, abs=de_tol)
+    assert c["delta_e_changed_max"] == c["delta_e_changed_mean"]  # one change, four pixels
+    assert c["delta_e_image_mean"] == pytest.approx(c["delta_e_changed_mean"] * 4 / n, rel=1e-12)
+    exact = {"mean": 0.0, "median": 0.0, "p95": 0.0, "max": 0.0}
+    assert c["delta_e_source"]["before"] == pytest.approx(exact, abs=1e-9)
+    after = {"mean": speck_de * 4 / n, "median": 0.0, "p95": 0.0, "max": speck_de}  # 4 px of 9600: below p95
+    assert c["delta_e_source"]["after"] == pytest.approx(after, abs=de_tol)
+    assert doc["delta_e"] == c["delta_e_source"]["after"]
+    # The gold line is thinner than the default 0.35 mm (5 px at 300 dpi); nothing else is.
+    thin = doc["thin_features"]
+    assert thin["summary"] == {"lines": 1, "gaps": 0, "width_px": 5, "width_mm": pytest.approx(5 * 25.4 / dpi, abs=1e-4)}
+    (item,) = thin["items"]
+    assert (item["ink"], item["kind"], item["pixels"]) == ("Gold", "line", 80)
+    assert (item["x"], item["y"], item["w"], item["h"]) == (70, 5, 40, 2)
+    assert [item[k] for k in ("x_mm", "y_mm", "w_mm", "h_mm")] == pytest.approx(
+        [v * 25.4 / dpi for v in (70, 5, 40, 2)], abs=1e-3)
+    assert doc["settings"] == {"dpi": dpi, "min_feature_mm": 0.5, "min_area_px": pytest.approx(min_area, abs=1e-3),
+                               "min_line_mm": 0.35, "underbase": True, "choke_mm": 0.25, "order": "light to dark",
+                               "mapping": "nearest by ΔE00", "palette_fit": {}}
+    assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
+        ("quantize.separation.plates", 1, "job-composite.png", 0)
