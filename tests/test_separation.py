@@ -520,7 +520,8 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     assert doc["delta_e"] == c["delta_e_source"]["after"]
     # The gold line is thinner than the default 0.35 mm (5 px at 300 dpi); nothing else is.
     thin = doc["thin_features"]
-    assert thin["summary"] == {"lines": 1, "gaps": 0, "width_px": 5, "width_mm": pytest.approx(5 * 25.4 / dpi, abs=1e-4)}
+    assert thin["summary"] == {"lines": 1, "gaps": 0, "width_px": 5,
+                               "width_mm": pytest.approx(5 * 25.4 / dpi, abs=1e-4)}
     (item,) = thin["items"]
     assert (item["ink"], item["kind"], item["pixels"]) == ("Gold", "line", 80)
     assert (item["x"], item["y"], item["w"], item["h"]) == (70, 5, 40, 2)

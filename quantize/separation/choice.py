@@ -246,7 +246,8 @@ def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: s
 
 
 def _costs(image, library, candidates, sub_rgb, max_colours):
-    """ΔE00 of the image's colours to each candidate ink (n, M), their weights (n,), and to the substrate (n,) or None."""
+    """ΔE00 of the image's colours to each candidate ink (n, M), the colours' weights (n,), and their
+    ΔE00 to the substrate (n,) or None."""
     from quantize.colour.spaces import srgb8_to_space
     from quantize.core.sampling import ColourSample, sample_picture
 

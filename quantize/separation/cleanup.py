@@ -271,9 +271,10 @@ def find_thin_features(mask: np.ndarray, *, width_px: float, dpi: float, name: s
             inside = lab[wy, wx] == j
             width = max(1.0, 2.0 * float(dist[inside].max()) - 1.0)
             y0, x0, y1, x1 = sy.start + oy, sx.start + ox, sy.stop + oy, sx.stop + ox
+            mm = {k: round(px_to_mm(v, dpi), 3) for k, v in (("x_mm", x0), ("y_mm", y0), ("w_mm", x1 - x0),
+                                                              ("h_mm", y1 - y0), ("width_mm", width))}
             found.append({"ink": name, "kind": kind, "pixels": int(area[j]), "x": x0, "y": y0,
-                          "w": x1 - x0, "h": y1 - y0, "x_mm": round(px_to_mm(x0, dpi), 3), "y_mm": round(px_to_mm(y0, dpi), 3),
-                          "w_mm": round(px_to_mm(x1 - x0, dpi), 3), "h_mm": round(px_to_mm(y1 - y0, dpi), 3), "width_mm": round(px_to_mm(width, dpi), 3)})
+                          "w": x1 - x0, "h": y1 - y0, **mm})
     found.sort(key=lambda d: -d["pixels"])
     return found[:limit], summary
 

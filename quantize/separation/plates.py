@@ -600,7 +600,7 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
                                   "inks, so every ink needs its own name")
         seen[nm.casefold()] = nm
     plates = []
-    for o, (i, nm, sl) in enumerate(zip(ordered, names, _unique_slugs(names))):
+    for o, (i, nm, sl) in enumerate(zip(ordered, names, _unique_slugs(names), strict=True)):
         m = (cleaned == i) & opaque
         plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
                             rgb8=palette.rgb8[i], lab=palette.lab[i], slug=sl))
