@@ -176,6 +176,30 @@ def test_manifest_lists_plates_inks_coverage_order_and_settings(separation, tmp_
     assert lab == sorted(lab, reverse=True)  # light to dark
 
 
+def test_settings_record_what_was_used(artwork):
+    img, pal, _ = artwork
+    given = ["Ember", "Kelp", "Reef", "Dune"]
+    sep = separate(img, pal, dpi=150, order=given, min_line_mm=0)
+    s = sep.settings
+    assert (s.dpi, s.underbase, s.choke_mm, s.order, s.min_line_mm) == (150, False, None, "given", 0)
+    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 150) ** 2 / 4, abs=1e-3)  # a 0.5 mm dot
+    assert [p.name for p in sep.plates] == given and sep.underbase is None
+    assert sep.thin == [] and sep.thin_summary["lines"] == sep.thin_summary["gaps"] == 0  # not looked for
+    # Only a caller that chose the inks records where they came from.
+    assert s.inks_from is None and "inks_from" not in sep.manifest()["settings"]
+    assert sep.substrate_coverage == pytest.approx(100.0 * (sep.indices == sep.substrate).mean())
+
+
+def test_clean_up_report_alone_lists_only_what_it_knows():
+    idx = np.zeros((6, 6), np.uint8)
+    idx[2, 2] = 1
+    _, rep = clean_small_regions(idx, np.array([[90.0, 0, 0], [30.0, 0, 0]]), min_area=2)
+    # Without a separation there is no minimum feature in mm and no source image to compare with.
+    assert rep.min_feature_mm is None and rep.delta_e_before is None and rep.delta_e_after is None
+    assert set(rep.to_dict()) == {"min_area_px", "pixels_changed", "regions_merged", "passes", "regions_left_small",
+                                  "delta_e_changed_mean", "delta_e_changed_max", "delta_e_image_mean"}
+
+
 def test_existing_files_are_not_replaced_without_force(separation, tmp_path):
     written = separation.write(tmp_path, stem="job")
     before = written["manifest"].read_bytes()
