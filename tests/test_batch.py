@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import dataclasses
 import hashlib
 import json
 import os
@@ -19,6 +20,7 @@ from PIL import Image
 from quantize.batch.files import discover_images
 from quantize.batch.manifest import MANIFEST_CSV, MANIFEST_JSON
 from quantize.batch.run import SHARED_PALETTE, _Pool, run_batch
+from quantize.batch.settings import BatchSettings
 from quantize.cli.batch import batch
 from quantize.errors import PaletteFileError, QuantizeError
 
@@ -209,29 +211,84 @@ def test_rerun_skips_up_to_date_and_redoes_the_rest(tree, tmp_path):
     assert run_batch(tree, out, workers=0, k=2, restarts=1, force=True).summary["ok"] == 3
 
 
+# --------------------------------------------------------------------------- settings and jobs
+
+@pytest.mark.parametrize("bad, message", [
+    (dict(shared=True, palette="p.palette.json"), "not both"),
+    (dict(shared_weighting="area"), "'area'"),
+    (dict(space="xyz"), "'xyz'"),
+    (dict(restarts=0), "at least 1, got 0"),
+    (dict(fmt="gif"), "'gif'"),
+    (dict(workers=-1), "got -1"),
+    (dict(worst=-2), "got -2"),
+    (dict(k="12-2"), "12-2"),
+    (dict(include=["*.png", ""]), "include pattern '' is empty"),
+    (dict(exclude=["/"]), "exclude pattern '/' is empty"),
+])
+def test_bad_settings_are_refused_before_anything_is_written(tree, tmp_path, bad, message):
+    with pytest.raises(ValueError, match=message):
+        BatchSettings(**bad)
+    out = tmp_path / "out"
+    with pytest.raises(ValueError, match=message):
+        run_batch(tree, out, **bad)
+    with pytest.raises(ValueError, match=message):  # replacing a field checks it again
+        dataclasses.replace(BatchSettings(), **bad)
+    assert not out.exists()
+
+
+def test_a_settings_object_and_keyword_options_make_the_same_run(tree, tmp_path):
+    by_keywords = run_batch(tree, tmp_path / "a", workers=0, **FAST)
+    # A keyword given beside the settings object replaces its value.
+    by_object = run_batch(tree, tmp_path / "b", BatchSettings(workers=0, k=7, restarts=1), k=3)
+    assert by_object.manifest["settings"] == by_keywords.manifest["settings"]
+    assert _comparable(by_object.rows) == _comparable(by_keywords.rows)
+    assert _outputs(tmp_path / "a") == _outputs(tmp_path / "b")
+    with pytest.raises(TypeError, match="colours"):
+        run_batch(tree, tmp_path / "c", colours=3)
+
+
+def test_a_job_pickles_whole_for_worker_processes_and_dask(tmp_path):
+    import pickle
+
+    from quantize.batch.jobs import BatchJob
+
+    job = BatchJob(path=str(tmp_path / "in" / "a.png"), rel="sub/a.png", output_dir=str(tmp_path / "out"),
+                   outputs_rel=("sub/a.png", "sub/a.palette.json"), replace=False, k="2-12", space="oklab",
+                   seed=5, restarts=2, max_pixels=1000)
+    back = pickle.loads(pickle.dumps(job))
+    assert back == job
+    assert back.outputs == (str(tmp_path / "out" / "sub" / "a.png"), str(tmp_path / "out" / "sub" / "a.palette.json"))
+
+
 # --------------------------------------------------------------------------- one palette for a set
 
-def test_pool_matches_the_engine_pooling():
-    # The batch pool merges images as they arrive; it must equal quantize.core.sampling.pool_samples.
-    from quantize.batch.run import sample_image
+@pytest.mark.parametrize("merge_rows", [4_000_000, 1])
+def test_pool_matches_the_engine_pooling(tmp_path, monkeypatch, merge_rows):
+    # The batch pool merges images as they arrive, from what the workers send back; it must equal
+    # quantize.core.sampling.pool_samples over the images' own samples.
+    from quantize.batch.jobs import BatchJob, sample_image
     from quantize.core.sampling import pool_samples, sample_picture
-    from quantize.io.read import as_picture
+    from quantize.io.read import load_image
 
+    monkeypatch.setattr(_Pool, "MERGE_ROWS", merge_rows)  # 1: merged after every image, as a huge set is
     rng = np.random.default_rng(0)
-    imgs = [rng.integers(0, 6, (h, 9, 3)).astype(np.uint8) * 40 for h in (3, 11, 20)]
+    paths = []
+    for i, h in enumerate((3, 11, 20)):
+        paths.append(tmp_path / f"im{i}.png")
+        Image.fromarray(rng.integers(0, 6, (h, 9, 3)).astype(np.uint8) * 40).save(paths[-1])
+    jobs = [BatchJob(path=str(p), rel=p.name, output_dir=str(tmp_path), outputs_rel=(), replace=False, k=2,
+                     space="lab", seed=0, restarts=1, max_pixels=10_000) for p in paths]
     for weighting in ("equal", "pixels"):
-        ref = pool_samples([sample_picture(as_picture(a)) for a in imgs], weighting=weighting)
+        ref = pool_samples([sample_picture(load_image(p)) for p in paths], weighting=weighting)
         pool = _Pool(weighting)
-        for a in imgs:
-            s = sample_picture(as_picture(a))
-            codes = s.codes.astype(np.int64) * 257
-            pool.add({"packed": (codes[:, 0] << 32) | (codes[:, 1] << 16) | codes[:, 2], "weights": s.weights,
-                      "n_pixels": s.n_pixels, "bits": 8})
+        for job in jobs:
+            got = sample_image(job)
+            assert got.error is None and got.sample.inverse is None  # no per-pixel data crosses back
+            pool.add(got.sample)
         got = pool.sample()
         np.testing.assert_array_equal(got.codes, ref.codes)
         np.testing.assert_allclose(got.weights, ref.weights, rtol=1e-12)
-        assert got.n_pixels == ref.n_pixels == sum(a.shape[0] * a.shape[1] for a in imgs)
-    assert callable(sample_image)
+        assert got.n_pixels == ref.n_pixels == sum(9 * h for h in (3, 11, 20))
 
 
 def test_shared_weighting_equal_versus_pixels(tmp_path):

@@ -256,7 +256,7 @@ def test_twin_ordered(method, space, metric):
                          space=space, metric=metric, strength=0.9)
     assert_array_equal(got, want)
     # The ΔE00 measured in the same pass.
-    assert_allclose(arrays["delta_e"], naive.pixel_delta_e(rgb8 / 255.0, clear, want, pal), atol=1e-9,
+    assert_allclose(arrays.delta_e, naive.pixel_delta_e(rgb8 / 255.0, clear, want, pal), atol=1e-9,
                     equal_nan=True)
 
 
@@ -310,8 +310,7 @@ def test_twin_pixel_delta_e_and_ciede2000_scalar():
     out = np.full(rgb8.shape[:2], -1.0)
     arrays = qd._kernel_inputs(pic, palette, "space")
     for y0, y1 in [(0, 4), (4, 9)]:  # in bands, as beside the diffusion
-        dk.delta_e_rows(arrays["codes"], arrays["lut"], arrays["state"], idx, palette.lab, arrays["mat_lab"],
-                        y0, y1, out)
+        dk.delta_e_rows(arrays.codes, arrays.lut, arrays.state, idx, palette.lab, arrays.mat_lab, y0, y1, out)
     assert_allclose(out, naive.pixel_delta_e(rgb8 / 255.0, clear, idx, pal), atol=1e-9, equal_nan=True)
 
 
@@ -390,8 +389,8 @@ def test_dithered_result_reports_plain_statistics(photo):
         assert out.delta_e[key] == pytest.approx(want[key], abs=1e-9)
     assert out.coverage.sum() == pytest.approx(100.0)
     assert_allclose(out.coverage, 100 * np.bincount(out.indices.ravel(), minlength=pal.k) / de.size)
-    assert out.extra["dither"] == "floyd-steinberg" and out.extra["serpentine"] is False
-    assert out.extra["error_space"] == "linear light"
+    assert out.dither.method == "floyd-steinberg" and out.dither.serpentine is False
+    assert out.dither.error_space == "linear light"
     raster = pal.apply(img, dither="floyd-steinberg", serpentine=True)
     assert (raster.indices != out.indices).any()  # the scan order reaches the kernel
     # Band-by-band diffusion (measured on worker threads) equals one whole pass.
@@ -447,8 +446,39 @@ def test_locked_colour_stays_exact(method):
 def test_cam16ucs_palette_chooses_in_cielab_with_a_note():
     pal = _palette([[0, 0, 0], [255, 255, 255], [200, 30, 30]], space="cam16ucs")
     out = pal.apply(_ramp(8, 32), dither="floyd-steinberg")
-    assert out.extra["choice_space"] == "lab"
+    assert out.dither.choice_space == "lab"
     assert any("CIELAB" in n for n in out.notes)
+
+
+@pytest.mark.parametrize("method", DIFFUSIONS + ORDERED)
+@pytest.mark.parametrize("serpentine", [True, False])
+def test_dither_info_records_what_reproduces_the_image(method, serpentine):
+    img = _ramp(12, 48)
+    pal = _ramp_palette(img, 3)
+    out = pal.apply(img, dither=method, strength=0.7, serpentine=serpentine)
+    info = out.dither
+    assert (info.method, info.strength, info.metric, info.error_space) == (method, 0.7, "space", "linear light")
+    if method in ORDERED:
+        # An ordered dither has no scan order: the record says so, and the scan changes nothing.
+        assert info.serpentine is None
+        assert_array_equal(pal.apply(img, dither=method, strength=0.7, serpentine=not serpentine).indices,
+                           out.indices)
+    else:
+        assert info.serpentine is serpentine
+    # The record is enough to make the same image again.
+    again, _ = qd.dither_indices(img, pal, method=info.method, strength=info.strength, metric=info.metric,
+                                 serpentine=bool(info.serpentine))
+    assert_array_equal(again, out.indices)
+
+
+def test_dither_info_names_the_choice_space():
+    img = _ramp(8, 32)
+    rgb = _ramp_palette(img, 3).rgb8
+    assert _palette(rgb, space="oklab").apply(img, dither="bayer4").dither.choice_space == "oklab"
+    # CIEDE2000 is computed from CIELAB whatever the palette's space.
+    out = _palette(rgb, space="oklab").apply(img, dither="bayer4", metric="ciede2000")
+    assert (out.dither.choice_space, out.dither.metric) == ("lab", "ciede2000")
+    assert _palette(rgb).apply(img).dither is None  # no dither, no record
 
 
 def test_none_routes_to_plain_mapping():

@@ -153,13 +153,13 @@ def test_with_filtered_delta_e_keeps_plain_and_names_filtered():
     # .delta_e holds both, named: the plain statistics unchanged, the filtered ones prefixed
     assert {k: both.delta_e[k] for k in res.delta_e} == res.delta_e
     assert {k: both.delta_e[f"filtered_{k}"] for k in ("mean", "median", "p95", "max")} \
-        == both.extra["delta_e_filtered"]
+        == both.filtered.stats
     assert set(res.delta_e) == {"mean", "median", "p95", "max"}  # the input is not modified
-    assert set(both.extra["delta_e_filtered"]) == {"mean", "median", "p95", "max"}
-    assert both.extra["viewing"] == {"dpi": 300, "distance_mm": 400,
+    assert set(both.filtered.stats) == {"mean", "median", "p95", "max"}
+    assert both.filtered.viewing == {"dpi": 300, "distance_mm": 400,
                                      "ppd": round(qp.pixels_per_degree(dpi=300, distance_mm=400), 3)}
-    assert "delta_e_filtered" not in res.extra  # the input is not modified
-    assert both.extra["dither"] == "floyd-steinberg"
+    assert res.filtered is None  # the input is not modified
+    assert both.dither == res.dither and both.dither.method == "floyd-steinberg"
 
 
 def test_transparent_pixels_are_left_out():

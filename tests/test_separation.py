@@ -81,7 +81,7 @@ def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
     img, pal, _ = artwork
     mapped = map_picture(img, pal, metric="ciede2000")
     changed = (mapped.indices != separation.indices).sum()
-    assert changed == separation.cleanup["pixels_changed"] > 0  # JPEG noise specks were merged
+    assert changed == separation.cleanup.pixels_changed > 0  # JPEG noise specks were merged
     assert changed < 0.02 * mapped.indices.size
 
 
@@ -170,10 +170,34 @@ def test_manifest_lists_plates_inks_coverage_order_and_settings(separation, tmp_
     assert sum(doc["coverage_percent"].values()) == pytest.approx(100, abs=1e-3)
     assert {i["name"] for i in doc["inks"]} == {"paper", "Dune", "Reef", "Kelp", "Ember"}
     assert doc["settings"]["min_feature_mm"] == 0.5 and doc["settings"]["choke_mm"] == 0.3
-    assert doc["cleanup"]["pixels_changed"] == separation.cleanup["pixels_changed"]
+    assert doc["cleanup"]["pixels_changed"] == separation.cleanup.pixels_changed
     assert "not a measured print" in doc["caution"] and doc["composite"] == "job-composite.png"
     lab = [p["lab"][0] for p in doc["plates"]]
     assert lab == sorted(lab, reverse=True)  # light to dark
+
+
+def test_settings_record_what_was_used(artwork):
+    img, pal, _ = artwork
+    given = ["Ember", "Kelp", "Reef", "Dune"]
+    sep = separate(img, pal, dpi=150, order=given, min_line_mm=0)
+    s = sep.settings
+    assert (s.dpi, s.underbase, s.choke_mm, s.order, s.min_line_mm) == (150, False, None, "given", 0)
+    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 150) ** 2 / 4, abs=1e-3)  # a 0.5 mm dot
+    assert [p.name for p in sep.plates] == given and sep.underbase is None
+    assert sep.thin == [] and sep.thin_summary["lines"] == sep.thin_summary["gaps"] == 0  # not looked for
+    # Only a caller that chose the inks records where they came from.
+    assert s.inks_from is None and "inks_from" not in sep.manifest()["settings"]
+    assert sep.substrate_coverage == pytest.approx(100.0 * (sep.indices == sep.substrate).mean())
+
+
+def test_clean_up_report_alone_lists_only_what_it_knows():
+    idx = np.zeros((6, 6), np.uint8)
+    idx[2, 2] = 1
+    _, rep = clean_small_regions(idx, np.array([[90.0, 0, 0], [30.0, 0, 0]]), min_area=2)
+    # Without a separation there is no minimum feature in mm and no source image to compare with.
+    assert rep.min_feature_mm is None and rep.delta_e_before is None and rep.delta_e_after is None
+    assert set(rep.to_dict()) == {"min_area_px", "pixels_changed", "regions_merged", "passes", "regions_left_small",
+                                  "delta_e_changed_mean", "delta_e_changed_max", "delta_e_image_mean"}
 
 
 def test_existing_files_are_not_replaced_without_force(separation, tmp_path):
@@ -201,14 +225,14 @@ def test_small_region_merges_into_the_cheapest_neighbour():
     lab = srgb8_to_space(rgb, "lab")
     out, rep = clean_small_regions(idx, lab, min_area=5)
     assert (out[9:11, 9:11] == 0).all()  # into red: far cheaper than blue
-    assert rep["pixels_changed"] == 4 and rep["regions_merged"] == 1
+    assert rep.pixels_changed == 4 and rep.regions_merged == 1
     # Sharma et al. (2005) ΔE00, as computed by scikit-image, for the one change made.
-    assert rep["delta_e_changed_mean"] == pytest.approx(float(deltaE_ciede2000(lab[2], lab[0])), abs=1e-6)
-    assert rep["delta_e_image_mean"] == pytest.approx(rep["delta_e_changed_mean"] * 4 / 400)
+    assert rep.delta_e_changed_mean == pytest.approx(float(deltaE_ciede2000(lab[2], lab[0])), abs=1e-6)
+    assert rep.delta_e_image_mean == pytest.approx(rep.delta_e_changed_mean * 4 / 400)
     # Regions at or above the minimum are left alone.
     out2, rep2 = clean_small_regions(idx, lab, min_area=4)
     np.testing.assert_array_equal(out2, idx)
-    assert rep2["pixels_changed"] == 0
+    assert rep2.pixels_changed == 0
 
 
 def test_cluster_of_small_regions_is_absorbed():
@@ -217,7 +241,7 @@ def test_cluster_of_small_regions_is_absorbed():
     idx[10:16, 10:16] = rng.integers(1, 4, (6, 6))  # confetti of three colours
     lab = np.array([[90.0, 0, 0], [50.0, 60, 30], [40.0, 10, -50], [60.0, -40, 30]])
     out, rep = clean_small_regions(idx, lab, min_area=50)
-    assert (out == 0).all() and rep["passes"] >= 1 and rep["regions_left_small"] == 0
+    assert (out == 0).all() and rep.passes >= 1 and rep.regions_left_small == 0
 
 
 def test_minimum_feature_that_would_erase_the_image_is_refused():
@@ -341,13 +365,15 @@ def test_cli_errors_are_one_line(job, tmp_path):
 
 
 def test_cli_defaults_match_the_library():
-    from quantize.cli import separate as cli_separate
-    from quantize.separation import plates as separation
+    import inspect
 
-    assert cli_separate._MIN_FEATURE_MM == separation.DEFAULT_MIN_FEATURE_MM
-    assert cli_separate._MIN_LINE_MM == separation.DEFAULT_MIN_LINE_MM
-    assert cli_separate._CHOKE_MM == separation.DEFAULT_CHOKE_MM
-    assert cli_separate._MARGIN_MM == separation.DEFAULT_MARGIN_MM
+    from quantize.cli.separate import separate as cli_separate
+    from quantize.separation.plates import Separation
+
+    options = {p.name: p.default for p in cli_separate.params}
+    library = {**inspect.signature(separate).parameters, **inspect.signature(Separation.write).parameters}
+    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm"):
+        assert options[name] == library[name].default, name
 
 
 def test_cli_bad_print_order_writes_nothing(job, tmp_path):
@@ -452,3 +478,81 @@ def test_substrate_defaults_to_the_palettes_locked_colour_else_white():
     pal, info = choose_palette(art)  # fitted: 1-8 inks chosen by the rule, white locked
     assert pal.hex[info["substrate"]] == "#ffffff" and pal.locked[info["substrate"]]
     assert 2 <= pal.k - 1 <= 8 and pal.locked.sum() == 1
+
+
+# --------------------------------------------------------------------------- the manifest, value by value
+
+def test_manifest_values_match_an_independent_computation(tmp_path):
+    # Flat artwork drawn here with exact ink colours, so every figure of the
+    # manifest follows from the drawing: areas by counting, sizes by
+    # 25.4 mm per inch, CIELAB and CIEDE2000 by scikit-image (Sharma et al.
+    # 2005), the choke by scipy's Euclidean distance transform.
+    from scipy import ndimage as ndi
+    from skimage.color import deltaE_ciede2000, rgb2lab
+
+    h, w, dpi = 80, 120, 300.0
+    inks = {"paper": WHITE, "Red": RED, "Blue": BLUE, "Gold": GOLD}
+    img = np.empty((h, w, 3), np.uint8)
+    img[:] = WHITE
+    img[10:40, 10:60] = RED  # 1500 px
+    img[50:70, 70:110] = BLUE  # 800 px
+    img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
+    img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
+    pal = _palette(*inks.values(), names=tuple(inks))
+    sep = separate(img, pal, dpi=dpi, underbase=True)
+    doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
+
+    lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}
+    speck_de = float(deltaE_ciede2000(lab["Blue"], lab["Red"]))
+    de_tol = 0.01  # scikit-image's sRGB -> CIELAB differs from ours in the last digits of its constants
+    n = h * w
+    area = {"Red": 1500, "Blue": 800, "Gold": 80}
+    area["paper"] = n - sum(area.values())
+    printed = np.zeros((h, w), bool)
+    printed[10:40, 10:60] = printed[50:70, 70:110] = printed[5:7, 70:110] = True
+    choke_px = 0.25 / 25.4 * dpi  # the default choke
+    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] > choke_px)
+    min_area = np.pi * (0.5 / 25.4 * dpi) ** 2 / 4  # a dot of the default 0.5 mm
+
+    assert doc["size_px"] == [w, h] and doc["dpi"] == dpi
+    assert doc["size_mm"] == pytest.approx([w * 25.4 / dpi, h * 25.4 / dpi], abs=1e-3)
+    order = sorted(("Red", "Blue", "Gold"), key=lambda name: -lab[name][0])  # light to dark by L*
+    assert doc["print_order"] == ["underbase"] + order
+    assert [(p["name"], p["order"]) for p in doc["plates"]] == [(name, i + 2) for i, name in enumerate(order)]
+    for p in doc["plates"]:
+        assert p["coverage_percent"] == pytest.approx(100 * area[p["name"]] / n, abs=1e-4)
+        assert p["lab"] == pytest.approx(lab[p["name"]], abs=1e-2)
+        assert p["hex"] == "#{:02x}{:02x}{:02x}".format(*inks[p["name"]])
+        assert p["files"] == [f"job-{p['order']:02d}-{p['name'].lower()}.tif"]
+    assert doc["underbase"]["coverage_percent"] == pytest.approx(100 * under.sum() / n, abs=1e-4)
+    assert doc["substrate"] == {"name": "paper", "hex": "#ffffff",
+                                "coverage_percent": pytest.approx(100 * area["paper"] / n, abs=1e-4)}
+    assert doc["coverage_percent"] == pytest.approx({k: 100 * v / n for k, v in area.items()}, abs=1e-4)
+    assert [(i["name"], i["role"]) for i in doc["inks"]] == [("paper", "substrate"), ("Red", "ink"),
+                                                             ("Blue", "ink"), ("Gold", "ink")]
+    # The speck is merged into the red around it; that is the only change.
+    c = doc["cleanup"]
+    assert (c["pixels_changed"], c["regions_merged"], c["passes"], c["regions_left_small"]) == (4, 1, 1, 0)
+    assert c["min_area_px"] == pytest.approx(min_area) and c["min_feature_mm"] == 0.5
+    assert c["delta_e_changed_mean"] == pytest.approx(speck_de, abs=de_tol)
+    assert c["delta_e_changed_max"] == c["delta_e_changed_mean"]  # one change, four pixels
+    assert c["delta_e_image_mean"] == pytest.approx(c["delta_e_changed_mean"] * 4 / n, rel=1e-12)
+    exact = {"mean": 0.0, "median": 0.0, "p95": 0.0, "max": 0.0}
+    assert c["delta_e_source"]["before"] == pytest.approx(exact, abs=1e-9)
+    after = {"mean": speck_de * 4 / n, "median": 0.0, "p95": 0.0, "max": speck_de}  # 4 px of 9600: below p95
+    assert c["delta_e_source"]["after"] == pytest.approx(after, abs=de_tol)
+    assert doc["delta_e"] == c["delta_e_source"]["after"]
+    # The gold line is thinner than the default 0.35 mm (5 px at 300 dpi); nothing else is.
+    thin = doc["thin_features"]
+    assert thin["summary"] == {"lines": 1, "gaps": 0, "width_px": 5,
+                               "width_mm": pytest.approx(5 * 25.4 / dpi, abs=1e-4)}
+    (item,) = thin["items"]
+    assert (item["ink"], item["kind"], item["pixels"]) == ("Gold", "line", 80)
+    assert (item["x"], item["y"], item["w"], item["h"]) == (70, 5, 40, 2)
+    assert [item[k] for k in ("x_mm", "y_mm", "w_mm", "h_mm")] == pytest.approx(
+        [v * 25.4 / dpi for v in (70, 5, 40, 2)], abs=1e-3)
+    assert doc["settings"] == {"dpi": dpi, "min_feature_mm": 0.5, "min_area_px": pytest.approx(min_area, abs=1e-3),
+                               "min_line_mm": 0.35, "underbase": True, "choke_mm": 0.25, "order": "light to dark",
+                               "mapping": "nearest by ΔE00", "palette_fit": {}}
+    assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
+        ("quantize.separation.plates", 1, "job-composite.png", 0)

@@ -25,18 +25,20 @@ unless an ``exclude`` pattern removes it from the inputs.
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import time
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Sequence
+from typing import Callable
 
 import numpy as np
 
 from quantize.errors import OutputError, QuantizeError
 
-from .files import DEFAULT_INCLUDE, _check_folders, _check_patterns, discover_images
+from .files import DEFAULT_INCLUDE, _check_folders, discover_images
+from .jobs import BatchJob, process_image, sample_image
 from .manifest import (
     _MANIFEST_FORMAT,
     MANIFEST_CSV,
@@ -48,15 +50,13 @@ from .manifest import (
     _up_to_date,
     _write_manifest,
 )
+from .settings import FORMATS, BatchSettings
 from .workers import _executor, _one_line
 
-__all__ = ["discover_images", "run_batch", "BatchResult", "DEFAULT_INCLUDE", "FORMATS", "MANIFEST_JSON",
-           "MANIFEST_CSV", "SHARED_PALETTE"]
+__all__ = ["discover_images", "run_batch", "BatchResult", "BatchSettings", "DEFAULT_INCLUDE", "FORMATS",
+           "MANIFEST_JSON", "MANIFEST_CSV", "SHARED_PALETTE"]
 
-#: Output file types.
-FORMATS = ("png", "tif", "jpg")
 SHARED_PALETTE = "shared.palette.json"
-_WEIGHTINGS = ("equal", "pixels")
 
 
 @dataclass
@@ -73,6 +73,8 @@ class BatchResult:
         The whole JSON manifest.
     manifest_paths : tuple of Path
         The JSON and CSV manifest files.
+    notes : list of str
+        Anything the user should know about the run as a whole.
     """
 
     rows: list
@@ -87,123 +89,53 @@ class BatchResult:
         return self.summary["failed"]
 
 
-# --------------------------------------------------------------------------- per-image work (runs in workers)
-
-def _peak_mb() -> float | None:
-    try:
-        import resource
-    except ImportError:  # pragma: no cover - not on Windows
-        return None
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
-
-
-def _notes(caught) -> list[str]:
-    seen = []
-    for w in caught:
-        m = str(w.message)
-        if m not in seen:
-            seen.append(m)
-    return seen
-
-
-def process_image(job: dict, palette_doc: dict | None = None) -> dict:
-    """Reduce one image of a batch and return its manifest row (never raises for bad input).
-
-    ``job`` holds ``path``, ``rel``, ``outputs`` (absolute, image first,
-    then the palette file in per-image mode), ``replace`` and the fit
-    settings; ``palette_doc`` is the palette as a JSON dict, or None to fit one.
-    """
-    from quantize.fit.engine import fit_palette
-    from quantize.io.read import load_image
-    from quantize.palette import Palette
-
-    t0 = time.perf_counter()
-    row = {"input": job["rel"], "status": "failed", "k": None, "delta_e": None, "entries_used": None,
-           "coverage": None, "outputs": [], "error": None}
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            pic = load_image(job["path"], max_pixels=job["max_pixels"])
-            if palette_doc is None:
-                pal = fit_palette(pic, job["k"], space=job["space"], seed=job["seed"], restarts=job["restarts"])
-            else:
-                pal = Palette.from_dict(palette_doc, source="batch palette")
-            res = pal.apply(pic)
-            outs = [Path(p) for p in job["outputs"]]
-            if not outs[0].parent.resolve().is_relative_to(job["output_dir"]):
-                raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "
-                                  "not written")
-            outs[0].parent.mkdir(parents=True, exist_ok=True)
-            res.save(outs[0], force=job["replace"], inputs=[job["path"]])
-            # Recorded as soon as written, so that a later run knows the file is its own to replace.
-            row["outputs"].append(job["outputs_rel"][0])
-            if len(outs) > 1:
-                pal.save(outs[1], force=job["replace"])
-                row["outputs"].append(job["outputs_rel"][1])
-            row.update(status="ok", k=pal.k, delta_e={s: float(v) for s, v in res.delta_e.items()},
-                       entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
-                       coverage=[round(float(c), 4) for c in res.coverage])
-        except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero
-            row["error"] = _one_line(exc)
-    row["notes"] = _notes(caught)
-    row["seconds"] = round(time.perf_counter() - t0, 4)
-    row["peak_rss_mb"] = _peak_mb()
-    return row
-
-
-def sample_image(job: dict) -> dict:
-    """Distinct colours and pixel counts of one image, packed at 16 bits per channel, for pooling."""
-    from quantize.core.sampling import sample_picture
-    from quantize.io.read import load_image
-
-    out = {"rel": job["rel"], "error": None}
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # the mapping pass reports the same notes
-        try:
-            s = sample_picture(load_image(job["path"], max_pixels=job["max_pixels"]))
-            codes = s.codes.astype(np.int64) * (257 if s.bit_depth == 8 else 1)  # 8-bit c is 16-bit 257*c
-            out.update(packed=(codes[:, 0] << 32) | (codes[:, 1] << 16) | codes[:, 2], weights=s.weights,
-                       n_pixels=s.n_pixels, bits=s.bit_depth)
-        except Exception as exc:  # noqa: BLE001 - recorded as this image's failure
-            out["error"] = _one_line(exc)
-    return out
-
-
 # --------------------------------------------------------------------------- shared palette
 
 class _Pool:
-    """Running weighted histogram of the whole set, merged in chunks to bound memory."""
+    """The whole set's colours as one weighted sample, merged as images arrive to bound memory.
+
+    The merging is :func:`quantize.core.sampling.pool_samples`'; only the
+    scale of "equal" weighting (each image weighs as much as the mean image)
+    waits for the last image, since the mean is not known before.
+    """
+
+    #: Distinct colours held before the parts are merged into one.
+    MERGE_ROWS = 4_000_000
 
     def __init__(self, weighting: str):
         self.weighting = weighting
-        self.chunks, self.rows, self.pixels, self.bits = [], 0, [], 8
+        self.parts: list = []
+        self.rows = 0
+        self.pixels: list[int] = []
 
-    def add(self, s: dict) -> None:
-        w = s["weights"] / s["weights"].sum() if self.weighting == "equal" else s["weights"]
-        self.chunks.append((s["packed"], w))
-        self.rows += s["packed"].size
-        self.pixels.append(s["n_pixels"])
-        self.bits = max(self.bits, s["bits"])
-        if self.rows > 4_000_000 and len(self.chunks) > 1:
+    def add(self, s) -> None:
+        """Add one image's :class:`~quantize.core.sampling.ColourSample`."""
+        from quantize.core.sampling import ColourSample
+
+        w = s.weights / s.weights.sum() if self.weighting == "equal" else s.weights
+        self.parts.append(ColourSample(codes=s.codes, weights=w, bit_depth=s.bit_depth, n_pixels=s.n_pixels))
+        self.rows += s.n_colours
+        self.pixels.append(s.n_pixels)
+        if self.rows > self.MERGE_ROWS and len(self.parts) > 1:
             self._merge()
 
     def _merge(self) -> None:
-        p = np.concatenate([c[0] for c in self.chunks])
-        w = np.concatenate([c[1] for c in self.chunks])
-        uniq, inv = np.unique(p, return_inverse=True)
-        self.chunks = [(uniq, np.bincount(inv.ravel(), weights=w, minlength=uniq.size))]
-        self.rows = uniq.size
+        from quantize.core.sampling import pool_samples
+
+        # The weights are scaled already: "pixels" sums them as they are.
+        self.parts = [pool_samples(self.parts, weighting="pixels")]
+        self.rows = self.parts[0].n_colours
 
     def sample(self):
+        """The pooled sample of every image added."""
         from quantize.core.sampling import ColourSample
 
         self._merge()
-        packed, w = self.chunks[0]
+        s = self.parts[0]
         if self.weighting == "equal":
-            w = w * np.mean(self.pixels)  # the scale pool_samples uses: each image weighs the mean image
-        codes = np.stack([(packed >> 32) & 0xFFFF, (packed >> 16) & 0xFFFF, packed & 0xFFFF], axis=1)
-        codes = (codes // 257).astype(np.uint8) if self.bits == 8 else codes.astype(np.uint16)
-        return ColourSample(codes=codes, weights=w, bit_depth=self.bits, n_pixels=int(sum(self.pixels)))
+            s = ColourSample(codes=s.codes, weights=s.weights * np.mean(self.pixels), bit_depth=s.bit_depth,
+                             n_pixels=s.n_pixels)
+        return s
 
 
 def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
@@ -229,52 +161,185 @@ def _written_since(path: Path, since_ns: int) -> bool:
         return False
 
 
-def _plan(rels, src: Path, dst: Path, base: dict, *, fmt, per_image, owned, force, rows) -> list[dict]:
-    """One job per image; images whose outputs would collide are failed into ``rows`` instead."""
-    jobs, by_output = [], {}
-    out_root = dst.resolve()
-    for rel in rels:
-        out_rel = rel.with_suffix("." + fmt).as_posix()
-        outs_rel = [out_rel] + ([rel.with_suffix(".palette.json").as_posix()] if per_image else [])
-        job = dict(base, path=os.path.abspath(src / rel), rel=str(rel), output_dir=str(out_root),
-                   outputs_rel=outs_rel, outputs=[str(out_root / o) for o in outs_rel],
-                   replace=force or any(o in owned for o in outs_rel))
-        by_output.setdefault(out_rel, []).append(job)
-        jobs.append(job)
-    for out_rel, same in by_output.items():
-        if len(same) > 1:
-            names = ", ".join(j["rel"] for j in same)
-            for j in same:
-                rows[j["rel"]] = {"input": j["rel"], "status": "failed", "outputs": [],
-                                  "error": f"{names} would all be written to {out_rel}; rename one"}
-    return [j for j in jobs if j["rel"] not in rows]
+def _manifest_settings(s: BatchSettings) -> dict:
+    """The settings the manifest records; a change in them redoes every image."""
+    from quantize import __version__
+
+    # The package version is part of the settings: a new engine redoes the images.
+    settings = {"quantize": __version__, "mode": s.mode, "k": str(s.k), "space": s.space, "seed": s.seed,
+                "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
+    if s.mode == "shared":
+        settings["weighting"] = s.shared_weighting
+    elif s.mode == "palette":  # the fit settings do not change a mapping onto a given palette
+        for name in ("k", "space", "seed", "restarts"):
+            del settings[name]
+    return settings
 
 
-def _validate(*, shared, palette, shared_weighting, space, restarts, fmt, workers, worst, k):
-    from quantize.colour.spaces import check_space
-    from quantize.fit.engine import parse_k
+class _Run:
+    """One batch run: its folders and settings, the previous manifest, the rows so far.
 
-    if shared and palette is not None:
-        raise ValueError("give either a palette file or shared=True, not both")
-    if shared_weighting not in _WEIGHTINGS:
-        raise ValueError(f"shared_weighting must be one of {', '.join(_WEIGHTINGS)}, got {shared_weighting!r}")
-    check_space(space)
-    if restarts < 1:
-        raise ValueError(f"restarts must be at least 1, got {restarts}")
-    if fmt not in FORMATS:
-        raise ValueError(f"unknown output format {fmt!r}; choose one of: {', '.join(FORMATS)}")
-    if workers is not None and workers < 0:
-        raise ValueError(f"workers must be 0 (in this process) or more, got {workers}")
-    if worst < 0:
-        raise ValueError(f"worst must be 0 or more, got {worst}")
-    parse_k(k)
+    :meth:`finish` writes the manifest; it is called once, whether the run
+    ends, fails or is interrupted.
+    """
+
+    def __init__(self, src: Path, dst: Path, settings: BatchSettings):
+        s = self.settings = settings
+        self.src, self.dst = src, dst
+        self.notes: list = []
+        self.prev_doc = _read_previous(dst, self.notes, s.force)
+        if s.shared and (dst / SHARED_PALETTE).is_dir():
+            raise OutputError(f"{dst / SHARED_PALETTE}: is a folder; the shared palette is written there")
+        if (s.shared and not s.force and (dst / SHARED_PALETTE).exists()
+                and (self.prev_doc.get("shared") or {}).get("palette_file") != SHARED_PALETTE):
+            raise OutputError(f"{dst / SHARED_PALETTE}: already exists; not replaced without force")
+        self.prev_rows = {r.get("input"): r for r in self.prev_doc.get("images", []) if isinstance(r, dict)}
+        self.rels = discover_images(src, include=s.include, exclude=s.exclude, skip=[dst])
+        self.doc = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
+                    "settings": _manifest_settings(s), "settings_key": None, "summary": None,
+                    "palette_report": None, "error": None, "notes": self.notes, "images": []}
+        self.rows: dict = {}
+        self.planned: dict = {}  # input -> the outputs its job would write
+        self.palette = None
+        self.results = None  # the mapper over the images, once started
+        self.written = False
+        self.t_run = time.perf_counter()
+        self.started_ns = time.time_ns()
+
+    def finish(self, error: str | None = None) -> BatchResult:
+        """Write the manifest: every image's row, in input order, and the summary."""
+        ordered = []
+        for rel in self.rels:
+            r = self.rows.get(str(rel))
+            if r is None:  # never reached this run: keep what an earlier run recorded
+                r = dict(self.prev_rows.get(str(rel)) or {"input": str(rel), "status": "not run", "outputs": []})
+                # A worker may have finished this image after the run was stopped: its
+                # files are this run's own, so they are listed for the next run to replace.
+                late = [o for o in self.planned.get(str(rel), ())
+                        if _written_since(self.dst / o, self.started_ns)]
+                if late:
+                    r["outputs"] = sorted(set(r.get("outputs") or []) | set(late))
+            ordered.append(r)
+        doc = self.doc
+        doc["images"] = ordered
+        doc["summary"] = _summary(ordered)
+        doc["seconds"] = round(time.perf_counter() - self.t_run, 3)
+        doc["error"] = error
+        if self.palette is not None and self.settings.mode != "per-image":
+            doc["palette_report"] = _consistency(ordered, self.palette, self.settings.worst)
+        self.written = True
+        paths = _write_manifest(self.dst, doc)
+        return BatchResult(rows=ordered, summary=doc["summary"], manifest=doc, manifest_paths=paths,
+                           notes=self.notes)
+
+    def fail(self, msg: str):
+        """Write the manifest with ``msg`` as the run's error, and raise it."""
+        self.finish(msg)
+        raise QuantizeError(msg)
+
+    def plan(self) -> list[BatchJob]:
+        """One job per image; images whose outputs would collide are failed instead."""
+        from quantize.io.read import DEFAULT_MAX_PIXELS
+
+        s = self.settings
+        owned = {o for r in self.prev_rows.values() for o in (r.get("outputs") or [])}
+        out_root = self.dst.resolve()
+        jobs, by_output = [], {}
+        for rel in self.rels:
+            out_rel = rel.with_suffix("." + s.fmt).as_posix()
+            outs_rel = (out_rel,) + ((rel.with_suffix(".palette.json").as_posix(),) if s.mode == "per-image" else ())
+            job = BatchJob(path=os.path.abspath(self.src / rel), rel=str(rel), output_dir=str(out_root),
+                           outputs_rel=outs_rel, replace=s.force or any(o in owned for o in outs_rel), k=s.k,
+                           space=s.space, seed=s.seed, restarts=s.restarts,
+                           max_pixels=DEFAULT_MAX_PIXELS if s.max_pixels is None else s.max_pixels)
+            by_output.setdefault(out_rel, []).append(job)
+            jobs.append(job)
+        for out_rel, same in by_output.items():
+            if len(same) > 1:
+                names = ", ".join(j.rel for j in same)
+                for j in same:
+                    self.rows[j.rel] = {"input": j.rel, "status": "failed", "outputs": [],
+                                        "error": f"{names} would all be written to {out_rel}; rename one"}
+        jobs = [j for j in jobs if j.rel not in self.rows]
+        self.planned.update((j.rel, list(j.outputs_rel)) for j in jobs)
+        return jobs
+
+    def choose_palette(self, jobs, mapper, progress) -> int:
+        """The one palette of a "palette" or "shared" run (None per image); the progress units it took."""
+        mode = self.settings.mode
+        if mode == "palette":
+            from quantize.palette import Palette
+
+            given = self.settings.palette
+            self.palette = given if isinstance(given, Palette) else Palette.load(given)
+            return 0
+        if mode == "shared":
+            self.palette, done = _shared_palette(self, jobs, mapper, progress)
+            if self.palette is None:
+                self.fail("no image of the set could be read, so no shared palette was fitted")
+            return done
+        return 0
+
+    def map_images(self, jobs, mapper, palette_doc, done0: int, progress) -> BatchResult:
+        """Reduce every image that is not up to date, then write the manifest."""
+        key = _key(self.doc["settings"])
+        self.doc["settings_key"] = key
+        todo = []
+        for j in jobs:
+            if j.rel in self.rows:
+                continue
+            prev = self.prev_rows.get(j.rel)
+            if not self.settings.force and _up_to_date(prev, key, Path(j.path), self.dst):
+                self.rows[j.rel] = dict(prev, status="skipped", seconds=0.0)
+            else:
+                todo.append(j)
+        total = done0 + len(todo)
+        self.results = mapper(process_image, todo, (palette_doc,))
+        for i, (job, result) in enumerate(self.results, start=1):
+            if isinstance(result, BaseException):
+                result = {"input": job.rel, "status": "failed", "outputs": [], "error": _one_line(result)}
+            result["settings_key"] = key
+            self.rows[job.rel] = result
+            if progress:
+                progress(done0 + i, total, job.rel)
+        return self.finish()
+
+    def stopped(self, exc: BaseException) -> None:
+        """After an error or an interrupt: wait for the images in the workers, then write the manifest."""
+        if self.results is not None and hasattr(self.results, "close"):
+            # Let the images already in the workers finish (one per worker), so
+            # that the manifest lists every file this run wrote.
+            try:
+                self.results.close()
+            except KeyboardInterrupt:  # a second interrupt while waiting
+                self.notes.append("stopped again while images were finishing in the workers; the manifest may "
+                                  "not list all of their files")
+            except Exception as err:  # noqa: BLE001 - the manifest is still written, and says so
+                self.notes.append(f"could not wait for the images still in the workers ({_one_line(err)})")
+        if not self.written:
+            self.finish("interrupted" if isinstance(exc, KeyboardInterrupt) else _one_line(exc))
 
 
-def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, exclude: Sequence[str] = (),
-              palette=None, shared: bool = False, shared_weighting: str = "equal", k="2-12",
-              space: str = "lab", seed: int = 0, restarts: int = 8, fmt: str = "png",
-              workers: int | None = None, cluster=None, force: bool = False, max_pixels: int | None = None,
-              worst: int = 10, progress: Callable[[int, int, str], object] | None = None) -> BatchResult:
+def _settings(settings: BatchSettings | None, options: dict) -> BatchSettings:
+    if settings is None:
+        return BatchSettings(**options)
+    if not isinstance(settings, BatchSettings):
+        raise TypeError(f"settings must be a BatchSettings, got {type(settings).__name__}")
+    return dataclasses.replace(settings, **options) if options else settings
+
+
+def _prepare_output(src: Path, dst: Path, exclude) -> None:
+    if not src.is_dir():
+        raise QuantizeError(f"{src}: {'is not a folder' if src.exists() else 'no such folder'}")
+    _check_folders(src, dst, exclude)
+    try:
+        dst.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
+
+
+def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
+              progress: Callable[[int, int, str], object] | None = None, **options) -> BatchResult:
     """Reduce every image under ``input_dir`` into a mirrored tree under ``output_dir``.
 
     Parameters
@@ -282,6 +347,15 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
     input_dir, output_dir : path-like
         Folders; ``output_dir`` is created if missing.  It may not be or
         contain ``input_dir``, nor lie inside it unless ``exclude`` removes it.
+    settings : BatchSettings, optional
+        All the options below in one object; keyword options given as well
+        replace its values.
+    progress : callable, optional
+        ``progress(done, total, rel_path)`` after each unit of work (shared
+        runs count a sampling and a mapping unit per image).
+    **options
+        The fields of :class:`BatchSettings`, checked once:
+
     include, exclude : sequence of str
         Glob patterns, see :func:`discover_images`.
     palette : path-like or Palette, optional
@@ -311,9 +385,6 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
         Decompression-bomb limit per image (default: the loader's).
     worst : int, default=10
         How many worst-fitting images the one-palette report lists.
-    progress : callable, optional
-        ``progress(done, total, rel_path)`` after each unit of work (shared
-        runs count a sampling and a mapping unit per image).
 
     Returns
     -------
@@ -329,7 +400,9 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
         file that fails to load (:class:`PaletteFileError`), Dask missing or
         unreachable.  Except for folder problems the manifest is written first.
     ValueError
-        Bad settings.
+        Bad settings (see :class:`BatchSettings`).
+    TypeError
+        An unknown keyword option.
 
     References
     ----------
@@ -346,152 +419,43 @@ def run_batch(input_dir, output_dir, *, include: Sequence[str] | None = None, ex
     >>> res = run_batch("photos", "out", shared=True, k=8)  # doctest: +SKIP
     >>> res.summary["failed"], res.manifest["palette_report"]["worst"][0]["input"]  # doctest: +SKIP
     """
-    from quantize.io.read import DEFAULT_MAX_PIXELS
-
-    _validate(shared=shared, palette=palette, shared_weighting=shared_weighting, space=space,
-              restarts=restarts, fmt=fmt, workers=workers, worst=worst, k=k)
+    s = _settings(settings, options)
     src, dst = Path(input_dir), Path(output_dir)
-    exclude = _check_patterns(exclude, "exclude")
-    if not src.is_dir():
-        raise QuantizeError(f"{src}: {'is not a folder' if src.exists() else 'no such folder'}")
-    _check_folders(src, dst, exclude)
-    try:
-        dst.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
-    notes: list = []
-    prev_doc = _read_previous(dst, notes, force)
-    if shared and (dst / SHARED_PALETTE).is_dir():
-        raise OutputError(f"{dst / SHARED_PALETTE}: is a folder; the shared palette is written there")
-    if (shared and not force and (dst / SHARED_PALETTE).exists()
-            and (prev_doc.get("shared") or {}).get("palette_file") != SHARED_PALETTE):
-        raise OutputError(f"{dst / SHARED_PALETTE}: already exists; not replaced without force")
-    prev_rows = {r.get("input"): r for r in prev_doc.get("images", []) if isinstance(r, dict)}
-    owned = {o for r in prev_rows.values() for o in (r.get("outputs") or [])}
-    rels = discover_images(src, include=include, exclude=exclude, skip=[dst])
-    mode = "shared" if shared else "palette" if palette is not None else "per-image"
-    from quantize import __version__
-
-    # The package version is part of the settings: a new engine redoes the images.
-    settings = {"quantize": __version__, "mode": mode, "k": str(k), "space": space, "seed": seed,
-                "restarts": restarts, "format": fmt, "max_pixels": max_pixels}
-    if mode == "shared":
-        settings["weighting"] = shared_weighting
-    elif mode == "palette":  # the fit settings do not change a mapping onto a given palette
-        for name in ("k", "space", "seed", "restarts"):
-            del settings[name]
-    doc = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
-           "settings": settings, "settings_key": None, "summary": None, "palette_report": None, "error": None,
-           "notes": notes, "images": []}
-    rows: dict = {}
-    planned: dict = {}  # input -> the outputs its job would write
-    state = {"written": False}
-    t_run = time.perf_counter()
-    started_ns = time.time_ns()
-
-    def finish(error: str | None = None) -> BatchResult:
-        ordered = []
-        for rel in rels:
-            r = rows.get(str(rel))
-            if r is None:  # never reached this run: keep what an earlier run recorded
-                r = dict(prev_rows.get(str(rel)) or {"input": str(rel), "status": "not run", "outputs": []})
-                # A worker may have finished this image after the run was stopped: its
-                # files are this run's own, so they are listed for the next run to replace.
-                late = [o for o in planned.get(str(rel), ()) if _written_since(dst / o, started_ns)]
-                if late:
-                    r["outputs"] = sorted(set(r.get("outputs") or []) | set(late))
-            ordered.append(r)
-        doc["images"] = ordered
-        doc["summary"] = _summary(ordered)
-        doc["seconds"] = round(time.perf_counter() - t_run, 3)
-        doc["error"] = error
-        if pal_obj is not None and mode != "per-image":
-            doc["palette_report"] = _consistency(ordered, pal_obj, worst)
-        state["written"] = True
-        paths = _write_manifest(dst, doc)
-        return BatchResult(rows=ordered, summary=doc["summary"], manifest=doc, manifest_paths=paths, notes=notes)
-
-    pal_obj, done0 = None, 0
-    if not rels:
-        msg = (f"{src}: no images found (include {', '.join(include or DEFAULT_INCLUDE)}"
-               + (f"; exclude {', '.join(exclude)})" if exclude else ")"))
-        finish(msg)
-        raise QuantizeError(msg)
-
-    base = {"k": k, "space": space, "seed": seed, "restarts": restarts,
-            "max_pixels": DEFAULT_MAX_PIXELS if max_pixels is None else max_pixels}
-    jobs = _plan(rels, src, dst, base, fmt=fmt, per_image=mode == "per-image", owned=owned, force=force,
-                 rows=rows)
-    planned.update((j["rel"], j["outputs_rel"]) for j in jobs)
+    _prepare_output(src, dst, s.exclude)
+    run = _Run(src, dst, s)
+    if not run.rels:
+        run.fail(f"{src}: no images found (include {', '.join(s.include or DEFAULT_INCLUDE)}"
+                 + (f"; exclude {', '.join(s.exclude)})" if s.exclude else ")"))
+    jobs = run.plan()
     client = None
     try:
-        client, mapper = _executor(cluster, workers)
+        client, mapper = _executor(s.cluster, s.workers)
+        done0 = run.choose_palette(jobs, mapper, progress)
         palette_doc = None
-        if mode == "palette":
-            from quantize.palette import Palette
-
-            pal_obj = palette if isinstance(palette, Palette) else Palette.load(palette)
-        elif mode == "shared":
-            pal_obj, done0 = _shared_palette(src, dst, rels, jobs, rows, prev_doc, settings, force, mapper,
-                                             progress, doc, notes)
-            if pal_obj is None:
-                msg = "no image of the set could be read, so no shared palette was fitted"
-                finish(msg)
-                raise QuantizeError(msg)
-        if pal_obj is not None:
-            palette_doc = pal_obj.to_dict()
-            settings["palette"] = {"space": pal_obj.space, "hex": pal_obj.hex}
+        if run.palette is not None:
+            palette_doc = run.palette.to_dict()
+            run.doc["settings"]["palette"] = {"space": run.palette.space, "hex": run.palette.hex}
             if client is not None:
                 # Sent once to every worker rather than with every task.
                 palette_doc = client.scatter([palette_doc], broadcast=True, hash=False)[0]
-        key = _key(settings)
-        doc["settings_key"] = key
-        todo = []
-        for j in jobs:
-            if j["rel"] in rows:
-                continue
-            prev = prev_rows.get(j["rel"])
-            if not force and _up_to_date(prev, key, Path(j["path"]), dst):
-                rows[j["rel"]] = dict(prev, status="skipped", seconds=0.0)
-            else:
-                todo.append(j)
-        total = done0 + len(todo)
-        results = state["results"] = mapper(process_image, todo, (palette_doc,))
-        for i, (job, result) in enumerate(results, start=1):
-            if isinstance(result, BaseException):
-                result = {"input": job["rel"], "status": "failed", "outputs": [], "error": _one_line(result)}
-            result["settings_key"] = key
-            rows[job["rel"]] = result
-            if progress:
-                progress(done0 + i, total, job["rel"])
-        return finish()
+        return run.map_images(jobs, mapper, palette_doc, done0, progress)
     except BaseException as exc:
-        results = state.get("results")
-        if results is not None and hasattr(results, "close"):
-            # Let the images already in the workers finish (one per worker), so
-            # that the manifest lists every file this run wrote.
-            try:
-                results.close()
-            except KeyboardInterrupt:  # a second interrupt while waiting
-                notes.append("stopped again while images were finishing in the workers; the manifest may "
-                             "not list all of their files")
-            except Exception as err:  # noqa: BLE001 - the manifest is still written, and says so
-                notes.append(f"could not wait for the images still in the workers ({_one_line(err)})")
-        if not state["written"]:
-            finish("interrupted" if isinstance(exc, KeyboardInterrupt) else _one_line(exc))
+        run.stopped(exc)
         raise
     finally:
         if client is not None:
             client.close()
 
 
-def _shared_palette(src, dst, rels, jobs, rows, prev_doc, settings, force, mapper, progress, doc, notes):
+def _shared_palette(run: _Run, jobs, mapper, progress):
     """Fit the shared palette once (or reuse the last run's for an unchanged set) and save it.
 
     Returns the palette (None if no image could be read) and the progress units done.
     """
     from quantize.palette import Palette
 
+    src, dst, rels, rows, doc, notes = run.src, run.dst, run.rels, run.rows, run.doc, run.notes
+    prev_doc, force, settings = run.prev_doc, run.settings.force, run.doc["settings"]
     fit_settings = {k: settings[k] for k in ("k", "space", "seed", "restarts", "weighting", "max_pixels")}
     stamp = []
     for rel in rels:
@@ -518,16 +482,15 @@ def _shared_palette(src, dst, rels, jobs, rows, prev_doc, settings, force, mappe
             notes.append(f"{path}: cannot reuse the saved shared palette ({exc}); refitting")
     pool = _Pool(settings["weighting"])
     total = 2 * len(jobs)
-    for i, (job, s) in enumerate(mapper(sample_image, jobs, ()), start=1):
-        if isinstance(s, BaseException):
-            s = {"error": _one_line(s)}
-        if s["error"]:
-            rows[job["rel"]] = {"input": job["rel"], "status": "failed", "outputs": [], "error": s["error"]}
-            doc["shared"]["sampling_failed"].append([job["rel"], s["error"]])
+    for i, (job, got) in enumerate(mapper(sample_image, jobs, ()), start=1):
+        error = _one_line(got) if isinstance(got, BaseException) else got.error
+        if error:
+            rows[job.rel] = {"input": job.rel, "status": "failed", "outputs": [], "error": error}
+            doc["shared"]["sampling_failed"].append([job.rel, error])
         else:
-            pool.add(s)
+            pool.add(got.sample)
         if progress:
-            progress(i, total, job["rel"])
+            progress(i, total, job.rel)
     if not pool.pixels:
         return None, len(jobs)
     with warnings.catch_warnings():

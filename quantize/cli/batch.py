@@ -12,6 +12,9 @@ from pathlib import Path
 
 import click
 
+# Choices and defaults from the library's settings module, which imports nothing heavy.
+from quantize.batch.settings import DEFAULT_K, DEFAULT_RESTARTS, DEFAULT_WORST, FORMATS, WEIGHTINGS
+
 from ._common import SPACE_NAMES, _check_indexed_size, _Failure, _k_option
 
 #: Exit code when the run finished but some images failed.
@@ -62,23 +65,23 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--palette", "palette_file", type=click.Path(dir_okay=False), default=None,
               help="Map every image onto this saved palette instead of fitting.")
 @click.option("--shared", is_flag=True, help="Fit one palette to the whole set and map every image onto it.")
-@click.option("--shared-weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
+@click.option("--shared-weighting", type=click.Choice(WEIGHTINGS), default=WEIGHTINGS[0], show_default=True,
               help="In the shared fit, each image counts equally or by its pixel count.")
-@click.option("-k", "--colours", "colours", default="2-12", show_default=True, callback=_check_k,
+@click.option("-k", "--colours", "colours", default=DEFAULT_K, show_default=True, callback=_check_k,
               help="Palette size N, or MIN-MAX to let the rule choose.")
 @click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
               help="Perceptual space the palettes are fitted in.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palettes.")
-@click.option("--restarts", type=click.IntRange(min=1), default=8, show_default=True,
+@click.option("--restarts", type=click.IntRange(min=1), default=DEFAULT_RESTARTS, show_default=True,
               help="k-means++ restarts per palette size.")
-@click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
+@click.option("--format", "fmt", type=click.Choice(FORMATS), default=FORMATS[0], show_default=True,
               help="Output file type.")
 @click.option("--workers", type=click.IntRange(min=0), default=None,
               help="Worker processes (default: the number of CPU cores; 0: in this process).")
 @click.option("--cluster", metavar="ADDRESS", default=None,
               help="Run the per-image work on this Dask scheduler (needs quantize[dask]).")
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard per image.")
-@click.option("--worst", type=click.IntRange(min=0), default=10, show_default=True,
+@click.option("--worst", type=click.IntRange(min=0), default=DEFAULT_WORST, show_default=True,
               help="How many worst-fitting images the one-palette report lists.")
 @click.option("--force", is_flag=True, help="Redo every image and replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
@@ -93,6 +96,7 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
     Exits non-zero if any image failed.
     """
     from quantize.batch.run import run_batch
+    from quantize.batch.settings import BatchSettings
     from quantize.errors import QuantizeError
 
     if shared and palette_file:
@@ -101,10 +105,11 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
     _check_indexed_size(Path(f"image.{fmt}"), colours)  # as reduce: an indexed PNG holds 256 colours
     bar = _Bar()
     try:
-        res = run_batch(input_dir, output_dir, include=include or None, exclude=exclude, palette=palette_file,
-                        shared=shared, shared_weighting=shared_weighting, k=colours, space=space, seed=seed,
-                        restarts=restarts, fmt=fmt, workers=workers, cluster=cluster, force=force,
-                        max_pixels=max_pixels, worst=worst, progress=bar)
+        settings = BatchSettings(include=include or None, exclude=exclude, palette=palette_file, shared=shared,
+                                 shared_weighting=shared_weighting, k=colours, space=space, seed=seed,
+                                 restarts=restarts, fmt=fmt, workers=workers, cluster=cluster, force=force,
+                                 max_pixels=max_pixels, worst=worst)
+        res = run_batch(input_dir, output_dir, settings, progress=bar)
     except (QuantizeError, ValueError, OSError) as exc:
         bar.close()
         _fail(ctx, exc)

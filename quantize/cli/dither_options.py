@@ -19,6 +19,8 @@ from pathlib import Path
 
 import click
 
+from quantize.render.methods import DITHERS
+
 __all__ = [
     "DITHER_NAMES",
     "DitherChoice",
@@ -28,10 +30,9 @@ __all__ = [
     "run_dither_outputs",
 ]
 
-#: Names of quantize.render.dither.DITHERS, repeated here so that --help needs no
-#: import of the library (a test keeps the two in step).
-DITHER_NAMES = ("none", "floyd-steinberg", "jarvis-judice-ninke", "stucki", "bayer2", "bayer4", "bayer8",
-                "blue-noise", "clustered-dot")
+#: Names of the dithering methods, read from the table that defines them
+#: (quantize.render.methods imports no numpy, so --help stays fast).
+DITHER_NAMES = tuple(DITHERS)
 _KEYS = ("dither", "dither_strength", "serpentine", "view_dpi", "view_distance", "error_map", "error_map_kind")
 
 
@@ -57,6 +58,10 @@ class DitherChoice:
         return {"dither": self.dither, "strength": self.strength, "serpentine": self.serpentine}
 
 
+#: The defaults of every option: the command line's and pop_dither_options' one source.
+_DEFAULT = DitherChoice()
+
+
 def _check(choice: DitherChoice) -> DitherChoice:
     if (choice.view_dpi is None) != (choice.view_distance is None):
         raise click.UsageError("--view-dpi and --view-distance go together: give both, or neither")
@@ -72,11 +77,11 @@ def dither_options(f):
     """Decorator adding --dither, --dither-strength, --serpentine/--raster,
     --view-dpi, --view-distance, --error-map and --error-map-kind."""
     opts = [
-        click.option("--dither", type=click.Choice(DITHER_NAMES, case_sensitive=False), default="none",
+        click.option("--dither", type=click.Choice(DITHER_NAMES, case_sensitive=False), default=_DEFAULT.dither,
                      show_default=True, help="Dithering method (error diffusion, ordered or clustered-dot)."),
-        click.option("--dither-strength", type=click.FloatRange(0.0, 1.0), default=1.0, show_default=True,
+        click.option("--dither-strength", type=click.FloatRange(0.0, 1.0), default=_DEFAULT.strength, show_default=True,
                      help="Share of the dither, 0 (none) to 1 (full)."),
-        click.option("--serpentine/--raster", default=True, show_default=True,
+        click.option("--serpentine/--raster", default=_DEFAULT.serpentine, show_default=True,
                      help="Error diffusion scans alternate rows backwards, or every row left to right."),
         click.option("--view-dpi", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="DPI",
                      help="Output resolution for the filtered (S-CIELAB) ΔE00 report."),
@@ -84,7 +89,7 @@ def dither_options(f):
                      help="Viewing distance in mm for the filtered ΔE00 report."),
         click.option("--error-map", type=click.Path(dir_okay=False), default=None, metavar="FILE.png",
                      help="Also write a picture of per-pixel ΔE00 with its colour scale."),
-        click.option("--error-map-kind", type=click.Choice(("plain", "filtered")), default="plain",
+        click.option("--error-map-kind", type=click.Choice(("plain", "filtered")), default=_DEFAULT.error_map_kind,
                      show_default=True, help="Plain ΔE00, or filtered as seen at the viewing condition."),
     ]
     for opt in reversed(opts):
@@ -103,13 +108,13 @@ def pop_dither_options(opts: dict) -> DitherChoice:
     """
     got = {k: opts.pop(k) for k in _KEYS if k in opts}
     choice = DitherChoice(
-        dither=str(got.get("dither", "none")).lower(),
-        strength=float(got.get("dither_strength", 1.0)),
-        serpentine=bool(got.get("serpentine", True)),
-        view_dpi=got.get("view_dpi"),
-        view_distance=got.get("view_distance"),
-        error_map=got.get("error_map"),
-        error_map_kind=got.get("error_map_kind", "plain"),
+        dither=str(got.get("dither", _DEFAULT.dither)).lower(),
+        strength=float(got.get("dither_strength", _DEFAULT.strength)),
+        serpentine=bool(got.get("serpentine", _DEFAULT.serpentine)),
+        view_dpi=got.get("view_dpi", _DEFAULT.view_dpi),
+        view_distance=got.get("view_distance", _DEFAULT.view_distance),
+        error_map=got.get("error_map", _DEFAULT.error_map),
+        error_map_kind=got.get("error_map_kind", _DEFAULT.error_map_kind),
     )
     return _check(choice)
 
@@ -147,8 +152,8 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
     Returns
     -------
     result : MappedImage
-        With ``extra["delta_e_filtered"]`` and ``extra["viewing"]`` when a
-        viewing condition was given.
+        With ``filtered`` (the filtered ΔE00 and its viewing condition) when
+        a viewing condition was given.
     summary : dict
         For the JSON summary: ``dither`` (name, strength, serpentine),
         ``delta_e_filtered`` and ``viewing`` (or None), ``error_map`` (path
@@ -167,7 +172,7 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
         from quantize.quality.perception import with_filtered_delta_e
 
         result = with_filtered_delta_e(image, result, dpi=choice.view_dpi, distance_mm=choice.view_distance)
-        s, v = result.extra["delta_e_filtered"], result.extra["viewing"]
+        s, v = result.filtered.stats, result.filtered.viewing
         summary["delta_e_filtered"], summary["viewing"] = s, v
         lines.append(f"ΔE00 filtered (S-CIELAB, {v['dpi']:g} dpi at {v['distance_mm']:g} mm, "
                      f"{v['ppd']:.1f} px/degree): mean {s['mean']:.2f}  median {s['median']:.2f}  "

@@ -8,18 +8,20 @@ from __future__ import annotations
 
 import json
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import click
 
-from ._common import _run
+# The library's defaults, from a module that imports nothing (--help stays fast).
+from quantize.separation.defaults import (
+    DEFAULT_CHOKE_MM,
+    DEFAULT_MARGIN_MM,
+    DEFAULT_MIN_FEATURE_MM,
+    DEFAULT_MIN_LINE_MM,
+)
 
-# Defaults repeated here so that --help needs no library import; the tests
-# check they equal quantize.separation.plates's.
-_MIN_FEATURE_MM = 0.5
-_MIN_LINE_MM = 0.35
-_CHOKE_MM = 0.25
-_MARGIN_MM = 10.0
+from ._common import _run
 
 
 @click.command("separate")
@@ -41,15 +43,15 @@ _MARGIN_MM = 10.0
                    "Default: the --palette's locked colour, else #ffffff.")
 @click.option("--dpi", type=click.FloatRange(min=1), default=None,
               help="Output resolution (default: the image's, else 300).")
-@click.option("--min-feature-mm", type=click.FloatRange(min=0), default=_MIN_FEATURE_MM, show_default=True,
+@click.option("--min-feature-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
               help="Smallest printable dot diameter; smaller areas are merged into a neighbour (0: off).")
-@click.option("--min-line-mm", type=click.FloatRange(min=0), default=_MIN_LINE_MM, show_default=True,
+@click.option("--min-line-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_LINE_MM, show_default=True,
               help="Thinner lines and knock-out gaps are reported with their location (0: off).")
 @click.option("--underbase", is_flag=True, help="Add a white underbase plate (for dark substrates), printed first.")
-@click.option("--choke-mm", type=click.FloatRange(min=0), default=_CHOKE_MM, show_default=True,
+@click.option("--choke-mm", type=click.FloatRange(min=0), default=DEFAULT_CHOKE_MM, show_default=True,
               help="How far the underbase is pulled in from the print's edges.")
 @click.option("--marks", is_flag=True, help="Add registration marks and a label in a margin around the artwork.")
-@click.option("--margin-mm", type=click.FloatRange(min=1), default=_MARGIN_MM, show_default=True,
+@click.option("--margin-mm", type=click.FloatRange(min=1), default=DEFAULT_MARGIN_MM, show_default=True,
               help="Margin width for --marks.")
 @click.option("--order", default=None, metavar="INK,INK,...",
               help="Print order of the inks by name (default light to dark).")
@@ -85,9 +87,9 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         pal = Palette.load(palette_file) if palette_file else None
         lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
         pal, info = choose_palette(image, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
-        sep = run(image, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
-                  underbase=underbase, choke_mm=choke_mm, order=order_list)
-        sep.settings["inks_from"] = info
+        sep = run(image, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm,
+                  min_line_mm=min_line_mm, underbase=underbase, choke_mm=choke_mm, order=order_list)
+        sep = replace(sep, settings=replace(sep.settings, inks_from=info))
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
         notes = list(sep.notes) + (list(lib.notes) if lib else [])
         return sep, written, notes
@@ -109,9 +111,9 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     for s in doc["settings"]["inks_from"].get("snaps", []):
         click.echo(f"  snap {s['fitted']} -> {s['ink']} ({s['ink_hex']}): ΔE00 {s['delta_e']:.2f}")
     c = sep.cleanup
-    click.echo(f"clean-up: {c['pixels_changed']} pixel(s) changed in {c['regions_merged']} region(s) below "
-               f"{c['min_feature_mm']:g} mm; ΔE00 of the change: mean {c['delta_e_image_mean']:.3f} over the "
-               f"image, {c['delta_e_changed_mean']:.2f} over changed pixels")
+    click.echo(f"clean-up: {c.pixels_changed} pixel(s) changed in {c.regions_merged} region(s) below "
+               f"{c.min_feature_mm:g} mm; ΔE00 of the change: mean {c.delta_e_image_mean:.3f} over the "
+               f"image, {c.delta_e_changed_mean:.2f} over changed pixels")
     t = sep.thin_summary
     if t["lines"] or t["gaps"]:
         click.echo(f"thin detail below {min_line_mm:g} mm: {t['lines']} line(s), {t['gaps']} gap(s); "

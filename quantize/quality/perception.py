@@ -34,6 +34,7 @@ import math
 import numpy as np
 
 __all__ = [
+    "FilteredDeltaE",
     "SCIELAB_KERNELS",
     "SCIELAB_OPPONENT",
     "delta_e_map",
@@ -321,19 +322,45 @@ def filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, pp
     return pixel_delta_e_stats(de[~np.isnan(de)])
 
 
+@dataclasses.dataclass(frozen=True)
+class FilteredDeltaE:
+    """S-CIELAB filtered CIEDE2000 of a reduced image, and where it was seen from.
+
+    Attributes
+    ----------
+    stats : dict
+        ``mean``, ``median``, ``p95``, ``max`` of the filtered ΔE00 over the
+        opaque pixels.
+    dpi : float or None
+        Output resolution of the viewing condition (None when given as ``ppd``).
+    distance_mm : float or None
+        Viewing distance in mm (None when given as ``ppd``).
+    ppd : float
+        Pixels per degree of visual angle, rounded to 3 decimals.
+    """
+
+    stats: dict
+    dpi: float | None
+    distance_mm: float | None
+    ppd: float
+
+    @property
+    def viewing(self) -> dict:
+        """The viewing condition as a dict: ``dpi``, ``distance_mm``, ``ppd``."""
+        return {"dpi": self.dpi, "distance_mm": self.distance_mm, "ppd": self.ppd}
+
+
 def with_filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, ppd=None):
     """A copy of ``mapped`` that also reports the filtered statistics.
 
     ``delta_e`` keeps the plain statistics under ``mean``, ``median``,
     ``p95``, ``max`` and gains the S-CIELAB filtered ones as
     ``filtered_mean``, ``filtered_median``, ``filtered_p95``,
-    ``filtered_max``; ``extra["delta_e_filtered"]`` holds the same four as a
-    dict and ``extra["viewing"]`` the condition (``dpi``, ``distance_mm``,
-    ``ppd``).
+    ``filtered_max``; ``filtered`` (a :class:`FilteredDeltaE`) holds the same
+    four and the viewing condition.
     """
     ppd_value = viewing_ppd(dpi=dpi, distance_mm=distance_mm, ppd=ppd)
     stats = filtered_delta_e(original_picture, mapped, ppd=ppd_value)
-    viewing = {"dpi": dpi, "distance_mm": distance_mm, "ppd": round(ppd_value, 3)}
     both = {**mapped.delta_e, **{f"filtered_{k}": v for k, v in stats.items()}}
-    return dataclasses.replace(mapped, delta_e=both,
-                               extra={**mapped.extra, "delta_e_filtered": stats, "viewing": viewing})
+    filtered = FilteredDeltaE(stats=stats, dpi=dpi, distance_mm=distance_mm, ppd=round(ppd_value, 3))
+    return dataclasses.replace(mapped, delta_e=both, filtered=filtered)

@@ -36,11 +36,14 @@ Methods (:data:`DITHERS`)
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-# The threshold arrays live in their own module; their names stay importable here.
+# The method table and the threshold arrays live in their own modules; their
+# names stay importable here.
+from .methods import DITHERS, DitherMethod, check_dither, check_strength
+from .result import DitherInfo, MappedImage, nearest_image
 from .thresholds import (
     CLUSTERED_CELL,
     CLUSTERED_MIN_DOT,
@@ -56,6 +59,7 @@ __all__ = [
     "CLUSTERED_CELL",
     "CLUSTERED_MIN_DOT",
     "DITHERS",
+    "DitherArrays",
     "DitherMethod",
     "bayer_matrix",
     "blue_noise_ranks",
@@ -69,116 +73,92 @@ __all__ = [
     "threshold_matrix",
 ]
 
-_REF_FS = ("R. W. Floyd and L. Steinberg, \"An adaptive algorithm for spatial greyscale\", "
-           "Proceedings of the Society for Information Display 17(2), 75-77, 1976.")
-_REF_JJN = ("J. F. Jarvis, C. N. Judice and W. H. Ninke, \"A survey of techniques for the display of "
-            "continuous tone pictures on bilevel displays\", Computer Graphics and Image Processing "
-            "5(1), 13-40, 1976, doi:10.1016/S0146-664X(76)80003-2.")
-_REF_STUCKI = ("P. Stucki, \"MECCA - a multiple-error correction computation algorithm for bi-level "
-               "image hardcopy reproduction\", IBM Research Report RZ1060, IBM Research Laboratory, "
-               "Zurich, 1981.")
-_REF_BAYER = ("B. E. Bayer, \"An optimum method for two-level rendition of continuous-tone pictures\", "
-              "IEEE International Conference on Communications, Conference Record, 26-11 to 26-15, 1973.")
-_REF_VAC = ("R. Ulichney, \"The void-and-cluster method for dither array generation\", Proc. SPIE 1913, "
-            "Human Vision, Visual Processing, and Digital Display IV, 332-343, 1993, doi:10.1117/12.152707.")
-_REF_CLUSTER = ("R. Ulichney, *Digital Halftoning*, MIT Press, Cambridge MA, 1987, chapter 6 "
-                "(clustered-dot ordered dither).")
+# --------------------------------------------------------------------------- dithering
 
 
-@dataclass(frozen=True)
-class DitherMethod:
-    """One dithering method.
+@dataclass(frozen=True, eq=False)
+class DitherArrays:
+    """The arrays the compiled dither kernels take (:mod:`quantize.kernels.dither_loops`).
 
     Attributes
     ----------
-    name : str
-    kind : {"none", "diffusion", "ordered"}
-    weights : tuple of (dy, dx, weight), for error diffusion
-        Neighbours ahead in scan order and their shares (they sum to 1).
-    matrix : str or None, for ordered methods
-        Name understood by :func:`threshold_matrix`.
-    reference : str
-        Full citation of the published method.
+    codes : ndarray of shape (H, W, 3)
+        The picture's sRGB codes (8 or 16 bits), C-contiguous.
+    lut : ndarray of shape (max_code + 1,)
+        Code -> linear light, 0-1.
+    state : ndarray of shape (H, W), uint8
+        Per pixel ``CLEAR`` (fully transparent), ``OPEN`` or ``PINNED``
+        (exactly a locked palette colour), as the kernels name them.
+    pinned : ndarray of shape (H, W), uint16
+        The locked colour of each ``PINNED`` pixel (read only there).
+    pal_lin : ndarray of shape (k, 3)
+        Palette in linear RGB, 0-1.
+    pal_pts : ndarray of shape (k, 3)
+        Palette in the space colours are chosen in (CIELAB for CIEDE2000).
+    pal_lab : ndarray of shape (k, 3)
+        Palette CIELAB along the kernels' own arithmetic, so that a pixel
+        that is exactly its palette colour measures exactly 0.
+    mat, mat2 : ndarray of shape (3, 3)
+        Linear RGB -> the choice space: the XYZ-based matrix for CIELAB, or
+        the LMS and OKLab matrices.
+    mat_lab : ndarray of shape (3, 3)
+        Linear RGB -> XYZ, for measuring ΔE00.
+    space_code : int
+        0 for CIELAB, 1 for OKLab (the kernels' switch).
+    metric_code : int
+        0 for Euclidean distance in the choice space, 1 for CIEDE2000.
+    choice_space : {"lab", "oklab"}
+        The space colours are chosen in, by name.
+    delta_e : ndarray of shape (H, W) or None
+        Per-pixel CIEDE2000 to the chosen colour, NaN where transparent;
+        None until measured.
     """
 
-    name: str
-    kind: str
-    weights: tuple = ()
-    matrix: str | None = None
-    reference: str = ""
+    codes: np.ndarray
+    lut: np.ndarray
+    state: np.ndarray
+    pinned: np.ndarray
+    pal_lin: np.ndarray
+    pal_pts: np.ndarray
+    pal_lab: np.ndarray
+    mat: np.ndarray
+    mat2: np.ndarray
+    mat_lab: np.ndarray
+    space_code: int
+    metric_code: int
+    choice_space: str
+    delta_e: np.ndarray | None = None
 
 
-def _spread(rows, divisor):
-    """(dy, dx, w) triples from kernel rows written as in the papers: row 0
-    starts right of the current pixel, later rows are centred on it."""
-    out = []
-    for dy, row in enumerate(rows):
-        half = len(row) // 2
-        for i, v in enumerate(row):
-            dx = i + 1 if dy == 0 else i - half
-            if v:
-                out.append((dy, dx, v / divisor))
-    return tuple(out)
+@dataclass(frozen=True, eq=False)
+class _Diffusion:
+    """An error-diffusion pass as the kernels take it: neighbour offsets and shares, strength, scan."""
+
+    off_dy: np.ndarray  # int64, rows below the current pixel
+    off_dx: np.ndarray  # int64, columns right of it (left on reversed rows)
+    off_w: np.ndarray  # float64 shares, summing to 1
+    strength: float
+    serpentine: bool
+
+    @classmethod
+    def of(cls, method: DitherMethod, strength: float, serpentine: bool) -> _Diffusion:
+        off = np.array(method.weights, dtype=np.float64)
+        return cls(off_dy=np.ascontiguousarray(off[:, 0].astype(np.int64)),
+                   off_dx=np.ascontiguousarray(off[:, 1].astype(np.int64)),
+                   off_w=np.ascontiguousarray(off[:, 2]), strength=float(strength), serpentine=bool(serpentine))
+
+    def kernel_args(self, a: DitherArrays) -> tuple:
+        """The leading arguments of ``diffuse`` and ``diffuse_rows``, in the kernels' order."""
+        return (a.codes, a.lut, a.state, a.pinned, a.pal_lin, a.pal_pts, a.mat, a.mat2, a.space_code,
+                a.metric_code, self.off_dy, self.off_dx, self.off_w, self.strength, self.serpentine)
 
 
-#: Dithering methods by name (the one name -> method table).
-DITHERS: dict[str, DitherMethod] = {
-    "none": DitherMethod("none", "none", reference="nearest colour, no dither"),
-    "floyd-steinberg": DitherMethod("floyd-steinberg", "diffusion",
-                                    _spread([[7], [3, 5, 1]], 16), reference=_REF_FS),
-    "jarvis-judice-ninke": DitherMethod("jarvis-judice-ninke", "diffusion",
-                                        _spread([[7, 5], [3, 5, 7, 5, 3], [1, 3, 5, 3, 1]], 48),
-                                        reference=_REF_JJN),
-    "stucki": DitherMethod("stucki", "diffusion",
-                           _spread([[8, 4], [2, 4, 8, 4, 2], [1, 2, 4, 2, 1]], 42), reference=_REF_STUCKI),
-    "bayer2": DitherMethod("bayer2", "ordered", matrix="bayer2", reference=_REF_BAYER),
-    "bayer4": DitherMethod("bayer4", "ordered", matrix="bayer4", reference=_REF_BAYER),
-    "bayer8": DitherMethod("bayer8", "ordered", matrix="bayer8", reference=_REF_BAYER),
-    "blue-noise": DitherMethod("blue-noise", "ordered", matrix="blue-noise", reference=_REF_VAC),
-    "clustered-dot": DitherMethod("clustered-dot", "ordered", matrix="clustered-dot", reference=_REF_CLUSTER),
-}
-
-
-def check_dither(name: str) -> DitherMethod:
-    """The method called ``name`` (case-insensitive).
-
-    Raises
-    ------
-    ValueError
-        Unknown name; the message lists every valid one.
-
-    Examples
-    --------
-    >>> check_dither("Floyd-Steinberg").kind
-    'diffusion'
-    """
-    key = name.lower() if isinstance(name, str) else name
-    if key not in DITHERS:
-        raise ValueError(f"unknown dither {name!r}; valid names: {', '.join(DITHERS)}")
-    return DITHERS[key]
-
-
-def check_strength(strength) -> float:
-    """Return ``strength`` as a float if it is within 0-1, else raise ValueError naming it."""
-    try:
-        value = float(strength)
-    except (TypeError, ValueError):
-        raise ValueError(f"dither strength must be a number in 0-1, got {strength!r}") from None
-    if not 0.0 <= value <= 1.0:
-        raise ValueError(f"dither strength must be within 0-1, got {strength!r}")
-    return value
-
-
-# --------------------------------------------------------------------------- dithering
-
-def _kernel_inputs(pic, palette, metric):
-    """Arrays the compiled kernels take (see quantize.kernels.dither_loops)."""
+def _kernel_inputs(pic, palette, metric) -> DitherArrays:
+    """The arrays the compiled kernels take, for ``pic`` onto ``palette``."""
     from quantize.colour import spaces as cs
     from quantize.kernels.loading import compiled
 
     dk = compiled("dither_loops")
-    CLEAR, OPEN, PINNED = dk.CLEAR, dk.OPEN, dk.PINNED
-
     space = palette.space if palette.space in ("lab", "oklab") else "lab"
     if metric == "ciede2000":
         space = "lab"
@@ -186,29 +166,36 @@ def _kernel_inputs(pic, palette, metric):
         mat, mat2, code = cs._M_RGB_TO_T, np.zeros((3, 3)), 0
     else:
         mat, mat2, code = cs._M_RGB_TO_LMS, cs._M2_LMS_TO_OKLAB, 1
-    lut = cs.srgb_to_linear(np.arange(pic.max_code + 1) / pic.max_code)
     codes = np.ascontiguousarray(pic.rgb)
-    state = np.full(pic.shape, OPEN, dtype=np.uint8)
+    state = np.full(pic.shape, dk.OPEN, dtype=np.uint8)
     pinned = np.zeros(pic.shape, dtype=np.uint16)  # read only where state is PINNED
     if pic.alpha is not None:
-        state[pic.alpha == 0] = CLEAR
+        state[pic.alpha == 0] = dk.CLEAR
     scale = 257 if pic.bit_depth == 16 else 1
     for j in np.flatnonzero(palette.locked):
-        hit = np.all(codes == palette.rgb8[j].astype(codes.dtype) * scale, axis=2) & (state == OPEN)
-        state[hit] = PINNED
+        hit = np.all(codes == palette.rgb8[j].astype(codes.dtype) * scale, axis=2) & (state == dk.OPEN)
+        state[hit] = dk.PINNED
         pinned[hit] = j
     pal_lin = np.ascontiguousarray(cs.srgb_to_linear(palette.rgb8 / 255.0))
-    pal_pts = np.ascontiguousarray(cs.srgb8_to_space(palette.rgb8, space if metric == "space" else "lab"))
     mat_lab = np.ascontiguousarray(cs._M_RGB_TO_T)
-    # Palette CIELAB along the kernels' own arithmetic, so that a pixel that
-    # is exactly its palette colour measures exactly 0.
-    pal_lab = np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin])
-    return dict(codes=codes, lut=lut, state=state, pinned=pinned, pal_lin=pal_lin, pal_pts=pal_pts,
-                pal_lab=pal_lab, mat=np.ascontiguousarray(mat), mat2=np.ascontiguousarray(mat2),
-                mat_lab=mat_lab, space=code, metric=0 if metric == "space" else 1, choice_space=space)
+    return DitherArrays(
+        codes=codes,
+        lut=cs.srgb_to_linear(np.arange(pic.max_code + 1) / pic.max_code),
+        state=state,
+        pinned=pinned,
+        pal_lin=pal_lin,
+        pal_pts=np.ascontiguousarray(cs.srgb8_to_space(palette.rgb8, space if metric == "space" else "lab")),
+        pal_lab=np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin]),
+        mat=np.ascontiguousarray(mat),
+        mat2=np.ascontiguousarray(mat2),
+        mat_lab=mat_lab,
+        space_code=code,
+        metric_code=0 if metric == "space" else 1,
+        choice_space=space,
+    )
 
 
-def _diffuse_measured(args, a, out) -> np.ndarray:
+def _diffuse_measured(a: DitherArrays, diffusion: _Diffusion, out) -> np.ndarray:
     """Diffuse band by band and measure each finished band on worker threads.
 
     Diffusion is sequential; the ΔE00 of the rows it has finished is not, so
@@ -224,22 +211,23 @@ def _diffuse_measured(args, a, out) -> np.ndarray:
     dk = compiled("dither_loops")
     h = out.shape[0]
     de = np.empty(out.shape, dtype=np.float64)
-    err = np.zeros((dk.error_rows(args[10]), out.shape[1], 3))
+    err = np.zeros((dk.error_rows(diffusion.off_dy), out.shape[1], 3))
     band = max(16, h // 64)
+    args = diffusion.kernel_args(a)
     with ThreadPoolExecutor(max_workers=max(numba.get_num_threads(), 1)) as pool:
         jobs = []
         for y0 in range(0, h, band):
             y1 = min(h, y0 + band)
             dk.diffuse_rows(*args, err, y0, y1, out)
-            jobs.append(pool.submit(dk.delta_e_rows, a["codes"], a["lut"], a["state"], out, a["pal_lab"],
-                                    a["mat_lab"], y0, y1, de))
+            jobs.append(pool.submit(dk.delta_e_rows, a.codes, a.lut, a.state, out, a.pal_lab, a.mat_lab,
+                                    y0, y1, de))
         for job in jobs:
             job.result()
     return de
 
 
 def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
-                   serpentine: bool = True, measure: bool = False) -> tuple[np.ndarray, dict]:
+                   serpentine: bool = True, measure: bool = False) -> tuple[np.ndarray, DitherArrays]:
     """Palette index of every pixel under a dither, without the statistics.
 
     Parameters are those of :func:`dither_picture` (``method`` must not be
@@ -248,9 +236,9 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     Returns
     -------
     indices : ndarray of shape (H, W), uint8 (uint16 above 256 colours)
-    arrays : dict
+    arrays : DitherArrays
         The kernels' inputs; with ``measure`` (always, for ordered methods)
-        also ``"delta_e"``, the per-pixel CIEDE2000 (H, W), NaN where
+        its ``delta_e`` holds the per-pixel CIEDE2000 (H, W), NaN where
         transparent.
 
     Raises
@@ -271,41 +259,36 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     arrays = _kernel_inputs(pic, palette, metric)
     dtype = np.uint8 if len(palette) <= 256 else np.uint16
     out = np.empty(pic.shape, dtype=dtype)
-    with_fresh_cache(lambda: _run_method(m, pic, arrays, float(strength), bool(serpentine), measure, out))
-    return out, arrays
+    de = with_fresh_cache(lambda: _run_method(m, pic, arrays, strength, bool(serpentine), measure, out))
+    return out, replace(arrays, delta_e=de)
 
 
-def _run_method(m, pic, arrays, strength, serpentine, measure, out) -> None:
-    """Run the kernels of method ``m``; fills ``out`` (and ``arrays["delta_e"]``)."""
+def _run_method(m, pic, a: DitherArrays, strength, serpentine, measure, out) -> np.ndarray | None:
+    """Run the kernels of method ``m``, filling ``out``; the per-pixel ΔE00 when measured, else None."""
     from quantize.kernels.loading import compiled
 
     dk = compiled("dither_loops")
-    a = arrays
     if m.kind == "diffusion":
-        off = np.array(m.weights, dtype=np.float64)
-        args = (a["codes"], a["lut"], a["state"], a["pinned"], a["pal_lin"], a["pal_pts"], a["mat"],
-                a["mat2"], a["space"], a["metric"], np.ascontiguousarray(off[:, 0].astype(np.int64)),
-                np.ascontiguousarray(off[:, 1].astype(np.int64)), np.ascontiguousarray(off[:, 2]),
-                strength, serpentine)
+        diffusion = _Diffusion.of(m, strength, serpentine)
         if measure:
-            arrays["delta_e"] = _diffuse_measured(args, a, out)
-        else:
-            dk.diffuse(*args, out)
-    else:
-        # An ordered pixel depends on its colour and place only: bracket each
-        # distinct colour once, then threshold the pixels.
-        from quantize.core.sampling import sample_picture
+            return _diffuse_measured(a, diffusion, out)
+        dk.diffuse(*diffusion.kernel_args(a), out)
+        return None
+    # An ordered pixel depends on its colour and place only: bracket each
+    # distinct colour once, then threshold the pixels.
+    from quantize.core.sampling import sample_picture
 
-        smp = sample_picture(pic)
-        n = smp.n_colours
-        near, other = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
-        share, de_near, de_other = np.empty(n), np.empty(n), np.empty(n)
-        dk.bracket(np.ascontiguousarray(smp.codes), a["lut"], a["pal_lin"], a["pal_pts"], a["pal_lab"], a["mat"],
-                   a["mat2"], a["mat_lab"], a["space"], a["metric"], near, other, share, de_near, de_other)
-        thr = np.ascontiguousarray(threshold_matrix(m.matrix))
-        arrays["delta_e"] = np.empty(pic.shape, dtype=np.float64)
-        dk.ordered(smp.inverse.reshape(pic.shape), a["state"], a["pinned"], thr, strength, near, other,
-                   share, de_near, de_other, out, arrays["delta_e"])
+    smp = sample_picture(pic)
+    n = smp.n_colours
+    near, other = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
+    share, de_near, de_other = np.empty(n), np.empty(n), np.empty(n)
+    dk.bracket(np.ascontiguousarray(smp.codes), a.lut, a.pal_lin, a.pal_pts, a.pal_lab, a.mat, a.mat2, a.mat_lab,
+               a.space_code, a.metric_code, near, other, share, de_near, de_other)
+    thr = np.ascontiguousarray(threshold_matrix(m.matrix))
+    de = np.empty(pic.shape, dtype=np.float64)
+    dk.ordered(smp.inverse.reshape(pic.shape), a.state, a.pinned, thr, strength, near, other, share, de_near,
+               de_other, out, de)
+    return de
 
 
 def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
@@ -334,9 +317,9 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
     -------
     MappedImage
         ``delta_e`` holds the plain per-pixel CIEDE2000 statistics (mean,
-        median, p95, max); ``extra`` records ``dither``, ``strength``,
-        ``serpentine``, ``error_space`` ("linear light") and
-        ``choice_space``.  For spatially filtered statistics see
+        median, p95, max); ``dither`` (a :class:`DitherInfo`) records the
+        method, strength, scan, error space and the space the colours were
+        chosen in.  For spatially filtered statistics see
         :func:`quantize.quality.perception.with_filtered_delta_e`.
 
     Raises
@@ -371,9 +354,8 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
     """
     from quantize.fit.assign import check_metric
     from quantize.io.read import as_picture
+    from quantize.kernels.loading import compiled
     from quantize.quality.perception import pixel_delta_e_stats
-
-    from .result import MappedImage, nearest_image
 
     m = check_dither(method)
     strength = check_strength(strength)
@@ -383,18 +365,16 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
         return nearest_image(pic, palette, metric=metric)
     idx, arrays = dither_indices(pic, palette, method=m.name, strength=strength, metric=metric,
                                  serpentine=serpentine, measure=True)
-    from quantize.kernels.loading import compiled
-
     dk = compiled("dither_loops")
-    de = arrays["delta_e"]
-    clear = arrays["state"] == dk.CLEAR if pic.alpha is not None else None
+    de = arrays.delta_e
+    clear = arrays.state == dk.CLEAR if pic.alpha is not None else None
     if clear is not None and clear.any():
         values, used = de[~clear], idx[~clear]
     else:  # flat views: no copies of a 12-megapixel array
         values, used = de.ravel(), idx.ravel()
     counts = np.bincount(used, minlength=len(palette))
     notes = list(pic.warnings)
-    if arrays["choice_space"] != palette.space and metric == "space":
+    if arrays.choice_space != palette.space and metric == "space":
         notes.append(f"dither chose colours by distance in CIELAB (the {palette.space} model "
                      "does not run in the compiled kernel)")
     return MappedImage(
@@ -407,7 +387,7 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
         dpi=pic.dpi,
         bit_depth=pic.bit_depth,
         notes=tuple(notes),
-        extra={"dither": m.name, "strength": strength, "serpentine": bool(serpentine) if m.kind == "diffusion"
-               else None, "error_space": "linear light", "choice_space": arrays["choice_space"],
-               "metric": metric},
+        dither=DitherInfo(method=m.name, strength=strength,
+                          serpentine=bool(serpentine) if m.kind == "diffusion" else None,
+                          choice_space=arrays.choice_space, metric=metric),
     )

@@ -2,14 +2,48 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 from quantize.fit.assign import map_sample
+from quantize.quality.perception import FilteredDeltaE
 from quantize.quality.stats import coverage_percent, delta_e_stats
 
-__all__ = ["MappedImage", "nearest_image"]
+__all__ = ["DitherInfo", "MappedImage", "nearest_image"]
+
+
+@dataclass(frozen=True)
+class DitherInfo:
+    """How a dithered :class:`MappedImage` was made.
+
+    Attributes
+    ----------
+    method : str
+        The dither's name, a key of :data:`quantize.render.methods.DITHERS`.
+    strength : float
+        0-1: the share of each pixel's error passed on (error diffusion), or
+        of the partner colour mixed in (ordered methods).
+    serpentine : bool or None
+        Error diffusion: True when odd rows were scanned right to left,
+        False for a raster scan.  None for ordered methods, which have no
+        scan order.
+    choice_space : {"lab", "oklab"}
+        Space whose distance chose each pixel's colour (CIELAB for a
+        CAM16-UCS palette, and always with ``metric="ciede2000"``).
+    metric : {"space", "ciede2000"}
+        Euclidean distance in ``choice_space``, or CIEDE2000.
+    error_space : str, default="linear light"
+        What the dither keeps on average: every method mixes and diffuses
+        linear RGB, never gamma-encoded values.
+    """
+
+    method: str
+    strength: float
+    serpentine: bool | None
+    choice_space: str
+    metric: str
+    error_space: str = "linear light"
 
 
 @dataclass(frozen=True, eq=False)
@@ -35,6 +69,12 @@ class MappedImage:
         Of the input.
     notes : tuple of str
         Anything the user should know (warnings from loading, etc.).
+    dither : DitherInfo or None
+        How the image was dithered; None for the plain nearest-colour mapping.
+    filtered : FilteredDeltaE or None
+        S-CIELAB filtered ΔE00 at a viewing condition, once
+        :func:`quantize.quality.perception.with_filtered_delta_e` has
+        measured it; else None.
     """
 
     indices: np.ndarray
@@ -46,7 +86,8 @@ class MappedImage:
     dpi: tuple | None = None
     bit_depth: int = 8
     notes: tuple = ()
-    extra: dict = field(default_factory=dict)
+    dither: DitherInfo | None = None
+    filtered: FilteredDeltaE | None = None
 
     @property
     def rgb(self) -> np.ndarray:

@@ -12,8 +12,8 @@ thresholds in (0, 1); :mod:`quantize.render.dither` applies them.
 from __future__ import annotations
 
 import functools
+import io
 import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -233,20 +233,23 @@ def blue_noise_ranks(size: int = 64, *, sigma: float = 1.5, seed: int = 0) -> np
         pass
     if ranks is None:
         ranks = _void_and_cluster(size, sigma, seed)
-        try:
-            path.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npy")
-            try:
-                with os.fdopen(fd, "wb") as fh:
-                    np.save(fh, ranks.astype(np.int32))
-                os.replace(tmp, path)
-            except BaseException:
-                os.unlink(tmp)
-                raise
-        except OSError:
-            pass  # a read-only cache costs only the computation
+        _save_cache(path, ranks)
     ranks.flags.writeable = False
     return ranks
+
+
+def _save_cache(path: Path, ranks: np.ndarray) -> None:
+    """Keep ``ranks`` in the cache file, atomically: another process may be reading it."""
+    from quantize.errors import OutputError
+    from quantize.io.write import atomic_write_bytes
+
+    buf = io.BytesIO()
+    np.save(buf, ranks.astype(np.int32))
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write_bytes(path, buf.getvalue(), force=True)
+    except (OSError, OutputError):
+        pass  # a read-only cache costs only the computation
 
 
 def threshold_matrix(name: str) -> np.ndarray:

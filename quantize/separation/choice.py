@@ -217,31 +217,19 @@ def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: s
     >>> [lib.names[i] for i in sel.chosen]
     ['Red']
     """
-    from quantize.colour.spaces import srgb8_to_space
-    from quantize.core.sampling import ColourSample, sample_picture
-    from quantize.palette import Palette
-
     if method not in SELECTION_METHODS:
         raise ValueError(f"unknown selection method {method!r}; choose one of: {', '.join(SELECTION_METHODS)}")
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
         raise ValueError(f"number of inks must be a whole number of at least 1, got {n!r}")
     if restarts < 1:
         raise ValueError(f"restarts must be at least 1, got {restarts}")
-    sub_idx, sub_lab, sub_rgb, sub_name = _resolve_substrate(substrate, library)
+    sub_idx, _, sub_rgb, sub_name = _resolve_substrate(substrate, library)
     candidates = [j for j in range(len(library)) if j != sub_idx]
     if len(candidates) < n:
         extra = " besides the substrate" if sub_idx is not None else ""
         raise InkLibraryError(f"{library.source}: asked for {n} inks but the library has only "
                               f"{len(candidates)}{extra}")
-    sample = image if isinstance(image, ColourSample) else sample_picture(_picture(image))
-    if sample.n_colours > max_colours:
-        lab_px, w = sample.binned("lab", max_points=max_colours)
-    else:
-        lab_px, w = sample.points("lab"), sample.weights
-    # Map by the colours actually written (preview sRGB), so the cost is what mapping gives.
-    ink_lab = srgb8_to_space(library.rgb8[candidates], "lab")
-    d = _distance_matrix(lab_px, ink_lab)
-    base = _distance_matrix(lab_px, srgb8_to_space(sub_rgb, "lab")[None])[:, 0] if sub_rgb is not None else None
+    d, w, base = _costs(image, library, candidates, sub_rgb, max_colours)
     use = method
     if method == "auto":
         use = "exact" if math.comb(len(candidates), n) <= _EXACT_LIMIT else "search"
@@ -250,27 +238,55 @@ def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: s
     else:
         rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
         s, cost, count = _search(d, w, n, base, restarts, rng)
-    # Order by pixel share, most used first.
-    full = d[:, s] if base is None else np.column_stack([d[:, s], base])
-    share = np.bincount(np.argmin(full, axis=1), weights=w, minlength=full.shape[1])[:len(s)]
-    s = [s[i] for i in np.argsort(-share, kind="stable")]
-    chosen = tuple(candidates[i] for i in s)
+    chosen = tuple(candidates[i] for i in _by_share(d, w, s, base))
+    pal = _ink_palette(library, chosen, sub_rgb, sub_name,
+                       fit={"inks": library.describe(), "selection": use, "cost_delta_e": cost})
+    return InkSelection(chosen=chosen, cost=cost, method=use, evaluated=count, palette=pal,
+                        details={"candidates": len(candidates), "n": n, "substrate": sub_name})
+
+
+def _costs(image, library, candidates, sub_rgb, max_colours):
+    """ΔE00 of the image's colours to each candidate ink (n, M), the colours' weights (n,), and their
+    ΔE00 to the substrate (n,) or None."""
+    from quantize.colour.spaces import srgb8_to_space
+    from quantize.core.sampling import ColourSample, sample_picture
+
+    sample = image if isinstance(image, ColourSample) else sample_picture(_picture(image))
+    if sample.n_colours > max_colours:
+        lab_px, w = sample.binned("lab", max_points=max_colours)
+    else:
+        lab_px, w = sample.points("lab"), sample.weights
+    # Map by the colours actually written (preview sRGB), so the cost is what mapping gives.
+    d = _distance_matrix(lab_px, srgb8_to_space(library.rgb8[candidates], "lab"))
+    base = _distance_matrix(lab_px, srgb8_to_space(sub_rgb, "lab")[None])[:, 0] if sub_rgb is not None else None
+    return d, w, base
+
+
+def _by_share(d, w, subset, base) -> list[int]:
+    """``subset`` ordered by the weight of the colours each ink is nearest to, most first."""
+    full = d[:, subset] if base is None else np.column_stack([d[:, subset], base])
+    share = np.bincount(np.argmin(full, axis=1), weights=w, minlength=full.shape[1])[:len(subset)]
+    return [subset[i] for i in np.argsort(-share, kind="stable")]
+
+
+def _ink_palette(library, chosen, sub_rgb, sub_name, *, fit):
+    """The chosen inks as a palette, named, with the substrate locked in front when there is one."""
+    from quantize.palette import Palette
+
     rgb = [library.inks[j].rgb8 for j in chosen]
     names = [library.inks[j].name for j in chosen]
     locked = [False] * len(chosen)
     if sub_rgb is not None:
         rgb, names, locked = [sub_rgb] + rgb, [sub_name] + names, [True] + locked
-    pal = Palette(rgb8=np.array(rgb, np.uint8), locked=np.array(locked), space="lab", names=tuple(names),
-                  fit={"inks": library.describe(), "selection": use, "cost_delta_e": cost})
-    return InkSelection(chosen=chosen, cost=cost, method=use, evaluated=count, palette=pal,
-                        details={"candidates": len(candidates), "n": n, "substrate": sub_name})
+    return Palette(rgb8=np.array(rgb, np.uint8), locked=np.array(locked), space="lab", names=tuple(names), fit=fit)
 
 
-def _picture(image):
+def _picture(image, max_pixels: int | None = None):
+    """A Picture of ``image``; a path is read with the decompression-bomb limit ``max_pixels``."""
     from quantize.io.read import as_picture, load_image
 
     if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
-        return load_image(image)
+        return load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
     return as_picture(image)
 
 
@@ -422,14 +438,9 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
     >>> pal.hex, info["method"]
     (['#ffffff', '#c8102e'], 'fitted')
     """
-    from quantize.io.read import as_picture, load_image
-
     if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
         raise SeparationError(f"number of inks must be at least 1, got {n!r}")
-    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
-        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
-    else:
-        pic = as_picture(image)
+    pic = _picture(image, max_pixels)
     if library is not None and palette is not None and not snap:
         raise SeparationError("a palette and an ink library were both given: add snap to move the palette's "
                               "colours onto library inks, or give only one of them")
@@ -458,21 +469,30 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
     palette, sub = with_substrate(palette, sub_spec)
     info = {"method": method, "substrate": sub}
     if snap:
-        others = [i for i in range(palette.k) if i != sub]
-        lk = palette.locked.copy()
-        lk[:] = False
-        lk[sub] = True
-        from quantize.palette import Palette
-
-        palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
-        palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
-        if isinstance(substrate, str) and library.find(substrate) is not None:
-            names = list(palette.names)
-            names[0] = library.inks[library.find(substrate)].name
-            palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
-        info.update({"method": f"{method}, snapped to library inks", "snaps": snaps,
-                     "library": library.describe(), "colours_snapped": len(others), "substrate": 0})
+        palette, snap_info = _snapped(palette, sub, library, substrate)
+        info.update({"method": f"{method}, snapped to library inks", **snap_info})
     return palette, info
+
+
+def _snapped(palette, sub: int, library, substrate) -> tuple[Any, dict]:
+    """``palette`` with its one locked colour at ``sub`` and every other colour snapped to a library ink.
+
+    The substrate comes first in the result; it takes a library ink's name
+    when ``substrate`` names one.
+    """
+    from quantize.palette import Palette
+
+    others = [i for i in range(palette.k) if i != sub]
+    lk = np.zeros(palette.k, bool)
+    lk[sub] = True
+    palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
+    named = library.find(substrate) if isinstance(substrate, str) else None
+    palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
+    if named is not None:
+        names = list(palette.names)
+        names[0] = library.inks[named].name
+        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+    return palette, {"snaps": snaps, "library": library.describe(), "colours_snapped": len(others), "substrate": 0}
 
 
 def with_substrate(palette, colour) -> tuple[Any, int]:

@@ -7,12 +7,68 @@ labelling and morphology are scikit-image's (imported when used).
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
 from quantize.core.units import px_to_mm
 
-__all__ = ["clean_small_regions", "find_thin_features", "underbase_mask"]
+__all__ = ["CleanupReport", "clean_small_regions", "find_thin_features", "underbase_mask"]
+
+
+@dataclass(frozen=True)
+class CleanupReport:
+    """What merging the regions too small to print changed.
+
+    Attributes
+    ----------
+    min_area_px : float
+        Regions of fewer pixels than this were merged.
+    pixels_changed : int
+        Opaque pixels that took another colour.
+    regions_merged : int
+        Regions merged into a neighbour, over all passes.
+    passes : int
+        Labelling passes that merged something.
+    regions_left_small : int
+        Small regions with no larger neighbour to merge into (left as they are).
+    delta_e_changed_mean, delta_e_changed_max : float
+        ΔE00 from each changed pixel's old colour to its new one (0 when
+        nothing changed).
+    delta_e_image_mean : float
+        That change averaged over every opaque pixel.
+    min_feature_mm : float or None
+        The minimum feature diameter ``min_area_px`` came from; set by
+        :func:`quantize.separation.plates.separate`, else None.
+    delta_e_before, delta_e_after : dict or None
+        ΔE00 statistics (``mean``, ``median``, ``p95``, ``max``) of the source
+        pixels against their colour before and after the clean-up; set by
+        :func:`quantize.separation.plates.separate`, else None.
+    """
+
+    min_area_px: float
+    pixels_changed: int
+    regions_merged: int
+    passes: int
+    regions_left_small: int
+    delta_e_changed_mean: float
+    delta_e_changed_max: float
+    delta_e_image_mean: float
+    min_feature_mm: float | None = None
+    delta_e_before: dict | None = None
+    delta_e_after: dict | None = None
+
+    def to_dict(self) -> dict:
+        """The report as the separation manifest lists it (``cleanup``)."""
+        doc = {"min_area_px": self.min_area_px, "pixels_changed": self.pixels_changed,
+               "regions_merged": self.regions_merged, "passes": self.passes,
+               "regions_left_small": self.regions_left_small, "delta_e_changed_mean": self.delta_e_changed_mean,
+               "delta_e_changed_max": self.delta_e_changed_max, "delta_e_image_mean": self.delta_e_image_mean}
+        if self.min_feature_mm is not None:
+            doc["min_feature_mm"] = self.min_feature_mm
+        if self.delta_e_before is not None or self.delta_e_after is not None:
+            doc["delta_e_source"] = {"before": self.delta_e_before, "after": self.delta_e_after}
+        return doc
 
 
 def _label_regions(indices: np.ndarray, opaque: np.ndarray) -> tuple[np.ndarray, int]:
@@ -35,7 +91,7 @@ def _adjacent_pairs(labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: float,
-                        opaque: np.ndarray | None = None) -> tuple[np.ndarray, dict]:
+                        opaque: np.ndarray | None = None) -> tuple[np.ndarray, CleanupReport]:
     """Merge connected single-colour regions smaller than ``min_area`` pixels into a neighbour.
 
     Parameters
@@ -54,12 +110,9 @@ def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: f
     -------
     indices : (H, W) ndarray
         The cleaned indices (same dtype).
-    report : dict
-        ``pixels_changed``, ``regions_merged``, ``passes``, ``regions_left_small``
-        (regions with no neighbour to merge into), ``delta_e_changed_mean`` and
-        ``delta_e_changed_max`` (ΔE00 from each changed pixel's old colour to its
-        new one) and ``delta_e_image_mean`` (that change averaged over every
-        opaque pixel).
+    report : CleanupReport
+        Pixels changed, regions merged, passes, regions left small (with no
+        neighbour to merge into) and the ΔE00 the change costs.
 
     Notes
     -----
@@ -75,7 +128,7 @@ def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: f
     >>> idx = np.zeros((5, 5), np.uint8); idx[2, 2] = 1
     >>> lab = np.array([[90.0, 0, 0], [30.0, 0, 0]])
     >>> out, rep = clean_small_regions(idx, lab, min_area=2)
-    >>> int(out.max()), rep["pixels_changed"]
+    >>> int(out.max()), rep.pixels_changed
     (0, 1)
     """
     from quantize.colour.spaces import delta_e_ciede2000
@@ -122,16 +175,16 @@ def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: f
     changed = (out != idx) & op
     n_changed = int(changed.sum())
     de = de_ink[idx[changed].astype(np.intp), out[changed].astype(np.intp)]
-    report = {
-        "min_area_px": float(min_area),
-        "pixels_changed": n_changed,
-        "regions_merged": merged,
-        "passes": passes,
-        "regions_left_small": left_small,
-        "delta_e_changed_mean": float(de.mean()) if n_changed else 0.0,
-        "delta_e_changed_max": float(de.max()) if n_changed else 0.0,
-        "delta_e_image_mean": float(de.sum() / max(int(op.sum()), 1)),
-    }
+    report = CleanupReport(
+        min_area_px=float(min_area),
+        pixels_changed=n_changed,
+        regions_merged=merged,
+        passes=passes,
+        regions_left_small=left_small,
+        delta_e_changed_mean=float(de.mean()) if n_changed else 0.0,
+        delta_e_changed_max=float(de.max()) if n_changed else 0.0,
+        delta_e_image_mean=float(de.sum() / max(int(op.sum()), 1)),
+    )
     return out, report
 
 
@@ -218,9 +271,10 @@ def find_thin_features(mask: np.ndarray, *, width_px: float, dpi: float, name: s
             inside = lab[wy, wx] == j
             width = max(1.0, 2.0 * float(dist[inside].max()) - 1.0)
             y0, x0, y1, x1 = sy.start + oy, sx.start + ox, sy.stop + oy, sx.stop + ox
+            mm = {k: round(px_to_mm(v, dpi), 3) for k, v in (("x_mm", x0), ("y_mm", y0), ("w_mm", x1 - x0),
+                                                              ("h_mm", y1 - y0), ("width_mm", width))}
             found.append({"ink": name, "kind": kind, "pixels": int(area[j]), "x": x0, "y": y0,
-                          "w": x1 - x0, "h": y1 - y0, "x_mm": round(px_to_mm(x0, dpi), 3), "y_mm": round(px_to_mm(y0, dpi), 3),
-                          "w_mm": round(px_to_mm(x1 - x0, dpi), 3), "h_mm": round(px_to_mm(y1 - y0, dpi), 3), "width_mm": round(px_to_mm(width, dpi), 3)})
+                          "w": x1 - x0, "h": y1 - y0, **mm})
     found.sort(key=lambda d: -d["pixels"])
     return found[:limit], summary
 
@@ -257,6 +311,3 @@ def underbase_mask(printed: np.ndarray, choke_px: float) -> np.ndarray:
         return p.copy()
     pad = int(math.ceil(choke_px)) + 1
     return isotropic_erosion(np.pad(p, pad), choke_px)[pad:-pad, pad:-pad]
-
-
-# --------------------------------------------------------------------------- the separation

@@ -430,82 +430,118 @@ def _cgats_illuminant(keywords: dict[str, str]) -> tuple[str | None, int | None]
 
 
 def _parse_cgats(text: str, source: str, illuminant: str | None) -> InkLibrary:
-    rows = _Rows(source)
-    keywords: dict[str, str] = {}
-    state = "header"
-    fields: list[str] = []
-    n_fields = n_sets = None
-    set_count = 0
-    cols = None
-    tables = 0
-    data_line = 0
-    for lineno, line in enumerate(text.splitlines(), start=1):
+    reader = _CgatsReader(source)
+    lines = text.splitlines()
+    for lineno, line in enumerate(lines, start=1):
         toks = _cgats_tokens(line)
-        if not toks:
-            continue
+        if toks:
+            reader.feed(lineno, toks)
+    return reader.finish(len(lines), illuminant)
+
+
+class _CgatsReader:
+    """CGATS.17 text, one tokenised line at a time: keywords, then format and data blocks.
+
+    Outside a block (``header``) lines are keywords or open a block; inside
+    ``BEGIN_DATA_FORMAT`` they name fields; inside ``BEGIN_DATA`` each line
+    is one data set, read as an ink.
+    """
+
+    _NAMES = ("LAB_L", "LAB_A", "LAB_B", "SAMPLE_ID", "SAMPLE_NAME")
+
+    def __init__(self, source: str):
+        self.rows = _Rows(source)
+        self.keywords: dict[str, str] = {}
+        self.state = "header"
+        self.fields: list[str] = []
+        self.n_fields: int | None = None
+        self.n_sets: int | None = None
+        self.cols: dict[str, int] = {}
+        self.set_count = 0
+        self.tables = 0
+        self.data_line = 0
+
+    def feed(self, lineno: int, toks: list[str]) -> None:
+        if self.state == "format":
+            self._format_line(lineno, toks)
+        elif self.state == "data":
+            self._data_line(lineno, toks)
+        else:
+            self._header_line(lineno, toks)
+
+    def _format_line(self, lineno, toks) -> None:
+        if toks[0] != "END_DATA_FORMAT":
+            self.fields.extend(toks)
+            return
+        if self.n_fields is not None and len(self.fields) != self.n_fields:
+            raise self.rows.bad(lineno, f"NUMBER_OF_FIELDS is {self.n_fields} but the format lists "
+                                f"{len(self.fields)}")
+        self.state = "header"
+
+    def _data_line(self, lineno, toks) -> None:
+        if toks[0] == "END_DATA":
+            if self.n_sets is not None and self.set_count != self.n_sets:
+                raise self.rows.bad(lineno, f"NUMBER_OF_SETS is {self.n_sets} but the table has "
+                                    f"{self.set_count} data sets")
+            self.state, self.fields, self.n_fields, self.n_sets, self.cols = "header", [], None, None, {}
+            return
+        if len(toks) != len(self.fields):
+            raise self.rows.bad(lineno, f"expected {len(self.fields)} values ({' '.join(self.fields)}), "
+                                f"got {len(toks)}")
+        self.set_count += 1
+        cols = self.cols
+        lab = _lab_value([toks[cols[k]] for k in ("LAB_L", "LAB_A", "LAB_B")], self.rows, lineno)
+        sid = toks[cols["SAMPLE_ID"]] if "SAMPLE_ID" in cols else None
+        name = toks[cols["SAMPLE_NAME"]] if "SAMPLE_NAME" in cols else sid
+        self.rows.add(name, lab, lineno, sid)
+
+    def _header_line(self, lineno, toks) -> None:
         head = toks[0]
-        if state == "format":
-            if head == "END_DATA_FORMAT":
-                if n_fields is not None and len(fields) != n_fields:
-                    raise rows.bad(lineno, f"NUMBER_OF_FIELDS is {n_fields} but the format lists {len(fields)}")
-                state = "header"
-            else:
-                fields.extend(toks)
-            continue
-        if state == "data":
-            if head == "END_DATA":
-                if n_sets is not None and set_count != n_sets:
-                    raise rows.bad(lineno, f"NUMBER_OF_SETS is {n_sets} but the table has {set_count} data sets")
-                state, fields, n_fields, n_sets, cols = "header", [], None, None, None
-                continue
-            if len(toks) != len(fields):
-                raise rows.bad(lineno, f"expected {len(fields)} values ({' '.join(fields)}), got {len(toks)}")
-            set_count += 1
-            lab = _lab_value([toks[cols[k]] for k in ("LAB_L", "LAB_A", "LAB_B")], rows, lineno)
-            sid = toks[cols["SAMPLE_ID"]] if "SAMPLE_ID" in cols else None
-            name = toks[cols["SAMPLE_NAME"]] if "SAMPLE_NAME" in cols else sid
-            rows.add(name, lab, lineno, sid)
-            continue
-        # header: keywords and the start of a format or data block
         if head == "BEGIN_DATA_FORMAT":
-            state, fields = "format", toks[1:]
+            self.state, self.fields = "format", toks[1:]
         elif head == "BEGIN_DATA":
-            if not fields:
-                raise rows.bad(lineno, "BEGIN_DATA before any BEGIN_DATA_FORMAT ... END_DATA_FORMAT")
-            upper = [f.upper() for f in fields]
-            cols = {f: upper.index(f) for f in ("LAB_L", "LAB_A", "LAB_B", "SAMPLE_ID", "SAMPLE_NAME")
-                    if f in upper}
-            missing = [f for f in ("LAB_L", "LAB_A", "LAB_B") if f not in cols]
-            if missing:
-                raise rows.bad(lineno, f"the data format has no {', '.join(missing)} field "
-                               f"(fields: {' '.join(fields)})")
-            if "SAMPLE_ID" not in cols and "SAMPLE_NAME" not in cols:
-                raise rows.bad(lineno, "the data format has neither SAMPLE_NAME nor SAMPLE_ID to name the inks")
-            state, set_count, data_line = "data", 0, lineno
-            tables += 1
+            self._begin_data(lineno)
         elif head in ("END_DATA", "END_DATA_FORMAT"):
-            raise rows.bad(lineno, f"{head} without a matching BEGIN")
+            raise self.rows.bad(lineno, f"{head} without a matching BEGIN")
         elif head in ("NUMBER_OF_FIELDS", "NUMBER_OF_SETS"):
             if len(toks) != 2 or not toks[1].isdigit():
-                raise rows.bad(lineno, f"{head} needs one whole number")
+                raise self.rows.bad(lineno, f"{head} needs one whole number")
             if head == "NUMBER_OF_FIELDS":
-                n_fields = int(toks[1])
+                self.n_fields = int(toks[1])
             else:
-                n_sets = int(toks[1])
+                self.n_sets = int(toks[1])
         else:
             # Any other keyword (standard, or declared with KEYWORD) and the file
             # identifier on the first line: kept for the illuminant, otherwise ignored.
-            keywords[head.upper()] = " ".join(toks[1:])
-    if state != "header":
-        block = "BEGIN_DATA" if state == "data" else "BEGIN_DATA_FORMAT"
-        raise rows.bad(data_line if state == "data" else len(text.splitlines()),
-                       f"{block} is never closed (file ends inside it)")
-    if tables == 0:
-        raise InkLibraryError(f"{source}: no BEGIN_DATA table found")
-    f_ill, f_obs = _cgats_illuminant(keywords)
-    try:
-        ill = check_illuminant(f_ill) if f_ill else (illuminant or "D50")
-        obs = check_observer(f_obs) if f_obs else 2
-    except ValueError as exc:
-        raise InkLibraryError(f"{source}: {exc}") from None
-    return rows.build("cgats", ill, obs)
+            self.keywords[head.upper()] = " ".join(toks[1:])
+
+    def _begin_data(self, lineno) -> None:
+        if not self.fields:
+            raise self.rows.bad(lineno, "BEGIN_DATA before any BEGIN_DATA_FORMAT ... END_DATA_FORMAT")
+        upper = [f.upper() for f in self.fields]
+        self.cols = {f: upper.index(f) for f in self._NAMES if f in upper}
+        missing = [f for f in ("LAB_L", "LAB_A", "LAB_B") if f not in self.cols]
+        if missing:
+            raise self.rows.bad(lineno, f"the data format has no {', '.join(missing)} field "
+                                f"(fields: {' '.join(self.fields)})")
+        if "SAMPLE_ID" not in self.cols and "SAMPLE_NAME" not in self.cols:
+            raise self.rows.bad(lineno, "the data format has neither SAMPLE_NAME nor SAMPLE_ID to name the inks")
+        self.state, self.set_count, self.data_line = "data", 0, lineno
+        self.tables += 1
+
+    def finish(self, n_lines: int, illuminant: str | None) -> InkLibrary:
+        """The library, once the whole text has been fed; ``illuminant`` applies when the file names none."""
+        source = self.rows.source
+        if self.state != "header":
+            block = "BEGIN_DATA" if self.state == "data" else "BEGIN_DATA_FORMAT"
+            raise self.rows.bad(self.data_line if self.state == "data" else n_lines,
+                                f"{block} is never closed (file ends inside it)")
+        if self.tables == 0:
+            raise InkLibraryError(f"{source}: no BEGIN_DATA table found")
+        f_ill, f_obs = _cgats_illuminant(self.keywords)
+        try:
+            ill = check_illuminant(f_ill) if f_ill else (illuminant or "D50")
+            obs = check_observer(f_obs) if f_obs else 2
+        except ValueError as exc:
+            raise InkLibraryError(f"{source}: {exc}") from None
+        return self.rows.build("cgats", ill, obs)

@@ -38,7 +38,7 @@ import io
 import json
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -48,30 +48,21 @@ from quantize.core.units import mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
-from .choice import with_substrate
-from .cleanup import clean_small_regions, find_thin_features, underbase_mask
+from .choice import _picture, with_substrate
+from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
+
+# The default sizes live in their own module (the command line reads them
+# without numpy); their names stay importable here.
+from .defaults import DEFAULT_CHOKE_MM, DEFAULT_DPI, DEFAULT_MARGIN_MM, DEFAULT_MIN_FEATURE_MM, DEFAULT_MIN_LINE_MM
 
 __all__ = [
-    "Plate", "Separation", "separate", "print_order",
+    "Plate", "Separation", "SeparationSettings", "separate", "print_order",
     "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM", "DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM",
 ]
 
-#: Smallest printable dot diameter, mm (common practice, no source).
-DEFAULT_MIN_FEATURE_MM = 0.5
-#: Thinnest printable line or knock-out gap, mm; about 1 pt (common practice, no source).
-DEFAULT_MIN_LINE_MM = 0.35
-#: How far the underbase is pulled in from the edges of the print, mm (common practice, no source).
-DEFAULT_CHOKE_MM = 0.25
-#: Resolution assumed when the image records none (common practice, no source).
-DEFAULT_DPI = 300.0
-#: Margin around the artwork for registration marks and the label, mm.
-DEFAULT_MARGIN_MM = 10.0
 _MANIFEST_FORMAT = "quantize.separation.plates"
 CAUTION = ("ΔE figures are computed from file data on an assumed sRGB display; they are not a measured "
            "print. Proof physically and follow the print shop's own standards before a production run.")
-
-
-# --------------------------------------------------------------------------- clean-up
 
 
 @dataclass(frozen=True, eq=False)
@@ -88,9 +79,89 @@ class Plate:
     slug: str = ""
 
 
+@dataclass(frozen=True)
+class SeparationSettings:
+    """The settings a separation was made with, as its manifest lists them (``settings``).
+
+    Attributes
+    ----------
+    dpi : float
+        Output resolution (the image's, the caller's, or :data:`DEFAULT_DPI`).
+    min_feature_mm : float
+        Diameter of the smallest printable dot.
+    min_area_px : float
+        Area of that dot in pixels at ``dpi``, rounded to 3 decimals.
+    min_line_mm : float
+        Thinner lines and gaps are reported (0: not looked for).
+    underbase : bool
+        Whether an underbase plate was made.
+    choke_mm : float or None
+        How far the underbase stays inside the print's edges; None without one.
+    order : {"given", "light to dark"}
+        Where the print order came from.
+    palette_fit : dict
+        The palette's own record of how it was made (``Palette.fit``).
+    mapping : str, default="nearest by ΔE00"
+        How pixels were given inks.
+    inks_from : dict or None
+        How the inks were chosen, as :func:`quantize.separation.choice.choose_palette`
+        reports it; None when the caller gave the palette (not listed then).
+    """
+
+    dpi: float
+    min_feature_mm: float
+    min_area_px: float
+    min_line_mm: float
+    underbase: bool
+    choke_mm: float | None
+    order: str
+    palette_fit: dict
+    mapping: str = "nearest by ΔE00"
+    inks_from: dict | None = None
+
+    def to_dict(self) -> dict:
+        """The settings as the manifest lists them."""
+        doc = {"dpi": self.dpi, "min_feature_mm": self.min_feature_mm, "min_area_px": self.min_area_px,
+               "min_line_mm": self.min_line_mm, "underbase": self.underbase, "choke_mm": self.choke_mm,
+               "order": self.order, "mapping": self.mapping, "palette_fit": self.palette_fit}
+        if self.inks_from is not None:
+            doc["inks_from"] = self.inks_from
+        return doc
+
+
 @dataclass(frozen=True, eq=False)
 class Separation:
-    """The result of :func:`separate`: plates and everything the manifest lists."""
+    """The result of :func:`separate`: plates and everything the manifest lists.
+
+    Attributes
+    ----------
+    indices : ndarray of shape (H, W)
+        Palette index of every pixel after the clean-up.
+    palette : Palette
+        The inks and the substrate (named "substrate" when it had no name).
+    substrate : int or None
+        Palette index of the substrate (no plate), or None.
+    plates : tuple of Plate
+        The ink plates in print order.
+    underbase : Plate or None
+    dpi : float
+    alpha : ndarray of shape (H, W) or None
+        The input's alpha channel.
+    source : str
+    cleanup : CleanupReport
+        What merging the regions too small to print changed.
+    thin : list of dict
+        Thin lines and gaps, largest first (at most 200); see
+        :func:`quantize.separation.cleanup.find_thin_features`.
+    thin_summary : dict
+        ``lines``, ``gaps`` (counts over all plates), ``width_px``, ``width_mm``.
+    delta_e : dict
+        ΔE00 statistics of the source pixels against the cleaned image.
+    settings : SeparationSettings
+    notes : tuple of str
+    substrate_coverage : float
+        Percent of the opaque pixels left as substrate (0 without one).
+    """
 
     indices: np.ndarray
     palette: Any
@@ -100,13 +171,13 @@ class Separation:
     dpi: float
     alpha: np.ndarray | None
     source: str
-    cleanup: dict
+    cleanup: CleanupReport
     thin: list
     thin_summary: dict
     delta_e: dict
-    settings: dict
+    settings: SeparationSettings
     notes: tuple = ()
-    extra: dict = field(default_factory=dict)
+    substrate_coverage: float = 0.0
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -121,7 +192,7 @@ class Separation:
         """Percent of the artwork per plate plus the substrate; sums to 100."""
         out = {p.name: p.coverage for p in self.plates}
         if self.substrate is not None:
-            out[_ink_name(self.palette, self.substrate)] = self.extra["substrate_coverage"]
+            out[_ink_name(self.palette, self.substrate)] = self.substrate_coverage
         return out
 
     def composite_indices(self) -> np.ndarray:
@@ -163,16 +234,16 @@ class Separation:
             "size_mm": [round(px_to_mm(w, self.dpi), 3), round(px_to_mm(h, self.dpi), 3)],
             "substrate": None if self.substrate is None else {
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
-                "coverage_percent": round(self.extra["substrate_coverage"], 4)},
+                "coverage_percent": round(self.substrate_coverage, 4)},
             "inks": inks,
             "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
             "plates": [plate_doc(p) for p in self.plates],
             "underbase": plate_doc(self.underbase) if self.underbase else None,
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
-            "cleanup": self.cleanup,
+            "cleanup": self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
-            "settings": self.settings,
+            "settings": self.settings.to_dict(),
             "composite": composite,
             "margin_px": margin_px,
             "notes": list(self.notes),
@@ -417,19 +488,47 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     >>> [(p.name, round(p.coverage, 2)) for p in sep.plates]
     [('ink #c8102e', 25.0)]
     """
-    from quantize.io.read import as_picture, load_image
+    from quantize.core.sampling import sample_picture
     from quantize.render.mapping import map_picture
 
+    _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
+    pic = _picture(image, max_pixels)
+    notes = [f"{pic.source}: {w}" for w in pic.warnings]
+    palette, sub = _with_named_substrate(palette, substrate, notes)
+    dpi = _resolve_dpi(pic, dpi, notes)
+    smp = sample_picture(pic)
+    mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=min_feature_mm, dpi=dpi)
+    n_opaque = int(pic.opaque.sum())
+    plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
+    ub = _underbase_plate(cleaned, pic.opaque, palette, sub, plates, choke_mm=choke_mm, dpi=dpi,
+                          notes=notes) if underbase else None
+    thin, thin_summary = _thin_detail(plates, min_line_mm=min_line_mm, dpi=dpi)
+    settings = SeparationSettings(dpi=dpi, min_feature_mm=min_feature_mm,
+                                  min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
+                                  underbase=underbase, choke_mm=choke_mm if underbase else None,
+                                  order="given" if order is not None else "light to dark",
+                                  palette_fit=palette.fit)
+    sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
+    return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
+                      dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
+                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
+                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov)
+
+
+# --------------------------------------------------------------------------- the steps of separate
+
+
+def _check_sizes(*, dpi, min_feature_mm, min_line_mm, choke_mm) -> None:
     for nm, v in (("min_feature_mm", min_feature_mm), ("min_line_mm", min_line_mm), ("choke_mm", choke_mm)):
         if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
             raise SeparationError(f"{nm} must be a size of 0 mm or more, got {v!r}")
     if dpi is not None and not (math.isfinite(dpi) and dpi > 0):
         raise SeparationError(f"dpi must be positive, got {dpi!r}")
-    if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
-        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
-    else:
-        pic = as_picture(image)
-    notes = [f"{pic.source}: {w}" for w in pic.warnings]
+
+
+def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | None]:
+    """The palette with its substrate locked and named, and the substrate's index (or None)."""
     if substrate is None:
         lk = np.flatnonzero(palette.locked)
         sub = int(lk[0]) if lk.size == 1 else None
@@ -448,22 +547,27 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         names = list(palette.names)
         names[sub] = "substrate"
         palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
-    if dpi is None:
-        if pic.dpi and pic.dpi[0] > 0:
-            dpi = float(pic.dpi[0])
-            if abs(dpi - round(dpi)) < 0.01:  # PNG stores pixels per metre: 300 dpi reads as 299.9994
-                dpi = float(round(dpi))
-        else:
-            dpi = DEFAULT_DPI
-            notes.append(f"the image records no resolution; {DEFAULT_DPI:g} dpi assumed")
-    from quantize.core.sampling import sample_picture
+    return palette, sub
 
-    smp = sample_picture(pic)
-    mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+
+def _resolve_dpi(pic, dpi, notes: list) -> float:
+    if dpi is not None:
+        return dpi
+    if pic.dpi and pic.dpi[0] > 0:
+        dpi = float(pic.dpi[0])
+        if abs(dpi - round(dpi)) < 0.01:  # PNG stores pixels per metre: 300 dpi reads as 299.9994
+            dpi = float(round(dpi))
+        return dpi
+    notes.append(f"the image records no resolution; {DEFAULT_DPI:g} dpi assumed")
+    return DEFAULT_DPI
+
+
+def _clean(pic, smp, mapped, sub, *, min_feature_mm, dpi) -> tuple[np.ndarray, CleanupReport]:
+    """Merge the regions smaller than a dot of ``min_feature_mm``; refuse a clean-up that erases the print."""
     opaque = pic.opaque
     n_opaque = int(opaque.sum())
     idx = mapped.indices
-    ink_lab = palette.lab
+    ink_lab = mapped.palette.lab
     d_px = mm_to_px(min_feature_mm, dpi)
     min_area = math.pi * d_px * d_px / 4.0
     if min_area > n_opaque:
@@ -471,12 +575,18 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                               f"{dpi:g} dpi) is larger than the whole image ({n_opaque} px): it would erase the image")
     printed_before = int((opaque & (idx != sub)).sum()) if sub is not None else n_opaque
     cleaned, report = clean_small_regions(idx, ink_lab, min_area=min_area, opaque=opaque)
-    printed_mask = opaque & (cleaned != sub) if sub is not None else opaque.copy()
-    if printed_before and not printed_mask.any():
+    printed_after = opaque & (cleaned != sub) if sub is not None else opaque
+    if printed_before and not printed_after.any():
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
                               f"{dpi:g} dpi) would erase the image: every printed area is smaller than that")
-    report["min_feature_mm"] = min_feature_mm
-    report["delta_e_source"] = {"before": mapped.delta_e, "after": _source_delta_e(smp, cleaned, ink_lab)}
+    report = replace(report, min_feature_mm=min_feature_mm, delta_e_before=mapped.delta_e,
+                     delta_e_after=_source_delta_e(smp, cleaned, ink_lab))
+    return cleaned, report
+
+
+def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list) -> list[Plate]:
+    """One plate per printed ink, in print order, numbered from ``first``."""
+    n_opaque = int(opaque.sum())
     printed = [i for i in range(palette.k) if i != sub and ((cleaned == i) & opaque).any()]
     unused = [_ink_name(palette, i) for i in range(palette.k) if i != sub and i not in printed]
     if unused:
@@ -489,43 +599,42 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
             raise SeparationError(f"two printed colours are both called {nm!r}; plates are named after "
                                   "inks, so every ink needs its own name")
         seen[nm.casefold()] = nm
-    slugs = _unique_slugs(names)
     plates = []
-    first = 2 if underbase else 1
-    for o, (i, nm, sl) in enumerate(zip(ordered, names, slugs)):
+    for o, (i, nm, sl) in enumerate(zip(ordered, names, _unique_slugs(names), strict=True)):
         m = (cleaned == i) & opaque
         plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
-                            rgb8=palette.rgb8[i], lab=ink_lab[i], slug=sl))
-    sub_cov = float(100.0 * ((cleaned == sub) & opaque).sum() / n_opaque) if sub is not None else 0.0
-    ub = None
-    if underbase:
-        ub_mask = underbase_mask(printed_mask, mm_to_px(choke_mm, dpi))
-        white = np.array([255, 255, 255], np.uint8)
-        ub = Plate(name="underbase", index=None, order=1, mask=ub_mask, coverage=float(100.0 * ub_mask.sum() / n_opaque),
-                   rgb8=white, lab=np.array([100.0, 0, 0]), slug="underbase")
-        if "underbase" in [n.casefold() for n in names]:
-            raise SeparationError("an ink is called 'underbase'; rename it, the underbase plate uses that name")
-        if sub is not None and ink_lab[sub, 0] > 60:
-            notes.append("an underbase on a light substrate is usually not needed")
-    thin, thin_summary = [], {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
-    if min_line_mm > 0:
-        w_px = mm_to_px(min_line_mm, dpi)
-        for p in plates:
-            items, summ = find_thin_features(p.mask, width_px=w_px, dpi=dpi, name=p.name)
-            thin.extend(items)
-            thin_summary["lines"] += summ["lines"]
-            thin_summary["gaps"] += summ["gaps"]
-            thin_summary["width_px"], thin_summary["width_mm"] = summ["width_px"], summ["width_mm"]
-        thin.sort(key=lambda d: -d["pixels"])
-        thin = thin[:200]
-    settings = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_area_px": round(min_area, 3),
-                "min_line_mm": min_line_mm, "underbase": underbase, "choke_mm": choke_mm if underbase else None,
-                "order": "given" if order is not None else "light to dark", "mapping": "nearest by ΔE00",
-                "palette_fit": palette.fit}
-    return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
-                      dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=report, thin=thin,
-                      thin_summary=thin_summary, delta_e=report["delta_e_source"]["after"], settings=settings,
-                      notes=tuple(notes + list(mapped.notes)), extra={"substrate_coverage": sub_cov})
+                            rgb8=palette.rgb8[i], lab=palette.lab[i], slug=sl))
+    return plates
+
+
+def _underbase_plate(cleaned, opaque, palette, sub, plates, *, choke_mm, dpi, notes: list) -> Plate:
+    """The white underbase: every printed pixel, choked by ``choke_mm``, printed first."""
+    printed = opaque & (cleaned != sub) if sub is not None else opaque.copy()
+    ub_mask = underbase_mask(printed, mm_to_px(choke_mm, dpi))
+    ub = Plate(name="underbase", index=None, order=1, mask=ub_mask,
+               coverage=float(100.0 * ub_mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
+               lab=np.array([100.0, 0, 0]), slug="underbase")
+    if "underbase" in [p.name.casefold() for p in plates]:
+        raise SeparationError("an ink is called 'underbase'; rename it, the underbase plate uses that name")
+    if sub is not None and palette.lab[sub, 0] > 60:
+        notes.append("an underbase on a light substrate is usually not needed")
+    return ub
+
+
+def _thin_detail(plates, *, min_line_mm, dpi) -> tuple[list, dict]:
+    """Thin lines and gaps of every plate, largest first (at most 200), and their counts."""
+    thin, summary = [], {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
+    if min_line_mm <= 0:
+        return thin, summary
+    w_px = mm_to_px(min_line_mm, dpi)
+    for p in plates:
+        items, summ = find_thin_features(p.mask, width_px=w_px, dpi=dpi, name=p.name)
+        thin.extend(items)
+        summary["lines"] += summ["lines"]
+        summary["gaps"] += summ["gaps"]
+        summary["width_px"], summary["width_mm"] = summ["width_px"], summ["width_mm"]
+    thin.sort(key=lambda d: -d["pixels"])
+    return thin[:200], summary
 
 
 def _unique_slugs(names: Sequence[str]) -> list[str]:

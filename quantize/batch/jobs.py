@@ -1,0 +1,161 @@
+"""One image's work in a batch, as a worker process or a Dask worker runs it.
+
+A :class:`BatchJob` says everything a worker needs about one image; it holds
+only strings and numbers, so it pickles for process pools and Dask.  Neither
+task raises for a bad image: :func:`process_image` returns the image's
+manifest row with its error text, :func:`sample_image` a
+:class:`SampledImage` with the error.  Split out of :mod:`quantize.batch.run`.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from quantize.errors import OutputError
+
+from .workers import _one_line
+
+__all__ = ["BatchJob", "SampledImage", "process_image", "sample_image"]
+
+
+@dataclass(frozen=True)
+class BatchJob:
+    """One image of a batch and where its outputs go.
+
+    Attributes
+    ----------
+    path : str
+        The input file, absolute.
+    rel : str
+        The input's path relative to the input folder; the manifest's key.
+    output_dir : str
+        The output folder, absolute and resolved: no output may leave it.
+    outputs_rel : tuple of str
+        Outputs relative to ``output_dir``: the reduced image, then (per-image
+        mode) its palette file.
+    replace : bool
+        Existing outputs may be replaced: with ``force``, or because an
+        earlier run of this batch wrote them.
+    k : int or str
+        Palette size, or "MIN-MAX" (per-image fits only).
+    space : str
+        Space the palette is fitted in.
+    seed : int
+    restarts : int
+    max_pixels : int
+        Decompression-bomb limit for reading the input.
+    """
+
+    path: str
+    rel: str
+    output_dir: str
+    outputs_rel: tuple[str, ...]
+    replace: bool
+    k: Any
+    space: str
+    seed: int
+    restarts: int
+    max_pixels: int
+
+    @property
+    def outputs(self) -> tuple[str, ...]:
+        """The outputs as absolute paths, in the order of ``outputs_rel``."""
+        return tuple(str(Path(self.output_dir) / o) for o in self.outputs_rel)
+
+
+@dataclass(frozen=True, eq=False)
+class SampledImage:
+    """One image's colours for the shared fit, or why they could not be read.
+
+    Attributes
+    ----------
+    sample : ColourSample or None
+        Distinct colours, pixel counts, bit depth and opaque pixel count
+        (no per-pixel index: only what pooling needs crosses to the parent).
+    error : str or None
+        One line saying why the image could not be read.
+    """
+
+    sample: Any = None
+    error: str | None = None
+
+
+def _peak_mb() -> float | None:
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on Windows
+        return None
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
+
+
+def _notes(caught) -> list[str]:
+    seen = []
+    for w in caught:
+        m = str(w.message)
+        if m not in seen:
+            seen.append(m)
+    return seen
+
+
+def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
+    """Reduce one image of a batch and return its manifest row (never raises for bad input).
+
+    ``palette_doc`` is the palette as a JSON dict, or None to fit one with
+    the job's settings.
+    """
+    from quantize.fit.engine import fit_palette
+    from quantize.io.read import load_image
+    from quantize.palette import Palette
+
+    t0 = time.perf_counter()
+    row = {"input": job.rel, "status": "failed", "k": None, "delta_e": None, "entries_used": None,
+           "coverage": None, "outputs": [], "error": None}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            pic = load_image(job.path, max_pixels=job.max_pixels)
+            if palette_doc is None:
+                pal = fit_palette(pic, job.k, space=job.space, seed=job.seed, restarts=job.restarts)
+            else:
+                pal = Palette.from_dict(palette_doc, source="batch palette")
+            res = pal.apply(pic)
+            outs = [Path(p) for p in job.outputs]
+            if not outs[0].parent.resolve().is_relative_to(job.output_dir):
+                raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "
+                                  "not written")
+            outs[0].parent.mkdir(parents=True, exist_ok=True)
+            res.save(outs[0], force=job.replace, inputs=[job.path])
+            # Recorded as soon as written, so that a later run knows the file is its own to replace.
+            row["outputs"].append(job.outputs_rel[0])
+            if len(outs) > 1:
+                pal.save(outs[1], force=job.replace)
+                row["outputs"].append(job.outputs_rel[1])
+            row.update(status="ok", k=pal.k, delta_e={s: float(v) for s, v in res.delta_e.items()},
+                       entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
+                       coverage=[round(float(c), 4) for c in res.coverage])
+        except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero
+            row["error"] = _one_line(exc)
+    row["notes"] = _notes(caught)
+    row["seconds"] = round(time.perf_counter() - t0, 4)
+    row["peak_rss_mb"] = _peak_mb()
+    return row
+
+
+def sample_image(job: BatchJob) -> SampledImage:
+    """Distinct colours and pixel counts of one image, for the shared fit (never raises for bad input)."""
+    from quantize.core.sampling import ColourSample, sample_picture
+    from quantize.io.read import load_image
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the mapping pass reports the same notes
+        try:
+            s = sample_picture(load_image(job.path, max_pixels=job.max_pixels))
+        except Exception as exc:  # noqa: BLE001 - recorded as this image's failure
+            return SampledImage(error=_one_line(exc))
+    return SampledImage(ColourSample(codes=s.codes, weights=s.weights, bit_depth=s.bit_depth, n_pixels=s.n_pixels))

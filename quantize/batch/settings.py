@@ -1,0 +1,123 @@
+"""The settings of a batch run: one frozen dataclass, checked when it is made.
+
+Imports nothing heavy at module level, so the command line reads the choices
+and defaults from here for ``--help`` without loading numpy.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from .files import _check_patterns
+
+__all__ = ["BatchSettings", "DEFAULT_K", "DEFAULT_RESTARTS", "DEFAULT_WORST", "FORMATS", "WEIGHTINGS"]
+
+#: Output file types.
+FORMATS = ("png", "tif", "jpg")
+#: How a shared fit counts the images: each equally, or by its pixel count.
+WEIGHTINGS = ("equal", "pixels")
+#: Palette size, or the range the penalised rule chooses from.
+DEFAULT_K = "2-12"
+#: k-means++ restarts per palette size.
+DEFAULT_RESTARTS = 8
+#: Worst-fitting images listed by the one-palette report.
+DEFAULT_WORST = 10
+
+
+@dataclass(frozen=True)
+class BatchSettings:
+    """How to reduce every image of a folder tree (see :func:`quantize.batch.run.run_batch`).
+
+    Every value is checked when the settings are made (also by
+    :func:`dataclasses.replace`), so a run never starts on bad settings.
+
+    Attributes
+    ----------
+    include : tuple of str or None, default=None
+        Glob patterns an image must match (None:
+        :data:`quantize.batch.files.DEFAULT_INCLUDE`).
+    exclude : tuple of str, default=()
+        Glob patterns of files or folders to leave out.
+    palette : path-like or Palette, optional
+        Map every image onto this saved palette instead of fitting.
+    shared : bool, default=False
+        Fit one palette to the whole set and map every image onto it.
+    shared_weighting : {"equal", "pixels"}, default="equal"
+        In the shared fit, each image counts equally or by its pixel count.
+    k : int or str, default="2-12"
+        Palette size N, or "MIN-MAX" for the penalised rule to choose.
+    space : {"lab", "oklab", "cam16ucs"}, default="lab"
+        Space the palettes are fitted in.
+    seed : int, default=0
+    restarts : int, default=8
+        k-means++ restarts per palette size, at least 1.
+    fmt : {"png", "tif", "jpg"}, default="png"
+        Output file type.
+    workers : int or None, default=None
+        Worker processes (None: one per CPU core; 0: in this process).
+    cluster : str or None, default=None
+        Address of a ``dask.distributed`` scheduler to run the images on.
+    force : bool, default=False
+        Redo every image and replace existing files.
+    max_pixels : int or None, default=None
+        Decompression-bomb limit per image (None: the loader's).
+    worst : int, default=10
+        How many worst-fitting images the one-palette report lists.
+
+    Raises
+    ------
+    ValueError
+        A palette and ``shared`` together, an unknown weighting, space or
+        format, ``restarts`` below 1, negative ``workers`` or ``worst``, a
+        bad ``k`` or an empty pattern; the message names the value.
+
+    Examples
+    --------
+    >>> BatchSettings(shared=True, k=8).mode
+    'shared'
+    """
+
+    include: tuple[str, ...] | None = None
+    exclude: tuple[str, ...] = ()
+    palette: Any = None
+    shared: bool = False
+    shared_weighting: str = "equal"
+    k: Any = DEFAULT_K
+    space: str = "lab"
+    seed: int = 0
+    restarts: int = DEFAULT_RESTARTS
+    fmt: str = "png"
+    workers: int | None = None
+    cluster: Any = None
+    force: bool = False
+    max_pixels: int | None = None
+    worst: int = DEFAULT_WORST
+
+    def __post_init__(self):
+        from quantize.colour.spaces import check_space
+        from quantize.fit.engine import parse_k
+
+        if self.shared and self.palette is not None:
+            raise ValueError("give either a palette file or shared=True, not both")
+        if self.shared_weighting not in WEIGHTINGS:
+            raise ValueError(f"shared_weighting must be one of {', '.join(WEIGHTINGS)}, "
+                             f"got {self.shared_weighting!r}")
+        check_space(self.space)
+        if self.restarts < 1:
+            raise ValueError(f"restarts must be at least 1, got {self.restarts}")
+        if self.fmt not in FORMATS:
+            raise ValueError(f"unknown output format {self.fmt!r}; choose one of: {', '.join(FORMATS)}")
+        if self.workers is not None and self.workers < 0:
+            raise ValueError(f"workers must be 0 (in this process) or more, got {self.workers}")
+        if self.worst < 0:
+            raise ValueError(f"worst must be 0 or more, got {self.worst}")
+        parse_k(self.k)
+        include = None if self.include is None or not len(self.include) else _check_patterns(self.include, "include")
+        object.__setattr__(self, "include", include)  # frozen: normalised once, here
+        object.__setattr__(self, "exclude", _check_patterns(self.exclude, "exclude"))
+
+    @property
+    def mode(self) -> str:
+        """``"shared"``, ``"palette"`` (one given palette) or ``"per-image"``."""
+        return "shared" if self.shared else "palette" if self.palette is not None else "per-image"

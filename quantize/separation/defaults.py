@@ -1,0 +1,19 @@
+"""Default sizes of a separation, in one place for the library and the command line.
+
+No imports: ``quantize separate --help`` shows them without loading numpy.
+All are common practice, no source; set them from the shop's screen mesh,
+emulsion and ink.
+"""
+
+__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM"]
+
+#: Smallest printable dot diameter, mm (common practice, no source).
+DEFAULT_MIN_FEATURE_MM = 0.5
+#: Thinnest printable line or knock-out gap, mm; about 1 pt (common practice, no source).
+DEFAULT_MIN_LINE_MM = 0.35
+#: How far the underbase is pulled in from the edges of the print, mm (common practice, no source).
+DEFAULT_CHOKE_MM = 0.25
+#: Resolution assumed when the image records none (common practice, no source).
+DEFAULT_DPI = 300.0
+#: Margin around the artwork for registration marks and the label, mm.
+DEFAULT_MARGIN_MM = 10.0
