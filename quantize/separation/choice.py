@@ -365,8 +365,8 @@ def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, 
         names.append(ink.name)
         snaps.append({"fitted": palette.hex[i], "ink": ink.name, "ink_hex": ink.hex,
                       "delta_e": round(float(d[r, pick[r]]), 3)})
-    fit = dict(palette.fit)
-    fit.update({"inks": library.describe(), "snaps": snaps})
+    snapped = {"inks": library.describe(), "snaps": snaps}
+    fit = palette.fit.with_extra(**snapped) if palette.fit is not None else snapped
     out = Palette(rgb8=np.array(rgb, np.uint8), locked=np.arange(len(rgb)) < lk.size, space=palette.space,
                   names=tuple(names), fit=fit)
     return out, snaps
@@ -464,12 +464,12 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
         lk[sub] = True
         from quantize.palette import Palette
 
-        palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
+        palette = Palette(palette.rgb8, lk, palette.space, palette.names, palette.fit)
         palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
         if isinstance(substrate, str) and library.find(substrate) is not None:
             names = list(palette.names)
             names[0] = library.inks[library.find(substrate)].name
-            palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+            palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
         info.update({"method": f"{method}, snapped to library inks", "snaps": snaps,
                      "library": library.describe(), "colours_snapped": len(others), "substrate": 0})
     return palette, info
@@ -504,7 +504,7 @@ def with_substrate(palette, colour) -> tuple[Any, int]:
         return _lock(palette, int(hit[0])), int(hit[0])
     names = ("substrate",) + tuple(palette.names)
     pal = Palette(rgb8=np.vstack([rgb[None], palette.rgb8]), locked=np.r_[True, palette.locked],
-                  space=palette.space, names=names, fit=dict(palette.fit))
+                  space=palette.space, names=names, fit=palette.fit)
     return pal, 0
 
 
@@ -513,4 +513,4 @@ def _lock(palette, i: int):
 
     lk = palette.locked.copy()
     lk[i] = True
-    return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=dict(palette.fit))
+    return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=palette.fit)

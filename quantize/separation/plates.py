@@ -447,7 +447,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
 
         names = list(palette.names)
         names[sub] = "substrate"
-        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
     if dpi is None:
         if pic.dpi and pic.dpi[0] > 0:
             dpi = float(pic.dpi[0])
@@ -521,7 +521,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     settings = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_area_px": round(min_area, 3),
                 "min_line_mm": min_line_mm, "underbase": underbase, "choke_mm": choke_mm if underbase else None,
                 "order": "given" if order is not None else "light to dark", "mapping": "nearest by ΔE00",
-                "palette_fit": palette.fit}
+                "palette_fit": palette.fit.to_dict() if palette.fit is not None else {}}
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=report, thin=thin,
                       thin_summary=thin_summary, delta_e=report["delta_e_source"]["after"], settings=settings,
