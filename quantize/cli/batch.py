@@ -12,7 +12,7 @@ from pathlib import Path
 
 import click
 
-from ._common import SPACE_NAMES, _check_indexed_size, _Failure, _k_option
+from ._common import DEFAULT_K_TEXT, SPACE_NAMES, _check_indexed_size, _Failure, _k_option
 
 #: Exit code when the run finished but some images failed.
 EXIT_IMAGES_FAILED = 1
@@ -64,7 +64,7 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--shared", is_flag=True, help="Fit one palette to the whole set and map every image onto it.")
 @click.option("--shared-weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="In the shared fit, each image counts equally or by its pixel count.")
-@click.option("-k", "--colours", "colours", default="2-12", show_default=True, callback=_check_k,
+@click.option("-k", "--colours", "colours", default=DEFAULT_K_TEXT, show_default=True, callback=_check_k,
               help="Palette size N, or MIN-MAX to let the rule choose.")
 @click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
               help="Perceptual space the palettes are fitted in.")
