@@ -24,10 +24,9 @@ from typing import Callable, Sequence
 from .settings import DEFAULT_K, FitSettings
 # The result objects and tables live in their own module; their names stay importable here.
 from .sweep_result import Sweep, SweepRow, candidate_rows, format_table
-from .warm import STARTS
 
 __all__ = ["sweep", "sweep_sample", "Sweep", "SweepRow", "parse_sweep_range", "candidate_rows",
-           "format_table", "MAX_SWEEP_K", "STARTS"]
+           "format_table", "MAX_SWEEP_K"]
 
 #: Largest palette size a sweep fits.
 MAX_SWEEP_K = 64
