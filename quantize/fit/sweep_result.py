@@ -18,6 +18,8 @@ import numpy as np
 from quantize.io.write import to_jsonable
 from quantize.palette import FitCandidate
 
+from .settings import FitSettings
+
 __all__ = ["Sweep", "SweepRow", "candidate_rows", "format_table", "SWEEP_FORMAT", "SWEEP_VERSION"]
 
 SWEEP_FORMAT = "quantize.fit.sweep"
@@ -90,7 +92,7 @@ class Sweep:
     rows: list
     choices: dict
     rule: str
-    settings: object
+    settings: FitSettings
     n_pixels: int = 0
     n_distinct: int = 0
     images: tuple = ()
