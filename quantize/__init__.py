@@ -45,6 +45,7 @@ _EXPORTS = {
     "kmeans": "fit.clustering",
     "KMeansResult": "fit.clustering",
     "fit_palette": "fit.engine",
+    "FitSettings": "fit.settings",
     "sweep": "fit.sweep",
     "Sweep": "fit.sweep_result",
     "Palette": "palette",
@@ -92,6 +93,7 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and IDEs only
     from quantize.errors import ImageReadError, OutputError, PaletteFileError, QuantizeError, SeparationError
     from quantize.fit.clustering import KMeansResult, kmeans
     from quantize.fit.engine import fit_palette
+    from quantize.fit.settings import FitSettings
     from quantize.fit.sweep import sweep
     from quantize.fit.sweep_result import Sweep
     from quantize.io.read import as_picture, load_image

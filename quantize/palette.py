@@ -15,7 +15,7 @@ File format (JSON, UTF-8)::
         {"hex": "#1f3a5c", "lab": [24.31, -0.52, -21.77], "locked": false, "name": null},
         ...
       ],
-      "fit": {... settings and results of the fit, free-form ...}
+      "fit": {... settings and results of the fit, see FitRecord ...}
     }
 
 ``hex`` is authoritative; ``lab`` is written for people and other tools and is
@@ -27,15 +27,16 @@ from __future__ import annotations
 
 import json
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from pathlib import Path
+from collections.abc import Mapping
 from typing import Any, Sequence
 
 import numpy as np
 
 from quantize.errors import PaletteFileError
 
-__all__ = ["Palette", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
+__all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
@@ -88,6 +89,178 @@ def parse_colour(spec) -> np.ndarray:
     return np.round(rgb * 255).astype(np.uint8)
 
 
+@dataclass(frozen=True)
+class FitCandidate:
+    """One palette size a fit considered.
+
+    Attributes
+    ----------
+    k : int
+        Palette size.
+    inertia : float
+        k-means cost: pixel-weighted sum of squared distances in the fitting
+        space (its units squared).
+    delta_e : Mapping
+        ΔE00 ``mean``, ``median``, ``p95``, ``max`` of the refined palette.
+    robust_error : float
+        The ``"bic"`` rule's robust error ``R_k`` (ΔE00 squared).
+    score : float
+        Penalised score of the ``"bic"`` rule (lower is better).
+    """
+
+    k: int
+    inertia: float
+    delta_e: Mapping
+    robust_error: float
+    score: float
+
+    def to_dict(self) -> dict[str, Any]:
+        """The row as written in a palette file's ``fit.candidates``."""
+        return {"k": self.k, "inertia": self.inertia, "delta_e": dict(self.delta_e),
+                "robust_error": self.robust_error, "score": self.score}
+
+
+#: The ``fit`` keys every fitted palette's file has had since format version 1.
+_FIT_KEYS = ("k", "rule", "reason", "k_requested", "space", "restarts", "seed", "init", "weighting", "metric",
+             "refine", "target", "target_stat", "images", "n_pixels", "n_distinct", "inertia", "refined",
+             "delta_e", "candidates", "notes")
+#: Record fields that hold sequences (lists in the file, tuples in the record).
+_RECORD_LISTS = ("images", "notes", "locked", "candidates", "k_requested")
+
+
+@dataclass(frozen=True)
+class FitRecord:
+    """How a palette was fitted: the settings, what the fit saw, and why it has k colours.
+
+    Written as the ``"fit"`` object of the palette file with one key per
+    field (``extra`` merged in).  Every field is optional, so files written
+    by hand or by older versions load; a field missing from the file is None
+    (``Palette.fit`` itself is None for a palette that was not fitted).
+
+    Attributes
+    ----------
+    k : int
+        Palette size chosen.
+    rule : str
+        ``"bic"``, ``"target"``, or ``"fixed"`` when one size was asked for.
+    reason : str
+        Why the palette has ``k`` colours, for people.
+    k_requested : int or tuple of (int, int)
+        The size, or the inclusive range, asked for.
+    space, restarts, seed, init, weighting, metric, refine, target, target_stat, warm
+        The settings (see :class:`quantize.fit.settings.FitSettings`);
+        ``seed`` is the integer actually used, also when a Generator was given.
+    locked : tuple of str
+        The locked colours, ``#rrggbb`` (not in files written before it was
+        recorded: there the palette's locked colours say it).
+    images : tuple of str, or int
+        The sources pooled; a batch's shared palette records their number.
+    n_pixels, n_distinct : int
+        Pixels and distinct colours the fit saw.
+    inertia : float
+        k-means cost of the chosen size (before refinement).
+    refined : str
+        The refinements kept: ``"none"``, ``"robust"``, ``"median"`` or
+        ``"robust+median"``.
+    delta_e : Mapping
+        ΔE00 statistics of the chosen palette over the distinct colours.
+    candidates : tuple of FitCandidate
+        Every size considered, ascending.
+    notes : tuple of str
+        What the user should know (few colours, merged colours, image warnings).
+    extra : Mapping
+        Other keys of the file's ``fit`` object, kept as read (e.g. what a
+        separation adds: the ink library, the snapped colours).
+    """
+
+    k: int | None = None
+    rule: str | None = None
+    reason: str | None = None
+    k_requested: Any = None
+    space: str | None = None
+    restarts: int | None = None
+    seed: int | None = None
+    init: str | None = None
+    weighting: str | None = None
+    metric: str | None = None
+    refine: str | None = None
+    target: float | None = None
+    target_stat: str | None = None
+    warm: bool | None = None
+    locked: tuple | None = None
+    images: Any = None
+    n_pixels: int | None = None
+    n_distinct: int | None = None
+    inertia: float | None = None
+    refined: str | None = None
+    delta_e: Mapping | None = None
+    candidates: tuple | None = None
+    notes: tuple | None = None
+    extra: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        for name in _RECORD_LISTS:
+            v = getattr(self, name)
+            if isinstance(v, list):
+                object.__setattr__(self, name, tuple(v))
+        if self.candidates is not None:
+            object.__setattr__(self, "candidates", tuple(
+                c if isinstance(c, FitCandidate) else _candidate(c, i) for i, c in enumerate(self.candidates)))
+        if self.delta_e is not None:
+            object.__setattr__(self, "delta_e", dict(self.delta_e))
+        object.__setattr__(self, "extra", dict(self.extra))
+
+    def with_extra(self, **extra) -> "FitRecord":
+        """A copy with ``extra`` entries added (later stages record what they did to the palette)."""
+        from dataclasses import replace
+
+        return replace(self, extra={**self.extra, **extra})
+
+    def to_dict(self) -> dict[str, Any]:
+        """The ``fit`` object of the palette file: every field that is set, then ``extra``."""
+        out: dict[str, Any] = {}
+        for f in fields(self):
+            v = getattr(self, f.name)
+            # The keys a fit has always written are written, null or not, so files keep their shape.
+            if f.name == "extra" or (v is None and (self.candidates is None or f.name not in _FIT_KEYS)):
+                continue
+            if f.name == "candidates":
+                v = [c.to_dict() for c in v]
+            elif isinstance(v, tuple):
+                v = list(v)
+            elif isinstance(v, Mapping):
+                v = dict(v)
+            out[f.name] = v
+        out.update(self.extra)
+        return out
+
+    @classmethod
+    def from_dict(cls, doc: Mapping, *, source: str = "<palette>") -> "FitRecord":
+        """A record from a palette file's ``fit`` object; unknown keys go to ``extra``.
+
+        Raises
+        ------
+        PaletteFileError
+            A candidate row that is not an object with ``k`` and ``delta_e``.
+        """
+        names = {f.name for f in fields(cls)} - {"extra"}
+        known = {k: v for k, v in doc.items() if k in names}
+        cands = known.get("candidates")
+        if cands is not None and not isinstance(cands, list):
+            raise PaletteFileError(f"{source}: fit.candidates: expected a list")
+        for i, c in enumerate(cands or ()):
+            if not isinstance(c, dict) or "k" not in c or "delta_e" not in c:
+                raise PaletteFileError(f"{source}: fit.candidates[{i}]: expected an object with k and delta_e")
+        return cls(**known, extra={k: v for k, v in doc.items() if k not in names})
+
+
+def _candidate(c: Mapping, i: int) -> FitCandidate:
+    if not isinstance(c, Mapping):
+        raise ValueError(f"fit candidate {i}: expected a FitCandidate or a mapping, got {c!r}")
+    return FitCandidate(k=c.get("k"), inertia=c.get("inertia"), delta_e=c.get("delta_e"),
+                        robust_error=c.get("robust_error"), score=c.get("score"))
+
+
 @dataclass(frozen=True, eq=False)
 class Palette:
     """A fixed set of colours to reduce images to.
@@ -102,15 +275,17 @@ class Palette:
         Perceptual space of the fit and of nearest-colour mapping.
     names : tuple of str or None
         Optional names (inks); None entries are unnamed.
-    fit : dict
-        Settings and results of the fit (k rule, scores, k-means cost...).
+    fit : FitRecord or None
+        How the palette was fitted (settings, seed, candidates, why k);
+        None for a palette that was not fitted.  A dict is read as the
+        ``fit`` object of a palette file (:meth:`FitRecord.from_dict`).
     """
 
     rgb8: np.ndarray
     locked: np.ndarray
     space: str = "lab"
     names: tuple = ()
-    fit: dict = field(default_factory=dict)
+    fit: FitRecord | None = None
 
     def __post_init__(self):
         rgb = np.asarray(self.rgb8)
@@ -125,6 +300,13 @@ class Palette:
         if len(names) != len(rgb):
             raise ValueError(f"{len(names)} names for {len(rgb)} colours")
         object.__setattr__(self, "names", names)
+        from quantize.colour.spaces import check_space
+
+        object.__setattr__(self, "space", check_space(self.space))
+        if isinstance(self.fit, Mapping):
+            object.__setattr__(self, "fit", FitRecord.from_dict(self.fit) if self.fit else None)
+        elif self.fit is not None and not isinstance(self.fit, FitRecord):
+            raise ValueError(f"fit must be a FitRecord or None, got {type(self.fit).__name__}")
 
     def __len__(self) -> int:
         return int(self.rgb8.shape[0])
@@ -199,7 +381,7 @@ class Palette:
                 }
                 for i, h in enumerate(self.hex)
             ],
-            "fit": to_jsonable(self.fit),
+            "fit": to_jsonable(self.fit.to_dict()) if self.fit is not None else {},
         }
 
     def save(self, path, *, force: bool = False) -> Path:
@@ -304,7 +486,8 @@ class Palette:
         fit = doc.get("fit", {})
         if not isinstance(fit, dict):
             bad("fit", "expected an object")
-        return cls(rgb8=rgb8, locked=np.array(locked), space=space, names=tuple(names), fit=fit)
+        record = FitRecord.from_dict(fit, source=source) if fit else None
+        return cls(rgb8=rgb8, locked=np.array(locked), space=space, names=tuple(names), fit=record)
 
 
 def _finite(v) -> bool:

@@ -4,6 +4,7 @@ import importlib
 import os
 import pkgutil
 from pathlib import Path
+import dataclasses
 import inspect
 
 import pytest
@@ -28,10 +29,20 @@ def test_documented_signatures():
     for kw in ("weights", "restarts", "seed", "fixed"):
         assert sig.parameters[kw].kind is inspect.Parameter.KEYWORD_ONLY
     assert sig.parameters["restarts"].default == 8 and sig.parameters["seed"].default == 0
-    fp = inspect.signature(quantize.fit_palette)
-    assert fp.parameters["k"].default == 16
-    for kw in ("space", "restarts", "seed", "locked", "rule", "target"):
-        assert fp.parameters[kw].kind is inspect.Parameter.KEYWORD_ONLY
+    # One default palette-size range for the library and every command.
+    from quantize.cli._common import DEFAULT_K_TEXT
+    from quantize.fit.settings import DEFAULT_K
+
+    assert DEFAULT_K == (2, 12) and DEFAULT_K_TEXT == "2-12"
+    for fn in (quantize.fit_palette, quantize.sweep):
+        sig = inspect.signature(fn)
+        assert list(sig.parameters.values())[1].default == DEFAULT_K
+        # The fit options are fields of one settings object, passed whole or by keyword.
+        assert sig.parameters["settings"].kind is inspect.Parameter.KEYWORD_ONLY
+        assert sig.parameters["options"].kind is inspect.Parameter.VAR_KEYWORD
+        assert len(sig.parameters) <= 10
+    fields = {f.name for f in dataclasses.fields(quantize.FitSettings)}
+    assert {"space", "restarts", "seed", "locked", "rule", "target", "init", "metric", "refine"} <= fields
     assert inspect.signature(quantize.Palette.apply).parameters["dither"].default == "none"
     assert callable(quantize.Palette.save) and callable(quantize.Palette.load)
 

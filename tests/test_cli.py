@@ -293,3 +293,40 @@ def test_target_stat_p95_and_pixel_limit(art, tmp_path):
     r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "b.png"), "--max-pixels", "1000"])
     assert r.exit_code == 1 and "art.png" in r.output and "Traceback" not in r.output
     assert not (tmp_path / "b.png").exists()
+
+
+@pytest.mark.parametrize("args, settings, code", [
+    (["--restarts", "0"], dict(restarts=0), 2),
+    (["--seed", "-1"], dict(seed=-1), 1),
+    (["--lock", "purple"], dict(locked=["purple"]), 1),
+    (["--lock", "#000000", "--lock", "000000"], dict(locked=["#000000", "000000"]), 1),
+])
+@pytest.mark.parametrize("command", ["reduce", "fit", "sweep"])
+def test_fit_settings_errors_carry_the_library_message(art, tmp_path, args, settings, code, command):
+    # The commands validate through FitSettings, so each error reads as the library's, on one line.
+    from quantize import FitSettings
+
+    with pytest.raises(ValueError) as exc:
+        FitSettings(**settings)
+    out = ["-o", str(tmp_path / "o.png")] if command == "reduce" else (
+        ["-o", str(tmp_path / "p.json")] if command == "fit" else [])
+    r = CliRunner().invoke(main, [command, str(art), *out, "-k", "3", *args])
+    assert r.exit_code == code, r.output
+    lines = [line for line in r.output.splitlines() if str(exc.value) in line]
+    assert len(lines) == 1 and "Traceback" not in r.output
+    assert not list(tmp_path.glob("o.png")) and not list(tmp_path.glob("p.json"))
+
+
+def test_every_command_defaults_to_the_library_size_range(art, tmp_path):
+    from quantize.fit.settings import DEFAULT_K
+
+    for command, extra in (("reduce", ["-o", tmp_path / "o.png"]), ("fit", ["-o", tmp_path / "p.json"]),
+                           ("sweep", [])):
+        r = run(command, art, *extra, "--json")
+        assert r.exit_code == 0, r.output
+        s = json.loads(r.stdout)
+        if command == "sweep":
+            assert s["k_range"] == list(DEFAULT_K)
+        else:
+            assert s["k"] <= DEFAULT_K[1]
+    assert Palette.load(tmp_path / "p.json").fit.k_requested == DEFAULT_K

@@ -52,7 +52,7 @@ def test_locked_colour_is_kept_exactly():
     pal = fit_palette(rgb, k=5, locked=["#123456", "50,20,-10"])
     assert pal.hex[0] == "#123456"
     assert pal.locked.tolist()[:2] == [True, True] and not pal.locked[2:].any()
-    assert pal.fit["k"] == 5
+    assert pal.fit.k == 5
 
 
 def test_fewer_distinct_colours_than_k_says_so():
@@ -61,7 +61,7 @@ def test_fewer_distinct_colours_than_k_says_so():
         pal = fit_palette(img, k=8)
     assert pal.k == 3
     assert len({tuple(c) for c in pal.rgb8}) == 3
-    assert "only 3" in pal.fit["reason"]
+    assert "only 3" in pal.fit.reason
 
 
 def test_transparent_pixels_take_no_part():
@@ -147,8 +147,8 @@ def test_refinement_never_raises_mean_delta_e_and_kmeans_cost_is_reported():
     plain = fit_palette(img, k=6, refine="none")
     best = fit_palette(img, k=6)
     assert best.apply(img).delta_e["mean"] <= plain.apply(img).delta_e["mean"] + 1e-12
-    assert best.fit["inertia"] == pytest.approx(plain.fit["inertia"])
-    assert plain.fit["refined"] == "none"
+    assert best.fit.inertia == pytest.approx(plain.fit.inertia)
+    assert plain.fit.refined == "none"
 
 
 def test_starts_from_other_restarts_only_lower_the_mean_delta_e():
@@ -193,3 +193,89 @@ def test_median_polish_lowers_mean_distance():
     end = median_polish(pts, w, start)
     cost = lambda c: float((w * np.sqrt(assign_nearest(pts, c)[1])).sum())
     assert cost(end) < cost(start)
+
+
+# -- one settings object ------------------------------------------------------------
+
+BAD_SETTINGS = [
+    (dict(restarts=2.5), "restarts must be a whole number of at least 1, got 2.5"),
+    (dict(restarts=True), "restarts must be a whole number of at least 1, got True"),
+    (dict(restarts=0), "restarts must be a whole number of at least 1, got 0"),
+    (dict(space="bogus"), "unknown colour space 'bogus'"),
+    (dict(rule="target"), "the target rule needs a positive ΔE00 target, got None"),
+    (dict(target=-1.0), "a ΔE00 target must be a positive number, got -1.0"),
+    (dict(locked=["not a colour"]), "colour 'not a colour' is neither sRGB hex"),
+    (dict(seed=-3), "seed must be a whole number of at least 0 or a numpy Generator, got -3"),
+    (dict(seed=1.5), "seed must be a whole number"),
+    (dict(init="best"), "unknown seeding 'best'"),
+    (dict(weighting="area"), "unknown weighting 'area'"),
+    (dict(refine="more"), "unknown refinement 'more'"),
+]
+
+
+@pytest.mark.parametrize("kw, msg", BAD_SETTINGS)
+def test_settings_are_validated_once_with_the_same_message_everywhere(kw, msg):
+    from quantize import FitSettings, sweep
+
+    img = stripes(INKS[:3])
+    for call in (lambda: FitSettings(**kw), lambda: fit_palette(img, 3, **kw), lambda: sweep(img, (2, 3), **kw)):
+        with pytest.raises(ValueError) as exc:
+            call()
+        assert str(exc.value).startswith(msg)
+
+
+def test_unknown_options_are_refused_by_name():
+    with pytest.raises(TypeError, match="unknown fit option 'restart'"):
+        fit_palette(stripes(INKS[:2]), 2, restart=3)
+
+
+def test_settings_object_and_keyword_options_give_the_same_palette():
+    from quantize import FitSettings
+
+    rgb, _ = flat_artwork(5, seed=7, jpeg_quality=85)
+    a = fit_palette(rgb, 5, space="oklab", seed=3, restarts=2)
+    b = fit_palette(rgb, 5, settings=FitSettings(space="oklab", seed=3, restarts=2))
+    c = fit_palette(rgb, 5, settings=FitSettings(space="oklab", seed=9, restarts=2), seed=3)
+    assert a.rgb8.tobytes() == b.rgb8.tobytes() == c.rgb8.tobytes()
+
+
+# -- randomness -----------------------------------------------------------------------
+
+def _photo():
+    from skimage import data
+
+    return np.ascontiguousarray(data.astronaut()[::8, ::8])
+
+
+def test_a_size_of_a_range_equals_that_size_fitted_alone_for_an_integer_seed():
+    img = _photo()
+    in_range = fit_palette(img, (4, 8), seed=11, rule="target", target=0.01)  # the target takes k = 8
+    assert in_range.k == 8
+    alone = fit_palette(img, 8, seed=11)
+    assert in_range.rgb8.tobytes() == alone.rgb8.tobytes()
+    from quantize import sweep
+
+    assert sweep(img, (4, 8), seed=11).row(6).palette.rgb8.tobytes() == fit_palette(img, 6, seed=11).rgb8.tobytes()
+
+
+def test_a_size_of_a_range_equals_that_size_fitted_alone_for_a_generator_seed():
+    from quantize import sweep
+
+    img = _photo()
+    # Two Generators in the same state give the same integer, hence the same streams.
+    ranged = sweep(img, (4, 8), seed=np.random.default_rng(2024))
+    alone = fit_palette(img, 6, seed=np.random.default_rng(2024))
+    assert ranged.row(6).palette.rgb8.tobytes() == alone.rgb8.tobytes()
+    assert ranged.settings.seed == alone.fit.seed and isinstance(alone.fit.seed, int)
+
+
+def test_the_seed_recorded_in_the_file_refits_the_same_palette(tmp_path):
+    from quantize import FitSettings, Palette
+
+    img = _photo()
+    pal = fit_palette(img, (3, 5), seed=np.random.default_rng(7), space="oklab", locked=["#ffffff"])
+    back = Palette.load(pal.save(tmp_path / "p.json"))
+    assert back.fit.seed == pal.fit.seed and back.fit.locked == ("#ffffff",)
+    again = fit_palette(img, back.fit.k_requested, settings=FitSettings.from_record(back.fit))
+    assert again.rgb8.tobytes() == pal.rgb8.tobytes()
+    assert again.fit.to_dict() == pal.fit.to_dict()

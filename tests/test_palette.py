@@ -41,7 +41,7 @@ def test_json_round_trip(tmp_path):
     np.testing.assert_array_equal(back.rgb8, pal.rgb8)
     np.testing.assert_array_equal(back.locked, pal.locked)
     assert back.names == pal.names and back.space == "lab"
-    assert back.fit["scores"] == [1.5, 2.5]
+    assert back.fit.extra["scores"] == [1.5, 2.5]
 
 
 def test_save_refuses_existing_without_force(tmp_path):
@@ -116,3 +116,70 @@ def test_fit_palette_takes_a_bare_locked_colour_and_checks_it_before_reading(tmp
     # A bad lock fails before the (missing) image is opened.
     with pytest.raises(ValueError, match="neither sRGB hex"):
         fit_palette(tmp_path / "missing.png", 3, locked="not a colour")
+
+
+# -- the fit record --------------------------------------------------------------
+
+def _old_format_doc():
+    """A palette file as the previous release wrote it (its ``fit`` keys and value types, by hand)."""
+    cand = {"k": 2, "inertia": 10.5, "delta_e": {"mean": 3.0, "median": 2.5, "p95": 7.0, "max": 9.0},
+            "robust_error": 8.0, "score": 400.0}
+    return {
+        "format": "quantize.palette", "version": 1, "space": "lab",
+        "colours": [{"hex": "#f4efe1", "lab": None, "locked": False, "name": None},
+                    {"hex": "#c8102e", "locked": False, "name": None}],
+        "fit": {"k": 2, "rule": "bic", "reason": "penalised score 400.0, the lowest over k = 2..3",
+                "k_requested": [2, 3], "space": "lab", "restarts": 8, "seed": None, "init": "k-means++",
+                "weighting": "equal", "metric": "ciede2000", "refine": "robust", "target": None,
+                "target_stat": "mean", "images": ["poster.png"], "n_pixels": 100, "n_distinct": 40,
+                "inertia": 10.5, "refined": "robust", "delta_e": cand["delta_e"],
+                "candidates": [cand, dict(cand, k=3, score=410.0)], "notes": []},
+    }
+
+
+def test_a_file_written_by_the_previous_release_loads_and_writes_back_its_keys(tmp_path):
+    doc = _old_format_doc()
+    p = tmp_path / "old.json"
+    p.write_text(json.dumps(doc))
+    pal = Palette.load(p)
+    fit = pal.fit
+    assert fit.k == 2 and fit.rule == "bic" and fit.k_requested == (2, 3) and fit.seed is None
+    assert [c.k for c in fit.candidates] == [2, 3] and fit.candidates[1].score == 410.0
+    assert fit.images == ("poster.png",) and fit.notes == () and fit.extra == {}
+    # Written back, the fit object has the same keys and values as the file.
+    assert pal.to_dict()["fit"] == doc["fit"]
+
+
+def test_unfitted_palettes_have_no_record_and_write_an_empty_fit(tmp_path):
+    pal = Palette(np.array([[1, 2, 3]], np.uint8), None)
+    assert pal.fit is None and pal.to_dict()["fit"] == {}
+    doc = _old_format_doc()
+    del doc["fit"]
+    p = tmp_path / "hand.json"
+    p.write_text(json.dumps(doc))
+    assert Palette.load(p).fit is None
+
+
+def test_a_record_cannot_be_changed_after_construction():
+    import dataclasses
+
+    from quantize.palette import FitRecord
+
+    rec = FitRecord(k=3, notes=["a"])
+    assert rec.notes == ("a",)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        rec.k = 4
+
+
+def test_bad_candidate_rows_are_refused_with_the_place(tmp_path):
+    doc = _old_format_doc()
+    doc["fit"]["candidates"] = [{"k": 2}]
+    p = tmp_path / "bad.json"
+    p.write_text(json.dumps(doc))
+    with pytest.raises(PaletteFileError, match=r"fit.candidates\[0\]"):
+        Palette.load(p)
+
+
+def test_unknown_space_is_refused():
+    with pytest.raises(ValueError, match="unknown colour space 'bogus'"):
+        Palette(np.array([[1, 2, 3]], np.uint8), None, space="bogus")

@@ -236,7 +236,7 @@ def test_report_of_a_fit_over_a_range_lists_the_candidates(art, tmp_path):
     text = page.read_text(encoding="utf-8")
     assert "Palette sizes considered" in text and text.count('<tr class="chosen">') == 1
     assert text.count('<td class="l">locked</td>') == 1
-    assert pal.fit["reason"].split(";")[0] in text
+    assert pal.fit.reason.split(";")[0] in text
 
 
 def test_report_of_several_images_and_downscaled_display(tmp_path):

@@ -19,7 +19,7 @@ from quantize.fit.selection import bic_scores, check_rule, choose_k
 def test_default_rule_finds_the_ink_count(n_inks, jpeg):
     rgb, _ = flat_artwork(n_inks, seed=100 + n_inks, jpeg_quality=jpeg)
     pal = fit_palette(rgb, k=(2, 12), seed=0)
-    assert pal.k == n_inks, pal.fit["reason"]
+    assert pal.k == n_inks, pal.fit.reason
 
 
 @pytest.mark.parametrize("n_inks", [4, 7])
@@ -32,7 +32,7 @@ def test_rule_holds_for_other_artwork_seeds(n_inks):
 def test_target_rule_takes_smallest_k_meeting_target():
     rgb, _ = flat_artwork(6, seed=3, jpeg_quality=85)
     pal = fit_palette(rgb, k=(2, 12), rule="target", target=2.0, target_stat="mean")
-    cands = {c["k"]: c["delta_e"]["mean"] for c in pal.fit["candidates"]}
+    cands = {c.k: c.delta_e["mean"] for c in pal.fit.candidates}
     assert cands[pal.k] <= 2.0
     assert all(cands[k] > 2.0 for k in cands if k < pal.k)
 
@@ -40,7 +40,7 @@ def test_target_rule_takes_smallest_k_meeting_target():
 def test_target_rule_unreachable_takes_largest_and_says_so():
     rgb, _ = flat_artwork(6, seed=3, jpeg_quality=85)
     pal = fit_palette(rgb, k=(2, 4), rule="target", target=0.01)
-    assert pal.k == 4 and "no k" in pal.fit["reason"]
+    assert pal.k == 4 and "no k" in pal.fit.reason
 
 
 def test_penalty_grows_with_k_at_equal_error():

@@ -50,9 +50,10 @@ def photo_sweep(photo):
 @settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(seed=st.integers(0, 2**16), n_blobs=st.integers(1, 7), restarts=st.integers(1, 2),
        top=st.integers(3, 8))
-def test_best_cost_never_rises_with_k(seed, n_blobs, restarts, top):
+def test_warm_best_cost_never_rises_with_k(seed, n_blobs, restarts, top):
     # The refinement after each fit does not change the k-means cost: leave it out for speed.
-    s = sweep(_blob_image(seed, n_blobs, size=24), (1, top), restarts=restarts, seed=seed, refine="none")
+    # Warm starts (an explicit setting) make the best cost non-increasing in k.
+    s = sweep(_blob_image(seed, n_blobs, size=24), (1, top), restarts=restarts, seed=seed, refine="none", warm=True)
     costs = np.array([r.cost for r in s.rows])
     assert s.ks == list(range(1, top + 1))
     assert np.all(np.diff(costs) <= 0), costs
@@ -105,17 +106,30 @@ def test_scores_and_picks_follow_the_selection_rules(photo_sweep):
     assert photo_sweep.chosen.k == photo_sweep.choices["bic"].k
 
 
-def test_cold_sweep_equals_fit_palette_candidates(photo):
-    # Without warm starts the sweep's restarts are those of fit_palette.
-    cold = sweep(photo, (3, 6), restarts=2, seed=4, warm=False)
+def test_sweep_rows_are_the_palettes_fit_palette_gives(photo):
+    # One engine: with the same settings (no warm starts, the default) the
+    # sweep's row of size k is fit_palette's palette at k, bit for bit, and
+    # its candidates carry the same figures.
+    cold = sweep(photo, (3, 6), restarts=2, seed=4)
     pal = fit_palette(photo, (3, 6), restarts=2, seed=4)
-    for c in pal.fit["candidates"]:
-        row = cold.row(c["k"])
-        assert row.cost == pytest.approx(c["inertia"], rel=1e-12)
-        assert row.delta_e == pytest.approx(c["delta_e"], rel=1e-12)
-        assert row.score == pytest.approx(c["score"], rel=1e-12)
+    for c in pal.fit.candidates:
+        row = cold.row(c.k)
+        assert row.cost == c.inertia
+        assert row.delta_e == c.delta_e
+        assert row.score == pytest.approx(c.score, rel=1e-12)
     assert cold.chosen.k == pal.k
+    assert cold.chosen.palette.rgb8.tobytes() == pal.rgb8.tobytes()
+    alone = fit_palette(photo, 5, restarts=2, seed=4)
+    assert cold.row(5).palette.rgb8.tobytes() == alone.rgb8.tobytes()
     assert {r.start for r in cold.rows} == {"fresh"}
+    assert cold.settings.warm is False and pal.fit.warm is False
+
+
+def test_warm_starts_are_an_explicit_setting(photo):
+    warm = sweep(photo, (2, 6), restarts=1, seed=4, warm=True)
+    assert warm.settings.warm and warm.to_dict()["settings"]["warm"] is True
+    costs = [r.cost for r in warm.rows]
+    assert all(b <= a for a, b in zip(costs, costs[1:])), costs
 
 
 def test_sweep_finds_the_ink_count_of_flat_artwork():
@@ -130,7 +144,7 @@ def test_sweep_finds_the_ink_count_of_flat_artwork():
 def test_several_images_pool_with_per_image_columns():
     a, b = _blob_image(1, 3), _blob_image(2, 4, size=32)
     s = sweep([a, b], (2, 5), restarts=2, weighting="pixels")
-    assert s.settings["images"] == ["<array>", "<array>#2"]
+    assert s.images == ("<array>", "<array>#2")
     for r in s.rows:
         alone_a = r.palette.apply(a).delta_e
         alone_b = r.palette.apply(b).delta_e
@@ -167,11 +181,11 @@ def test_csv_and_json_tables_round_trip(photo_sweep, tmp_path):
 
 def test_table_formats_fit_candidates_the_same_way(photo):
     pal = fit_palette(photo, (2, 5), restarts=2)
-    text = format_table(pal.fit["candidates"], chosen=pal.k)
+    text = format_table(pal.fit.candidates, chosen=pal.k)
     lines = text.splitlines()
     assert len(lines) == 1 + 4
     assert [ln.split()[1] for ln in lines if ln.startswith(">")] == [str(pal.k)]
-    assert candidate_rows(pal.fit["candidates"])[0]["k"] == 2
+    assert candidate_rows(pal.fit.candidates)[0]["k"] == 2
     with pytest.raises(ValueError, match="not a sweep row"):
         format_table([{"score": 1}])
 

@@ -140,16 +140,20 @@ class _Pool:
 
 def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
     """One palette for the pooled sample, by :func:`quantize.fit.engine.fit_palette`."""
+    import dataclasses
     import warnings
 
     from quantize.fit.clustering import PaletteSizeWarning
     from quantize.fit.engine import fit_palette
+    from quantize.fit.settings import FitSettings
+    from quantize.palette import Palette
 
+    settings = FitSettings(space=space, seed=seed, restarts=restarts, weighting=weighting)
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", PaletteSizeWarning)  # recorded in fit["notes"]
-        pal = fit_palette(sample, k=k, space=space, seed=seed, restarts=restarts, weighting=weighting)
-    pal.fit["images"] = n_images
-    return pal
+        warnings.simplefilter("ignore", PaletteSizeWarning)  # recorded in the fit's notes
+        pal = fit_palette(sample, k, settings=settings)
+    # The pooled sample has no sources of its own: the record counts the images instead.
+    return Palette(pal.rgb8, pal.locked, pal.space, pal.names, dataclasses.replace(pal.fit, images=n_images))
 
 
 # --------------------------------------------------------------------------- the run
@@ -473,7 +477,7 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
         try:
             pal = Palette.load(path)
             doc["shared"]["reused"] = True
-            doc["shared"]["fit"] = pal.fit
+            doc["shared"]["fit"] = pal.fit.to_dict() if pal.fit is not None else {}
             for rel, err in prev_shared.get("sampling_failed", []):
                 rows[rel] = {"input": rel, "status": "failed", "outputs": [], "error": err}
             doc["shared"]["sampling_failed"] = prev_shared.get("sampling_failed", [])
@@ -499,6 +503,6 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
                           restarts=settings["restarts"], weighting=settings["weighting"],
                           n_images=len(pool.pixels))
     pal.save(path, force=force or prev_shared.get("palette_file") == SHARED_PALETTE)
-    doc["shared"]["fit"] = pal.fit
-    notes.extend(f"shared palette: {n}" for n in pal.fit["notes"])
+    doc["shared"]["fit"] = pal.fit.to_dict()
+    notes.extend(f"shared palette: {n}" for n in pal.fit.notes)
     return pal, len(jobs)

@@ -9,16 +9,17 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from quantize.fit.settings import DEFAULT_K as _FIT_DEFAULT_K
+from quantize.fit.settings import WEIGHTINGS
+
 from .files import _check_patterns
 
 __all__ = ["BatchSettings", "DEFAULT_K", "DEFAULT_RESTARTS", "DEFAULT_WORST", "FORMATS", "WEIGHTINGS"]
 
 #: Output file types.
 FORMATS = ("png", "tif", "jpg")
-#: How a shared fit counts the images: each equally, or by its pixel count.
-WEIGHTINGS = ("equal", "pixels")
-#: Palette size, or the range the penalised rule chooses from.
-DEFAULT_K = "2-12"
+#: Palette size, or the range the penalised rule chooses from: the library's one default range.
+DEFAULT_K = f"{_FIT_DEFAULT_K[0]}-{_FIT_DEFAULT_K[1]}"
 #: k-means++ restarts per palette size.
 DEFAULT_RESTARTS = 8
 #: Worst-fitting images listed by the one-palette report.

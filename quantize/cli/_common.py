@@ -12,8 +12,12 @@ from pathlib import Path
 
 import click
 
+from quantize.fit.settings import DEFAULT_K
+
 SPACE_NAMES = ("lab", "oklab", "cam16ucs")
 SEEDINGS = ("k-means++", "random", "farthest")
+#: The -k default of every command, from the library's one default range.
+DEFAULT_K_TEXT = f"{DEFAULT_K[0]}-{DEFAULT_K[1]}"
 
 
 class _Failure(click.ClickException):
@@ -54,10 +58,21 @@ def _k_option(value: str) -> str:
     return from_
 
 
+def _restarts_option(ctx, param, value):
+    """--restarts checked by the library's own validator: the same message as ``fit_palette``."""
+    from quantize.fit.settings import FitSettings
+
+    try:
+        return FitSettings(restarts=value).restarts
+    except ValueError as exc:
+        raise click.BadParameter(str(exc)) from None
+
+
 def _fit_options(f):
     """Options shared by every command that fits a palette."""
     opts = [
-        click.option("-k", "--colours", "colours", default="2-12", show_default=True, callback=lambda c, p, v: _k_option(v),
+        click.option("-k", "--colours", "colours", default=DEFAULT_K_TEXT, show_default=True,
+                     callback=lambda c, p, v: _k_option(v),
                      help="Palette size N, or MIN-MAX to let the rule choose."),
         click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
                      help="Perceptual space the palette is fitted in."),
@@ -70,8 +85,8 @@ def _fit_options(f):
         click.option("--lock", "locked", multiple=True, metavar="COLOUR",
                      help="Hold a colour fixed (substrate, brand colour): #rrggbb or L,a,b. Repeatable."),
         click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palette."),
-        click.option("--restarts", type=click.IntRange(min=1), default=8, show_default=True,
-                     help="k-means++ restarts per palette size."),
+        click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
+                     help="k-means++ restarts per palette size (at least 1)."),
         click.option("--seeding", type=click.Choice(SEEDINGS), default="k-means++", show_default=True,
                      help="How each restart picks its first centres."),
         click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
@@ -93,13 +108,19 @@ def _metric(nearest: str) -> str | None:
     return None if nearest == "auto" else nearest
 
 
-def _fit_kwargs(o: dict) -> dict:
+def _fit_settings(o: dict, **more):
+    """The FitSettings of the fit options ``o``: the library validates them, with its messages."""
+    from quantize.fit.settings import FitSettings
+
     rule = o["rule"] or ("target" if o["target"] is not None else "bic")
     if rule == "target" and o["target"] is None:
         raise click.UsageError("--rule target needs --target DELTA_E")
-    return dict(k=o["colours"], space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
-                locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
-                metric=_metric(o["nearest"]), max_pixels=o["max_pixels"])
+    try:
+        return FitSettings(space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
+                           locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
+                           metric=_metric(o["nearest"]), **more)
+    except ValueError as exc:
+        raise _Failure(str(exc)) from None
 
 
 class _NoBar:
@@ -120,12 +141,11 @@ def _progress(n_steps: int, label: str):
     return click.progressbar(length=n_steps, label=label, file=sys.stderr, show_eta=False)
 
 
-def _fit_with_progress(images, kwargs):
+def _fit_with_progress(images, k: str, settings, max_pixels):
     from quantize.fit.engine import fit_palette, parse_k
 
-    n = len(parse_k(kwargs["k"]))
-    with _progress(n, "fitting") as bar:
-        return fit_palette(images, progress=lambda k: bar.update(1), **kwargs)
+    with _progress(len(parse_k(k)), "fitting") as bar:
+        return fit_palette(images, k, settings=settings, max_pixels=max_pixels, progress=lambda _: bar.update(1))
 
 
 def _swatch(hexcode: str) -> str:

@@ -9,7 +9,7 @@ import click
 from ._common import (
     _check_outputs,
     _emit,
-    _fit_kwargs,
+    _fit_settings,
     _fit_options,
     _fit_with_progress,
     _palette_rows,
@@ -31,27 +31,26 @@ from ._common import (
 def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
     """Fit one palette to one or many IMAGES (pooled) and save it as JSON."""
     t0 = time.perf_counter()
-    kwargs = _fit_kwargs(fit_opts)
-    kwargs["weighting"] = weighting
+    settings = _fit_settings(fit_opts, weighting=weighting)
     _check_outputs([output], force, images)
 
     def work():
-        pal = _fit_with_progress(list(images), kwargs)
+        pal = _fit_with_progress(list(images), fit_opts["colours"], settings, fit_opts["max_pixels"])
         pal.save(output, force=force)
         return pal
 
     pal = _run(ctx, work)
     rows = _palette_rows(pal)
     summary = {
-        "command": "fit", "inputs": list(images), "k": pal.k, "rule": pal.fit["rule"],
-        "reason": pal.fit["reason"], "space": pal.space, "delta_e": pal.fit["delta_e"],
-        "kmeans_cost": pal.fit["inertia"], "palette": rows, "outputs": [str(output)],
-        "notes": list(pal.fit.get("notes", [])), "seconds": round(time.perf_counter() - t0, 3),
+        "command": "fit", "inputs": list(images), "k": pal.k, "rule": pal.fit.rule,
+        "reason": pal.fit.reason, "space": pal.space, "delta_e": dict(pal.fit.delta_e),
+        "kmeans_cost": pal.fit.inertia, "palette": rows, "outputs": [str(output)],
+        "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
     }
 
     def human():
-        click.echo(f"{len(images)} image(s): {pal.k} colours ({pal.fit['reason']})")
-        _print_de("ΔE00 over the pooled set", pal.fit["delta_e"])
+        click.echo(f"{len(images)} image(s): {pal.k} colours ({pal.fit.reason})")
+        _print_de("ΔE00 over the pooled set", pal.fit.delta_e)
         _print_palette(rows)
         for n in summary["notes"]:
             click.echo(f"note: {n}")

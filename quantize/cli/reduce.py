@@ -11,7 +11,8 @@ from ._common import (
     _check_indexed_size,
     _check_outputs,
     _emit,
-    _fit_kwargs,
+    _fit_settings,
+    _metric,
     _fit_options,
     _fit_with_progress,
     _palette_rows,
@@ -39,20 +40,21 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""
     t0 = time.perf_counter()
     dopts = pop_dither_options(fit_opts)
-    kwargs = _fit_kwargs(fit_opts)
+    settings = _fit_settings(fit_opts)
+    k, max_pixels = fit_opts["colours"], fit_opts["max_pixels"]
     out = Path(output)
     pal_path = out.with_name(out.stem + ".palette.json") if keep_palette else None
     emap = [Path(dopts.error_map)] if dopts.error_map else []
     _check_outputs([out] + ([pal_path] if pal_path else []) + emap + _report_targets(report_dir), force, [image])
-    _check_indexed_size(out, kwargs["k"])
+    _check_indexed_size(out, k)
 
     def work():
         from quantize.io.read import load_image
 
         # Load once: fitting and mapping share the picture and its colour sample.
-        pic = load_image(image) if kwargs["max_pixels"] is None else load_image(image, max_pixels=kwargs["max_pixels"])
-        pal = _fit_with_progress(pic, kwargs)
-        res = pal.apply(pic, **dopts.apply_kwargs(), metric=kwargs["metric"])
+        pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+        pal = _fit_with_progress(pic, k, settings, max_pixels)
+        res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(fit_opts["nearest"]))
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
         res.save(out, force=force, inputs=[image])
         if pal_path:
@@ -68,24 +70,24 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     pal, res, dextra, dlines = _run(ctx, work)
     rows = _palette_rows(pal, res.coverage)
     summary = {
-        "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit["rule"],
-        "reason": pal.fit["reason"], "space": pal.space, "delta_e": res.delta_e,
-        "kmeans_cost": pal.fit["inertia"], "palette": rows,
+        "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit.rule,
+        "reason": pal.fit.reason, "space": pal.space, "delta_e": res.delta_e,
+        "kmeans_cost": pal.fit.inertia, "palette": rows,
         "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
-        "candidates": pal.fit.get("candidates", []),
-        "notes": list(pal.fit.get("notes", [])), "seconds": round(time.perf_counter() - t0, 3),
+        "candidates": [c.to_dict() for c in pal.fit.candidates],
+        "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
         **dextra,
     }
     if dextra["error_map"]:
         summary["outputs"].append(dextra["error_map"])
 
     def human():
-        click.echo(f"{image}: {pal.k} colours ({pal.fit['reason']})")
-        if len(pal.fit.get("candidates", [])) > 1:
+        click.echo(f"{image}: {pal.k} colours ({pal.fit.reason})")
+        if len(pal.fit.candidates) > 1:
             from quantize.fit.sweep_result import format_table
 
-            click.echo(format_table(pal.fit["candidates"], chosen=pal.k))
+            click.echo(format_table(pal.fit.candidates, chosen=pal.k))
         _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", res.delta_e)
         for line in dlines:
             click.echo(line)

@@ -12,7 +12,17 @@ from pathlib import Path
 
 import click
 
-from ._common import SPACE_NAMES, _check_outputs, _emit, _progress, _report_targets, _run
+from ._common import (
+    DEFAULT_K_TEXT,
+    SPACE_NAMES,
+    _check_outputs,
+    _emit,
+    _Failure,
+    _progress,
+    _report_targets,
+    _restarts_option,
+    _run,
+)
 
 
 def _range_option(ctx, param, value: str) -> list[int]:
@@ -32,7 +42,7 @@ def _png_path(ctx, param, value):
 
 @click.command()
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("-k", "--colours", "ks", default="2-16", show_default=True, callback=_range_option,
+@click.option("-k", "--colours", "ks", default=DEFAULT_K_TEXT, show_default=True, callback=_range_option,
               metavar="MIN-MAX", help="Palette sizes to sweep, inclusive (at most 64).")
 @click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
               help="Perceptual space the palettes are fitted in.")
@@ -45,9 +55,11 @@ def _png_path(ctx, param, value):
 @click.option("--lock", "locked", multiple=True, metavar="COLOUR",
               help="Hold a colour fixed in every palette: #rrggbb or L,a,b. Repeatable.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same sweep.")
-@click.option("--restarts", type=click.IntRange(min=1), default=8, show_default=True,
-              help="Fresh k-means++ restarts per size (warm starts come on top).")
-@click.option("--cold", is_flag=True, help="Fresh restarts only: no warm start from the previous size.")
+@click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
+              help="Fresh k-means++ restarts per size, at least 1 (warm starts come on top).")
+@click.option("--warm/--cold", default=False, show_default=True,
+              help="Also start each size from the one before (the cost then never rises with the size, "
+                   "but a row depends on the rows before it); --cold: each size on its own, as reduce fits it.")
 @click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="Pooled images count equally, or by their pixel count.")
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
@@ -62,7 +74,7 @@ def _png_path(ctx, param, value):
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, restarts, cold, weighting,
+def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, restarts, warm, weighting,
           max_pixels, table_csv, table_json, plot, swatches, report_dir, force, as_json):
     """Fit a palette at every size from MIN to MAX to IMAGES (pooled) and tabulate
     the k-means cost, ΔE00 mean / p95 / max and the penalised score; mark the
@@ -76,14 +88,20 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     if len({Path(p).resolve() for p in files}) != len(files):
         raise click.UsageError("two outputs name the same file")
     _check_outputs(files + _report_targets(report_dir), force, images)
+    from quantize.fit.settings import FitSettings
+
+    try:
+        settings = FitSettings(space=space, restarts=restarts, seed=seed, locked=list(locked), rule=rule,
+                               target=target, target_stat=target_stat, weighting=weighting, warm=warm)
+    except ValueError as exc:
+        raise _Failure(str(exc)) from None
 
     def work():
         from quantize.fit.sweep import sweep as run_sweep
 
         with _progress(len(ks), "sweeping") as bar:
-            res = run_sweep(list(images), (ks[0], ks[-1]), space=space, restarts=restarts, seed=seed, locked=list(locked),
-                            rule=rule, target=target, target_stat=target_stat, weighting=weighting,
-                            warm=not cold, max_pixels=max_pixels, progress=lambda k: bar.update(1))
+            res = run_sweep(list(images), (ks[0], ks[-1]), settings=settings, max_pixels=max_pixels,
+                            progress=lambda k: bar.update(1))
         written = []
         if table_csv:
             written.append(str(res.save_csv(table_csv, force=force)))

@@ -13,7 +13,7 @@ palette under the truncated loss ``min(d**2, tau**2)``:
    heaviest point that no centre explains (further than ``tau``), followed
    by trimmed Lloyd again; a swap is kept only if the truncated cost falls.
 
-The truncated cost never rises.  The caller (:func:`quantize.fit.engine.fit_candidates`)
+The truncated cost never rises.  The caller (:func:`quantize.fit.engine.fit_sizes`)
 keeps the refined palette only where it lowers the mean ΔE00, and still
 reports the k-means cost of the original fit.
 

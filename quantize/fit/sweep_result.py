@@ -11,11 +11,14 @@ from __future__ import annotations
 import csv
 import io
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from quantize.io.write import to_jsonable
+from quantize.palette import FitCandidate
+
+from .settings import FitSettings
 
 __all__ = ["Sweep", "SweepRow", "candidate_rows", "format_table", "SWEEP_FORMAT", "SWEEP_VERSION"]
 
@@ -44,7 +47,8 @@ class SweepRow:
     score : float
         Penalised score of the ``"bic"`` rule (lower is better).
     start : str
-        Which candidate was kept, a key of :data:`STARTS`.
+        Which candidate was kept, a key of :data:`quantize.fit.warm.STARTS`
+        (always ``"fresh"`` without warm starts).
     coverage : ndarray of shape (palette.k,)
         Percent of pooled pixels per colour.
     per_image : dict
@@ -75,16 +79,36 @@ class Sweep:
         when a target was given.
     rule : str
         The rule whose pick is :attr:`chosen`.
-    settings : dict
-        Space, seed, restarts, warm, target, images, pixel counts.
+    settings : FitSettings
+        The settings every row was fitted with (``settings.seed`` is the
+        integer used, also when a Generator was given).
+    n_pixels, n_distinct : int
+        Pixels and distinct colours of the pooled sample.
+    images : tuple of str
+        The sources pooled (empty for a sweep of a sample).
     notes : list of str
     """
 
     rows: list
     choices: dict
     rule: str
-    settings: dict
+    settings: FitSettings
+    n_pixels: int = 0
+    n_distinct: int = 0
+    images: tuple = ()
     notes: list = field(default_factory=list)
+
+    def with_inputs(self, images, notes) -> "Sweep":
+        """A copy naming the pooled ``images``, with ``notes`` (from loading them) first."""
+        return replace(self, images=tuple(images), notes=list(notes) + list(self.notes))
+
+    def settings_dict(self) -> dict:
+        """The settings as written in the JSON table's ``settings`` object."""
+        s = self.settings
+        return {"space": s.space, "restarts": s.restarts, "init": s.init, "metric": s.metric, "refine": s.refine,
+                "warm": s.warm, "seed": s.seed, "locked": list(s.locked), "target": s.target,
+                "target_stat": s.target_stat, "k_range": [self.ks[0], self.ks[-1]], "n_pixels": self.n_pixels,
+                "n_distinct": self.n_distinct, "images": list(self.images), "weighting": s.weighting}
 
     @property
     def ks(self) -> list[int]:
@@ -104,7 +128,7 @@ class Sweep:
         raise KeyError(f"k = {k} was not swept (swept {self.ks[0]}..{self.ks[-1]})")
 
     def candidates(self) -> list[dict]:
-        """Rows in the form of ``palette.fit["candidates"]`` (see :func:`format_table`)."""
+        """Rows as written in the JSON table, with the keys of a palette file's ``fit.candidates``."""
         out = []
         for r in self.rows:
             d = {"k": r.k, "colours": r.palette.k, "inertia": r.cost, "delta_e": dict(r.delta_e),
@@ -120,7 +144,7 @@ class Sweep:
         return {
             "format": SWEEP_FORMAT,
             "version": SWEEP_VERSION,
-            "settings": self.settings,
+            "settings": self.settings_dict(),
             "rule": self.rule,
             "chosen": self.chosen.k,
             "choices": {name: {"k": c.k, "reason": c.reason} for name, c in self.choices.items()},
@@ -178,7 +202,7 @@ def _g(x: float) -> str:
 
 
 def candidate_rows(candidates) -> list[dict]:
-    """Normalise a Sweep, its rows, or ``palette.fit["candidates"]`` to table dicts."""
+    """Normalise a Sweep, its rows, or ``palette.fit.candidates`` to table dicts."""
     if isinstance(candidates, Sweep):
         return candidates.candidates()
     out = []
@@ -186,6 +210,8 @@ def candidate_rows(candidates) -> list[dict]:
         if isinstance(c, SweepRow):
             c = {"k": c.k, "inertia": c.cost, "delta_e": c.delta_e, "robust_error": c.robust,
                  "score": c.score, "start": c.start}
+        elif isinstance(c, FitCandidate):
+            c = c.to_dict()
         if not isinstance(c, dict) or "k" not in c or "delta_e" not in c:
             raise ValueError(f"not a sweep row or fit candidate: {c!r}")
         out.append(c)
@@ -197,10 +223,10 @@ def format_table(candidates, *, chosen: int | None = None, picks: dict | None = 
 
     Parameters
     ----------
-    candidates : Sweep, list of SweepRow, or list of dict
-        Dicts as in ``palette.fit["candidates"]`` (keys ``k``, ``inertia``,
-        ``delta_e``, ``robust_error``, ``score``), so that ``reduce`` with a
-        range explains its choice with the same table.
+    candidates : Sweep, list of SweepRow, FitCandidate or dict
+        ``palette.fit.candidates``, or dicts with its keys (``k``,
+        ``inertia``, ``delta_e``, ``robust_error``, ``score``), so that
+        ``reduce`` with a range explains its choice with the same table.
     chosen : int, optional
         The k to mark; for a Sweep, its chosen row by default.
     picks : dict, optional

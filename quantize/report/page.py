@@ -78,10 +78,10 @@ def sweep_figure(sweep, *, width: float = 9.0, height: float = 7.0, dpi: int = 1
     top.plot(ks, stat("mean"), "o-", color="#1f5fa8", label="ΔE00 mean")
     top.plot(ks, stat("p95"), "s--", color="#c0562a", label="ΔE00 95th percentile")
     top.plot(ks, stat("max"), ":", color="#8a8a8a", label="ΔE00 maximum")
-    target = sweep.settings.get("target")
+    target = sweep.settings.target
     if target is not None:
         top.axhline(target, color="#2c8a3c", lw=1.2,
-                    label=f"ΔE00 target {target:g} ({sweep.settings.get('target_stat', 'mean')})")
+                    label=f"ΔE00 target {target:g} ({sweep.settings.target_stat})")
     top.set_ylabel("colour error, ΔE00 (CIEDE2000)")
     top.set_ylim(bottom=0)
     top.grid(alpha=0.3)
@@ -424,9 +424,9 @@ def _page(title, pics, results, pal, sweep, files, sizes, suffix) -> str:
     parts = [f"<h1>{e(title)}</h1>",
              '<p class="note">ΔE00 (CIEDE2000) figures are computed from file data on an assumed sRGB '
              "display; they are not measurements of a print. Proof physically before a production run.</p>"]
-    fit = pal.fit or {}
-    if fit.get("reason"):
-        parts.append(f"<p>{pal.k} colours: {e(str(fit['reason']))}</p>")
+    fit = pal.fit
+    if fit is not None and fit.reason:
+        parts.append(f"<p>{pal.k} colours: {e(str(fit.reason))}</p>")
     for i, (p, r) in enumerate(zip(pics, results)):
         w, h = sizes[i]
         s = suffix(i)
@@ -466,9 +466,9 @@ def _page(title, pics, results, pal, sweep, files, sizes, suffix) -> str:
         parts.append('<img class="wide" src="swatches.png" alt="the palette at every size">')
         parts.append(_candidates_table(sweep, sweep.chosen.k, {n: c.k for n, c in sweep.choices.items()}))
         parts.append('<p class="note">Table as CSV: <a href="sweep.csv">sweep.csv</a></p>')
-    elif fit.get("candidates"):
+    elif fit is not None and fit.candidates:
         parts.append("<h2>Palette sizes considered</h2>")
-        parts.append(_candidates_table(fit["candidates"], fit.get("k"), {fit.get("rule", ""): fit.get("k")}))
+        parts.append(_candidates_table(fit.candidates, fit.k, {fit.rule or "": fit.k}))
     body = "\n".join(parts)
     return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
             f"<title>{e(title)}</title>\n<link rel=\"icon\" href=\"data:,\">\n"

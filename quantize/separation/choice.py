@@ -381,8 +381,8 @@ def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, 
         names.append(ink.name)
         snaps.append({"fitted": palette.hex[i], "ink": ink.name, "ink_hex": ink.hex,
                       "delta_e": round(float(d[r, pick[r]]), 3)})
-    fit = dict(palette.fit)
-    fit.update({"inks": library.describe(), "snaps": snaps})
+    snapped = {"inks": library.describe(), "snaps": snaps}
+    fit = palette.fit.with_extra(**snapped) if palette.fit is not None else snapped
     out = Palette(rgb8=np.array(rgb, np.uint8), locked=np.arange(len(rgb)) < lk.size, space=palette.space,
                   names=tuple(names), fit=fit)
     return out, snaps
@@ -485,13 +485,13 @@ def _snapped(palette, sub: int, library, substrate) -> tuple[Any, dict]:
     others = [i for i in range(palette.k) if i != sub]
     lk = np.zeros(palette.k, bool)
     lk[sub] = True
-    palette = Palette(palette.rgb8, lk, palette.space, palette.names, dict(palette.fit))
+    palette = Palette(palette.rgb8, lk, palette.space, palette.names, palette.fit)
     named = library.find(substrate) if isinstance(substrate, str) else None
     palette, snaps = snap_palette(palette, library, substrate=substrate if isinstance(substrate, str) else None)
     if named is not None:
         names = list(palette.names)
         names[0] = library.inks[named].name
-        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
     return palette, {"snaps": snaps, "library": library.describe(), "colours_snapped": len(others), "substrate": 0}
 
 
@@ -524,7 +524,7 @@ def with_substrate(palette, colour) -> tuple[Any, int]:
         return _lock(palette, int(hit[0])), int(hit[0])
     names = ("substrate",) + tuple(palette.names)
     pal = Palette(rgb8=np.vstack([rgb[None], palette.rgb8]), locked=np.r_[True, palette.locked],
-                  space=palette.space, names=names, fit=dict(palette.fit))
+                  space=palette.space, names=names, fit=palette.fit)
     return pal, 0
 
 
@@ -533,4 +533,4 @@ def _lock(palette, i: int):
 
     lk = palette.locked.copy()
     lk[i] = True
-    return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=dict(palette.fit))
+    return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=palette.fit)

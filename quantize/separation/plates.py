@@ -508,7 +508,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                                   min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
                                   underbase=underbase, choke_mm=choke_mm if underbase else None,
                                   order="given" if order is not None else "light to dark",
-                                  palette_fit=palette.fit)
+                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {})
     sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
@@ -546,7 +546,7 @@ def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | N
 
         names = list(palette.names)
         names[sub] = "substrate"
-        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), dict(palette.fit))
+        palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
     return palette, sub
 
 
