@@ -138,9 +138,9 @@ def test_inverse_is_built_once(monkeypatch):
     monkeypatch.setattr(sampling, "_DENSE_FROM", 1)
     rng = np.random.default_rng(RNG_SEED + 3)
     smp = sampling._sample(random_picture(rng, (30, 20)))
-    assert "_inverse" not in vars(smp) or vars(smp)["_inverse"] is None  # not built by sampling
+    assert "inverse" not in smp._cache  # not built by sampling
     first = smp.inverse
-    assert smp.inverse is first
+    assert "inverse" in smp._cache and smp.inverse is first
 
 
 @pytest.mark.parametrize("alpha", ["none", "some"])
@@ -191,7 +191,73 @@ def test_index_image_rejects_bad_input():
         pooled.index_image(np.zeros(pooled.n_colours, np.int64))
 
 
-def test_sample_picture_caches_per_picture():
+def test_sample_keeps_the_pictures_provenance():
+    # A sample can stand in for its picture in a fit, which names the image and repeats its warnings.
     rng = np.random.default_rng(RNG_SEED + 7)
+    rgb = random_picture(rng, (12, 9), alpha="none").rgb
+    pic = Picture(rgb=rgb, source="poster.png", warnings=("poster.png: holds 2 frames",))
+    smp = sample_picture(pic)
+    assert (smp.source, smp.warnings) == ("poster.png", ("poster.png: holds 2 frames",))
+    pooled = pool_samples([smp, sample_picture(random_picture(rng, (5, 5)))])
+    assert (pooled.source, pooled.warnings) == ("<colour sample>", ())
+
+
+def test_sampling_the_same_picture_twice_gives_equal_samples():
+    # No cache keyed by picture: each call collapses the picture afresh, to the same result.
+    rng = np.random.default_rng(RNG_SEED + 8)
     pic = random_picture(rng, (12, 9))
-    assert sample_picture(pic) is sample_picture(pic)
+    a, b = sample_picture(pic), sample_picture(pic)
+    assert a is not b
+    np.testing.assert_array_equal(a.codes, b.codes)
+    np.testing.assert_array_equal(a.weights, b.weights)
+
+
+def _count_calls(monkeypatch, name: str) -> list:
+    """Count calls of ``ColourSample.<name>``, each held open a moment so that other threads
+    asking for the same value arrive while it is being computed."""
+    import time
+
+    calls = []
+    real = getattr(sampling.ColourSample, name)
+
+    def counted(self, *args):
+        calls.append(args)
+        time.sleep(0.05)
+        return real(self, *args)
+
+    monkeypatch.setattr(sampling.ColourSample, name, counted)
+    return calls
+
+
+def test_derived_arrays_are_computed_once_when_threads_share_a_sample(monkeypatch):
+    # The fitting engine's worker threads share one sample; each derived array is computed by
+    # one thread only and every thread gets that same array.  The reference for the values is
+    # the colour module's own conversion of the distinct colours.
+    from concurrent.futures import ThreadPoolExecutor
+
+    from quantize.colour.spaces import srgb8_to_space
+
+    rng = np.random.default_rng(RNG_SEED + 9)
+    smp = sample_picture(random_picture(rng, (60, 50), n_palette=400))
+    point_calls = _count_calls(monkeypatch, "_points_in")
+    bin_calls = _count_calls(monkeypatch, "_cell_means")
+    with ThreadPoolExecutor(max_workers=6) as pool:
+        points = list(pool.map(lambda _: smp.points("lab"), range(12)))
+        binned = list(pool.map(lambda _: smp.binned("lab", max_points=100, bits=None), range(12)))
+    assert point_calls == [("lab",)]
+    assert bin_calls == [("lab", 100, None)]
+    assert all(p is points[0] for p in points) and all(b[0] is binned[0][0] for b in binned)
+    np.testing.assert_allclose(points[0], srgb8_to_space(smp.codes, "lab"), rtol=0, atol=1e-12)
+    assert len(binned[0][1]) < smp.n_colours and binned[0][1].sum() == pytest.approx(smp.weights.sum())
+
+
+def test_derived_cache_stores_nothing_when_a_computation_fails():
+    cache = sampling.DerivedCache()
+
+    def fail():
+        raise RuntimeError("out of memory, say")
+
+    with pytest.raises(RuntimeError):
+        cache.get("key", fail)
+    assert "key" not in cache
+    assert cache.get("key", lambda: 7) == 7 and cache.get("key", fail) == 7

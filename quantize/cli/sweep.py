@@ -30,6 +30,17 @@ def _png_path(ctx, param, value):
     return value
 
 
+def _decoded(images, max_pixels) -> list:
+    """(Picture, ColourSample) of every input: each file decoded once."""
+    from quantize.core.sampling import sample_picture
+    from quantize.io.read import load_image
+    from quantize.kernels.loading import warm_up
+
+    warm_up()  # the compiled kernels load while the images decode
+    pics = [load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels) for im in images]
+    return [(pic, sample_picture(pic)) for pic in pics]
+
+
 @click.command()
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
 @click.option("-k", "--colours", "ks", default="2-16", show_default=True, callback=_range_option,
@@ -80,8 +91,11 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     def work():
         from quantize.fit.sweep import sweep as run_sweep
 
+        # The report maps every input again: then decode and sample each once, up front, for both.
+        decoded = _decoded(images, max_pixels) if report_dir else []
         with _progress(len(ks), "sweeping") as bar:
-            res = run_sweep(list(images), (ks[0], ks[-1]), space=space, restarts=restarts, seed=seed, locked=list(locked),
+            res = run_sweep([smp for _, smp in decoded] or list(images), (ks[0], ks[-1]), space=space,
+                            restarts=restarts, seed=seed, locked=list(locked),
                             rule=rule, target=target, target_stat=target_stat, weighting=weighting,
                             warm=not cold, max_pixels=max_pixels, progress=lambda k: bar.update(1))
         written = []
@@ -100,10 +114,10 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
             from quantize.report.page import write_report
 
             pal = res.chosen.palette
-            mapped = [pal.apply(im, max_pixels=max_pixels) for im in images]
+            mapped = [pal.apply(pic, sample=smp) for pic, smp in decoded]
             title = f"Palette size sweep: {', '.join(Path(i).name for i in images)}"
-            written.append(str(write_report(report_dir, original_picture=list(images), mapped=mapped,
-                                            palette=pal, sweep=res, title=title, force=force)))
+            written.append(str(write_report(report_dir, original_picture=[pic for pic, _ in decoded],
+                                            mapped=mapped, palette=pal, sweep=res, title=title, force=force)))
         return res, written
 
     res, written = _run(ctx, work)

@@ -14,10 +14,10 @@ sees every distinct colour with its true weight.
 
 from __future__ import annotations
 
-import weakref
-from collections.abc import Sequence
+import threading
+from collections.abc import Callable, Hashable, Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -26,7 +26,7 @@ from quantize.core.picture import Picture
 if TYPE_CHECKING:
     import numpy.typing as npt
 
-__all__ = ["ColourSample", "pool_samples", "sample_picture"]
+__all__ = ["ColourSample", "DerivedCache", "pool_samples", "sample_picture"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
@@ -43,25 +43,67 @@ _CLEAR = 1 << 24
 _BLOCK = 1 << 18
 
 
+class DerivedCache:
+    """What a :class:`ColourSample` derives from its colours, computed once and kept.
+
+    A sample's perceptual coordinates, cell grids, binned means and (for the
+    dense path) its per-pixel inverse are pure functions of its colours, and
+    the fitting engine asks for the same ones at every palette size and from
+    several worker threads at once.  Each value is computed under a lock of
+    its own key: a second thread asking for a value being computed waits for
+    it instead of computing it again, and threads asking for different values
+    do not wait for each other.  A computation that raises stores nothing.
+
+    The cache belongs to one sample and lives as long as it; nothing else
+    writes into it.
+    """
+
+    def __init__(self) -> None:
+        self._values: dict[Hashable, Any] = {}
+        self._locks: dict[Hashable, threading.Lock] = {}
+        self._guard = threading.Lock()  # guards the two dicts, never held while computing
+
+    def get(self, key: Hashable, compute: Callable[[], Any]) -> Any:
+        """The value under ``key``, from ``compute()`` on the first call."""
+        with self._guard:
+            if key in self._values:
+                return self._values[key]
+            lock = self._locks.setdefault(key, threading.Lock())
+        with lock:
+            with self._guard:
+                if key in self._values:  # computed while this thread waited
+                    return self._values[key]
+            value = compute()
+            with self._guard:
+                self._values[key] = value
+                self._locks.pop(key, None)
+        return value
+
+    def __contains__(self, key: Hashable) -> bool:
+        with self._guard:
+            return key in self._values
+
+
 class _LazyInverse:
-    """``ColourSample.inverse``: kept when given, else built on first access.
+    """``ColourSample.inverse``: the array given, else built on first access.
 
     The dense path keeps only the pixels' packed codes; most callers want an
     index image (:meth:`ColourSample.index_image`), which one lookup in a
     small table indexed by packed code gives directly, so the int32 row of
-    every pixel is only built for callers that ask for it.
+    every pixel is only built (into the sample's :class:`DerivedCache`) for
+    callers that ask for it.
     """
 
     def __get__(self, obj, objtype=None):
         if obj is None:
             return None  # the dataclass default
-        inverse = obj.__dict__.get("_inverse")
-        if inverse is None and obj._packed is not None:
-            inverse = obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1)
-            obj.__dict__["_inverse"] = inverse  # frozen: bypass __setattr__, as a cache
-        return inverse
+        given = obj.__dict__.get("_inverse")
+        if given is not None or obj._packed is None:
+            return given
+        return obj._cache.get("inverse", lambda: obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1))
 
     def __set__(self, obj, value):
+        # Only the dataclass __init__ sets it (the instance is frozen).
         obj.__dict__["_inverse"] = value
 
 
@@ -86,6 +128,19 @@ class ColourSample:
         ``(H, W)`` of the single image, None for a pooled sample.
     n_pixels : int
         Opaque pixels counted (before any pooling scale).
+    source : str
+        The image the sample was taken from (its ``Picture.source``), or
+        ``"<colour sample>"`` for a pooled or hand-made sample.
+    warnings : tuple of str
+        The warnings raised while reading that image, so that a fit given
+        the sample instead of the picture still reports them.
+
+    Notes
+    -----
+    The arrays above never change.  What is derived from them (points per
+    space, binned means, the lazily built ``inverse``) is computed on first
+    use and kept in a :class:`DerivedCache` the sample owns, so a sample may
+    be shared between threads.
     """
 
     codes: np.ndarray
@@ -94,10 +149,12 @@ class ColourSample:
     inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
-    _points: dict = field(default_factory=dict)
+    source: str = "<colour sample>"
+    warnings: tuple[str, ...] = ()
     #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
     #: where transparent.
     _packed: np.ndarray | None = None
+    _cache: DerivedCache = field(default_factory=DerivedCache, init=False, repr=False, compare=False)
 
     def __repr__(self) -> str:
         # Not the dataclass repr: it would print (and build) ``inverse``.
@@ -171,16 +228,17 @@ class ColourSample:
         return self.codes.astype(np.float64) / (2**self.bit_depth - 1)
 
     def points(self, space: str) -> np.ndarray:
-        """Distinct colours in the perceptual ``space``, cached per space."""
+        """Distinct colours in the perceptual ``space``, computed once per space."""
+        return self._cache.get(("points", space), lambda: self._points_in(space))
+
+    def _points_in(self, space: str) -> np.ndarray:
         from quantize.colour.spaces import srgb8_to_space, to_space
 
-        if space not in self._points:
-            if self.bit_depth == 8:
-                pts = srgb8_to_space(self.codes, space)
-            else:
-                pts = to_space(self.float_rgb(), space)
-            self._points[space] = np.ascontiguousarray(pts, dtype=np.float64)
-        return self._points[space]
+        if self.bit_depth == 8:
+            pts = srgb8_to_space(self.codes, space)
+        else:
+            pts = to_space(self.float_rgb(), space)
+        return np.ascontiguousarray(pts, dtype=np.float64)
 
     def binned(self, space: str, *, max_points: int = 20_000, bits: int | None = _BIN_BITS
                ) -> tuple[np.ndarray, np.ndarray]:
@@ -189,7 +247,8 @@ class ColourSample:
         Colours are grouped by the top ``bits`` bits of each sRGB channel;
         each cell becomes one point at the weighted mean of its members'
         perceptual coordinates, carrying their total weight.  Below
-        ``max_points`` distinct colours nothing is binned.
+        ``max_points`` distinct colours nothing is binned.  Each result is
+        computed once per sample: every palette size and refinement reuses it.
 
         Parameters
         ----------
@@ -206,25 +265,22 @@ class ColourSample:
         points : ndarray of shape (m, 3)
         weights : ndarray of shape (m,)
         """
-        key = ("binned", space, max_points, bits)
-        if key in self._points:
-            return self._points[key]
-        pts = self.points(space)
         if self.n_colours <= max_points:
-            return pts, self.weights
-        inv, n_cells = self._cells(max_points, bits)
+            return self.points(space), self.weights
+        return self._cache.get(("binned", space, max_points, bits),
+                               lambda: self._cell_means(space, max_points, bits))
+
+    def _cell_means(self, space: str, max_points: int, bits: int | None) -> tuple[np.ndarray, np.ndarray]:
+        pts = self.points(space)
+        inv, n_cells = self._cache.get(("cells", max_points, bits), lambda: self._cells(max_points, bits))
         w = np.bincount(inv, weights=self.weights, minlength=n_cells)
         means = np.empty((n_cells, pts.shape[1]))
         for j in range(pts.shape[1]):
             means[:, j] = np.bincount(inv, weights=self.weights * pts[:, j], minlength=n_cells) / w
-        self._points[key] = (means, w)  # every palette size and refinement reuses it
         return means, w
 
     def _cells(self, max_points: int, bits: int | None) -> tuple[np.ndarray, int]:
         """Cell of every distinct colour (numbered in code order) and the cell count."""
-        key = ("cells", max_points, bits)
-        if key in self._points:
-            return self._points[key]
         for b in ((bits,) if bits is not None else (7, 6, _BIN_BITS)):
             shift = self.bit_depth - b
             c = self.codes.astype(np.int64) >> shift
@@ -232,8 +288,7 @@ class ColourSample:
             cells, inv = np.unique(cell, return_inverse=True)
             if cells.size <= max_points or bits is not None:
                 break
-        self._points[key] = (inv.ravel(), int(cells.size))
-        return self._points[key]
+        return inv.ravel(), int(cells.size)
 
 
 def _pack(rgb: np.ndarray, bit_depth: int) -> np.ndarray:
@@ -283,11 +338,6 @@ def _take_blocks(table: np.ndarray, index: np.ndarray) -> np.ndarray:
     return out
 
 
-# One sample per picture object: fitting and mapping the same picture (as
-# ``quantize reduce`` does) collapse it once.
-_CACHE: weakref.WeakKeyDictionary[Picture, ColourSample] = weakref.WeakKeyDictionary()
-
-
 def sample_picture(picture: Picture) -> ColourSample:
     """Collapse a picture to its distinct opaque colours and pixel counts.
 
@@ -311,12 +361,7 @@ def sample_picture(picture: Picture) -> ColourSample:
     >>> s.codes.tolist(), s.weights.tolist()
     ([[0, 0, 255], [255, 0, 0]], [1.0, 2.0])
     """
-    cached = _CACHE.get(picture)
-    if cached is not None:
-        return cached
-    smp = _sample(picture)
-    _CACHE[picture] = smp
-    return smp
+    return _sample(picture)
 
 
 def _sample(picture: Picture) -> ColourSample:
@@ -326,7 +371,7 @@ def _sample(picture: Picture) -> ColourSample:
     all_opaque = opaque is None or bool(opaque.all())
     n_opaque = h * w if all_opaque else int(np.count_nonzero(opaque))
     if bits == 8 and n_opaque >= _DENSE_FROM:
-        return _sample_dense(picture.rgb, None if all_opaque else ~opaque, n_opaque)
+        return _sample_dense(picture, None if all_opaque else ~opaque, n_opaque)
     packed = _pack_pixels(picture.rgb, np.uint32) if bits == 8 else _pack(picture.rgb.reshape(-1, 3), bits)
     sel = packed if all_opaque else packed[opaque]
     present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
@@ -343,15 +388,18 @@ def _sample(picture: Picture) -> ColourSample:
         inverse=inverse,
         shape=(h, w),
         n_pixels=n_opaque,
+        source=picture.source,
+        warnings=tuple(picture.warnings),
     )
 
 
-def _sample_dense(rgb: np.ndarray, clear: np.ndarray | None, n_opaque: int) -> ColourSample:
+def _sample_dense(picture: Picture, clear: np.ndarray | None, n_opaque: int) -> ColourSample:
     """Sample an 8-bit image through a histogram over all 2**24 codes.
 
     Exact, and several times faster than sorting from a quarter of a
     megapixel; below that, touching the 128 MB table costs more than a sort.
     """
+    rgb = picture.rgb
     # int64 because bincount casts any other index to it, a 96 MB copy.
     packed = _pack_pixels(rgb, np.int64)
     if clear is not None:
@@ -372,6 +420,8 @@ def _sample_dense(rgb: np.ndarray, clear: np.ndarray | None, n_opaque: int) -> C
         bit_depth=8,
         shape=rgb.shape[:2],
         n_pixels=n_opaque,
+        source=picture.source,
+        warnings=tuple(picture.warnings),
         _packed=packed.astype(np.uint32),  # kept for the lifetime of the sample: half the memory
     )
 

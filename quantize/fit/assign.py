@@ -40,6 +40,9 @@ def resolve_metric(metric: str | None, dither: str = "none") -> str:
 def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
     """Map the distinct colours of a sample onto a palette.
 
+    Nothing is kept between calls: a caller that needs the same mapping
+    twice keeps the result.
+
     Returns
     -------
     labels : ndarray of shape (n,)
@@ -47,21 +50,8 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
     delta_e : ndarray of shape (n,)
         CIEDE2000 of each distinct colour to its palette colour.
     """
-
-    # The last mapping is kept with the sample: fitting measures the palette
-    # it returns, and applying that palette to the same picture would
-    # otherwise repeat the work.
-    key = ("mapped", palette.rgb8.tobytes(), palette.space, metric)
-    last = sample._points.get("mapped")
-    if last is not None and last[0] == key:
-        return last[1], last[2]
     lab = sample.points("lab")
     if metric == "ciede2000":
-        labels, de = nearest_ciede2000(lab, palette.lab)
-    else:
-        labels = assign_nearest(sample.points(palette.space), palette.points())[0]
-        de = ciede2000_to(lab, palette.lab, labels)
-    labels.setflags(write=False)
-    de.setflags(write=False)
-    sample._points["mapped"] = (key, labels, de)
-    return labels, de
+        return nearest_ciede2000(lab, palette.lab)
+    labels = assign_nearest(sample.points(palette.space), palette.points())[0]
+    return labels, ciede2000_to(lab, palette.lab, labels)

@@ -103,9 +103,10 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None):
 
     samples, sources, notes = [], [], []
     for item in _as_list(images):
-        if isinstance(item, ColourSample):  # already sampled (e.g. a batch's pooled histogram)
+        if isinstance(item, ColourSample):  # already sampled: a picture's, or a batch's pooled histogram
             samples.append(item)
-            sources.append("<colour sample>")
+            sources.append(item.source)
+            notes.extend(f"{item.source}: {w}" for w in item.warnings)
             continue
         if isinstance(item, (str, bytes)) or hasattr(item, "__fspath__"):
             pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
