@@ -94,9 +94,9 @@ def test_reduce_with_dither_error_map_and_report(images, tmp_path, decodes, filt
     assert (tmp_path / "report" / "index.html").is_file() and (tmp_path / "map.png").is_file()
 
 
-def test_reduce_samples_once_and_still_names_the_image_it_fitted(images, tmp_path, decodes, monkeypatch):
-    # Fitting is given the picture's colour sample rather than the picture, and mapping reuses
-    # it; the palette file must still name the input, as when the fit decoded the file itself.
+def test_reduce_samples_once(images, tmp_path, decodes, monkeypatch):
+    # The picture keeps its colour sample: fitting and mapping collapse it once.  The palette
+    # file still names the input, as when the fit decoded the file itself.
     from quantize.core import sampling
 
     samplings = []
@@ -173,3 +173,25 @@ def test_library_entry_points_decode_a_path_once(images, palette_file, tmp_path,
     decodes.clear()
     save_error_map(tmp_path / "map.png", images[0], res, kind="filtered", ppd=20)
     assert decodes == once_each(images[:1])
+
+
+def test_mapping_onto_the_fitted_palette_reuses_the_fit_for_a_range(images, monkeypatch):
+    # The fit keeps its mapping of the palette it returns, whichever size of the range was
+    # chosen, so mapping the same picture onto it maps no colour again.  The reference is a
+    # fresh mapping of the sample by the plain-numpy twin of the kernel (tests/naive.py).
+    import naive
+
+    import quantize.fit.assign as assign
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.engine import fit_palette
+    from quantize.io.read import load_image
+
+    pic = load_image(images[0])
+    pal = fit_palette(pic, (2, 6), restarts=1)
+    calls = []
+    monkeypatch.setattr(assign, "nearest_ciede2000", lambda *a: calls.append(a) or pytest.fail("mapped again"))
+    res = pal.apply(pic)
+    assert calls == [] and 2 <= pal.k <= 6
+    smp = sample_picture(pic)
+    labels, _ = naive.nearest_ciede2000(smp.points("lab"), pal.lab)
+    np.testing.assert_array_equal(res.indices, smp.index_image(labels, dtype=np.uint8))

@@ -113,13 +113,10 @@ def process_image(job: dict, palette_doc: dict | None = None) -> dict:
     then the palette file in per-image mode), ``replace`` and the fit
     settings; ``palette_doc`` is the palette as a JSON dict, or None to fit one.
     """
-    from quantize.core.sampling import sample_picture
     from quantize.fit.engine import fit_palette
     from quantize.io.read import load_image
-    from quantize.kernels.loading import warm_up
     from quantize.palette import Palette
 
-    warm_up()  # the compiled kernels load while the image decodes
     t0 = time.perf_counter()
     row = {"input": job["rel"], "status": "failed", "k": None, "delta_e": None, "entries_used": None,
            "coverage": None, "outputs": [], "error": None}
@@ -127,12 +124,11 @@ def process_image(job: dict, palette_doc: dict | None = None) -> dict:
         warnings.simplefilter("always")
         try:
             pic = load_image(job["path"], max_pixels=job["max_pixels"])
-            smp = sample_picture(pic)  # fitting and mapping share the one decode and sample
             if palette_doc is None:
-                pal = fit_palette(smp, job["k"], space=job["space"], seed=job["seed"], restarts=job["restarts"])
+                pal = fit_palette(pic, job["k"], space=job["space"], seed=job["seed"], restarts=job["restarts"])
             else:
                 pal = Palette.from_dict(palette_doc, source="batch palette")
-            res = pal.apply(pic, sample=smp)
+            res = pal.apply(pic)
             outs = [Path(p) for p in job["outputs"]]
             if not outs[0].parent.resolve().is_relative_to(job["output_dir"]):
                 raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "

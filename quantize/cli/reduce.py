@@ -47,16 +47,15 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     _check_indexed_size(out, kwargs["k"])
 
     def work():
-        from quantize.core.sampling import sample_picture
         from quantize.io.read import load_image
         from quantize.kernels.loading import warm_up
 
         warm_up()  # the compiled kernels load while the image decodes
-        # Decode and sample once: fitting, mapping, the ΔE figures and the report share them.
+        # Decode once: fitting, mapping, the ΔE figures and the report share the picture (and the
+        # colour sample it keeps).
         pic = load_image(image) if kwargs["max_pixels"] is None else load_image(image, max_pixels=kwargs["max_pixels"])
-        smp = sample_picture(pic)
-        pal = _fit_with_progress(smp, kwargs)
-        res = pal.apply(pic, **dopts.apply_kwargs(), metric=kwargs["metric"], sample=smp)
+        pal = _fit_with_progress(pic, kwargs)
+        res = pal.apply(pic, **dopts.apply_kwargs(), metric=kwargs["metric"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
         res.save(out, force=force, inputs=[image])
         if pal_path:

@@ -31,14 +31,12 @@ def _png_path(ctx, param, value):
 
 
 def _decoded(images, max_pixels) -> list:
-    """(Picture, ColourSample) of every input: each file decoded once."""
-    from quantize.core.sampling import sample_picture
+    """A Picture of every input: each file decoded once."""
     from quantize.io.read import load_image
     from quantize.kernels.loading import warm_up
 
     warm_up()  # the compiled kernels load while the images decode
-    pics = [load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels) for im in images]
-    return [(pic, sample_picture(pic)) for pic in pics]
+    return [load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels) for im in images]
 
 
 @click.command()
@@ -91,10 +89,10 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     def work():
         from quantize.fit.sweep import sweep as run_sweep
 
-        # The report maps every input again: then decode and sample each once, up front, for both.
-        decoded = _decoded(images, max_pixels) if report_dir else []
+        # The report maps every input again: then decode each once, up front, for both.
+        pictures = _decoded(images, max_pixels) if report_dir else []
         with _progress(len(ks), "sweeping") as bar:
-            res = run_sweep([smp for _, smp in decoded] or list(images), (ks[0], ks[-1]), space=space,
+            res = run_sweep(pictures or list(images), (ks[0], ks[-1]), space=space,
                             restarts=restarts, seed=seed, locked=list(locked),
                             rule=rule, target=target, target_stat=target_stat, weighting=weighting,
                             warm=not cold, max_pixels=max_pixels, progress=lambda k: bar.update(1))
@@ -114,10 +112,10 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
             from quantize.report.page import write_report
 
             pal = res.chosen.palette
-            mapped = [pal.apply(pic, sample=smp) for pic, smp in decoded]
+            mapped = [pal.apply(pic) for pic in pictures]
             title = f"Palette size sweep: {', '.join(Path(i).name for i in images)}"
-            written.append(str(write_report(report_dir, original_picture=[pic for pic, _ in decoded],
-                                            mapped=mapped, palette=pal, sweep=res, title=title, force=force)))
+            written.append(str(write_report(report_dir, original_picture=pictures, mapped=mapped,
+                                            palette=pal, sweep=res, title=title, force=force)))
         return res, written
 
     res, written = _run(ctx, work)

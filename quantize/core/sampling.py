@@ -14,19 +14,19 @@ sees every distinct colour with its true weight.
 
 from __future__ import annotations
 
-import threading
-from collections.abc import Callable, Hashable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from quantize.core.derived import DerivedCache
 from quantize.core.picture import Picture
 
 if TYPE_CHECKING:
     import numpy.typing as npt
 
-__all__ = ["ColourSample", "DerivedCache", "pool_samples", "sample_picture"]
+__all__ = ["ColourSample", "pool_samples", "sample_picture"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
@@ -41,47 +41,6 @@ _CLEAR = 1 << 24
 #: that is not intp to intp first; per block, that cast stays in cache
 #: instead of becoming a 96 MB temporary for 12 megapixels.
 _BLOCK = 1 << 18
-
-
-class DerivedCache:
-    """What a :class:`ColourSample` derives from its colours, computed once and kept.
-
-    A sample's perceptual coordinates, cell grids, binned means and (for the
-    dense path) its per-pixel inverse are pure functions of its colours, and
-    the fitting engine asks for the same ones at every palette size and from
-    several worker threads at once.  Each value is computed under a lock of
-    its own key: a second thread asking for a value being computed waits for
-    it instead of computing it again, and threads asking for different values
-    do not wait for each other.  A computation that raises stores nothing.
-
-    The cache belongs to one sample and lives as long as it; nothing else
-    writes into it.
-    """
-
-    def __init__(self) -> None:
-        self._values: dict[Hashable, Any] = {}
-        self._locks: dict[Hashable, threading.Lock] = {}
-        self._guard = threading.Lock()  # guards the two dicts, never held while computing
-
-    def get(self, key: Hashable, compute: Callable[[], Any]) -> Any:
-        """The value under ``key``, from ``compute()`` on the first call."""
-        with self._guard:
-            if key in self._values:
-                return self._values[key]
-            lock = self._locks.setdefault(key, threading.Lock())
-        with lock:
-            with self._guard:
-                if key in self._values:  # computed while this thread waited
-                    return self._values[key]
-            value = compute()
-            with self._guard:
-                self._values[key] = value
-                self._locks.pop(key, None)
-        return value
-
-    def __contains__(self, key: Hashable) -> bool:
-        with self._guard:
-            return key in self._values
 
 
 class _LazyInverse:
@@ -128,12 +87,6 @@ class ColourSample:
         ``(H, W)`` of the single image, None for a pooled sample.
     n_pixels : int
         Opaque pixels counted (before any pooling scale).
-    source : str
-        The image the sample was taken from (its ``Picture.source``), or
-        ``"<colour sample>"`` for a pooled or hand-made sample.
-    warnings : tuple of str
-        The warnings raised while reading that image, so that a fit given
-        the sample instead of the picture still reports them.
 
     Notes
     -----
@@ -149,8 +102,6 @@ class ColourSample:
     inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
-    source: str = "<colour sample>"
-    warnings: tuple[str, ...] = ()
     #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
     #: where transparent.
     _packed: np.ndarray | None = None
@@ -217,6 +168,38 @@ class ColourSample:
         table[:-1] = values
         table[-1] = fill  # the row -1 of transparent pixels reads this slot
         return _take_blocks(table, self.inverse)
+
+    def keep_mapping(self, palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
+        """Keep the mapping of these colours onto ``palette`` by ``metric``, for reuse.
+
+        The fitting engine maps the sample onto every candidate palette to
+        measure it, and keeps the mapping of the palette it returns, so
+        that mapping the same picture onto that palette (as ``quantize
+        reduce`` does) does not repeat the work.  One mapping is kept per
+        sample; a new one replaces it.  The arrays become read-only.
+
+        Parameters
+        ----------
+        palette : Palette
+        metric : {"ciede2000", "space"}
+        labels : ndarray of shape (n_colours,)
+            Palette index of each distinct colour.
+        delta_e : ndarray of shape (n_colours,)
+            CIEDE2000 of each distinct colour to its palette colour.
+        """
+        for a in (labels, delta_e):
+            if np.shape(a) != (self.n_colours,):
+                raise ValueError(f"a mapping holds one value per distinct colour, shape ({self.n_colours},); "
+                                 f"got {np.shape(a)}")
+            a.setflags(write=False)
+        self._cache.put("kept mapping", (_mapping_key(palette, metric), labels, delta_e))
+
+    def kept_mapping(self, palette, metric: str) -> tuple[np.ndarray, np.ndarray] | None:
+        """``(labels, delta_e)`` kept by :meth:`keep_mapping` for this palette and metric, else None."""
+        kept = self._cache.peek("kept mapping")
+        if kept is None or kept[0] != _mapping_key(palette, metric):
+            return None
+        return kept[1], kept[2]
 
     @property
     def n_colours(self) -> int:
@@ -291,6 +274,11 @@ class ColourSample:
         return inv.ravel(), int(cells.size)
 
 
+def _mapping_key(palette, metric: str) -> tuple:
+    # The 8-bit colours fix the CIEDE2000 mapping; the space too fixes the Euclidean one.
+    return (palette.rgb8.tobytes(), palette.space, metric)
+
+
 def _pack(rgb: np.ndarray, bit_depth: int) -> np.ndarray:
     """One integer per colour: R, G, B in descending significance."""
     if bit_depth == 8:
@@ -351,6 +339,8 @@ def sample_picture(picture: Picture) -> ColourSample:
     ColourSample
         With ``shape`` and ``inverse`` set, so that per-colour results can be
         spread back onto pixels exactly (see :meth:`ColourSample.index_image`).
+        Computed on the first call and kept by the picture: every later call
+        with the same picture returns the same sample.
 
     Examples
     --------
@@ -361,7 +351,7 @@ def sample_picture(picture: Picture) -> ColourSample:
     >>> s.codes.tolist(), s.weights.tolist()
     ([[0, 0, 255], [255, 0, 0]], [1.0, 2.0])
     """
-    return _sample(picture)
+    return picture._derived.get("colour sample", lambda: _sample(picture))
 
 
 def _sample(picture: Picture) -> ColourSample:
@@ -388,8 +378,6 @@ def _sample(picture: Picture) -> ColourSample:
         inverse=inverse,
         shape=(h, w),
         n_pixels=n_opaque,
-        source=picture.source,
-        warnings=tuple(picture.warnings),
     )
 
 
@@ -420,8 +408,6 @@ def _sample_dense(picture: Picture, clear: np.ndarray | None, n_opaque: int) -> 
         bit_depth=8,
         shape=rgb.shape[:2],
         n_pixels=n_opaque,
-        source=picture.source,
-        warnings=tuple(picture.warnings),
         _packed=packed.astype(np.uint32),  # kept for the lifetime of the sample: half the memory
     )
 

@@ -40,8 +40,8 @@ def resolve_metric(metric: str | None, dither: str = "none") -> str:
 def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
     """Map the distinct colours of a sample onto a palette.
 
-    Nothing is kept between calls: a caller that needs the same mapping
-    twice keeps the result.
+    A mapping the fit kept with the sample for this palette and metric
+    (:meth:`ColourSample.keep_mapping`) is returned as it is.
 
     Returns
     -------
@@ -50,6 +50,9 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
     delta_e : ndarray of shape (n,)
         CIEDE2000 of each distinct colour to its palette colour.
     """
+    kept = sample.kept_mapping(palette, metric)
+    if kept is not None:
+        return kept
     lab = sample.points("lab")
     if metric == "ciede2000":
         return nearest_ciede2000(lab, palette.lab)

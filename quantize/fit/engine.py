@@ -103,10 +103,9 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None):
 
     samples, sources, notes = [], [], []
     for item in _as_list(images):
-        if isinstance(item, ColourSample):  # already sampled: a picture's, or a batch's pooled histogram
+        if isinstance(item, ColourSample):  # already sampled (e.g. a batch's pooled histogram)
             samples.append(item)
-            sources.append(item.source)
-            notes.extend(f"{item.source}: {w}" for w in item.warnings)
+            sources.append("<colour sample>")
             continue
         if isinstance(item, (str, bytes)) or hasattr(item, "__fspath__"):
             pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
@@ -474,6 +473,8 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     choice = choose_k(ks_c, [c.delta_e for c in cands], [c.robust for c in cands],
                       rule=rule if len(cands) > 1 else "bic", target=target, target_stat=target_stat)
     chosen = cands[ks_c.index(choice.k)]
+    # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
+    sample.keep_mapping(chosen.palette, metric, chosen.labels, chosen.per_colour_de)
     reason = choice.reason if len(cands) > 1 else "fixed palette size"
     if len(ks) == 1 and chosen.k < ks[0]:
         reason = f"asked for {ks[0]}; only {chosen.k} distinct colours are available"
