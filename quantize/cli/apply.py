@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -87,8 +88,10 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                     raise
                 results.append(res)
                 extras.append((dextra, dlines))
-                if report_dir:  # kept for the page only: without one, a picture lives for its own image
-                    pictures.append(pic)
+                if report_dir:
+                    # The page needs the pixels, not the colour sample the picture keeps: a copy
+                    # (same read-only arrays, empty cache) lets the sample go with this image.
+                    pictures.append(dataclasses.replace(pic))
                 bar.update(1)
         if report_dir:
             from quantize.report.page import write_report
