@@ -119,7 +119,7 @@ def test_compiled_cluster_sums_are_bit_identical_to_bincount():
         assert_array_equal(sums[:, t], np.bincount(labels, weights=w * pts[:, t], minlength=9))
 
 
-def test_mapping_cache_is_keyed_by_palette_and_metric():
+def test_map_sample_follows_the_palette_and_metric_of_each_call():
     from quantize.core.sampling import sample_picture
     from quantize.fit.assign import map_sample
     from quantize.io.read import as_picture

@@ -13,6 +13,8 @@ real photograph from scikit-image's bundled samples.
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 import pytest
 
@@ -138,9 +140,9 @@ def test_inverse_is_built_once(monkeypatch):
     monkeypatch.setattr(sampling, "_DENSE_FROM", 1)
     rng = np.random.default_rng(RNG_SEED + 3)
     smp = sampling._sample(random_picture(rng, (30, 20)))
-    assert "_inverse" not in vars(smp) or vars(smp)["_inverse"] is None  # not built by sampling
+    assert "inverse" not in smp._cache  # not built by sampling
     first = smp.inverse
-    assert smp.inverse is first
+    assert "inverse" in smp._cache and smp.inverse is first
 
 
 @pytest.mark.parametrize("alpha", ["none", "some"])
@@ -191,7 +193,109 @@ def test_index_image_rejects_bad_input():
         pooled.index_image(np.zeros(pooled.n_colours, np.int64))
 
 
-def test_sample_picture_caches_per_picture():
+def test_picture_keeps_its_sample():
+    # The picture owns its sample: fitting and mapping one picture collapse it once.  Another
+    # picture of the same pixels is another object, with a sample of its own.
     rng = np.random.default_rng(RNG_SEED + 7)
     pic = random_picture(rng, (12, 9))
-    assert sample_picture(pic) is sample_picture(pic)
+    first = sample_picture(pic)
+    assert sample_picture(pic) is first
+    twin = Picture(rgb=pic.rgb.copy(), alpha=pic.alpha.copy())
+    other = sample_picture(twin)
+    assert other is not first
+    np.testing.assert_array_equal(other.codes, first.codes)
+    np.testing.assert_array_equal(other.weights, first.weights)
+
+
+def test_kept_mapping_is_returned_only_for_its_palette_and_metric():
+    from quantize.palette import Palette
+
+    rng = np.random.default_rng(RNG_SEED + 8)
+    smp = sample_picture(random_picture(rng, (10, 10)))
+    a = Palette(rgb8=np.array([[0, 0, 0], [255, 255, 255]], np.uint8), locked=None)
+    b = Palette(rgb8=np.array([[0, 0, 0], [250, 255, 255]], np.uint8), locked=None)
+    labels, de = np.zeros(smp.n_colours, np.intp), np.ones(smp.n_colours)
+    smp.keep_mapping(a, "ciede2000", labels, de)
+    got = smp.kept_mapping(a, "ciede2000")
+    assert got[0] is labels and got[1] is de and not labels.flags.writeable
+    assert smp.kept_mapping(a, "space") is None and smp.kept_mapping(b, "ciede2000") is None
+    with pytest.raises(ValueError, match="one value per distinct colour"):
+        smp.keep_mapping(b, "ciede2000", labels[:-1], de[:-1])
+
+
+def _count_calls(monkeypatch, name: str) -> list:
+    """Count calls of ``ColourSample.<name>``, each held open a moment so that other threads
+    asking for the same value arrive while it is being computed."""
+    calls = []
+    real = getattr(sampling.ColourSample, name)
+
+    def counted(self, *args):
+        calls.append(args)
+        time.sleep(0.05)
+        return real(self, *args)
+
+    monkeypatch.setattr(sampling.ColourSample, name, counted)
+    return calls
+
+
+def test_derived_arrays_are_computed_once_when_threads_share_a_sample(monkeypatch):
+    # The fitting engine's worker threads share one sample; the sample of a picture and each
+    # array derived from a sample are computed by one thread only, and every thread gets it.
+    # The reference for the values is the colour module's own conversion of the distinct colours.
+    from concurrent.futures import ThreadPoolExecutor
+
+    from quantize.colour.spaces import srgb8_to_space
+
+    rng = np.random.default_rng(RNG_SEED + 9)
+    pic = random_picture(rng, (60, 50), n_palette=400)
+    samplings = []
+    real = sampling._sample
+
+    def counted(picture):
+        samplings.append(picture)
+        time.sleep(0.05)
+        return real(picture)
+
+    monkeypatch.setattr(sampling, "_sample", counted)
+    point_calls = _count_calls(monkeypatch, "_points_in")
+    bin_calls = _count_calls(monkeypatch, "_cell_means")
+    with ThreadPoolExecutor(max_workers=6) as pool:
+        samples = list(pool.map(lambda _: sample_picture(pic), range(12)))
+        smp = samples[0]
+        points = list(pool.map(lambda _: smp.points("lab"), range(12)))
+        binned = list(pool.map(lambda _: smp.binned("lab", max_points=100, bits=None), range(12)))
+    assert len(samplings) == 1 and all(s is smp for s in samples)
+    assert point_calls == [("lab",)]
+    assert bin_calls == [("lab", 100, None)]
+    assert all(p is points[0] for p in points) and all(b[0] is binned[0][0] for b in binned)
+    np.testing.assert_allclose(points[0], srgb8_to_space(smp.codes, "lab"), rtol=0, atol=1e-12)
+    assert len(binned[0][1]) < smp.n_colours and binned[0][1].sum() == pytest.approx(smp.weights.sum())
+
+
+def test_derived_cache_stores_nothing_when_a_computation_fails():
+    from quantize.core.derived import DerivedCache
+
+    cache = DerivedCache()
+
+    def fail():
+        raise RuntimeError("out of memory, say")
+
+    with pytest.raises(RuntimeError):
+        cache.get("key", fail)
+    assert "key" not in cache
+    assert cache.get("key", lambda: 7) == 7 and cache.get("key", fail) == 7
+
+
+def test_picture_and_sample_pickle_without_their_caches():
+    # Batch and Dask workers may receive pictures and samples: the caches' locks do not travel,
+    # and a copy computes what it needs afresh, to the same values.
+    import pickle
+
+    rng = np.random.default_rng(RNG_SEED + 10)
+    pic = random_picture(rng, (8, 7))
+    smp = sample_picture(pic)
+    smp.points("lab")
+    pic2, smp2 = pickle.loads(pickle.dumps((pic, smp)))
+    assert "colour sample" not in pic2._derived and ("points", "lab") not in smp2._cache
+    np.testing.assert_array_equal(sample_picture(pic2).codes, smp.codes)
+    np.testing.assert_array_equal(smp2.points("lab"), smp.points("lab"))

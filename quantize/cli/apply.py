@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -60,19 +61,23 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
 
     def work():
         from quantize.errors import QuantizeError
-        from quantize.io.read import check_image_file
+        from quantize.io.read import check_image_file, load_image
+        from quantize.kernels.loading import warm_up
 
+        warm_up()  # the compiled kernels load while the first image decodes
         pal = Palette.load(palette)
         for im in images:  # a file that is not an image stops the run before any output
             check_image_file(im, max_pixels=max_pixels)
         od.mkdir(parents=True, exist_ok=True)
-        results, extras = [], []
+        results, extras, pictures = [], [], []
         inputs = list(images) + [palette]
         with _progress(len(images), "mapping") as bar:
             for im, out, emap in zip(images, outs, maps):
                 try:
-                    res = pal.apply(im, **dopts.apply_kwargs(), metric=_metric(nearest), max_pixels=max_pixels)
-                    res, dextra, dlines = run_dither_outputs(im, res, dopts, force=force, inputs=inputs,
+                    # The one decode of this input: mapping, ΔE figures, error map and report share it.
+                    pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
+                    res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(nearest))
+                    res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=inputs,
                                                              error_map_path=emap)
                     res.save(out, force=force, inputs=inputs)
                 except QuantizeError as exc:
@@ -83,11 +88,15 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                     raise
                 results.append(res)
                 extras.append((dextra, dlines))
+                if report_dir:
+                    # The page needs the pixels, not the colour sample the picture keeps: a copy
+                    # (same read-only arrays, empty cache) lets the sample go with this image.
+                    pictures.append(dataclasses.replace(pic))
                 bar.update(1)
         if report_dir:
             from quantize.report.page import write_report
 
-            write_report(report_dir, original_picture=list(images), mapped=results, palette=pal,
+            write_report(report_dir, original_picture=pictures, mapped=results, palette=pal,
                          title=f"quantize apply: {Path(palette).name}", force=force)
         return pal, results, extras
 

@@ -6,8 +6,9 @@ library is imported inside the functions.  Use::
     @dither_options
     def reduce(ctx, ..., **opts):
         choice = pop_dither_options(opts)          # before the other options are read
-        res = pal.apply(image, **choice.apply_kwargs(), metric=..., max_pixels=...)
-        res, extra, lines = run_dither_outputs(image, res, choice, force=force, inputs=[image])
+        pic = load_image(image)                    # the one decode of the input
+        res = pal.apply(pic, **choice.apply_kwargs(), metric=...)
+        res, extra, lines = run_dither_outputs(pic, res, choice, force=force, inputs=[image])
         summary.update(extra)                      # JSON: dither, delta_e_filtered, viewing, error_map
         for line in lines: click.echo(line)        # human summary
 """
@@ -137,8 +138,8 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
 
     Parameters
     ----------
-    image : path or image
-        The input (the original pixels).
+    image : Picture
+        The input (the original pixels), as the command decoded it.
     result : MappedImage
         What ``Palette.apply`` returned for it.
     choice : DitherChoice
@@ -168,10 +169,13 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
     if choice.dither != "none":
         scan = ", serpentine" if choice.serpentine else ", raster"
         lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
+    filtered = None  # the filtered ΔE00 map: measured once, for the statistics and the error map
     if choice.viewing:
-        from quantize.quality.perception import with_filtered_delta_e
+        from quantize.quality.perception import delta_e_map, with_filtered_delta_e
 
-        result = with_filtered_delta_e(image, result, dpi=choice.view_dpi, distance_mm=choice.view_distance)
+        viewing = {"dpi": choice.view_dpi, "distance_mm": choice.view_distance}
+        filtered = delta_e_map(image, result, kind="filtered", **viewing)
+        result = with_filtered_delta_e(image, result, **viewing, pixel_delta_e=filtered)
         s, v = result.filtered.stats, result.filtered.viewing
         summary["delta_e_filtered"], summary["viewing"] = s, v
         lines.append(f"ΔE00 filtered (S-CIELAB, {v['dpi']:g} dpi at {v['distance_mm']:g} mm, "
@@ -182,7 +186,8 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
         from quantize.report.errormap import save_error_map
 
         save_error_map(target, image, result, kind=choice.error_map_kind, dpi=choice.view_dpi,
-                       distance_mm=choice.view_distance, force=force, inputs=inputs)
+                       distance_mm=choice.view_distance, force=force, inputs=inputs,
+                       pixel_delta_e=filtered if choice.error_map_kind == "filtered" else None)
         summary["error_map"] = str(target)
         lines.append(f"error map ({choice.error_map_kind} ΔE00): {target}")
     return result, summary, lines

@@ -79,6 +79,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     order_list = [s.strip() for s in order.split(",") if s.strip()] if order else None
 
     def work():
+        from quantize.io.read import load_image
         from quantize.palette import Palette
         from quantize.separation.choice import choose_palette
         from quantize.separation.inks import load_ink_library
@@ -86,9 +87,10 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
 
         pal = Palette.load(palette_file) if palette_file else None
         lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
-        pal, info = choose_palette(image, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
-        sep = run(image, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm,
-                  min_line_mm=min_line_mm, underbase=underbase, choke_mm=choke_mm, order=order_list)
+        pic = load_image(image)  # the one decode: choosing the inks and making the plates share it
+        pal, info = choose_palette(pic, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
+        sep = run(pic, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
+                  underbase=underbase, choke_mm=choke_mm, order=order_list)
         sep = replace(sep, settings=replace(sep.settings, inks_from=info))
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
         notes = list(sep.notes) + (list(lib.notes) if lib else [])

@@ -40,6 +40,15 @@ def _png_path(ctx, param, value):
     return value
 
 
+def _decoded(images, max_pixels) -> list:
+    """A Picture of every input: each file decoded once."""
+    from quantize.io.read import load_image
+    from quantize.kernels.loading import warm_up
+
+    warm_up()  # the compiled kernels load while the images decode
+    return [load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels) for im in images]
+
+
 @click.command()
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
 @click.option("-k", "--colours", "ks", default=DEFAULT_K_TEXT, show_default=True, callback=_range_option,
@@ -99,8 +108,10 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     def work():
         from quantize.fit.sweep import sweep as run_sweep
 
+        # The report maps every input again: then decode each once, up front, for both.
+        pictures = _decoded(images, max_pixels) if report_dir else []
         with _progress(len(ks), "sweeping") as bar:
-            res = run_sweep(list(images), (ks[0], ks[-1]), settings=settings, max_pixels=max_pixels,
+            res = run_sweep(pictures or list(images), (ks[0], ks[-1]), settings=settings, max_pixels=max_pixels,
                             progress=lambda k: bar.update(1))
         written = []
         if table_csv:
@@ -118,9 +129,9 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
             from quantize.report.page import write_report
 
             pal = res.chosen.palette
-            mapped = [pal.apply(im, max_pixels=max_pixels) for im in images]
+            mapped = [pal.apply(pic) for pic in pictures]
             title = f"Palette size sweep: {', '.join(Path(i).name for i in images)}"
-            written.append(str(write_report(report_dir, original_picture=list(images), mapped=mapped,
+            written.append(str(write_report(report_dir, original_picture=pictures, mapped=mapped,
                                             palette=pal, sweep=res, title=title, force=force)))
         return res, written
 

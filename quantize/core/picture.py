@@ -7,9 +7,11 @@ and the warnings raised while reading one.  Split out of
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
+
+from quantize.core.derived import DerivedCache
 
 __all__ = ["ImageWarning", "Picture", "ProfileWarning"]
 
@@ -48,6 +50,14 @@ class Picture:
     ValueError
         If the arrays do not have the shapes and dtypes above.
 
+    Notes
+    -----
+    The pixels never change, so what later stages derive from them (the
+    colour sample, :func:`quantize.core.sampling.sample_picture`) is
+    computed once and kept in a :class:`~quantize.core.derived.DerivedCache`
+    the picture owns: fitting a palette to a picture and mapping the same
+    picture collapse it to its colours once.
+
     Examples
     --------
     >>> import numpy as np
@@ -63,6 +73,7 @@ class Picture:
     source: str = "<array>"
     profile: str | None = None
     warnings: tuple[str, ...] = ()
+    _derived: DerivedCache = field(default_factory=DerivedCache, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         rgb = self.rgb

@@ -14,13 +14,13 @@ sees every distinct colour with its true weight.
 
 from __future__ import annotations
 
-import weakref
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
 
+from quantize.core.derived import DerivedCache
 from quantize.core.picture import Picture
 
 if TYPE_CHECKING:
@@ -44,24 +44,25 @@ _BLOCK = 1 << 18
 
 
 class _LazyInverse:
-    """``ColourSample.inverse``: kept when given, else built on first access.
+    """``ColourSample.inverse``: the array given, else built on first access.
 
     The dense path keeps only the pixels' packed codes; most callers want an
     index image (:meth:`ColourSample.index_image`), which one lookup in a
     small table indexed by packed code gives directly, so the int32 row of
-    every pixel is only built for callers that ask for it.
+    every pixel is only built (into the sample's :class:`DerivedCache`) for
+    callers that ask for it.
     """
 
     def __get__(self, obj, objtype=None):
         if obj is None:
             return None  # the dataclass default
-        inverse = obj.__dict__.get("_inverse")
-        if inverse is None and obj._packed is not None:
-            inverse = obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1)
-            obj.__dict__["_inverse"] = inverse  # frozen: bypass __setattr__, as a cache
-        return inverse
+        given = obj.__dict__.get("_inverse")
+        if given is not None or obj._packed is None:
+            return given
+        return obj._cache.get("inverse", lambda: obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1))
 
     def __set__(self, obj, value):
+        # Only the dataclass __init__ sets it (the instance is frozen).
         obj.__dict__["_inverse"] = value
 
 
@@ -86,6 +87,13 @@ class ColourSample:
         ``(H, W)`` of the single image, None for a pooled sample.
     n_pixels : int
         Opaque pixels counted (before any pooling scale).
+
+    Notes
+    -----
+    The arrays above never change.  What is derived from them (points per
+    space, binned means, the lazily built ``inverse``) is computed on first
+    use and kept in a :class:`DerivedCache` the sample owns, so a sample may
+    be shared between threads.
     """
 
     codes: np.ndarray
@@ -94,10 +102,10 @@ class ColourSample:
     inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
-    _points: dict = field(default_factory=dict)
     #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
     #: where transparent.
     _packed: np.ndarray | None = None
+    _cache: DerivedCache = field(default_factory=DerivedCache, init=False, repr=False, compare=False)
 
     def __repr__(self) -> str:
         # Not the dataclass repr: it would print (and build) ``inverse``.
@@ -161,6 +169,38 @@ class ColourSample:
         table[-1] = fill  # the row -1 of transparent pixels reads this slot
         return _take_blocks(table, self.inverse)
 
+    def keep_mapping(self, palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
+        """Keep the mapping of these colours onto ``palette`` by ``metric``, for reuse.
+
+        The fitting engine maps the sample onto every candidate palette to
+        measure it, and keeps the mapping of the palette it returns, so
+        that mapping the same picture onto that palette (as ``quantize
+        reduce`` does) does not repeat the work.  One mapping is kept per
+        sample; a new one replaces it.  The arrays become read-only.
+
+        Parameters
+        ----------
+        palette : Palette
+        metric : {"ciede2000", "space"}
+        labels : ndarray of shape (n_colours,)
+            Palette index of each distinct colour.
+        delta_e : ndarray of shape (n_colours,)
+            CIEDE2000 of each distinct colour to its palette colour.
+        """
+        for a in (labels, delta_e):
+            if np.shape(a) != (self.n_colours,):
+                raise ValueError(f"a mapping holds one value per distinct colour, shape ({self.n_colours},); "
+                                 f"got {np.shape(a)}")
+            a.setflags(write=False)
+        self._cache.put("kept mapping", (_mapping_key(palette, metric), labels, delta_e))
+
+    def kept_mapping(self, palette, metric: str) -> tuple[np.ndarray, np.ndarray] | None:
+        """``(labels, delta_e)`` kept by :meth:`keep_mapping` for this palette and metric, else None."""
+        kept = self._cache.peek("kept mapping")
+        if kept is None or kept[0] != _mapping_key(palette, metric):
+            return None
+        return kept[1], kept[2]
+
     @property
     def n_colours(self) -> int:
         """Number of distinct colours."""
@@ -171,16 +211,17 @@ class ColourSample:
         return self.codes.astype(np.float64) / (2**self.bit_depth - 1)
 
     def points(self, space: str) -> np.ndarray:
-        """Distinct colours in the perceptual ``space``, cached per space."""
+        """Distinct colours in the perceptual ``space``, computed once per space."""
+        return self._cache.get(("points", space), lambda: self._points_in(space))
+
+    def _points_in(self, space: str) -> np.ndarray:
         from quantize.colour.spaces import srgb8_to_space, to_space
 
-        if space not in self._points:
-            if self.bit_depth == 8:
-                pts = srgb8_to_space(self.codes, space)
-            else:
-                pts = to_space(self.float_rgb(), space)
-            self._points[space] = np.ascontiguousarray(pts, dtype=np.float64)
-        return self._points[space]
+        if self.bit_depth == 8:
+            pts = srgb8_to_space(self.codes, space)
+        else:
+            pts = to_space(self.float_rgb(), space)
+        return np.ascontiguousarray(pts, dtype=np.float64)
 
     def binned(self, space: str, *, max_points: int = 20_000, bits: int | None = _BIN_BITS
                ) -> tuple[np.ndarray, np.ndarray]:
@@ -189,7 +230,8 @@ class ColourSample:
         Colours are grouped by the top ``bits`` bits of each sRGB channel;
         each cell becomes one point at the weighted mean of its members'
         perceptual coordinates, carrying their total weight.  Below
-        ``max_points`` distinct colours nothing is binned.
+        ``max_points`` distinct colours nothing is binned.  Each result is
+        computed once per sample: every palette size and refinement reuses it.
 
         Parameters
         ----------
@@ -206,25 +248,22 @@ class ColourSample:
         points : ndarray of shape (m, 3)
         weights : ndarray of shape (m,)
         """
-        key = ("binned", space, max_points, bits)
-        if key in self._points:
-            return self._points[key]
-        pts = self.points(space)
         if self.n_colours <= max_points:
-            return pts, self.weights
-        inv, n_cells = self._cells(max_points, bits)
+            return self.points(space), self.weights
+        return self._cache.get(("binned", space, max_points, bits),
+                               lambda: self._cell_means(space, max_points, bits))
+
+    def _cell_means(self, space: str, max_points: int, bits: int | None) -> tuple[np.ndarray, np.ndarray]:
+        pts = self.points(space)
+        inv, n_cells = self._cache.get(("cells", max_points, bits), lambda: self._cells(max_points, bits))
         w = np.bincount(inv, weights=self.weights, minlength=n_cells)
         means = np.empty((n_cells, pts.shape[1]))
         for j in range(pts.shape[1]):
             means[:, j] = np.bincount(inv, weights=self.weights * pts[:, j], minlength=n_cells) / w
-        self._points[key] = (means, w)  # every palette size and refinement reuses it
         return means, w
 
     def _cells(self, max_points: int, bits: int | None) -> tuple[np.ndarray, int]:
         """Cell of every distinct colour (numbered in code order) and the cell count."""
-        key = ("cells", max_points, bits)
-        if key in self._points:
-            return self._points[key]
         for b in ((bits,) if bits is not None else (7, 6, _BIN_BITS)):
             shift = self.bit_depth - b
             c = self.codes.astype(np.int64) >> shift
@@ -232,8 +271,12 @@ class ColourSample:
             cells, inv = np.unique(cell, return_inverse=True)
             if cells.size <= max_points or bits is not None:
                 break
-        self._points[key] = (inv.ravel(), int(cells.size))
-        return self._points[key]
+        return inv.ravel(), int(cells.size)
+
+
+def _mapping_key(palette, metric: str) -> tuple:
+    # The 8-bit colours fix the CIEDE2000 mapping; the space too fixes the Euclidean one.
+    return (palette.rgb8.tobytes(), palette.space, metric)
 
 
 def _pack(rgb: np.ndarray, bit_depth: int) -> np.ndarray:
@@ -283,11 +326,6 @@ def _take_blocks(table: np.ndarray, index: np.ndarray) -> np.ndarray:
     return out
 
 
-# One sample per picture object: fitting and mapping the same picture (as
-# ``quantize reduce`` does) collapse it once.
-_CACHE: weakref.WeakKeyDictionary[Picture, ColourSample] = weakref.WeakKeyDictionary()
-
-
 def sample_picture(picture: Picture) -> ColourSample:
     """Collapse a picture to its distinct opaque colours and pixel counts.
 
@@ -301,6 +339,8 @@ def sample_picture(picture: Picture) -> ColourSample:
     ColourSample
         With ``shape`` and ``inverse`` set, so that per-colour results can be
         spread back onto pixels exactly (see :meth:`ColourSample.index_image`).
+        Computed on the first call and kept by the picture: every later call
+        with the same picture returns the same sample.
 
     Examples
     --------
@@ -311,12 +351,7 @@ def sample_picture(picture: Picture) -> ColourSample:
     >>> s.codes.tolist(), s.weights.tolist()
     ([[0, 0, 255], [255, 0, 0]], [1.0, 2.0])
     """
-    cached = _CACHE.get(picture)
-    if cached is not None:
-        return cached
-    smp = _sample(picture)
-    _CACHE[picture] = smp
-    return smp
+    return picture._derived.get("colour sample", lambda: _sample(picture))
 
 
 def _sample(picture: Picture) -> ColourSample:
@@ -326,7 +361,7 @@ def _sample(picture: Picture) -> ColourSample:
     all_opaque = opaque is None or bool(opaque.all())
     n_opaque = h * w if all_opaque else int(np.count_nonzero(opaque))
     if bits == 8 and n_opaque >= _DENSE_FROM:
-        return _sample_dense(picture.rgb, None if all_opaque else ~opaque, n_opaque)
+        return _sample_dense(picture, None if all_opaque else ~opaque, n_opaque)
     packed = _pack_pixels(picture.rgb, np.uint32) if bits == 8 else _pack(picture.rgb.reshape(-1, 3), bits)
     sel = packed if all_opaque else packed[opaque]
     present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
@@ -346,12 +381,13 @@ def _sample(picture: Picture) -> ColourSample:
     )
 
 
-def _sample_dense(rgb: np.ndarray, clear: np.ndarray | None, n_opaque: int) -> ColourSample:
+def _sample_dense(picture: Picture, clear: np.ndarray | None, n_opaque: int) -> ColourSample:
     """Sample an 8-bit image through a histogram over all 2**24 codes.
 
     Exact, and several times faster than sorting from a quarter of a
     megapixel; below that, touching the 128 MB table costs more than a sort.
     """
+    rgb = picture.rgb
     # int64 because bincount casts any other index to it, a 96 MB copy.
     packed = _pack_pixels(rgb, np.int64)
     if clear is not None:

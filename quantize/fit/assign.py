@@ -40,6 +40,9 @@ def resolve_metric(metric: str | None, dither: str = "none") -> str:
 def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
     """Map the distinct colours of a sample onto a palette.
 
+    A mapping the fit kept with the sample for this palette and metric
+    (:meth:`ColourSample.keep_mapping`) is returned as it is.
+
     Returns
     -------
     labels : ndarray of shape (n,)
@@ -47,21 +50,11 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
     delta_e : ndarray of shape (n,)
         CIEDE2000 of each distinct colour to its palette colour.
     """
-
-    # The last mapping is kept with the sample: fitting measures the palette
-    # it returns, and applying that palette to the same picture would
-    # otherwise repeat the work.
-    key = ("mapped", palette.rgb8.tobytes(), palette.space, metric)
-    last = sample._points.get("mapped")
-    if last is not None and last[0] == key:
-        return last[1], last[2]
+    kept = sample.kept_mapping(palette, metric)
+    if kept is not None:
+        return kept
     lab = sample.points("lab")
     if metric == "ciede2000":
-        labels, de = nearest_ciede2000(lab, palette.lab)
-    else:
-        labels = assign_nearest(sample.points(palette.space), palette.points())[0]
-        de = ciede2000_to(lab, palette.lab, labels)
-    labels.setflags(write=False)
-    de.setflags(write=False)
-    sample._points["mapped"] = (key, labels, de)
-    return labels, de
+        return nearest_ciede2000(lab, palette.lab)
+    labels = assign_nearest(sample.points(palette.space), palette.points())[0]
+    return labels, ciede2000_to(lab, palette.lab, labels)

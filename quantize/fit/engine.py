@@ -526,7 +526,10 @@ def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max
     for n in record.notes[len(load_notes):]:
         warnings.warn(n, PaletteSizeWarning, stacklevel=2)
     chosen = cands[[c.palette.k for c in cands].index(record.k)]
-    return Palette(chosen.palette.rgb8, chosen.palette.locked, settings.space, fit=record)
+    pal = Palette(chosen.palette.rgb8, chosen.palette.locked, settings.space, fit=record)
+    # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
+    sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
+    return pal
 
 
 def _record(sample, ks, cands, settings: FitSettings, sources, notes) -> FitRecord:

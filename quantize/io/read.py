@@ -280,6 +280,8 @@ def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIX
 
 
 def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_Note]]:
+    """Decode a file: the one place a file's pixels are read (:func:`load_image` and
+    :func:`as_picture` both come here; tests/test_decode_once.py counts the calls)."""
     name, p, head = _file_head(path, max_pixels)
 
     from quantize.io import _deep as _deep

@@ -207,19 +207,21 @@ def _delta_e_chunked(lab1: np.ndarray, lab2: np.ndarray) -> np.ndarray:
     return out.reshape(lab1.shape[:-1])
 
 
-def _pair(original, mapped):
-    """Linear-light RGB of both images (decoded through lookup tables) and the
-    opaque mask; transparent pixels of the result take the original's value."""
-    from quantize.colour.spaces import srgb_to_linear
-    from quantize.io.read import as_picture
+def _is_mapped(result) -> bool:
+    return hasattr(result, "indices") and hasattr(result, "palette")
 
-    pic = as_picture(original)
+
+def _pair(pic, mapped):
+    """Linear-light RGB of a Picture and of its reduction (a MappedImage or a
+    Picture), decoded through lookup tables, and the opaque mask; transparent
+    pixels of the result take the original's value."""
+    from quantize.colour.spaces import srgb_to_linear
+
     lin = srgb_to_linear(np.arange(pic.max_code + 1) / pic.max_code)[pic.rgb]
-    if hasattr(mapped, "indices") and hasattr(mapped, "palette"):
+    if _is_mapped(mapped):
         out = srgb_to_linear(mapped.palette.rgb8 / 255.0)[mapped.indices]
     else:
-        other = as_picture(np.asarray(mapped))
-        out = srgb_to_linear(np.arange(other.max_code + 1) / other.max_code)[other.rgb]
+        out = srgb_to_linear(np.arange(mapped.max_code + 1) / mapped.max_code)[mapped.rgb]
     if out.shape != lin.shape:
         raise ValueError(f"the two images differ in size: {lin.shape[:2]} and {out.shape[:2]}")
     opaque = pic.opaque
@@ -268,11 +270,13 @@ def delta_e_map(original, mapped, *, kind: str = "plain", dpi=None, distance_mm=
     0.0
     """
     from quantize.colour.spaces import SRGB_TO_XYZ, xyz_to_lab
+    from quantize.io.read import as_picture
 
     if kind not in ("plain", "filtered"):
         raise ValueError(f"unknown error-map kind {kind!r}; valid names: plain, filtered")
     ppd_value = viewing_ppd(dpi=dpi, distance_mm=distance_mm, ppd=ppd) if kind == "filtered" else None
-    lin, out, opaque = _pair(original, mapped)
+    result = mapped if _is_mapped(mapped) else as_picture(np.asarray(mapped))
+    lin, out, opaque = _pair(as_picture(original), result)
     if kind == "plain":
         lab1, lab2 = xyz_to_lab(lin @ SRGB_TO_XYZ.T), xyz_to_lab(out @ SRGB_TO_XYZ.T)
     else:
@@ -319,6 +323,10 @@ def filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, pp
     0.0
     """
     de = delta_e_map(original_picture, mapped, kind="filtered", dpi=dpi, distance_mm=distance_mm, ppd=ppd)
+    return _map_stats(de)
+
+
+def _map_stats(de: np.ndarray) -> dict[str, float]:
     return pixel_delta_e_stats(de[~np.isnan(de)])
 
 
@@ -350,7 +358,8 @@ class FilteredDeltaE:
         return {"dpi": self.dpi, "distance_mm": self.distance_mm, "ppd": self.ppd}
 
 
-def with_filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, ppd=None):
+def with_filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, ppd=None,
+                          pixel_delta_e=None):
     """A copy of ``mapped`` that also reports the filtered statistics.
 
     ``delta_e`` keeps the plain statistics under ``mean``, ``median``,
@@ -358,9 +367,35 @@ def with_filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=Non
     ``filtered_mean``, ``filtered_median``, ``filtered_p95``,
     ``filtered_max``; ``filtered`` (a :class:`FilteredDeltaE`) holds the same
     four and the viewing condition.
+
+    Parameters
+    ----------
+    original_picture, mapped, dpi, distance_mm, ppd
+        As :func:`delta_e_map`.
+    pixel_delta_e : ndarray of shape (H, W), optional
+        The filtered map of this pair at this viewing condition, from
+        :func:`delta_e_map` with ``kind="filtered"``, when the caller already
+        has it (to draw an error map, say): the images are then not
+        filtered again.
+
+    Raises
+    ------
+    ValueError
+        As :func:`delta_e_map`, or ``pixel_delta_e`` is not of the image's size.
     """
     ppd_value = viewing_ppd(dpi=dpi, distance_mm=distance_mm, ppd=ppd)
-    stats = filtered_delta_e(original_picture, mapped, ppd=ppd_value)
+    if pixel_delta_e is None:
+        stats = filtered_delta_e(original_picture, mapped, ppd=ppd_value)
+    else:
+        stats = _map_stats(check_map_shape(pixel_delta_e, mapped.indices.shape))
     both = {**mapped.delta_e, **{f"filtered_{k}": v for k, v in stats.items()}}
     filtered = FilteredDeltaE(stats=stats, dpi=dpi, distance_mm=distance_mm, ppd=round(ppd_value, 3))
     return dataclasses.replace(mapped, delta_e=both, filtered=filtered)
+
+
+def check_map_shape(pixel_delta_e, shape) -> np.ndarray:
+    """``pixel_delta_e`` as a float array, if it is an (H, W) map of an image of ``shape``, else ValueError."""
+    de = np.asarray(pixel_delta_e, dtype=np.float64)
+    if de.shape != tuple(shape):
+        raise ValueError(f"the ΔE00 map given has shape {de.shape}, not the image's {tuple(shape)}")
+    return de

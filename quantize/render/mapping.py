@@ -40,7 +40,10 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
     max_pixels : int or None
         Decompression-bomb limit when ``image`` is a path.
     sample : ColourSample, optional
-        The image's sample if the caller already has it.
+        The sample of this very image (:func:`quantize.core.sampling.sample_picture`),
+        if the caller already has it, as after fitting a palette to it: the
+        image is then not collapsed to its colours again.  Used without
+        dithering.
 
     Returns
     -------
@@ -51,7 +54,7 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
     ImageReadError
         The file cannot be read.
     ValueError
-        Unknown ``dither`` or ``metric``.
+        Unknown ``dither`` or ``metric``, or a ``sample`` of another size.
     """
     from quantize.io.read import as_picture, load_image
     from quantize.kernels.loading import warm_up
@@ -62,6 +65,9 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
     else:
         pic = as_picture(image)
+    if sample is not None and sample.shape != pic.shape:
+        raise ValueError(f"{pic.source}: the colour sample given is of a {sample.shape} image, "
+                         f"not of this {pic.shape} one")
     if dither != "none":
         return dither_picture(pic, palette, method=dither, strength=strength, metric=metric,
                               serpentine=serpentine)

@@ -49,7 +49,7 @@ def _legend(width: int, vmax: float, title: str, stats_line: str) -> np.ndarray:
 
 
 def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                    vmax: float = 10.0) -> np.ndarray:
+                    vmax: float = 10.0, pixel_delta_e=None) -> np.ndarray:
     """The error map as an 8-bit RGB array.
 
     Parameters
@@ -64,6 +64,11 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     vmax : float, default=10.0
         ΔE00 at the top of the colour scale (common practice, no source:
         about 1 is just noticeable side by side, above 5 is a different colour).
+    pixel_delta_e : ndarray of shape (H, W), optional
+        The map of this ``kind`` already computed by
+        :func:`quantize.quality.perception.delta_e_map` for this pair and
+        viewing condition: drawn as it is instead of being measured again
+        (a filtered map costs two S-CIELAB filterings).
 
     Returns
     -------
@@ -91,13 +96,16 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     """
     from matplotlib import colormaps
 
-    from quantize.quality.perception import delta_e_map, pixel_delta_e_stats, viewing_ppd
+    from quantize.quality.perception import check_map_shape, delta_e_map, pixel_delta_e_stats, viewing_ppd
 
     if kind not in ERROR_MAP_KINDS:
         raise ValueError(f"unknown error-map kind {kind!r}; valid names: {', '.join(ERROR_MAP_KINDS)}")
     if not (isinstance(vmax, (int, float)) and np.isfinite(vmax) and vmax > 0):
         raise ValueError(f"error-map scale top (vmax) must be a positive number, got {vmax!r}")
-    de = delta_e_map(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd)
+    if pixel_delta_e is None:
+        de = delta_e_map(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd)
+    else:
+        de = check_map_shape(pixel_delta_e, np.shape(getattr(mapped, "indices", mapped))[:2])
     clear = np.isnan(de)
     lut = (np.asarray(colormaps[COLOUR_MAP](np.linspace(0.0, 1.0, 256)))[:, :3] * 255 + 0.5).astype(np.uint8)
     level = np.rint(np.clip(np.nan_to_num(de) / vmax, 0.0, 1.0) * 255).astype(np.intp)
@@ -125,8 +133,11 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
 
 
 def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                   vmax: float = 10.0, force: bool = False, inputs=()) -> Path:
+                   vmax: float = 10.0, force: bool = False, inputs=(), pixel_delta_e=None) -> Path:
     """Write :func:`error_map_image` as a PNG file, atomically.
+
+    The parameters are those of :func:`error_map_image`, and ``force`` and
+    ``inputs``.
 
     Raises
     ------
@@ -140,7 +151,8 @@ def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, dis
 
     from quantize.io.write import atomic_write_bytes
 
-    image = error_map_image(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd, vmax=vmax)
+    image = error_map_image(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd, vmax=vmax,
+                            pixel_delta_e=pixel_delta_e)
     buf = io.BytesIO()
     Image.fromarray(image).save(buf, format="PNG")
     atomic_write_bytes(path, buf.getvalue(), force=force, inputs=inputs)

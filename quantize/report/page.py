@@ -349,11 +349,22 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     ...              mapped=pal.apply("poster.png"))                      # doctest: +SKIP
     PosixPath('report/index.html')
     """
-    from PIL import Image
+    from quantize.io.write import atomic_write_text
 
-    from quantize.errors import OutputError
+    pics, results, maps = _report_inputs(original_picture, mapped, error_map_path)
+    pal = palette if palette is not None else results[0].palette
+    out = Path(folder)
+    suffix = (lambda i: "") if len(pics) == 1 else (lambda i: f"-{i + 1}")
+    files = _report_files(len(pics), maps, sweep is not None, suffix)
+    _make_report_folder(out, list(files) + [REPORT_PAGE], force)
+    sizes = _write_report_files(out, files, pics, results, maps, sweep, max_side, force)
+    page = _page(title, pics, results, pal, sweep, files, sizes, suffix)
+    return atomic_write_text(out / REPORT_PAGE, page, force=force)
+
+
+def _report_inputs(original_picture, mapped, error_map_path):
+    """The inputs as Pictures (each file decoded here, once), the results and the error maps, checked."""
     from quantize.io.read import as_picture, load_image
-    from quantize.io.write import atomic_write_bytes, atomic_write_text
 
     originals = _as_list(original_picture)
     results = _as_list(mapped)
@@ -365,29 +376,36 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     for m in maps:
         if not Path(m).is_file():
             raise ValueError(f"{m}: error map not found")
-    pal = palette if palette is not None else results[0].palette
     pics = [load_image(o) if isinstance(o, (str, bytes)) or hasattr(o, "__fspath__") else as_picture(o)
             for o in originals]
     for p, r in zip(pics, results):
         if tuple(p.rgb.shape[:2]) != tuple(r.indices.shape):
             raise ValueError(f"{p.source}: original is {p.rgb.shape[1]}x{p.rgb.shape[0]} px but its result is "
                              f"{r.indices.shape[1]}x{r.indices.shape[0]} px")
+    return pics, results, maps
 
-    out = Path(folder)
-    n = len(pics)
-    suffix = (lambda i: "") if n == 1 else (lambda i: f"-{i + 1}")
+
+def _report_files(n: int, maps, with_sweep: bool, suffix) -> dict[str, tuple[str, int]]:
+    """File name -> (kind, input number) of every file the page shows, in the order they are written."""
     files = {}
     for i in range(n):
         files[f"original{suffix(i)}.png"] = ("original", i)
         files[f"result{suffix(i)}.png"] = ("result", i)
         if maps:
             files[f"error-map{suffix(i)}{Path(maps[i]).suffix.lower() or '.png'}"] = ("map", i)
-    if sweep is not None:
+    if with_sweep:
         files.update({"sweep.png": ("plot", 0), "swatches.png": ("strip", 0), "sweep.csv": ("csv", 0)})
+    return files
+
+
+def _make_report_folder(out: Path, names, force: bool) -> None:
+    """Refuse before writing anything: a file in the way, or any file of the report unless ``force``."""
+    from quantize.errors import OutputError
+
     if out.exists() and not out.is_dir():
         raise OutputError(f"{out}: exists and is not a folder")
     if not force:
-        for name in list(files) + [REPORT_PAGE]:
+        for name in names:
             if (out / name).exists():
                 raise OutputError(f"{out / name}: already exists (use force / --force to replace the report)")
     try:
@@ -395,14 +413,16 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     except OSError as exc:
         raise OutputError(f"{out}: cannot create the report folder ({exc.strerror or exc})") from exc
 
+
+def _write_report_files(out: Path, files, pics, results, maps, sweep, max_side, force) -> list[tuple[int, int]]:
+    """Write the page's images (and the sweep table), each atomically; the displayed size of each input."""
+    from quantize.io.write import atomic_write_bytes
+
     sizes = []
     for name, (kind, i) in files.items():
         target = out / name
         if kind in ("original", "result"):
-            img = _rgb8_image(pics[i]) if kind == "original" else _result_image(results[i])
-            size = _fit_size(img.size, max_side)
-            if size != img.size:
-                img = img.resize(size, Image.Resampling.LANCZOS if kind == "original" else Image.Resampling.NEAREST)
+            img, size = _display_image(pics[i] if kind == "original" else results[i], kind, max_side)
             if kind == "original":
                 sizes.append(size)
             atomic_write_bytes(target, _png(img), force=force)
@@ -415,8 +435,22 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
             save_swatches(sweep, target, force=force)
         else:
             sweep.save_csv(target, force=force)
-    page = _page(title, pics, results, pal, sweep, files, sizes, suffix)
-    return atomic_write_text(out / REPORT_PAGE, page, force=force)
+    return sizes
+
+
+def _display_image(item, kind: str, max_side):
+    """An original (Picture) or result (MappedImage) as a PIL image no longer than ``max_side``, and its size.
+
+    The original is scaled smoothly; the result by nearest neighbour, so
+    that its colours stay the palette's.
+    """
+    from PIL import Image
+
+    img = _rgb8_image(item) if kind == "original" else _result_image(item)
+    size = _fit_size(img.size, max_side)
+    if size != img.size:
+        img = img.resize(size, Image.Resampling.LANCZOS if kind == "original" else Image.Resampling.NEAREST)
+    return img, size
 
 
 def _page(title, pics, results, pal, sweep, files, sizes, suffix) -> str:
