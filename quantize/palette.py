@@ -125,7 +125,7 @@ _FIT_KEYS = ("k", "rule", "reason", "k_requested", "space", "restarts", "seed", 
              "refine", "target", "target_stat", "images", "n_pixels", "n_distinct", "inertia", "refined",
              "delta_e", "candidates", "notes")
 #: Record fields that hold sequences (lists in the file, tuples in the record).
-_RECORD_LISTS = ("images", "notes", "locked", "candidates", "k_requested")
+_RECORD_LISTS = ("images", "notes", "locked", "candidates", "k_requested", "lost")
 
 
 @dataclass(frozen=True)
@@ -168,6 +168,21 @@ class FitRecord:
         Every size considered, ascending.
     notes : tuple of str
         What the user should know (few colours, merged colours, image warnings).
+    kind : str
+        The kind the fit was told the image is (``"auto"``: judge it).
+    judged : str
+        What the automatic rule took the image(s) to be: ``"artwork"`` or
+        ``"continuous tone"`` (None when no judgement was made).
+    kind_reason : str
+        Why, in one sentence.
+    lost : tuple of dict
+        Flat areas of at least 0.1 % whose nearest palette colour is 10 ΔE00
+        or more away: colour (``lab``), ``share`` and ``where`` (percent),
+        the palette colour they became (``nearest``, ``nearest_hex``) and
+        ``delta_e``.
+    target_met : bool
+        Whether the chosen size meets the ΔE00 target (target and automatic
+        rules); None where no target applied.
     extra : Mapping
         Other keys of the file's ``fit`` object, kept as read (e.g. what a
         separation adds: the ink library, the snapped colours).
@@ -196,6 +211,11 @@ class FitRecord:
     delta_e: Mapping | None = None
     candidates: tuple | None = None
     notes: tuple | None = None
+    kind: str | None = None
+    judged: str | None = None
+    kind_reason: str | None = None
+    lost: tuple | None = None
+    target_met: bool | None = None
     extra: Mapping = field(default_factory=dict)
 
     def __post_init__(self):

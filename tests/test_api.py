@@ -34,9 +34,10 @@ def test_documented_signatures():
     from quantize.fit.settings import DEFAULT_K
 
     assert DEFAULT_K == (2, 12) and DEFAULT_K_TEXT == "2-12"
-    for fn in (quantize.fit_palette, quantize.sweep):
+    # fit_palette's None means DEFAULT_K, or up to 256 colours for continuous tone under the auto rule.
+    for fn, default in ((quantize.fit_palette, None), (quantize.sweep, DEFAULT_K)):
         sig = inspect.signature(fn)
-        assert list(sig.parameters.values())[1].default == DEFAULT_K
+        assert list(sig.parameters.values())[1].default == default
         # The fit options are fields of one settings object, passed whole or by keyword.
         assert sig.parameters["settings"].kind is inspect.Parameter.KEYWORD_ONLY
         assert sig.parameters["options"].kind is inspect.Parameter.VAR_KEYWORD

@@ -32,7 +32,9 @@ def test_reduce_indexed_png_with_palette_and_json(art, tmp_path):
     r = run("reduce", art, "-o", out, "-k", "2-8", "--keep-palette", "--json")
     assert r.exit_code == 0, r.output
     summary = json.loads(r.stdout)
-    assert summary["k"] == 4 and summary["rule"] == "bic"
+    assert summary["k"] == 4 and summary["rule"] == "auto"
+    # The art has 4 inks (tests/artwork.py): judged artwork, nothing lost.
+    assert summary["kind"] == "artwork" and summary["lost"] == []
     assert set(summary["delta_e"]) == {"mean", "median", "p95", "max"}
     assert sum(c["coverage"] for c in summary["palette"]) == pytest.approx(100, abs=0.01)
     with Image.open(out) as im:

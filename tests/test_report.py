@@ -102,7 +102,7 @@ def test_plot_has_units_legend_and_chosen_mark(art_sweep):
     assert len(bottom.get_legend().get_texts()) == 3
     chosen = art_sweep.chosen.k
     notes = [t.get_text() for t in top.texts]
-    assert f"chosen: k = {chosen} (bic rule)" in notes
+    assert f"chosen: k = {chosen} ({art_sweep.rule} rule)" in notes
     if art_sweep.choices["target"].k != chosen:
         assert f"also: k = {art_sweep.choices['target'].k} (target rule)" in notes
     # The plotted total is the rule's own score, split into its two terms.
@@ -118,7 +118,7 @@ def test_plot_text_does_not_overlap_on_a_wide_range():
     # Many distinct colours (invented demo data), 2..32: crowded ticks and two picks.
     rng = np.random.default_rng(9)
     img = rng.integers(0, 256, (20, 20, 3), dtype=np.uint8)
-    s = sweep(img, (2, 32), restarts=1, refine="none", target=12.0)
+    s = sweep(img, (2, 32), restarts=1, refine="none", target=12.0, rule="bic")
     assert s.choices["target"].k != s.chosen.k
     _assert_no_overlap(sweep_figure(s))
 

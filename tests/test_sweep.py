@@ -44,7 +44,7 @@ def photo():
 
 @pytest.fixture(scope="module")
 def photo_sweep(photo):
-    return sweep(photo, (2, 8), restarts=3, seed=0, target=8.0)
+    return sweep(photo, (2, 8), restarts=3, seed=0, target=8.0, rule="bic")
 
 
 @settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -110,8 +110,8 @@ def test_sweep_rows_are_the_palettes_fit_palette_gives(photo):
     # One engine: with the same settings (no warm starts, the default) the
     # sweep's row of size k is fit_palette's palette at k, bit for bit, and
     # its candidates carry the same figures.
-    cold = sweep(photo, (3, 6), restarts=2, seed=4)
-    pal = fit_palette(photo, (3, 6), restarts=2, seed=4)
+    cold = sweep(photo, (3, 6), restarts=2, seed=4, rule="bic")
+    pal = fit_palette(photo, (3, 6), restarts=2, seed=4, rule="bic")
     for c in pal.fit.candidates:
         row = cold.row(c.k)
         assert row.cost == c.inertia
@@ -180,7 +180,7 @@ def test_csv_and_json_tables_round_trip(photo_sweep, tmp_path):
 
 
 def test_table_formats_fit_candidates_the_same_way(photo):
-    pal = fit_palette(photo, (2, 5), restarts=2)
+    pal = fit_palette(photo, (2, 5), restarts=2, rule="bic")
     text = format_table(pal.fit.candidates, chosen=pal.k)
     lines = text.splitlines()
     assert len(lines) == 1 + 4

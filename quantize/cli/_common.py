@@ -71,15 +71,20 @@ def _restarts_option(ctx, param, value):
 def _fit_options(f):
     """Options shared by every command that fits a palette."""
     opts = [
-        click.option("-k", "--colours", "colours", default=DEFAULT_K_TEXT, show_default=True,
-                     callback=lambda c, p, v: _k_option(v),
-                     help="Palette size N, or MIN-MAX to let the rule choose."),
+        click.option("-k", "--colours", "colours", default=None,
+                     callback=lambda c, p, v: None if v is None else _k_option(v),
+                     help=f"Palette size N, or MIN-MAX to let the rule choose [default: {DEFAULT_K_TEXT}; "
+                          "for a photo under the auto rule, up to 256]."),
         click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
                      help="Perceptual space the palette is fitted in."),
-        click.option("--rule", type=click.Choice(("bic", "target")), default=None,
-                     help="How N is chosen from a range: penalised score (bic, default) or a ΔE00 target."),
+        click.option("--rule", type=click.Choice(("auto", "bic", "target")), default=None,
+                     help="How N is chosen from a range. auto (default): artwork gets the fewest inks that print "
+                          "every flat area, a photo the smallest palette meeting the ΔE00 target (2.5 unless "
+                          "--target); bic: penalised score; target: smallest N meeting --target."),
+        click.option("--kind", type=click.Choice(("auto", "artwork", "photo")), default="auto", show_default=True,
+                     help="What the auto rule takes the image to be; auto judges it and says why."),
         click.option("--target", "target", type=click.FloatRange(min=0, min_open=True), default=None,
-                     help="ΔE00 target for --rule target (implies it)."),
+                     help="ΔE00 target for --rule target (implies it), or for photos under --rule auto."),
         click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
                      help="Which ΔE00 statistic the target applies to."),
         click.option("--lock", "locked", multiple=True, metavar="COLOUR",
@@ -112,9 +117,13 @@ def _fit_settings(o: dict, **more):
     """The FitSettings of the fit options ``o``: the library validates them, with its messages."""
     from quantize.fit.settings import FitSettings
 
-    rule = o["rule"] or ("target" if o["target"] is not None else "bic")
+    rule = o["rule"] or ("target" if o["target"] is not None else "auto")
     if rule == "target" and o["target"] is None:
         raise click.UsageError("--rule target needs --target DELTA_E")
+    if o["target"] is not None and o["colours"] is not None and "-" not in o["colours"]:
+        raise click.UsageError(f"--target chooses the palette size, but -k {o['colours']} fixes it; "
+                               "give a range (-k MIN-MAX) or no -k")
+    more.setdefault("kind", {"photo": "continuous tone"}.get(o.get("kind", "auto"), o.get("kind", "auto")))
     try:
         return FitSettings(space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
                            locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
@@ -141,10 +150,11 @@ def _progress(n_steps: int, label: str):
     return click.progressbar(length=n_steps, label=label, file=sys.stderr, show_eta=False)
 
 
-def _fit_with_progress(images, k: str, settings, max_pixels):
+def _fit_with_progress(images, k: str | None, settings, max_pixels):
     from quantize.fit.engine import fit_palette, parse_k
+    from quantize.fit.settings import DEFAULT_K
 
-    with _progress(len(parse_k(k)), "fitting") as bar:
+    with _progress(len(parse_k(DEFAULT_K if k is None else k)), "fitting") as bar:
         return fit_palette(images, k, settings=settings, max_pixels=max_pixels, progress=lambda _: bar.update(1))
 
 
@@ -245,9 +255,41 @@ def _report_targets(report_dir):
     return []
 
 
-def _check_indexed_size(out: Path, k: str):
+def _check_indexed_size(out: Path, k: str | None):
     """Refuse a palette size above 256 where the output is an indexed PNG."""
+    if k is None:  # the default: at most 256 colours
+        return
     top = int(k.split("-")[-1])
     if out.suffix.lower() == ".png" and top > 256:
         raise click.BadParameter(f"{top} colours do not fit an indexed PNG (at most 256)",
                                  param_hint="'-k' / '--colours'")
+
+
+def _judgement_summary(record) -> dict:
+    """What the automatic rule said of the image, for --json (empty when no judgement was made)."""
+    if record is None:
+        return {}
+    out = {"lost": [dict(x) for x in record.lost or ()]}
+    if record.judged is not None:
+        out.update(kind=record.judged, kind_reason=record.kind_reason)
+    if record.target_met is not None:
+        out["target_met"] = record.target_met
+    return out
+
+
+def _warn_unmet_target(record) -> None:
+    """An unmet ΔE00 target is a warning on stderr, in every output mode."""
+    if record is not None and record.target_met is False:
+        click.echo(f"quantize: warning: the ΔE00 target was not met: {record.reason}", err=True)
+
+
+def _print_judgement(record, target) -> None:
+    """The automatic rule's judgement and what it lost, for people."""
+    if record is None:
+        return
+    if record.judged is not None:
+        click.echo(f"judged {record.judged}: {record.kind_reason}")
+    for x in record.lost or ():
+        click.echo(f"lost: a flat area of {x['share']:.2f} % near ({x['where'][0]:.0f} %, {x['where'][1]:.0f} %) "
+                   f"of L*a*b* {x['lab'][0]:.1f}, {x['lab'][1]:.1f}, {x['lab'][2]:.1f} became {x['nearest_hex']} "
+                   f"(ΔE00 {x['delta_e']:.1f})")

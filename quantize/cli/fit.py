@@ -9,13 +9,16 @@ import click
 from ._common import (
     _check_outputs,
     _emit,
-    _fit_settings,
     _fit_options,
+    _fit_settings,
     _fit_with_progress,
+    _judgement_summary,
     _palette_rows,
     _print_de,
+    _print_judgement,
     _print_palette,
     _run,
+    _warn_unmet_target,
 )
 
 
@@ -46,14 +49,17 @@ def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
         "reason": pal.fit.reason, "space": pal.space, "delta_e": dict(pal.fit.delta_e),
         "kmeans_cost": pal.fit.inertia, "palette": rows, "outputs": [str(output)],
         "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
+        **_judgement_summary(pal.fit),
     }
 
     def human():
         click.echo(f"{len(images)} image(s): {pal.k} colours ({pal.fit.reason})")
+        _print_judgement(pal.fit, settings.target)
         _print_de("ΔE00 over the pooled set", pal.fit.delta_e)
         _print_palette(rows)
         for n in summary["notes"]:
             click.echo(f"note: {n}")
         click.echo(f"wrote {output}")
 
+    _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)

@@ -11,16 +11,19 @@ from ._common import (
     _check_indexed_size,
     _check_outputs,
     _emit,
-    _fit_settings,
-    _metric,
     _fit_options,
+    _fit_settings,
     _fit_with_progress,
+    _judgement_summary,
+    _metric,
     _palette_rows,
     _print_de,
+    _print_judgement,
     _print_palette,
     _report_option,
     _report_targets,
     _run,
+    _warn_unmet_target,
 )
 from .dither_options import dither_options, pop_dither_options, run_dither_outputs
 
@@ -77,13 +80,14 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
         "candidates": [c.to_dict() for c in pal.fit.candidates],
         "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
-        **dextra,
+        **_judgement_summary(pal.fit), **dextra,
     }
     if dextra["error_map"]:
         summary["outputs"].append(dextra["error_map"])
 
     def human():
         click.echo(f"{image}: {pal.k} colours ({pal.fit.reason})")
+        _print_judgement(pal.fit, settings.target)
         if len(pal.fit.candidates) > 1:
             from quantize.fit.sweep_result import format_table
 
@@ -96,4 +100,5 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             click.echo(f"note: {n}")
         click.echo("wrote " + ", ".join(summary["outputs"]))
 
+    _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)

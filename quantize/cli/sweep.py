@@ -55,8 +55,9 @@ def _decoded(images, max_pixels) -> list:
               metavar="MIN-MAX", help="Palette sizes to sweep, inclusive (at most 64).")
 @click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
               help="Perceptual space the palettes are fitted in.")
-@click.option("--rule", type=click.Choice(("bic", "target")), default=None,
-              help="Rule whose pick is marked: penalised score (bic, default) or a ΔE00 target.")
+@click.option("--rule", type=click.Choice(("auto", "bic", "target")), default=None,
+              help="Rule whose pick is marked: auto (default: artwork or photo, judged), penalised score (bic) "
+                   "or a ΔE00 target.")
 @click.option("--target", type=click.FloatRange(min=0, min_open=True), default=None,
               help="ΔE00 target: also report the smallest size that meets it.")
 @click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
@@ -90,7 +91,7 @@ def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, resta
     size each rule picks."""
 
     t0 = time.perf_counter()
-    rule = rule or ("target" if target is not None else "bic")
+    rule = rule or ("target" if target is not None else "auto")
     if rule == "target" and target is None:
         raise click.UsageError("--rule target needs --target DELTA_E")
     files = [p for p in (table_csv, table_json, plot, swatches) if p]

@@ -92,6 +92,9 @@ class Regions:
     scale : int
         The analysis scale: one label pixel stands for ``scale x scale``
         picture pixels.
+    centre : ndarray of shape (n, 2)
+        Centre of each region's flat core as (x, y) shares of the picture's
+        width and height (0-1, from the top left).
     spread : float
         How even the regions are: the 90th percentile CIEDE2000 of their
         pixels from their region's mean colour (inf without regions).
@@ -106,6 +109,7 @@ class Regions:
     labels: np.ndarray
     scale: int
     spread: float
+    centre: np.ndarray
 
     @property
     def share(self) -> np.ndarray:
@@ -179,12 +183,17 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
         dist, (iy, ix) = ndi.distance_transform_edt(labels == 0, return_indices=True)
         grown = np.where((dist <= RIM) & opaque, labels[iy, ix], 0)
         area = np.bincount(grown.ravel(), minlength=n + 1)[1:].astype(np.float64) * scale * scale
+        yy, xx = np.indices(labels.shape)
+        centre = np.stack([np.bincount(labels.ravel(), weights=xx.ravel(), minlength=n + 1)[1:] / count / labels.shape[1],
+                           np.bincount(labels.ravel(), weights=yy.ravel(), minlength=n + 1)[1:] / count / labels.shape[0]],
+                          axis=1)
         inside = labels > 0
         step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
         spread = float(np.percentile(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]), 90))
     else:
-        mean, area, spread = np.zeros((0, 3)), np.zeros(0), float("inf")
+        mean, area, spread, centre = np.zeros((0, 3)), np.zeros(0), float("inf"), np.zeros((0, 2))
     n_opaque = int(np.count_nonzero(picture.opaque))
     flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
     return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
-                   flat_share=flat_share, labels=labels, scale=scale, spread=spread)
+                   flat_share=flat_share, labels=labels, scale=scale, spread=spread,
+                   centre=centre)

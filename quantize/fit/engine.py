@@ -8,16 +8,18 @@ colour -> 8-bit palette -> ΔE00 per candidate size -> the chosen size.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import warnings
 from dataclasses import dataclass
-from typing import Callable, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from quantize.palette import FitCandidate, FitRecord, Palette
+from quantize.quality.stats import coverage_percent, delta_e_stats
 
 from .clustering import PaletteSizeWarning, kmeans, lloyd_from, tolerance_scale
-from .selection import choose_k, robust_error
+from .selection import bic_scores, choose_k, robust_error
 from .settings import DEFAULT_K, FitSettings
 
 __all__ = ["fit_palette", "Candidate", "fit_sizes", "parse_k", "load_samples", "MAX_K", "FINE_ITER"]
@@ -131,8 +133,12 @@ def _as_list(images) -> list:
     return items
 
 
-def load_samples(images, *, weighting: str = "equal", max_pixels=None):
-    """Load and sample one image or several; return (pooled sample, pictures' sources, notes)."""
+def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures: list | None = None):
+    """Load and sample one image or several; return (pooled sample, pictures' sources, notes).
+
+    ``pictures``, if given, receives each input's Picture (None for an input
+    that was already a colour sample).
+    """
     from quantize.core.sampling import ColourSample, pool_samples, sample_picture
     from quantize.io.read import as_picture, load_image
 
@@ -141,6 +147,8 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None):
         if isinstance(item, ColourSample):  # already sampled (e.g. a batch's pooled histogram)
             samples.append(item)
             sources.append("<colour sample>")
+            if pictures is not None:
+                pictures.append(None)
             continue
         if isinstance(item, (str, bytes)) or hasattr(item, "__fspath__"):
             pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
@@ -148,6 +156,8 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None):
             pic = as_picture(item)
         samples.append(sample_picture(pic))
         sources.append(pic.source)
+        if pictures is not None:
+            pictures.append(pic)
         notes.extend(f"{pic.source}: {w}" for w in pic.warnings)
     return pool_samples(samples, weighting=weighting), sources, notes
 
@@ -368,7 +378,6 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
         One per size of ``ks``, in order.
     """
     from quantize.colour.spaces import srgb8_to_space
-    from quantize.quality.stats import coverage_percent, delta_e_stats
 
     from .warm import warm_coarse, warm_fine
 
@@ -412,7 +421,7 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             for k, fine, start, (pal, merged, labels, de, refined) in done]
 
 
-def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max_pixels=None,
+def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixels=None,
                 progress: Callable | None = None, **options) -> Palette:
     """Fit an N-colour palette to one image or a set of images.
 
@@ -420,9 +429,10 @@ def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max
     ----------
     images : path, Picture, PIL image, ndarray, ColourSample, or a list of them
         Several images are pooled into one weighted colour sample.
-    k : int, range, (min, max) or "min-max", default=(2, 12)
-        Palette size, or the sizes to choose from by ``rule``
-        (:data:`quantize.fit.settings.DEFAULT_K`).
+    k : int, range, (min, max) or "min-max", optional
+        Palette size, or the sizes to choose from by ``rule``.  Default
+        :data:`quantize.fit.settings.DEFAULT_K` (2 to 12), and for an image
+        the ``"auto"`` rule judges continuous tone, up to 256.
     settings : FitSettings, optional
         All the options below in one object; keyword options replace its
         fields.
@@ -442,8 +452,14 @@ def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max
     locked : sequence of colour specs, default=()
         Colours held fixed (hex ``"#f4efe1"`` or Lab ``"95,1,6"``); they come
         first in the palette and are written exactly.
-    rule : {"bic", "target"}, default="bic"
-        How k is chosen from a range; see :mod:`quantize.fit.selection`.
+    rule : {"auto", "bic", "target"}, default="auto"
+        How k is chosen from a range.  ``"auto"`` judges the image first
+        (:mod:`quantize.fit.inkcount`): artwork gets the fewest inks that
+        print every flat area of at least 0.1 % within ΔE00 5; continuous
+        tone the smallest palette whose mean ΔE00 meets ``target`` (default
+        2.5).  ``"bic"`` and ``"target"``: :mod:`quantize.fit.selection`.
+    kind : {"auto", "artwork", "continuous tone"}, default="auto"
+        Overrides the ``"auto"`` rule's judgement of the image.
     target : float, optional
         ΔE00 target of the ``"target"`` rule.
     target_stat : {"mean", "p95"}, default="mean"
@@ -509,19 +525,31 @@ def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max
 
     warm_up()  # the compiled kernels load while the images decode
     settings = FitSettings.of(settings, **options)
-    ks = parse_k(k)
+    ks = parse_k(DEFAULT_K if k is None else k)
     settings.check_sizes(ks)  # before any image is read
-    sample, sources, load_notes = load_samples(images, weighting=settings.weighting, max_pixels=max_pixels)
+    pictures: list = []
+    sample, sources, load_notes = load_samples(images, weighting=settings.weighting, max_pixels=max_pixels,
+                                               pictures=pictures)
     size_notes = []
     ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]
     if max(ks) > sample.n_colours:
         size_notes.append(f"the image set has only {sample.n_colours} distinct colours; "
                           f"palette sizes above {sample.n_colours} were not fitted")
-    cands = []
-    for c in fit_sizes(sample, ks_eff, settings, progress=progress):
-        if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
-            cands.append(c)
-    record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
+    regions = _regions(pictures)
+    auto = None
+    if settings.rule == "auto" and len(ks_eff) > 1 and regions is not None:
+        auto = _auto(sample, regions, ks_eff, settings, k_given=k is not None, progress=progress)
+    if auto is None:
+        cands = []
+        for c in fit_sizes(sample, ks_eff, settings, progress=progress):
+            if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
+                cands.append(c)
+        record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
+        if regions is not None:  # say what was lost, whatever chose the size
+            chosen = cands[[c.palette.k for c in cands].index(record.k)]
+            record = _with_lost(record, regions, chosen.palette)
+    else:
+        cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources, load_notes + size_notes)
     # Loading already warned about its own notes; these are the fit's.
     for n in record.notes[len(load_notes):]:
         warnings.warn(n, PaletteSizeWarning, stacklevel=2)
@@ -530,6 +558,152 @@ def fit_palette(images, k=DEFAULT_K, *, settings: FitSettings | None = None, max
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
     sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
     return pal
+
+
+@dataclass(frozen=True, eq=False)
+class _Auto:
+    """What the automatic rule decided: the candidates measured on the image, the one chosen, and why."""
+
+    candidates: list
+    chosen: Candidate
+    judgement: Any
+    reason: str
+    lost: tuple
+    target_met: bool | None
+
+
+def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
+    """``cand`` (fitted on another sample) measured on every distinct colour of ``sample``."""
+    from .assign import map_sample
+
+    labels, de = map_sample(sample, cand.palette, metric=settings.metric)
+    w = sample.weights
+    pts, centres = sample.points(settings.space), cand.palette.points(settings.space)
+    inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())
+    return dataclasses.replace(cand, inertia=inertia, delta_e=delta_e_stats(de, w), robust=robust_error(de, w),
+                               labels=labels, per_colour_de=de, coverage=coverage_percent(labels, w, cand.palette.k))
+
+
+def _regions(pictures) -> list | None:
+    """The flat regions of every picture, or None when an input was a bare colour sample."""
+    from quantize.core.regions import find_regions
+
+    if not pictures or any(p is None for p in pictures):
+        return None
+    return [find_regions(p) for p in pictures]
+
+
+def _with_lost(record: FitRecord, regions, palette) -> FitRecord:
+    """``record`` naming the flat areas the palette lost (ΔE00 10 or more from every colour)."""
+    from .inkcount import ink_groups, lost_inks
+
+    lost = _lost_rows(lost_inks(ink_groups(regions), palette.lab), palette)
+    notes = record.notes + ((f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette "
+                             "colour",) if lost else ())
+    return dataclasses.replace(record, lost=tuple(lost), notes=notes)
+
+
+def _lost_rows(lost, palette) -> list:
+    return [{**item, "nearest_hex": "#{:02x}{:02x}{:02x}".format(*(int(v) for v in palette.rgb8[item["nearest"]]))}
+            for item in lost]
+
+
+def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress) -> _Auto:
+    """The automatic rule (:mod:`quantize.fit.inkcount`) on the images' flat regions."""
+    from .inkcount import TONE_MAX_K, group_sample, ink_groups, judge, lost_inks, missing_inks
+
+    judgement = judge(regions)
+    kind = judgement.kind if settings.kind == "auto" else settings.kind
+    groups = ink_groups(regions)
+    if kind == "artwork":
+        gs = group_sample(groups, sample.n_pixels)
+        ks_art = [k for k in ks if k <= len(gs.weights)] or [len(gs.weights)]
+        cands = [_measured(c, sample, settings) for c in fit_sizes(gs, ks_art, settings, progress=progress)]
+        found = [len(missing_inks(groups, c.palette.lab, sample.n_pixels)) == 0 for c in cands]
+        chosen = cands[found.index(True)] if any(found) else cands[-1]
+        reason = (f"artwork: the fewest inks ({chosen.palette.k}) within ΔE00 5 of every flat area of at least "
+                  "0.1 % of the image" if any(found) else
+                  f"artwork: even {chosen.palette.k} colours leave flat areas more than ΔE00 5 from every colour "
+                  "(the largest size of the range)")
+        target_met = None
+    else:
+        target = settings.target or _tone_target()
+        top = TONE_MAX_K if not k_given else ks[-1]
+        top = min(top, sample.n_colours)
+        cands = _tone_search(sample, ks[0], top, settings, target, progress)
+        met = [c for c in cands if c.delta_e[settings.target_stat] <= target]
+        chosen = min(met, key=lambda c: c.palette.k) if met else max(cands, key=lambda c: c.palette.k)
+        target_met = bool(met)
+        reason = (f"continuous tone: the smallest palette with ΔE00 {settings.target_stat} "
+                  f"{chosen.delta_e[settings.target_stat]:.2f} <= {target:g}" if met else
+                  f"continuous tone: no palette up to {top} colours meets ΔE00 {settings.target_stat} <= {target:g} "
+                  f"(best {chosen.delta_e[settings.target_stat]:.2f}); took the largest")
+    lost = tuple(lost_inks(groups, chosen.palette.lab))
+    if settings.kind != "auto":
+        judgement = dataclasses.replace(judgement, kind=kind, reason=f"set as {kind} (the image would have been "
+                                        f"judged {judgement.kind}: {judgement.reason})")
+    return _Auto(candidates=cands, chosen=chosen, judgement=judgement, reason=reason, lost=lost, target_met=target_met)
+
+
+def _tone_target() -> float:
+    from .inkcount import TONE_TARGET_DE
+
+    return TONE_TARGET_DE
+
+
+def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float, progress) -> list:
+    """Fit sizes from ``lo`` doubling up to ``hi`` until the target is met, then bisect: about 2 log2(hi/lo) fits.
+
+    Each size is fitted on its own stream, so the size found is the one a
+    fixed ``-k`` of that size gives.
+    """
+    fitted: dict[int, Candidate] = {}
+
+    def fit(k):
+        if k not in fitted:
+            fitted[k] = fit_sizes(sample, [k], settings, progress=progress)[0]
+        return fitted[k]
+
+    def meets(k):
+        return fit(k).delta_e[settings.target_stat] <= target
+
+    k = max(lo, 1)
+    while k < hi and not meets(k):
+        k = min(2 * k, hi)
+    if meets(k):
+        below = max([j for j in fitted if j < k and not meets(j)], default=lo - 1)
+        a, b = below, k  # a fails (or is below the range), b meets
+        while b - a > 1:
+            mid = (a + b) // 2
+            if meets(mid):
+                b = mid
+            else:
+                a = mid
+    else:
+        fit(hi)
+    return [fitted[j] for j in sorted(fitted)]
+
+
+def _auto_record(auto: _Auto, sample, ks, settings: FitSettings, sources, notes) -> FitRecord:
+    """The fit record of the automatic rule's choice."""
+    chosen = auto.chosen
+    lost = _lost_rows(auto.lost, chosen.palette)
+    if lost:
+        notes = notes + [f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette colour"]
+    return FitRecord(
+        k=chosen.palette.k, rule="auto", reason=auto.reason,
+        k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
+        space=settings.space, restarts=settings.restarts, seed=settings.seed, init=settings.init,
+        weighting=settings.weighting, metric=settings.metric, refine=settings.refine, target=settings.target,
+        target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
+        n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
+        refined=chosen.refined, delta_e=chosen.delta_e,
+        candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
+                                      score=float(sc))
+                         for c, sc in zip(auto.candidates, bic_scores([c.palette.k for c in auto.candidates],
+                                                                      [c.robust for c in auto.candidates]))),
+        notes=tuple(notes), kind=settings.kind, judged=auto.judgement.kind, kind_reason=auto.judgement.reason,
+        lost=tuple(lost), target_met=auto.target_met)
 
 
 def _record(sample, ks, cands, settings: FitSettings, sources, notes) -> FitRecord:

@@ -44,8 +44,9 @@ import numpy as np
 from quantize.colour.spaces import delta_e_ciede2000
 from quantize.core.regions import Regions
 
-__all__ = ["InkGroups", "Judgement", "ink_groups", "judge", "missing_inks", "DISTINCT_DE", "FOUND_DE",
-           "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE"]
+__all__ = ["InkGroups", "Judgement", "ink_groups", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
+           "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE",
+           "TONE_TARGET_DE", "TONE_MAX_K", "auto_choice"]
 
 DISTINCT_DE = 10.0
 FOUND_DE = DISTINCT_DE / 2
@@ -54,6 +55,17 @@ MIN_PIXELS = 16
 SAME_INK_DE = 3.0
 MIN_FLAT_SHARE = 0.35
 TONE_SPREAD_DE = 3.5
+#: The visual target of the automatic size for continuous tone: mean ΔE00
+#: 2.5.  On scikit-image's sample photos each doubling of the palette beyond
+#: it buys less than 0.5 ΔE00 (astronaut 2.34 at 64 colours, 1.82 at 128),
+#: and it is a little above the 2 ΔE00 error floor of the penalised rule
+#: (common practice, no single source; docs/method.md).
+TONE_TARGET_DE = 2.5
+#: The largest palette the automatic size gives continuous tone: what an
+#: indexed PNG or GIF holds.
+TONE_MAX_K = 256
+#: What a user may say an image is, overriding the judgement.
+KINDS = ("auto", "artwork", "continuous tone")
 
 
 @dataclass(frozen=True, eq=False)
@@ -68,11 +80,15 @@ class InkGroups:
         Share of the opaque pixels of all images (0-1).
     largest : ndarray of shape (g,)
         Share of the group's largest single region.
+    where : ndarray of shape (g, 2)
+        Centre of that largest region, (x, y) as shares of its image's width
+        and height.
     """
 
     lab: np.ndarray
     share: np.ndarray
     largest: np.ndarray
+    where: np.ndarray
 
     def __len__(self) -> int:
         return len(self.share)
@@ -105,9 +121,10 @@ def ink_groups(regions: Sequence[Regions]) -> InkGroups:
     shares = [r.share / len(regions) for r in regions]
     lab = np.concatenate(labs) if labs else np.zeros((0, 3))
     share = np.concatenate(shares) if shares else np.zeros(0)
+    centre = np.concatenate([r.centre for r in regions]) if regions else np.zeros((0, 2))
     n = len(share)
     if n == 0:
-        return InkGroups(np.zeros((0, 3)), np.zeros(0), np.zeros(0))
+        return InkGroups(np.zeros((0, 3)), np.zeros(0), np.zeros(0), np.zeros((0, 2)))
     # Single linkage under CIEDE2000: union-find over the pairs closer than SAME_INK_DE.
     parent = np.arange(n)
 
@@ -125,15 +142,17 @@ def ink_groups(regions: Sequence[Regions]) -> InkGroups:
             if a != b:
                 parent[b] = a
     roots = np.array([root(i) for i in range(n)])
-    out_lab, out_share, out_largest = [], [], []
+    out_lab, out_share, out_largest, out_where = [], [], [], []
     for r in np.unique(roots):
-        m = roots == r
+        m = np.flatnonzero(roots == r)
         w = share[m]
         out_lab.append([_weighted_median(lab[m, c], w) for c in range(3)])
         out_share.append(w.sum())
         out_largest.append(w.max())
+        out_where.append(centre[m[np.argmax(w)]])
     order = np.argsort(-np.asarray(out_share), kind="stable")
-    return InkGroups(np.asarray(out_lab)[order], np.asarray(out_share)[order], np.asarray(out_largest)[order])
+    return InkGroups(np.asarray(out_lab)[order], np.asarray(out_share)[order], np.asarray(out_largest)[order],
+                     np.asarray(out_where).reshape(-1, 2)[order])
 
 
 @dataclass(frozen=True)
@@ -189,3 +208,74 @@ def missing_inks(groups: InkGroups, palette_lab: np.ndarray, n_pixels: int) -> n
     de = np.min([delta_e_ciede2000(groups.lab, np.broadcast_to(p, groups.lab.shape)) for p in pal], axis=0)
     big = (groups.share >= MIN_SHARE) & (groups.share * n_pixels >= MIN_PIXELS)
     return np.flatnonzero(big & (de >= FOUND_DE))
+
+
+def lost_inks(groups: InkGroups, palette_lab: np.ndarray) -> list[dict]:
+    """The groups of at least :data:`MIN_SHARE` that are :data:`DISTINCT_DE` or more from every palette colour.
+
+    Each is a dict: ``lab`` (its colour), ``share`` (percent of the image),
+    ``where`` ((x, y) percent of the width and height, the centre of its
+    largest region), ``nearest`` (palette index it maps to) and
+    ``delta_e`` (ΔE00 to that colour).
+    """
+    if len(groups) == 0:
+        return []
+    pal = np.asarray(palette_lab, dtype=np.float64)
+    de = np.stack([delta_e_ciede2000(groups.lab, np.broadcast_to(p, groups.lab.shape)) for p in pal], axis=1)
+    nearest = np.argmin(de, axis=1)
+    out = []
+    for g in np.flatnonzero((groups.share >= MIN_SHARE) & (de.min(axis=1) >= DISTINCT_DE)):
+        out.append({"lab": [round(float(v), 2) for v in groups.lab[g]], "share": round(float(100.0 * groups.share[g]), 3),
+                    "where": [round(100.0 * float(v), 1) for v in groups.where[g]],
+                    "nearest": int(nearest[g]), "delta_e": round(float(de[g, nearest[g]]), 2)})
+    return out
+
+
+def group_sample(groups: InkGroups, n_pixels: int):
+    """The ink groups as a weighted colour sample: one 16-bit colour per group, weighted by its pixels.
+
+    The fitting engine then finds the palette of the inks themselves, with
+    no anti-aliased edge or noise pixel pulling a colour toward it.
+    """
+    from quantize.colour.spaces import clip_to_gamut, lab_to_srgb
+    from quantize.core.sampling import ColourSample
+
+    codes = np.rint(clip_to_gamut(lab_to_srgb(groups.lab)) * 65535).astype(np.uint16)
+    weights = np.maximum(groups.share * n_pixels, 1e-9)
+    # Two groups can round to one code: merge their weights.
+    uniq, inv = np.unique(codes, axis=0, return_inverse=True)
+    w = np.bincount(inv.ravel(), weights=weights, minlength=len(uniq))
+    return ColourSample(codes=uniq, weights=w, bit_depth=16, n_pixels=int(n_pixels))
+
+
+def auto_choice(ks, palettes_lab, stats, regions: Sequence[Regions] | None, n_pixels: int, *,
+                kind: str = "auto", target: float | None = None, target_stat: str = "mean"):
+    """The automatic rule's pick among palettes already fitted (a sweep's rows).
+
+    Artwork: the smallest size whose palette prints every ink group of at
+    least :data:`MIN_SHARE` within :data:`FOUND_DE`; continuous tone: the
+    smallest whose ΔE00 ``target_stat`` meets ``target`` (default
+    :data:`TONE_TARGET_DE`).  Without regions (a bare colour sample) the
+    penalised rule picks.  Returns a :class:`quantize.fit.selection.Choice`.
+    """
+    from .selection import Choice, choose_k
+
+    if not regions:
+        c = choose_k(ks, stats, [0.0] * len(ks), rule="bic")
+        return Choice(c.k, "auto", "no regions to judge (a colour sample): " + c.reason, c.scores)
+    judgement = judge(regions)
+    kind = judgement.kind if kind == "auto" else kind
+    if kind == "artwork":
+        groups = ink_groups(regions)
+        for k, lab in zip(ks, palettes_lab):
+            if len(missing_inks(groups, lab, n_pixels)) == 0:
+                return Choice(int(k), "auto", f"artwork: the fewest inks ({k}) within ΔE00 {FOUND_DE:g} of every "
+                                              "flat area of at least 0.1 % of the image")
+        return Choice(int(ks[-1]), "auto", "artwork: no size of the range prints every flat area; took the largest")
+    goal = TONE_TARGET_DE if target is None else target
+    for k, st in zip(ks, stats):
+        if st[target_stat] <= goal:
+            return Choice(int(k), "auto", f"continuous tone: the smallest palette with ΔE00 {target_stat} "
+                                          f"{st[target_stat]:.2f} <= {goal:g}")
+    return Choice(int(ks[-1]), "auto", f"continuous tone: no size of the range meets ΔE00 {target_stat} <= {goal:g}; "
+                                       "took the largest")

@@ -76,6 +76,8 @@ _DIMS = 3
 
 #: Rule names and a one-line description of each.
 RULES = {
+    "auto": "artwork: the fewest inks that print every flat area; continuous tone: the smallest palette "
+            "meeting a ΔE00 target (quantize.fit.inkcount)",
     "bic": "penalised robust ΔE00 error versus palette size (BIC form)",
     "target": "smallest palette whose ΔE00 statistic meets a target",
 }
@@ -150,6 +152,8 @@ def choose_k(ks, stats, robust, *, rule: str = "bic", target: float | None = Non
     Choice
     """
     check_rule(rule)
+    if rule == "auto":  # decided from the image's regions by the engine; on a bare table, the penalised rule
+        rule = "bic"
     ks = [int(k) for k in ks]
     scores = tuple(float(s) for s in bic_scores(ks, robust, m=m))
     if rule == "bic":

@@ -57,8 +57,11 @@ class FitSettings:
     refine : {"robust", "none"}, default="robust"
         The refinements tried after the k-means fit, each kept only if it
         lowers the mean ΔE00.
-    rule : {"bic", "target"}, default="bic"
-        How the palette size is chosen from a range.
+    rule : {"auto", "bic", "target"}, default="auto"
+        How the palette size is chosen from a range.  ``"auto"`` judges the
+        image first (:mod:`quantize.fit.inkcount`): artwork gets the fewest
+        inks that print every flat area of ink, continuous tone the smallest
+        palette meeting ``target`` (default mean ΔE00 2.5).
     target : float, optional
         ΔE00 target of the ``"target"`` rule (required by it), > 0.
     target_stat : {"mean", "p95"}, default="mean"
@@ -68,6 +71,8 @@ class FitSettings:
         with; None means CIEDE2000.
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count: equally, or by pixel count.
+    kind : {"auto", "artwork", "continuous tone"}, default="auto"
+        What the ``"auto"`` rule takes the image to be; ``"auto"`` judges it.
     warm : bool, default=False
         Also start size k from the size k - 1 solution (its worst cluster
         split, and one k-means++ addition), keeping the start of lowest
@@ -95,12 +100,13 @@ class FitSettings:
     init: str = "k-means++"
     locked: tuple = ()
     refine: str = "robust"
-    rule: str = "bic"
+    rule: str = "auto"
     target: float | None = None
     target_stat: str = "mean"
     metric: str | None = "ciede2000"
     weighting: str = "equal"
     warm: bool = False
+    kind: str = "auto"
 
     def __post_init__(self):
         from quantize.colour.spaces import check_space
@@ -119,6 +125,7 @@ class FitSettings:
         _choice(self.refine, "refinement", REFINES)
         _choice(self.weighting, "weighting", WEIGHTINGS)
         _choice(self.target_stat, "target statistic", TARGET_STATS)
+        _choice(self.kind, "image kind", ("auto", "artwork", "continuous tone"))
         if not isinstance(self.warm, bool):
             raise ValueError(f"warm must be True or False, got {self.warm!r}")
         if self.target is not None:

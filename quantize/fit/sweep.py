@@ -54,18 +54,21 @@ def parse_sweep_range(ks=DEFAULT_K) -> list[int]:
 
 
 def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None, *, per_image: Sequence = (),
-                 progress: Callable | None = None, **options) -> Sweep:
+                 regions: Sequence | None = None, progress: Callable | None = None, **options) -> Sweep:
     """Sweep an already loaded colour sample; ``ks`` ascending and validated.
 
     ``settings`` and keyword ``options`` as in :func:`sweep`.  ``per_image``
     is a sequence of ``(source, ColourSample)`` pairs whose own ΔE00 is
-    measured against each row's palette.
+    measured against each row's palette; ``regions`` the images' flat
+    regions (:func:`quantize.core.regions.find_regions`), which the
+    ``"auto"`` rule's pick needs.
     """
     from quantize.palette import Palette
     from quantize.quality.stats import delta_e_stats
 
     from .assign import map_sample
     from .engine import fit_sizes
+    from .inkcount import auto_choice
     from .selection import choose_k
 
     settings = FitSettings.of(settings, **options)
@@ -80,6 +83,9 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
     if settings.target is not None:
         choices["target"] = choose_k(kk, stats, rob, rule="target", target=settings.target,
                                      target_stat=settings.target_stat)
+    if settings.rule == "auto":
+        choices["auto"] = auto_choice(kk, [c.palette.lab for c in cands], stats, regions, sample.n_pixels,
+                                      kind=settings.kind, target=settings.target, target_stat=settings.target_stat)
     rows = []
     for c, score in zip(cands, choices["bic"].scores):
         pal = Palette(c.palette.rgb8, c.palette.locked, settings.space)
@@ -120,8 +126,10 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
         (``Sweep.settings.seed``).
     locked : sequence of colour specs, default=()
         Colours held fixed in every palette (hex or ``"L,a,b"``).
-    rule : {"bic", "target"}, default="bic"
-        The rule whose pick is :attr:`Sweep.chosen`; both are reported.
+    rule : {"auto", "bic", "target"}, default="auto"
+        The rule whose pick is :attr:`Sweep.chosen`; every rule that applies
+        is reported.  ``"auto"`` judges the images (artwork or continuous
+        tone, :mod:`quantize.fit.inkcount`) and picks among the sizes swept.
     target : float, optional
         ΔE00 target of the ``"target"`` rule.
     target_stat : {"mean", "p95"}, default="mean"
@@ -191,9 +199,9 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
         raise ValueError("no images given: the image set is empty")
-    samples, sources, notes = [], [], []
+    samples, sources, notes, pictures = [], [], [], []
     for item in items:
-        smp, src, nts = load_samples(item, max_pixels=max_pixels)
+        smp, src, nts = load_samples(item, max_pixels=max_pixels, pictures=pictures)
         samples.append(smp)
         sources.extend(src)
         notes.extend(nts)
@@ -204,7 +212,12 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
         notes.append(f"the image set has only {n} distinct colours; sizes above {n} were not swept")
         ks = [k for k in ks if k <= n] or [n]
     per = list(zip(sources, samples)) if len(samples) > 1 else []
-    res = sweep_sample(pooled, ks, settings, per_image=per, progress=progress)
+    regions = None
+    if settings.rule == "auto" and all(p is not None for p in pictures):
+        from quantize.core.regions import find_regions
+
+        regions = [find_regions(p) for p in pictures]
+    res = sweep_sample(pooled, ks, settings, per_image=per, regions=regions, progress=progress)
     return res.with_inputs(sources, notes)
 
 
