@@ -143,3 +143,16 @@ def test_an_unmet_target_warns_and_says_so_in_json(tmp_path):
     s = json.loads(r.stdout)
     assert s["kind"] == "continuous tone" and s["target_met"] is False and s["k"] == 6
     assert "target was not met" in r.stderr
+
+
+def test_locked_colours_that_no_pixel_uses_or_that_a_fitted_colour_repeats_are_named():
+    rgb, inks = flat_artwork(4, 3)
+    pal = fit_palette(rgb, locked=["#00ff00"])  # no green in this art
+    assert pal.k == 5  # the four inks, and the locked colour beside them
+    assert any("#00ff00 is not used by any pixel" in n for n in pal.fit.notes)
+    # A noisy ink beside the locked colour it was meant to be: three colours for two inks puts a
+    # fitted colour on the noisy ink, next to the locked one (invented demo data).
+    noisy = np.clip(np.random.default_rng(1).normal(0, 2.0, (64, 64, 3)) + (40, 90, 160), 0, 255).astype(np.uint8)
+    noisy[:, 32:] = (230, 220, 60)
+    pal = fit_palette(noisy, 3, locked=["#285aa0"], rule="bic")
+    assert any("locked colour #285aa0" in n and "apart" in n for n in pal.fit.notes), pal.fit.notes

@@ -550,6 +550,8 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
             record = _with_lost(record, regions, chosen.palette)
     else:
         cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources, load_notes + size_notes)
+    chosen = cands[[c.palette.k for c in cands].index(record.k)]
+    record = dataclasses.replace(record, notes=record.notes + tuple(_locked_notes(chosen)))
     # Loading already warned about its own notes; these are the fit's.
     for n in record.notes[len(load_notes):]:
         warnings.warn(n, PaletteSizeWarning, stacklevel=2)
@@ -582,6 +584,25 @@ def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
     inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())
     return dataclasses.replace(cand, inertia=inertia, delta_e=delta_e_stats(de, w), robust=robust_error(de, w),
                                labels=labels, per_colour_de=de, coverage=coverage_percent(labels, w, cand.palette.k))
+
+
+def _locked_notes(chosen: Candidate) -> list[str]:
+    """Locked colours no pixel uses, and locked colours a fitted colour all but repeats (ΔE00 < 3)."""
+    from quantize.colour.spaces import delta_e_ciede2000
+
+    pal, notes = chosen.palette, []
+    locked = np.flatnonzero(pal.locked)
+    free = np.flatnonzero(~pal.locked)
+    for i in locked:
+        if chosen.coverage[i] == 0:
+            notes.append(f"the locked colour {pal.hex[i]} is not used by any pixel")
+        if free.size:
+            de = delta_e_ciede2000(np.broadcast_to(pal.lab[i], pal.lab[free].shape), pal.lab[free])
+            j = int(np.argmin(de))
+            if de[j] < 3.0:
+                notes.append(f"the locked colour {pal.hex[i]} and the fitted colour {pal.hex[free[j]]} are only "
+                             f"ΔE00 {de[j]:.1f} apart: one ink may do for both")
+    return notes
 
 
 def _regions(pictures) -> list | None:
@@ -617,7 +638,8 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
     groups = ink_groups(regions)
     if kind == "artwork":
         gs = group_sample(groups, sample.n_pixels)
-        ks_art = [k for k in ks if k <= len(gs.weights)] or [len(gs.weights)]
+        top = len(gs.weights) + len(settings.locked)  # a locked colour may print none of the groups
+        ks_art = [k for k in ks if k <= top] or [top]
         cands = [_measured(c, sample, settings) for c in fit_sizes(gs, ks_art, settings, progress=progress)]
         found = [len(missing_inks(groups, c.palette.lab, sample.n_pixels)) == 0 for c in cands]
         chosen = cands[found.index(True)] if any(found) else cands[-1]
