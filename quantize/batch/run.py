@@ -170,7 +170,7 @@ def _manifest_settings(s: BatchSettings) -> dict:
     from quantize import __version__
 
     # The package version is part of the settings: a new engine redoes the images.
-    settings = {"quantize": __version__, "mode": s.mode, "k": str(s.k), "space": s.space, "seed": s.seed,
+    settings = {"quantize": __version__, "mode": s.mode, "k": "auto" if s.k is None else str(s.k), "space": s.space, "seed": s.seed,
                 "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
     if s.mode == "shared":
         settings["weighting"] = s.shared_weighting
@@ -369,8 +369,9 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
         every image onto it.
     shared_weighting : {"equal", "pixels"}, default="equal"
         In the pool, each image counts equally, or by its pixel count.
-    k : int or "min-max", default="2-12"
-        Palette size, or the range the penalised rule chooses from.
+    k : int or "min-max", optional
+        Palette size, or the range the rule chooses from.  Default: the
+        library's (2-12; a photo under the automatic rule, up to 256).
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
     seed : int, default=0
     restarts : int, default=8

@@ -18,7 +18,7 @@ __all__ = ["BatchSettings", "DEFAULT_K", "DEFAULT_RESTARTS", "DEFAULT_WORST", "F
 
 #: Output file types.
 FORMATS = ("png", "tif", "jpg")
-#: Palette size, or the range the penalised rule chooses from: the library's one default range.
+#: The library's one default range, as the command line shows it.
 DEFAULT_K = f"{_FIT_DEFAULT_K[0]}-{_FIT_DEFAULT_K[1]}"
 #: k-means++ restarts per palette size.
 DEFAULT_RESTARTS = 8
@@ -46,7 +46,9 @@ class BatchSettings:
         Fit one palette to the whole set and map every image onto it.
     shared_weighting : {"equal", "pixels"}, default="equal"
         In the shared fit, each image counts equally or by its pixel count.
-    k : int or str, default="2-12"
+    k : int or str, optional
+        None: the library's default, as :func:`quantize.fit.engine.fit_palette`
+        takes it (2-12; a photo under the automatic rule, up to 256).
         Palette size N, or "MIN-MAX" for the penalised rule to choose.
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
         Space the palettes are fitted in.
@@ -84,7 +86,7 @@ class BatchSettings:
     palette: Any = None
     shared: bool = False
     shared_weighting: str = "equal"
-    k: Any = DEFAULT_K
+    k: Any = None
     space: str = "lab"
     seed: int = 0
     restarts: int = DEFAULT_RESTARTS
@@ -113,7 +115,8 @@ class BatchSettings:
             raise ValueError(f"workers must be 0 (in this process) or more, got {self.workers}")
         if self.worst < 0:
             raise ValueError(f"worst must be 0 or more, got {self.worst}")
-        parse_k(self.k)
+        if self.k is not None:
+            parse_k(self.k)
         include = None if self.include is None or not len(self.include) else _check_patterns(self.include, "include")
         object.__setattr__(self, "include", include)  # frozen: normalised once, here
         object.__setattr__(self, "exclude", _check_patterns(self.exclude, "exclude"))

@@ -22,8 +22,7 @@ EXIT_IMAGES_FAILED = 1
 
 
 def _check_k(ctx, param, value):
-
-    return _k_option(value)
+    return None if value is None else _k_option(value)
 
 
 class _Bar:
@@ -67,8 +66,9 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--shared", is_flag=True, help="Fit one palette to the whole set and map every image onto it.")
 @click.option("--shared-weighting", type=click.Choice(WEIGHTINGS), default=WEIGHTINGS[0], show_default=True,
               help="In the shared fit, each image counts equally or by its pixel count.")
-@click.option("-k", "--colours", "colours", default=DEFAULT_K, show_default=True, callback=_check_k,
-              help="Palette size N, or MIN-MAX to let the rule choose.")
+@click.option("-k", "--colours", "colours", default=None, callback=_check_k,
+              help=f"Palette size N, or MIN-MAX to let the rule choose [default: {DEFAULT_K}; a photo under the "
+                   "automatic rule, up to 256].")
 @click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
               help="Perceptual space the palettes are fitted in.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palettes.")
