@@ -712,20 +712,10 @@ def _auto_record(auto: _Auto, sample, ks, settings: FitSettings, sources, notes)
     lost = _lost_rows(auto.lost, chosen.palette)
     if lost:
         notes = notes + [f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette colour"]
-    return FitRecord(
-        k=chosen.palette.k, rule="auto", reason=auto.reason,
-        k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
-        space=settings.space, restarts=settings.restarts, seed=settings.seed, init=settings.init,
-        weighting=settings.weighting, metric=settings.metric, refine=settings.refine, target=settings.target,
-        target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
-        n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
-        refined=chosen.refined, delta_e=chosen.delta_e,
-        candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
-                                      score=float(sc))
-                         for c, sc in zip(auto.candidates, bic_scores([c.palette.k for c in auto.candidates],
-                                                                      [c.robust for c in auto.candidates]))),
-        notes=tuple(notes), kind=settings.kind, judged=auto.judgement.kind, kind_reason=auto.judgement.reason,
-        lost=tuple(lost), target_met=auto.target_met)
+    scores = bic_scores([c.palette.k for c in auto.candidates], [c.robust for c in auto.candidates])
+    return _fit_record(sample, ks, chosen, auto.candidates, scores, settings, sources, notes, rule="auto",
+                       reason=auto.reason, kind=settings.kind, judged=auto.judgement.kind,
+                       kind_reason=auto.judgement.reason, lost=tuple(lost), target_met=auto.target_met)
 
 
 def _record(sample, ks, cands, settings: FitSettings, sources, notes) -> FitRecord:
@@ -743,14 +733,20 @@ def _record(sample, ks, cands, settings: FitSettings, sources, notes) -> FitReco
         notes = notes + [f"asked for {chosen.k} colours; the image has {sample.n_colours} distinct colours"
                          + (" and rounding to 8 bits merged some" if chosen.merged else "")
                          + f", so the palette has {chosen.palette.k}"]
+    return _fit_record(sample, ks, chosen, cands, choice.scores, settings, sources, notes,
+                       rule="fixed" if one else settings.rule, reason=reason)
+
+
+def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSettings, sources, notes,
+                **fields) -> FitRecord:
+    """The record of ``chosen`` among ``cands``: the settings, what the fit saw, and ``fields``."""
     return FitRecord(
-        k=chosen.palette.k, rule="fixed" if one else settings.rule, reason=reason,
-        k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
+        k=chosen.palette.k, k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
         space=settings.space, restarts=settings.restarts, seed=settings.seed, init=settings.init,
         weighting=settings.weighting, metric=settings.metric, refine=settings.refine, target=settings.target,
         target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,
         candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
-                                      score=sc) for c, sc in zip(cands, choice.scores)),
-        notes=tuple(notes))
+                                      score=float(sc)) for c, sc in zip(cands, scores)),
+        notes=tuple(notes), **fields)
