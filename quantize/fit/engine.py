@@ -446,11 +446,9 @@ def fit_palette(images, k=16, *, space: str = "lab", restarts: int = 8, seed=0, 
     ['#000000', '#c81e28']
     """
     from quantize.colour.spaces import check_space
-    from quantize.kernels.loading import warm_up
 
     from .assign import resolve_metric
 
-    warm_up()  # the compiled kernels load while the images decode
     check_space(space)
     metric = resolve_metric(metric)
     check_rule(rule)

@@ -333,14 +333,11 @@ def sweep(images, ks=DEFAULT_RANGE, *, space: str = "lab", restarts: int = 8, se
     """
     from quantize.colour.spaces import check_space
     from quantize.core.sampling import pool_samples
-    from quantize.kernels.loading import warm_up
 
     from .assign import resolve_metric
     from .clustering import check_init
     from .engine import REFINES, load_samples
     from .selection import check_rule
-
-    warm_up()  # the compiled kernels load while the images decode
 
     ks = parse_sweep_range(ks)
     check_space(space)

@@ -174,7 +174,7 @@ def check_strength(strength) -> float:
 def _kernel_inputs(pic, palette, metric):
     """Arrays the compiled kernels take (see quantize.kernels.dither_loops)."""
     from quantize.colour import spaces as cs
-    from quantize.kernels.loading import compiled
+    from quantize.kernels.loading import compiled, with_fresh_cache
 
     dk = compiled("dither_loops")
     CLEAR, OPEN, PINNED = dk.CLEAR, dk.OPEN, dk.PINNED
@@ -202,7 +202,7 @@ def _kernel_inputs(pic, palette, metric):
     mat_lab = np.ascontiguousarray(cs._M_RGB_TO_T)
     # Palette CIELAB along the kernels' own arithmetic, so that a pixel that
     # is exactly its palette colour measures exactly 0.
-    pal_lab = np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin])
+    pal_lab = with_fresh_cache(lambda: np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin]))
     return dict(codes=codes, lut=lut, state=state, pinned=pinned, pal_lin=pal_lin, pal_pts=pal_pts,
                 pal_lab=pal_lab, mat=np.ascontiguousarray(mat), mat2=np.ascontiguousarray(mat2),
                 mat_lab=mat_lab, space=code, metric=0 if metric == "space" else 1, choice_space=space)
