@@ -100,9 +100,14 @@ sys.exit(code)
 """
 
 
+#: As an installed package runs: with its bytecode cached (pip compiles it
+#: on install), whatever this shell says.
+ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+
+
 def run(argv: list[str]) -> tuple[float, float]:
     """Run ``argv`` as a fresh process; (wall seconds, peak MiB of that process)."""
-    p = subprocess.run([sys.executable, "-c", LAUNCHER, *argv], capture_output=True, text=True)
+    p = subprocess.run([sys.executable, "-c", LAUNCHER, *argv], capture_output=True, text=True, env=ENV)
     if p.returncode:
         raise RuntimeError(f"{argv} failed: {p.stderr[-2000:]}")
     sec, peak = p.stdout.split()
