@@ -271,6 +271,7 @@ def main():
     print(table(helps, ["command", "seconds (median of 5)", "goal"]))
     print("\n## Mean ΔE00 on scikit-image's sample photos, against docs/benchmarks.md\n")
     print(table(quality_rows(out), ["image", "k", "mean ΔE00", "docs/benchmarks.md", "change", "within 0.5 %"]))
+    print(f"\nLoad average at the end (other jobs on the machine): {os.getloadavg()[0]:.2f}")
 
 
 if __name__ == "__main__":

@@ -258,17 +258,18 @@ def compile_pending() -> bool:
     """Whether the compiled kernels still have to be compiled: numba has no fresh on-disk cache of them.
 
     A cheap look at the files numba's cache would hold (numba itself is not
-    imported): an index file for every compiled function, written by the
-    installed numba for the current source.  Compiling takes tens of
-    seconds, once; a command line can say so first (:func:`compile_all`).
+    imported): an index file for every compiled function, stamped for the
+    current source.  Compiling takes tens of seconds, once; a command line
+    can say so first (:func:`compile_all`).  A newer numba, which does not
+    read an older one's cache, is not noticed: its first run compiles
+    without a word.
     """
     import hashlib
+    import struct
     import sys
-    from importlib.metadata import PackageNotFoundError, version
+    from importlib.util import find_spec
 
-    try:
-        numba_version = version("numba").encode()
-    except PackageNotFoundError:
+    if find_spec("numba") is None:
         return False  # nothing to compile with; loading will say so
     tag = f"py{sys.version_info[0]}{sys.version_info[1]}"
     here = os.path.dirname(os.path.abspath(__file__))
@@ -276,23 +277,24 @@ def compile_pending() -> bool:
         path = os.path.join(here, f"{name}.py")
         with open(path, "rb") as f:
             source = f.read()
-        # numba stamps each index with the source's SHA-256 and its own version.
-        stamp = hashlib.sha256(source).digest()
+        # numba stamps each index with the source's SHA-256 (up to 0.6x: its
+        # modification time and size), pickled as raw bytes.
+        stamps = (hashlib.sha256(source).digest(), struct.pack(">d", os.stat(path).st_mtime))
         functions = _njit_functions(source.decode("utf-8"))
         folder = _cache_folder(path)
-        if not all(_fresh(os.path.join(folder, f"{name}.{fn}-{line}.{tag}.nbi"), stamp, numba_version)
+        if not all(_fresh(os.path.join(folder, f"{name}.{fn}-{line}.{tag}.nbi"), stamps)
                    for fn, line in functions):
             return True
     return False
 
 
-def _fresh(index: str, stamp: bytes, numba_version: bytes) -> bool:
+def _fresh(index: str, stamps: tuple[bytes, ...]) -> bool:
     try:
         with open(index, "rb") as f:
             data = f.read()
     except OSError:
         return False
-    return stamp in data and numba_version in data[:64]
+    return any(stamp in data for stamp in stamps)
 
 
 def compile_all() -> None:
