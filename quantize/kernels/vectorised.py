@@ -58,29 +58,24 @@ def assign_euclid(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, 
         Squared distance to that centre.
     """
     n, d = points.shape
-    labels = np.zeros(n, dtype=np.intp)
+    k = centres.shape[0]
+    labels = np.empty(n, dtype=np.intp)
     dist2 = np.empty(n, dtype=np.float64)
-    cols = [np.ascontiguousarray(points[:, t]) for t in range(d)]
-    acc = np.empty(min(n, BLOCK))
-    tmp = np.empty(min(n, BLOCK))
-    for lo in range(0, n, BLOCK):
-        hi = min(n, lo + BLOCK)
-        best, lab = dist2[lo:hi], labels[lo:hi]
-        a, u = acc[:hi - lo], tmp[:hi - lo]
-        for j in range(centres.shape[0]):
-            np.subtract(cols[0][lo:hi], centres[j, 0], out=a)
-            np.multiply(a, a, out=a)
-            for t in range(1, d):
-                np.subtract(cols[t][lo:hi], centres[j, t], out=u)
-                np.multiply(u, u, out=u)
-                a += u
-            if j == 0:
-                best[:] = a
-            else:
-                # Strict '<' keeps the lowest index on ties, like argmin.
-                closer = a < best
-                np.copyto(best, a, where=closer)
-                lab[closer] = j
+    # A (rows, k) table per block, a few numpy calls per coordinate: a loop
+    # over the centres would make k times as many calls on short rows.
+    rows = max(1, (8 * BLOCK) // k)
+    for lo in range(0, n, rows):
+        hi = min(n, lo + rows)
+        acc = np.subtract(points[lo:hi, 0, None], centres[None, :, 0])
+        np.multiply(acc, acc, out=acc)
+        for t in range(1, d):
+            u = np.subtract(points[lo:hi, t, None], centres[None, :, t])
+            np.multiply(u, u, out=u)
+            acc += u
+        # argmin takes the first minimum: the lowest index wins a tie.
+        best = acc.argmin(axis=1)
+        labels[lo:hi] = best
+        dist2[lo:hi] = acc[np.arange(hi - lo), best]
     return labels, dist2
 
 
