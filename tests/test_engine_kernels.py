@@ -119,6 +119,19 @@ def test_compiled_euclidean_assignment_is_bit_identical_to_numpy(monkeypatch):
     assert_allclose(d_c, ref_d, rtol=1e-12)
 
 
+def test_with_no_centres_every_point_is_infinitely_far(monkeypatch):
+    # Removing the only free centre leaves none to fall back to; both paths
+    # must say so the same way.
+    pts = np.arange(12.0).reshape(4, 3)
+    labels, d2 = _kernels.assign_nearest(pts, np.empty((0, 3)))
+    assert_array_equal(labels, 0)
+    assert_array_equal(d2, np.inf)
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 0)
+    labels_c, d2_c = _kernels.assign_nearest(pts, np.empty((0, 3)))
+    assert_array_equal(labels_c, labels)
+    assert_array_equal(d2_c, d2)
+
+
 def test_cluster_sums_equal_a_point_by_point_sum():
     rng = np.random.default_rng(8)
     pts = rng.normal(size=(3000, 3)) * 40

@@ -48,17 +48,19 @@ def assign_euclid(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, 
     Parameters
     ----------
     points : ndarray of shape (n, d)
-    centres : ndarray of shape (k, d), k >= 1
+    centres : ndarray of shape (k, d)
 
     Returns
     -------
     labels : ndarray of shape (n,), intp
         Index of the nearest centre; the lowest index wins a tie.
     dist2 : ndarray of shape (n,), float64
-        Squared distance to that centre.
+        Squared distance to that centre (infinite when there is none).
     """
     n, d = points.shape
     k = centres.shape[0]
+    if k == 0:  # no centre is infinitely far, as in the compiled loop
+        return np.zeros(n, dtype=np.intp), np.full(n, np.inf)
     labels = np.empty(n, dtype=np.intp)
     dist2 = np.empty(n, dtype=np.float64)
     # A (rows, k) table per block, a few numpy calls per coordinate: a loop
