@@ -22,3 +22,13 @@ def nearest_ciede2000(lab, pal_lab):
     de = np.stack([delta_e_ciede2000(lab, c) for c in pal_lab], axis=1)
     labels = de.argmin(axis=1)
     return labels, de
+
+
+def centre_sums(points, weights, labels, k):
+    """Per-label sums of weights and of weighted points, one point at a time."""
+    wsum = np.zeros(k)
+    sums = np.zeros((k, points.shape[1]))
+    for p, w, j in zip(points, weights, labels):
+        wsum[j] += w
+        sums[j] += w * p
+    return wsum, sums

@@ -1,9 +1,13 @@
-"""The compiled kernels of the fitting and mapping stages against plain twins.
+"""The kernels of the fitting and mapping stages, numpy and compiled, against plain twins.
 
 Sources: Sharma, Wu & Dalal (2005), Table 1, for CIEDE2000 (the 34 pairs of
-``test_colourspace.SHARMA_2005``); the twins in ``tests/naive.py`` scan every
-palette colour with the numpy CIEDE2000 of :mod:`quantize.colour.spaces`,
-itself held to those pairs.
+``test_colourspace.SHARMA_2005``); colour-science's ``delta_E(method="CIE
+2000")`` as the reference library; the twins in ``tests/naive.py`` scan
+every palette colour with the numpy CIEDE2000 of
+:mod:`quantize.colour.spaces`, itself held to those pairs.  Each kernel runs
+both ways: the numpy code of :mod:`quantize.kernels.vectorised` and the
+compiled loops, by moving the size from which the compiled loops run
+(``COMPILED_FROM``).
 """
 
 from __future__ import annotations
@@ -18,15 +22,22 @@ from test_colourspace import SHARMA_2005
 
 from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
 from quantize.kernels import engine_loops as ek
-from quantize.kernels import loading
+from quantize.kernels import loading, vectorised
 from quantize.kernels import nearest as _kernels
+
+
+@pytest.fixture(params=["numpy", "compiled"])
+def path(request, monkeypatch):
+    """Run the kernels of :mod:`quantize.kernels.nearest` the numpy way or the compiled way."""
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 0 if request.param == "compiled" else 1 << 62)
+    return request.param
 
 
 def _srgb_lab(rng, n):
     return srgb8_to_space(rng.integers(0, 256, (n, 3)).astype(np.uint8), "lab")
 
 
-def test_sharma_pairs_through_the_nearest_search():
+def test_sharma_pairs_through_the_nearest_search(path):
     # Each pair as a one-colour palette: the search returns the published ΔE00
     # (Sharma et al. 2005, Table 1) to 1e-4.
     for row in SHARMA_2005:
@@ -38,7 +49,7 @@ def test_sharma_pairs_through_the_nearest_search():
 
 
 @pytest.mark.parametrize("k", [1, 2, 5, 16, 64])
-def test_nearest_ciede2000_equals_a_full_scan(k):
+def test_nearest_ciede2000_equals_a_full_scan(k, path):
     rng = np.random.default_rng(k)
     lab = _srgb_lab(rng, 4000)
     pal = _srgb_lab(rng, k)
@@ -53,7 +64,7 @@ def test_nearest_ciede2000_equals_a_full_scan(k):
     assert_array_equal(labels[clear], ref_labels[clear])
 
 
-def test_nearest_ciede2000_lowest_index_wins_a_tie():
+def test_nearest_ciede2000_lowest_index_wins_a_tie(path):
     rng = np.random.default_rng(3)
     lab = _srgb_lab(rng, 2000)
     pal = _srgb_lab(rng, 6)
@@ -65,7 +76,7 @@ def test_nearest_ciede2000_lowest_index_wins_a_tie():
     assert_array_equal(de, de1)
 
 
-def test_neutral_and_opposite_hues():
+def test_neutral_and_opposite_hues(path):
     # Zero chroma and hues 180 degrees apart take the special branches of the
     # formula (Sharma et al. 2005, eqs. 10-14): still equal to the numpy form.
     lab = np.array([[50.0, 0, 0], [50, 10, 0], [50, -10, 0], [60, 0, 20], [60, 0, -20], [0, 0, 0], [100, 0, 0]])
@@ -92,11 +103,13 @@ def test_lower_bound_never_exceeds_ciede2000(p, q):
     assert ek._lightness2(L1, L2) <= exact**2 * (1 + 1e-9) + 1e-12
 
 
-def test_compiled_euclidean_assignment_is_bit_identical_to_numpy():
+def test_compiled_euclidean_assignment_is_bit_identical_to_numpy(monkeypatch):
+    # Both paths may serve the same size class, so they must agree bit for bit.
     rng = np.random.default_rng(5)
     pts = rng.normal(size=(70_000, 3)) * 30
     centres = rng.normal(size=(12, 3)) * 30
     centres[7] = centres[2]  # a tie: the lowest index must win in both
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 0)
     lab_c, d_c = _kernels.assign_nearest(pts, centres)
     lab_n, d_n = _kernels.assign_nearest_numpy(pts, centres)
     assert_array_equal(lab_c, lab_n)
@@ -106,17 +119,85 @@ def test_compiled_euclidean_assignment_is_bit_identical_to_numpy():
     assert_allclose(d_c, ref_d, rtol=1e-12)
 
 
-def test_compiled_cluster_sums_are_bit_identical_to_bincount():
-    # While the compiled kernels load, the cluster sums come from np.bincount;
-    # a palette must not depend on which one ran.
+def test_with_no_centres_every_point_is_infinitely_far(monkeypatch):
+    # Removing the only free centre leaves none to fall back to; both paths
+    # must say so the same way.
+    pts = np.arange(12.0).reshape(4, 3)
+    labels, d2 = _kernels.assign_nearest(pts, np.empty((0, 3)))
+    assert_array_equal(labels, 0)
+    assert_array_equal(d2, np.inf)
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 0)
+    labels_c, d2_c = _kernels.assign_nearest(pts, np.empty((0, 3)))
+    assert_array_equal(labels_c, labels)
+    assert_array_equal(d2_c, d2)
+
+
+def test_cluster_sums_equal_a_point_by_point_sum():
     rng = np.random.default_rng(8)
-    pts = rng.normal(size=(50_000, 3)) * 40
-    w = rng.integers(1, 1000, 50_000).astype(float) / 7.0
-    labels = rng.integers(0, 9, 50_000)
+    pts = rng.normal(size=(3000, 3)) * 40
+    w = rng.integers(1, 1000, 3000).astype(float) / 7.0
+    labels = rng.integers(0, 9, 3000)
+    labels[labels == 4] = 5  # an empty cluster sums to zero
     wsum, sums = _kernels.centre_sums(pts, w, labels, 9)
-    assert_array_equal(wsum, np.bincount(labels, weights=w, minlength=9))
-    for t in range(3):
-        assert_array_equal(sums[:, t], np.bincount(labels, weights=w * pts[:, t], minlength=9))
+    ref_w, ref_s = naive.centre_sums(pts, w, labels, 9)
+    assert_allclose(wsum, ref_w, rtol=1e-12)
+    assert_allclose(sums, ref_s, rtol=1e-12, atol=1e-9)
+    assert wsum[4] == 0 and not sums[4].any()
+
+
+def test_numpy_ciede2000_pairs_follow_sharma_2005():
+    # Table 1 of Sharma et al. (2005), both orders of each pair, to 1e-4.
+    a, b, ref = SHARMA_2005[:, :3], SHARMA_2005[:, 3:6], SHARMA_2005[:, 6]
+    assert_allclose(vectorised.ciede2000_pairs(*a.T, *b.T), ref, atol=1e-4)
+    assert_allclose(vectorised.ciede2000_pairs(*b.T, *a.T), ref, atol=1e-4)
+
+
+def test_numpy_and_compiled_nearest_colour_agree():
+    # Both paths find the same colour wherever it is not tied within
+    # rounding, and the same ΔE00 to rounding.
+    rng = np.random.default_rng(21)
+    lab = _srgb_lab(rng, 20_000)
+    for k in (1, 3, 12, 40):
+        pal = _srgb_lab(rng, k)
+        l_np, d_np = vectorised.nearest_ciede2000(lab, pal)
+        l_c, d_c = np.empty(len(lab), np.intp), np.empty(len(lab))
+        order = np.argsort(pal[:, 0], kind="stable")
+        ek.assign_ciede2000(lab, pal, order, 1.5, l_c, d_c)  # S_L <= 1.5 for L* in 0-100
+        assert_allclose(d_np, d_c, rtol=0, atol=1e-10)
+        ref = naive.nearest_ciede2000(lab, pal)[1]
+        clear = (np.sort(ref, axis=1)[:, 1] - ref.min(axis=1) > 1e-9) if k > 1 else np.ones(len(lab), bool)
+        assert_array_equal(l_np[clear], l_c[clear])
+
+
+def test_the_path_depends_on_the_input_size_alone():
+    assert not _kernels.uses_compiled(_kernels.COMPILED_FROM // 16 - 1, 16)
+    assert _kernels.uses_compiled(_kernels.COMPILED_FROM // 16, 16)
+    assert _kernels.uses_compiled(_kernels.COMPILED_FROM, 1)
+
+
+def test_a_result_does_not_depend_on_whether_the_compiler_is_loaded():
+    # In a fresh process: the same input gives bit-identical palettes before
+    # and after the compiled loops were loaded by a larger job.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, numpy as np\n"
+        "from quantize import fit_palette\n"
+        "from quantize.kernels.nearest import nearest_ciede2000\n"
+        "rng = np.random.default_rng(3)\n"
+        "img = rng.integers(0, 256, (60, 80, 3)).astype(np.uint8)\n"
+        "before = fit_palette(img, (2, 5), seed=4)\n"
+        "assert 'numba' not in sys.modules\n"
+        "lab = rng.uniform(0, 60, (1 << 21, 3)); nearest_ciede2000(lab, lab[:8])\n"
+        "assert 'numba' in sys.modules\n"
+        "after = fit_palette(img, (2, 5), seed=4)\n"
+        "assert np.array_equal(before.rgb8, after.rgb8) and before.fit.inertia == after.fit.inertia\n"
+        "print('ok')\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "ok"
 
 
 def test_map_sample_follows_the_palette_and_metric_of_each_call():
@@ -140,7 +221,7 @@ def test_map_sample_follows_the_palette_and_metric_of_each_call():
     assert_array_equal(ls, naive.assign_nearest(smp.points("lab"), a.points())[0])
 
 
-def test_compiled_ciede2000_agrees_with_colour_science():
+def test_ciede2000_agrees_with_colour_science(path):
     # colour-science's delta_E(method="CIE 2000") as the reference library,
     # on random CIELAB pairs across the sRGB gamut, within 1e-6.
     colour = pytest.importorskip("colour")
@@ -161,7 +242,9 @@ def test_loading_the_kernels_changes_no_process_wide_state():
         "import gc, sys\n"
         "hooks, frozen, enabled = list(sys.meta_path), gc.get_freeze_count(), gc.isenabled()\n"
         "from quantize.kernels import loading\n"
-        "loading.warm_up(); loading.engine()\n"
+        "import numpy as np\n"
+        "ek = loading.compiled('engine_loops')\n"
+        "ek.assign_euclid(np.zeros((2, 3)), np.zeros((2, 3)), np.zeros(2, np.intp), np.zeros(2))\n"
         "assert list(sys.meta_path) == hooks, sys.meta_path\n"
         "assert gc.get_freeze_count() == frozen, gc.get_freeze_count()\n"
         "assert gc.isenabled() == enabled\n"
@@ -174,29 +257,34 @@ def test_loading_the_kernels_changes_no_process_wide_state():
 
 
 def test_a_kernel_load_failure_is_one_clear_line_on_the_command_line(monkeypatch, tmp_path):
-    # Stands in for a broken numba install: the load recorded an error.
-    import threading
+    # Stands in for a broken numba install: importing a kernel module fails.
+    # Error diffusion always needs the compiled loops.
+    import sys
 
     from click.testing import CliRunner
     from PIL import Image
 
     from quantize.cli.main import main
 
-    done = threading.Thread(target=lambda: None)
-    done.start()
-    done.join()
-    monkeypatch.setattr(loading, "_state", {"thread": done, "error": ImportError("libllvmlite.so: cannot open")})
+    def broken(name):
+        raise ImportError("libllvmlite.so: cannot open")
+
+    monkeypatch.setattr(loading, "_import", broken)
+    for name in loading.KERNEL_MODULES:
+        monkeypatch.delitem(sys.modules, f"quantize.kernels.{name}", raising=False)
     img = tmp_path / "in.png"
     Image.fromarray(np.random.default_rng(0).integers(0, 256, (20, 20, 3)).astype(np.uint8)).save(img)
-    res = CliRunner().invoke(main, ["reduce", str(img), "-o", str(tmp_path / "out.png"), "-k", "3"])
+    res = CliRunner().invoke(main, ["reduce", str(img), "-o", str(tmp_path / "out.png"), "-k", "3",
+                                    "--dither", "floyd-steinberg"])
     assert res.exit_code == 1
     assert "compiled kernels (numba) failed to load: libllvmlite.so: cannot open" in res.output
+    assert "reinstall" in res.output
     assert "Traceback" not in res.output
     assert not (tmp_path / "out.png").exists()
 
 
 @pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork (POSIX)")
-def test_a_forked_child_gets_a_fresh_thread_pool():
+def test_a_forked_child_gets_a_fresh_thread_pool(monkeypatch):
     # A script may fork worker processes after quantize has run: the parent's
     # pool threads do not exist in the child, so the child must make its own.
     import os
@@ -204,6 +292,7 @@ def test_a_forked_child_gets_a_fresh_thread_pool():
     rng = np.random.default_rng(4)
     lab = _srgb_lab(rng, 300_000)
     pal = _srgb_lab(rng, 8)
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 0)
     labels, de = _kernels.nearest_ciede2000(lab, pal)  # large enough to use the pool
     assert loading._pool
     pid = os.fork()
@@ -214,15 +303,3 @@ def test_a_forked_child_gets_a_fresh_thread_pool():
         os._exit(0 if ok else 1)
     _, status = os.waitpid(pid, 0)
     assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
-
-
-def test_a_load_interrupted_by_fork_starts_again_in_the_child():
-    saved = dict(loading._state)
-    try:
-        loading._state.clear()
-        loading._state["thread"] = object()  # a load that was running in the parent
-        loading._after_fork_in_child()
-        assert "thread" not in loading._state
-    finally:
-        loading._state.clear()
-        loading._state.update(saved)

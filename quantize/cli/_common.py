@@ -30,8 +30,12 @@ class _Failure(click.ClickException):
 def _run(ctx: click.Context, fn):
     """Call ``fn``; turn user-caused errors into a one-line message and exit 1."""
     from quantize.errors import QuantizeError
+    from quantize.kernels.loading import compile_all, compile_pending
 
     try:
+        if compile_pending():  # once after install; later runs load the cache
+            click.echo("quantize: compiling its kernels once after install (about 30 s)...", err=True)
+            compile_all()
         return fn()
     except (QuantizeError, ValueError, OSError) as exc:
         if (ctx.find_root().obj or {}).get("debug"):

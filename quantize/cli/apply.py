@@ -62,9 +62,6 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
     def work():
         from quantize.errors import QuantizeError
         from quantize.io.read import check_image_file, load_image
-        from quantize.kernels.loading import warm_up
-
-        warm_up()  # the compiled kernels load while the first image decodes
         pal = Palette.load(palette)
         for im in images:  # a file that is not an image stops the run before any output
             check_image_file(im, max_pixels=max_pixels)

@@ -43,9 +43,6 @@ def _png_path(ctx, param, value):
 def _decoded(images, max_pixels) -> list:
     """A Picture of every input: each file decoded once."""
     from quantize.io.read import load_image
-    from quantize.kernels.loading import warm_up
-
-    warm_up()  # the compiled kernels load while the images decode
     return [load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels) for im in images]
 
 

@@ -31,9 +31,9 @@ __all__ = ["ColourSample", "pool_samples", "sample_picture"]
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
 #: Opaque pixels from which an 8-bit image is histogrammed densely: from
-#: about a quarter of a megapixel the fixed cost of the 2**24 table is less
-#: than that of sorting (benchmarks/bench_sampling.py).
-_DENSE_FROM = 1 << 19
+#: about two megapixels the fixed cost of the 2**24 table (128 MB) is less
+#: than that of sorting (benchmarks/bench_everyday.py: peak memory at 1 MP).
+_DENSE_FROM = 1 << 21
 #: Packed code given to transparent pixels on the dense path: one past the
 #: last 8-bit colour, so that one table lookup also handles transparency.
 _CLEAR = 1 << 24

@@ -521,9 +521,6 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     >>> sorted(pal.hex)
     ['#000000', '#c81e28']
     """
-    from quantize.kernels.loading import warm_up
-
-    warm_up()  # the compiled kernels load while the images decode
     settings = FitSettings.of(settings, **options)
     ks = parse_k(DEFAULT_K if k is None else k)
     settings.check_sizes(ks)  # before any image is read

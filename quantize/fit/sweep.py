@@ -188,11 +188,9 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     ([2, 3], 3)
     """
     from quantize.core.sampling import pool_samples
-    from quantize.kernels.loading import warm_up
 
     from .engine import load_samples
 
-    warm_up()  # the compiled kernels load while the images decode
     ks = parse_sweep_range(ks)
     settings = FitSettings.of(settings, **options)
     settings.check_sizes(ks)  # before any image is read

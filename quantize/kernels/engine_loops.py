@@ -1,12 +1,13 @@
 """Compiled kernels of the fitting and mapping stages (numba, cached on disk).
 
-Imported only through :mod:`quantize.kernels.nearest`, which loads this module in a
-background thread while the image decodes (:func:`quantize.kernels.nearest.warm_up`).
-The kernels assume clean input: C-contiguous float64 arrays of matching
-dimension, preallocated outputs.  Each point's result depends on that point
-alone, so :mod:`quantize.kernels.nearest` runs large inputs in row blocks on
-several threads (the kernels release the interpreter lock) and the result
-does not depend on the number of threads.  Plain numpy twins live in
+Imported only through :mod:`quantize.kernels.nearest`, on first use, for
+inputs too large for the numpy kernels of :mod:`quantize.kernels.vectorised`
+(:func:`quantize.kernels.nearest.uses_compiled`).  The kernels assume clean
+input: C-contiguous float64 arrays of matching dimension, preallocated
+outputs.  Each point's result depends on that point alone, so
+:mod:`quantize.kernels.nearest` runs large inputs in row blocks on several
+threads (the kernels release the interpreter lock) and the result does not
+depend on the number of threads.  Plain numpy twins live in
 ``tests/naive.py``.
 
 References: G. Sharma, W. Wu and E. N. Dalal, "The CIEDE2000 color-difference
@@ -22,7 +23,7 @@ import numpy as np
 
 from .dither_loops import ciede2000, from_primed, primed_c
 
-__all__ = ["assign_euclid", "assign_ciede2000", "ciede2000_to", "centre_sums"]
+__all__ = ["assign_euclid", "assign_ciede2000", "ciede2000_to"]
 
 _POW25_7 = 25.0**7
 #: The largest value of CIEDE2000's hue weighting T over all hues (found by
@@ -174,20 +175,3 @@ def ciede2000_to(lab, labels, pal_lab, de):
     for i in range(lab.shape[0]):
         j = labels[i]
         de[i] = ciede2000(lab[i, 0], lab[i, 1], lab[i, 2], pal_lab[j, 0], pal_lab[j, 1], pal_lab[j, 2])
-
-
-@numba.njit(cache=True, nogil=True)
-def centre_sums(points, weights, labels, sums, wsum):
-    """Per-label sums of ``weights`` and of ``weights * points``, in point order.
-
-    The order and rounding are those of ``np.bincount(labels, weights=...)``
-    (each product rounded, then added in index order), so both give
-    bit-identical sums.
-    """
-    d = points.shape[1]
-    for i in range(points.shape[0]):
-        j = labels[i]
-        wi = weights[i]
-        wsum[j] += wi
-        for t in range(d):
-            sums[j, t] += wi * points[i, t]

@@ -2,11 +2,13 @@
 
 The loops themselves are numba functions in :mod:`quantize.kernels.engine_loops`
 and :mod:`quantize.kernels.dither_loops`.  Loading a JIT compiler costs about
-half a second even from its disk cache, so :func:`warm_up` starts that load
-in a background thread as soon as an entry point knows it will fit or map:
-the image decodes and is sampled while the compiler loads.  This module
-changes no process-wide state: no garbage-collector settings, no import
-hooks.
+half a second and a hundred megabytes even from its disk cache, so nothing
+loads it in advance: a kernel module is imported on first use, in the
+calling thread, by :func:`compiled` -- the one way the package loads
+compiled code.  Only error diffusion, ordered dithers and inputs too large
+for the numpy kernels of :mod:`quantize.kernels.vectorised` get there
+(:func:`quantize.kernels.nearest.uses_compiled`).  This module changes no
+process-wide state: no garbage-collector settings, no import hooks.
 """
 
 from __future__ import annotations
@@ -16,15 +18,14 @@ import threading
 
 import numpy as np
 
-__all__ = ["compiled", "forget_cached", "with_fresh_cache", "warm_up", "is_loaded", "is_loading", "engine",
-           "run_blocks", "KERNEL_MODULES"]
+__all__ = ["compiled", "forget_cached", "with_fresh_cache", "compile_pending", "compile_all", "run_blocks",
+           "KERNEL_MODULES"]
 
 #: Point-centre pairs per thread below which one thread does the work:
 #: handing a block to another thread costs tens of microseconds.
 _PER_THREAD = 1 << 19
 
 _lock = threading.Lock()
-_state: dict = {}
 
 
 def _fallback_cache_dir() -> str:
@@ -52,20 +53,40 @@ def _private(folder: str) -> bool:
 
 
 def compiled(name: str):
-    """The compiled-kernel module ``quantize.<name>``, imported where numba can cache it.
+    """The compiled-kernel module ``quantize.kernels.<name>``, imported where numba can cache it.
 
     numba keeps compiled code beside the module or, if that folder is
     read-only, in the user's cache folder.  When neither can be written (a
     read-only install run by a user without a writable home) its import
     fails; the cache then goes to a private folder in the system's
     temporary folder, and only the first run there compiles.
+
+    Raises
+    ------
+    QuantizeError
+        numba cannot be imported or has nowhere to cache; the message is one
+        line that says what to do.
     """
-    import importlib
     import sys
 
     full = f"{__package__}.{name}"
-    if full in sys.modules:
-        return sys.modules[full]
+    module = sys.modules.get(full)
+    if module is not None:
+        return module
+    try:
+        return _import(full)
+    except Exception as exc:
+        from quantize.errors import QuantizeError
+
+        reason = (str(exc) or type(exc).__name__).splitlines()[0]
+        if "NUMBA_CACHE_DIR" not in reason:
+            reason += "; reinstall quantize with its dependencies (pip install --force-reinstall .)"
+        raise QuantizeError(f"the compiled kernels (numba) failed to load: {reason}") from exc
+
+
+def _import(full: str):
+    import importlib
+
     try:
         return importlib.import_module(full)
     except RuntimeError as exc:
@@ -143,57 +164,16 @@ def with_fresh_cache(run):
         return run()
 
 
-def _warm_calls(ek) -> None:
-    pts = np.zeros((2, 3))
-    lab = np.zeros(2, dtype=np.intp)
-    out = np.zeros(2)
-    ek.assign_euclid(pts, pts, lab, out)
-    ek.assign_ciede2000(pts, pts, lab, 1.0, lab, out)
-    ek.ciede2000_to(pts, lab, pts, out)
-    ek.centre_sums(pts, out, lab, np.zeros((2, 3)), np.zeros(2))
-
-
-def _load():
-    try:
-        ek = compiled("engine_loops")
-        with_fresh_cache(lambda: _warm_calls(ek))
-        _state["module"] = ek
-    except BaseException as exc:  # re-raised in the caller's thread by engine()
-        _state["error"] = exc
-
-
 def _after_fork_in_child() -> None:
-    # A forked child has only the forking thread: the pool's workers, and a
-    # load still running in the parent, are gone.  Start afresh when needed.
+    # A forked child has only the forking thread: the pool's workers are
+    # gone.  Start afresh when needed.
     global _lock
     _lock = threading.Lock()
     _pool.clear()
-    if "module" not in _state:
-        _state.clear()
 
 
 if hasattr(os, "register_at_fork"):  # POSIX
     os.register_at_fork(after_in_child=_after_fork_in_child)
-
-
-def warm_up() -> None:
-    """Start loading the compiled kernels in a background thread (idempotent)."""
-    with _lock:
-        if "thread" not in _state:
-            t = threading.Thread(target=_load, name="quantize-kernels", daemon=True)
-            _state["thread"] = t
-            t.start()
-
-
-def is_loading() -> bool:
-    """Whether the background load is still running."""
-    t = _state.get("thread")
-    return t is not None and t.is_alive()
-
-
-def is_loaded() -> bool:
-    """Whether the compiled engine loops are loaded and ready."""
-    return "module" in _state
 
 
 def _threads() -> int:
@@ -236,16 +216,119 @@ def run_blocks(kernel, n: int, k: int, row_args: tuple, shared: tuple, outs: tup
         job.result()
 
 
-def engine():
-    """The loaded engine-loop module, waiting for the load; a failed load is a QuantizeError."""
-    warm_up()
-    _state["thread"].join()
-    if "error" in _state:
-        from quantize.errors import QuantizeError
+def _njit_functions(source: str) -> list[tuple[str, int]]:
+    """(name, line of the decorator) of every compiled function in a kernel module's source."""
+    lines = source.splitlines()
+    found = []
+    for i, line in enumerate(lines):
+        if line.startswith("@numba.njit(") and i + 1 < len(lines) and lines[i + 1].startswith("def "):
+            found.append((lines[i + 1][4:].split("(")[0], i + 1))
+    return found
 
-        exc = _state["error"]
-        reason = (str(exc) or type(exc).__name__).splitlines()[0]
-        if "NUMBA_CACHE_DIR" not in reason:
-            reason += "; reinstall quantize with its dependencies (pip install --force-reinstall .)"
-        raise QuantizeError(f"the compiled kernels (numba) failed to load: {reason}") from exc
-    return _state["module"]
+
+def _writable(folder: str) -> bool:
+    while not os.path.isdir(folder):  # numba creates it
+        parent = os.path.dirname(folder)
+        if parent == folder:
+            return False
+        folder = parent
+    return os.access(folder, os.W_OK)
+
+
+def _cache_folder(source_path: str) -> str:
+    """The folder numba keeps this file's compiled code in: the first of its choices it can write."""
+    import hashlib
+    import sys
+
+    where = os.path.dirname(os.path.abspath(source_path))
+    sub = f"{os.path.basename(where)}_{hashlib.sha1(where.encode()).hexdigest()}"
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        return os.path.join(os.environ["NUMBA_CACHE_DIR"], sub)
+    folders = [os.path.join(where, "__pycache__")]
+    if sys.platform.startswith(("linux", "freebsd")):
+        home = os.environ.get("XDG_CACHE_HOME") or os.path.expanduser("~/.cache")
+        folders.append(os.path.join(home, "numba", sub))
+    for folder in folders:
+        if _writable(folder):
+            return folder
+    return os.path.join(_fallback_cache_dir(), sub)
+
+
+def compile_pending() -> bool:
+    """Whether the compiled kernels still have to be compiled: numba has no fresh on-disk cache of them.
+
+    A cheap look at the files numba's cache would hold (numba itself is not
+    imported): an index file for every compiled function, stamped for the
+    current source.  Compiling takes tens of seconds, once; a command line
+    can say so first (:func:`compile_all`).  A newer numba, which does not
+    read an older one's cache, is not noticed: its first run compiles
+    without a word.
+    """
+    import hashlib
+    import struct
+    import sys
+    from importlib.util import find_spec
+
+    if find_spec("numba") is None:
+        return False  # nothing to compile with; loading will say so
+    tag = f"py{sys.version_info[0]}{sys.version_info[1]}"
+    here = os.path.dirname(os.path.abspath(__file__))
+    for name in KERNEL_MODULES:
+        path = os.path.join(here, f"{name}.py")
+        with open(path, "rb") as f:
+            source = f.read()
+        # numba stamps each index with the source's SHA-256 (up to 0.6x: its
+        # modification time and size), pickled as raw bytes.
+        stamps = (hashlib.sha256(source).digest(), struct.pack(">d", os.stat(path).st_mtime))
+        functions = _njit_functions(source.decode("utf-8"))
+        folder = _cache_folder(path)
+        if not all(_fresh(os.path.join(folder, f"{name}.{fn}-{line}.{tag}.nbi"), stamps)
+                   for fn, line in functions):
+            return True
+    return False
+
+
+def _fresh(index: str, stamps: tuple[bytes, ...]) -> bool:
+    try:
+        with open(index, "rb") as f:
+            data = f.read()
+    except OSError:
+        return False
+    return any(stamp in data for stamp in stamps)
+
+
+def compile_all() -> None:
+    """Compile every kernel for the argument types the package passes, and cache them on disk.
+
+    What a first run does once after install, so that no later run
+    compiles; :func:`compile_pending` says whether it is needed.
+    """
+    ek = compiled("engine_loops")
+    dk = compiled("dither_loops")
+
+    def run():
+        pts, lab, de = np.zeros((2, 3)), np.zeros(2, dtype=np.intp), np.zeros(2)
+        ek.assign_euclid(pts, pts, lab, de)
+        ek.assign_ciede2000(pts, pts, lab, 1.0, lab, de)
+        ek.ciede2000_to(pts, lab, pts, de)
+        lut, mat, pal = np.zeros(65536), np.eye(3), np.zeros((2, 3))
+        state, pinned = np.zeros((2, 2), dtype=np.uint8), np.zeros((2, 2), dtype=np.uint16)
+        out, de2 = np.zeros((2, 2), dtype=np.uint8), np.zeros((2, 2))
+        dy, dx, w = np.array([0, 1]), np.array([1, 0]), np.array([0.5, 0.5])
+        near, other = np.zeros(4, dtype=np.int64), np.zeros(4, dtype=np.int64)
+        share, de_near, de_other = np.zeros(4), np.zeros(4), np.zeros(4)
+        dk.to_space(0.0, 0.0, 0.0, mat, mat, 0)
+        for depth in (np.uint8, np.uint16):  # 8- and 16-bit images
+            codes = np.zeros((2, 2, 3), dtype=depth)
+            for metric in (0, 1):
+                dk.diffuse(codes, lut, state, pinned, pal, pal, mat, mat, 0, metric, dy, dx, w, 1.0, True, out)
+            err = np.zeros((dk.error_rows(dy), 2, 3))
+            dk.diffuse_rows(codes, lut, state, pinned, pal, pal, mat, mat, 0, 0, dy, dx, w, 1.0, True, err, 0, 2,
+                            out)
+            dk.delta_e_rows(codes, lut, state, out, pal, mat, 0, 2, de2)
+            dk.bracket(codes.reshape(-1, 3), lut, pal, pal, pal, mat, mat, mat, 0, 0, near, other, share,
+                       de_near, de_other)
+        dk.ordered(np.zeros((2, 2), dtype=np.int32), state, pinned, de2, 1.0, near, other, share, de_near,
+                   de_other, out, de2)
+
+    with_fresh_cache(run)

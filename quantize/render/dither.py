@@ -156,7 +156,7 @@ class _Diffusion:
 def _kernel_inputs(pic, palette, metric) -> DitherArrays:
     """The arrays the compiled kernels take, for ``pic`` onto ``palette``."""
     from quantize.colour import spaces as cs
-    from quantize.kernels.loading import compiled
+    from quantize.kernels.loading import compiled, with_fresh_cache
 
     dk = compiled("dither_loops")
     space = palette.space if palette.space in ("lab", "oklab") else "lab"
@@ -185,7 +185,9 @@ def _kernel_inputs(pic, palette, metric) -> DitherArrays:
         pinned=pinned,
         pal_lin=pal_lin,
         pal_pts=np.ascontiguousarray(cs.srgb8_to_space(palette.rgb8, space if metric == "space" else "lab")),
-        pal_lab=np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin]),
+        # Palette CIELAB along the kernels' own arithmetic, so that a pixel that
+        # is exactly its palette colour measures exactly 0.
+        pal_lab=with_fresh_cache(lambda: np.array([dk.to_space(*lin, mat_lab, mat_lab, 0) for lin in pal_lin])),
         mat=np.ascontiguousarray(mat),
         mat2=np.ascontiguousarray(mat2),
         mat_lab=mat_lab,

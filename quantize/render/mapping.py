@@ -57,9 +57,7 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
         Unknown ``dither`` or ``metric``, or a ``sample`` of another size.
     """
     from quantize.io.read import as_picture, load_image
-    from quantize.kernels.loading import warm_up
 
-    warm_up()
     metric = resolve_metric(metric, dither)
     if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
