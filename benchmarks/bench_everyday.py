@@ -233,14 +233,16 @@ def main():
         helps.append({"command": "quantize " + " ".join(argv), "seconds (median of 5)": f"{np.median(secs):.3f}",
                       "goal": f"< 0.15 ({'met' if np.median(secs) < 0.15 else 'missed'})"})
 
-    ks = ["8", None]
+    # The range the speed goals name, given explicitly: without -k a photo under the
+    # automatic rule may take up to 256 colours, which is another job.
+    ks = ["8", "2-12"]
     print("quiet machine", file=sys.stderr)
     rows = time_cases(images, ks, args.repeats, "quiet", out)
     print("one core busy", file=sys.stderr)
     with BusyCore():
         rows += time_cases(images, ks, args.repeats, "busy", out)
     for r in rows:
-        r["-k"] = r["-k"] or "2-12"
+        r["-k"] = r["-k"]
     quiet = {(r["image"], r["MP"], r["-k"]): r["digest"] for r in rows if r["machine"] == "quiet"}
     same = all(quiet[(r["image"], r["MP"], r["-k"])] == r["digest"] for r in rows if r["machine"] == "busy")
 
