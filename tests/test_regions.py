@@ -102,3 +102,23 @@ def test_a_large_picture_is_analysed_at_a_reduced_scale_with_the_same_shares():
     n = min(len(order_a), len(order_b), 5)
     assert np.allclose(a[1][order_a][:n], b[1][order_b][:n], atol=0.01)
     assert _nearest_de(a[0][order_a][:n], b[0][order_b][:n]).max() < 1.0
+
+
+def test_the_grid_operations_agree_with_scipy_ndimage():
+    # scipy.ndimage (a reference implementation outside the project) against
+    # the numpy versions the analysis uses to avoid its import time.
+    from scipy import ndimage as ndi
+
+    from quantize.core import regions as r
+
+    rng = np.random.default_rng(0)
+    for _ in range(25):
+        m = rng.random((int(rng.integers(1, 50)), int(rng.integers(1, 50)))) < rng.uniform(0.2, 0.8)
+        ours, n = r._label(m)
+        ref, n_ref = ndi.label(m, structure=np.ones((3, 3)))
+        assert n == n_ref
+        assert len(set(zip(ours[m].tolist(), ref[m].tolist()))) == n  # the same partition
+    x = rng.random((60, 80))
+    np.testing.assert_allclose(r._gaussian(x, 1.0), ndi.gaussian_filter(x, 1.0, mode="reflect"), atol=1e-12)
+    np.testing.assert_array_equal(r._window_range(x, 5),
+                                  ndi.maximum_filter(x, 5, mode="nearest") - ndi.minimum_filter(x, 5, mode="nearest"))

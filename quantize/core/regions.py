@@ -20,8 +20,9 @@ inside.  :func:`find_regions` separates the two:
    a disc of :data:`MIN_CORE_RADIUS` pixels (thin flat runs are hairlines
    and the length of a seam).  A region's colour
    is the mean CIELAB of its flat pixels in the unsmoothed picture.  Its area
-   counts the pixels within :data:`RIM` pixels of it that belong to no other
-   region: the window took that rim off every region's edge.
+   counts the pixels within :data:`RIM` pixels of it (8-neighbour steps) that
+   belong to no other region: the window took that rim off every region's
+   edge.
 
 Large pictures are analysed at a reduced scale (every n-th pixel of every
 n-th row) so that the analysis stays a fraction of the fit's time and
@@ -63,9 +64,10 @@ FLAT_THRESHOLD = 6.0
 SMOOTHING = (1.0, 1.0)
 #: Width in pixels of the rim the 5 x 5 window takes off a region.
 RIM = 3
-#: The smallest inscribed radius, in pixels, of a region's flat core: with the
-#: rim, an area of ink at least about 9 px across.  Thinner flat runs are the
-#: insides of hairlines and blurred seams.
+#: The smallest inscribed radius, in pixels, of a region's flat core (some
+#: pixel of it at least this far from every pixel that is not flat): with
+#: the rim, an area of ink at least about 9 px across.  Thinner flat runs are
+#: the insides of hairlines and blurred seams.
 MIN_CORE_RADIUS = 2.0
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
@@ -120,6 +122,122 @@ class Regions:
         return len(self.area)
 
 
+# --------------------------------------------------------------------------- grid operations in numpy
+# scipy.ndimage would do all of these, but importing it costs 0.2-0.3 s, more
+# than the whole analysis of an everyday file; these are the few it needs.
+
+
+def _shifted(a: np.ndarray, dy: int, dx: int, fill) -> np.ndarray:
+    """``a`` moved so that ``out[y, x] = a[y + dy, x + dx]``, ``fill`` outside."""
+    out = np.full_like(a, fill)
+    h, w = a.shape[:2]
+    ys, yd = (slice(dy, h), slice(0, h - dy)) if dy >= 0 else (slice(0, h + dy), slice(-dy, h))
+    xs, xd = (slice(dx, w), slice(0, w - dx)) if dx >= 0 else (slice(0, w + dx), slice(-dx, w))
+    out[yd, xd] = a[ys, xs]
+    return out
+
+
+def _gaussian(a: np.ndarray, sigma: float) -> np.ndarray:
+    """Separable Gaussian blur of a 2-D array (radius 4 sigma, edges mirrored)."""
+    r = int(4 * sigma + 0.5)
+    taps = np.exp(-0.5 * (np.arange(-r, r + 1) / sigma) ** 2)
+    taps /= taps.sum()
+    out = a
+    for axis in (0, 1):
+        pad = [(0, 0), (0, 0)]
+        pad[axis] = (r, r)
+        padded = np.pad(out, pad, mode="symmetric")
+        n = out.shape[axis]
+        acc = np.zeros_like(out)
+        for i, t in enumerate(taps):
+            acc += t * (padded[i:i + n] if axis == 0 else padded[:, i:i + n])
+        out = acc
+    return out
+
+
+def _window_range(a: np.ndarray, size: int) -> np.ndarray:
+    """Max minus min of a 2-D array over a ``size x size`` window (edges: the window inside)."""
+    r = size // 2
+    hi, lo = a.copy(), a.copy()
+    for axis in (0, 1):
+        h2, l2 = hi.copy(), lo.copy()
+        for d in range(1, r + 1):
+            for sgn in (-d, d):
+                dy, dx = (sgn, 0) if axis == 0 else (0, sgn)
+                np.maximum(h2, _shifted(hi, dy, dx, -np.inf), out=h2)
+                np.minimum(l2, _shifted(lo, dy, dx, np.inf), out=l2)
+        hi, lo = h2, l2
+    return hi - lo
+
+
+def _erode(mask: np.ndarray, offsets) -> np.ndarray:
+    """Pixels of ``mask`` whose every offset neighbour is in ``mask`` (outside counts as in)."""
+    out = mask.copy()
+    for dy, dx in offsets:
+        out &= _shifted(mask, dy, dx, True)
+    return out
+
+
+_SQUARE = [(dy, dx) for dy in (-1, 0, 1) for dx in (-1, 0, 1) if dy or dx]
+
+
+def _label(mask: np.ndarray) -> tuple[np.ndarray, int]:
+    """8-connected components of ``mask``: (labels 1..n, 0 outside; n), numbered in raster order of first pixel.
+
+    Runs of each row are joined to the runs of the row above that touch them
+    (diagonals included); the components of that run graph come from
+    min-label propagation with pointer jumping.
+    """
+    h, w = mask.shape
+    edge = np.diff(np.pad(mask.astype(np.int8), ((0, 0), (1, 1))), axis=1)
+    rs, cs = np.nonzero(edge == 1)
+    _, ce = np.nonzero(edge == -1)
+    n_runs = len(rs)
+    labels = np.zeros((h, w), np.int32)
+    if n_runs == 0:
+        return labels, 0
+    width = w + 2
+    key_s, key_e = rs * width + cs, rs * width + ce
+    # Runs of the row above that touch run i: start < e_i + 1 and end > s_i - 1.
+    lo = np.searchsorted(key_e, (rs - 1) * width + cs - 1, side="right")
+    hi = np.searchsorted(key_s, (rs - 1) * width + ce + 1, side="left")
+    hi = np.maximum(hi, lo)
+    count = hi - lo
+    a = np.repeat(np.arange(n_runs), count)
+    b = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count) + np.repeat(lo, count)
+    comp = np.arange(n_runs)
+    while True:
+        old = comp.copy()
+        m = np.minimum(comp[a], comp[b])
+        np.minimum.at(comp, a, m)
+        np.minimum.at(comp, b, m)
+        comp = comp[comp]
+        comp = comp[comp]
+        if np.array_equal(comp, old):
+            break
+    roots, comp = np.unique(comp, return_inverse=True)
+    length = ce - cs
+    start = np.repeat(rs * w + cs - np.cumsum(length) + length, length)
+    flat_index = np.arange(length.sum()) + start
+    labels.ravel()[flat_index] = np.repeat(comp.ravel() + 1, length)
+    return labels, len(roots)
+
+
+def _grow(labels: np.ndarray, allowed: np.ndarray, steps: int) -> np.ndarray:
+    """Labels spread ``steps`` pixels (8-neighbours) into unlabelled pixels of ``allowed``."""
+    out = labels.copy()
+    for _ in range(steps):
+        empty = (out == 0) & allowed
+        if not empty.any():
+            break
+        best = np.zeros_like(out)
+        for dy, dx in _SQUARE:
+            np.maximum(best, _shifted(out, dy, dx, 0), out=best)
+        out[empty] = best[empty]
+    return out
+
+
+
 def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
                  max_pixels: int = ANALYSIS_PIXELS) -> Regions:
     """The flat, coherent regions of ``picture`` and their colours.
@@ -147,8 +265,6 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     >>> len(r), [round(float(s), 2) for s in r.share]
     (2, [0.5, 0.5])
     """
-    from scipy import ndimage as ndi
-
     h, w = picture.shape
     scale = 1
     while (h // scale) * (w // scale) > max_pixels:
@@ -157,36 +273,35 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     # would, and features thinner than the reduction are no region anyway.
     opaque = picture.opaque[::scale, ::scale]
     lab = srgb_to_lab(picture.rgb[::scale, ::scale] / float(picture.max_code))
-    smooth = np.stack([ndi.gaussian_filter(lab[..., c], SMOOTHING[c > 0]) for c in range(3)], axis=-1)
-    span = np.stack([ndi.maximum_filter(smooth[..., c], _WINDOW) - ndi.minimum_filter(smooth[..., c], _WINDOW)
-                     for c in range(3)], axis=-1)
+    smooth = np.stack([_gaussian(lab[..., c], SMOOTHING[c > 0]) for c in range(3)], axis=-1)
+    span = np.stack([_window_range(smooth[..., c], _WINDOW) for c in range(3)], axis=-1)
     weight = 1.0 + 0.045 * np.hypot(smooth[..., 1], smooth[..., 2])
     spread = np.sqrt(span[..., 0] ** 2 + (span[..., 1] ** 2 + span[..., 2] ** 2) / weight**2)
     # A transparent pixel is no ink; nor is an opaque one beside it.
-    flat = (spread < threshold) & ndi.binary_erosion(opaque, np.ones((3, 3)), border_value=1)
-    labels, n = ndi.label(flat, structure=np.ones((3, 3), dtype=bool))
+    flat = (spread < threshold) & _erode(opaque, _SQUARE)
+    labels, n = _label(flat)
     if n:
-        # A seam can be flat along its length: a core too thin to hold a disc
-        # of MIN_CORE_RADIUS is a line or a stroke's edge, not an area of ink.
-        depth = np.zeros(n + 1)
-        np.maximum.at(depth, labels.ravel(), ndi.distance_transform_edt(flat).ravel())
-        thick = depth >= MIN_CORE_RADIUS
+        # A seam can be flat along its length: a core with no pixel at least
+        # MIN_CORE_RADIUS (2 px) from its edge -- no pixel whose 3 x 3
+        # neighbours are all flat -- is a line or a stroke's edge, not an
+        # area of ink.
+        thick = np.zeros(n + 1, bool)
+        thick[np.unique(labels[_erode(flat, _SQUARE)])] = True
         thick[0] = False
         flat = thick[labels]
-        labels, n = ndi.label(flat, structure=np.ones((3, 3), dtype=bool))
+        labels, n = _label(flat)
     if n:
         # The mean of a flat core: its pixels lie within the threshold of each
         # other, and a bincount is a fraction of a per-label median's cost.
         count = np.bincount(labels.ravel(), minlength=n + 1)[1:]
         mean = np.stack([np.bincount(labels.ravel(), weights=lab[..., c].ravel(), minlength=n + 1)[1:] / count
-                           for c in range(3)], axis=1)
-        dist, (iy, ix) = ndi.distance_transform_edt(labels == 0, return_indices=True)
-        grown = np.where((dist <= RIM) & opaque, labels[iy, ix], 0)
+                         for c in range(3)], axis=1)
+        grown = _grow(labels, opaque, RIM)
         area = np.bincount(grown.ravel(), minlength=n + 1)[1:].astype(np.float64) * scale * scale
         yy, xx = np.indices(labels.shape)
-        centre = np.stack([np.bincount(labels.ravel(), weights=xx.ravel(), minlength=n + 1)[1:] / count / labels.shape[1],
-                           np.bincount(labels.ravel(), weights=yy.ravel(), minlength=n + 1)[1:] / count / labels.shape[0]],
-                          axis=1)
+        centre = np.stack([np.bincount(labels.ravel(), weights=xx.ravel(), minlength=n + 1)[1:] / count,
+                           np.bincount(labels.ravel(), weights=yy.ravel(), minlength=n + 1)[1:] / count],
+                          axis=1) / np.array([labels.shape[1], labels.shape[0]])
         inside = labels > 0
         step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
         spread = float(np.percentile(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]), 90))
