@@ -135,3 +135,21 @@ def test_no_private_names_cross_a_package(name):
         private = [n for n in names if n.startswith("_") and not n.startswith("__")]
         private += [p for p in target.split(".")[1:] if p.startswith("_") and not p.startswith("__")]
         assert not private, f"{name} imports {private} from {target}"
+
+
+@pytest.mark.parametrize("name", sorted(MODULES))
+def test_no_private_attributes_of_another_package_are_read(name):
+    # ``from quantize.colour import spaces as cs`` then ``cs._matrix``: a private name all the same.
+    package = name.rsplit(".", 1)[0] if MODULES[name].name != "__init__.py" else name
+    tree = ast.parse(MODULES[name].read_text(encoding="utf-8"))
+    aliases = {}
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.module and node.module.startswith("quantize") and not node.level:
+            for a in node.names:
+                full = f"{node.module}.{a.name}"
+                if full in MODULES and full.rsplit(".", 1)[0] != package:
+                    aliases[a.asname or a.name] = full
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id in aliases:
+            assert not (node.attr.startswith("_") and not node.attr.startswith("__")), \
+                f"{name} reads {aliases[node.value.id]}.{node.attr}"

@@ -54,9 +54,9 @@ _P = np.hstack([_PRIMARIES_XY, 1.0 - _PRIMARIES_XY.sum(axis=1, keepdims=True)]).
 #: Linear sRGB -> CIE XYZ (D65), derived from the IEC 61966-2-1 primaries and white.
 SRGB_TO_XYZ = _P @ np.diagflat(np.linalg.inv(_P) @ D65_WHITE_XYZ)
 _M_XYZ_TO_RGB = np.linalg.inv(SRGB_TO_XYZ)
-# Linear RGB straight to XYZ / XYZ_w: one matrix product on the Lab hot path.
-_M_RGB_TO_T = SRGB_TO_XYZ / D65_WHITE_XYZ[:, None]
-_M_T_TO_RGB = np.linalg.inv(_M_RGB_TO_T)
+#: Linear sRGB straight to XYZ / XYZ_w: one matrix product on the Lab hot path.
+SRGB_TO_WHITE_RELATIVE = SRGB_TO_XYZ / D65_WHITE_XYZ[:, None]
+_M_T_TO_RGB = np.linalg.inv(SRGB_TO_WHITE_RELATIVE)
 
 # CIE 15:2004 CIELAB as an affine map of f(X/Xn), f(Y/Yn), f(Z/Zn).
 _DELTA = 6.0 / 29.0
@@ -70,15 +70,17 @@ _LAB_OFFSET = np.array([16.0, 0.0, 0.0])
 _M1_XYZ_TO_LMS = np.array([[0.8189330101, 0.3618667424, -0.1288597137],
                            [0.0329845436, 0.9293118715, 0.0361456387],
                            [0.0482003018, 0.2643662691, 0.6338517070]])
-_M2_LMS_TO_OKLAB = np.array([[0.2104542553, 0.7936177850, -0.0040720468],
-                             [1.9779984951, -2.4285922050, 0.4505937099],
-                             [0.0259040371, 0.7827717662, -0.8086757660]])
-_M_RGB_TO_LMS = np.array([[0.4122214708, 0.5363325363, 0.0514459929],
-                          [0.2119034982, 0.6806995451, 0.1073969566],
-                          [0.0883024619, 0.2817188376, 0.6299787005]])
+#: Cube-rooted LMS -> OKLab (Ottosson 2020).
+LMS_TO_OKLAB = np.array([[0.2104542553, 0.7936177850, -0.0040720468],
+                         [1.9779984951, -2.4285922050, 0.4505937099],
+                         [0.0259040371, 0.7827717662, -0.8086757660]])
+#: Linear sRGB -> OKLab's cone-like LMS (Ottosson 2020).
+SRGB_TO_LMS = np.array([[0.4122214708, 0.5363325363, 0.0514459929],
+                        [0.2119034982, 0.6806995451, 0.1073969566],
+                        [0.0883024619, 0.2817188376, 0.6299787005]])
 _M1_LMS_TO_XYZ = np.linalg.inv(_M1_XYZ_TO_LMS)
-_M2_OKLAB_TO_LMS = np.linalg.inv(_M2_LMS_TO_OKLAB)
-_M_LMS_TO_RGB = np.linalg.inv(_M_RGB_TO_LMS)
+_M2_OKLAB_TO_LMS = np.linalg.inv(LMS_TO_OKLAB)
+_M_LMS_TO_RGB = np.linalg.inv(SRGB_TO_LMS)
 
 #: CAM16 viewing conditions of the CAM16-UCS functions: the sRGB reference
 #: viewing environment of IEC 61966-2-1 (64 lux ambient, adapting luminance
@@ -194,7 +196,7 @@ def lab_to_xyz(lab: ArrayLike) -> Float64Array:
 
 
 def _linear_to_lab(linear: np.ndarray) -> np.ndarray:
-    return _t_to_lab(linear @ _M_RGB_TO_T.T)
+    return _t_to_lab(linear @ SRGB_TO_WHITE_RELATIVE.T)
 
 
 def srgb_to_lab(rgb: ArrayLike) -> Float64Array:
@@ -236,7 +238,7 @@ def clip_to_gamut(rgb: ArrayLike) -> Float64Array:
 
 
 def _lms_to_oklab(lms: np.ndarray) -> np.ndarray:
-    return np.cbrt(lms) @ _M2_LMS_TO_OKLAB.T
+    return np.cbrt(lms) @ LMS_TO_OKLAB.T
 
 
 def _oklab_to_lms(oklab: np.ndarray) -> np.ndarray:
@@ -277,7 +279,7 @@ def srgb_to_oklab(rgb: ArrayLike) -> Float64Array:
     >>> srgb_to_oklab([1.0, 1.0, 1.0]).round(6) + 0.0
     array([1., 0., 0.])
     """
-    return _lms_to_oklab(srgb_to_linear(_colours(rgb, "rgb")) @ _M_RGB_TO_LMS.T)
+    return _lms_to_oklab(srgb_to_linear(_colours(rgb, "rgb")) @ SRGB_TO_LMS.T)
 
 
 def oklab_to_srgb(oklab: ArrayLike) -> Float64Array:
@@ -351,7 +353,7 @@ SPACES: dict[str, tuple[_Conversion, _Conversion]] = {
 # The same forward conversions from linear RGB, for the 8-bit lookup path.
 _FROM_LINEAR: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "lab": _linear_to_lab,
-    "oklab": lambda linear: 100.0 * _lms_to_oklab(linear @ _M_RGB_TO_LMS.T),
+    "oklab": lambda linear: 100.0 * _lms_to_oklab(linear @ SRGB_TO_LMS.T),
     "cam16ucs": _linear_to_cam16ucs,
 }
 _LUT8 = srgb_to_linear(np.arange(256) / 255.0)

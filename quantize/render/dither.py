@@ -163,9 +163,9 @@ def _kernel_inputs(pic, palette, metric) -> DitherArrays:
     if metric == "ciede2000":
         space = "lab"
     if space == "lab":
-        mat, mat2, code = cs._M_RGB_TO_T, np.zeros((3, 3)), 0
+        mat, mat2, code = cs.SRGB_TO_WHITE_RELATIVE, np.zeros((3, 3)), 0
     else:
-        mat, mat2, code = cs._M_RGB_TO_LMS, cs._M2_LMS_TO_OKLAB, 1
+        mat, mat2, code = cs.SRGB_TO_LMS, cs.LMS_TO_OKLAB, 1
     codes = np.ascontiguousarray(pic.rgb)
     state = np.full(pic.shape, dk.OPEN, dtype=np.uint8)
     pinned = np.zeros(pic.shape, dtype=np.uint16)  # read only where state is PINNED
@@ -177,7 +177,7 @@ def _kernel_inputs(pic, palette, metric) -> DitherArrays:
         state[hit] = dk.PINNED
         pinned[hit] = j
     pal_lin = np.ascontiguousarray(cs.srgb_to_linear(palette.rgb8 / 255.0))
-    mat_lab = np.ascontiguousarray(cs._M_RGB_TO_T)
+    mat_lab = np.ascontiguousarray(cs.SRGB_TO_WHITE_RELATIVE)
     return DitherArrays(
         codes=codes,
         lut=cs.srgb_to_linear(np.arange(pic.max_code + 1) / pic.max_code),
