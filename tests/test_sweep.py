@@ -330,3 +330,16 @@ def test_cli_module_imports_only_click_and_runs_as_a_process(image_files):
     proc = subprocess.run(run, capture_output=True, text=True, cwd=root)
     assert proc.returncode == 0, proc.stderr
     assert sum(ln.startswith(">") for ln in proc.stdout.splitlines()) == 1
+
+
+def test_on_a_bare_colour_sample_the_auto_rule_picks_as_the_penalised_rule():
+    # No picture, no regions to judge: the automatic pick falls back to the penalised rule.
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.sweep import sweep_sample
+    from quantize.io.read import as_picture
+
+    img = _blob_image(11, 4)
+    smp = sample_picture(as_picture(img))
+    auto = sweep_sample(smp, [2, 3, 4, 5, 6], restarts=2, seed=0)
+    bic = sweep_sample(smp, [2, 3, 4, 5, 6], restarts=2, seed=0, rule="bic")
+    assert auto.rule == "auto" and auto.chosen.k == bic.chosen.k == bic.choices["bic"].k

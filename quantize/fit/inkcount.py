@@ -248,7 +248,7 @@ def group_sample(groups: InkGroups, n_pixels: int):
     return ColourSample(codes=uniq, weights=w, bit_depth=16, n_pixels=int(n_pixels))
 
 
-def auto_choice(ks, palettes_lab, stats, regions: Sequence[Regions] | None, n_pixels: int, *,
+def auto_choice(ks, palettes_lab, stats, robust, regions: Sequence[Regions] | None, n_pixels: int, *,
                 kind: str = "auto", target: float | None = None, target_stat: str = "mean"):
     """The automatic rule's pick among palettes already fitted (a sweep's rows).
 
@@ -256,12 +256,13 @@ def auto_choice(ks, palettes_lab, stats, regions: Sequence[Regions] | None, n_pi
     least :data:`MIN_SHARE` within :data:`FOUND_DE`; continuous tone: the
     smallest whose ΔE00 ``target_stat`` meets ``target`` (default
     :data:`TONE_TARGET_DE`).  Without regions (a bare colour sample) the
-    penalised rule picks.  Returns a :class:`quantize.fit.selection.Choice`.
+    penalised rule picks, on ``robust`` (each size's ``R_k``).  Returns a
+    :class:`quantize.fit.selection.Choice`.
     """
     from .selection import Choice, choose_k
 
     if not regions:
-        c = choose_k(ks, stats, [0.0] * len(ks), rule="bic")
+        c = choose_k(ks, stats, robust, rule="bic")
         return Choice(c.k, "auto", "no regions to judge (a colour sample): " + c.reason, c.scores)
     judgement = judge(regions)
     kind = judgement.kind if kind == "auto" else kind

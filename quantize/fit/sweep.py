@@ -84,7 +84,7 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
         choices["target"] = choose_k(kk, stats, rob, rule="target", target=settings.target,
                                      target_stat=settings.target_stat)
     if settings.rule == "auto":
-        choices["auto"] = auto_choice(kk, [c.palette.lab for c in cands], stats, regions, sample.n_pixels,
+        choices["auto"] = auto_choice(kk, [c.palette.lab for c in cands], stats, rob, regions, sample.n_pixels,
                                       kind=settings.kind, target=settings.target, target_stat=settings.target_stat)
     rows = []
     for c, score in zip(cands, choices["bic"].scores):
