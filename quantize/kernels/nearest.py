@@ -23,10 +23,15 @@ from .loading import compiled, run_blocks
 __all__ = ["COMPILED_FROM", "uses_compiled", "assign_nearest", "assign_nearest_numpy", "centre_sums",
            "nearest_ciede2000", "ciede2000_to"]
 
-#: Point-palette pairs from which a call runs the compiled loops.  Below,
-#: numpy takes less time than loading the compiler does (about half a
-#: second, and 100 MB), even on a busy machine (benchmarks/bench_everyday.py).
-COMPILED_FROM = 1 << 24
+#: Point-palette pairs from which a call runs the compiled loops (2^21, about
+#: two million).  Below, numpy takes less time than loading the compiler
+#: does (about half a second, and 100 MB), even on a busy machine; above it
+#: the compiled loops win: a 2..16 sweep of a 12 MP photo's 586 000 colours
+#: took 8.1 s with the threshold at 2^24 and 5.1 s at 2^21
+#: (benchmarks/bench_sweep.py), while 1 MP photos (fewer than 260 000
+#: colours at k = 8) still never load the compiler
+#: (benchmarks/bench_everyday.py).
+COMPILED_FROM = 1 << 21
 
 
 def uses_compiled(n: int, k: int) -> bool:
