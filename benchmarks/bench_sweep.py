@@ -74,7 +74,7 @@ def main(argv=None) -> int:
         f"Machine: {platform.machine()}, {os.cpu_count()} cores (shared), Python {platform.python_version()}, "
         f"numpy {np.__version__}.  Sampling the image (not in the sweep times): {t_load:.2f} s.",
         "",
-        "| | warm starts (default) | cold (fresh restarts only) |",
+        "| | warm starts (--warm) | cold (the default: fresh restarts only) |",
         "|---|---|---|",
         f"| compute seconds, whole sweep (robust refinement, as `reduce`) | {results['warm'][0]:.2f} | "
         f"{results['cold'][0]:.2f} |",
