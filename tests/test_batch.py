@@ -521,3 +521,15 @@ def test_images_still_on_dask_workers_when_a_run_stops_are_listed_and_redone(tmp
     # written, so every file on disk after the stop is in it, and the rerun completes.  Without
     # the wait the race is lost only now and then (about one run in eight here).
     _stop_at_first_result_then_rerun(tmp_path, seed=20, cluster=dask_cluster.scheduler_address)
+
+
+def test_batch_settings_are_checked_by_the_fit_settings_with_the_same_messages():
+    from quantize.batch.settings import BatchSettings
+    from quantize.fit.settings import FitSettings
+
+    for bad in ({"restarts": 2.5}, {"restarts": 0}, {"space": "bogus"}):
+        with pytest.raises(ValueError) as fit_err:
+            FitSettings(**bad)
+        with pytest.raises(ValueError) as batch_err:
+            BatchSettings(**bad)
+        assert str(batch_err.value) == str(fit_err.value)

@@ -332,3 +332,13 @@ def test_every_command_defaults_to_the_library_size_range(art, tmp_path):
         else:
             assert s["k"] <= DEFAULT_K[1]
     assert Palette.load(tmp_path / "p.json").fit.k_requested == DEFAULT_K
+
+
+def test_the_command_line_lists_the_names_the_library_knows():
+    # The CLI keeps its own copy of the names so that --help needs no numpy: it must not drift.
+    from quantize.cli._common import SEEDINGS, SPACE_NAMES
+    from quantize.colour.spaces import SPACES
+    from quantize.fit.clustering import INITS
+
+    assert set(SPACE_NAMES) == set(SPACES)
+    assert set(SEEDINGS) == set(INITS)

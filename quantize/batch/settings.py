@@ -98,17 +98,16 @@ class BatchSettings:
     worst: int = DEFAULT_WORST
 
     def __post_init__(self):
-        from quantize.colour.spaces import check_space
         from quantize.fit.engine import parse_k
+        from quantize.fit.settings import FitSettings
 
         if self.shared and self.palette is not None:
             raise ValueError("give either a palette file or shared=True, not both")
         if self.shared_weighting not in WEIGHTINGS:
             raise ValueError(f"shared_weighting must be one of {', '.join(WEIGHTINGS)}, "
                              f"got {self.shared_weighting!r}")
-        check_space(self.space)
-        if self.restarts < 1:
-            raise ValueError(f"restarts must be at least 1, got {self.restarts}")
+        # The fit's own settings check space, restarts and seed: one validator, one set of messages.
+        FitSettings(space=self.space, restarts=self.restarts, seed=self.seed)
         if self.fmt not in FORMATS:
             raise ValueError(f"unknown output format {self.fmt!r}; choose one of: {', '.join(FORMATS)}")
         if self.workers is not None and self.workers < 0:
