@@ -24,11 +24,11 @@ Constants and why (docs/method.md §"How many inks"):
   below it a region is a speck the screen may not hold anyway (common
   practice, no single source).
 * :data:`SAME_INK_DE` = 3 ΔE00: regions closer than this are one ink (JPEG and
-  scan noise move a region's median by 1-2).
+  scan noise move a region's colour by 1-2).
 * Continuous tone: an image is judged continuous tone when less than
   :data:`MIN_FLAT_SHARE` of it is flat (texture everywhere), or when its flat
   regions themselves vary: the colours inside them lie, at the 90th
-  percentile, more than :data:`TONE_SPREAD_DE` from their region's median
+  percentile, more than :data:`TONE_SPREAD_DE` from their region's colour
   (shading and gradients, not ink).  Flat artwork, scanned or JPEG-compressed,
   stays under 3 in the project's generated tests; photos and colour ramps
   exceed 4.
@@ -167,7 +167,7 @@ class Judgement:
     flat_share : float
         Share of flat pixels (0-1).
     spread : float
-        90th percentile ΔE00 of flat pixels from their region's median.
+        90th percentile ΔE00 of flat pixels from their region's colour.
     """
 
     kind: str
@@ -190,9 +190,9 @@ def judge(regions: Sequence[Regions]) -> Judgement:
                          flat, spread)
     if spread > TONE_SPREAD_DE:
         return Judgement("continuous tone", f"colours vary inside its flat areas (90 % within ΔE00 {spread:.1f} "
-                         f"of their area's median; flat ink stays within {TONE_SPREAD_DE:g})", flat, spread)
+                         f"of their area's colour; flat ink stays within {TONE_SPREAD_DE:g})", flat, spread)
     return Judgement("artwork", f"{flat:.0%} of the image is flat areas of even colour (90 % within ΔE00 "
-                     f"{spread:.1f} of their area's median)", flat, spread)
+                     f"{spread:.1f} of their area's colour)", flat, spread)
 
 
 def missing_inks(groups: InkGroups, palette_lab: np.ndarray, n_pixels: int) -> np.ndarray:
