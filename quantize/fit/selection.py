@@ -1,8 +1,11 @@
 """Palette-size selection: how many colours a job needs.
 
-Two rules choose k from the candidates fitted over a range:
+Two rules choose k from the candidates fitted over a range by counting
+pixels; the default ``"auto"`` rule, which looks at where the colours sit,
+lives in :mod:`quantize.fit.inkcount` and the engine (with no picture to look
+at, it falls back to ``"bic"``):
 
-``"bic"`` (default)
+``"bic"``
     A penalised error-versus-palette-size score in the form of the Bayesian
     information criterion, on a heavy-tailed (Cauchy) per-pixel error::
 
