@@ -6,6 +6,8 @@ computed with skimage.color.deltaE_ciede2000 as an independent reference.
 """
 
 
+import warnings
+
 import numpy as np
 import pytest
 from artwork import flat_artwork
@@ -279,3 +281,48 @@ def test_the_seed_recorded_in_the_file_refits_the_same_palette(tmp_path):
     again = fit_palette(img, back.fit.k_requested, settings=FitSettings.from_record(back.fit))
     assert again.rgb8.tobytes() == pal.rgb8.tobytes()
     assert again.fit.to_dict() == pal.fit.to_dict()
+
+
+@pytest.mark.parametrize("k", [4, 12])
+def test_refining_on_two_threads_gives_the_same_palette(k):
+    # The refinement's branches run on a second thread for a single size;
+    # the palette must be bit-identical to the one-thread run (scikit-image's
+    # "coffee" sample photo; k = 4 takes every k-medians start, k = 12 only
+    # the better of the k-means and robust palettes).
+    from skimage import data
+
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.clustering import kmeans
+    from quantize.fit.engine import refine_palette
+    from quantize.io.read import as_picture
+
+    smp = sample_picture(as_picture(data.coffee()))
+    pts, w = smp.binned("lab")
+    km = kmeans(pts, k, weights=w, restarts=4, seed=1)
+    others = [c for c, _ in km.runs if c is not km.centres]
+    fixed = np.zeros((0, 3), np.uint8)
+    one = refine_palette(smp, km.centres, fixed, space="lab", others=others, threads=False)
+    two = refine_palette(smp, km.centres, fixed, space="lab", others=others, threads=True)
+    assert np.array_equal(one[0].rgb8, two[0].rgb8)
+    assert one[2] == two[2]
+
+
+@pytest.mark.parametrize("target, met", [(6.0, True), (1.0, False)])
+def test_a_range_given_for_a_photo_gives_the_smallest_size_meeting_the_target(target, met):
+    # The search for continuous tone fits the top of a given range first.
+    # Whatever the order, the size chosen must be the smallest of the range
+    # whose own fixed-size fit meets the target, or the top if none does
+    # (scikit-image's "chelsea" sample photo, half size).
+    from skimage import data
+
+    img = np.ascontiguousarray(data.chelsea()[::2, ::2])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pal = fit_palette(img, (2, 12), restarts=2, target=target)
+        assert pal.fit.judged == "continuous tone"
+        assert pal.fit.target_met is met
+        if met:
+            assert pal.fit.delta_e["mean"] <= target
+            assert fit_palette(img, pal.k - 1, restarts=2).fit.delta_e["mean"] > target
+        else:
+            assert pal.k == 12 and pal.fit.delta_e["mean"] > target

@@ -195,7 +195,7 @@ def _binned_delta_e(sample, pal, metric):
 
 
 def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000",
-                   refine: str = "robust", others=()):
+                   refine: str = "robust", others=(), threads: bool = False):
     """Turn k-means centres into the 8-bit palette a job writes (the binned phase).
 
     With ``refine="robust"`` two explicit refinements are tried on the
@@ -225,59 +225,109 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     (:func:`finish_palette`).  The first ``len(fixed_rgb8)`` centres are
     locked.
 
+    With ``threads`` the truncated-loss refit and the k-medians steps that
+    start from it run on a second thread while this one runs the k-medians
+    steps from the k-means palette and the other restarts.  Each branch is
+    computed exactly as without threads and the candidates are compared in
+    the same order, so the palette does not depend on ``threads``; for
+    palettes above :data:`SECOND_START_K` colours the k-medians from the
+    k-means palette are then started before it is known whether they will
+    be needed (about a tenth of a second that may be wasted, on the core
+    that would otherwise wait).
+
     Returns
     -------
     palette, merged, refined
         ``merged``: rounding to 8 bits merged colours; ``refined`` names the
         steps kept ("", "robust", "median" or "robust+median").
     """
-    from .refine import ciede2000_medians, median_polish, robust_refine
-
     m = len(fixed_rgb8)
     pal, merged = _to_palette(centres, fixed_rgb8, space, m)
-    steps = ""
     if refine == "none":
         return pal, merged, ""
     # The finest cell grid within the point budget: the refinements compare
     # mean ΔE00, which needs a closer stand-in than the restarts do.
     bin_pts, bin_w = sample.binned(space, bits=None)
-    # The robust refit needs no CIEDE2000, so it runs first: in a fresh
-    # process the compiled CIEDE2000 kernels may still be loading.
-    robust = robust_refine(bin_pts, bin_w, centres, n_fixed=m)
-    cost = float((bin_w * _binned_delta_e(sample, pal, metric)).sum())
+    bin_lab = sample.binned("lab", bits=None)[0]
+    small = len(centres) <= SECOND_START_K
+    kmeans_pal = pal
+    kmeans_cost = float((bin_w * _binned_delta_e(sample, pal, metric)).sum())
+
+    def scored(c, c_space=None):
+        """(palette, merged, binned ΔE00 sum) of centres ``c``, or None if rounding merged colours."""
+        cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
+        if cpal.k != kmeans_pal.k:
+            return None
+        return cpal, cmerged, float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
 
     def medians(start):
+        from .refine import ciede2000_medians, median_polish
+
         if metric == "ciede2000":
-            return ciede2000_medians(sample.binned("lab", bits=None)[0], bin_w, start.lab, n_fixed=m,
-                                     iters=15), "lab"
-        return median_polish(bin_pts, bin_w, start.points(space), n_fixed=m), None
+            return scored(ciede2000_medians(bin_lab, bin_w, start.lab, n_fixed=m, iters=15), "lab")
+        return scored(median_polish(bin_pts, bin_w, start.points(space), n_fixed=m))
 
-    def consider(name, c, c_space):
-        nonlocal pal, merged, cost, steps
-        cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
-        if cpal.k != pal.k:
-            return None
-        ccost = float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
-        if ccost < cost:
-            pal, merged, cost, steps = cpal, cmerged, ccost, name
-        return cpal
+    def robust_branch():
+        """The truncated-loss refit, and the k-medians from it where they will be wanted."""
+        from .refine import robust_refine
 
-    kmeans_pal, kmeans_cost = pal, cost
-    robust_pal = consider("robust", robust, None)
+        robust = scored(robust_refine(bin_pts, bin_w, centres, n_fixed=m))
+        wanted = robust is not None and (small or robust[2] < kmeans_cost)
+        return robust, medians(robust[0]) if wanted else None
+
+    with _second_thread(threads) as run:
+        robust_job = run(robust_branch)
+        # The k-medians from the k-means palette: always wanted for small
+        # palettes; for larger ones only if the refit does not win, which
+        # with threads is not known yet.
+        from_kmeans = medians(kmeans_pal) if small or threads else None
+        alt = alt_medians = None
+        if small:
+            alt = _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost)
+            alt_medians = medians(alt) if alt is not None else None
+        robust, from_robust = robust_job.result()
+
+    best = (kmeans_pal, merged, kmeans_cost)
+    steps = ""
+    robust_pal = None
+    if robust is not None:
+        robust_pal = robust[0]
+        if robust[2] < best[2]:
+            best, steps = robust, "robust"
     # The k-medians start from the better palette so far, and for small
     # palettes also from the other one: with few colours the local optima
     # lie far apart, and a second start costs little.
-    starts = [pal]
-    other = kmeans_pal if pal is not kmeans_pal else robust_pal
-    if other is not None and len(centres) <= SECOND_START_K:
+    starts = [best[0]]
+    other = kmeans_pal if best[0] is not kmeans_pal else robust_pal
+    if other is not None and small:
         starts.append(other)
-    if len(centres) <= SECOND_START_K:
-        alt = _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost)
-        if alt is not None:
-            starts.append(alt)
+    if alt is not None:
+        starts.append(alt)
     for start in starts:
-        consider("robust+median" if start is robust_pal else "median", *medians(start))
-    return pal, merged, steps
+        if start is kmeans_pal:
+            cand = from_kmeans if from_kmeans is not None else medians(kmeans_pal)
+        else:
+            cand = from_robust if start is robust_pal else alt_medians
+        if cand is not None and cand[2] < best[2]:
+            best, steps = cand, "robust+median" if start is robust_pal else "median"
+    return best[0], best[1], steps
+
+
+@contextlib.contextmanager
+def _second_thread(enabled: bool):
+    """``run(fn)``: a future of ``fn()``, computed on a second thread if ``enabled``, else at once."""
+    from concurrent.futures import Future, ThreadPoolExecutor
+
+    if not enabled:
+        def now(fn):
+            done = Future()
+            done.set_result(fn())
+            return done
+
+        yield now
+        return
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="quantize-refine") as pool:
+        yield pool.submit
 
 
 def _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kept, kept_cost):
@@ -299,7 +349,7 @@ SECOND_START_K = 8
 
 
 def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust",
-                   others=()):
+                   others=(), threads: bool = False):
     """:func:`refine_palette`, then map and measure every distinct colour.
 
     Returns
@@ -311,7 +361,7 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     from .assign import map_sample
 
     pal, merged, refined = refine_palette(sample, centres, fixed_rgb8, space=space, metric=metric, refine=refine,
-                                          others=others)
+                                          others=others, threads=threads)
     labels, de = map_sample(sample, pal, metric=metric)
     return pal, merged, labels, de, refined
 
@@ -409,8 +459,10 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             prev_coarse, prev_fine = coarse, fine
             # The k-medians may also start from every fresh restart but the kept one.
             others = [c for c, _ in fresh.runs if c is not coarse.centres]
+            # One size alone refines on two threads; several keep two busy with sizes.
             jobs.append((k, fine, start, submit(finish_palette, sample, fine.centres, fixed_rgb8, space=space,
-                                                metric=settings.metric, refine=settings.refine, others=others)))
+                                                metric=settings.metric, refine=settings.refine, others=others,
+                                                threads=len(ks) == 1)))
             if progress:
                 progress(k)
         done = [(k, fine, start, job.result()) for k, fine, start, job in jobs]
@@ -649,7 +701,7 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         target = settings.target or _tone_target()
         top = TONE_MAX_K if not k_given else ks[-1]
         top = min(top, sample.n_colours)
-        cands = _tone_search(sample, ks[0], top, settings, target, progress)
+        cands = _tone_search(sample, ks[0], top, settings, target, progress, top_first=k_given)
         met = [c for c in cands if c.delta_e[settings.target_stat] <= target]
         chosen = min(met, key=lambda c: c.palette.k) if met else max(cands, key=lambda c: c.palette.k)
         target_met = bool(met)
@@ -670,11 +722,17 @@ def _tone_target() -> float:
     return TONE_TARGET_DE
 
 
-def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float, progress) -> list:
+def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float, progress, *,
+                 top_first: bool = False) -> list:
     """Fit sizes from ``lo`` doubling up to ``hi`` until the target is met, then bisect: about 2 log2(hi/lo) fits.
 
     Each size is fitted on its own stream, so the size found is the one a
-    fixed ``-k`` of that size gives.
+    fixed ``-k`` of that size gives.  With ``top_first`` (a range the user
+    gave) ``hi`` is fitted first: a photo rarely meets the target within a
+    screen-print range such as 2-12, and then ``hi`` is the answer after one
+    fit instead of four or five.  The search assumes, as the doubling does,
+    that a larger palette never has a higher error, so the answer is the
+    same either way; only the candidates recorded differ.
     """
     fitted: dict[int, Candidate] = {}
 
@@ -686,6 +744,8 @@ def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float,
     def meets(k):
         return fit(k).delta_e[settings.target_stat] <= target
 
+    if top_first and not meets(hi):
+        return [fitted[hi]]
     k = max(lo, 1)
     while k < hi and not meets(k):
         k = min(2 * k, hi)
