@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import functools
 import warnings
 from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
 import numpy as np
 
+from quantize.core.regions import find_regions
 from quantize.palette import FitCandidate, FitRecord, Palette
 from quantize.quality.stats import coverage_percent, delta_e_stats
 
@@ -133,11 +135,13 @@ def _as_list(images) -> list:
     return items
 
 
-def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures: list | None = None):
+def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures: list | None = None,
+                 on_picture: Callable | None = None):
     """Load and sample one image or several; return (pooled sample, pictures' sources, notes).
 
     ``pictures``, if given, receives each input's Picture (None for an input
-    that was already a colour sample).
+    that was already a colour sample).  ``on_picture``, if given, is called
+    with each Picture once it is decoded, before it is sampled.
     """
     from quantize.core.sampling import ColourSample, pool_samples, sample_picture
     from quantize.io.read import as_picture, load_image
@@ -154,6 +158,8 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures:
             pic = load_image(item) if max_pixels is None else load_image(item, max_pixels=max_pixels)
         else:
             pic = as_picture(item)
+        if on_picture is not None:
+            on_picture(pic)
         samples.append(sample_picture(pic))
         sources.append(pic.source)
         if pictures is not None:
@@ -577,28 +583,36 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     ks = parse_k(DEFAULT_K if k is None else k)
     settings.check_sizes(ks)  # before any image is read
     pictures: list = []
-    sample, sources, load_notes = load_samples(images, weighting=settings.weighting, max_pixels=max_pixels,
-                                               pictures=pictures)
-    size_notes = []
-    ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]
-    if max(ks) > sample.n_colours:
-        size_notes.append(f"the image set has only {sample.n_colours} distinct colours; "
-                          f"palette sizes above {sample.n_colours} were not fitted")
-    regions = _regions(pictures)
-    auto = None
-    if settings.rule == "auto" and len(ks_eff) > 1 and regions is not None:
-        auto = _auto(sample, regions, ks_eff, settings, k_given=k is not None, progress=progress)
-    if auto is None:
-        cands = []
-        for c in fit_sizes(sample, ks_eff, settings, progress=progress):
-            if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
-                cands.append(c)
-        record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
-        if regions is not None:  # say what was lost, whatever chose the size
-            chosen = cands[[c.palette.k for c in cands].index(record.k)]
-            record = _with_lost(record, regions, chosen.palette)
-    else:
-        cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources, load_notes + size_notes)
+    # The flat-region analysis of each picture runs on a second thread
+    # while the pictures are sampled and, at a fixed size, fitted: it is
+    # wanted only to choose the size from a range and to name lost areas.
+    with _second_thread(True) as run:
+        region_jobs: list = []
+        sample, sources, load_notes = load_samples(
+            images, weighting=settings.weighting, max_pixels=max_pixels, pictures=pictures,
+            on_picture=lambda pic: region_jobs.append(run(functools.partial(find_regions, pic))))
+        has_regions = bool(pictures) and all(p is not None for p in pictures)
+        size_notes = []
+        ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]
+        if max(ks) > sample.n_colours:
+            size_notes.append(f"the image set has only {sample.n_colours} distinct colours; "
+                              f"palette sizes above {sample.n_colours} were not fitted")
+        auto = None
+        if settings.rule == "auto" and len(ks_eff) > 1 and has_regions:
+            auto = _auto(sample, [j.result() for j in region_jobs], ks_eff, settings, k_given=k is not None,
+                         progress=progress)
+        if auto is None:
+            cands = []
+            for c in fit_sizes(sample, ks_eff, settings, progress=progress):
+                if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
+                    cands.append(c)
+            record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
+            if has_regions:  # say what was lost, whatever chose the size
+                chosen = cands[[c.palette.k for c in cands].index(record.k)]
+                record = _with_lost(record, [j.result() for j in region_jobs], chosen.palette)
+        else:
+            cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources,
+                                                          load_notes + size_notes)
     chosen = cands[[c.palette.k for c in cands].index(record.k)]
     record = dataclasses.replace(record, notes=record.notes + tuple(_locked_notes(chosen)))
     # Loading already warned about its own notes; these are the fit's.
@@ -652,15 +666,6 @@ def _locked_notes(chosen: Candidate) -> list[str]:
                 notes.append(f"the locked colour {pal.hex[i]} and the fitted colour {pal.hex[free[j]]} are only "
                              f"ΔE00 {de[j]:.1f} apart: one ink may do for both")
     return notes
-
-
-def _regions(pictures) -> list | None:
-    """The flat regions of every picture, or None when an input was a bare colour sample."""
-    from quantize.core.regions import find_regions
-
-    if not pictures or any(p is None for p in pictures):
-        return None
-    return [find_regions(p) for p in pictures]
 
 
 def _with_lost(record: FitRecord, regions, palette) -> FitRecord:
