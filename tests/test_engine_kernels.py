@@ -303,3 +303,56 @@ def test_a_forked_child_gets_a_fresh_thread_pool(monkeypatch):
         os._exit(0 if ok else 1)
     _, status = os.waitpid(pid, 0)
     assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
+
+
+def test_compiled_two_nearest_is_bit_identical_to_numpy():
+    # The compiled nearest-and-second scan serves large inputs of the same
+    # Lloyd loops, so it must agree with the numpy scan bit for bit, ties included.
+    rng = np.random.default_rng(9)
+    pts = rng.normal(size=(5_000, 3)) * 30
+    centres = rng.normal(size=(9, 3)) * 30
+    centres[6] = centres[1]
+    n = len(pts)
+    labels, d2, second = np.empty(n, np.intp), np.empty(n), np.empty(n)
+    ek.assign_euclid_two(pts, centres, labels, d2, second)
+    ref = vectorised.assign_euclid_two(pts, centres)
+    assert_array_equal(labels, ref[0])
+    assert_array_equal(d2, ref[1])
+    assert_array_equal(second, ref[2])
+    brute = ((pts[:, None, :] - centres[None]) ** 2).sum(axis=2)
+    assert_allclose(second, np.sort(brute, axis=1)[:, 1], rtol=1e-12)
+
+
+@pytest.mark.parametrize("k", [2, 5, 16])
+@pytest.mark.parametrize("compiled_path", [False, True])
+def test_lloyd_assigner_gives_every_step_what_a_full_scan_gives(k, compiled_path, monkeypatch):
+    if compiled_path:
+        monkeypatch.setattr(_kernels, "COMPILED_FROM", 0)
+    # The bounds of the step-after-step assigner (Hamerly 2010) may skip
+    # work, never change a result: at every step of a Lloyd loop, with
+    # small moves, a large jump, a centre landing on another (a tie) and
+    # the centres going back, its labels equal the brute-force twin's and
+    # its squared distances the full numpy scan's, bit for bit.
+    rng = np.random.default_rng(k)
+    pts = np.ascontiguousarray(np.concatenate([rng.normal(c, 4, (600, 3)) for c in rng.uniform(0, 100, (6, 3))]))
+    centres = pts[rng.choice(len(pts), k, replace=False)].copy()
+    steps = []
+    for _ in range(6):
+        labels = naive.assign_nearest(pts, centres)[0]
+        new = centres.copy()
+        for j in range(k):
+            if (labels == j).any():
+                new[j] = pts[labels == j].mean(axis=0)
+        steps.append(new)
+        centres = new
+    jump = centres.copy(); jump[0] += 40.0
+    tie = jump.copy(); tie[-1] = tie[0]
+    steps += [jump, tie, steps[0]]
+    assigner = _kernels.LloydAssigner(pts)
+    for c in steps:
+        labels, d2 = assigner.assign(c)
+        ref_labels = naive.assign_nearest(pts, c)[0]
+        full_labels, full_d2 = _kernels.assign_nearest_numpy(pts, c)
+        assert_array_equal(labels, ref_labels)
+        assert_array_equal(labels, full_labels)
+        assert_array_equal(d2, full_d2)

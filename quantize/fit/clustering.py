@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from quantize.kernels.nearest import assign_nearest, centre_sums
+from quantize.kernels.nearest import LloydAssigner, assign_nearest, centre_sums
 
 __all__ = ["kmeans", "KMeansResult", "INITS", "check_init", "PaletteSizeWarning"]
 
@@ -171,11 +171,12 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
     k, d = centres.shape
     centres = centres.copy()
     history = []
-    labels, d2 = assign_nearest(points, centres)
+    nearest = LloydAssigner(points, weights)
+    labels, d2 = nearest.assign(centres)
     history.append(float((weights * d2).sum()))
     n_iter = 0
     for n_iter in range(1, max_iter + 1):
-        wsum, new = centre_sums(points, weights, labels, k)
+        wsum, new = nearest.sums(labels, k)
         filled = wsum > 0
         new[filled] /= wsum[filled, None]
         new[~filled] = centres[~filled]
@@ -193,7 +194,7 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
                 pot[far] = 0.0
         shift = float(((new - centres) ** 2).sum())
         centres = new
-        new_labels, d2 = assign_nearest(points, centres)
+        new_labels, d2 = nearest.assign(centres)
         history.append(float((weights * d2).sum()))
         unchanged = np.array_equal(new_labels, labels)
         labels = new_labels

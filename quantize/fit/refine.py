@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from quantize.kernels.nearest import assign_nearest, centre_sums
+from quantize.kernels.nearest import LloydAssigner, assign_nearest, centre_sums
 
 __all__ = ["robust_refine", "truncated_cost", "median_polish", "ciede2000_medians", "compass_polish", "REFINE_TAU"]
 
@@ -47,7 +47,8 @@ def truncated_cost(points, weights, centres, tau: float = REFINE_TAU) -> float:
 
 def _trimmed_lloyd(points, w, centres, n_fixed, t2, max_iter):
     k, d = centres.shape
-    labels, d2 = assign_nearest(points, centres)
+    nearest = LloydAssigner(points)
+    labels, d2 = nearest.assign(centres)
     cost = float((w * np.minimum(d2, t2)).sum())
     for _ in range(max_iter):
         wi = np.where(d2 < t2, w, 0.0)
@@ -56,7 +57,7 @@ def _trimmed_lloyd(points, w, centres, n_fixed, t2, max_iter):
         upd = ws > 0
         upd[:n_fixed] = False
         new[upd] = s[upd] / ws[upd, None]
-        nl, nd2 = assign_nearest(points, new)
+        nl, nd2 = nearest.assign(new)
         ncost = float((w * np.minimum(nd2, t2)).sum())
         if not ncost < cost:
             break

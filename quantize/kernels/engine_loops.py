@@ -23,7 +23,7 @@ import numpy as np
 
 from .dither_loops import ciede2000, from_primed, primed_c
 
-__all__ = ["assign_euclid", "assign_ciede2000", "ciede2000_to"]
+__all__ = ["assign_euclid", "assign_euclid_two", "assign_ciede2000", "ciede2000_to"]
 
 _POW25_7 = 25.0**7
 #: The largest value of CIEDE2000's hue weighting T over all hues (found by
@@ -73,6 +73,45 @@ def assign_euclid(points, centres, labels, dist2):
                 arg = j
         labels[i] = arg
         dist2[i] = best
+
+
+@numba.njit(cache=True, nogil=True)
+def assign_euclid_two(points, centres, labels, dist2, second2):
+    """:func:`assign_euclid`, and the squared distance to the nearest centre but the label's.
+
+    ``second2`` is infinite with one centre; a tie puts the tied distance
+    in both.  Summed as :func:`assign_euclid` sums it, bit for bit.
+    """
+    n, d = points.shape
+    k = centres.shape[0]
+    for i in range(n):
+        best = np.inf
+        second = np.inf
+        arg = 0
+        for j in range(k):
+            s = 0.0
+            if d == 3:
+                u0 = points[i, 0] - centres[j, 0]
+                u1 = points[i, 1] - centres[j, 1]
+                u2 = points[i, 2] - centres[j, 2]
+                s = u0 * u0
+                s += u1 * u1
+                s += u2 * u2
+            else:
+                u = points[i, 0] - centres[j, 0]
+                s = u * u
+                for t in range(1, d):
+                    u = points[i, t] - centres[j, t]
+                    s += u * u
+            if s < best:
+                second = best
+                best = s
+                arg = j
+            elif s < second:
+                second = s
+        labels[i] = arg
+        dist2[i] = best
+        second2[i] = second
 
 
 @numba.njit(cache=True, nogil=True)

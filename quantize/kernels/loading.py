@@ -309,6 +309,7 @@ def compile_all() -> None:
     def run():
         pts, lab, de = np.zeros((2, 3)), np.zeros(2, dtype=np.intp), np.zeros(2)
         ek.assign_euclid(pts, pts, lab, de)
+        ek.assign_euclid_two(pts, pts, lab, de, np.zeros(2))
         ek.assign_ciede2000(pts, pts, lab, 1.0, lab, de)
         ek.ciede2000_to(pts, lab, pts, de)
         lut, mat, pal = np.zeros(65536), np.eye(3), np.zeros((2, 3))

@@ -20,7 +20,7 @@ import numpy as np
 from . import vectorised
 from .loading import compiled, run_blocks
 
-__all__ = ["COMPILED_FROM", "uses_compiled", "assign_nearest", "assign_nearest_numpy", "centre_sums",
+__all__ = ["COMPILED_FROM", "uses_compiled", "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums",
            "nearest_ciede2000", "ciede2000_to"]
 
 #: Point-palette pairs from which a call runs the compiled loops (2^21, about
@@ -61,6 +61,100 @@ def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray,
 
 #: The numpy kernel on its own, for callers and tests that want it whatever the size.
 assign_nearest_numpy = vectorised.assign_euclid
+
+def _assign_two(points: np.ndarray, centres: np.ndarray):
+    """Labels, squared distances and second-nearest squared distances, on the path the size picks."""
+    if not uses_compiled(len(points), len(centres)):
+        return vectorised.assign_euclid_two(points, centres)
+    n = points.shape[0]
+    labels = np.empty(n, dtype=np.intp)
+    dist2 = np.empty(n, dtype=np.float64)
+    second2 = np.empty(n, dtype=np.float64)
+    run_blocks(compiled("engine_loops").assign_euclid_two, n, len(centres), (points,), (centres,),
+               (labels, dist2, second2))
+    return labels, dist2, second2
+
+
+#: Relative and absolute margins of the bounds' tests: far above the rounding
+#: of distances of order 100, so that a bound never decides a near tie.
+_MARGIN, _ABS_MARGIN = 1e-9, 1e-9
+
+
+class LloydAssigner:
+    """The nearest centre of every point, step after step of a Lloyd-type loop.
+
+    Gives exactly what :func:`assign_nearest` gives for each new set of
+    centres (the same labels, the lowest index winning a tie, and
+    bit-identical squared distances), but measures every centre only for
+    the points whose label may have changed.  It keeps, per point, a lower
+    bound on the distance to every centre but its own, lowered after each
+    step by the furthest any other centre moved, and it knows half the gap
+    from each centre to its nearest neighbour; a point whose distance to
+    its own centre is below either is certain to keep it (Hamerly 2010).
+    That distance is measured exactly for every point at every step, so
+    the squared distances returned are exact too.  In the late steps of a
+    fit few points are near a boundary, and a step costs little more than
+    one distance per point.
+
+    With ``weights`` it also gives the per-cluster sums of the update step
+    (:meth:`sums`), as :func:`centre_sums` gives them, bit for bit, from
+    weighted coordinates computed once.
+
+    Parameters
+    ----------
+    points : ndarray of shape (n, d)
+        Clean, contiguous float64; kept by reference, not copied.
+    weights : ndarray of shape (n,), optional
+        Fixed point weights, for :meth:`sums`.
+
+    References
+    ----------
+    .. [1] G. Hamerly, "Making k-means even faster", Proceedings of the 2010
+       SIAM International Conference on Data Mining, 130-140.
+    """
+
+    def __init__(self, points: np.ndarray, weights: np.ndarray | None = None) -> None:
+        self.points = points
+        # Contiguous columns: the per-step passes over every point read in order.
+        self._columns = [np.ascontiguousarray(points[:, t]) for t in range(points.shape[1])]
+        self._weights = weights
+        # The products are rounded as centre_sums rounds them, so the sums agree bit for bit.
+        self._weighted = None if weights is None else [weights * c for c in self._columns]
+        self._labels: np.ndarray | None = None
+        self._lower: np.ndarray | None = None
+        self._centres: np.ndarray | None = None
+
+    def sums(self, labels: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """:func:`centre_sums` of the points with the weights given at construction."""
+        wsum = np.bincount(labels, weights=self._weights, minlength=k)
+        sums = np.stack([np.bincount(labels, weights=wc, minlength=k) for wc in self._weighted], axis=1)
+        return wsum, sums
+
+    def assign(self, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Labels (intp, a new array) and squared distances of every point to ``centres`` (k, d)."""
+        pts = self.points
+        centres = np.ascontiguousarray(centres, dtype=np.float64)
+        k = centres.shape[0]
+        if self._labels is None or self._centres.shape != centres.shape or k < 2:
+            labels, d2, second = _assign_two(pts, centres)
+            self._labels, self._lower, self._centres = labels, np.sqrt(second), centres.copy()
+            return labels.copy(), d2
+        labels, lower = self._labels, self._lower
+        moved = np.sqrt(((centres - self._centres) ** 2).sum(axis=1))
+        top = np.argsort(moved, kind="stable")[-2:]
+        # Every centre but a point's own moved at most this far.
+        lower -= np.where(labels == top[1], moved[top[0]], moved[top[1]])
+        gap = np.sqrt(vectorised.assign_euclid_two(centres, centres, second=True)[2]) * 0.5
+        d2 = vectorised.squared_to(self._columns, centres, labels)
+        sure = np.sqrt(d2) * (1.0 + _MARGIN) + _ABS_MARGIN < np.maximum(lower, gap[labels])
+        redo = np.flatnonzero(~sure)
+        if redo.size:
+            lab_r, d2_r, second_r = _assign_two(np.ascontiguousarray(pts[redo]), centres)
+            labels[redo] = lab_r
+            d2[redo] = d2_r
+            lower[redo] = np.sqrt(second_r)
+        self._centres = centres.copy()
+        return labels.copy(), d2
 
 
 def centre_sums(points: np.ndarray, weights: np.ndarray, labels: np.ndarray, k: int):

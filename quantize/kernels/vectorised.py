@@ -23,7 +23,8 @@ import math
 
 import numpy as np
 
-__all__ = ["BLOCK", "assign_euclid", "centre_sums", "ciede2000_pairs", "nearest_ciede2000"]
+__all__ = ["BLOCK", "assign_euclid", "assign_euclid_two", "squared_to", "centre_sums", "ciede2000_pairs",
+           "nearest_ciede2000"]
 
 #: Rows per block: about a dozen float64 temporaries of this length stay
 #: in a core's cache, which makes numpy two to three times faster than on
@@ -36,14 +37,36 @@ _C6, _S6 = math.cos(math.radians(6.0)), math.sin(math.radians(6.0))
 _C63, _S63 = math.cos(math.radians(63.0)), math.sin(math.radians(63.0))
 
 
-def assign_euclid(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Nearest centre of every point by squared Euclidean distance.
+def _square_tables(points: np.ndarray, centres: np.ndarray):
+    """(lo, hi, table) per block of rows: squared distances of points[lo:hi] to every centre.
 
     The squared distance is summed coordinate by coordinate in order (no
     ``|x|^2 - 2 x.c + |c|^2`` expansion, whose rounding can pick the wrong
-    centre in a near tie), exactly as the compiled
-    :func:`quantize.kernels.engine_loops.assign_euclid` sums it, so both give
-    bit-identical labels and distances.
+    centre in a near tie), exactly as :func:`squared_to` and the compiled
+    :func:`quantize.kernels.engine_loops.assign_euclid` sum it.
+    """
+    n, d = points.shape
+    k = centres.shape[0]
+    # A (rows, k) table per block, a few numpy calls per coordinate: a loop
+    # over the centres would make k times as many calls on short rows.
+    rows = max(1, (8 * BLOCK) // k)
+    for lo in range(0, n, rows):
+        hi = min(n, lo + rows)
+        acc = np.subtract(points[lo:hi, 0, None], centres[None, :, 0])
+        np.multiply(acc, acc, out=acc)
+        for t in range(1, d):
+            u = np.subtract(points[lo:hi, t, None], centres[None, :, t])
+            np.multiply(u, u, out=u)
+            acc += u
+        yield lo, hi, acc
+
+
+def assign_euclid(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest centre of every point by squared Euclidean distance.
+
+    Bit-identical to the compiled
+    :func:`quantize.kernels.engine_loops.assign_euclid` (see
+    :func:`_square_tables`).
 
     Parameters
     ----------
@@ -57,28 +80,53 @@ def assign_euclid(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, 
     dist2 : ndarray of shape (n,), float64
         Squared distance to that centre (infinite when there is none).
     """
-    n, d = points.shape
+    labels, dist2, _ = assign_euclid_two(points, centres, second=False)
+    return labels, dist2
+
+
+def assign_euclid_two(points: np.ndarray, centres: np.ndarray, *, second: bool = True):
+    """:func:`assign_euclid`, and the squared distance to the second-nearest centre.
+
+    Returns
+    -------
+    labels, dist2 : as :func:`assign_euclid`
+    second2 : ndarray of shape (n,) or None
+        Squared distance to the nearest centre but ``labels`` (infinite when
+        there is one centre); None unless ``second``.
+    """
+    n = points.shape[0]
     k = centres.shape[0]
     if k == 0:  # no centre is infinitely far, as in the compiled loop
-        return np.zeros(n, dtype=np.intp), np.full(n, np.inf)
+        return np.zeros(n, dtype=np.intp), np.full(n, np.inf), (np.full(n, np.inf) if second else None)
     labels = np.empty(n, dtype=np.intp)
     dist2 = np.empty(n, dtype=np.float64)
-    # A (rows, k) table per block, a few numpy calls per coordinate: a loop
-    # over the centres would make k times as many calls on short rows.
-    rows = max(1, (8 * BLOCK) // k)
-    for lo in range(0, n, rows):
-        hi = min(n, lo + rows)
-        acc = np.subtract(points[lo:hi, 0, None], centres[None, :, 0])
-        np.multiply(acc, acc, out=acc)
-        for t in range(1, d):
-            u = np.subtract(points[lo:hi, t, None], centres[None, :, t])
-            np.multiply(u, u, out=u)
-            acc += u
+    second2 = np.full(n, np.inf) if second else None
+    for lo, hi, acc in _square_tables(points, centres):
         # argmin takes the first minimum: the lowest index wins a tie.
         best = acc.argmin(axis=1)
+        rows = np.arange(hi - lo)
         labels[lo:hi] = best
-        dist2[lo:hi] = acc[np.arange(hi - lo), best]
-    return labels, dist2
+        dist2[lo:hi] = acc[rows, best]
+        if second and k > 1:
+            acc[rows, best] = np.inf
+            second2[lo:hi] = acc.min(axis=1)
+    return labels, dist2, second2
+
+
+def squared_to(columns, centres: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """Squared distance of every point to the centre ``labels`` names, summed as :func:`assign_euclid` sums it.
+
+    ``columns`` holds the points' coordinates as contiguous columns (a
+    sequence of d arrays of shape (n,)): each step then reads memory in
+    order.
+    """
+    acc = np.subtract(columns[0], np.take(centres[:, 0], labels))
+    np.multiply(acc, acc, out=acc)
+    for t in range(1, len(columns)):
+        u = np.subtract(columns[t], np.take(centres[:, t], labels))
+        np.multiply(u, u, out=u)
+        acc += u
+    return acc
 
 
 def centre_sums(points: np.ndarray, weights: np.ndarray, labels: np.ndarray, k: int):
