@@ -6,7 +6,9 @@ ink, knocked out so that no two plates print the same pixel. The substrate
 
 Steps of :func:`separate`:
 
-1. **Map** every pixel to its nearest palette colour by ΔE00.
+1. **Map** every pixel to its nearest palette colour by ΔE00; then an
+   anti-aliased edge pixel that blends two inks goes to the nearer of those
+   two, never to a third (:mod:`quantize.separation.edges`).
 2. **Clean up printable detail.** A connected region of one colour
    (4-connected, labelled by :func:`skimage.measure.label`) whose area is
    below that of a dot of the minimum feature diameter is merged into a
@@ -50,6 +52,7 @@ from quantize.io.write import to_jsonable
 
 from .choice import _picture, with_substrate
 from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
+from .edges import SeamReport, resolve_seams
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
@@ -61,6 +64,7 @@ __all__ = [
 ]
 
 _MANIFEST_FORMAT = "quantize.separation.plates"
+_EDGE_MAPPING = "nearest by ΔE00; edge pixels that blend two inks go to the nearer of the two"
 CAUTION = ("ΔE figures are computed from file data on an assumed sRGB display; they are not a measured "
            "print. Proof physically and follow the print shop's own standards before a production run.")
 
@@ -161,6 +165,9 @@ class Separation:
     notes : tuple of str
     substrate_coverage : float
         Percent of the opaque pixels left as substrate (0 without one).
+    edges : SeamReport or None
+        Edge pixels given to one of the two inks they blend; None when that
+        step was off.
     """
 
     indices: np.ndarray
@@ -178,6 +185,7 @@ class Separation:
     settings: SeparationSettings
     notes: tuple = ()
     substrate_coverage: float = 0.0
+    edges: SeamReport | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -241,6 +249,7 @@ class Separation:
             "underbase": plate_doc(self.underbase) if self.underbase else None,
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
+            "edges": self.edges.to_dict() if self.edges is not None else None,
             "cleanup": self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
@@ -431,7 +440,7 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
 def separate(image, palette, *, substrate=None, dpi: float | None = None,
              min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
              underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
-             max_pixels=None) -> Separation:
+             max_pixels=None, edges: bool = True) -> Separation:
     """Separate an image into one knocked-out 1-bit plate per printed ink.
 
     Parameters
@@ -458,6 +467,10 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Print order of the inks; default light to dark.
     max_pixels : int, optional
         Decompression-bomb limit when ``image`` is a path.
+    edges : bool, default True
+        Give each anti-aliased edge pixel that blends two inks to one of
+        those two (:func:`quantize.separation.edges.resolve_seams`), so no
+        plate gets a hairline of a third ink along an edge.
 
     Returns
     -------
@@ -498,6 +511,11 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     dpi = _resolve_dpi(pic, dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+    seams = None
+    if edges:
+        seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), smp.inverse.reshape(pic.shape),
+                                      palette.lab, opaque=pic.opaque)
+        mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
     cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=min_feature_mm, dpi=dpi)
     n_opaque = int(pic.opaque.sum())
     plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
@@ -508,12 +526,13 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                                   min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
                                   underbase=underbase, choke_mm=choke_mm if underbase else None,
                                   order="given" if order is not None else "light to dark",
-                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {})
+                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {},
+                                  mapping=_EDGE_MAPPING if edges else "nearest by ΔE00")
     sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
-                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov)
+                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams)
 
 
 # --------------------------------------------------------------------------- the steps of separate
