@@ -50,7 +50,7 @@ from quantize.core.units import mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
-from .choice import _picture, with_substrate
+from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
 from .edges import SeamReport, resolve_seams
 
@@ -168,6 +168,13 @@ class Separation:
     edges : SeamReport or None
         Edge pixels given to one of the two inks they blend; None when that
         step was off.
+    substrate_from : str
+        Where the substrate came from: "given", or the sentence that says
+        how it was inferred.
+    measured_lab : tuple
+        Per palette colour, the ink's measured CIELAB (D65, adapted from the
+        ink library's illuminant) or None (not a library ink); empty when no
+        library was used. See :meth:`with_measured`.
     """
 
     indices: np.ndarray
@@ -186,6 +193,8 @@ class Separation:
     notes: tuple = ()
     substrate_coverage: float = 0.0
     edges: SeamReport | None = None
+    substrate_from: str = "given"
+    measured_lab: tuple = ()
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -195,6 +204,19 @@ class Separation:
     def rgb(self) -> np.ndarray:
         """The cleaned, reduced image as 8-bit sRGB."""
         return self.palette.rgb8[self.indices]
+
+    def with_measured(self, library) -> "Separation":
+        """This separation with each library ink's measured Lab recorded (matched by name).
+
+        The preview colours are the inks' nearest sRGB colours; the manifest
+        lists both and the ΔE00 between them, because an ink outside sRGB
+        prints unlike its preview.
+        """
+        out = []
+        for nm in self.palette.names:
+            j = library.find(nm) if nm else None
+            out.append(None if j is None else np.asarray(library.inks[j].lab, np.float64))
+        return replace(self, measured_lab=tuple(out))
 
     def coverage(self) -> dict[str, float]:
         """Percent of the artwork per plate plus the substrate; sums to 100."""
@@ -225,12 +247,13 @@ class Separation:
         for i in range(pal.k):
             inks.append({"index": i, "name": _ink_name(pal, i), "hex": pal.hex[i],
                          "lab": [round(float(v), 3) for v in pal.lab[i]],
-                         "role": "substrate" if i == self.substrate else "ink"})
+                         "role": "substrate" if i == self.substrate else "ink", **self._measured_doc(i)})
 
         def plate_doc(p: Plate) -> dict:
             return {"name": p.name, "order": p.order, "palette_index": p.index, "hex": _hex(p.rgb8),
                     "lab": [round(float(v), 3) for v in srgb8_to_space(p.rgb8, "lab")],
-                    "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, [])}
+                    "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, []),
+                    **(self._measured_doc(p.index) if p.index is not None else {})}
 
         h, w = self.shape
         doc = {
@@ -242,7 +265,7 @@ class Separation:
             "size_mm": [round(px_to_mm(w, self.dpi), 3), round(px_to_mm(h, self.dpi), 3)],
             "substrate": None if self.substrate is None else {
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
-                "coverage_percent": round(self.substrate_coverage, 4)},
+                "coverage_percent": round(self.substrate_coverage, 4), "from": self.substrate_from},
             "inks": inks,
             "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
             "plates": [plate_doc(p) for p in self.plates],
@@ -259,6 +282,16 @@ class Separation:
             "caution": CAUTION,
         }
         return to_jsonable(doc)
+
+    def _measured_doc(self, i: int) -> dict:
+        """``lab_measured`` and its ΔE00 to the preview's Lab, for a library ink; else nothing."""
+        from quantize.colour.spaces import delta_e_ciede2000
+
+        if i >= len(self.measured_lab) or self.measured_lab[i] is None:
+            return {}
+        m = self.measured_lab[i]
+        return {"lab_measured": [round(float(v), 3) for v in m],
+                "delta_e_preview_to_measured": round(float(delta_e_ciede2000(self.palette.lab[i], m)), 3)}
 
     def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
               margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
@@ -449,9 +482,11 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     palette : Palette
         The inks and the substrate.
     substrate : int, str or colour, optional
-        The substrate: a palette index, a palette colour's name, or a colour
-        (added, locked, when the palette lacks it). Default: the palette's
-        locked colour if it has exactly one, else none (every colour prints).
+        The substrate: a palette index, a palette colour's name, a colour
+        (added, locked, when the palette lacks it), or ``"none"`` (every
+        colour prints). Default: inferred and noted
+        (:func:`quantize.separation.choice.resolve_substrate`: the palette's
+        locked colour, else the colour of the image border), or refused.
     dpi : float, optional
         Output resolution; default the image's, else 300.
     min_feature_mm : float, default 0.5
@@ -507,7 +542,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
-    palette, sub = _with_named_substrate(palette, substrate, notes)
+    palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
     dpi = _resolve_dpi(pic, dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
@@ -532,7 +567,8 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
-                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams)
+                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
+                      substrate_from=said)
 
 
 # --------------------------------------------------------------------------- the steps of separate
@@ -546,27 +582,19 @@ def _check_sizes(*, dpi, min_feature_mm, min_line_mm, choke_mm) -> None:
         raise SeparationError(f"dpi must be positive, got {dpi!r}")
 
 
-def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | None]:
-    """The palette with its substrate locked and named, and the substrate's index (or None)."""
-    if substrate is None:
-        lk = np.flatnonzero(palette.locked)
-        sub = int(lk[0]) if lk.size == 1 else None
-        if lk.size > 1:
-            notes.append(f"the palette has {lk.size} locked colours; none is taken as the substrate "
-                         "(give one to leave it unprinted)")
-    elif isinstance(substrate, (int, np.integer)) and not isinstance(substrate, bool):
-        if not 0 <= int(substrate) < palette.k:
-            raise SeparationError(f"substrate index {substrate} is not a palette colour (0-{palette.k - 1})")
-        sub = int(substrate)
-    else:
-        palette, sub = with_substrate(palette, substrate)
+def _with_named_substrate(pic, palette, substrate, notes: list) -> tuple[Any, int | None, str]:
+    """The palette with its substrate locked and named, the substrate's index (or None), and where it
+    came from (an inferred one is also a note)."""
+    palette, sub, said = resolve_substrate(pic, palette, substrate)
+    if not said.startswith("given"):
+        notes.append(said)
     if sub is not None and not palette.names[sub]:
         from quantize.palette import Palette
 
         names = list(palette.names)
         names[sub] = "substrate"
         palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
-    return palette, sub
+    return palette, sub, said
 
 
 def _resolve_dpi(pic, dpi, notes: list) -> float:
