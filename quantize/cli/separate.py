@@ -60,9 +60,12 @@ from ._common import _run
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed for fitting and ink search.")
 @click.option("--force", is_flag=True, help="Replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the manifest as JSON.")
+@click.option("--dithered", type=click.Choice(["auto", "keep", "clean"]), default="auto", show_default=True,
+              help="Dithered input: auto keeps every dot of an image that looks dithered (no clean-up), "
+                   "keep always does, clean treats it as flat art.")
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, min_feature_mm,
-             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json):
+             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json, dithered):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
@@ -92,7 +95,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         pal, info = choose_palette(pic, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
         sub = info["substrate"] if info["substrate"] is not None else "none"
         sep = run(pic, pal, substrate=sub, dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
-                  underbase=underbase, choke_mm=choke_mm, order=order_list)
+                  underbase=underbase, choke_mm=choke_mm, order=order_list, dithered=dithered)
         # Every note printed below is also in the manifest: where the substrate came from, the
         # library's notes, and any snap that prints far from its colour.
         said = info.get("substrate_from", "given")

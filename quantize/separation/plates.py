@@ -52,6 +52,7 @@ from quantize.io.write import to_jsonable
 
 from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
+from .dithered import DITHER_CHOICES, dither_handling
 from .edges import SeamReport, resolve_seams
 
 # The default sizes live in their own module (the command line reads them
@@ -175,6 +176,9 @@ class Separation:
         Per palette colour, the ink's measured CIELAB (D65, adapted from the
         ink library's illuminant) or None (not a library ink); empty when no
         library was used. See :meth:`with_measured`.
+    dither : dict or None
+        Whether the input looked dithered and its dots were kept
+        (:func:`quantize.separation.dithered.dither_handling`).
     """
 
     indices: np.ndarray
@@ -195,6 +199,7 @@ class Separation:
     edges: SeamReport | None = None
     substrate_from: str = "given"
     measured_lab: tuple = ()
+    dither: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -273,6 +278,7 @@ class Separation:
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "edges": self.edges.to_dict() if self.edges is not None else None,
+            "dither": self.dither,
             "cleanup": self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
@@ -473,7 +479,7 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
 def separate(image, palette, *, substrate=None, dpi: float | None = None,
              min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
              underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
-             max_pixels=None, edges: bool = True) -> Separation:
+             max_pixels=None, edges: bool = True, dithered: str = "auto") -> Separation:
     """Separate an image into one knocked-out 1-bit plate per printed ink.
 
     Parameters
@@ -506,6 +512,10 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Give each anti-aliased edge pixel that blends two inks to one of
         those two (:func:`quantize.separation.edges.resolve_seams`), so no
         plate gets a hairline of a third ink along an edge.
+    dithered : {"auto", "keep", "clean"}, default "auto"
+        Dithered input (:mod:`quantize.separation.dithered`): "auto" keeps
+        every dot of an image that looks dithered (no edge step, no
+        clean-up; noted), "keep" does so always, "clean" treats it as flat art.
 
     Returns
     -------
@@ -540,18 +550,25 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     from quantize.render.mapping import map_picture
 
     _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
+    if dithered not in DITHER_CHOICES:
+        raise SeparationError(f"dithered must be one of {', '.join(DITHER_CHOICES)}, got {dithered!r}")
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
     dpi = _resolve_dpi(pic, dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+    dither, dither_note = dither_handling(mapped.indices, pic.opaque, dithered, source=pic.source)
+    if dither_note:
+        notes.append(dither_note)
+    # A dither's dots are deliberate: neither edge blends nor specks to merge.
+    clean_mm = 0.0 if dither["kept"] else min_feature_mm
     seams = None
-    if edges:
+    if edges and not dither["kept"]:
         seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), smp.inverse.reshape(pic.shape),
                                       palette.lab, opaque=pic.opaque)
         mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
-    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=min_feature_mm, dpi=dpi)
+    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=clean_mm, dpi=dpi)
     n_opaque = int(pic.opaque.sum())
     plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
     ub = _underbase_plate(cleaned, pic.opaque, palette, sub, plates, choke_mm=choke_mm, dpi=dpi,
@@ -568,7 +585,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
-                      substrate_from=said)
+                      substrate_from=said, dither=dither)
 
 
 # --------------------------------------------------------------------------- the steps of separate
