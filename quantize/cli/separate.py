@@ -131,6 +131,9 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         click.echo("      no substrate: every colour prints")
     for s in doc["settings"]["inks_from"].get("snaps", []):
         click.echo("  " + _snap_line(s))
+    if sep.edges is not None:
+        click.echo(f"edges: {sep.edges.pixels_changed} pixel(s) blending two inks given to one of those two, "
+                   "not to a third ink")
     c = sep.cleanup
     click.echo(f"clean-up: {c.pixels_changed} pixel(s) changed in {c.regions_merged} region(s) below "
                f"{c.min_feature_mm:g} mm; ΔE00 of the change: mean {c.delta_e_image_mean:.3f} over the "

@@ -74,19 +74,40 @@ def _offsets(radius: int) -> list[tuple[int, int]]:
     return [(dy, dx) for dy in range(-radius, radius + 1) for dx in range(-radius, radius + 1) if dy or dx]
 
 
-def _neighbour_inks(indices: np.ndarray, usable: np.ndarray, radius: int) -> tuple[np.ndarray, np.ndarray]:
-    """Coordinates of pixels whose window holds another ink, and the window's inks (-1: none) per pixel."""
+def _grow(mask: np.ndarray, radius: int) -> np.ndarray:
+    """Square dilation by ``radius`` pixels (separable: rows, then columns)."""
+    out = mask.copy()
+    for axis in (0, 1):
+        src = out.copy()
+        for r in range(1, radius + 1):
+            if axis == 0:
+                out[r:] |= src[:-r]
+                out[:-r] |= src[r:]
+            else:
+                out[:, r:] |= src[:, :-r]
+                out[:, :-r] |= src[:, r:]
+    return out
+
+
+def _neighbour_inks(indices: np.ndarray, usable: np.ndarray, radius: int,
+                    focus: np.ndarray | None = None) -> tuple[tuple, np.ndarray]:
+    """Coordinates of pixels (within ``focus``) whose window holds another ink, and the window's inks
+    (-1: none) per pixel."""
     h, w = indices.shape
-    lab = np.where(usable, indices.astype(np.int64), -1)
+    lab = np.where(usable, indices.astype(np.int32), -1)
     pad = np.pad(lab, radius, constant_values=-1)
     offs = _offsets(radius)
-    edge = np.zeros((h, w), bool)
-    for dy, dx in offs:
-        nb = pad[radius + dy:radius + dy + h, radius + dx:radius + dx + w]
-        edge |= (nb != lab) & (nb >= 0)
-    edge &= usable
+    # A window holds another ink exactly when the pixel is within ``radius`` of an ink boundary.
+    boundary = np.zeros((h, w), bool)
+    boundary[1:] |= lab[1:] != lab[:-1]
+    boundary[:-1] |= lab[1:] != lab[:-1]
+    boundary[:, 1:] |= lab[:, 1:] != lab[:, :-1]
+    boundary[:, :-1] |= lab[:, 1:] != lab[:, :-1]
+    edge = _grow(boundary, radius) & usable
+    if focus is not None:
+        edge &= focus
     ys, xs = np.nonzero(edge)
-    inks = np.empty((ys.size, len(offs)), np.int64)
+    inks = np.empty((ys.size, len(offs)), np.int32)
     for j, (dy, dx) in enumerate(offs):
         inks[:, j] = pad[ys + radius + dy, xs + radius + dx]
     return (ys, xs), inks
@@ -149,38 +170,39 @@ def resolve_seams(indices: np.ndarray, colours: np.ndarray, colour_index: np.nda
     by_ink: dict = {}
     # A pass can only see a side whose own pixels are already settled: in small text the
     # other ink's pixels are often blends themselves, so passes repeat while they change.
+    focus = None
     for _ in range(_MAX_PASSES):
-        ys, xs, new, was = _one_pass(out, colours, colour_index, ink_lab, usable,
+        ys, xs, new, was = _one_pass(out, colours, colour_index, ink_lab, usable, focus,
                                      radius=radius, min_neighbours=min_neighbours, ratio=ratio)
         if ys.size == 0:
             break
         for i, n in zip(*np.unique(was, return_counts=True)):
             by_ink[int(i)] = by_ink.get(int(i), 0) + int(n)
         out[ys, xs] = new
+        # Only pixels whose window saw a change can change in the next pass.
+        focus = np.zeros(out.shape, bool)
+        focus[ys, xs] = True
+        focus = _grow(focus, radius)
     return out, SeamReport(sum(by_ink.values()), by_ink, radius)
 
 
-def _one_pass(out, colours, colour_index, ink_lab, usable, *, radius, min_neighbours, ratio):
+def _one_pass(out, colours, colour_index, ink_lab, usable, focus, *, radius, min_neighbours, ratio):
     """Pixels to move in one pass: (rows, columns, new ink, old ink)."""
     from quantize.colour.spaces import delta_e_ciede2000
 
     none = (np.empty(0, np.int64),) * 4
     k = ink_lab.shape[0]
-    (ys, xs), inks = _neighbour_inks(out, usable, radius)
+    (ys, xs), inks = _neighbour_inks(out, usable, radius, focus)
     if ys.size == 0 or k < 3:
         return none
     own = out[ys, xs].astype(np.int64)
-    counts = np.zeros((ys.size, k), np.int32)
-    for j in range(inks.shape[1]):
-        v = inks[:, j]
-        ok = v >= 0
-        np.add.at(counts, (np.flatnonzero(ok), v[ok]), 1)
+    ring1 = [j for j, (dy, dx) in enumerate(_offsets(radius)) if max(abs(dy), abs(dx)) == 1]
+    counts = np.zeros((ys.size, k), np.int32)  # pixels of each ink in the window
     near = np.zeros((ys.size, k), np.int32)  # the same, over the 8 neighbours only
-    for j, (dy, dx) in enumerate(_offsets(radius)):
-        if max(abs(dy), abs(dx)) == 1:
-            v = inks[:, j]
-            ok = v >= 0
-            np.add.at(near, (np.flatnonzero(ok), v[ok]), 1)
+    for c in range(k):
+        hit = inks == c
+        counts[:, c] = hit.sum(axis=1)
+        near[:, c] = hit[:, ring1].sum(axis=1)
     # A run of the own ink one pixel wide: itself plus at most two neighbours along the run.
     thin = near[np.arange(ys.size), own] <= 2
     area = counts >= min_neighbours
