@@ -127,7 +127,7 @@ def test_jpeg_edges_keep_at_most_a_trace_and_no_plate_keeps_a_sliver_region():
 
 def test_a_drawn_thin_line_of_a_third_ink_is_kept():
     inks, paint = POSTER
-    rgb, allowed = _draw(inks, paint)
+    rgb, _ = _draw(inks, paint)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     for img in (rgb, _jpeg(rgb)):
         sep = separate(img, pal, dpi=300, min_feature_mm=0, min_line_mm=0)

@@ -90,7 +90,7 @@ def test_snap_table_shows_the_ink_each_colour_prints_as_on_the_films(snapped):
 def test_a_snap_far_from_its_ink_is_a_warning_with_the_reference_delta_e(snapped):
     import colour
 
-    d, _, regions, out, doc = snapped
+    _, _, _, out, doc = snapped
     cie = colour.CCS_ILLUMINANTS["CIE 1931 2 Degree Standard Observer"]
     d65 = np.array([0.3127, 0.3290])
     ref_lab = {}
@@ -157,7 +157,7 @@ def test_summary_counts_match_the_files_on_disk(snapped):
     assert m and int(m.group(1)) == len(tifs)
     assert int(m.group(2)) + bool(m.group(3)) == len(tifs)
     assert int(re.search(r"wrote (\d+) file\(s\)", out).group(1)) == len(files)
-    listed = re.findall(r"-> (.+)$", out, flags=re.M)
+    listed = re.findall(r"-> (.+)$", out, flags=re.MULTILINE)
     assert sorted(n.strip() for ln in listed for n in ln.split(",")) == sorted(
         f.name for f in files if f.suffix in (".tif", ".png") and "composite" not in f.name)
     assert len(doc["plates"]) + 1 == len(tifs)  # plus the underbase

@@ -150,6 +150,10 @@ def test_a_transparent_border_means_no_substrate():
     sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, min_feature_mm=0)
     assert sep.substrate is None and len(sep.plates) == 2
     assert any("transparent" in n for n in sep.notes)
+    # A faint shadow (alpha 2 of 255) around the art is still a transparent border.
+    rgba[:8, :, 3] = 2
+    sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, min_feature_mm=0)
+    assert sep.substrate is None
 
 
 def test_fitted_inks_lock_the_border_colour():

@@ -17,7 +17,7 @@ from quantize.errors import SeparationError
 from .inks import InkLibrary, InkLibraryError
 from .substrate import SAME_DE, infer_substrate, no_substrate_asked
 
-__all__ = ["InkSelection", "SELECTION_METHODS", "SNAP_WARN_DE", "choose_inks", "choose_palette",
+__all__ = ["SELECTION_METHODS", "SNAP_WARN_DE", "InkSelection", "choose_inks", "choose_palette",
            "resolve_substrate", "snap_outcomes", "snap_palette", "subset_cost"]
 
 

@@ -20,11 +20,16 @@ A pixel is a seam pixel when
   ``ratio``): it is a blend of the two, not the third ink.
 
 A deliberate line of a third ink keeps its own colour, far from the segment
-between its neighbours, so it stays. A reduced image (every pixel exactly a
-palette colour) is left as it is: each pixel is at distance 0 from its own
-ink, so no change; its slivers carry the third ink's exact colour and cannot
-be told from a drawn line (separate the original artwork with the saved
-palette instead).
+between its neighbours, so it stays.
+
+In a reduced image (every pixel exactly a palette colour) a sliver has the
+third ink's own colour; only its width tells it apart. So a run of an ink one
+pixel wide, with the two other inks as its 8-neighbours, is an edge blend
+too when that ink lies between them: its projection falls inside the middle
+of their CIELAB segment and the pixel is within a fraction of the segment's
+ΔE00 of it. A drawn one-pixel line of such an in-between colour cannot be
+told from a blend; separating the original artwork with the saved palette
+keeps the blends' own colours and avoids the question.
 """
 
 from __future__ import annotations
@@ -186,6 +191,13 @@ def resolve_seams(indices: np.ndarray, colours: np.ndarray, colour_index: np.nda
     return out, SeamReport(sum(by_ink.values()), by_ink, radius)
 
 
+def _pairs(present: np.ndarray) -> list[tuple[int, int]]:
+    """Pairs of inks (a < b) found together in at least one window: the only segments worth trying."""
+    m = present.astype(np.int64)  # integer product: no multi-threaded BLAS call
+    both = (m.T @ m) > 0
+    return [(int(a), int(b)) for a, b in zip(*np.nonzero(np.triu(both, 1)))]
+
+
 def _one_pass(out, colours, colour_index, ink_lab, usable, focus, *, radius, min_neighbours, ratio):
     """Pixels to move in one pass: (rows, columns, new ink, old ink)."""
     from quantize.colour.spaces import delta_e_ciede2000
@@ -217,18 +229,17 @@ def _one_pass(out, colours, colour_index, ink_lab, usable, focus, *, radius, min
     best = np.full(ys.size, np.inf)
     pick = np.full(ys.size, -1, np.int64)
     pair_has_own = np.zeros(ys.size, bool)
-    for a in range(k):
-        for b in range(a + 1, k):
-            rows = np.flatnonzero(area[:, a] & area[:, b])
-            if rows.size == 0:
-                continue
-            seg = ink_lab[b] - ink_lab[a]
-            t = np.clip(((p[rows] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12), 0.0, 1.0)
-            res = delta_e_ciede2000(p[rows], ink_lab[a] + t[:, None] * seg)
-            better = res < best[rows]
-            best[rows[better]] = res[better]
-            pick[rows[better]] = np.where(t[better] < 0.5, a, b)
-            pair_has_own[rows[better]] = (own[rows[better]] == a) | (own[rows[better]] == b)
+    for a, b in _pairs(area):
+        rows = np.flatnonzero(area[:, a] & area[:, b])
+        if rows.size == 0:
+            continue
+        seg = ink_lab[b] - ink_lab[a]
+        t = np.clip(((p[rows] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12), 0.0, 1.0)
+        res = delta_e_ciede2000(p[rows], ink_lab[a] + t[:, None] * seg)
+        better = res < best[rows]
+        best[rows[better]] = res[better]
+        pick[rows[better]] = np.where(t[better] < 0.5, a, b)
+        pair_has_own[rows[better]] = (own[rows[better]] == a) | (own[rows[better]] == b)
     move = (pick >= 0) & (best < ratio * d_own) & ~pair_has_own
     thin_pick = _thin_runs(p, own, ink_lab, near, thin & ~move)
     move |= thin_pick >= 0
@@ -245,20 +256,18 @@ def _thin_runs(p, own, ink_lab, near, thin):
     """
     from quantize.colour.spaces import delta_e_ciede2000
 
-    k = ink_lab.shape[0]
     pick = np.full(p.shape[0], -1, np.int64)
     best = np.full(p.shape[0], np.inf)
-    for a in range(k):
-        for b in range(a + 1, k):
-            rows = np.flatnonzero(thin & near[:, a] & near[:, b] & (own != a) & (own != b))
-            if rows.size == 0:
-                continue
-            seg = ink_lab[b] - ink_lab[a]
-            length = float(delta_e_ciede2000(ink_lab[a], ink_lab[b]))
-            t_own = ((ink_lab[own[rows]] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12)
-            t = np.clip(((p[rows] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12), 0, 1)
-            res = delta_e_ciede2000(p[rows], ink_lab[a] + t[:, None] * seg)
-            ok = (t_own > _BETWEEN[0]) & (t_own < _BETWEEN[1]) & (res <= _THIN_RESIDUAL * length) & (res < best[rows])
-            best[rows[ok]] = res[ok]
-            pick[rows[ok]] = np.where(t[ok] < 0.5, a, b)
+    for a, b in _pairs(near[thin]):
+        rows = np.flatnonzero(thin & near[:, a] & near[:, b] & (own != a) & (own != b))
+        if rows.size == 0:
+            continue
+        seg = ink_lab[b] - ink_lab[a]
+        length = float(delta_e_ciede2000(ink_lab[a], ink_lab[b]))
+        t_own = ((ink_lab[own[rows]] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12)
+        t = np.clip(((p[rows] - ink_lab[a]) * seg).sum(axis=1) / max(float((seg * seg).sum()), 1e-12), 0, 1)
+        res = delta_e_ciede2000(p[rows], ink_lab[a] + t[:, None] * seg)
+        ok = (t_own > _BETWEEN[0]) & (t_own < _BETWEEN[1]) & (res <= _THIN_RESIDUAL * length) & (res < best[rows])
+        best[rows[ok]] = res[ok]
+        pick[rows[ok]] = np.where(t[ok] < 0.5, a, b)
     return pick

@@ -52,12 +52,12 @@ from quantize.io.write import to_jsonable
 
 from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
-from .dithered import DITHER_CHOICES, dither_handling
-from .edges import SeamReport, resolve_seams
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
 from .defaults import DEFAULT_CHOKE_MM, DEFAULT_DPI, DEFAULT_MARGIN_MM, DEFAULT_MIN_FEATURE_MM, DEFAULT_MIN_LINE_MM
+from .dithered import DITHER_CHOICES, dither_handling
+from .edges import SeamReport, resolve_seams
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
@@ -210,7 +210,7 @@ class Separation:
         """The cleaned, reduced image as 8-bit sRGB."""
         return self.palette.rgb8[self.indices]
 
-    def with_measured(self, library) -> "Separation":
+    def with_measured(self, library) -> Separation:
         """This separation with each library ink's measured Lab recorded (matched by name).
 
         The preview colours are the inks' nearest sRGB colours; the manifest

@@ -10,8 +10,9 @@ made a screen of cream paper, so the substrate is inferred, said, or refused:
    (:data:`BORDER_PX` wide) and at least :data:`BORDER_LEAD` times the share
    of the next colour, counting every pixel within ΔE00 :data:`SAME_DE` of
    it (JPEG noise, scanner grain);
-3. a border that is all transparent: no substrate (the art floats on
-   whatever it is printed on, and every colour prints);
+3. a border that is mostly transparent (less than half of the ring at least
+   half opaque): no substrate (the art floats on whatever it is printed on,
+   and every colour prints);
 4. else a :class:`~quantize.errors.SeparationError` that names the option.
 
 The thresholds are common practice, no source: artwork on paper or a garment
@@ -78,7 +79,8 @@ def no_substrate_asked(substrate) -> bool:
 
 
 def _ring(picture) -> tuple[np.ndarray, int]:
-    """The opaque 8-bit colours of the outer ring, and the ring's pixel count (opaque or not)."""
+    """The 8-bit colours of the outer ring's solid pixels (at least half opaque), and the ring's pixel
+    count."""
     h, w = picture.shape
     b = max(1, min(BORDER_PX, h // 2, w // 2))
     ring = np.zeros((h, w), bool)
@@ -86,14 +88,17 @@ def _ring(picture) -> tuple[np.ndarray, int]:
     rgb = np.asarray(picture.rgb)
     if picture.max_code != 255:  # 16-bit input: the ring is read at 8 bits
         rgb = np.round(rgb.astype(np.float64) * (255.0 / picture.max_code)).astype(np.uint8)
-    return rgb[ring & picture.opaque], int(ring.sum())
+    # A faint shadow (alpha of a few codes) is not a substrate colour: only solid pixels count.
+    solid = ring if picture.alpha is None else ring & (picture.alpha.astype(np.float64) * 2 >= picture.max_code)
+    return rgb[solid], int(ring.sum())
 
 
 def border_colour(picture) -> tuple[np.ndarray | None, float, float]:
     """The colour that holds most of the image border, its share of the border's opaque pixels, and the
     share of the next colour.
 
-    Returns ``(None, 0.0, 0.0)`` when the border is fully transparent.
+    Returns ``(None, 0.0, 0.0)`` when less than half of the border is solid
+    (at least half opaque): the art floats on whatever it is printed on.
 
     Examples
     --------
@@ -105,8 +110,8 @@ def border_colour(picture) -> tuple[np.ndarray | None, float, float]:
     """
     from quantize.colour.spaces import srgb8_to_space
 
-    px, _ = _ring(picture)
-    if px.shape[0] == 0:
+    px, n_ring = _ring(picture)
+    if px.shape[0] == 0 or 2 * px.shape[0] < n_ring:
         return None, 0.0, 0.0
     uniq, counts = np.unique(px.reshape(-1, 3), axis=0, return_counts=True)
     lab = srgb8_to_space(uniq.astype(np.uint8), "lab")
