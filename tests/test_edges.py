@@ -189,3 +189,22 @@ def test_transparent_pixels_are_neither_changed_nor_neighbours():
     opaque[:, 5:] = False  # the cream side is transparent: no seam
     out, rep = resolve_seams(idx, lab, np.arange(45).reshape(5, 9), ink_lab, opaque=opaque)
     assert rep.pixels_changed == 0 and (out == idx).all()
+
+
+def test_manifest_counts_the_edge_pixels_the_composite_shows(tmp_path):
+    # With the clean-up off, the composite written differs from the plain nearest-colour image exactly
+    # at the pixels the edge step moved; the manifest must count the same, per ink by name.
+    import json
+
+    inks, paint = SHIRT
+    rgb, _ = _draw(inks, paint)
+    pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)],
+                  names=("tee", "White", "Green"))
+    written = separate(rgb, pal, dpi=300, min_feature_mm=0, min_line_mm=0).write(tmp_path, stem="job")
+    comp = np.asarray(Image.open(written["composite"]).convert("RGB"))
+    plain = pal.rgb8[map_picture(rgb, pal, metric="ciede2000").indices]
+    moved = (comp != plain).any(axis=-1)
+    doc = json.loads(written["manifest"].read_text(encoding="utf-8"))
+    assert doc["edges"]["pixels_changed"] == int(moved.sum()) > 0
+    was = {name: int((moved & (plain == pal.rgb8[i]).all(axis=-1)).sum()) for i, name in enumerate(pal.names)}
+    assert doc["edges"]["taken_from"] == {k: v for k, v in was.items() if v}

@@ -71,7 +71,8 @@ class SeamReport:
         return {"pixels_changed": self.pixels_changed, "radius_px": self.radius,
                 "taken_from": {str(k): v for k, v in sorted(self.by_ink.items())},
                 "rule": "a pixel whose colour is a blend of two neighbouring inks (closer in ΔE00 to the "
-                        "CIELAB segment between them than to its own ink) goes to the nearer of the two "
+                        "CIELAB segment between them than to its own ink), or a one-pixel run of an ink "
+                        "that lies between the two inks on either side, goes to the nearer of the two "
                         "along that segment"}
 
 

@@ -277,7 +277,7 @@ class Separation:
             "underbase": plate_doc(self.underbase) if self.underbase else None,
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
-            "edges": self.edges.to_dict() if self.edges is not None else None,
+            "edges": self._edges_doc(),
             "dither": self.dither,
             "cleanup": self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
@@ -288,6 +288,14 @@ class Separation:
             "caution": CAUTION,
         }
         return to_jsonable(doc)
+
+    def _edges_doc(self) -> dict | None:
+        """The edge step's report, with the inks it took pixels from named."""
+        if self.edges is None:
+            return None
+        doc = self.edges.to_dict()
+        doc["taken_from"] = {_ink_name(self.palette, int(i)): n for i, n in doc["taken_from"].items()}
+        return doc
 
     def _measured_doc(self, i: int) -> dict:
         """``lab_measured`` and its ΔE00 to the preview's Lab, for a library ink; else nothing."""
