@@ -279,7 +279,8 @@ def test_separate_refuses_a_margin_that_is_not_a_number(tmp_path):
     # click's FloatRange lets NaN through (every comparison with NaN is false); was
     # "cannot convert float NaN to integer", naming nothing.
     img = _png(tmp_path / "art.png")
-    r = _cli("separate", img, "-o", tmp_path / "sep", "-n", "2", "--marks", "--margin-mm", "nan")
+    r = _cli("separate", img, "-o", tmp_path / "sep", "-n", "2", "--marks", "--margin-mm", "nan",
+             "--substrate", "#ffffff")
     _assert_one_line_failure(r, 1, "margin_mm", "nan")
     assert not (tmp_path / "sep").exists()
 

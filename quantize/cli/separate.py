@@ -39,8 +39,9 @@ from ._common import _run
 @click.option("--illuminant", default=None, metavar="NAME",
               help="Illuminant of the library's Lab values when the file does not say (default D50).")
 @click.option("--substrate", default=None, metavar="COLOUR",
-              help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate. "
-                   "Default: the --palette's locked colour, else #ffffff.")
+              help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate; "
+                   "'none': every colour prints. Default: the --palette's locked colour, else the colour "
+                   "that dominates the image border (said in the summary); refused when the border is mixed.")
 @click.option("--dpi", type=click.FloatRange(min=1), default=None,
               help="Output resolution (default: the image's, else 300).")
 @click.option("--min-feature-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
@@ -59,9 +60,12 @@ from ._common import _run
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed for fitting and ink search.")
 @click.option("--force", is_flag=True, help="Replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the manifest as JSON.")
+@click.option("--dithered", type=click.Choice(["auto", "keep", "clean"]), default="auto", show_default=True,
+              help="Dithered input: auto keeps every dot of an image that looks dithered (no clean-up), "
+                   "keep always does, clean treats it as flat art.")
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, min_feature_mm,
-             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json):
+             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json, dithered):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
@@ -81,7 +85,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     def work():
         from quantize.io.read import load_image
         from quantize.palette import Palette
-        from quantize.separation.choice import choose_palette
+        from quantize.separation.choice import choose_palette, snap_outcomes
         from quantize.separation.inks import load_ink_library
         from quantize.separation.plates import separate as run
 
@@ -89,11 +93,21 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
         pic = load_image(image)  # the one decode: choosing the inks and making the plates share it
         pal, info = choose_palette(pic, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
-        sep = run(pic, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
-                  underbase=underbase, choke_mm=choke_mm, order=order_list)
-        sep = replace(sep, settings=replace(sep.settings, inks_from=info))
+        sub = info["substrate"] if info["substrate"] is not None else "none"
+        sep = run(pic, pal, substrate=sub, dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
+                  underbase=underbase, choke_mm=choke_mm, order=order_list, dithered=dithered)
+        # Every note printed below is also in the manifest: where the substrate came from, the
+        # library's notes, and any snap that prints far from its colour.
+        said = info.get("substrate_from", "given")
+        notes = ([] if said.startswith("given") else [said]) + list(sep.notes) + (list(lib.notes) if lib else [])
+        if info.get("snaps"):
+            info["snaps"], warnings = snap_outcomes(pic, info["snaps"], sep.indices, sep.palette, lib,
+                                                    substrate=sep.substrate)
+            notes += warnings
+        sep = replace(sep, settings=replace(sep.settings, inks_from=info), substrate_from=said, notes=tuple(notes))
+        if lib is not None:
+            sep = sep.with_measured(lib)
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
-        notes = list(sep.notes) + (list(lib.notes) if lib else [])
         return sep, written, notes
 
     sep, written, notes = _run(ctx, work)
@@ -103,15 +117,23 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         doc["seconds"] = round(time.perf_counter() - t0, 3)
         click.echo(json.dumps(doc, indent=2, ensure_ascii=False))
         return
-    click.echo(f"{image}: {len(sep.plates)} plate(s) at {sep.dpi:g} dpi "
+    films = ([sep.underbase] if sep.underbase else []) + list(sep.plates)
+    kinds = f"{len(sep.plates)} ink(s)" + (" + underbase" if sep.underbase else "")
+    click.echo(f"{image}: {len(films)} film(s), {kinds}, at {sep.dpi:g} dpi "
                f"({doc['settings']['inks_from']['method']})")
-    for p in ([sep.underbase] if sep.underbase else []) + list(sep.plates):
-        click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> {written['plates'][p.name][0].name}")
+    for p in films:
+        click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> "
+                   + ", ".join(t.name for t in written["plates"][p.name]))
     if doc["substrate"]:
         click.echo(f"      substrate {doc['substrate']['name']} ({doc['substrate']['hex']}) "
                    f"{doc['substrate']['coverage_percent']:7.2f} %  (no plate)")
+    else:
+        click.echo("      no substrate: every colour prints")
     for s in doc["settings"]["inks_from"].get("snaps", []):
-        click.echo(f"  snap {s['fitted']} -> {s['ink']} ({s['ink_hex']}): ΔE00 {s['delta_e']:.2f}")
+        click.echo("  " + _snap_line(s))
+    if sep.edges is not None:
+        click.echo(f"edges: {sep.edges.pixels_changed} pixel(s) blending two inks given to one of those two, "
+                   "not to a third ink")
     c = sep.cleanup
     click.echo(f"clean-up: {c.pixels_changed} pixel(s) changed in {c.regions_merged} region(s) below "
                f"{c.min_feature_mm:g} mm; ΔE00 of the change: mean {c.delta_e_image_mean:.3f} over the "
@@ -127,8 +149,21 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     click.echo(f"ΔE00 to the source: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
     for note in notes:
         click.echo(f"note: {note}")
-    click.echo(f"wrote {written['manifest']} and {written['composite'].name}")
+    n_files = sum(len(ts) for ts in written["plates"].values()) + 2
+    click.echo(f"wrote {n_files} file(s) in {Path(written['manifest']).parent}: the films above, "
+               f"{written['composite'].name} and {Path(written['manifest']).name}")
     click.echo(f"done in {time.perf_counter() - t0:.2f} s")
+
+
+def _snap_line(s: dict) -> str:
+    """One row of the snap table: the ink the colour's pixels print as, and its ΔE00."""
+    if s.get("prints_as") is None:
+        return f"snap {s['fitted']} -> {s['ink']} ({s['ink_hex']}): ΔE00 {s['delta_e']:.2f}"
+    line = (f"snap {s['fitted']} prints as {s['prints_as']} ({s['prints_as_hex']}, "
+            f"{100 * s['prints_share']:.0f} % of its pixels): ΔE00 {s['delta_e_printed']:.2f}")
+    if s["prints_as"] != s["ink"]:
+        line += f" (assigned {s['ink']}, ΔE00 {s['delta_e']:.2f}, but its pixels are nearer another ink)"
+    return line
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -15,8 +15,10 @@ import numpy as np
 from quantize.errors import SeparationError
 
 from .inks import InkLibrary, InkLibraryError
+from .substrate import SAME_DE, infer_substrate, no_substrate_asked
 
-__all__ = ["InkSelection", "SELECTION_METHODS", "choose_inks", "choose_palette", "snap_palette", "subset_cost"]
+__all__ = ["SELECTION_METHODS", "SNAP_WARN_DE", "InkSelection", "choose_inks", "choose_palette",
+           "resolve_substrate", "snap_outcomes", "snap_palette", "subset_cost"]
 
 
 #: Subset-selection methods: "exact" enumerates every subset, "search" is a
@@ -410,9 +412,11 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
         Printed inks, the substrate not counted.
     snap : bool, default False
     substrate : str, optional
-        A colour (hex or L,a,b) or the name of a library ink. Default: the
-        given palette's locked colour if it has exactly one, else white
-        (``#ffffff``).
+        A colour (hex or L,a,b), the name of a library ink, or ``"none"``
+        (every colour prints). Default: inferred and said
+        (:func:`quantize.separation.substrate.infer_substrate`: the given
+        palette's locked colour, else the colour of the image border), or
+        refused when the border is mixed.
     seed : int, default 0
     max_pixels : int, optional
 
@@ -421,22 +425,24 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
     palette : Palette
         Substrate locked; its index is ``info["substrate"]``.
     info : dict
-        How the inks were chosen (method, cost, snaps).
+        How the inks were chosen (method, cost, snaps); ``substrate`` (its
+        palette index, or None when every colour prints),
+        ``substrate_from`` (a sentence saying where it came from).
 
     Raises
     ------
     SeparationError
         An impossible combination (a library without ``n``, a palette and a
-        library without ``snap``).
+        library without ``snap``), or no substrate given and none inferred.
     InkLibraryError
         Fewer inks in the library than asked for.
 
     Examples
     --------
-    >>> img = np.full((8, 8, 3), 255, np.uint8); img[:4] = (200, 16, 46)
+    >>> img = np.full((8, 8, 3), 255, np.uint8); img[2:6, 2:6] = (200, 16, 46)
     >>> pal, info = choose_palette(img, n=1)
-    >>> pal.hex, info["method"]
-    (['#ffffff', '#c8102e'], 'fitted')
+    >>> pal.hex, info["method"], info["substrate"]
+    (['#ffffff', '#c8102e'], 'fitted', 0)
     """
     if n is not None and (isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1):
         raise SeparationError(f"number of inks must be at least 1, got {n!r}")
@@ -446,14 +452,20 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
                               "colours onto library inks, or give only one of them")
     if library is not None and palette is None and n is None:
         raise SeparationError("choosing inks from a library needs the number of inks (n)")
+    said = "given"
+    if substrate is None and palette is not None and library is None:
+        palette, sub, said = resolve_substrate(pic, palette, None)
+        return palette, {"method": "given palette", "substrate": sub, "substrate_from": said}
     if substrate is None:
-        lk = np.flatnonzero(palette.locked) if palette is not None else np.array([], int)
-        substrate = palette.hex[int(lk[0])] if lk.size == 1 else "#ffffff"
+        guess = infer_substrate(pic, palette, indices=_mapped(pic, palette))
+        substrate = "none" if guess.rgb8 is None else _hex8(guess.rgb8)
+        said = guess.describe()
+    none = no_substrate_asked(substrate)
     if library is not None and not snap:
-        sel = choose_inks(pic, library, n, substrate=substrate, seed=seed)
+        sel = choose_inks(pic, library, n, substrate=None if none else substrate, seed=seed)
         info = {"method": f"best {n} of {len(library)} library inks ({sel.method})",
                 "cost_delta_e": sel.cost, "subsets_evaluated": sel.evaluated, "library": library.describe(),
-                "substrate": 0}
+                "substrate": None if none else 0, "substrate_from": said}
         return sel.palette, info
     sub_spec = substrate
     if library is not None and isinstance(substrate, str) and library.find(substrate) is not None:
@@ -461,13 +473,22 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
     if palette is None:
         from quantize.fit.engine import fit_palette
 
-        k = n + 1 if n is not None else (2, 9)
-        palette = fit_palette(pic, k, locked=[sub_spec], seed=seed)
+        if none:
+            palette = fit_palette(pic, n if n is not None else (1, 8), seed=seed)
+        else:
+            palette = fit_palette(pic, n + 1 if n is not None else (2, 9), locked=[sub_spec], seed=seed)
         method = "fitted"
     else:
         method = "given palette"
+    if none:
+        info = {"method": method, "substrate": None, "substrate_from": "given: none (every colour prints)"}
+        if snap:
+            palette, snaps = snap_palette(palette, library)
+            info.update({"method": f"{method}, snapped to library inks", "snaps": snaps,
+                         "library": library.describe(), "colours_snapped": len(snaps)})
+        return palette, info
     palette, sub = with_substrate(palette, sub_spec)
-    info = {"method": method, "substrate": sub}
+    info = {"method": method, "substrate": sub, "substrate_from": said}
     if snap:
         palette, snap_info = _snapped(palette, sub, library, substrate)
         info.update({"method": f"{method}, snapped to library inks", **snap_info})
@@ -534,3 +555,133 @@ def _lock(palette, i: int):
     lk = palette.locked.copy()
     lk[i] = True
     return Palette(rgb8=palette.rgb8, locked=lk, space=palette.space, names=palette.names, fit=palette.fit)
+
+
+def _hex8(rgb8) -> str:
+    return "#{:02x}{:02x}{:02x}".format(*map(int, rgb8))
+
+
+def _mapped(pic, palette):
+    """The picture's palette indices when the palette has several locked colours (else None: not needed)."""
+    if palette is None or int(np.count_nonzero(palette.locked)) < 2:
+        return None
+    from quantize.render.mapping import map_picture
+
+    return map_picture(pic, palette, metric="ciede2000").indices
+
+
+def resolve_substrate(picture, palette, substrate) -> tuple[Any, int | None, str]:
+    """The palette with its substrate locked, the substrate's index (None: every colour prints), and where
+    it came from, in words.
+
+    ``substrate`` is a palette index, a palette colour's name, a colour
+    (added, locked, when the palette lacks it), ``"none"``, or None: then it
+    is inferred (:func:`quantize.separation.substrate.infer_substrate`); a
+    border colour within ΔE00 5 of a palette colour is that colour, else it
+    is added.
+
+    Raises
+    ------
+    SeparationError
+        An index outside the palette, a bad colour, or none given and none
+        inferred.
+
+    Examples
+    --------
+    >>> from quantize.palette import Palette
+    >>> img = np.full((20, 20, 3), (244, 236, 214), np.uint8); img[5:15, 5:15] = (200, 16, 46)
+    >>> pal = Palette(np.array([[200, 16, 46], [244, 236, 214]], np.uint8), None)
+    >>> pal2, sub, said = resolve_substrate(img, pal, None)
+    >>> pal2.hex[sub], bool(pal2.locked[sub]), said.split(" (")[0]
+    ('#f4ecd6', True, 'substrate #f4ecd6 inferred from the image border')
+    """
+    from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
+
+    if isinstance(substrate, (int, np.integer)) and not isinstance(substrate, bool):
+        if not 0 <= int(substrate) < palette.k:
+            raise SeparationError(f"substrate index {substrate} is not a palette colour (0-{palette.k - 1})")
+        return _lock(palette, int(substrate)), int(substrate), "given"
+    if no_substrate_asked(substrate):
+        return palette, None, "given: none (every colour prints)"
+    if substrate is not None:
+        palette, sub = with_substrate(palette, substrate)
+        return palette, sub, "given"
+    pic = _picture(picture)
+    guess = infer_substrate(pic, palette, indices=_mapped(pic, palette))
+    if guess.rgb8 is None:
+        return palette, None, guess.describe()
+    de = delta_e_ciede2000(palette.lab, srgb8_to_space(guess.rgb8, "lab"))
+    near = int(np.argmin(de))
+    if de[near] <= SAME_DE:
+        return _lock(palette, near), near, guess.describe(palette.hex[near])
+    palette, sub = with_substrate(palette, _hex8(guess.rgb8))
+    return palette, sub, guess.describe()
+
+
+#: A snap whose colour prints this far from its ink (ΔE00) is a warning (common practice, no source).
+SNAP_WARN_DE = 10.0
+
+
+def snap_outcomes(image, snaps: Sequence[dict], indices: np.ndarray, palette, library: InkLibrary, *,
+                  substrate: int | None = None) -> tuple[list[dict], list[str]]:
+    """What each snapped colour prints as, once the image is mapped and cleaned.
+
+    Each fitted colour's pixels (those nearest to it, by ΔE00, among the
+    fitted colours and the substrate) are looked up in the separation's
+    ``indices``; the ink most of them print with is the one it prints as. It
+    can differ from the ink the colour was assigned to, because each ink is
+    used once and pixels are mapped to the nearest ink afterwards.
+
+    Parameters
+    ----------
+    image : path, Picture, PIL image or ndarray
+    snaps : sequence of dict
+        As :func:`snap_palette` returns them (``fitted`` hex, ``ink``).
+    indices : ndarray of shape (H, W)
+        The separation's palette index per pixel.
+    palette : Palette
+        The separation's palette.
+    library : InkLibrary
+    substrate : int, optional
+        Palette index of the substrate.
+
+    Returns
+    -------
+    snaps : list of dict
+        Each snap with ``prints_as`` (an ink name, or "substrate"),
+        ``prints_as_hex``, ``prints_share`` (fraction of the colour's pixels)
+        and ``delta_e_printed`` (ΔE00 from the fitted colour to that ink's
+        measured Lab, or to its preview colour when it is not a library ink).
+    warnings : list of str
+        One per colour that prints more than :data:`SNAP_WARN_DE` from its ink.
+    """
+    from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
+    from quantize.palette import Palette, parse_colour
+    from quantize.render.mapping import map_picture
+
+    pic = _picture(image)
+    fitted = [parse_colour(s["fitted"]) for s in snaps]
+    rgb = fitted + ([palette.rgb8[substrate]] if substrate is not None else [])
+    own = map_picture(pic, Palette(np.array(rgb, np.uint8), None), metric="ciede2000").indices
+    opaque = pic.opaque
+    out, warnings = [], []
+    for j, s in enumerate(snaps):
+        printed = indices[(own == j) & opaque]
+        doc = dict(s)
+        if printed.size == 0:
+            doc.update(prints_as=None, prints_as_hex=None, prints_share=0.0, delta_e_printed=None)
+            out.append(doc)
+            continue
+        counts = np.bincount(printed.astype(np.int64), minlength=palette.k)
+        m = int(np.argmax(counts))
+        name = "substrate" if m == substrate else (palette.names[m] or palette.hex[m])
+        lib_j = library.find(palette.names[m]) if palette.names[m] else None
+        ink_lab = library.inks[lib_j].lab if lib_j is not None else palette.lab[m]
+        de = float(delta_e_ciede2000(srgb8_to_space(fitted[j], "lab"), ink_lab))
+        doc.update(prints_as=name, prints_as_hex=palette.hex[m], prints_share=round(float(counts[m] / printed.size), 4),
+                   delta_e_printed=round(de, 3))
+        out.append(doc)
+        if de > SNAP_WARN_DE:
+            warnings.append(f"warning: colour {s['fitted']} prints as {name} ({palette.hex[m]}), ΔE00 {de:.1f} "
+                            f"from the fitted colour (over {SNAP_WARN_DE:g}): check the ink choice or the library")
+    return out, warnings

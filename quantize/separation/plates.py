@@ -6,7 +6,9 @@ ink, knocked out so that no two plates print the same pixel. The substrate
 
 Steps of :func:`separate`:
 
-1. **Map** every pixel to its nearest palette colour by ΔE00.
+1. **Map** every pixel to its nearest palette colour by ΔE00; then an
+   anti-aliased edge pixel that blends two inks goes to the nearer of those
+   two, never to a third (:mod:`quantize.separation.edges`).
 2. **Clean up printable detail.** A connected region of one colour
    (4-connected, labelled by :func:`skimage.measure.label`) whose area is
    below that of a dot of the minimum feature diameter is merged into a
@@ -48,12 +50,14 @@ from quantize.core.units import mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
-from .choice import _picture, with_substrate
+from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
 from .defaults import DEFAULT_CHOKE_MM, DEFAULT_DPI, DEFAULT_MARGIN_MM, DEFAULT_MIN_FEATURE_MM, DEFAULT_MIN_LINE_MM
+from .dithered import DITHER_CHOICES, dither_handling
+from .edges import SeamReport, resolve_seams
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
@@ -61,6 +65,7 @@ __all__ = [
 ]
 
 _MANIFEST_FORMAT = "quantize.separation.plates"
+_EDGE_MAPPING = "nearest by ΔE00; edge pixels that blend two inks go to the nearer of the two"
 CAUTION = ("ΔE figures are computed from file data on an assumed sRGB display; they are not a measured "
            "print. Proof physically and follow the print shop's own standards before a production run.")
 
@@ -161,6 +166,19 @@ class Separation:
     notes : tuple of str
     substrate_coverage : float
         Percent of the opaque pixels left as substrate (0 without one).
+    edges : SeamReport or None
+        Edge pixels given to one of the two inks they blend; None when that
+        step was off.
+    substrate_from : str
+        Where the substrate came from: "given", or the sentence that says
+        how it was inferred.
+    measured_lab : tuple
+        Per palette colour, the ink's measured CIELAB (D65, adapted from the
+        ink library's illuminant) or None (not a library ink); empty when no
+        library was used. See :meth:`with_measured`.
+    dither : dict or None
+        Whether the input looked dithered and its dots were kept
+        (:func:`quantize.separation.dithered.dither_handling`).
     """
 
     indices: np.ndarray
@@ -178,6 +196,10 @@ class Separation:
     settings: SeparationSettings
     notes: tuple = ()
     substrate_coverage: float = 0.0
+    edges: SeamReport | None = None
+    substrate_from: str = "given"
+    measured_lab: tuple = ()
+    dither: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -187,6 +209,19 @@ class Separation:
     def rgb(self) -> np.ndarray:
         """The cleaned, reduced image as 8-bit sRGB."""
         return self.palette.rgb8[self.indices]
+
+    def with_measured(self, library) -> Separation:
+        """This separation with each library ink's measured Lab recorded (matched by name).
+
+        The preview colours are the inks' nearest sRGB colours; the manifest
+        lists both and the ΔE00 between them, because an ink outside sRGB
+        prints unlike its preview.
+        """
+        out = []
+        for nm in self.palette.names:
+            j = library.find(nm) if nm else None
+            out.append(None if j is None else np.asarray(library.inks[j].lab, np.float64))
+        return replace(self, measured_lab=tuple(out))
 
     def coverage(self) -> dict[str, float]:
         """Percent of the artwork per plate plus the substrate; sums to 100."""
@@ -217,12 +252,13 @@ class Separation:
         for i in range(pal.k):
             inks.append({"index": i, "name": _ink_name(pal, i), "hex": pal.hex[i],
                          "lab": [round(float(v), 3) for v in pal.lab[i]],
-                         "role": "substrate" if i == self.substrate else "ink"})
+                         "role": "substrate" if i == self.substrate else "ink", **self._measured_doc(i)})
 
         def plate_doc(p: Plate) -> dict:
             return {"name": p.name, "order": p.order, "palette_index": p.index, "hex": _hex(p.rgb8),
                     "lab": [round(float(v), 3) for v in srgb8_to_space(p.rgb8, "lab")],
-                    "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, [])}
+                    "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, []),
+                    **(self._measured_doc(p.index) if p.index is not None else {})}
 
         h, w = self.shape
         doc = {
@@ -234,13 +270,15 @@ class Separation:
             "size_mm": [round(px_to_mm(w, self.dpi), 3), round(px_to_mm(h, self.dpi), 3)],
             "substrate": None if self.substrate is None else {
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
-                "coverage_percent": round(self.substrate_coverage, 4)},
+                "coverage_percent": round(self.substrate_coverage, 4), "from": self.substrate_from},
             "inks": inks,
             "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
             "plates": [plate_doc(p) for p in self.plates],
             "underbase": plate_doc(self.underbase) if self.underbase else None,
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
+            "edges": self._edges_doc(),
+            "dither": self.dither,
             "cleanup": self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
@@ -250,6 +288,24 @@ class Separation:
             "caution": CAUTION,
         }
         return to_jsonable(doc)
+
+    def _edges_doc(self) -> dict | None:
+        """The edge step's report, with the inks it took pixels from named."""
+        if self.edges is None:
+            return None
+        doc = self.edges.to_dict()
+        doc["taken_from"] = {_ink_name(self.palette, int(i)): n for i, n in doc["taken_from"].items()}
+        return doc
+
+    def _measured_doc(self, i: int) -> dict:
+        """``lab_measured`` and its ΔE00 to the preview's Lab, for a library ink; else nothing."""
+        from quantize.colour.spaces import delta_e_ciede2000
+
+        if i >= len(self.measured_lab) or self.measured_lab[i] is None:
+            return {}
+        m = self.measured_lab[i]
+        return {"lab_measured": [round(float(v), 3) for v in m],
+                "delta_e_preview_to_measured": round(float(delta_e_ciede2000(self.palette.lab[i], m)), 3)}
 
     def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
               margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
@@ -431,7 +487,7 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
 def separate(image, palette, *, substrate=None, dpi: float | None = None,
              min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
              underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
-             max_pixels=None) -> Separation:
+             max_pixels=None, edges: bool = True, dithered: str = "auto") -> Separation:
     """Separate an image into one knocked-out 1-bit plate per printed ink.
 
     Parameters
@@ -440,9 +496,11 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     palette : Palette
         The inks and the substrate.
     substrate : int, str or colour, optional
-        The substrate: a palette index, a palette colour's name, or a colour
-        (added, locked, when the palette lacks it). Default: the palette's
-        locked colour if it has exactly one, else none (every colour prints).
+        The substrate: a palette index, a palette colour's name, a colour
+        (added, locked, when the palette lacks it), or ``"none"`` (every
+        colour prints). Default: inferred and noted
+        (:func:`quantize.separation.choice.resolve_substrate`: the palette's
+        locked colour, else the colour of the image border), or refused.
     dpi : float, optional
         Output resolution; default the image's, else 300.
     min_feature_mm : float, default 0.5
@@ -458,6 +516,14 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Print order of the inks; default light to dark.
     max_pixels : int, optional
         Decompression-bomb limit when ``image`` is a path.
+    edges : bool, default True
+        Give each anti-aliased edge pixel that blends two inks to one of
+        those two (:func:`quantize.separation.edges.resolve_seams`), so no
+        plate gets a hairline of a third ink along an edge.
+    dithered : {"auto", "keep", "clean"}, default "auto"
+        Dithered input (:mod:`quantize.separation.dithered`): "auto" keeps
+        every dot of an image that looks dithered (no edge step, no
+        clean-up; noted), "keep" does so always, "clean" treats it as flat art.
 
     Returns
     -------
@@ -492,13 +558,25 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     from quantize.render.mapping import map_picture
 
     _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
+    if dithered not in DITHER_CHOICES:
+        raise SeparationError(f"dithered must be one of {', '.join(DITHER_CHOICES)}, got {dithered!r}")
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
-    palette, sub = _with_named_substrate(palette, substrate, notes)
+    palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
     dpi = _resolve_dpi(pic, dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
-    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=min_feature_mm, dpi=dpi)
+    dither, dither_note = dither_handling(mapped.indices, pic.opaque, dithered, source=pic.source)
+    if dither_note:
+        notes.append(dither_note)
+    # A dither's dots are deliberate: neither edge blends nor specks to merge.
+    clean_mm = 0.0 if dither["kept"] else min_feature_mm
+    seams = None
+    if edges and not dither["kept"]:
+        seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), smp.inverse.reshape(pic.shape),
+                                      palette.lab, opaque=pic.opaque)
+        mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
+    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=clean_mm, dpi=dpi)
     n_opaque = int(pic.opaque.sum())
     plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
     ub = _underbase_plate(cleaned, pic.opaque, palette, sub, plates, choke_mm=choke_mm, dpi=dpi,
@@ -508,12 +586,14 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                                   min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
                                   underbase=underbase, choke_mm=choke_mm if underbase else None,
                                   order="given" if order is not None else "light to dark",
-                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {})
+                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {},
+                                  mapping=_EDGE_MAPPING if edges else "nearest by ΔE00")
     sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
-                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov)
+                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
+                      substrate_from=said, dither=dither)
 
 
 # --------------------------------------------------------------------------- the steps of separate
@@ -527,27 +607,19 @@ def _check_sizes(*, dpi, min_feature_mm, min_line_mm, choke_mm) -> None:
         raise SeparationError(f"dpi must be positive, got {dpi!r}")
 
 
-def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | None]:
-    """The palette with its substrate locked and named, and the substrate's index (or None)."""
-    if substrate is None:
-        lk = np.flatnonzero(palette.locked)
-        sub = int(lk[0]) if lk.size == 1 else None
-        if lk.size > 1:
-            notes.append(f"the palette has {lk.size} locked colours; none is taken as the substrate "
-                         "(give one to leave it unprinted)")
-    elif isinstance(substrate, (int, np.integer)) and not isinstance(substrate, bool):
-        if not 0 <= int(substrate) < palette.k:
-            raise SeparationError(f"substrate index {substrate} is not a palette colour (0-{palette.k - 1})")
-        sub = int(substrate)
-    else:
-        palette, sub = with_substrate(palette, substrate)
+def _with_named_substrate(pic, palette, substrate, notes: list) -> tuple[Any, int | None, str]:
+    """The palette with its substrate locked and named, the substrate's index (or None), and where it
+    came from (an inferred one is also a note)."""
+    palette, sub, said = resolve_substrate(pic, palette, substrate)
+    if not said.startswith("given"):
+        notes.append(said)
     if sub is not None and not palette.names[sub]:
         from quantize.palette import Palette
 
         names = list(palette.names)
         names[sub] = "substrate"
         palette = Palette(palette.rgb8, palette.locked, palette.space, tuple(names), palette.fit)
-    return palette, sub
+    return palette, sub, said
 
 
 def _resolve_dpi(pic, dpi, notes: list) -> float:
