@@ -22,7 +22,7 @@ from quantize.errors import OutputError, SeparationError
 from quantize.palette import Palette
 from quantize.separation.choice import with_substrate
 from quantize.separation.cleanup import clean_small_regions, find_thin_features, underbase_mask
-from quantize.separation.plates import print_order, separate
+from quantize.separation.plates import SeparationSettings, print_order, separate
 
 WHITE, RED, BLUE, GOLD = (255, 255, 255), (200, 16, 46), (31, 58, 147), (242, 183, 5)
 
@@ -44,7 +44,8 @@ def artwork():
 @pytest.fixture(scope="module")
 def separation(artwork):
     img, pal, _ = artwork
-    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3)
+    # Films at the artwork's own resolution: the film grid is the artwork's, pixel for pixel.
+    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3, settings=SeparationSettings(film_dpi=300))
 
 
 # --------------------------------------------------------------------------- plates
@@ -182,7 +183,8 @@ def test_settings_record_what_was_used(artwork):
     sep = separate(img, pal, dpi=150, order=given, min_line_mm=0)
     s = sep.settings
     assert (s.dpi, s.underbase, s.choke_mm, s.order, s.min_line_mm) == (150, False, None, "given", 0)
-    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 150) ** 2 / 4, abs=1e-3)  # a 0.5 mm dot
+    # A 0.5 mm dot in film pixels (the films are at 600 dpi by default, whatever the artwork's resolution).
+    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 600) ** 2 / 4, abs=1e-3)
     assert [p.name for p in sep.plates] == given and sep.underbase is None
     assert sep.thin == [] and sep.thin_summary["lines"] == sep.thin_summary["gaps"] == 0  # not looked for
     # Only a caller that chose the inks records where they came from.
@@ -250,7 +252,7 @@ def test_minimum_feature_that_would_erase_the_image_is_refused():
     pal = _palette(WHITE, RED)
     with pytest.raises(SeparationError, match="would erase the image: every printed area is smaller"):
         separate(img, pal, dpi=300, min_feature_mm=1.0)
-    with pytest.raises(SeparationError, match="larger than the whole image"):
+    with pytest.raises(SeparationError, match="larger than the whole print"):
         separate(img, pal, dpi=300, min_feature_mm=50)
     with pytest.raises(SeparationError, match="min_feature_mm must be a size of 0 mm or more"):
         separate(img, pal, dpi=300, min_feature_mm=-1)
@@ -304,8 +306,8 @@ def test_transparent_pixels_print_nothing():
     rgba[..., :3] = RED
     rgba[..., 3] = 255
     rgba[:, :5, 3] = 0
-    sep = separate(rgba, _palette(WHITE, RED), dpi=300)
-    assert not sep.plates[0].mask[:, :5].any() and sep.plates[0].mask[:, 5:].all()
+    sep = separate(rgba, _palette(WHITE, RED), dpi=300)  # films at 600 dpi: two film pixels per artwork pixel
+    assert not sep.plates[0].mask[:, :10].any() and sep.plates[0].mask[:, 10:].all()
     assert sum(sep.coverage().values()) == pytest.approx(100)
 
 
@@ -370,10 +372,13 @@ def test_cli_defaults_match_the_library():
     from quantize.cli.separate import separate as cli_separate
     from quantize.separation.plates import Separation
 
+    from dataclasses import fields
+
     options = {p.name: p.default for p in cli_separate.params}
-    library = {**inspect.signature(separate).parameters, **inspect.signature(Separation.write).parameters}
-    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm"):
-        assert options[name] == library[name].default, name
+    library = {f.name: f.default for f in fields(SeparationSettings)}
+    library["margin_mm"] = inspect.signature(Separation.write).parameters["margin_mm"].default
+    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm", "film_dpi"):
+        assert options[name] == library[name], name
 
 
 def test_cli_bad_print_order_writes_nothing(job, tmp_path):
@@ -393,7 +398,8 @@ def test_cli_in_a_real_subprocess(job):
                            "--inks", str(d / "shelf.csv"), "-n", "3", "--marks"],
                           capture_output=True, text=True, env=env)
     assert proc.returncode == 0, proc.stderr
-    assert "3 plate(s) at 300 dpi" in proc.stdout
+    # 120 px at 300 dpi print 10.2 mm wide, on films at the default 600 dpi.
+    assert "3 film(s) at 600 dpi, printed 10.2 x 10.2 mm" in proc.stdout
     assert (out / "poster-manifest.json").exists() and (out / "poster-composite.png").exists()
 
 
@@ -499,7 +505,7 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
     img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
     pal = _palette(*inks.values(), names=tuple(inks))
-    sep = separate(img, pal, dpi=dpi, underbase=True)
+    sep = separate(img, pal, dpi=dpi, underbase=True, settings=SeparationSettings(film_dpi=dpi))
     doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
 
     lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}
@@ -551,8 +557,10 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     assert (item["x"], item["y"], item["w"], item["h"]) == (70, 5, 40, 2)
     assert [item[k] for k in ("x_mm", "y_mm", "w_mm", "h_mm")] == pytest.approx(
         [v * 25.4 / dpi for v in (70, 5, 40, 2)], abs=1e-3)
-    assert doc["settings"] == {"dpi": dpi, "min_feature_mm": 0.5, "min_area_px": pytest.approx(min_area, abs=1e-3),
-                               "min_line_mm": 0.35, "underbase": True, "choke_mm": 0.25, "order": "light to dark",
-                               "mapping": "nearest by ΔE00", "palette_fit": {}}
+    assert doc["settings"] | {"min_area_px": 0} == doc["settings"] | {
+        "dpi": dpi, "min_feature_mm": 0.5, "min_area_px": 0, "min_line_mm": 0.35, "underbase": True,
+        "choke_mm": 0.25, "order": "light to dark", "mapping": "nearest by ΔE00", "palette_fit": {},
+        "film_dpi": dpi}
+    assert doc["settings"]["min_area_px"] == pytest.approx(min_area, abs=1e-3)
     assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
         ("quantize.separation.plates", 1, "job-composite.png", 0)

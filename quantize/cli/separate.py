@@ -16,12 +16,39 @@ import click
 # The library's defaults, from a module that imports nothing (--help stays fast).
 from quantize.separation.defaults import (
     DEFAULT_CHOKE_MM,
+    DEFAULT_FILM_DPI,
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
 )
 
 from ._common import _run
+
+_UNITS_MM = {"mm": 1.0, "cm": 10.0, "in": 25.4, '"': 25.4}
+
+
+class PrintSize(click.ParamType):
+    """A length with a unit: ``200mm``, ``20 cm``, ``8in`` or ``8"``; a bare number is in mm."""
+
+    name = "size"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, float):
+            return value
+        text = str(value).strip().lower().replace(" ", "")
+        for unit, factor in _UNITS_MM.items():
+            if text.endswith(unit):
+                text, scale = text[: -len(unit)], factor
+                break
+        else:
+            scale = 1.0
+        try:
+            mm = float(text) * scale
+        except ValueError:
+            self.fail(f"{value!r} is not a length (examples: 200mm, 20cm, 8in)", param, ctx)
+        if not (mm > 0 and mm < 1e6):
+            self.fail(f"{value!r} must be a positive length", param, ctx)
+        return mm
 
 
 @click.command("separate")
@@ -42,7 +69,19 @@ from ._common import _run
               help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate. "
                    "Default: the --palette's locked colour, else #ffffff.")
 @click.option("--dpi", type=click.FloatRange(min=1), default=None,
-              help="Output resolution (default: the image's, else 300).")
+              help="The artwork's resolution (default: the file's, else 300). It sets the printed size only "
+                   "without --print-width/--print-height, and a value that differs from the file's is reported.")
+@click.option("--print-width", type=PrintSize(), default=None, metavar="LENGTH",
+              help="Printed width of the artwork, e.g. 250mm, 25cm or 10in (a bare number is mm); the height "
+                   "follows the artwork's proportions. Default: the artwork's own size at its dpi.")
+@click.option("--print-height", type=PrintSize(), default=None, metavar="LENGTH",
+              help="Printed height instead of --print-width.")
+@click.option("--film-dpi", type=click.FloatRange(min=10, max=10000), default=DEFAULT_FILM_DPI, show_default=True,
+              help="Resolution of the films; each ink's area is resampled to it with smooth edges.")
+@click.option("--mirror", is_flag=True, help="Flip the films left to right (emulsion side).")
+@click.option("--negative", is_flag=True, help="Negative films: clear where ink prints, black elsewhere.")
+@click.option("--job", default=None, metavar="NAME", help="Job name on the film labels (default: the file name).")
+@click.option("--no-pdf", is_flag=True, help="Do not write the PDF of all films.")
 @click.option("--min-feature-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
               help="Smallest printable dot diameter; smaller areas are merged into a neighbour (0: off).")
 @click.option("--min-line-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_LINE_MM, show_default=True,
@@ -60,13 +99,17 @@ from ._common import _run
 @click.option("--force", is_flag=True, help="Replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the manifest as JSON.")
 @click.pass_context
-def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, min_feature_mm,
+def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
+             print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
              min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
-    or are fitted to the image (-n inks). Also written: a composite preview
-    PNG of the plates printed in order on the substrate, and a manifest JSON.
+    or are fitted to the image (-n inks). The films are at --film-dpi and
+    print at --print-width/--print-height (default: the artwork's own size).
+    Also written: one PDF with every film at its physical size with marks
+    and a label, a composite preview PNG of the plates printed in order on
+    the substrate, and a manifest JSON.
     ΔE figures come from file data, not a measured print: proof physically.
     """
     t0 = time.perf_counter()
@@ -76,6 +119,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         raise click.UsageError("--inks needs -n N (how many inks to print)")
     if palette_file and inks_file and not snap:
         raise click.UsageError("--palette and --inks together need --snap")
+    if print_width is not None and print_height is not None:
+        raise click.UsageError("give --print-width or --print-height, not both (the other follows the artwork)")
     order_list = [s.strip() for s in order.split(",") if s.strip()] if order else None
 
     def work():
@@ -83,16 +128,21 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         from quantize.palette import Palette
         from quantize.separation.choice import choose_palette
         from quantize.separation.inks import load_ink_library
+        from quantize.separation.plates import SeparationSettings
         from quantize.separation.plates import separate as run
 
         pal = Palette.load(palette_file) if palette_file else None
         lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
         pic = load_image(image)  # the one decode: choosing the inks and making the plates share it
         pal, info = choose_palette(pic, palette=pal, library=lib, n=n, snap=snap, substrate=substrate, seed=seed)
-        sep = run(pic, pal, substrate=info["substrate"], dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
-                  underbase=underbase, choke_mm=choke_mm, order=order_list)
+        settings = SeparationSettings(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
+                                      underbase=underbase, choke_mm=choke_mm, film_dpi=film_dpi,
+                                      print_width_mm=print_width, print_height_mm=print_height, mirror=mirror,
+                                      negative=negative)
+        sep = run(pic, pal, substrate=info["substrate"], order=order_list, settings=settings)
         sep = replace(sep, settings=replace(sep.settings, inks_from=info))
-        written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image])
+        written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image],
+                            pdf=not no_pdf, job=job)
         notes = list(sep.notes) + (list(lib.notes) if lib else [])
         return sep, written, notes
 
@@ -103,9 +153,11 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         doc["seconds"] = round(time.perf_counter() - t0, 3)
         click.echo(json.dumps(doc, indent=2, ensure_ascii=False))
         return
-    click.echo(f"{image}: {len(sep.plates)} plate(s) at {sep.dpi:g} dpi "
-               f"({doc['settings']['inks_from']['method']})")
-    for p in ([sep.underbase] if sep.underbase else []) + list(sep.plates):
+    films = sep.films()
+    g = sep.film
+    click.echo(f"{image}: {len(films)} film(s) at {sep.dpi:g} dpi, printed {g.width_mm:.1f} x {g.height_mm:.1f} mm "
+               f"(size from the {g.size_from}; {doc['settings']['inks_from']['method']})")
+    for p in films:
         click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> {written['plates'][p.name][0].name}")
     if doc["substrate"]:
         click.echo(f"      substrate {doc['substrate']['name']} ({doc['substrate']['hex']}) "
@@ -127,7 +179,9 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     click.echo(f"ΔE00 to the source: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
     for note in notes:
         click.echo(f"note: {note}")
-    click.echo(f"wrote {written['manifest']} and {written['composite'].name}")
+    n_files = sum(len(v) for v in written["plates"].values())
+    extra = f", {written['pdf'].name}" if written["pdf"] else ""
+    click.echo(f"wrote {n_files} film file(s){extra}, {written['composite'].name} and {written['manifest']}")
     click.echo(f"done in {time.perf_counter() - t0:.2f} s")
 
 

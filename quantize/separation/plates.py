@@ -7,27 +7,31 @@ ink, knocked out so that no two plates print the same pixel. The substrate
 Steps of :func:`separate`:
 
 1. **Map** every pixel to its nearest palette colour by ΔE00.
-2. **Clean up printable detail.** A connected region of one colour
+2. **Films at size.** Each ink's area is resampled to the film grid (the
+   printed size at the film resolution, :mod:`quantize.separation.film`)
+   as a coverage image; every film pixel goes to the ink of largest
+   coverage. Everything below works in film pixels.
+3. **Clean up printable detail.** A connected region of one colour
    (4-connected, labelled by :func:`skimage.measure.label`) whose area is
    below that of a dot of the minimum feature diameter is merged into a
    neighbouring, larger region; of the neighbours, the colour with the least
    ΔE00 from the region's colour is taken (ties: the longest shared border).
    Passes repeat until no region is too small. The number of changed pixels
    and the ΔE00 the change costs are reported.
-3. **Report thin detail.** Per plate, parts of the ink area that a disk of the
+4. **Report thin detail.** Per plate, parts of the ink area that a disk of the
    minimum line width does not fit (morphological opening with a disk,
    :mod:`skimage.morphology`) are thin positive lines; gaps in the ink area
    narrower than it (closing) are thin knock-out gaps. Each is
    reported with its bounding box in pixels and millimetres. They are not
    changed: whether they hold is the printer's call.
-4. **Plates**, in print order (light to dark unless given), each with its
+5. **Plates**, in print order (light to dark unless given), each with its
    coverage; an optional underbase (the union of printed areas, choked
    inward); a composite preview of the plates printed on the substrate.
 
 Default sizes (all "common practice, no source"; set them from the shop's
 screen mesh, emulsion and ink): minimum feature 0.5 mm, minimum line
 0.35 mm (about 1 pt), underbase choke 0.25 mm, 300 dpi when the image records
-none, registration margin 10 mm.
+none, films at 600 dpi, registration margin 10 mm.
 
 ΔE figures are computed from file data; they are not measurements of a print.
 """
@@ -38,7 +42,7 @@ import io
 import json
 import math
 import re
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -53,11 +57,20 @@ from .cleanup import CleanupReport, clean_small_regions, find_thin_features, und
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
-from .defaults import DEFAULT_CHOKE_MM, DEFAULT_DPI, DEFAULT_MARGIN_MM, DEFAULT_MIN_FEATURE_MM, DEFAULT_MIN_LINE_MM
+from .defaults import (
+    DEFAULT_CHOKE_MM,
+    DEFAULT_DPI,
+    DEFAULT_FILM_DPI,
+    DEFAULT_MARGIN_MM,
+    DEFAULT_MIN_FEATURE_MM,
+    DEFAULT_MIN_LINE_MM,
+)
+from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
     "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM", "DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM",
+    "DEFAULT_FILM_DPI",
 ]
 
 _MANIFEST_FORMAT = "quantize.separation.plates"
@@ -81,43 +94,64 @@ class Plate:
 
 @dataclass(frozen=True)
 class SeparationSettings:
-    """The settings a separation was made with, as its manifest lists them (``settings``).
+    """What a separation is asked for, and, in its manifest (``settings``), what it was made with.
+
+    Give one to :func:`separate` (``settings=``); the fields left at their
+    defaults take the defaults below. The separation's own copy records the
+    values used (the artwork's resolution found, the minimum area in film
+    pixels, the palette's fit record).
 
     Attributes
     ----------
-    dpi : float
-        Output resolution (the image's, the caller's, or :data:`DEFAULT_DPI`).
-    min_feature_mm : float
-        Diameter of the smallest printable dot.
-    min_area_px : float
-        Area of that dot in pixels at ``dpi``, rounded to 3 decimals.
-    min_line_mm : float
+    dpi : float or None
+        The artwork's resolution: its printed size when no print size is
+        given. None: the file's, else :data:`DEFAULT_DPI`.
+    min_feature_mm : float, default 0.5
+        Diameter of the smallest printable dot (0: no clean-up).
+    min_area_px : float or None
+        Area of that dot in film pixels, rounded to 3 decimals (recorded).
+    min_line_mm : float, default 0.35
         Thinner lines and gaps are reported (0: not looked for).
-    underbase : bool
-        Whether an underbase plate was made.
-    choke_mm : float or None
-        How far the underbase stays inside the print's edges; None without one.
+    underbase : bool, default False
+        Whether an underbase plate is made.
+    choke_mm : float or None, default 0.25
+        How far the underbase stays inside the print's edges; recorded as
+        None without an underbase.
     order : {"given", "light to dark"}
-        Where the print order came from.
+        Where the print order came from (recorded).
     palette_fit : dict
-        The palette's own record of how it was made (``Palette.fit``).
+        The palette's own record of how it was made (``Palette.fit``; recorded).
     mapping : str, default="nearest by ΔE00"
         How pixels were given inks.
     inks_from : dict or None
         How the inks were chosen, as :func:`quantize.separation.choice.choose_palette`
         reports it; None when the caller gave the palette (not listed then).
+    film_dpi : float, default 600
+        Resolution of the films (common practice, no source).
+    print_width_mm, print_height_mm : float or None
+        The printed width or height (at most one); None for both keeps the
+        artwork's physical size (its pixels at ``dpi``).
+    mirror : bool, default False
+        Films flipped left to right (read from the emulsion side).
+    negative : bool, default False
+        Films clear where ink prints, black elsewhere.
     """
 
-    dpi: float
-    min_feature_mm: float
-    min_area_px: float
-    min_line_mm: float
-    underbase: bool
-    choke_mm: float | None
-    order: str
-    palette_fit: dict
+    dpi: float | None = None
+    min_feature_mm: float = DEFAULT_MIN_FEATURE_MM
+    min_area_px: float | None = None
+    min_line_mm: float = DEFAULT_MIN_LINE_MM
+    underbase: bool = False
+    choke_mm: float | None = DEFAULT_CHOKE_MM
+    order: str = "light to dark"
+    palette_fit: dict = field(default_factory=dict)
     mapping: str = "nearest by ΔE00"
     inks_from: dict | None = None
+    film_dpi: float = DEFAULT_FILM_DPI
+    print_width_mm: float | None = None
+    print_height_mm: float | None = None
+    mirror: bool = False
+    negative: bool = False
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -126,7 +160,14 @@ class SeparationSettings:
                "order": self.order, "mapping": self.mapping, "palette_fit": self.palette_fit}
         if self.inks_from is not None:
             doc["inks_from"] = self.inks_from
+        skip = set(doc) | {"inks_from"}
+        doc.update({f.name: _plain(getattr(self, f.name)) for f in fields(self) if f.name not in skip})
         return doc
+
+
+def _plain(v):
+    """Tuples (of tuples) as lists, for JSON."""
+    return [_plain(x) for x in v] if isinstance(v, tuple) else v
 
 
 @dataclass(frozen=True, eq=False)
@@ -136,7 +177,8 @@ class Separation:
     Attributes
     ----------
     indices : ndarray of shape (H, W)
-        Palette index of every pixel after the clean-up.
+        Palette index of every film pixel after the clean-up (where nothing
+        prints, see ``alpha``, the substrate's or 0).
     palette : Palette
         The inks and the substrate (named "substrate" when it had no name).
     substrate : int or None
@@ -145,8 +187,9 @@ class Separation:
         The ink plates in print order.
     underbase : Plate or None
     dpi : float
+        The films' resolution.
     alpha : ndarray of shape (H, W) or None
-        The input's alpha channel.
+        Where the films print (255) or not (0), when the input had an alpha channel.
     source : str
     cleanup : CleanupReport
         What merging the regions too small to print changed.
@@ -161,6 +204,12 @@ class Separation:
     notes : tuple of str
     substrate_coverage : float
         Percent of the opaque pixels left as substrate (0 without one).
+    film : FilmGrid or None
+        The film grid and the printed size.
+    art_shape : (int, int) or None
+        The artwork's height and width in pixels.
+    art_dpi : float or None
+        The artwork's resolution used.
     """
 
     indices: np.ndarray
@@ -178,6 +227,9 @@ class Separation:
     settings: SeparationSettings
     notes: tuple = ()
     substrate_coverage: float = 0.0
+    film: FilmGrid | None = None
+    art_shape: tuple | None = None
+    art_dpi: float | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -203,11 +255,13 @@ class Separation:
             comp[p.mask] = p.index
         return comp
 
-    def manifest(self, files: dict | None = None, *, composite: str | None = None, margin_px: int = 0) -> dict:
+    def manifest(self, files: dict | None = None, *, composite: str | None = None, margin_px: int = 0,
+                 films_pdf: str | None = None) -> dict:
         """The manifest document (JSON-ready).
 
         ``files`` maps each plate's name to its file names; ``composite`` is
-        the preview's file name and ``margin_px`` the width of the marks margin.
+        the preview's file name, ``margin_px`` the width of the marks margin
+        and ``films_pdf`` the file name of the PDF of all films.
         """
         from quantize.colour.spaces import srgb8_to_space
 
@@ -232,6 +286,9 @@ class Separation:
             "size_px": [w, h],
             "dpi": self.dpi,
             "size_mm": [round(px_to_mm(w, self.dpi), 3), round(px_to_mm(h, self.dpi), 3)],
+            "film": self.film.to_dict() if self.film is not None else None,
+            "artwork": None if self.art_shape is None else {
+                "size_px": [self.art_shape[1], self.art_shape[0]], "dpi": self.art_dpi},
             "substrate": None if self.substrate is None else {
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
                 "coverage_percent": round(self.substrate_coverage, 4)},
@@ -245,6 +302,7 @@ class Separation:
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
             "composite": composite,
+            "films_pdf": films_pdf,
             "margin_px": margin_px,
             "notes": list(self.notes),
             "caution": CAUTION,
@@ -252,12 +310,14 @@ class Separation:
         return to_jsonable(doc)
 
     def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
-              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
-        """Write plates (1-bit TIFF, optionally PNG), the composite preview and the manifest.
+              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=(), pdf: bool = True,
+              job: str | None = None, date: str | None = None) -> dict:
+        """Write the films (1-bit TIFF, optionally PNG), a PDF of them all, the preview and the manifest.
 
         Every file is written atomically; existing files are checked before
         anything is written, so without ``force`` either the whole set is
-        written or nothing is.
+        written or nothing is. Films are mirrored or negative as the
+        settings ask.
 
         Parameters
         ----------
@@ -269,108 +329,96 @@ class Separation:
             Also write each plate as a 1-bit PNG.
         marks : bool
             Add a margin with registration marks and a label (ink name,
-            order, file name) around the artwork on every plate.
+            print order, job, date) around the artwork on every TIFF/PNG film.
         margin_mm : float
-            Width of that margin.
+            Width of that margin; the PDF pages always have it.
         stem : str, optional
             Prefix of the file names (default: the source file's stem).
         inputs : sequence of path
             Files never to overwrite.
+        pdf : bool, default True
+            Also write ``{stem}-films.pdf``: one page per film at its exact
+            physical size (the film plus the margin), with marks and label.
+        job : str, optional
+            Job name on the labels (default: ``stem``).
+        date : str, optional
+            Date on the labels (default: today, ISO 8601).
 
         Returns
         -------
         dict
-            ``manifest`` (path), ``composite`` (path), ``plates`` (name -> paths).
+            ``manifest`` (path), ``composite`` (path), ``plates`` (name -> paths),
+            ``pdf`` (path or None).
 
         Raises
         ------
         OutputError
             A file exists without ``force``, or cannot be written.
         SeparationError
-            ``marks`` with a margin that is not a positive, finite size.
+            A margin that is not a positive, finite size.
         """
+        import datetime
+
         from quantize.io.write import atomic_write_bytes, atomic_write_text, save_image
 
-        if marks and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm) and margin_mm > 0):
+        from .filmfiles import FilmPage, film_image, pdf_bytes
+
+        if (marks or pdf) and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm)
+                                   and margin_mm > 0):
             raise SeparationError(f"margin_mm must be a positive size in mm, got {margin_mm!r}")
         out = Path(folder)
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder")
         if stem is None:
             stem = "art" if self.source.startswith("<") else _slug(Path(self.source).stem)
-        every = ([self.underbase] if self.underbase else []) + list(self.plates)
+        job = job or stem
+        date = date or datetime.date.today().isoformat()
+        every = self.films()
         plan = {}
         for p in every:
             base = f"{stem}-{p.order:02d}-{p.slug}"
             plan[p.name] = [out / f"{base}.tif"] + ([out / f"{base}.png"] if png else [])
         composite = out / f"{stem}-composite.png"
         manifest = out / f"{stem}-manifest.json"
-        targets = [t for ts in plan.values() for t in ts] + [composite, manifest]
+        pdf_path = out / f"{stem}-films.pdf" if pdf else None
+        targets = [t for ts in plan.values() for t in ts] + [composite, manifest] + ([pdf_path] if pdf else [])
         if not force:
             for t in targets:
                 if t.exists():
                     raise OutputError(f"{t}: already exists; not replaced without force")
         out.mkdir(parents=True, exist_ok=True)
-        margin = int(round(mm_to_px(margin_mm, self.dpi))) if marks else 0
+        margin_px = int(round(mm_to_px(margin_mm, self.dpi)))
+        margin = margin_px if marks else 0
         total = len(every)
+        st = self.settings
+        pages = []
         for p in every:
-            label = f"{p.name} | {p.order}/{total} | {plan[p.name][0].name}"
-            img = _plate_image(p.mask, margin, label if marks else None)
+            label = f"{p.name} | {p.order}/{total} | {job} | {date}"
+            img = film_image(p.mask, FilmPage(margin, label if marks else None, st.mirror, st.negative))
             for t in plan[p.name]:
                 fmt = "TIFF" if t.suffix == ".tif" else "PNG"
                 buf = io.BytesIO()
                 opts = {"compression": "group4"} if fmt == "TIFF" else {"optimize": True}
                 img.save(buf, format=fmt, dpi=(self.dpi, self.dpi), **opts)
                 atomic_write_bytes(t, buf.getvalue(), force=force, inputs=inputs)
+            if pdf:
+                pages.append(film_image(p.mask, FilmPage(margin_px, label, st.mirror, st.negative)))
+        if pdf and pages:
+            atomic_write_bytes(pdf_path, pdf_bytes(pages, self.dpi, title=f"{job}: films"),
+                               force=force, inputs=inputs)
         save_image(composite, self.composite_indices(), self.palette.rgb8, alpha=self.alpha,
                    dpi=(self.dpi, self.dpi), force=force, inputs=inputs)
         files = {name: [t.name for t in ts] for name, ts in plan.items()}
-        doc = self.manifest(files, composite=composite.name, margin_px=margin)
+        doc = self.manifest(files, composite=composite.name, margin_px=margin,
+                            films_pdf=pdf_path.name if pdf and pages else None)
         atomic_write_text(manifest, json.dumps(doc, indent=2, ensure_ascii=False) + "\n",
                           force=force, inputs=inputs)
-        return {"manifest": manifest, "composite": composite, "plates": plan}
+        return {"manifest": manifest, "composite": composite, "plates": plan,
+                "pdf": pdf_path if pdf and pages else None}
 
-
-def _plate_image(mask: np.ndarray, margin: int, label: str | None):
-    """A 1-bit film: ink black (0), clear white (1); marks and label in the margin."""
-    from PIL import Image, ImageDraw
-
-    h, w = mask.shape
-    canvas = np.zeros((h + 2 * margin, w + 2 * margin), bool)
-    canvas[margin:margin + h, margin:margin + w] = mask
-    img = Image.fromarray(~canvas)
-    if margin >= 8:
-        draw = ImageDraw.Draw(img)
-        r = max(2, int(margin * 0.3))
-        lw = max(1, margin // 40)
-        cx = [margin // 2, w + margin + margin // 2]
-        cy = [margin // 2, h + margin + margin // 2]
-        for x in cx:  # the four corners, outside the artwork
-            for y in cy:
-                draw.ellipse([x - r, y - r, x + r, y + r], outline=0, width=lw)
-                draw.line([x - r - lw, y, x + r + lw, y], fill=0, width=lw)
-                draw.line([x, y - r - lw, x, y + r + lw], fill=0, width=lw)
-        if label:
-            size = max(6, int(margin * 0.3))
-            font = _font(size)
-            room = max(1, w - 2 * lw)
-            while size > 6 and draw.textlength(label, font=font) > room:
-                size -= 1
-                font = _font(size)
-            # Draw on a scratch strip and paste only the margin, so nothing reaches the artwork.
-            strip = Image.new("1", (w, margin), 1)
-            ImageDraw.Draw(strip).text((lw, (margin - size) // 2), label, fill=0, font=font)
-            img.paste(strip, (margin, h + margin))
-    return img
-
-
-def _font(size: int):
-    from PIL import ImageFont
-
-    try:
-        return ImageFont.load_default(size=size)
-    except (TypeError, OSError, ImportError):  # a Pillow without FreeType: fixed-size bitmap font
-        return ImageFont.load_default()
+    def films(self) -> list[Plate]:
+        """Every film in print order: the underbase, the inks."""
+        return sorted(([self.underbase] if self.underbase else []) + list(self.plates), key=lambda p: p.order)
 
 
 def _hex(rgb8) -> str:
@@ -429,10 +477,10 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
 
 
 def separate(image, palette, *, substrate=None, dpi: float | None = None,
-             min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
-             underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
-             max_pixels=None) -> Separation:
-    """Separate an image into one knocked-out 1-bit plate per printed ink.
+             min_feature_mm: float | None = None, min_line_mm: float | None = None,
+             underbase: bool | None = None, choke_mm: float | None = None, order: Sequence | None = None,
+             max_pixels=None, settings: SeparationSettings | None = None) -> Separation:
+    """Separate an image into one knocked-out 1-bit film per printed ink, at print size.
 
     Parameters
     ----------
@@ -444,7 +492,9 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         (added, locked, when the palette lacks it). Default: the palette's
         locked colour if it has exactly one, else none (every colour prints).
     dpi : float, optional
-        Output resolution; default the image's, else 300.
+        The artwork's resolution (default the file's, else 300): it sets the
+        printed size only when no print size is given, and a value that
+        differs from the file's is reported with the size it gives.
     min_feature_mm : float, default 0.5
         Diameter of the smallest printable dot; regions of smaller area are
         merged (0 turns the clean-up off).
@@ -458,10 +508,15 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Print order of the inks; default light to dark.
     max_pixels : int, optional
         Decompression-bomb limit when ``image`` is a path.
+    settings : SeparationSettings, optional
+        Every other option (film resolution, print size, mirror, negative);
+        the keywords above, when given, take precedence over its fields.
 
     Returns
     -------
     Separation
+        Films on the film grid: ``settings.film_dpi``, printed at the size
+        asked for (``Separation.film``).
 
     Raises
     ------
@@ -470,6 +525,14 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         or a bad print order or substrate.
     ImageReadError
         The image cannot be read.
+
+    Notes
+    -----
+    Each ink's area is resampled to the film grid as a coverage image and
+    every film pixel goes to the ink of largest coverage
+    (:func:`quantize.separation.film.resample_indices`); the clean-up and
+    everything after it work in film pixels, sizes in mm at the film
+    resolution.
 
     References
     ----------
@@ -485,46 +548,74 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     >>> img = np.full((40, 40, 3), 255, np.uint8); img[10:30, 10:30] = (200, 16, 46)
     >>> pal = Palette(np.array([[255, 255, 255], [200, 16, 46]], np.uint8), np.array([True, False]))
     >>> sep = separate(img, pal, dpi=300)
-    >>> [(p.name, round(p.coverage, 2)) for p in sep.plates]
-    [('ink #c8102e', 25.0)]
+    >>> [(p.name, round(p.coverage, 2)) for p in sep.plates], sep.shape
+    ([('ink #c8102e', 25.0)], (80, 80))
     """
     from quantize.core.sampling import sample_picture
     from quantize.render.mapping import map_picture
 
-    _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
+    given = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
+             "choke_mm": choke_mm}
+    st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
+    _check_settings(st)
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub = _with_named_substrate(palette, substrate, notes)
-    dpi = _resolve_dpi(pic, dpi, notes)
+    art_dpi = _resolve_dpi(pic, st.dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
-    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=min_feature_mm, dpi=dpi)
-    n_opaque = int(pic.opaque.sum())
-    plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
-    ub = _underbase_plate(cleaned, pic.opaque, palette, sub, plates, choke_mm=choke_mm, dpi=dpi,
-                          notes=notes) if underbase else None
-    thin, thin_summary = _thin_detail(plates, min_line_mm=min_line_mm, dpi=dpi)
-    settings = SeparationSettings(dpi=dpi, min_feature_mm=min_feature_mm,
-                                  min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
-                                  underbase=underbase, choke_mm=choke_mm if underbase else None,
-                                  order="given" if order is not None else "light to dark",
-                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {})
-    sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
+    art_idx = mapped.indices
+    grid = _film_grid(pic, art_dpi, st, notes)
+    film_idx, film_op = resample_indices(art_idx, pic.opaque, grid.shape, fill=0 if sub is None else sub)
+    cleaned, cleanup = _clean(pic, smp, film_idx, film_op, mapped, sub, min_feature_mm=st.min_feature_mm,
+                              dpi=grid.dpi)
+    n_opaque = int(film_op.sum())
+    plates = _ink_plates(cleaned, film_op, palette, sub, order=order, first=2 if st.underbase else 1,
+                         notes=notes)
+    ub = _underbase_plate(cleaned, film_op, palette, sub, plates, choke_mm=st.choke_mm, dpi=grid.dpi,
+                          notes=notes) if st.underbase else None
+    thin, thin_summary = _thin_detail(plates, min_line_mm=st.min_line_mm, dpi=grid.dpi)
+    st = replace(st, dpi=art_dpi, min_area_px=round(cleanup.min_area_px, 3),
+                 choke_mm=st.choke_mm if st.underbase else None,
+                 order="given" if order is not None else "light to dark",
+                 palette_fit=palette.fit.to_dict() if palette.fit is not None else {})
+    sub_cov = float(100.0 * ((cleaned == sub) & film_op).sum() / n_opaque) if sub is not None else 0.0
+    alpha = None if pic.alpha is None else np.where(film_op, 255, 0).astype(np.uint8)
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
-                      dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
-                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
-                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov)
+                      dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=cleanup, thin=thin,
+                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
+                      notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, film=grid,
+                      art_shape=tuple(art_idx.shape), art_dpi=art_dpi)
 
 
 # --------------------------------------------------------------------------- the steps of separate
 
 
-def _check_sizes(*, dpi, min_feature_mm, min_line_mm, choke_mm) -> None:
-    for nm, v in (("min_feature_mm", min_feature_mm), ("min_line_mm", min_line_mm), ("choke_mm", choke_mm)):
+def _check_settings(st: SeparationSettings) -> None:
+    for nm in ("min_feature_mm", "min_line_mm", "choke_mm"):
+        v = getattr(st, nm)
         if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
             raise SeparationError(f"{nm} must be a size of 0 mm or more, got {v!r}")
-    if dpi is not None and not (math.isfinite(dpi) and dpi > 0):
-        raise SeparationError(f"dpi must be positive, got {dpi!r}")
+    for nm in ("dpi", "print_width_mm", "print_height_mm"):
+        v = getattr(st, nm)
+        if v is not None and not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+            raise SeparationError(f"{nm} must be positive, got {v!r}")
+    if not (isinstance(st.film_dpi, (int, float)) and math.isfinite(st.film_dpi) and 10 <= st.film_dpi <= 10000):
+        raise SeparationError(f"film_dpi must be between 10 and 10000, got {st.film_dpi!r}")
+
+
+def _film_grid(pic, art_dpi: float, st: SeparationSettings, notes: list) -> FilmGrid:
+    """The film grid; says where the printed size came from when it could surprise."""
+    h, w = pic.opaque.shape
+    grid = film_grid((h, w), art_dpi, film_dpi=st.film_dpi, print_width_mm=st.print_width_mm,
+                     print_height_mm=st.print_height_mm)
+    recorded = _recorded_dpi(pic)
+    if st.print_width_mm is None and st.print_height_mm is None and recorded and abs(recorded - art_dpi) > 0.01:
+        notes.append(f"the artwork's resolution was given as {art_dpi:g} dpi; the file records {recorded:g} dpi: "
+                     f"it prints {grid.width_mm:.1f} x {grid.height_mm:.1f} mm, not "
+                     f"{px_to_mm(w, recorded):.1f} x {px_to_mm(h, recorded):.1f} mm "
+                     "(give a print width or height to set the size)")
+    return grid
 
 
 def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | None]:
@@ -550,37 +641,44 @@ def _with_named_substrate(palette, substrate, notes: list) -> tuple[Any, int | N
     return palette, sub
 
 
+def _recorded_dpi(pic) -> float | None:
+    if pic.dpi and pic.dpi[0] > 0:
+        dpi = float(pic.dpi[0])
+        # PNG stores whole pixels per metre: 300 dpi reads as 299.9994, 150 as 150.012 (up to 0.0127 off).
+        if abs(dpi - round(dpi)) < 0.02:
+            dpi = float(round(dpi))
+        return dpi
+    return None
+
+
 def _resolve_dpi(pic, dpi, notes: list) -> float:
     if dpi is not None:
         return dpi
-    if pic.dpi and pic.dpi[0] > 0:
-        dpi = float(pic.dpi[0])
-        if abs(dpi - round(dpi)) < 0.01:  # PNG stores pixels per metre: 300 dpi reads as 299.9994
-            dpi = float(round(dpi))
-        return dpi
+    recorded = _recorded_dpi(pic)
+    if recorded:
+        return recorded
     notes.append(f"the image records no resolution; {DEFAULT_DPI:g} dpi assumed")
     return DEFAULT_DPI
 
 
-def _clean(pic, smp, mapped, sub, *, min_feature_mm, dpi) -> tuple[np.ndarray, CleanupReport]:
-    """Merge the regions smaller than a dot of ``min_feature_mm``; refuse a clean-up that erases the print."""
-    opaque = pic.opaque
-    n_opaque = int(opaque.sum())
-    idx = mapped.indices
+def _clean(pic, smp, film_idx, film_op, mapped, sub, *, min_feature_mm, dpi) -> tuple[np.ndarray, CleanupReport]:
+    """Merge the film regions smaller than a dot of ``min_feature_mm``; refuse a clean-up that erases the print."""
+    n_opaque = int(film_op.sum())
     ink_lab = mapped.palette.lab
     d_px = mm_to_px(min_feature_mm, dpi)
     min_area = math.pi * d_px * d_px / 4.0
     if min_area > n_opaque:
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
-                              f"{dpi:g} dpi) is larger than the whole image ({n_opaque} px): it would erase the image")
-    printed_before = int((opaque & (idx != sub)).sum()) if sub is not None else n_opaque
-    cleaned, report = clean_small_regions(idx, ink_lab, min_area=min_area, opaque=opaque)
-    printed_after = opaque & (cleaned != sub) if sub is not None else opaque
+                              f"{dpi:g} dpi) is larger than the whole print ({n_opaque} px): it would erase it")
+    printed_before = int((film_op & (film_idx != sub)).sum()) if sub is not None else n_opaque
+    cleaned, report = clean_small_regions(film_idx, ink_lab, min_area=min_area, opaque=film_op)
+    printed_after = film_op & (cleaned != sub) if sub is not None else film_op
     if printed_before and not printed_after.any():
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
                               f"{dpi:g} dpi) would erase the image: every printed area is smaller than that")
+    at_art = sample_at_artwork(cleaned, pic.opaque.shape)
     report = replace(report, min_feature_mm=min_feature_mm, delta_e_before=mapped.delta_e,
-                     delta_e_after=_source_delta_e(smp, cleaned, ink_lab))
+                     delta_e_after=_source_delta_e(smp, at_art, ink_lab))
     return cleaned, report
 
 
