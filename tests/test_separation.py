@@ -104,7 +104,8 @@ def test_underbase_covers_every_printed_pixel_minus_the_choke(separation):
     # Distance from each printed pixel to the nearest unprinted one, outside the image counting as unprinted.
     dist = ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1]
     assert not (ub & ~printed).any()  # nothing under the substrate
-    np.testing.assert_array_equal(ub, printed & (dist > choke_px))
+    # The edge lies half a pixel beyond the nearest unprinted pixel's centre.
+    np.testing.assert_array_equal(ub, printed & (dist - 0.5 > choke_px))
     assert 0 < ub.sum() < printed.sum()  # the choke removed the edges, not everything
     assert sep.underbase.order == 1 and [p.order for p in sep.plates] == list(range(2, 2 + len(sep.plates)))
 
@@ -377,7 +378,8 @@ def test_cli_defaults_match_the_library():
     options = {p.name: p.default for p in cli_separate.params}
     library = {f.name: f.default for f in fields(SeparationSettings)}
     library["margin_mm"] = inspect.signature(Separation.write).parameters["margin_mm"].default
-    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm", "film_dpi"):
+    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm", "film_dpi", "base_min_l",
+                 "highlight_min_l"):
         assert options[name] == library[name], name
 
 
@@ -517,7 +519,7 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     printed = np.zeros((h, w), bool)
     printed[10:40, 10:60] = printed[50:70, 70:110] = printed[5:7, 70:110] = True
     choke_px = 0.25 / 25.4 * dpi  # the default choke
-    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] > choke_px)
+    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] - 0.5 > choke_px)
     min_area = np.pi * (0.5 / 25.4 * dpi) ** 2 / 4  # a dot of the default 0.5 mm
 
     assert doc["size_px"] == [w, h] and doc["dpi"] == dpi

@@ -17,6 +17,7 @@ import click
 from quantize.separation.defaults import (
     DEFAULT_CHOKE_MM,
     DEFAULT_FILM_DPI,
+    DEFAULT_HIGHLIGHT_MIN_L,
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
@@ -89,11 +90,18 @@ class PrintSize(click.ParamType):
 @click.option("--underbase", is_flag=True, help="Add a white underbase plate (for dark substrates), printed first.")
 @click.option("--choke-mm", type=click.FloatRange(min=0), default=DEFAULT_CHOKE_MM, show_default=True,
               help="How far the underbase is pulled in from the print's edges.")
+@click.option("--base-min-l", type=click.FloatRange(min=0, max=100), default=0.0, show_default=True,
+              metavar="L*", help="Inks darker than this L* get no underbase under them (0: every ink gets one).")
+@click.option("--highlight-white", is_flag=True,
+              help="Add a highlight white plate, printed last, on the inks at least --highlight-min-l light.")
+@click.option("--highlight-min-l", type=click.FloatRange(min=0, max=100), default=DEFAULT_HIGHLIGHT_MIN_L,
+              show_default=True, metavar="L*", help="How light an ink must be to get the highlight white.")
 @click.option("--marks", is_flag=True, help="Add registration marks and a label in a margin around the artwork.")
 @click.option("--margin-mm", type=click.FloatRange(min=1), default=DEFAULT_MARGIN_MM, show_default=True,
               help="Margin width for --marks.")
 @click.option("--order", default=None, metavar="INK,INK,...",
-              help="Print order of the inks by name (default light to dark).")
+              help="Print order of the inks by name (default light to dark); it may also place 'underbase', "
+                   "'flash' and 'highlight white' (default: underbase, flash, inks, highlight white).")
 @click.option("--png", is_flag=True, help="Also write every plate as a 1-bit PNG.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Random seed for fitting and ink search.")
 @click.option("--force", is_flag=True, help="Replace existing files.")
@@ -101,7 +109,7 @@ class PrintSize(click.ParamType):
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
-             min_line_mm, underbase, choke_mm, marks, margin_mm, order, png, seed, force, as_json):
+             min_line_mm, underbase, choke_mm, base_min_l, highlight_white, highlight_min_l, marks, margin_mm, order, png, seed, force, as_json):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
@@ -138,7 +146,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         settings = SeparationSettings(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm,
                                       underbase=underbase, choke_mm=choke_mm, film_dpi=film_dpi,
                                       print_width_mm=print_width, print_height_mm=print_height, mirror=mirror,
-                                      negative=negative)
+                                      negative=negative, base_min_l=base_min_l,
+                                      highlight_white=highlight_white, highlight_min_l=highlight_min_l)
         sep = run(pic, pal, substrate=info["substrate"], order=order_list, settings=settings)
         sep = replace(sep, settings=replace(sep.settings, inks_from=info))
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image],
@@ -159,6 +168,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                f"(size from the {g.size_from}; {doc['settings']['inks_from']['method']})")
     for p in films:
         click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> {written['plates'][p.name][0].name}")
+    if doc["flash_steps"]:
+        click.echo("  sequence: " + ", ".join(sep.sequence))
     if doc["substrate"]:
         click.echo(f"      substrate {doc['substrate']['name']} ({doc['substrate']['hex']}) "
                    f"{doc['substrate']['coverage_percent']:7.2f} %  (no plate)")

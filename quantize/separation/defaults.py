@@ -5,7 +5,7 @@ All are common practice, no source; set them from the shop's screen mesh,
 emulsion and ink.
 """
 
-__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM"]
+__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_HIGHLIGHT_MIN_L", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM"]
 
 #: Smallest printable dot diameter, mm (common practice, no source).
 DEFAULT_MIN_FEATURE_MM = 0.5
@@ -20,3 +20,5 @@ DEFAULT_MARGIN_MM = 10.0
 #: Film resolution, dpi: fine enough that a film pixel (0.042 mm) is well below any printable
 #: detail on a screen (common practice, no source).
 DEFAULT_FILM_DPI = 600.0
+#: Inks at least this light (L*) are printed again by the highlight white; a starting point, no source.
+DEFAULT_HIGHLIGHT_MIN_L = 85.0

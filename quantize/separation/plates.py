@@ -61,11 +61,13 @@ from .defaults import (
     DEFAULT_CHOKE_MM,
     DEFAULT_DPI,
     DEFAULT_FILM_DPI,
+    DEFAULT_HIGHLIGHT_MIN_L,
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
 )
 from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
+from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
@@ -135,6 +137,14 @@ class SeparationSettings:
         Films flipped left to right (read from the emulsion side).
     negative : bool, default False
         Films clear where ink prints, black elsewhere.
+    base_min_l : float, default 0
+        Inks darker than this L* are left off the underbase (0: every ink
+        gets one).
+    highlight_white : bool, default False
+        Add a highlight white plate: the areas of the inks with L* at or
+        above ``highlight_min_l``, printed last.
+    highlight_min_l : float, default 85
+        See ``highlight_white`` (a starting point, no source).
     """
 
     dpi: float | None = None
@@ -152,6 +162,9 @@ class SeparationSettings:
     print_height_mm: float | None = None
     mirror: bool = False
     negative: bool = False
+    base_min_l: float = 0.0
+    highlight_white: bool = False
+    highlight_min_l: float = DEFAULT_HIGHLIGHT_MIN_L
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -210,6 +223,12 @@ class Separation:
         The artwork's height and width in pixels.
     art_dpi : float or None
         The artwork's resolution used.
+    highlight : Plate or None
+        The highlight white, printed last.
+    sequence : tuple of str
+        The print sequence: film names and "flash" steps.
+    base_plan : BasePlan or None
+        What the underbase left out (islands, areas too thin to carry one).
     """
 
     indices: np.ndarray
@@ -230,6 +249,9 @@ class Separation:
     film: FilmGrid | None = None
     art_shape: tuple | None = None
     art_dpi: float | None = None
+    highlight: Plate | None = None
+    sequence: tuple = ()
+    base_plan: BasePlan | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -293,9 +315,13 @@ class Separation:
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
                 "coverage_percent": round(self.substrate_coverage, 4)},
             "inks": inks,
-            "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
+            "print_order": [p.name for p in self.films()],
+            "print_sequence": self.sequence_doc(),
+            "flash_steps": sum(1 for step in self.sequence if step == FLASH),
             "plates": [plate_doc(p) for p in self.plates],
             "underbase": plate_doc(self.underbase) if self.underbase else None,
+            "underbase_report": self.base_plan.to_dict() if self.base_plan is not None else None,
+            "highlight_white": plate_doc(self.highlight) if self.highlight else None,
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "cleanup": self.cleanup.to_dict(),
@@ -417,8 +443,14 @@ class Separation:
                 "pdf": pdf_path if pdf and pages else None}
 
     def films(self) -> list[Plate]:
-        """Every film in print order: the underbase, the inks."""
-        return sorted(([self.underbase] if self.underbase else []) + list(self.plates), key=lambda p: p.order)
+        """Every film in print order: the underbase, the inks, the highlight white."""
+        extra = [p for p in (self.underbase, self.highlight) if p is not None]
+        return sorted(extra + list(self.plates), key=lambda p: p.order)
+
+    def sequence_doc(self) -> list[dict]:
+        """The print sequence as the manifest lists it: one step per film or flash."""
+        return [{"step": i, "flash": True} if name == FLASH else {"step": i, "film": name}
+                for i, name in enumerate(self.sequence, start=1)]
 
 
 def _hex(rgb8) -> str:
@@ -570,10 +602,15 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     cleaned, cleanup = _clean(pic, smp, film_idx, film_op, mapped, sub, min_feature_mm=st.min_feature_mm,
                               dpi=grid.dpi)
     n_opaque = int(film_op.sum())
-    plates = _ink_plates(cleaned, film_op, palette, sub, order=order, first=2 if st.underbase else 1,
-                         notes=notes)
-    ub = _underbase_plate(cleaned, film_op, palette, sub, plates, choke_mm=st.choke_mm, dpi=grid.dpi,
-                          notes=notes) if st.underbase else None
+    ink_order, layout = split_order(order)
+    plates = _ink_plates(cleaned, film_op, palette, sub, order=ink_order, first=1, notes=notes)
+    ub, base_plan = _underbase_plate(cleaned, film_op, palette, sub, plates, st, min_area_px=cleanup.min_area_px,
+                                     dpi=grid.dpi, notes=notes) if st.underbase else (None, None)
+    hl = _highlight_plate(cleaned, film_op, palette, plates, st, min_area_px=cleanup.min_area_px,
+                          notes=notes) if st.highlight_white else None
+    seq = print_sequence([p.name for p in plates], underbase=ub is not None, highlight=hl is not None,
+                         layout=layout)
+    plates, ub, hl = _numbered(seq, plates, ub, hl)
     thin, thin_summary = _thin_detail(plates, min_line_mm=st.min_line_mm, dpi=grid.dpi)
     st = replace(st, dpi=art_dpi, min_area_px=round(cleanup.min_area_px, 3),
                  choke_mm=st.choke_mm if st.underbase else None,
@@ -585,7 +622,8 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, film=grid,
-                      art_shape=tuple(art_idx.shape), art_dpi=art_dpi)
+                      art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),
+                      base_plan=base_plan)
 
 
 # --------------------------------------------------------------------------- the steps of separate
@@ -705,18 +743,52 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
     return plates
 
 
-def _underbase_plate(cleaned, opaque, palette, sub, plates, *, choke_mm, dpi, notes: list) -> Plate:
-    """The white underbase: every printed pixel, choked by ``choke_mm``, printed first."""
-    printed = opaque & (cleaned != sub) if sub is not None else opaque.copy()
-    ub_mask = underbase_mask(printed, mm_to_px(choke_mm, dpi))
-    ub = Plate(name="underbase", index=None, order=1, mask=ub_mask,
-               coverage=float(100.0 * ub_mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
-               lab=np.array([100.0, 0, 0]), slug="underbase")
-    if "underbase" in [p.name.casefold() for p in plates]:
+def _underbase_plate(cleaned, opaque, palette, sub, plates, st, *, min_area_px, dpi,
+                     notes: list) -> tuple[Plate, BasePlan]:
+    """The white underbase under the inks at or above ``st.base_min_l``, choked, printed first."""
+    if UNDERBASE in [p.name.casefold() for p in plates]:
         raise SeparationError("an ink is called 'underbase'; rename it, the underbase plate uses that name")
+    on_base = [p.index for p in plates if palette.lab[p.index, 0] >= st.base_min_l]
+    left_off = [p.name for p in plates if p.index not in on_base]
+    base = np.isin(cleaned, on_base) & opaque
+    plan = underbase_plan(base, choke_px=mm_to_px(st.choke_mm, dpi), min_area_px=min_area_px, dpi=dpi)
+    ub = Plate(name=UNDERBASE, index=None, order=0, mask=plan.mask,
+               coverage=float(100.0 * plan.mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
+               lab=np.array([100.0, 0, 0]), slug="underbase")
+    if left_off:
+        notes.append(f"left off the underbase (L* below {st.base_min_l:g}): {', '.join(left_off)}")
+    if plan.islands_removed:
+        notes.append(f"underbase: {plan.islands_removed} piece(s) smaller than the minimum dot removed")
+    if plan.bare_count:
+        b = plan.bare[0]
+        notes.append(f"warning: {plan.bare_count} printed area(s) are too thin to carry an underbase after the "
+                     f"{st.choke_mm:g} mm choke and print without one; the largest at x {b['x_mm']:.1f} mm, "
+                     f"y {b['y_mm']:.1f} mm ({b['w_mm']:.1f} x {b['h_mm']:.1f} mm); all are in the manifest")
     if sub is not None and palette.lab[sub, 0] > 60:
         notes.append("an underbase on a light substrate is usually not needed")
-    return ub
+    return ub, plan
+
+
+def _highlight_plate(cleaned, opaque, palette, plates, st, *, min_area_px, notes: list) -> Plate | None:
+    """The highlight white: the lightest inks' areas, printed again in white at the end."""
+    if HIGHLIGHT in [p.name.casefold() for p in plates]:
+        raise SeparationError(f"an ink is called {HIGHLIGHT!r}; rename it, the highlight plate uses that name")
+    mask = highlight_mask(cleaned, opaque, palette.lab[:, 0], [p.index for p in plates], min_l=st.highlight_min_l,
+                          min_area_px=min_area_px)
+    if not mask.any():
+        notes.append(f"no ink is as light as L* {st.highlight_min_l:g}: no highlight white plate")
+        return None
+    return Plate(name=HIGHLIGHT, index=None, order=0, mask=mask, coverage=float(100.0 * mask.sum() / int(opaque.sum())),
+                 rgb8=np.array([255, 255, 255], np.uint8), lab=np.array([100.0, 0, 0]), slug="highlight-white")
+
+
+def _numbered(seq: list[str], plates: list[Plate], ub: Plate | None, hl: Plate | None):
+    """The plates numbered by their place in the print sequence (flashes are not films)."""
+    films = [name for name in seq if name != FLASH]
+    pos = {name: i + 1 for i, name in enumerate(films)}
+    plates = sorted((replace(p, order=pos[p.name]) for p in plates), key=lambda p: p.order)
+    return (plates, replace(ub, order=pos[UNDERBASE]) if ub else None,
+            replace(hl, order=pos[HIGHLIGHT]) if hl else None)
 
 
 def _thin_detail(plates, *, min_line_mm, dpi) -> tuple[list, dict]:
