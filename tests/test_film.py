@@ -90,9 +90,9 @@ def test_artwork_dpi_override_is_reported_and_print_size_wins(tmp_path):
     path = tmp_path / "art.png"
     Image.fromarray(img).save(path, dpi=(150, 150))
     pal = _palette(WHITE, RED, BLUE, GOLD)
-    own = separate(path, pal, settings=SeparationSettings(film_dpi=300))
+    own = separate(path, pal, settings=SeparationSettings(film_dpi=300, trap_mm=0))
     assert own.shape == (200, 300) and not any("records" in n for n in own.notes)  # 1 in x 2/3 in at 300 dpi
-    half = separate(path, pal, dpi=300, settings=SeparationSettings(film_dpi=300))
+    half = separate(path, pal, dpi=300, settings=SeparationSettings(film_dpi=300, trap_mm=0))
     assert half.shape == (100, 150)
     assert any("given as 300 dpi; the file records 150 dpi" in n and "25.4 x 16.9 mm" in n for n in half.notes)
     sized = separate(path, pal, dpi=300, settings=SeparationSettings(film_dpi=300, print_width_mm=25.4))
@@ -105,7 +105,7 @@ def test_artwork_dpi_override_is_reported_and_print_size_wins(tmp_path):
 def test_resampled_plates_stay_disjoint_and_cover_the_printed_area():
     img = _three_inks()
     sep = separate(img, _palette(WHITE, RED, BLUE, GOLD), dpi=150,
-                   settings=SeparationSettings(film_dpi=600, min_feature_mm=0))
+                   settings=SeparationSettings(film_dpi=600, trap_mm=0, min_feature_mm=0))
     masks = np.stack([p.mask for p in sep.plates]).astype(int)
     assert (masks.sum(axis=0) <= 1).all()
     assert ((masks.sum(axis=0) == 1) == (sep.indices != sep.substrate)).all()
@@ -170,7 +170,7 @@ def test_mirrored_and_negative_films(tmp_path):
 def test_pdf_has_one_page_per_film_with_marks_and_label(tmp_path):
     img = _three_inks()
     sep = separate(img, _palette(WHITE, RED, BLUE, GOLD), dpi=150, underbase=True,
-                   settings=SeparationSettings(film_dpi=300))
+                   settings=SeparationSettings(film_dpi=300, trap_mm=0))
     written = sep.write(tmp_path, stem="job", marks=True, job="Spring tee", date="2026-12-04")
     pdf = written["pdf"].read_bytes()
     assert pdf.startswith(b"%PDF") and len(_media_boxes_mm(pdf)) == 4  # underbase + three inks

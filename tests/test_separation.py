@@ -44,8 +44,8 @@ def artwork():
 @pytest.fixture(scope="module")
 def separation(artwork):
     img, pal, _ = artwork
-    # Films at the artwork's own resolution: the film grid is the artwork's, pixel for pixel.
-    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3, settings=SeparationSettings(film_dpi=300))
+    # Films at the artwork's own resolution: the film grid is the artwork's, pixel for pixel; butt joins.
+    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3, settings=SeparationSettings(film_dpi=300, trap_mm=0))
 
 
 # --------------------------------------------------------------------------- plates
@@ -507,7 +507,7 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
     img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
     pal = _palette(*inks.values(), names=tuple(inks))
-    sep = separate(img, pal, dpi=dpi, underbase=True, settings=SeparationSettings(film_dpi=dpi))
+    sep = separate(img, pal, dpi=dpi, underbase=True, settings=SeparationSettings(film_dpi=dpi, trap_mm=0))
     doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
 
     lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}

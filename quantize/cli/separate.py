@@ -21,6 +21,7 @@ from quantize.separation.defaults import (
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
+    DEFAULT_TRAP_MM,
 )
 
 from ._common import _run
@@ -96,6 +97,12 @@ class PrintSize(click.ParamType):
               help="Add a highlight white plate, printed last, on the inks at least --highlight-min-l light.")
 @click.option("--highlight-min-l", type=click.FloatRange(min=0, max=100), default=DEFAULT_HIGHLIGHT_MIN_L,
               show_default=True, metavar="L*", help="How light an ink must be to get the highlight white.")
+@click.option("--trap", "trap_mm", type=click.FloatRange(min=0), default=DEFAULT_TRAP_MM, show_default=True,
+              metavar="MM", help="Where two inks meet, the lighter spreads this far under the darker (0: butt joins).")
+@click.option("--trap-pair", "trap_pairs", multiple=True, metavar="INK/INK=MM",
+              help="A trap width for one pair of inks, e.g. 'Gold/Navy=0.3' (repeatable).")
+@click.option("--overprint", multiple=True, metavar="INK",
+              help="A keyline ink that overprints: the inks beside it continue under it (repeatable).")
 @click.option("--marks", is_flag=True, help="Add registration marks and a label in a margin around the artwork.")
 @click.option("--margin-mm", type=click.FloatRange(min=1), default=DEFAULT_MARGIN_MM, show_default=True,
               help="Margin width for --marks.")
@@ -109,7 +116,8 @@ class PrintSize(click.ParamType):
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
-             min_line_mm, underbase, choke_mm, base_min_l, highlight_white, highlight_min_l, marks, margin_mm, order, png, seed, force, as_json):
+             min_line_mm, underbase, choke_mm, base_min_l, highlight_white, highlight_min_l, trap_mm, trap_pairs,
+             overprint, marks, margin_mm, order, png, seed, force, as_json):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
@@ -130,6 +138,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     if print_width is not None and print_height is not None:
         raise click.UsageError("give --print-width or --print-height, not both (the other follows the artwork)")
     order_list = [s.strip() for s in order.split(",") if s.strip()] if order else None
+    pairs = tuple(_trap_pair(t) for t in trap_pairs)
 
     def work():
         from quantize.io.read import load_image
@@ -147,7 +156,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                                       underbase=underbase, choke_mm=choke_mm, film_dpi=film_dpi,
                                       print_width_mm=print_width, print_height_mm=print_height, mirror=mirror,
                                       negative=negative, base_min_l=base_min_l,
-                                      highlight_white=highlight_white, highlight_min_l=highlight_min_l)
+                                      highlight_white=highlight_white, highlight_min_l=highlight_min_l,
+                                      trap_mm=trap_mm, trap_pairs=pairs, overprint=tuple(overprint))
         sep = run(pic, pal, substrate=info["substrate"], order=order_list, settings=settings)
         sep = replace(sep, settings=replace(sep.settings, inks_from=info))
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image],
@@ -194,6 +204,19 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     extra = f", {written['pdf'].name}" if written["pdf"] else ""
     click.echo(f"wrote {n_files} film file(s){extra}, {written['composite'].name} and {written['manifest']}")
     click.echo(f"done in {time.perf_counter() - t0:.2f} s")
+
+
+def _trap_pair(text: str) -> tuple[str, str, float]:
+    """``'Gold/Navy=0.3'`` -> ``("Gold", "Navy", 0.3)``."""
+    names, eq, width = text.rpartition("=")
+    a, slash, b = names.partition("/")
+    try:
+        mm = float(width)
+    except ValueError:
+        mm = -1.0
+    if not (eq and slash and a.strip() and b.strip()) or not mm >= 0:
+        raise click.BadParameter(f"{text!r}: write INK/INK=MM, e.g. 'Gold/Navy=0.3'", param_hint="--trap-pair")
+    return a.strip(), b.strip(), mm
 
 
 if __name__ == "__main__":  # pragma: no cover

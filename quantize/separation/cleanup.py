@@ -13,6 +13,8 @@ import numpy as np
 
 from quantize.core.units import px_to_mm
 
+from .distance import distance_to_edge
+
 __all__ = ["CleanupReport", "clean_small_regions", "find_thin_features", "underbase_mask"]
 
 
@@ -296,12 +298,10 @@ def underbase_mask(printed: np.ndarray, choke_px: float) -> np.ndarray:
     """The underbase: printed areas pulled back ``choke_px`` pixels from their edges.
 
     A pixel is kept when its centre is more than ``choke_px`` from the edge
-    of the printed area; outside the image counts as unprinted. The edge
-    runs along pixel sides, half a pixel beyond the centre of the nearest
-    unprinted pixel, so the distance to it is the Euclidean distance to that
-    centre (:func:`scipy.ndimage.distance_transform_edt`) less half a pixel.
-    A straight edge is pulled back by ``round(choke_px)`` pixels, the
-    nearest the film grid can hold: within half a pixel of the request.
+    of the printed area (:func:`quantize.separation.distance.distance_to_edge`);
+    outside the image counts as unprinted. An edge along a row or column is
+    pulled back by ``round(choke_px)`` pixels, the nearest the film grid can
+    hold: within half a pixel of the request.
 
     Examples
     --------
@@ -312,10 +312,8 @@ def underbase_mask(printed: np.ndarray, choke_px: float) -> np.ndarray:
     >>> underbase_mask(p.repeat(12, axis=0), 2.6)[6].astype(int).tolist()
     [0, 0, 0, 0, 1, 1, 1, 1, 0, 0, 0, 0]
     """
-    from scipy import ndimage as ndi
-
     p = np.asarray(printed, bool)
-    if choke_px <= 0:
+    if choke_px <= 0 or not p.any():
         return p.copy()
-    dist = ndi.distance_transform_edt(np.pad(p, 1))[1:-1, 1:-1]
-    return p & (dist - 0.5 > choke_px)
+    dist = distance_to_edge(np.pad(p, 1))[1:-1, 1:-1]
+    return p & (dist > choke_px)

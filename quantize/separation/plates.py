@@ -65,8 +65,10 @@ from .defaults import (
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
+    DEFAULT_TRAP_MM,
 )
 from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
+from .trap import trap_plates
 from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
 
 __all__ = [
@@ -88,7 +90,7 @@ class Plate:
     index: int | None  # palette index; None for the underbase
     order: int  # 1 = printed first
     mask: np.ndarray
-    coverage: float  # percent of the artwork's opaque pixels
+    coverage: float  # percent of the opaque film pixels where this ink shows (knocked out: traps not counted)
     rgb8: np.ndarray
     lab: np.ndarray
     slug: str = ""
@@ -145,6 +147,14 @@ class SeparationSettings:
         above ``highlight_min_l``, printed last.
     highlight_min_l : float, default 85
         See ``highlight_white`` (a starting point, no source).
+    trap_mm : float, default 0.15
+        Where two inks meet, the lighter spreads this far under the darker
+        (common practice, from memory; 0: butt joins).
+    trap_pairs : tuple of (str, str, float)
+        Ink pairs (by name) with their own trap width in mm.
+    overprint : tuple of str
+        Keyline inks that overprint: the inks beside them continue under
+        them, and they do not trap.
     """
 
     dpi: float | None = None
@@ -165,6 +175,9 @@ class SeparationSettings:
     base_min_l: float = 0.0
     highlight_white: bool = False
     highlight_min_l: float = DEFAULT_HIGHLIGHT_MIN_L
+    trap_mm: float = DEFAULT_TRAP_MM
+    trap_pairs: tuple = ()
+    overprint: tuple = ()
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -229,6 +242,9 @@ class Separation:
         The print sequence: film names and "flash" steps.
     base_plan : BasePlan or None
         What the underbase left out (islands, areas too thin to carry one).
+    traps : tuple of dict
+        Every trapped join (``lighter``, ``darker``, ``width_mm``,
+        ``pixels`` added) and keyline fill (``overprint``, ``under``).
     """
 
     indices: np.ndarray
@@ -252,6 +268,7 @@ class Separation:
     highlight: Plate | None = None
     sequence: tuple = ()
     base_plan: BasePlan | None = None
+    traps: tuple = ()
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -322,6 +339,7 @@ class Separation:
             "underbase": plate_doc(self.underbase) if self.underbase else None,
             "underbase_report": self.base_plan.to_dict() if self.base_plan is not None else None,
             "highlight_white": plate_doc(self.highlight) if self.highlight else None,
+            "traps": list(self.traps),
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "cleanup": self.cleanup.to_dict(),
@@ -604,6 +622,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     n_opaque = int(film_op.sum())
     ink_order, layout = split_order(order)
     plates = _ink_plates(cleaned, film_op, palette, sub, order=ink_order, first=1, notes=notes)
+    plates, traps = _trapped(cleaned, film_op, palette, plates, st, dpi=grid.dpi, notes=notes)
     ub, base_plan = _underbase_plate(cleaned, film_op, palette, sub, plates, st, min_area_px=cleanup.min_area_px,
                                      dpi=grid.dpi, notes=notes) if st.underbase else (None, None)
     hl = _highlight_plate(cleaned, film_op, palette, plates, st, min_area_px=cleanup.min_area_px,
@@ -623,7 +642,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, film=grid,
                       art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),
-                      base_plan=base_plan)
+                      base_plan=base_plan, traps=tuple(traps))
 
 
 # --------------------------------------------------------------------------- the steps of separate
@@ -638,6 +657,14 @@ def _check_settings(st: SeparationSettings) -> None:
         v = getattr(st, nm)
         if v is not None and not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
             raise SeparationError(f"{nm} must be positive, got {v!r}")
+    for nm in ("trap_mm", "base_min_l", "highlight_min_l"):
+        v = getattr(st, nm)
+        if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
+            raise SeparationError(f"{nm} must be 0 or more, got {v!r}")
+    for pair in st.trap_pairs:
+        if not (isinstance(pair, (tuple, list)) and len(pair) == 3 and isinstance(pair[2], (int, float))
+                and math.isfinite(pair[2]) and pair[2] >= 0):
+            raise SeparationError(f"a trap pair is (ink, ink, width in mm of 0 or more), got {pair!r}")
     if not (isinstance(st.film_dpi, (int, float)) and math.isfinite(st.film_dpi) and 10 <= st.film_dpi <= 10000):
         raise SeparationError(f"film_dpi must be between 10 and 10000, got {st.film_dpi!r}")
 
@@ -741,6 +768,44 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
         plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
                             rgb8=palette.rgb8[i], lab=palette.lab[i], slug=sl))
     return plates
+
+
+def _trapped(cleaned, opaque, palette, plates, st, *, dpi, notes: list) -> tuple[list[Plate], list[dict]]:
+    """The ink plates with their traps and keyline fills (see :mod:`quantize.separation.trap`)."""
+    by_name = {p.name.casefold(): p.index for p in plates}
+    by_name.update({palette.hex[p.index]: p.index for p in plates})
+
+    def ink(name) -> int:
+        i = by_name.get(str(name).strip().casefold())
+        if i is None:
+            raise SeparationError(f"trap: {name!r} is not a printed ink; printed inks are "
+                                  + ", ".join(p.name for p in plates))
+        return i
+
+    pair_px = {}
+    for a, b, mm in st.trap_pairs:
+        ia, ib = ink(a), ink(b)
+        if ia == ib:
+            raise SeparationError(f"trap: a pair needs two inks, got {a!r} twice")
+        pair_px[frozenset((ia, ib))] = mm_to_px(mm, dpi)
+    keys = tuple(ink(k) for k in st.overprint)
+    res = trap_plates(cleaned, opaque, [p.index for p in plates], palette.lab[:, 0], width_px=mm_to_px(st.trap_mm, dpi),
+                      pair_px=pair_px, overprint=keys)
+    # Coverage stays the knock-out share (the plates and the substrate sum to 100 %); the trap is on the film.
+    plates = [replace(p, mask=res.masks[p.index]) for p in plates]
+    name = {p.index: p.name for p in plates}
+    pos = {p.index: p.order for p in plates}
+    joins = []
+    for j in res.joins:
+        if "overprint" in j:
+            joins.append({"overprint": name[j["overprint"]], "under": name[j["under"]], "pixels": j["pixels"]})
+            continue
+        joins.append({"lighter": name[j["lighter"]], "darker": name[j["darker"]],
+                      "width_mm": round(px_to_mm(j["width_px"], dpi), 4), "pixels": j["pixels"]})
+        if pos[j["lighter"]] > pos[j["darker"]]:
+            notes.append(f"trap: {name[j['lighter']]} spreads under {name[j['darker']]} but prints after it, "
+                         "so the spread shows on top; print the lighter ink first or set that pair's trap to 0")
+    return plates, joins
 
 
 def _underbase_plate(cleaned, opaque, palette, sub, plates, st, *, min_area_px, dpi,
