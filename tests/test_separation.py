@@ -82,7 +82,9 @@ def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
     img, pal, _ = artwork
     mapped = map_picture(img, pal, metric="ciede2000")
     changed = (mapped.indices != separation.indices).sum()
-    assert changed == separation.cleanup.pixels_changed > 0  # JPEG noise specks were merged
+    assert separation.cleanup.pixels_changed > 0  # JPEG noise specks were merged
+    # Every change is a merge or a thickened line or grown element, and they are few.
+    assert changed <= separation.cleanup.pixels_changed + separation.detail.pixels_added
     assert changed < 0.02 * mapped.indices.size
 
 
@@ -379,7 +381,7 @@ def test_cli_defaults_match_the_library():
     library = {f.name: f.default for f in fields(SeparationSettings)}
     library["margin_mm"] = inspect.signature(Separation.write).parameters["margin_mm"].default
     for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm", "film_dpi", "base_min_l",
-                 "highlight_min_l"):
+                 "highlight_min_l", "trap_mm", "keep_detail", "keep_fraction"):
         assert options[name] == library[name], name
 
 
@@ -507,7 +509,9 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
     img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
     pal = _palette(*inks.values(), names=tuple(inks))
-    sep = separate(img, pal, dpi=dpi, underbase=True, settings=SeparationSettings(film_dpi=dpi, trap_mm=0))
+    # Merging alone (keep_detail off): the thin gold line stays as drawn, to be reported.
+    sep = separate(img, pal, dpi=dpi, underbase=True,
+                   settings=SeparationSettings(film_dpi=dpi, trap_mm=0, keep_detail=False))
     doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
 
     lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}
@@ -562,7 +566,7 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     assert doc["settings"] | {"min_area_px": 0} == doc["settings"] | {
         "dpi": dpi, "min_feature_mm": 0.5, "min_area_px": 0, "min_line_mm": 0.35, "underbase": True,
         "choke_mm": 0.25, "order": "light to dark", "mapping": "nearest by ΔE00", "palette_fit": {},
-        "film_dpi": dpi}
+        "film_dpi": dpi, "keep_detail": False}
     assert doc["settings"]["min_area_px"] == pytest.approx(min_area, abs=1e-3)
     assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
         ("quantize.separation.plates", 1, "job-composite.png", 0)

@@ -97,7 +97,7 @@ def test_islands_below_the_minimum_dot_are_removed_and_thin_areas_reported(tmp_p
     img[(yy - 90) ** 2 + (xx - 40) ** 2 <= 3 ** 2] = WHITE  # a dot 7 px = 0.59 mm across at 300 dpi
     img[10:110, 150:152] = WHITE  # a line 2 px = 0.17 mm wide, at x = 12.7 mm
     sep = separate(img, _palette(BLACK, WHITE, names=("shirt", "White")), dpi=300, underbase=True,
-                   choke_mm=0.1, settings=SeparationSettings(film_dpi=600, min_feature_mm=0.5))
+                   choke_mm=0.1, settings=SeparationSettings(film_dpi=600, min_feature_mm=0.5, keep_detail=False))
     films, written = _films(sep, tmp_path)
     base = films["underbase"]
     from skimage.measure import label

@@ -18,6 +18,7 @@ from quantize.separation.defaults import (
     DEFAULT_CHOKE_MM,
     DEFAULT_FILM_DPI,
     DEFAULT_HIGHLIGHT_MIN_L,
+    DEFAULT_KEEP_FRACTION,
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
@@ -87,7 +88,14 @@ class PrintSize(click.ParamType):
 @click.option("--min-feature-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
               help="Smallest printable dot diameter; smaller areas are merged into a neighbour (0: off).")
 @click.option("--min-line-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_LINE_MM, show_default=True,
-              help="Thinner lines and knock-out gaps are reported with their location (0: off).")
+              help="Thinner lines are thickened to it where there is room; what stays thinner, and knock-out "
+                   "gaps, are reported with their location (0: off).")
+@click.option("--keep-detail/--merge-only", default=True, show_default=True,
+              help="Thicken thin lines to --min-line-mm and grow small elements to the minimum dot where there "
+                   "is room, before merging what is left; --merge-only merges every small area.")
+@click.option("--keep-fraction", type=click.FloatRange(min=0, max=1), default=DEFAULT_KEEP_FRACTION,
+              show_default=True, help="Small elements of at least this fraction of the minimum dot are grown; "
+                                      "smaller ones are dropped whole, with a warning.")
 @click.option("--underbase", is_flag=True, help="Add a white underbase plate (for dark substrates), printed first.")
 @click.option("--choke-mm", type=click.FloatRange(min=0), default=DEFAULT_CHOKE_MM, show_default=True,
               help="How far the underbase is pulled in from the print's edges.")
@@ -116,7 +124,7 @@ class PrintSize(click.ParamType):
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
-             min_line_mm, underbase, choke_mm, base_min_l, highlight_white, highlight_min_l, trap_mm, trap_pairs,
+             min_line_mm, keep_detail, keep_fraction, underbase, choke_mm, base_min_l, highlight_white, highlight_min_l, trap_mm, trap_pairs,
              overprint, marks, margin_mm, order, png, seed, force, as_json):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
@@ -157,7 +165,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                                       print_width_mm=print_width, print_height_mm=print_height, mirror=mirror,
                                       negative=negative, base_min_l=base_min_l,
                                       highlight_white=highlight_white, highlight_min_l=highlight_min_l,
-                                      trap_mm=trap_mm, trap_pairs=pairs, overprint=tuple(overprint))
+                                      trap_mm=trap_mm, trap_pairs=pairs, overprint=tuple(overprint),
+                                      keep_detail=keep_detail, keep_fraction=keep_fraction)
         sep = run(pic, pal, substrate=info["substrate"], order=order_list, settings=settings)
         sep = replace(sep, settings=replace(sep.settings, inks_from=info))
         written = sep.write(outdir, force=force, png=png, marks=marks, margin_mm=margin_mm, inputs=[image],

@@ -5,7 +5,7 @@ All are common practice, no source; set them from the shop's screen mesh,
 emulsion and ink.
 """
 
-__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_HIGHLIGHT_MIN_L", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM",
+__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_HIGHLIGHT_MIN_L", "DEFAULT_KEEP_FRACTION", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM",
            "DEFAULT_TRAP_MM"]
 
 #: Smallest printable dot diameter, mm (common practice, no source).
@@ -26,3 +26,6 @@ DEFAULT_HIGHLIGHT_MIN_L = 85.0
 #: Trap width, mm: how far a lighter ink spreads under a darker one where they meet
 #: (common practice, from memory: a few tenths of a millimetre or less; set it from the press's registration).
 DEFAULT_TRAP_MM = 0.15
+#: Small elements of at least this fraction of the minimum dot's area are grown to it, smaller ones
+#: dropped whole; a starting point, no source.
+DEFAULT_KEEP_FRACTION = 0.5

@@ -53,7 +53,7 @@ from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
 from .choice import _picture, with_substrate
-from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
+from .cleanup import CleanupReport, DetailReport, clean_small_regions, find_thin_features, keep_detail
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
@@ -62,6 +62,7 @@ from .defaults import (
     DEFAULT_DPI,
     DEFAULT_FILM_DPI,
     DEFAULT_HIGHLIGHT_MIN_L,
+    DEFAULT_KEEP_FRACTION,
     DEFAULT_MARGIN_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
@@ -155,6 +156,13 @@ class SeparationSettings:
     overprint : tuple of str
         Keyline inks that overprint: the inks beside them continue under
         them, and they do not trap.
+    keep_detail : bool, default True
+        Before small regions are merged, thicken thin lines to
+        ``min_line_mm`` and grow small elements to the minimum dot where
+        there is room (:func:`quantize.separation.cleanup.keep_detail`).
+    keep_fraction : float, default 0.5
+        Small elements of at least this fraction of the minimum dot's area
+        are grown; smaller ones are dropped whole (a starting point, no source).
     """
 
     dpi: float | None = None
@@ -178,6 +186,8 @@ class SeparationSettings:
     trap_mm: float = DEFAULT_TRAP_MM
     trap_pairs: tuple = ()
     overprint: tuple = ()
+    keep_detail: bool = True
+    keep_fraction: float = DEFAULT_KEEP_FRACTION
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -245,6 +255,9 @@ class Separation:
     traps : tuple of dict
         Every trapped join (``lighter``, ``darker``, ``width_mm``,
         ``pixels`` added) and keyline fill (``overprint``, ``under``).
+    detail : DetailReport or None
+        Thin lines thickened and small elements grown before the clean-up
+        merged the rest (None when ``keep_detail`` is off).
     """
 
     indices: np.ndarray
@@ -269,6 +282,7 @@ class Separation:
     sequence: tuple = ()
     base_plan: BasePlan | None = None
     traps: tuple = ()
+    detail: DetailReport | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -340,6 +354,7 @@ class Separation:
             "underbase_report": self.base_plan.to_dict() if self.base_plan is not None else None,
             "highlight_white": plate_doc(self.highlight) if self.highlight else None,
             "traps": list(self.traps),
+            "detail": None if self.detail is None else _detail_doc(self.detail, self.palette, self.dpi),
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "cleanup": self.cleanup.to_dict(),
@@ -617,8 +632,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     art_idx = mapped.indices
     grid = _film_grid(pic, art_dpi, st, notes)
     film_idx, film_op = resample_indices(art_idx, pic.opaque, grid.shape, fill=0 if sub is None else sub)
-    cleaned, cleanup = _clean(pic, smp, film_idx, film_op, mapped, sub, min_feature_mm=st.min_feature_mm,
-                              dpi=grid.dpi)
+    cleaned, cleanup, detail = _clean(pic, smp, film_idx, film_op, mapped, sub, st, dpi=grid.dpi, notes=notes)
     n_opaque = int(film_op.sum())
     ink_order, layout = split_order(order)
     plates = _ink_plates(cleaned, film_op, palette, sub, order=ink_order, first=1, notes=notes)
@@ -642,7 +656,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, film=grid,
                       art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),
-                      base_plan=base_plan, traps=tuple(traps))
+                      base_plan=base_plan, traps=tuple(traps), detail=detail)
 
 
 # --------------------------------------------------------------------------- the steps of separate
@@ -726,8 +740,10 @@ def _resolve_dpi(pic, dpi, notes: list) -> float:
     return DEFAULT_DPI
 
 
-def _clean(pic, smp, film_idx, film_op, mapped, sub, *, min_feature_mm, dpi) -> tuple[np.ndarray, CleanupReport]:
-    """Merge the film regions smaller than a dot of ``min_feature_mm``; refuse a clean-up that erases the print."""
+def _clean(pic, smp, film_idx, film_op, mapped, sub, st, *, dpi,
+           notes: list) -> tuple[np.ndarray, CleanupReport, DetailReport | None]:
+    """Keep the detail that can be kept, merge the rest below the minimum dot; refuse a clean-up that erases the print."""
+    min_feature_mm = st.min_feature_mm
     n_opaque = int(film_op.sum())
     ink_lab = mapped.palette.lab
     d_px = mm_to_px(min_feature_mm, dpi)
@@ -736,15 +752,48 @@ def _clean(pic, smp, film_idx, film_op, mapped, sub, *, min_feature_mm, dpi) -> 
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
                               f"{dpi:g} dpi) is larger than the whole print ({n_opaque} px): it would erase it")
     printed_before = int((film_op & (film_idx != sub)).sum()) if sub is not None else n_opaque
+    inks = [int(i) for i in np.unique(film_idx[film_op]) if i != sub]
+    detail = None
+    if st.keep_detail:
+        film_idx, detail = keep_detail(film_idx, film_op, inks, min_area=min_area,
+                                       line_px=mm_to_px(st.min_line_mm, dpi), keep_fraction=st.keep_fraction)
+        _detail_notes(detail, mapped.palette, dpi, min_feature_mm, notes)
     cleaned, report = clean_small_regions(film_idx, ink_lab, min_area=min_area, opaque=film_op)
     printed_after = film_op & (cleaned != sub) if sub is not None else film_op
     if printed_before and not printed_after.any():
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
                               f"{dpi:g} dpi) would erase the image: every printed area is smaller than that")
+    lost = [_ink_name(mapped.palette, i) for i in inks if not ((cleaned == i) & film_op).any()]
+    if lost:
+        notes.append(f"warning: the clean-up removed every area of {', '.join(lost)} (all smaller than the "
+                     f"{min_feature_mm:g} mm minimum dot): no plate for it; lower the minimum feature to keep it")
     at_art = sample_at_artwork(cleaned, pic.opaque.shape)
     report = replace(report, min_feature_mm=min_feature_mm, delta_e_before=mapped.delta_e,
                      delta_e_after=_source_delta_e(smp, at_art, ink_lab))
-    return cleaned, report
+    return cleaned, report, detail
+
+
+def _detail_notes(detail: DetailReport, palette, dpi: float, min_feature_mm: float, notes: list) -> None:
+    if detail.lines_thickened or detail.elements_grown:
+        notes.append(f"kept detail: {detail.lines_thickened} thin line part(s) thickened and "
+                     f"{detail.elements_grown} small element(s) grown to the minimum "
+                     f"({detail.pixels_added} film pixels)")
+    if detail.dropped_count:
+        d = detail.dropped[0]
+        notes.append(f"warning: {detail.dropped_count} small element(s) below the {min_feature_mm:g} mm minimum dot "
+                     f"are dropped whole (merged into a neighbour); the largest, {_ink_name(palette, d['ink'])}, at "
+                     f"x {px_to_mm(d['x'], dpi):.1f} mm, y {px_to_mm(d['y'], dpi):.1f} mm "
+                     f"({px_to_mm(d['w'], dpi):.1f} x {px_to_mm(d['h'], dpi):.1f} mm); the manifest lists them")
+
+
+def _detail_doc(detail: DetailReport, palette, dpi: float) -> dict:
+    def mm(v):
+        return round(px_to_mm(v, dpi), 3)
+
+    return {"lines_thickened": detail.lines_thickened, "elements_grown": detail.elements_grown,
+            "pixels_added": detail.pixels_added, "dropped_count": detail.dropped_count,
+            "dropped": [{"ink": _ink_name(palette, d["ink"]), "pixels": d["pixels"], "x_mm": mm(d["x"]),
+                         "y_mm": mm(d["y"]), "w_mm": mm(d["w"]), "h_mm": mm(d["h"])} for d in detail.dropped]}
 
 
 def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list) -> list[Plate]:
