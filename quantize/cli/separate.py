@@ -187,6 +187,11 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                f"(size from the {g.size_from}; {doc['settings']['inks_from']['method']})")
     for p in films:
         click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> {written['plates'][p.name][0].name}")
+        g = (sep.guidance or {}).get(p.name)
+        if g and g["pieces"]:
+            line = f"line {g['smallest_line_mm']:.2f} mm, " if g["smallest_line_mm"] is not None else ""
+            click.echo(f"      smallest dot {g['smallest_dot_mm']:.2f} mm, {line}screen area {g['area_cm2']:.1f} cm², "
+                       f"mesh about {g['mesh']['threads_per_inch']} threads/in (common practice)")
     if doc["flash_steps"]:
         click.echo("  sequence: " + ", ".join(sep.sequence))
     if doc["substrate"]:
@@ -205,6 +210,9 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         for item in sep.thin[:5]:
             click.echo(f"  {item['kind']:<4} {item['ink']}: at x {item['x_mm']:.1f} mm, y {item['y_mm']:.1f} mm, "
                        f"{item['w_mm']:.1f} x {item['h_mm']:.1f} mm, about {item['width_mm']:.2f} mm wide")
+    if sep.traps:
+        n_traps = sum(1 for t in sep.traps if "lighter" in t)
+        click.echo(f"traps: {n_traps} join(s), lighter under darker; {len(sep.traps) - n_traps} keyline fill(s)")
     d = sep.delta_e
     click.echo(f"ΔE00 to the source: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
     for note in notes:
@@ -212,6 +220,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     n_files = sum(len(v) for v in written["plates"].values())
     extra = f", {written['pdf'].name}" if written["pdf"] else ""
     click.echo(f"wrote {n_files} film file(s){extra}, {written['composite'].name} and {written['manifest']}")
+    click.echo("caution: sizes, meshes and ΔE are computed from file data; proof physically and follow the "
+               "shop's own standards before a production run")
     click.echo(f"done in {time.perf_counter() - t0:.2f} s")
 
 

@@ -69,6 +69,7 @@ from .defaults import (
     DEFAULT_TRAP_MM,
 )
 from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
+from .guidance import MESH_RULE, plate_guidance
 from .trap import trap_plates
 from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
 
@@ -258,6 +259,10 @@ class Separation:
     detail : DetailReport or None
         Thin lines thickened and small elements grown before the clean-up
         merged the rest (None when ``keep_detail`` is off).
+    guidance : dict or None
+        Film name -> smallest dot and line, area in cm² and a mesh
+        suggestion, measured on the film
+        (:func:`quantize.separation.guidance.plate_guidance`).
     """
 
     indices: np.ndarray
@@ -283,6 +288,7 @@ class Separation:
     base_plan: BasePlan | None = None
     traps: tuple = ()
     detail: DetailReport | None = None
+    guidance: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -355,6 +361,10 @@ class Separation:
             "highlight_white": plate_doc(self.highlight) if self.highlight else None,
             "traps": list(self.traps),
             "detail": None if self.detail is None else _detail_doc(self.detail, self.palette, self.dpi),
+            "guidance": None if self.guidance is None else {
+                "films": self.guidance, "mesh_rule": MESH_RULE,
+                "caution": "a starting point measured on the films; the shop's screens, emulsion, inks and a "
+                           "physical proof decide"},
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "cleanup": self.cleanup.to_dict(),
@@ -656,7 +666,9 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, film=grid,
                       art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),
-                      base_plan=base_plan, traps=tuple(traps), detail=detail)
+                      base_plan=base_plan, traps=tuple(traps), detail=detail,
+                      guidance={p.name: plate_guidance(p.mask, grid.dpi, white=p.index is None)
+                                for p in sorted([*plates, *(x for x in (ub, hl) if x)], key=lambda p: p.order)})
 
 
 # --------------------------------------------------------------------------- the steps of separate
