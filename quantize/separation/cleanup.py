@@ -363,14 +363,24 @@ def _opening(m: np.ndarray, r: int) -> np.ndarray:
     return ndi.distance_transform_edt(~eroded) <= r
 
 
-def _room(idx: np.ndarray, op: np.ndarray, r: int) -> np.ndarray:
-    """Pixels that can be given to another ink: inside a solid part (a disk of radius ``r`` fits) of their colour."""
+def _room(idx: np.ndarray, op: np.ndarray, r: int) -> tuple[np.ndarray, dict]:
+    """Pixels that can be given to another ink: inside a solid part (a disk of radius ``r`` fits) of their colour.
+
+    Also returns each colour's thin part (its pixels outside that solid part).
+    """
     room = np.zeros(idx.shape, bool)
+    thin = {}
     for c in np.unique(idx[op]):
         m = (idx == c) & op
-        opened = _opening(np.pad(m, r + 2), r)
-        room |= opened[r + 2:-(r + 2), r + 2:-(r + 2)] & m
-    return room
+        rows, cols = np.flatnonzero(m.any(axis=1)), np.flatnonzero(m.any(axis=0))
+        # The colour's box with a margin (where the pixels around a thin part lie).
+        box = (slice(max(int(rows[0]) - r - 2, 0), int(rows[-1]) + r + 3),
+               slice(max(int(cols[0]) - r - 2, 0), int(cols[-1]) + r + 3))
+        opened = _opening(np.pad(m[box], r + 2), r)  # outside the image counts as another colour
+        solid = opened[r + 2:-(r + 2), r + 2:-(r + 2)] & m[box]
+        room[box] |= solid
+        thin[int(c)] = (box, m[box] & ~solid)
+    return room, thin
 
 
 def keep_detail(indices: np.ndarray, opaque: np.ndarray, printed: list[int], *, min_area: float, line_px: float,
@@ -430,30 +440,39 @@ def keep_detail(indices: np.ndarray, opaque: np.ndarray, printed: list[int], *, 
     r = (n - 1) // 2
     lines = grown = added = 0
     if r >= 1:
-        room = _room(idx, op, r)
+        room, thin_parts = _room(idx, op, r)
         for i in printed:
-            m = (idx == i) & op
-            if not m.any():
+            if i not in thin_parts:
                 continue
-            opened = _opening(np.pad(m, r + 2), r)
-            thin = m & ~opened[r + 2:-(r + 2), r + 2:-(r + 2)]
+            box, thin = thin_parts[i]
+            thin = thin & (idx[box] == i)  # less what an earlier line took
             lab, count = label(thin, connectivity=2, return_num=True)
             if count == 0:
                 continue
+            m = (idx[box] == i) & op[box]
             area = np.bincount(lab.ravel(), minlength=count + 1)
-            keep = (area >= n) & _on_one_colour(lab, count, idx, op, m)  # corners a disk misses are smaller
+            keep = (area >= n) & _on_one_colour(lab, count, idx[box], op[box], m)  # corners a disk misses are smaller
             keep[0] = False
             parts = keep[lab]
             if not parts.any():
                 continue
-            band = distance_to_edge(~skeletonize(parts)) <= (n - 1) / 2.0 + 1e-9
-            take = band & room & op & ~m
-            idx[take] = i
-            room &= ~take
+            # The line redrawn n wide around its skeleton, in a window around the parts only.
+            rows, cols = np.flatnonzero(parts.any(axis=1)), np.flatnonzero(parts.any(axis=0))
+            y0, x0 = box[0].start + int(rows[0]) - n, box[1].start + int(cols[0]) - n
+            y0, x0 = max(y0, 0), max(x0, 0)
+            win = (slice(y0, box[0].start + int(rows[-1]) + n + 1), slice(x0, box[1].start + int(cols[-1]) + n + 1))
+            full = np.zeros(idx.shape, bool)
+            full[box] = parts
+            band = distance_to_edge(~skeletonize(full[win])) <= (n - 1) / 2.0 + 1e-9
+            take = band & room[win] & op[win] & (idx[win] != i)
+            idx[win][take] = i
+            room[win] &= ~take
             lines += int(keep.sum())
             added += int(take.sum())
-    idx, grown_n, grown_px, dropped = _grow_elements(idx, op, printed, min_area=min_area,
-                                                     keep_fraction=keep_fraction, r=max(r, 1))
+    if r < 1:
+        room, _ = _room(idx, op, 1)
+    idx, grown_n, grown_px, dropped = _grow_elements(idx, op, printed, room, min_area=min_area,
+                                                     keep_fraction=keep_fraction)
     grown, added = grown_n, added + grown_px
     dropped.sort(key=lambda d: -d["pixels"])
     return idx, DetailReport(lines_thickened=lines, elements_grown=grown, pixels_added=added,
@@ -486,7 +505,7 @@ def _on_one_colour(lab: np.ndarray, count: int, idx: np.ndarray, op: np.ndarray,
     return out
 
 
-def _grow_elements(idx, op, printed, *, min_area, keep_fraction, r) -> tuple[np.ndarray, int, int, list]:
+def _grow_elements(idx, op, printed, room, *, min_area, keep_fraction) -> tuple[np.ndarray, int, int, list]:
     """Grow the printed regions smaller than ``min_area`` (and at least ``keep_fraction`` of it) ring by ring."""
     from scipy import ndimage as ndi
 
@@ -500,7 +519,7 @@ def _grow_elements(idx, op, printed, *, min_area, keep_fraction, r) -> tuple[np.
     small[0] = False
     if not small.any():
         return idx, 0, 0, []
-    room = _room(idx, op, r) & ~small[labels]
+    room = room & ~small[labels]
     reach = int(math.ceil(math.sqrt(min_area / math.pi))) + 2  # the radius of the minimum dot, and a margin
     boxes = ndi.find_objects(labels)
     grown = added = 0

@@ -15,7 +15,6 @@ film pixel, not by four.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -177,12 +176,3 @@ def sample_at_artwork(film: np.ndarray, art_shape: tuple[int, int]) -> np.ndarra
     rows = np.minimum(((np.arange(h) + 0.5) * fh / h).astype(np.intp), fh - 1)
     cols = np.minimum(((np.arange(w) + 0.5) * fw / w).astype(np.intp), fw - 1)
     return film[np.ix_(rows, cols)]
-
-
-def film_px(mm: float, grid: FilmGrid) -> float:
-    """A size in mm as film pixels."""
-    return mm_to_px(mm, grid.dpi)
-
-
-def is_size(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)

@@ -2,10 +2,11 @@
 
 The smallest dot is the smallest separate piece of the film, as the
 diameter of a disc of the same area. The smallest line is the narrowest
-place along the pieces' skeletons (:func:`skimage.morphology.skeletonize`):
-twice the distance from the skeleton to the edge less a pixel, which is
-low by up to a film pixel on lines along rows or columns and by up to two
-on slanted ones (an estimate on the safe side).
+place along the ridge of the distance map (the local maxima of the
+Euclidean distance to the edge, :func:`scipy.ndimage.distance_transform_edt`:
+the middle of every line): twice that distance less a pixel, which is low
+by up to a film pixel on lines along rows or columns and by up to two on
+slanted ones (an estimate on the safe side).
 The area is the film's inked pixels at its resolution.
 
 The mesh suggestion follows a rule of thumb (common practice, from memory;
@@ -73,8 +74,8 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
     -------
     dict
         ``smallest_dot_mm`` (diameter of a disc of the smallest piece's
-        area), ``smallest_line_mm`` (narrowest place on the skeleton, within
-        a film pixel; None when no piece is longer than it is wide), ``area_cm2``, ``box_cm`` (width and height of the
+        area), ``smallest_line_mm`` (narrowest place on the ridge of the
+        distance map, on the safe side by up to a film pixel or two), ``area_cm2``, ``box_cm`` (width and height of the
         inked area), ``pieces`` and ``mesh`` (see :func:`mesh_for`).
 
     Examples
@@ -86,7 +87,6 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
     """
     from scipy import ndimage as ndi
     from skimage.measure import label
-    from skimage.morphology import skeletonize
 
     mask = np.asarray(mask, bool)
     px_cm = MM_PER_INCH / 10.0 / dpi
@@ -96,16 +96,12 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
     lab, n = label(mask, connectivity=2, return_num=True)
     areas = np.bincount(lab.ravel())[1:]
     dot_px = 2.0 * np.sqrt(areas.min() / np.pi)
-    # Width on the skeleton: a line n pixels wide has its centre (n + 1) / 2 from the nearest clear centre.
+    # Width on the ridge of the distance map (its local maxima: the middle of every line and dot; line
+    # ends and corners are no maxima). A line n pixels wide has its middle (n + 1) / 2 from the nearest
+    # clear centre.
     dist = ndi.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
-    skel = skeletonize(mask)
-    # Near a line's end the skeleton runs into the rounded tip, where the distance says nothing of the
-    # width: leave out skeleton pixels closer to an end of the skeleton than to the sides.
-    neighbours = ndi.convolve(skel.astype(np.int32), np.ones((3, 3), np.int32), mode="constant") - 1
-    ends = skel & (neighbours <= 1)
-    to_end = ndi.distance_transform_edt(~ends) if ends.any() else np.full(mask.shape, np.inf)
-    body = skel & (to_end > dist + 1.0)
-    line_px = float(2.0 * dist[body].min() - 1.0) if body.any() else None
+    ridge = mask & (dist >= ndi.maximum_filter(dist, size=3))
+    line_px = float(2.0 * dist[ridge].min() - 1.0) if ridge.any() else None
     rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
     dot_mm = round(px_to_mm(dot_px, dpi), 3)
     line_mm = None if line_px is None else round(px_to_mm(max(line_px, 1.0), dpi), 3)

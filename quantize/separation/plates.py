@@ -11,27 +11,28 @@ Steps of :func:`separate`:
    printed size at the film resolution, :mod:`quantize.separation.film`)
    as a coverage image; every film pixel goes to the ink of largest
    coverage. Everything below works in film pixels.
-3. **Clean up printable detail.** A connected region of one colour
-   (4-connected, labelled by :func:`skimage.measure.label`) whose area is
-   below that of a dot of the minimum feature diameter is merged into a
-   neighbouring, larger region; of the neighbours, the colour with the least
-   ΔE00 from the region's colour is taken (ties: the longest shared border).
-   Passes repeat until no region is too small. The number of changed pixels
-   and the ΔE00 the change costs are reported.
-4. **Report thin detail.** Per plate, parts of the ink area that a disk of the
-   minimum line width does not fit (morphological opening with a disk,
-   :mod:`skimage.morphology`) are thin positive lines; gaps in the ink area
-   narrower than it (closing) are thin knock-out gaps. Each is
-   reported with its bounding box in pixels and millimetres. They are not
-   changed: whether they hold is the printer's call.
-5. **Plates**, in print order (light to dark unless given), each with its
-   coverage; an optional underbase (the union of printed areas, choked
-   inward); a composite preview of the plates printed on the substrate.
+3. **Keep detail, then clean up** (:mod:`quantize.separation.cleanup`): thin
+   lines on one colour are thickened to the minimum line and small elements
+   grown to the minimum dot where there is room; a connected region of one
+   colour (4-connected) still below that dot's area is merged whole into a
+   neighbouring, larger region, of the neighbours the colour with the least
+   ΔE00 from its own. The changes and their ΔE00 are reported, and what was
+   dropped with its place.
+4. **Report thin detail** left: parts of an ink area that a disk of the
+   minimum line width does not fit (opening) and gaps narrower than it
+   (closing), with their bounding boxes in pixels and millimetres.
+5. **Plates**, in print order (underbase, flash, light to dark, highlight
+   white unless given), each with its coverage; traps (the lighter ink
+   spreads under the darker, :mod:`quantize.separation.trap`); an optional
+   underbase choked inward and a highlight white
+   (:mod:`quantize.separation.underbase`); guidance per film
+   (:mod:`quantize.separation.guidance`); a composite preview of the plates
+   printed on the substrate.
 
 Default sizes (all "common practice, no source"; set them from the shop's
 screen mesh, emulsion and ink): minimum feature 0.5 mm, minimum line
 0.35 mm (about 1 pt), underbase choke 0.25 mm, 300 dpi when the image records
-none, films at 600 dpi, registration margin 10 mm.
+none, films at 600 dpi, trap 0.15 mm (from memory), registration margin 10 mm.
 
 ΔE figures are computed from file data; they are not measurements of a print.
 """
