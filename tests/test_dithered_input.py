@@ -20,6 +20,12 @@ from quantize.render.mapping import map_picture
 from quantize.separation.dithered import DITHER_SHARE, alternation_share
 from quantize.separation.plates import separate
 
+from quantize.separation.plates import SeparationSettings
+
+# The films on the artwork's own grid (300 dpi), so that they compare pixel for pixel
+# with the drawing; films at print size are tests/test_film.py's.
+AT_ART = SeparationSettings(film_dpi=300)
+
 
 def _cli():
     from quantize.cli.main import main
@@ -59,7 +65,7 @@ def dithered(request, tmp_path_factory):
 def test_a_dither_made_by_reduce_keeps_its_pixels_on_the_films(dithered):
     d, reduced = dithered
     r = _cli()("separate", d / "sky-reduced.png", "-o", d / "films", "--palette", d / "sky-reduced.palette.json",
-               "--substrate", "none", "--dpi", "300")
+               "--substrate", "none", "--dpi", "300", "--film-dpi", "300")
     assert r.exit_code == 0, r.output
     doc = json.loads((d / "films" / "sky-reduced-manifest.json").read_text(encoding="utf-8"))
     assert _kept_share(d / "films", reduced, doc) >= 0.99
@@ -70,7 +76,7 @@ def test_a_dither_made_by_reduce_keeps_its_pixels_on_the_films(dithered):
 def test_cleaning_a_dither_as_flat_art_is_a_choice_and_it_loses_dots(dithered):
     d, reduced = dithered
     r = _cli()("separate", d / "sky-reduced.png", "-o", d / "clean", "--palette", d / "sky-reduced.palette.json",
-               "--substrate", "none", "--dpi", "300", "--dithered", "clean")
+               "--substrate", "none", "--dpi", "300", "--film-dpi", "300", "--dithered", "clean")
     assert r.exit_code == 0, r.output
     doc = json.loads((d / "clean" / "sky-reduced-manifest.json").read_text(encoding="utf-8"))
     assert _kept_share(d / "clean", reduced, doc) < 0.99  # what "auto" protects against
@@ -96,17 +102,17 @@ def test_flat_artwork_is_not_taken_for_a_dither(seed):
     for img, inks in (flat_artwork(5, seed, size=160, jpeg_quality=75), lettering_artwork(4, seed)[:2]):
         pal = Palette(np.asarray(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
         assert alternation_share(map_picture(img, pal, metric="ciede2000").indices) < DITHER_SHARE
-        sep = separate(img, pal, dpi=300)
+        sep = separate(img, pal, dpi=300, settings=AT_ART)
         assert not sep.dither["kept"] and sep.cleanup.min_feature_mm == 0.5
 
 
 def test_keep_is_honoured_on_flat_art_and_a_bad_choice_is_refused():
     img, inks = flat_artwork(4, 3, size=96, jpeg_quality=75)
     pal = Palette(np.asarray(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
-    sep = separate(img, pal, dpi=300, dithered="keep")
+    sep = separate(img, pal, dpi=300, settings=AT_ART, dithered="keep")
     assert sep.dither["kept"] and sep.cleanup.pixels_changed == 0 and sep.edges is None
     np.testing.assert_array_equal(sep.indices, map_picture(img, pal, metric="ciede2000").indices)
     from quantize.errors import SeparationError
 
     with pytest.raises(SeparationError, match="dithered"):
-        separate(img, pal, dpi=300, dithered="sometimes")
+        separate(img, pal, dpi=300, settings=AT_ART, dithered="sometimes")

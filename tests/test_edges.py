@@ -20,7 +20,14 @@ from quantize.colour.spaces import srgb8_to_space
 from quantize.palette import Palette
 from quantize.render.mapping import map_picture
 from quantize.separation.edges import resolve_seams
-from quantize.separation.plates import separate
+from quantize.separation.plates import SeparationSettings, separate
+
+# The films on the artwork's own grid (300 dpi), so that they compare pixel for pixel
+# with the drawing; films at print size are tests/test_film.py's.  No traps and no thickening:
+# a trap spreads one of the two inks at a join (tests/test_trap.py), and keeping detail thickens
+# a thin line into the room beside it (tests/test_film_cleanup.py); both spread an ink on
+# purpose, which is not an edge sliver.
+AT_ART = SeparationSettings(film_dpi=300, trap_mm=0, keep_detail=False)
 
 NAVY, CREAM, TEAL, RED, BLUSH = (31, 45, 84), (244, 236, 214), (32, 130, 128), (200, 40, 50), (242, 176, 162)
 GARMENT, WHITE, GREEN = (24, 24, 28), (250, 250, 250), (40, 140, 60)
@@ -101,12 +108,12 @@ def test_anti_aliased_edges_print_only_the_inks_that_cover_them(art):
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     before = _slivers(map_picture(rgb, pal, metric="ciede2000").indices, allowed).sum()
     assert before > 100  # the plain nearest colour does make slivers of a third ink on this art
-    sep = separate(rgb, pal, dpi=300, min_feature_mm=0, min_line_mm=0)  # no clean-up: the edge step alone
+    sep = separate(rgb, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)  # no clean-up: the edge step alone
     assert _slivers(sep.indices, allowed).sum() == 0
     assert sep.edges.pixels_changed >= before
     # Default clean-up on top (it may merge a glyph part below 0.5 mm into a neighbour: a clean-up
     # matter, not an edge): no plate has a thin region of an ink that does not cover it.
-    assert _thin_slivers(separate(rgb, pal, dpi=300), allowed) == 0
+    assert _thin_slivers(separate(rgb, pal, dpi=300, settings=AT_ART), allowed) == 0
 
 
 def test_jpeg_edges_keep_at_most_a_trace_and_no_plate_keeps_a_sliver_region():
@@ -116,13 +123,13 @@ def test_jpeg_edges_keep_at_most_a_trace_and_no_plate_keeps_a_sliver_region():
     near = _grow(allowed, 1)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     before = _slivers(map_picture(jpg, pal, metric="ciede2000").indices, near).sum()
-    alone = separate(jpg, pal, dpi=300, min_feature_mm=0, min_line_mm=0)
+    alone = separate(jpg, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)
     after = _slivers(alone.indices, near).sum()
     assert before > 300 and after <= 0.1 * before  # at least 90 % of the slivers go (measured: 92 %)
     # With the default clean-up (0.5 mm at 300 dpi) the traces left are merged too; without the
     # edge step, the clean-up alone leaves some.
-    assert _thin_slivers(separate(jpg, pal, dpi=300), near) == 0
-    assert _thin_slivers(separate(jpg, pal, dpi=300, edges=False), near) > 0
+    assert _thin_slivers(separate(jpg, pal, dpi=300, settings=AT_ART), near) == 0
+    assert _thin_slivers(separate(jpg, pal, dpi=300, settings=AT_ART, edges=False), near) > 0
 
 
 def test_a_drawn_thin_line_of_a_third_ink_is_kept():
@@ -130,7 +137,7 @@ def test_a_drawn_thin_line_of_a_third_ink_is_kept():
     rgb, _ = _draw(inks, paint)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     for img in (rgb, _jpeg(rgb)):
-        sep = separate(img, pal, dpi=300, min_feature_mm=0, min_line_mm=0)
+        sep = separate(img, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)
         line = sep.indices[200:202, 12:98]  # the 2-px teal line, away from its ends
         assert (line == 2).all()
 
@@ -143,7 +150,7 @@ def test_a_reduced_image_loses_its_one_pixel_slivers_but_not_its_lines():
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     idx = map_picture(rgb, pal, metric="ciede2000").indices
     reduced = pal.rgb8[idx]
-    sep = separate(reduced, pal, dpi=300, min_feature_mm=0, min_line_mm=0)
+    sep = separate(reduced, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)
     before, after = _slivers(idx, allowed), _slivers(sep.indices, allowed)
     assert after.sum() <= 0.15 * before.sum()  # measured: 63 of 572 left, the rest one pixel wide no more
     assert not (after & ~before).any()  # no pixel that printed a covering ink now prints another
@@ -200,7 +207,7 @@ def test_manifest_counts_the_edge_pixels_the_composite_shows(tmp_path):
     rgb, _ = _draw(inks, paint)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)],
                   names=("tee", "White", "Green"))
-    written = separate(rgb, pal, dpi=300, min_feature_mm=0, min_line_mm=0).write(tmp_path, stem="job")
+    written = separate(rgb, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0).write(tmp_path, stem="job")
     comp = np.asarray(Image.open(written["composite"]).convert("RGB"))
     plain = pal.rgb8[map_picture(rgb, pal, metric="ciede2000").indices]
     moved = (comp != plain).any(axis=-1)

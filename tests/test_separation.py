@@ -22,7 +22,7 @@ from quantize.errors import OutputError, SeparationError
 from quantize.palette import Palette
 from quantize.separation.choice import with_substrate
 from quantize.separation.cleanup import clean_small_regions, find_thin_features, underbase_mask
-from quantize.separation.plates import print_order, separate
+from quantize.separation.plates import SeparationSettings, print_order, separate
 
 WHITE, RED, BLUE, GOLD = (255, 255, 255), (200, 16, 46), (31, 58, 147), (242, 183, 5)
 
@@ -44,7 +44,8 @@ def artwork():
 @pytest.fixture(scope="module")
 def separation(artwork):
     img, pal, _ = artwork
-    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3)
+    # Films at the artwork's own resolution: the film grid is the artwork's, pixel for pixel; butt joins.
+    return separate(img, pal, dpi=300, underbase=True, choke_mm=0.3, settings=SeparationSettings(film_dpi=300, trap_mm=0))
 
 
 # --------------------------------------------------------------------------- plates
@@ -83,7 +84,9 @@ def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
     changed = (mapped.indices != separation.indices).sum()
     # JPEG noise specks were merged, and edge blends given to one of their two inks (tests/test_edges.py).
     assert separation.cleanup.pixels_changed > 0
-    assert changed <= separation.cleanup.pixels_changed + separation.edges.pixels_changed
+    # Every change is a merge, an edge blend given to one of its two inks, or a thickened line or grown element.
+    assert changed <= (separation.cleanup.pixels_changed + separation.edges.pixels_changed
+                       + separation.detail.pixels_added)
     assert changed < 0.02 * mapped.indices.size
 
 
@@ -105,7 +108,8 @@ def test_underbase_covers_every_printed_pixel_minus_the_choke(separation):
     # Distance from each printed pixel to the nearest unprinted one, outside the image counting as unprinted.
     dist = ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1]
     assert not (ub & ~printed).any()  # nothing under the substrate
-    np.testing.assert_array_equal(ub, printed & (dist > choke_px))
+    # The edge lies half a pixel beyond the nearest unprinted pixel's centre.
+    np.testing.assert_array_equal(ub, printed & (dist - 0.5 > choke_px))
     assert 0 < ub.sum() < printed.sum()  # the choke removed the edges, not everything
     assert sep.underbase.order == 1 and [p.order for p in sep.plates] == list(range(2, 2 + len(sep.plates)))
 
@@ -184,7 +188,8 @@ def test_settings_record_what_was_used(artwork):
     sep = separate(img, pal, dpi=150, order=given, min_line_mm=0)
     s = sep.settings
     assert (s.dpi, s.underbase, s.choke_mm, s.order, s.min_line_mm) == (150, False, None, "given", 0)
-    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 150) ** 2 / 4, abs=1e-3)  # a 0.5 mm dot
+    # A 0.5 mm dot in film pixels (the films are at 600 dpi by default, whatever the artwork's resolution).
+    assert s.min_area_px == pytest.approx(np.pi * (0.5 / 25.4 * 600) ** 2 / 4, abs=1e-3)
     assert [p.name for p in sep.plates] == given and sep.underbase is None
     assert sep.thin == [] and sep.thin_summary["lines"] == sep.thin_summary["gaps"] == 0  # not looked for
     # Only a caller that chose the inks records where they came from.
@@ -252,7 +257,7 @@ def test_minimum_feature_that_would_erase_the_image_is_refused():
     pal = _palette(WHITE, RED)
     with pytest.raises(SeparationError, match="would erase the image: every printed area is smaller"):
         separate(img, pal, dpi=300, min_feature_mm=1.0)
-    with pytest.raises(SeparationError, match="larger than the whole image"):
+    with pytest.raises(SeparationError, match="larger than the whole print"):
         separate(img, pal, dpi=300, min_feature_mm=50)
     with pytest.raises(SeparationError, match="min_feature_mm must be a size of 0 mm or more"):
         separate(img, pal, dpi=300, min_feature_mm=-1)
@@ -306,8 +311,8 @@ def test_transparent_pixels_print_nothing():
     rgba[..., :3] = RED
     rgba[..., 3] = 255
     rgba[:, :5, 3] = 0
-    sep = separate(rgba, _palette(WHITE, RED), dpi=300)
-    assert not sep.plates[0].mask[:, :5].any() and sep.plates[0].mask[:, 5:].all()
+    sep = separate(rgba, _palette(WHITE, RED), dpi=300)  # films at 600 dpi: two film pixels per artwork pixel
+    assert not sep.plates[0].mask[:, :10].any() and sep.plates[0].mask[:, 10:].all()
     assert sum(sep.coverage().values()) == pytest.approx(100)
 
 
@@ -372,10 +377,14 @@ def test_cli_defaults_match_the_library():
     from quantize.cli.separate import separate as cli_separate
     from quantize.separation.plates import Separation
 
+    from dataclasses import fields
+
     options = {p.name: p.default for p in cli_separate.params}
-    library = {**inspect.signature(separate).parameters, **inspect.signature(Separation.write).parameters}
-    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm"):
-        assert options[name] == library[name].default, name
+    library = {f.name: f.default for f in fields(SeparationSettings)}
+    library["margin_mm"] = inspect.signature(Separation.write).parameters["margin_mm"].default
+    for name in ("min_feature_mm", "min_line_mm", "choke_mm", "margin_mm", "film_dpi", "base_min_l",
+                 "highlight_min_l", "trap_mm", "keep_detail", "keep_fraction"):
+        assert options[name] == library[name], name
 
 
 def test_cli_bad_print_order_writes_nothing(job, tmp_path):
@@ -395,7 +404,8 @@ def test_cli_in_a_real_subprocess(job):
                            "--inks", str(d / "shelf.csv"), "-n", "3", "--marks"],
                           capture_output=True, text=True, env=env)
     assert proc.returncode == 0, proc.stderr
-    assert "3 film(s), 3 ink(s), at 300 dpi" in proc.stdout
+    # 120 px at 300 dpi print 10.2 mm wide, on films at the default 600 dpi.
+    assert "3 film(s), 3 ink(s), at 600 dpi, printed 10.2 x 10.2 mm" in proc.stdout
     assert (out / "poster-manifest.json").exists() and (out / "poster-composite.png").exists()
 
 
@@ -501,7 +511,9 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     img[5:7, 70:110] = GOLD  # 80 px, a line 2 px thick
     img[20:22, 30:32] = BLUE  # a 2 x 2 speck inside the red, below the minimum feature
     pal = _palette(*inks.values(), names=tuple(inks))
-    sep = separate(img, pal, dpi=dpi, underbase=True)
+    # Merging alone (keep_detail off): the thin gold line stays as drawn, to be reported.
+    sep = separate(img, pal, dpi=dpi, underbase=True,
+                   settings=SeparationSettings(film_dpi=dpi, trap_mm=0, keep_detail=False))
     doc = json.loads(sep.write(tmp_path, stem="job")["manifest"].read_text(encoding="utf-8"))
 
     lab = {name: rgb2lab(np.array(rgb, float)[None, None] / 255.0)[0, 0] for name, rgb in inks.items()}
@@ -513,7 +525,7 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     printed = np.zeros((h, w), bool)
     printed[10:40, 10:60] = printed[50:70, 70:110] = printed[5:7, 70:110] = True
     choke_px = 0.25 / 25.4 * dpi  # the default choke
-    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] > choke_px)
+    under = printed & (ndi.distance_transform_edt(np.pad(printed, 1))[1:-1, 1:-1] - 0.5 > choke_px)
     min_area = np.pi * (0.5 / 25.4 * dpi) ** 2 / 4  # a dot of the default 0.5 mm
 
     assert doc["size_px"] == [w, h] and doc["dpi"] == dpi
@@ -554,9 +566,11 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     assert (item["x"], item["y"], item["w"], item["h"]) == (70, 5, 40, 2)
     assert [item[k] for k in ("x_mm", "y_mm", "w_mm", "h_mm")] == pytest.approx(
         [v * 25.4 / dpi for v in (70, 5, 40, 2)], abs=1e-3)
-    assert doc["settings"] == {"dpi": dpi, "min_feature_mm": 0.5, "min_area_px": pytest.approx(min_area, abs=1e-3),
-                               "min_line_mm": 0.35, "underbase": True, "choke_mm": 0.25, "order": "light to dark",
-                               "mapping": "nearest by ΔE00; edge pixels that blend two inks go to the nearer of "
-                               "the two", "palette_fit": {}}
+    assert doc["settings"] | {"min_area_px": 0} == doc["settings"] | {
+        "dpi": dpi, "min_feature_mm": 0.5, "min_area_px": 0, "min_line_mm": 0.35, "underbase": True,
+        "choke_mm": 0.25, "order": "light to dark",
+        "mapping": "nearest by ΔE00; edge pixels that blend two inks go to the nearer of the two", "palette_fit": {},
+        "film_dpi": dpi, "keep_detail": False}
+    assert doc["settings"]["min_area_px"] == pytest.approx(min_area, abs=1e-3)
     assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
         ("quantize.separation.plates", 1, "job-composite.png", 0)

@@ -50,7 +50,7 @@ def snapped(tmp_path_factory):
     Palette(np.array([CREAM, NAVY_A, NAVY_B, RED, ORANGE], np.uint8),
             np.array([True, False, False, False, False])).save(d / "pal.json")
     r = _cli()("separate", d / "art.png", "-o", d / "films", "--inks", d / "inks.csv", "--palette", d / "pal.json",
-               "--snap", "--dpi", "300", "--png", "--underbase")
+               "--snap", "--dpi", "300", "--film-dpi", "300", "--png", "--underbase")
     assert r.exit_code == 0, r.output
     doc = json.loads((d / "films" / "art-manifest.json").read_text(encoding="utf-8"))
     return d, img, regions, r.output, doc

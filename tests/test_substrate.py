@@ -20,6 +20,12 @@ from quantize.separation.choice import choose_palette, resolve_substrate
 from quantize.separation.plates import separate
 from quantize.separation.substrate import border_colour
 
+from quantize.separation.plates import SeparationSettings
+
+# The films on the artwork's own grid (300 dpi), so that they compare pixel for pixel
+# with the drawing; films at print size are tests/test_film.py's.
+AT_ART = SeparationSettings(film_dpi=300)
+
 CREAM, NAVY, RED, GOLD = (244, 236, 214), (31, 45, 84), (200, 40, 50), (236, 178, 52)
 GARMENT, WHITE = (27, 94, 62), (250, 250, 250)
 
@@ -90,7 +96,7 @@ def test_a_reduced_poster_on_cream_paper_makes_no_plate_of_the_paper(tmp_path):
     r = run("reduce", src, "-o", tmp_path / "poster-reduced.png", "-k", "4", "--keep-palette")
     assert r.exit_code == 0, r.output
     r = run("separate", tmp_path / "poster-reduced.png", "-o", tmp_path / "films",
-            "--palette", tmp_path / "poster-reduced.palette.json", "--dpi", "300")
+            "--palette", tmp_path / "poster-reduced.palette.json", "--dpi", "300", "--film-dpi", "300")
     assert r.exit_code == 0, r.output
     films = _films(tmp_path / "films")
     assert len(films) == 3
@@ -147,12 +153,12 @@ def test_a_transparent_border_means_no_substrate():
     rgba = np.zeros((40, 40, 4), np.uint8)
     rgba[8:32, 8:32] = (*RED, 255)
     rgba[16:24, 16:24] = (*NAVY, 255)
-    sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, min_feature_mm=0)
+    sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, settings=AT_ART, min_feature_mm=0)
     assert sep.substrate is None and len(sep.plates) == 2
     assert any("transparent" in n for n in sep.notes)
     # A faint shadow (alpha 2 of 255) around the art is still a transparent border.
     rgba[:8, :, 3] = 2
-    sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, min_feature_mm=0)
+    sep = separate(rgba, Palette(np.array([RED, NAVY], np.uint8), None), dpi=300, settings=AT_ART, min_feature_mm=0)
     assert sep.substrate is None
 
 

@@ -637,8 +637,9 @@ def snap_outcomes(image, snaps: Sequence[dict], indices: np.ndarray, palette, li
     image : path, Picture, PIL image or ndarray
     snaps : sequence of dict
         As :func:`snap_palette` returns them (``fitted`` hex, ``ink``).
-    indices : ndarray of shape (H, W)
-        The separation's palette index per pixel.
+    indices : ndarray
+        The separation's palette index per film pixel (read at the centre of
+        each image pixel when the films have another resolution).
     palette : Palette
         The separation's palette.
     library : InkLibrary
@@ -664,6 +665,10 @@ def snap_outcomes(image, snaps: Sequence[dict], indices: np.ndarray, palette, li
     rgb = fitted + ([palette.rgb8[substrate]] if substrate is not None else [])
     own = map_picture(pic, Palette(np.array(rgb, np.uint8), None), metric="ciede2000").indices
     opaque = pic.opaque
+    if indices.shape != own.shape:  # films at another resolution: read them at each artwork pixel's centre
+        from .film import sample_at_artwork
+
+        indices = sample_at_artwork(indices, own.shape)
     out, warnings = [], []
     for j, s in enumerate(snaps):
         printed = indices[(own == j) & opaque]

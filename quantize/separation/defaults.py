@@ -5,7 +5,8 @@ All are common practice, no source; set them from the shop's screen mesh,
 emulsion and ink.
 """
 
-__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM"]
+__all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_HIGHLIGHT_MIN_L", "DEFAULT_KEEP_FRACTION", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM",
+           "DEFAULT_TRAP_MM"]
 
 #: Smallest printable dot diameter, mm (common practice, no source).
 DEFAULT_MIN_FEATURE_MM = 0.5
@@ -17,3 +18,14 @@ DEFAULT_CHOKE_MM = 0.25
 DEFAULT_DPI = 300.0
 #: Margin around the artwork for registration marks and the label, mm.
 DEFAULT_MARGIN_MM = 10.0
+#: Film resolution, dpi: fine enough that a film pixel (0.042 mm) is well below any printable
+#: detail on a screen (common practice, no source).
+DEFAULT_FILM_DPI = 600.0
+#: Inks at least this light (L*) are printed again by the highlight white; a starting point, no source.
+DEFAULT_HIGHLIGHT_MIN_L = 85.0
+#: Trap width, mm: how far a lighter ink spreads under a darker one where they meet
+#: (common practice, from memory: a few tenths of a millimetre or less; set it from the press's registration).
+DEFAULT_TRAP_MM = 0.15
+#: Small elements of at least this fraction of the minimum dot's area are grown to it, smaller ones
+#: dropped whole; a starting point, no source.
+DEFAULT_KEEP_FRACTION = 0.5

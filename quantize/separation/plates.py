@@ -8,28 +8,34 @@ Steps of :func:`separate`:
 
 1. **Map** every pixel to its nearest palette colour by ΔE00; then an
    anti-aliased edge pixel that blends two inks goes to the nearer of those
-   two, never to a third (:mod:`quantize.separation.edges`).
-2. **Clean up printable detail.** A connected region of one colour
-   (4-connected, labelled by :func:`skimage.measure.label`) whose area is
-   below that of a dot of the minimum feature diameter is merged into a
-   neighbouring, larger region; of the neighbours, the colour with the least
-   ΔE00 from the region's colour is taken (ties: the longest shared border).
-   Passes repeat until no region is too small. The number of changed pixels
-   and the ΔE00 the change costs are reported.
-3. **Report thin detail.** Per plate, parts of the ink area that a disk of the
-   minimum line width does not fit (morphological opening with a disk,
-   :mod:`skimage.morphology`) are thin positive lines; gaps in the ink area
-   narrower than it (closing) are thin knock-out gaps. Each is
-   reported with its bounding box in pixels and millimetres. They are not
-   changed: whether they hold is the printer's call.
-4. **Plates**, in print order (light to dark unless given), each with its
-   coverage; an optional underbase (the union of printed areas, choked
-   inward); a composite preview of the plates printed on the substrate.
+   two, never to a third (:mod:`quantize.separation.edges`). Dithered input
+   keeps every dot (:mod:`quantize.separation.dithered`).
+2. **Films at size.** Each ink's area is resampled to the film grid (the
+   printed size at the film resolution, :mod:`quantize.separation.film`)
+   as a coverage image; every film pixel goes to the ink of largest
+   coverage. Everything below works in film pixels.
+3. **Keep detail, then clean up** (:mod:`quantize.separation.cleanup`): thin
+   lines on one colour are thickened to the minimum line and small elements
+   grown to the minimum dot where there is room; a connected region of one
+   colour (4-connected) still below that dot's area is merged whole into a
+   neighbouring, larger region, of the neighbours the colour with the least
+   ΔE00 from its own. The changes and their ΔE00 are reported, and what was
+   dropped with its place.
+4. **Report thin detail** left: parts of an ink area that a disk of the
+   minimum line width does not fit (opening) and gaps narrower than it
+   (closing), with their bounding boxes in pixels and millimetres.
+5. **Plates**, in print order (underbase, flash, light to dark, highlight
+   white unless given), each with its coverage; traps (the lighter ink
+   spreads under the darker, :mod:`quantize.separation.trap`); an optional
+   underbase choked inward and a highlight white
+   (:mod:`quantize.separation.underbase`); guidance per film
+   (:mod:`quantize.separation.guidance`); a composite preview of the plates
+   printed on the substrate.
 
 Default sizes (all "common practice, no source"; set them from the shop's
 screen mesh, emulsion and ink): minimum feature 0.5 mm, minimum line
 0.35 mm (about 1 pt), underbase choke 0.25 mm, 300 dpi when the image records
-none, registration margin 10 mm.
+none, films at 600 dpi, trap 0.15 mm (from memory), registration margin 10 mm.
 
 ΔE figures are computed from file data; they are not measurements of a print.
 """
@@ -40,7 +46,7 @@ import io
 import json
 import math
 import re
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any, Sequence
 
@@ -51,17 +57,32 @@ from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
 from .choice import _picture, resolve_substrate
-from .cleanup import CleanupReport, clean_small_regions, find_thin_features, underbase_mask
+from .cleanup import CleanupReport, DetailReport, clean_small_regions, find_thin_features, keep_detail
 
 # The default sizes live in their own module (the command line reads them
 # without numpy); their names stay importable here.
-from .defaults import DEFAULT_CHOKE_MM, DEFAULT_DPI, DEFAULT_MARGIN_MM, DEFAULT_MIN_FEATURE_MM, DEFAULT_MIN_LINE_MM
+from .defaults import (
+    DEFAULT_CHOKE_MM,
+    DEFAULT_DPI,
+    DEFAULT_FILM_DPI,
+    DEFAULT_HIGHLIGHT_MIN_L,
+    DEFAULT_KEEP_FRACTION,
+    DEFAULT_MARGIN_MM,
+    DEFAULT_MIN_FEATURE_MM,
+    DEFAULT_MIN_LINE_MM,
+    DEFAULT_TRAP_MM,
+)
 from .dithered import DITHER_CHOICES, dither_handling
 from .edges import SeamReport, resolve_seams
+from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
+from .guidance import MESH_RULE, plate_guidance
+from .trap import trap_plates
+from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
     "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM", "DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_MARGIN_MM",
+    "DEFAULT_FILM_DPI",
 ]
 
 _MANIFEST_FORMAT = "quantize.separation.plates"
@@ -78,7 +99,7 @@ class Plate:
     index: int | None  # palette index; None for the underbase
     order: int  # 1 = printed first
     mask: np.ndarray
-    coverage: float  # percent of the artwork's opaque pixels
+    coverage: float  # percent of the opaque film pixels where this ink shows (knocked out: traps not counted)
     rgb8: np.ndarray
     lab: np.ndarray
     slug: str = ""
@@ -86,43 +107,102 @@ class Plate:
 
 @dataclass(frozen=True)
 class SeparationSettings:
-    """The settings a separation was made with, as its manifest lists them (``settings``).
+    """What a separation is asked for, and, in its manifest (``settings``), what it was made with.
+
+    Give one to :func:`separate` (``settings=``); the fields left at their
+    defaults take the defaults below. The separation's own copy records the
+    values used (the artwork's resolution found, the minimum area in film
+    pixels, the palette's fit record).
 
     Attributes
     ----------
-    dpi : float
-        Output resolution (the image's, the caller's, or :data:`DEFAULT_DPI`).
-    min_feature_mm : float
-        Diameter of the smallest printable dot.
-    min_area_px : float
-        Area of that dot in pixels at ``dpi``, rounded to 3 decimals.
-    min_line_mm : float
+    dpi : float or None
+        The artwork's resolution: its printed size when no print size is
+        given. None: the file's, else :data:`DEFAULT_DPI`.
+    min_feature_mm : float, default 0.5
+        Diameter of the smallest printable dot (0: no clean-up).
+    min_area_px : float or None
+        Area of that dot in film pixels, rounded to 3 decimals (recorded).
+    min_line_mm : float, default 0.35
         Thinner lines and gaps are reported (0: not looked for).
-    underbase : bool
-        Whether an underbase plate was made.
-    choke_mm : float or None
-        How far the underbase stays inside the print's edges; None without one.
+    underbase : bool, default False
+        Whether an underbase plate is made.
+    choke_mm : float or None, default 0.25
+        How far the underbase stays inside the print's edges; recorded as
+        None without an underbase.
     order : {"given", "light to dark"}
-        Where the print order came from.
+        Where the print order came from (recorded).
     palette_fit : dict
-        The palette's own record of how it was made (``Palette.fit``).
+        The palette's own record of how it was made (``Palette.fit``; recorded).
     mapping : str, default="nearest by ΔE00"
         How pixels were given inks.
     inks_from : dict or None
         How the inks were chosen, as :func:`quantize.separation.choice.choose_palette`
         reports it; None when the caller gave the palette (not listed then).
+    film_dpi : float, default 600
+        Resolution of the films (common practice, no source).
+    print_width_mm, print_height_mm : float or None
+        The printed width or height (at most one); None for both keeps the
+        artwork's physical size (its pixels at ``dpi``).
+    mirror : bool, default False
+        Films flipped left to right (read from the emulsion side).
+    negative : bool, default False
+        Films clear where ink prints, black elsewhere.
+    base_min_l : float, default 0
+        Inks darker than this L* are left off the underbase (0: every ink
+        gets one).
+    highlight_white : bool, default False
+        Add a highlight white plate: the areas of the inks with L* at or
+        above ``highlight_min_l``, printed last.
+    highlight_min_l : float, default 85
+        See ``highlight_white`` (a starting point, no source).
+    trap_mm : float, default 0.15
+        Where two inks meet, the lighter spreads this far under the darker
+        (common practice, from memory; 0: butt joins).
+    trap_pairs : tuple of (str, str, float)
+        Ink pairs (by name) with their own trap width in mm.
+    overprint : tuple of str
+        Keyline inks that overprint: the inks beside them continue under
+        them, and they do not trap.
+    keep_detail : bool, default True
+        Before small regions are merged, thicken thin lines to
+        ``min_line_mm`` and grow small elements to the minimum dot where
+        there is room (:func:`quantize.separation.cleanup.keep_detail`).
+    keep_fraction : float, default 0.5
+        Small elements of at least this fraction of the minimum dot's area
+        are grown; smaller ones are dropped whole (a starting point, no source).
+    edges : bool, default True
+        Give each anti-aliased edge pixel that blends two inks to one of
+        those two (:func:`quantize.separation.edges.resolve_seams`).
+    dithered : {"auto", "keep", "clean"}, default "auto"
+        How dithered input is treated (:mod:`quantize.separation.dithered`).
     """
 
-    dpi: float
-    min_feature_mm: float
-    min_area_px: float
-    min_line_mm: float
-    underbase: bool
-    choke_mm: float | None
-    order: str
-    palette_fit: dict
+    dpi: float | None = None
+    min_feature_mm: float = DEFAULT_MIN_FEATURE_MM
+    min_area_px: float | None = None
+    min_line_mm: float = DEFAULT_MIN_LINE_MM
+    underbase: bool = False
+    choke_mm: float | None = DEFAULT_CHOKE_MM
+    order: str = "light to dark"
+    palette_fit: dict = field(default_factory=dict)
     mapping: str = "nearest by ΔE00"
     inks_from: dict | None = None
+    film_dpi: float = DEFAULT_FILM_DPI
+    print_width_mm: float | None = None
+    print_height_mm: float | None = None
+    mirror: bool = False
+    negative: bool = False
+    base_min_l: float = 0.0
+    highlight_white: bool = False
+    highlight_min_l: float = DEFAULT_HIGHLIGHT_MIN_L
+    trap_mm: float = DEFAULT_TRAP_MM
+    trap_pairs: tuple = ()
+    overprint: tuple = ()
+    keep_detail: bool = True
+    keep_fraction: float = DEFAULT_KEEP_FRACTION
+    edges: bool = True
+    dithered: str = "auto"
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -131,7 +211,14 @@ class SeparationSettings:
                "order": self.order, "mapping": self.mapping, "palette_fit": self.palette_fit}
         if self.inks_from is not None:
             doc["inks_from"] = self.inks_from
+        skip = set(doc) | {"inks_from"}
+        doc.update({f.name: _plain(getattr(self, f.name)) for f in fields(self) if f.name not in skip})
         return doc
+
+
+def _plain(v):
+    """Tuples (of tuples) as lists, for JSON."""
+    return [_plain(x) for x in v] if isinstance(v, tuple) else v
 
 
 @dataclass(frozen=True, eq=False)
@@ -141,7 +228,8 @@ class Separation:
     Attributes
     ----------
     indices : ndarray of shape (H, W)
-        Palette index of every pixel after the clean-up.
+        Palette index of every film pixel after the clean-up (where nothing
+        prints, see ``alpha``, the substrate's or 0).
     palette : Palette
         The inks and the substrate (named "substrate" when it had no name).
     substrate : int or None
@@ -150,8 +238,9 @@ class Separation:
         The ink plates in print order.
     underbase : Plate or None
     dpi : float
+        The films' resolution.
     alpha : ndarray of shape (H, W) or None
-        The input's alpha channel.
+        Where the films print (255) or not (0), when the input had an alpha channel.
     source : str
     cleanup : CleanupReport
         What merging the regions too small to print changed.
@@ -179,6 +268,28 @@ class Separation:
     dither : dict or None
         Whether the input looked dithered and its dots were kept
         (:func:`quantize.separation.dithered.dither_handling`).
+    film : FilmGrid or None
+        The film grid and the printed size.
+    art_shape : (int, int) or None
+        The artwork's height and width in pixels.
+    art_dpi : float or None
+        The artwork's resolution used.
+    highlight : Plate or None
+        The highlight white, printed last.
+    sequence : tuple of str
+        The print sequence: film names and "flash" steps.
+    base_plan : BasePlan or None
+        What the underbase left out (islands, areas too thin to carry one).
+    traps : tuple of dict
+        Every trapped join (``lighter``, ``darker``, ``width_mm``,
+        ``pixels`` added) and keyline fill (``overprint``, ``under``).
+    detail : DetailReport or None
+        Thin lines thickened and small elements grown before the clean-up
+        merged the rest (None when ``keep_detail`` is off).
+    guidance : dict or None
+        Film name -> smallest dot and line, area in cm² and a mesh
+        suggestion, measured on the film
+        (:func:`quantize.separation.guidance.plate_guidance`).
     """
 
     indices: np.ndarray
@@ -200,6 +311,15 @@ class Separation:
     substrate_from: str = "given"
     measured_lab: tuple = ()
     dither: dict | None = None
+    film: FilmGrid | None = None
+    art_shape: tuple | None = None
+    art_dpi: float | None = None
+    highlight: Plate | None = None
+    sequence: tuple = ()
+    base_plan: BasePlan | None = None
+    traps: tuple = ()
+    detail: DetailReport | None = None
+    guidance: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -238,11 +358,13 @@ class Separation:
             comp[p.mask] = p.index
         return comp
 
-    def manifest(self, files: dict | None = None, *, composite: str | None = None, margin_px: int = 0) -> dict:
+    def manifest(self, files: dict | None = None, *, composite: str | None = None, margin_px: int = 0,
+                 films_pdf: str | None = None) -> dict:
         """The manifest document (JSON-ready).
 
         ``files`` maps each plate's name to its file names; ``composite`` is
-        the preview's file name and ``margin_px`` the width of the marks margin.
+        the preview's file name, ``margin_px`` the width of the marks margin
+        and ``films_pdf`` the file name of the PDF of all films.
         """
         from quantize.colour.spaces import srgb8_to_space
 
@@ -268,13 +390,26 @@ class Separation:
             "size_px": [w, h],
             "dpi": self.dpi,
             "size_mm": [round(px_to_mm(w, self.dpi), 3), round(px_to_mm(h, self.dpi), 3)],
+            "film": self.film.to_dict() if self.film is not None else None,
+            "artwork": None if self.art_shape is None else {
+                "size_px": [self.art_shape[1], self.art_shape[0]], "dpi": self.art_dpi},
             "substrate": None if self.substrate is None else {
                 "name": _ink_name(pal, self.substrate), "hex": pal.hex[self.substrate],
                 "coverage_percent": round(self.substrate_coverage, 4), "from": self.substrate_from},
             "inks": inks,
-            "print_order": ([self.underbase.name] if self.underbase else []) + [p.name for p in self.plates],
+            "print_order": [p.name for p in self.films()],
+            "print_sequence": self.sequence_doc(),
+            "flash_steps": sum(1 for step in self.sequence if step == FLASH),
             "plates": [plate_doc(p) for p in self.plates],
             "underbase": plate_doc(self.underbase) if self.underbase else None,
+            "underbase_report": self.base_plan.to_dict() if self.base_plan is not None else None,
+            "highlight_white": plate_doc(self.highlight) if self.highlight else None,
+            "traps": list(self.traps),
+            "detail": None if self.detail is None else _detail_doc(self.detail, self.palette, self.dpi),
+            "guidance": None if self.guidance is None else {
+                "films": self.guidance, "mesh_rule": MESH_RULE,
+                "caution": "a starting point measured on the films; the shop's screens, emulsion, inks and a "
+                           "physical proof decide"},
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
             "edges": self._edges_doc(),
@@ -283,6 +418,7 @@ class Separation:
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
             "composite": composite,
+            "films_pdf": films_pdf,
             "margin_px": margin_px,
             "notes": list(self.notes),
             "caution": CAUTION,
@@ -308,12 +444,14 @@ class Separation:
                 "delta_e_preview_to_measured": round(float(delta_e_ciede2000(self.palette.lab[i], m)), 3)}
 
     def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
-              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=()) -> dict:
-        """Write plates (1-bit TIFF, optionally PNG), the composite preview and the manifest.
+              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=(), pdf: bool = True,
+              job: str | None = None, date: str | None = None) -> dict:
+        """Write the films (1-bit TIFF, optionally PNG), a PDF of them all, the preview and the manifest.
 
         Every file is written atomically; existing files are checked before
         anything is written, so without ``force`` either the whole set is
-        written or nothing is.
+        written or nothing is. Films are mirrored or negative as the
+        settings ask.
 
         Parameters
         ----------
@@ -325,108 +463,102 @@ class Separation:
             Also write each plate as a 1-bit PNG.
         marks : bool
             Add a margin with registration marks and a label (ink name,
-            order, file name) around the artwork on every plate.
+            print order, job, date) around the artwork on every TIFF/PNG film.
         margin_mm : float
-            Width of that margin.
+            Width of that margin; the PDF pages always have it.
         stem : str, optional
             Prefix of the file names (default: the source file's stem).
         inputs : sequence of path
             Files never to overwrite.
+        pdf : bool, default True
+            Also write ``{stem}-films.pdf``: one page per film at its exact
+            physical size (the film plus the margin), with marks and label.
+        job : str, optional
+            Job name on the labels (default: ``stem``).
+        date : str, optional
+            Date on the labels (default: today, ISO 8601).
 
         Returns
         -------
         dict
-            ``manifest`` (path), ``composite`` (path), ``plates`` (name -> paths).
+            ``manifest`` (path), ``composite`` (path), ``plates`` (name -> paths),
+            ``pdf`` (path or None).
 
         Raises
         ------
         OutputError
             A file exists without ``force``, or cannot be written.
         SeparationError
-            ``marks`` with a margin that is not a positive, finite size.
+            A margin that is not a positive, finite size.
         """
+        import datetime
+
         from quantize.io.write import atomic_write_bytes, atomic_write_text, save_image
 
-        if marks and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm) and margin_mm > 0):
+        from .filmfiles import FilmPage, film_image, pdf_bytes
+
+        if (marks or pdf) and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm)
+                                   and margin_mm > 0):
             raise SeparationError(f"margin_mm must be a positive size in mm, got {margin_mm!r}")
         out = Path(folder)
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder")
         if stem is None:
             stem = "art" if self.source.startswith("<") else _slug(Path(self.source).stem)
-        every = ([self.underbase] if self.underbase else []) + list(self.plates)
+        job = job or stem
+        date = date or datetime.date.today().isoformat()
+        every = self.films()
         plan = {}
         for p in every:
             base = f"{stem}-{p.order:02d}-{p.slug}"
             plan[p.name] = [out / f"{base}.tif"] + ([out / f"{base}.png"] if png else [])
         composite = out / f"{stem}-composite.png"
         manifest = out / f"{stem}-manifest.json"
-        targets = [t for ts in plan.values() for t in ts] + [composite, manifest]
+        pdf_path = out / f"{stem}-films.pdf" if pdf else None
+        targets = [t for ts in plan.values() for t in ts] + [composite, manifest] + ([pdf_path] if pdf else [])
         if not force:
             for t in targets:
                 if t.exists():
                     raise OutputError(f"{t}: already exists; not replaced without force")
         out.mkdir(parents=True, exist_ok=True)
-        margin = int(round(mm_to_px(margin_mm, self.dpi))) if marks else 0
+        margin_px = int(round(mm_to_px(margin_mm, self.dpi)))
+        margin = margin_px if marks else 0
         total = len(every)
+        st = self.settings
+        pages = []
         for p in every:
-            label = f"{p.name} | {p.order}/{total} | {plan[p.name][0].name}"
-            img = _plate_image(p.mask, margin, label if marks else None)
+            label = f"{p.name} | {p.order}/{total} | {job} | {date}"
+            img = film_image(p.mask, FilmPage(margin, label if marks else None, st.mirror, st.negative))
             for t in plan[p.name]:
                 fmt = "TIFF" if t.suffix == ".tif" else "PNG"
                 buf = io.BytesIO()
                 opts = {"compression": "group4"} if fmt == "TIFF" else {"optimize": True}
                 img.save(buf, format=fmt, dpi=(self.dpi, self.dpi), **opts)
                 atomic_write_bytes(t, buf.getvalue(), force=force, inputs=inputs)
+            if pdf:
+                pages.append(film_image(p.mask, FilmPage(margin_px, label, st.mirror, st.negative)))
+        if pdf and pages:
+            atomic_write_bytes(pdf_path, pdf_bytes(pages, self.dpi, title=f"{job}: films"),
+                               force=force, inputs=inputs)
         save_image(composite, self.composite_indices(), self.palette.rgb8, alpha=self.alpha,
                    dpi=(self.dpi, self.dpi), force=force, inputs=inputs)
         files = {name: [t.name for t in ts] for name, ts in plan.items()}
-        doc = self.manifest(files, composite=composite.name, margin_px=margin)
+        doc = self.manifest(files, composite=composite.name, margin_px=margin,
+                            films_pdf=pdf_path.name if pdf and pages else None)
         atomic_write_text(manifest, json.dumps(doc, indent=2, ensure_ascii=False) + "\n",
                           force=force, inputs=inputs)
-        return {"manifest": manifest, "composite": composite, "plates": plan}
+        return {"manifest": manifest, "composite": composite, "plates": plan,
+                "pdf": pdf_path if pdf and pages else None}
 
+    def films(self) -> list[Plate]:
+        """Every film in print order: the underbase, the inks, the highlight white."""
+        extra = [p for p in (self.underbase, self.highlight) if p is not None]
+        return sorted(extra + list(self.plates), key=lambda p: p.order)
 
-def _plate_image(mask: np.ndarray, margin: int, label: str | None):
-    """A 1-bit film: ink black (0), clear white (1); marks and label in the margin."""
-    from PIL import Image, ImageDraw
-
-    h, w = mask.shape
-    canvas = np.zeros((h + 2 * margin, w + 2 * margin), bool)
-    canvas[margin:margin + h, margin:margin + w] = mask
-    img = Image.fromarray(~canvas)
-    if margin >= 8:
-        draw = ImageDraw.Draw(img)
-        r = max(2, int(margin * 0.3))
-        lw = max(1, margin // 40)
-        cx = [margin // 2, w + margin + margin // 2]
-        cy = [margin // 2, h + margin + margin // 2]
-        for x in cx:  # the four corners, outside the artwork
-            for y in cy:
-                draw.ellipse([x - r, y - r, x + r, y + r], outline=0, width=lw)
-                draw.line([x - r - lw, y, x + r + lw, y], fill=0, width=lw)
-                draw.line([x, y - r - lw, x, y + r + lw], fill=0, width=lw)
-        if label:
-            size = max(6, int(margin * 0.3))
-            font = _font(size)
-            room = max(1, w - 2 * lw)
-            while size > 6 and draw.textlength(label, font=font) > room:
-                size -= 1
-                font = _font(size)
-            # Draw on a scratch strip and paste only the margin, so nothing reaches the artwork.
-            strip = Image.new("1", (w, margin), 1)
-            ImageDraw.Draw(strip).text((lw, (margin - size) // 2), label, fill=0, font=font)
-            img.paste(strip, (margin, h + margin))
-    return img
-
-
-def _font(size: int):
-    from PIL import ImageFont
-
-    try:
-        return ImageFont.load_default(size=size)
-    except (TypeError, OSError, ImportError):  # a Pillow without FreeType: fixed-size bitmap font
-        return ImageFont.load_default()
+    def sequence_doc(self) -> list[dict]:
+        """The print sequence as the manifest lists it: one step per film or flash."""
+        return [{"step": i, "flash": True} if name == FLASH else {"step": i, "film": name}
+                for i, name in enumerate(self.sequence, start=1)]
 
 
 def _hex(rgb8) -> str:
@@ -485,10 +617,11 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
 
 
 def separate(image, palette, *, substrate=None, dpi: float | None = None,
-             min_feature_mm: float = DEFAULT_MIN_FEATURE_MM, min_line_mm: float = DEFAULT_MIN_LINE_MM,
-             underbase: bool = False, choke_mm: float = DEFAULT_CHOKE_MM, order: Sequence | None = None,
-             max_pixels=None, edges: bool = True, dithered: str = "auto") -> Separation:
-    """Separate an image into one knocked-out 1-bit plate per printed ink.
+             min_feature_mm: float | None = None, min_line_mm: float | None = None,
+             underbase: bool | None = None, choke_mm: float | None = None, order: Sequence | None = None,
+             max_pixels=None, edges: bool | None = None, dithered: str | None = None,
+             settings: SeparationSettings | None = None) -> Separation:
+    """Separate an image into one knocked-out 1-bit film per printed ink, at print size.
 
     Parameters
     ----------
@@ -502,7 +635,9 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         (:func:`quantize.separation.choice.resolve_substrate`: the palette's
         locked colour, else the colour of the image border), or refused.
     dpi : float, optional
-        Output resolution; default the image's, else 300.
+        The artwork's resolution (default the file's, else 300): it sets the
+        printed size only when no print size is given, and a value that
+        differs from the file's is reported with the size it gives.
     min_feature_mm : float, default 0.5
         Diameter of the smallest printable dot; regions of smaller area are
         merged (0 turns the clean-up off).
@@ -524,10 +659,15 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Dithered input (:mod:`quantize.separation.dithered`): "auto" keeps
         every dot of an image that looks dithered (no edge step, no
         clean-up; noted), "keep" does so always, "clean" treats it as flat art.
+    settings : SeparationSettings, optional
+        Every other option (film resolution, print size, mirror, negative);
+        the keywords above, when given, take precedence over its fields.
 
     Returns
     -------
     Separation
+        Films on the film grid: ``settings.film_dpi``, printed at the size
+        asked for (``Separation.film``).
 
     Raises
     ------
@@ -536,6 +676,14 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         or a bad print order or substrate.
     ImageReadError
         The image cannot be read.
+
+    Notes
+    -----
+    Each ink's area is resampled to the film grid as a coverage image and
+    every film pixel goes to the ink of largest coverage
+    (:func:`quantize.separation.film.resample_indices`); the clean-up and
+    everything after it work in film pixels, sizes in mm at the film
+    resolution.
 
     References
     ----------
@@ -551,60 +699,104 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     >>> img = np.full((40, 40, 3), 255, np.uint8); img[10:30, 10:30] = (200, 16, 46)
     >>> pal = Palette(np.array([[255, 255, 255], [200, 16, 46]], np.uint8), np.array([True, False]))
     >>> sep = separate(img, pal, dpi=300)
-    >>> [(p.name, round(p.coverage, 2)) for p in sep.plates]
-    [('ink #c8102e', 25.0)]
+    >>> [(p.name, round(p.coverage, 2)) for p in sep.plates], sep.shape
+    ([('ink #c8102e', 25.0)], (80, 80))
     """
     from quantize.core.sampling import sample_picture
     from quantize.render.mapping import map_picture
 
-    _check_sizes(dpi=dpi, min_feature_mm=min_feature_mm, min_line_mm=min_line_mm, choke_mm=choke_mm)
-    if dithered not in DITHER_CHOICES:
-        raise SeparationError(f"dithered must be one of {', '.join(DITHER_CHOICES)}, got {dithered!r}")
+    given = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
+             "choke_mm": choke_mm, "edges": edges, "dithered": dithered}
+    st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
+    _check_settings(st)
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
-    dpi = _resolve_dpi(pic, dpi, notes)
+    art_dpi = _resolve_dpi(pic, st.dpi, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
-    dither, dither_note = dither_handling(mapped.indices, pic.opaque, dithered, source=pic.source)
+    dither, dither_note = dither_handling(mapped.indices, pic.opaque, st.dithered, source=pic.source)
     if dither_note:
         notes.append(dither_note)
-    # A dither's dots are deliberate: neither edge blends nor specks to merge.
-    clean_mm = 0.0 if dither["kept"] else min_feature_mm
     seams = None
-    if edges and not dither["kept"]:
+    if st.edges and not dither["kept"]:
         seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), smp.inverse.reshape(pic.shape),
                                       palette.lab, opaque=pic.opaque)
         mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
-    cleaned, cleanup = _clean(pic, smp, mapped, sub, min_feature_mm=clean_mm, dpi=dpi)
-    n_opaque = int(pic.opaque.sum())
-    plates = _ink_plates(cleaned, pic.opaque, palette, sub, order=order, first=2 if underbase else 1, notes=notes)
-    ub = _underbase_plate(cleaned, pic.opaque, palette, sub, plates, choke_mm=choke_mm, dpi=dpi,
-                          notes=notes) if underbase else None
-    thin, thin_summary = _thin_detail(plates, min_line_mm=min_line_mm, dpi=dpi)
-    settings = SeparationSettings(dpi=dpi, min_feature_mm=min_feature_mm,
-                                  min_area_px=round(cleanup.min_area_px, 3), min_line_mm=min_line_mm,
-                                  underbase=underbase, choke_mm=choke_mm if underbase else None,
-                                  order="given" if order is not None else "light to dark",
-                                  palette_fit=palette.fit.to_dict() if palette.fit is not None else {},
-                                  mapping=_EDGE_MAPPING if edges else "nearest by ΔE00")
-    sub_cov = float(100.0 * ((cleaned == sub) & pic.opaque).sum() / n_opaque) if sub is not None else 0.0
+    art_idx = mapped.indices
+    grid = _film_grid(pic, art_dpi, st, notes)
+    film_idx, film_op = resample_indices(art_idx, pic.opaque, grid.shape, fill=0 if sub is None else sub)
+    # A dither's dots are deliberate: neither edge blends nor specks to merge or grow.
+    clean_st = replace(st, min_feature_mm=0.0, keep_detail=False) if dither["kept"] else st
+    cleaned, cleanup, detail = _clean(pic, smp, film_idx, film_op, mapped, sub, clean_st, dpi=grid.dpi, notes=notes)
+    n_opaque = int(film_op.sum())
+    ink_order, layout = split_order(order)
+    plates = _ink_plates(cleaned, film_op, palette, sub, order=ink_order, first=1, notes=notes)
+    plates, traps = _trapped(cleaned, film_op, palette, plates, st, dpi=grid.dpi, notes=notes)
+    ub, base_plan = _underbase_plate(cleaned, film_op, palette, sub, plates, st, min_area_px=cleanup.min_area_px,
+                                     dpi=grid.dpi, notes=notes) if st.underbase else (None, None)
+    hl = _highlight_plate(cleaned, film_op, palette, plates, st, min_area_px=cleanup.min_area_px,
+                          notes=notes) if st.highlight_white else None
+    seq = print_sequence([p.name for p in plates], underbase=ub is not None, highlight=hl is not None,
+                         layout=layout)
+    plates, ub, hl = _numbered(seq, plates, ub, hl)
+    thin, thin_summary = _thin_detail(plates, min_line_mm=st.min_line_mm, dpi=grid.dpi)
+    st = replace(st, dpi=art_dpi, min_area_px=round(cleanup.min_area_px, 3),
+                 choke_mm=st.choke_mm if st.underbase else None,
+                 order="given" if order is not None else "light to dark",
+                 palette_fit=palette.fit.to_dict() if palette.fit is not None else {},
+                 mapping=_EDGE_MAPPING if st.edges else "nearest by ΔE00")
+    sub_cov = float(100.0 * ((cleaned == sub) & film_op).sum() / n_opaque) if sub is not None else 0.0
+    alpha = None if pic.alpha is None else np.where(film_op, 255, 0).astype(np.uint8)
     return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
-                      dpi=dpi, alpha=pic.alpha, source=pic.source, cleanup=cleanup, thin=thin,
-                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=settings,
+                      dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=cleanup, thin=thin,
+                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
-                      substrate_from=said, dither=dither)
+                      substrate_from=said, dither=dither, film=grid,
+                      art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),
+                      base_plan=base_plan, traps=tuple(traps), detail=detail,
+                      guidance={p.name: plate_guidance(p.mask, grid.dpi, white=p.index is None)
+                                for p in sorted([*plates, *(x for x in (ub, hl) if x)], key=lambda p: p.order)})
 
 
 # --------------------------------------------------------------------------- the steps of separate
 
 
-def _check_sizes(*, dpi, min_feature_mm, min_line_mm, choke_mm) -> None:
-    for nm, v in (("min_feature_mm", min_feature_mm), ("min_line_mm", min_line_mm), ("choke_mm", choke_mm)):
+def _check_settings(st: SeparationSettings) -> None:
+    for nm in ("min_feature_mm", "min_line_mm", "choke_mm"):
+        v = getattr(st, nm)
         if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
             raise SeparationError(f"{nm} must be a size of 0 mm or more, got {v!r}")
-    if dpi is not None and not (math.isfinite(dpi) and dpi > 0):
-        raise SeparationError(f"dpi must be positive, got {dpi!r}")
+    for nm in ("dpi", "print_width_mm", "print_height_mm"):
+        v = getattr(st, nm)
+        if v is not None and not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+            raise SeparationError(f"{nm} must be positive, got {v!r}")
+    for nm in ("trap_mm", "base_min_l", "highlight_min_l"):
+        v = getattr(st, nm)
+        if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
+            raise SeparationError(f"{nm} must be 0 or more, got {v!r}")
+    for pair in st.trap_pairs:
+        if not (isinstance(pair, (tuple, list)) and len(pair) == 3 and isinstance(pair[2], (int, float))
+                and math.isfinite(pair[2]) and pair[2] >= 0):
+            raise SeparationError(f"a trap pair is (ink, ink, width in mm of 0 or more), got {pair!r}")
+    if st.dithered not in DITHER_CHOICES:
+        raise SeparationError(f"dithered must be one of {', '.join(DITHER_CHOICES)}, got {st.dithered!r}")
+    if not (isinstance(st.film_dpi, (int, float)) and math.isfinite(st.film_dpi) and 10 <= st.film_dpi <= 10000):
+        raise SeparationError(f"film_dpi must be between 10 and 10000, got {st.film_dpi!r}")
+
+
+def _film_grid(pic, art_dpi: float, st: SeparationSettings, notes: list) -> FilmGrid:
+    """The film grid; says where the printed size came from when it could surprise."""
+    h, w = pic.opaque.shape
+    grid = film_grid((h, w), art_dpi, film_dpi=st.film_dpi, print_width_mm=st.print_width_mm,
+                     print_height_mm=st.print_height_mm)
+    recorded = _recorded_dpi(pic)
+    if st.print_width_mm is None and st.print_height_mm is None and recorded and abs(recorded - art_dpi) > 0.01:
+        notes.append(f"the artwork's resolution was given as {art_dpi:g} dpi; the file records {recorded:g} dpi: "
+                     f"it prints {grid.width_mm:.1f} x {grid.height_mm:.1f} mm, not "
+                     f"{px_to_mm(w, recorded):.1f} x {px_to_mm(h, recorded):.1f} mm "
+                     "(give a print width or height to set the size)")
+    return grid
 
 
 def _with_named_substrate(pic, palette, substrate, notes: list) -> tuple[Any, int | None, str]:
@@ -622,38 +814,80 @@ def _with_named_substrate(pic, palette, substrate, notes: list) -> tuple[Any, in
     return palette, sub, said
 
 
+def _recorded_dpi(pic) -> float | None:
+    if pic.dpi and pic.dpi[0] > 0:
+        dpi = float(pic.dpi[0])
+        # PNG stores whole pixels per metre: 300 dpi reads as 299.9994, 150 as 150.012 (up to 0.0127 off).
+        if abs(dpi - round(dpi)) < 0.02:
+            dpi = float(round(dpi))
+        return dpi
+    return None
+
+
 def _resolve_dpi(pic, dpi, notes: list) -> float:
     if dpi is not None:
         return dpi
-    if pic.dpi and pic.dpi[0] > 0:
-        dpi = float(pic.dpi[0])
-        if abs(dpi - round(dpi)) < 0.01:  # PNG stores pixels per metre: 300 dpi reads as 299.9994
-            dpi = float(round(dpi))
-        return dpi
+    recorded = _recorded_dpi(pic)
+    if recorded:
+        return recorded
     notes.append(f"the image records no resolution; {DEFAULT_DPI:g} dpi assumed")
     return DEFAULT_DPI
 
 
-def _clean(pic, smp, mapped, sub, *, min_feature_mm, dpi) -> tuple[np.ndarray, CleanupReport]:
-    """Merge the regions smaller than a dot of ``min_feature_mm``; refuse a clean-up that erases the print."""
-    opaque = pic.opaque
-    n_opaque = int(opaque.sum())
-    idx = mapped.indices
+def _clean(pic, smp, film_idx, film_op, mapped, sub, st, *, dpi,
+           notes: list) -> tuple[np.ndarray, CleanupReport, DetailReport | None]:
+    """Keep the detail that can be kept, merge the rest below the minimum dot; refuse a clean-up that erases the print."""
+    min_feature_mm = st.min_feature_mm
+    n_opaque = int(film_op.sum())
     ink_lab = mapped.palette.lab
     d_px = mm_to_px(min_feature_mm, dpi)
     min_area = math.pi * d_px * d_px / 4.0
     if min_area > n_opaque:
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
-                              f"{dpi:g} dpi) is larger than the whole image ({n_opaque} px): it would erase the image")
-    printed_before = int((opaque & (idx != sub)).sum()) if sub is not None else n_opaque
-    cleaned, report = clean_small_regions(idx, ink_lab, min_area=min_area, opaque=opaque)
-    printed_after = opaque & (cleaned != sub) if sub is not None else opaque
+                              f"{dpi:g} dpi) is larger than the whole print ({n_opaque} px): it would erase it")
+    printed_before = int((film_op & (film_idx != sub)).sum()) if sub is not None else n_opaque
+    inks = [int(i) for i in np.unique(film_idx[film_op]) if i != sub]
+    detail = None
+    if st.keep_detail:
+        film_idx, detail = keep_detail(film_idx, film_op, inks, min_area=min_area,
+                                       line_px=mm_to_px(st.min_line_mm, dpi), keep_fraction=st.keep_fraction)
+        _detail_notes(detail, mapped.palette, dpi, min_feature_mm, notes)
+    cleaned, report = clean_small_regions(film_idx, ink_lab, min_area=min_area, opaque=film_op)
+    printed_after = film_op & (cleaned != sub) if sub is not None else film_op
     if printed_before and not printed_after.any():
         raise SeparationError(f"{pic.source}: a minimum feature of {min_feature_mm:g} mm ({min_area:.0f} px at "
                               f"{dpi:g} dpi) would erase the image: every printed area is smaller than that")
+    lost = [_ink_name(mapped.palette, i) for i in inks if not ((cleaned == i) & film_op).any()]
+    if lost:
+        notes.append(f"warning: the clean-up removed every area of {', '.join(lost)} (all smaller than the "
+                     f"{min_feature_mm:g} mm minimum dot): no plate for it; lower the minimum feature to keep it")
+    at_art = sample_at_artwork(cleaned, pic.opaque.shape)
     report = replace(report, min_feature_mm=min_feature_mm, delta_e_before=mapped.delta_e,
-                     delta_e_after=_source_delta_e(smp, cleaned, ink_lab))
-    return cleaned, report
+                     delta_e_after=_source_delta_e(smp, at_art, ink_lab))
+    return cleaned, report, detail
+
+
+def _detail_notes(detail: DetailReport, palette, dpi: float, min_feature_mm: float, notes: list) -> None:
+    if detail.lines_thickened or detail.elements_grown:
+        notes.append(f"kept detail: {detail.lines_thickened} thin line part(s) thickened and "
+                     f"{detail.elements_grown} small element(s) grown to the minimum "
+                     f"({detail.pixels_added} film pixels)")
+    if detail.dropped_count:
+        d = detail.dropped[0]
+        notes.append(f"warning: {detail.dropped_count} small element(s) below the {min_feature_mm:g} mm minimum dot "
+                     f"are dropped whole (merged into a neighbour); the largest, {_ink_name(palette, d['ink'])}, at "
+                     f"x {px_to_mm(d['x'], dpi):.1f} mm, y {px_to_mm(d['y'], dpi):.1f} mm "
+                     f"({px_to_mm(d['w'], dpi):.1f} x {px_to_mm(d['h'], dpi):.1f} mm); the manifest lists them")
+
+
+def _detail_doc(detail: DetailReport, palette, dpi: float) -> dict:
+    def mm(v):
+        return round(px_to_mm(v, dpi), 3)
+
+    return {"lines_thickened": detail.lines_thickened, "elements_grown": detail.elements_grown,
+            "pixels_added": detail.pixels_added, "dropped_count": detail.dropped_count,
+            "dropped": [{"ink": _ink_name(palette, d["ink"]), "pixels": d["pixels"], "x_mm": mm(d["x"]),
+                         "y_mm": mm(d["y"]), "w_mm": mm(d["w"]), "h_mm": mm(d["h"])} for d in detail.dropped]}
 
 
 def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list) -> list[Plate]:
@@ -679,18 +913,90 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
     return plates
 
 
-def _underbase_plate(cleaned, opaque, palette, sub, plates, *, choke_mm, dpi, notes: list) -> Plate:
-    """The white underbase: every printed pixel, choked by ``choke_mm``, printed first."""
-    printed = opaque & (cleaned != sub) if sub is not None else opaque.copy()
-    ub_mask = underbase_mask(printed, mm_to_px(choke_mm, dpi))
-    ub = Plate(name="underbase", index=None, order=1, mask=ub_mask,
-               coverage=float(100.0 * ub_mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
-               lab=np.array([100.0, 0, 0]), slug="underbase")
-    if "underbase" in [p.name.casefold() for p in plates]:
+def _trapped(cleaned, opaque, palette, plates, st, *, dpi, notes: list) -> tuple[list[Plate], list[dict]]:
+    """The ink plates with their traps and keyline fills (see :mod:`quantize.separation.trap`)."""
+    by_name = {p.name.casefold(): p.index for p in plates}
+    by_name.update({palette.hex[p.index]: p.index for p in plates})
+
+    def ink(name) -> int:
+        i = by_name.get(str(name).strip().casefold())
+        if i is None:
+            raise SeparationError(f"trap: {name!r} is not a printed ink; printed inks are "
+                                  + ", ".join(p.name for p in plates))
+        return i
+
+    pair_px = {}
+    for a, b, mm in st.trap_pairs:
+        ia, ib = ink(a), ink(b)
+        if ia == ib:
+            raise SeparationError(f"trap: a pair needs two inks, got {a!r} twice")
+        pair_px[frozenset((ia, ib))] = mm_to_px(mm, dpi)
+    keys = tuple(ink(k) for k in st.overprint)
+    res = trap_plates(cleaned, opaque, [p.index for p in plates], palette.lab[:, 0], width_px=mm_to_px(st.trap_mm, dpi),
+                      pair_px=pair_px, overprint=keys)
+    # Coverage stays the knock-out share (the plates and the substrate sum to 100 %); the trap is on the film.
+    plates = [replace(p, mask=res.masks[p.index]) for p in plates]
+    name = {p.index: p.name for p in plates}
+    pos = {p.index: p.order for p in plates}
+    joins = []
+    for j in res.joins:
+        if "overprint" in j:
+            joins.append({"overprint": name[j["overprint"]], "under": name[j["under"]], "pixels": j["pixels"]})
+            continue
+        joins.append({"lighter": name[j["lighter"]], "darker": name[j["darker"]],
+                      "width_mm": round(px_to_mm(j["width_px"], dpi), 4), "pixels": j["pixels"]})
+        if pos[j["lighter"]] > pos[j["darker"]]:
+            notes.append(f"trap: {name[j['lighter']]} spreads under {name[j['darker']]} but prints after it, "
+                         "so the spread shows on top; print the lighter ink first or set that pair's trap to 0")
+    return plates, joins
+
+
+def _underbase_plate(cleaned, opaque, palette, sub, plates, st, *, min_area_px, dpi,
+                     notes: list) -> tuple[Plate, BasePlan]:
+    """The white underbase under the inks at or above ``st.base_min_l``, choked, printed first."""
+    if UNDERBASE in [p.name.casefold() for p in plates]:
         raise SeparationError("an ink is called 'underbase'; rename it, the underbase plate uses that name")
+    on_base = [p.index for p in plates if palette.lab[p.index, 0] >= st.base_min_l]
+    left_off = [p.name for p in plates if p.index not in on_base]
+    base = np.isin(cleaned, on_base) & opaque
+    plan = underbase_plan(base, choke_px=mm_to_px(st.choke_mm, dpi), min_area_px=min_area_px, dpi=dpi)
+    ub = Plate(name=UNDERBASE, index=None, order=0, mask=plan.mask,
+               coverage=float(100.0 * plan.mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
+               lab=np.array([100.0, 0, 0]), slug="underbase")
+    if left_off:
+        notes.append(f"left off the underbase (L* below {st.base_min_l:g}): {', '.join(left_off)}")
+    if plan.islands_removed:
+        notes.append(f"underbase: {plan.islands_removed} piece(s) smaller than the minimum dot removed")
+    if plan.bare_count:
+        b = plan.bare[0]
+        notes.append(f"warning: {plan.bare_count} printed area(s) are too thin to carry an underbase after the "
+                     f"{st.choke_mm:g} mm choke and print without one; the largest at x {b['x_mm']:.1f} mm, "
+                     f"y {b['y_mm']:.1f} mm ({b['w_mm']:.1f} x {b['h_mm']:.1f} mm); all are in the manifest")
     if sub is not None and palette.lab[sub, 0] > 60:
         notes.append("an underbase on a light substrate is usually not needed")
-    return ub
+    return ub, plan
+
+
+def _highlight_plate(cleaned, opaque, palette, plates, st, *, min_area_px, notes: list) -> Plate | None:
+    """The highlight white: the lightest inks' areas, printed again in white at the end."""
+    if HIGHLIGHT in [p.name.casefold() for p in plates]:
+        raise SeparationError(f"an ink is called {HIGHLIGHT!r}; rename it, the highlight plate uses that name")
+    mask = highlight_mask(cleaned, opaque, palette.lab[:, 0], [p.index for p in plates], min_l=st.highlight_min_l,
+                          min_area_px=min_area_px)
+    if not mask.any():
+        notes.append(f"no ink is as light as L* {st.highlight_min_l:g}: no highlight white plate")
+        return None
+    return Plate(name=HIGHLIGHT, index=None, order=0, mask=mask, coverage=float(100.0 * mask.sum() / int(opaque.sum())),
+                 rgb8=np.array([255, 255, 255], np.uint8), lab=np.array([100.0, 0, 0]), slug="highlight-white")
+
+
+def _numbered(seq: list[str], plates: list[Plate], ub: Plate | None, hl: Plate | None):
+    """The plates numbered by their place in the print sequence (flashes are not films)."""
+    films = [name for name in seq if name != FLASH]
+    pos = {name: i + 1 for i, name in enumerate(films)}
+    plates = sorted((replace(p, order=pos[p.name]) for p in plates), key=lambda p: p.order)
+    return (plates, replace(ub, order=pos[UNDERBASE]) if ub else None,
+            replace(hl, order=pos[HIGHLIGHT]) if hl else None)
 
 
 def _thin_detail(plates, *, min_line_mm, dpi) -> tuple[list, dict]:
