@@ -66,9 +66,9 @@ def test_film_grid_keeps_the_files_physical_size_unless_a_print_size_is_given():
 def test_films_tiffs_and_pdf_pages_have_the_printed_size(tmp_path):
     img = _three_inks()
     sep = separate(img, _palette(WHITE, RED, BLUE, GOLD), dpi=150,
-                   settings=SeparationSettings(print_width_mm=120.0, film_dpi=600))
+                   settings=SeparationSettings(print_width_mm=60.0, film_dpi=600))
     written = sep.write(tmp_path, stem="job", margin_mm=10)
-    w_px, h_px = round(120 / MM_PER_INCH * 600), round(80 / MM_PER_INCH * 600)
+    w_px, h_px = round(60 / MM_PER_INCH * 600), round(40 / MM_PER_INCH * 600)
     margin = round(10 / MM_PER_INCH * 600)
     for p in sep.films():
         with Image.open(written["plates"][p.name][0]) as im:
@@ -79,7 +79,7 @@ def test_films_tiffs_and_pdf_pages_have_the_printed_size(tmp_path):
     assert len(boxes) == len(sep.films()) == 3
     one_px_mm = MM_PER_INCH / 600
     for bw, bh in boxes:  # page = film + a 10 mm margin on every side, to the nearest film pixel
-        assert bw == pytest.approx(120 + 20, abs=one_px_mm) and bh == pytest.approx(80 + 20, abs=one_px_mm)
+        assert bw == pytest.approx(60 + 20, abs=one_px_mm) and bh == pytest.approx(40 + 20, abs=one_px_mm)
         assert bw == pytest.approx((w_px + 2 * margin) / 600 * MM_PER_INCH, abs=1e-3)
     doc = json.loads(written["manifest"].read_text())
     assert doc["films_pdf"] == written["pdf"].name and doc["film"]["size_px"] == [w_px, h_px]
@@ -204,3 +204,19 @@ def test_cli_print_width_in_inches_and_film_options(tmp_path):
     bad = CliRunner().invoke(command, [str(path), "-o", str(tmp_path / "o2"), "--palette", str(tmp_path / "pal.json"),
                                        "--print-width", "wide"])
     assert bad.exit_code != 0 and "is not a length" in bad.output
+
+
+def test_a_diagonal_edge_on_the_written_film_has_no_staircase(tmp_path):
+    # The same measure on a film written by separate: a 150 dpi hard edge of slope 0.3, films at 600 dpi.
+    h, w = 60, 120
+    yy, xx = np.mgrid[:h, :w]
+    img = np.empty((h, w, 3), np.uint8)
+    img[:] = WHITE
+    img[yy + 0.5 > 0.3 * (xx + 0.5) + 10] = BLUE
+    sep = separate(img, _palette(WHITE, BLUE), dpi=150, settings=SeparationSettings(film_dpi=600))
+    written = sep.write(tmp_path, stem="diag", pdf=False)
+    with Image.open(written["plates"][sep.plates[0].name][0]) as im:
+        ink = ~np.asarray(im)
+    assert ink.shape == (4 * h, 4 * w) and im.info["dpi"] == pytest.approx((600, 600))
+    steps = np.abs(np.diff(ink.argmax(axis=0)[20:-20].astype(int)))
+    assert steps.max() <= 2 and np.mean(steps <= 1) > 0.9

@@ -70,3 +70,13 @@ def test_separation_lists_guidance_for_every_film_with_the_rule(tmp_path):
     red_line = films["Red"]["smallest_line_mm"]
     assert 0.35 - 0.05 <= red_line <= 0.40  # thickened, then measured on the film
     assert films["Red"]["mesh"]["threads_per_inch"] >= films["Ink"]["mesh"]["threads_per_inch"]
+
+
+def test_a_bump_on_an_edge_is_no_line():
+    m = np.zeros((200, 200), bool)
+    m[50:150, 50:150] = True
+    m[49, 100] = True  # one pixel standing out of the top edge
+    g = plate_guidance(m, 600)
+    assert g["smallest_line_mm"] is None  # a square has no line, and the bump is none
+    m[160:190, 20:180] = True  # a bar 30 px thick
+    assert plate_guidance(m, 600)["smallest_line_mm"] == pytest.approx(29 * MM_PER_INCH / 600, abs=1e-3)

@@ -155,3 +155,16 @@ def test_cli_trap_options(tmp_path):
     bad = CliRunner().invoke(command, [str(tmp_path / "a.png"), "-o", str(tmp_path / "o2"), "--palette",
                                        str(tmp_path / "p.json"), "--trap-pair", "Yellow-Navy"])
     assert bad.exit_code != 0 and "write INK/INK=MM" in bad.output
+
+
+def test_inks_touching_at_a_corner_get_no_specks():
+    img = np.empty((60, 60, 3), np.uint8)
+    img[:] = SHIRT
+    img[10:30, 10:30] = YELLOW
+    img[30:50, 30:50] = NAVY  # meets the yellow at one corner only
+    sep = separate(img, _palette(), dpi=300, settings=SeparationSettings(film_dpi=300, trap_mm=0.3))
+    y = sep.plates[[p.name for p in sep.plates].index("Yellow")].mask
+    from skimage.measure import label
+
+    assert label(y, connectivity=1).max() == 1  # one piece (side by side): no speck across the corner
+    assert not (y & (sep.indices == sep.substrate)).any()

@@ -4,8 +4,9 @@ The smallest dot is the smallest separate piece of the film, as the
 diameter of a disc of the same area. The smallest line is the narrowest
 place along the ridge of the distance map (the local maxima of the
 Euclidean distance to the edge, :func:`scipy.ndimage.distance_transform_edt`:
-the middle of every line): twice that distance less a pixel, which is low
-by up to a film pixel on lines along rows or columns and by up to two on
+the middle of every line), on ridges at least four widths long (a bump of
+a pixel on an edge is no line): twice that distance less a pixel, which is
+low by up to a film pixel on lines along rows or columns and by up to two on
 slanted ones (an estimate on the safe side).
 The area is the film's inked pixels at its resolution.
 
@@ -101,7 +102,16 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
     # clear centre.
     dist = ndi.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
     ridge = mask & (dist >= ndi.maximum_filter(dist, size=3))
-    line_px = float(2.0 * dist[ridge].min() - 1.0) if ridge.any() else None
+    # A one-pixel bump on an edge is a ridge of a pixel or two; a line is a ridge several times longer than
+    # it is wide. Only ridges at least four widths (and four pixels) long count.
+    rlab, rn = ndi.label(ridge, structure=np.ones((3, 3)))
+    line_px = None
+    if rn:
+        idx = np.arange(1, rn + 1)
+        length = ndi.sum_labels(ridge, rlab, idx)
+        width = 2.0 * ndi.minimum(dist, rlab, idx) - 1.0
+        lines = (length >= np.maximum(4.0 * width, 4.0))
+        line_px = float(width[lines].min()) if lines.any() else None
     rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
     dot_mm = round(px_to_mm(dot_px, dpi), 3)
     line_mm = None if line_px is None else round(px_to_mm(max(line_px, 1.0), dpi), 3)

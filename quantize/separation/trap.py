@@ -88,6 +88,8 @@ def trap_plates(indices: np.ndarray, opaque: np.ndarray, printed: list[int], ink
     >>> int(res.masks[0][0].sum()), int(res.masks[1][0].sum())
     (13, 10)
     """
+    from scipy import ndimage as ndi
+
     pair_px = pair_px or {}
     base = {i: (indices == i) & opaque for i in printed}
     masks = {i: m.copy() for i, m in base.items()}
@@ -111,6 +113,10 @@ def trap_plates(indices: np.ndarray, opaque: np.ndarray, printed: list[int], ink
             if w <= 0:
                 continue
             reach = base[j][box] & (dist <= w)
+            if reach.any():
+                # Only spread that touches ink i: a piece reached across a corner would be a speck on the film.
+                lab, _ = ndi.label(reach | base[i][box])
+                reach &= np.isin(lab, np.unique(lab[base[i][box]]))
             if reach.any():
                 masks[i][box] |= reach
                 joins.append({"lighter": i, "darker": j, "width_px": w, "pixels": int(reach.sum())})
