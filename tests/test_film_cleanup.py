@@ -99,3 +99,19 @@ def test_an_ink_that_loses_all_its_area_is_a_warning():
     sep = separate(img, pal, dpi=300, settings=SeparationSettings(film_dpi=300))
     assert [p.name for p in sep.plates] == ["Ink"]
     assert any(n.startswith("warning: the clean-up removed every area of Red") for n in sep.notes)
+
+
+@pytest.mark.parametrize("r", [1, 3, 4, 8, 12])
+def test_disk_erosion_and_dilation_by_runs_equal_scikit_image(r):
+    # The run-window filter must give exactly scikit-image's binary erosion and
+    # dilation by morphology.disk(r) (the reference), outside counted unprinted.
+    from skimage import morphology
+
+    from quantize.separation.cleanup import _disk_filter
+
+    rng = np.random.default_rng(r)
+    for _ in range(5):
+        m = np.pad(rng.random(tuple(rng.integers(10, 70, 2))) < rng.uniform(0.3, 0.9), r + 2)
+        fp = morphology.disk(r)
+        assert np.array_equal(_disk_filter(m, r, erode=True), morphology.binary_erosion(m, fp))
+        assert np.array_equal(_disk_filter(m, r, erode=False), morphology.binary_dilation(m, fp))

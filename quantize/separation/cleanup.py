@@ -281,13 +281,52 @@ def find_thin_features(mask: np.ndarray, *, width_px: float, dpi: float, name: s
     return found[:limit], summary
 
 
+#: Largest disk radius (pixels) filtered by runs (:func:`_disk_filter`); larger
+#: ones by distance transforms, whose cost does not grow with the radius.  On a
+#: 7.6 MP film the runs took 0.13 s at r = 4 and 0.17 s at r = 8, the two
+#: distance transforms 1.0-1.5 s (the same sets, tested).
+_RUNS_UP_TO = 16
+
+
+def _disk_filter(m: np.ndarray, r: int, *, erode: bool) -> np.ndarray:
+    """Erosion (or dilation) of a 2-D bool mask by the digital disk {|v| <= r}, outside counted unprinted.
+
+    The disk is a stack of horizontal runs, of half-width isqrt(r^2 - dy^2)
+    at row offset dy; a run's erosion (dilation) is a window count on row
+    cumulative sums, and the disk's is their intersection (union) over the
+    rows: about 3r passes over the image instead of (2r + 1)^2 per pixel.
+    """
+    h, w = m.shape
+    # Row cumulative sums with a leading zero column and r zero columns of room on each side.
+    cs = np.zeros((h, w + 2 * r + 1), np.int32)
+    np.cumsum(m, axis=1, dtype=np.int32, out=cs[:, r + 1:w + r + 1])
+    cs[:, w + r + 1:] = cs[:, w + r:w + r + 1]
+    runs = {}
+    for half in {math.isqrt(r * r - dy * dy) for dy in range(-r, r + 1)}:
+        count = cs[:, r + 1 + half:r + 1 + half + w] - cs[:, r - half:r - half + w]
+        runs[half] = count == 2 * half + 1 if erode else count > 0
+    out = np.ones_like(m) if erode else np.zeros_like(m)
+    for dy in range(-r, r + 1):
+        run = runs[math.isqrt(r * r - dy * dy)]
+        # out[y] combines run[y + dy]; rows beyond the image are unprinted.
+        lo, hi = max(0, -dy), min(h, h - dy)
+        if erode:
+            out[lo:hi] &= run[lo + dy:hi + dy]
+            out[:lo] = False
+            out[hi:] = False
+        else:
+            out[lo:hi] |= run[lo + dy:hi + dy]
+    return out
+
+
 def _open_close(m: np.ndarray, r: int) -> tuple[np.ndarray, np.ndarray]:
     """Opening and closing of ``m`` (padded with unprinted pixels) by the digital disk {|v| <= r}."""
     from skimage import morphology
 
-    if r <= 8:  # a small footprint is cheaper than distance transforms
-        fp = morphology.disk(r)
-        return morphology.opening(m, fp).astype(bool), morphology.closing(m, fp).astype(bool)
+    if r <= _RUNS_UP_TO:
+        opened = _disk_filter(_disk_filter(m, r, erode=True), r, erode=False)
+        closed = _disk_filter(_disk_filter(m, r, erode=False), r, erode=True)
+        return opened, closed
     eroded = morphology.isotropic_erosion(m, r)
     # A distance transform needs at least one zero: an empty erosion opens to nothing.
     opened = morphology.isotropic_dilation(eroded, r) if eroded.any() else np.zeros_like(m)
@@ -357,6 +396,8 @@ def _opening(m: np.ndarray, r: int) -> np.ndarray:
     """
     from scipy import ndimage as ndi
 
+    if r <= _RUNS_UP_TO:
+        return _disk_filter(_disk_filter(m, r, erode=True), r, erode=False)
     eroded = ndi.distance_transform_edt(m) > r
     if not eroded.any():
         return eroded

@@ -94,6 +94,10 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
     if not mask.any():
         return {"smallest_dot_mm": None, "smallest_line_mm": None, "area_cm2": 0.0, "box_cm": [0.0, 0.0],
                 "pieces": 0, "mesh": mesh_for(None)}
+    # Everything below is measured on the inked box only (plus a clear border).
+    rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
+    box_h, box_w = int(rows[-1] - rows[0] + 1), int(cols[-1] - cols[0] + 1)
+    mask = mask[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1]
     lab, n = label(mask, connectivity=2, return_num=True)
     areas = np.bincount(lab.ravel())[1:]
     dot_px = 2.0 * np.sqrt(areas.min() / np.pi)
@@ -112,11 +116,10 @@ def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict
         width = 2.0 * ndi.minimum(dist, rlab, idx) - 1.0
         lines = (length >= np.maximum(4.0 * width, 4.0))
         line_px = float(width[lines].min()) if lines.any() else None
-    rows, cols = np.flatnonzero(mask.any(axis=1)), np.flatnonzero(mask.any(axis=0))
     dot_mm = round(px_to_mm(dot_px, dpi), 3)
     line_mm = None if line_px is None else round(px_to_mm(max(line_px, 1.0), dpi), 3)
     finest = dot_mm if line_mm is None else min(dot_mm, line_mm)
     return {"smallest_dot_mm": dot_mm, "smallest_line_mm": line_mm,
             "area_cm2": round(float(mask.sum()) * px_cm * px_cm, 3),
-            "box_cm": [round(float(cols[-1] - cols[0] + 1) * px_cm, 2), round(float(rows[-1] - rows[0] + 1) * px_cm, 2)],
+            "box_cm": [round(box_w * px_cm, 2), round(box_h * px_cm, 2)],
             "pieces": int(n), "mesh": mesh_for(finest, white=white)}
