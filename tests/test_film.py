@@ -183,6 +183,13 @@ def test_pdf_has_one_page_per_film_with_marks_and_label(tmp_path):
         assert ink[:margin, margin + w // 2 - 2:margin + w // 2 + 3].any()  # top centre mark
         assert ink[margin + h // 2 - 2:margin + h // 2 + 3, :margin].any()  # left centre mark
         assert ink[h + margin:, margin:margin + w // 2].any()  # the label
+    # Each page carries a film image of the TIFF's pixel size (film and margins, marks included).
+    sizes = [(int(a), int(b)) for a, b in re.findall(rb"/Width\s+(\d+)\s*/Height\s+(\d+)", pdf)]
+    tiff_sizes = []
+    for p in sep.films():
+        with Image.open(written["plates"][p.name][0]) as im:
+            tiff_sizes.append(im.size)
+    assert sorted(sizes) == sorted(tiff_sizes)
 
 
 def test_cli_print_width_in_inches_and_film_options(tmp_path):
