@@ -167,3 +167,27 @@ def lettering_artwork(n_inks, seed=0, *, size=320, min_de=20.0, supersample=4):
         draw.line([(0, (size - 60 + 12 * i) * s), (size * s, (size - 70 + 15 * i) * s)], fill=colour, width=s)
     small = big.resize((size, size), Image.Resampling.BOX)
     return np.asarray(small).copy(), inks
+
+
+def add_linework(rgb, inks, seed=0, *, width=2, min_de=20.0, supersample=4, colour=None):
+    """Draw connected thin linework (``width`` px) in a new ink of its own: outlines and a zigzag.
+
+    The new ink (``colour``, or one ``min_de`` from every ink) has no area
+    anywhere else, as the outlines of a drawing or a signature have.
+    Returns (rgb, inks with the new ink last).
+    """
+    rng = np.random.default_rng(seed + 2000)
+    colour = tuple(int(v) for v in (far_colour(inks, rng, min_de) if colour is None else colour))
+    h, w = rgb.shape[:2]
+    s = supersample
+    big = Image.fromarray(rgb).resize((w * s, h * s), Image.Resampling.NEAREST)
+    draw = ImageDraw.Draw(big)
+    # A frame with a cross inside, and a zigzag hanging from it: one connected structure.
+    x0, y0 = rng.uniform(0.05, 0.3, 2) * (w, h)
+    x1, y1 = rng.uniform(0.7, 0.95, 2) * (w, h)
+    draw.rectangle([s * x0, s * y0, s * x1, s * y1], outline=colour, width=width * s)
+    draw.line([(s * x0, s * y0), (s * x1, s * y1)], fill=colour, width=width * s)
+    ys = np.linspace(y0, y1, 9)
+    xs = np.where(np.arange(9) % 2, x0 + 0.25 * (x1 - x0), x0 + 0.45 * (x1 - x0))
+    draw.line([(s * x, s * y) for x, y in zip(xs, ys)], fill=colour, width=width * s)
+    return np.asarray(big.resize((w, h), Image.Resampling.BOX)).copy(), np.vstack([inks, np.array(colour, np.uint8)[None]])

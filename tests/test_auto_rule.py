@@ -19,7 +19,7 @@ from colour import delta_E
 from PIL import Image
 from skimage.color import rgb2lab
 
-from artwork import add_spot, flat_artwork, jpeg, lettering_artwork, scan, scanned_inks, shaded
+from artwork import add_linework, add_spot, flat_artwork, jpeg, lettering_artwork, scan, scanned_inks, shaded
 from quantize.cli.main import main
 from quantize.fit.engine import fit_palette
 
@@ -156,3 +156,73 @@ def test_locked_colours_that_no_pixel_uses_or_that_a_fitted_colour_repeats_are_n
     noisy[:, 32:] = (230, 220, 60)
     pal = fit_palette(noisy, 3, locked=["#285aa0"], rule="bic")
     assert any("locked colour #285aa0" in n and "apart" in n for n in pal.fit.notes), pal.fit.notes
+
+
+def _spot_case(seed):
+    """Flat art of 4-8 inks (N drawn from the seed), one spot of 0.2-0.5 %, through a simulated scan."""
+    rng = np.random.default_rng(500 + seed)
+    n, share = int(rng.integers(4, 9)), float(rng.uniform(0.002, 0.005))
+    rgb, inks = add_spot(*flat_artwork(n, 100 + seed), share, 100 + seed)
+    return scan(rgb, seed), scanned_inks(inks)
+
+
+#: Seeds the spot and structure analysis was never tuned or looked at on
+#: (tuning used 0-59 and 100-159).
+HELD_OUT_SPOTS = list(range(200, 216))
+
+
+@pytest.mark.parametrize("seed", HELD_OUT_SPOTS)
+def test_a_small_spot_through_a_scan_is_an_ink(seed):
+    rgb, inks = _spot_case(seed)
+    pal = fit_palette(rgb)
+    # Expected: N + 1 colours, the N inks the generator painted and the spot.
+    assert pal.k == len(inks), pal.fit.reason
+    truth = rgb2lab(np.asarray(inks, np.float64)[None] / 255.0)[0]
+    labs = rgb2lab(pal.rgb8[None].astype(np.float64) / 255.0)[0]
+    de = np.array([delta_E(np.broadcast_to(t, labs.shape), labs, method="CIE 2000").min() for t in truth])
+    # Expected: every ink within ΔE00 2 of its palette colour; the spot, whose
+    # small inside JPEG's half-resolution chroma mixes with the ground, within 3.
+    assert de[:-1].max() < 2.0 and de[-1] < 3.0, de
+
+
+def _logo_on_white():
+    a = skimage.data.logo()
+    alpha = a[..., 3:4] / 255.0
+    return np.rint(a[..., :3] * alpha + 255 * (1 - alpha)).astype(np.uint8)
+
+
+def test_the_logo_keeps_its_linework():
+    # scikit-image's logo, looked at by eye: white, a flat green and a flat
+    # orange, a tinted (orange to white) photograph of a snake's scales, and
+    # a dark sketch of scales drawn in thin lines over the green.  Its inks
+    # are white, green, orange, the orange tint and the dark linework: at
+    # least 5; the tinted photograph may take a tint or two more (at most 8).
+    rgb = _logo_on_white()
+    pal = fit_palette(rgb)
+    assert pal.fit.judged == "artwork", pal.fit.kind_reason
+    assert 5 <= pal.k <= 8, pal.fit.reason
+    labs = rgb2lab(pal.rgb8[None].astype(np.float64) / 255.0)[0]
+    lab = rgb2lab(rgb / 255.0)
+
+    def nearest(colour):
+        return delta_E(np.broadcast_to(colour, labs.shape), labs, method="CIE 2000").min()
+
+    # The linework's ink: the median of its darkest pixels (L* < 25, by
+    # scikit-image's rgb2lab), about 0.1 % of the logo.
+    line = np.median(lab[lab[..., 0] < 25], axis=0)
+    assert nearest(line) < 5.0  # FOUND_DE: the ink is printed
+    for rgb8 in [(255, 255, 255), (150, 200, 75), (255, 127, 25)]:  # its flat inks, read off its pixels
+        assert nearest(rgb2lab(np.array(rgb8, float)[None, None] / 255.0)[0, 0]) < 2.0
+    assert pal.fit.lost == ()
+
+
+@pytest.mark.parametrize("seed", [20, 21, 22, 23])
+def test_dark_linework_in_its_own_ink_is_an_ink(seed):
+    # 3 px outlines and a zigzag in a near-black ink that has no area of its own.
+    rng = np.random.default_rng(seed)
+    rgb, inks = flat_artwork(int(rng.integers(3, 6)), 400 + seed, min_de=20)
+    rgb, inks = add_linework(rgb, inks, 400 + seed, width=3, colour=(25, 25, 30))
+    pal = fit_palette(rgb)
+    # Expected: N + 1, the flat inks and the linework, each within ΔE00 2.
+    assert pal.k == len(inks), pal.fit.reason
+    assert _worst_ink_de(inks, pal) < 2.0

@@ -64,6 +64,66 @@ def test_inertia_not_worse_than_scikit_learn(k, seed):
     assert ours.inertia == pytest.approx(naive.inertia(pts, w, ours.centres))
 
 
+def mixed_cloud(seed):
+    """Twelve blobs and uniform noise, with uneven weights: many local minima (invented data)."""
+    rng = np.random.default_rng(seed)
+    blobs_ = np.concatenate([rng.normal(c, 3, (150, 3)) for c in rng.uniform(0, 100, (12, 3))])
+    pts = np.concatenate([blobs_, rng.uniform(0, 100, (1200, 3))])
+    return pts, rng.uniform(0.5, 2, len(pts))
+
+
+def photo_colours():
+    """The distinct colours of scikit-image's astronaut photo (every 8th pixel) in CIELAB, weighted by count.
+
+    CIELAB by scikit-image's rgb2lab (D65), so the data does not pass through our conversion.
+    """
+    import skimage.data
+    from skimage.color import rgb2lab
+
+    codes, counts = np.unique(skimage.data.astronaut()[::8, ::8].reshape(-1, 3), axis=0, return_counts=True)
+    return rgb2lab(codes[None].astype(np.uint8))[0], counts.astype(float)
+
+
+@pytest.mark.parametrize("data", ["cloud", "photo"])
+def test_inertia_at_most_scikit_learn_for_k_2_to_32(data):
+    # Reference: sklearn.cluster.KMeans (scikit-learn, test-only) on the same
+    # data, weights and number of restarts (n_init = restarts = 4).  Ours
+    # must reach its inertia or lower at every k; the 1e-9 allows for the
+    # rounding of two sums over the same partition.
+    from sklearn.cluster import KMeans
+
+    pts, w = mixed_cloud(7) if data == "cloud" else photo_colours()
+    worse = {}
+    for k in range(2, 33):
+        ours = kmeans(pts, k, weights=w, restarts=4, seed=k)
+        ref = KMeans(n_clusters=k, n_init=4, random_state=k).fit(pts, sample_weight=w)
+        if ours.inertia > (1 + 1e-9) * ref.inertia_:
+            worse[k] = ours.inertia / ref.inertia_
+        assert ours.inertia == pytest.approx(naive.inertia(pts, w, ours.centres), rel=1e-9)
+    assert not worse, worse
+
+
+def test_polish_never_raises_the_inertia_and_restarts_are_unchanged():
+    pts, w = mixed_cloud(3)
+    plain = kmeans(pts, 10, weights=w, restarts=3, seed=5, polish=False)
+    polished = kmeans(pts, 10, weights=w, restarts=3, seed=5)
+    # The restarts draw the same numbers with and without the polish.
+    assert [c for _, c in plain.runs] == [c for _, c in polished.runs]
+    assert polished.inertia <= plain.inertia
+    h = np.array(polished.history)
+    assert np.all(np.diff(h) <= 0)
+    # Every point is labelled with its nearest centre (naive twin).
+    np.testing.assert_array_equal(polished.labels, naive.assign_nearest(pts, polished.centres)[0])
+
+
+def test_polish_keeps_locked_centres():
+    pts, w = mixed_cloud(4)
+    fixed = np.array([[50.0, 50, 50], [0, 0, 0]])
+    res = kmeans(pts, 8, weights=w, fixed=fixed, seed=2)
+    np.testing.assert_array_equal(res.centres[:2], fixed)
+    assert res.inertia <= kmeans(pts, 8, weights=w, fixed=fixed, seed=2, polish=False).inertia
+
+
 def test_weights_equal_repeated_points():
     rng = np.random.default_rng(5)
     pts = rng.uniform(0, 50, (60, 3))
@@ -94,7 +154,7 @@ def test_generator_seed_is_threaded():
 
 def test_every_restart_is_recorded_and_the_lowest_is_kept():
     pts, w = blobs(2)
-    res = kmeans(pts, 5, weights=w, restarts=6, seed=3)
+    res = kmeans(pts, 5, weights=w, restarts=6, seed=3, polish=False)
     assert len(res.runs) == 6
     costs = [cost for _, cost in res.runs]
     assert res.inertia == min(costs)

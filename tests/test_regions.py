@@ -122,3 +122,33 @@ def test_the_grid_operations_agree_with_scipy_ndimage():
     np.testing.assert_allclose(r._gaussian(x, 1.0), ndi.gaussian_filter(x, 1.0, mode="reflect"), atol=1e-12)
     np.testing.assert_array_equal(r._window_range(x, 5),
                                   ndi.maximum_filter(x, 5, mode="nearest") - ndi.minimum_filter(x, 5, mode="nearest"))
+
+
+@pytest.mark.parametrize("blur", [0.0, 1.0, 2.0])
+def test_a_seam_between_two_inks_is_never_a_region(blur):
+    # Two inks 60 ΔE00 apart meeting along a diagonal, anti-aliased (4x box
+    # filter) and blurred: every colour of the seam lies between the two.
+    from PIL import Image, ImageDraw, ImageFilter
+
+    big = Image.new("RGB", (800, 800), (240, 235, 220))
+    ImageDraw.Draw(big).polygon([(0, 0), (800, 0), (0, 800)], fill=(30, 60, 150))
+    small = big.resize((200, 200), Image.Resampling.BOX)
+    if blur:
+        small = small.filter(ImageFilter.GaussianBlur(blur))
+    regions = find_regions(Picture(np.asarray(small)))
+    truth = _ink_lab([(240, 235, 220), (30, 60, 150)])
+    # Expected: the two inks and nothing else (the seam's colours are 30 ΔE00 from both).
+    assert _nearest_de(regions.lab, truth).max() < 2.0
+
+
+@pytest.mark.parametrize("width", [2, 3])
+def test_thin_linework_in_its_own_ink_is_a_region(width):
+    from artwork import add_linework
+
+    rgb, inks = add_linework(*flat_artwork(3, 31, min_de=20), 31, width=width, colour=(25, 25, 30))
+    regions = find_regions(Picture(rgb))
+    line = _ink_lab(inks[-1:])
+    de = _nearest_de(regions.lab, line)
+    # Expected: a region within ΔE00 5 of the line's ink (FOUND_DE), of at least 0.1 % of the image.
+    assert (de < 5.0).any()
+    assert regions.share[de < 5.0].sum() >= MIN_SHARE

@@ -9,6 +9,7 @@ manifest row with its error text, :func:`sample_image` a
 
 from __future__ import annotations
 
+import threading
 import time
 import warnings
 from dataclasses import dataclass
@@ -94,6 +95,11 @@ def _peak_mb() -> float | None:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
 
 
+#: warnings.catch_warnings swaps process-wide state: images run on threads
+#: (a threaded Dask worker) would record each other's notes.  One at a time.
+_WARNINGS_LOCK = threading.Lock()
+
+
 def _notes(caught) -> list[str]:
     seen = []
     for w in caught:
@@ -116,7 +122,7 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
     t0 = time.perf_counter()
     row = {"input": job.rel, "status": "failed", "k": None, "delta_e": None, "entries_used": None,
            "coverage": None, "outputs": [], "error": None}
-    with warnings.catch_warnings(record=True) as caught:
+    with _WARNINGS_LOCK, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
             pic = load_image(job.path, max_pixels=job.max_pixels)
@@ -152,7 +158,7 @@ def sample_image(job: BatchJob) -> SampledImage:
     from quantize.core.sampling import ColourSample, sample_picture
     from quantize.io.read import load_image
 
-    with warnings.catch_warnings():
+    with _WARNINGS_LOCK, warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the mapping pass reports the same notes
         try:
             s = sample_picture(load_image(job.path, max_pixels=job.max_pixels))

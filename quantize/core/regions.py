@@ -24,6 +24,13 @@ inside.  :func:`find_regions` separates the two:
    belong to no other region: the window took that rim off every region's
    edge.
 
+4. Spots too small or too noisy to be flat inside, and strokes 1-3 px
+   wide, become regions too (:func:`_structures`): touching pixels whose
+   smoothed colour is :data:`UNEXPLAINED_DE` from every flat colour and
+   that are no seam, a mix of the colours on either side of them.  A spot
+   is kept if its colour is that far from every flat colour, a stroke if it
+   is that far from every mix of flat colours.  They add no flat share.
+
 Large pictures are analysed at a reduced scale (every n-th pixel of every
 n-th row) so that the analysis stays a fraction of the fit's time and
 memory; areas are reported in the full picture's pixels.
@@ -45,11 +52,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from quantize.colour.spaces import delta_e_ciede2000, srgb_to_lab
+from quantize.colour.spaces import clip_to_gamut, delta_e_ciede2000, lab_to_srgb, srgb_to_lab
 
 from .picture import Picture
 
-__all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN_CORE_RADIUS", "ANALYSIS_PIXELS"]
+__all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN_CORE_RADIUS", "ANALYSIS_PIXELS",
+           "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
+           "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -69,6 +78,40 @@ RIM = 3
 #: the rim, an area of ink at least about 9 px across.  Thinner flat runs are
 #: the insides of hairlines and blurred seams.
 MIN_CORE_RADIUS = 2.0
+#: ΔE (chroma weighted, as the flatness test weighs it) from every flat
+#: region's colour beyond which a pixel is a colour no flat region explains:
+#: the distance at which two inks count as two (fit/inkcount.DISTINCT_DE).
+UNEXPLAINED_DE = 10.0
+#: The smallest structure of unexplained, non-seam pixels that is kept as an
+#: ink of its own: 0.02 % of the analysed pixels and at least 12 pixels.
+#: A 1-pixel line of 0.1 % of a 320 x 320 image is about 100 px long; noise
+#: specks and JPEG blocks left after the seam test are a few pixels each.
+STRUCTURE_MIN_SHARE = 0.0002
+STRUCTURE_MIN_PIXELS = 12
+#: Pixels 2 px or more inside a structure (two 3 x 3 erosions after its
+#: one-pixel holes are closed) that make it a spot rather than a stroke: a
+#: disc of 0.27 % of a 320 x 320 image through a simulated scan kept 38, a
+#: stroke or a shape's tail up to 4 px wide keeps none, and the insides of
+#: lettering where strokes close in 14-44.
+SPOT_MIN_DEEP = 20
+#: How even a spot is: 80 % of its inner pixels within this ΔE (chroma
+#: weighted) of their mean.  Spots of 0.27 % through a simulated scan or
+#: JPEG q75 measured 4.6-5.5; the insides of scanned lettering 7.5-13.
+SPOT_SPREAD = 6.5
+#: The most flat colours (the distinct ones of most pixels) whose mixes may
+#: explain a stroke: 12 make 220 trios, about 100 000 mixes.  Artwork has
+#: fewer inks; a photograph's hundred would make millions.
+MIX_COLOURS = 12
+#: A pixel whose colour lies within this share of the distance between two
+#: pixels on either side of it (2 px away, four directions), and at least
+#: ``UNEXPLAINED_DE / 2`` from each of them, is a seam: a mix of its two
+#: neighbours, anti-aliased, blurred or compressed.  A stroke of its own ink
+#: is far from the segment between the inks on either side of it.
+SEAM_TOLERANCE = 0.3
+#: A region is even when 90 % of its pixels are within this ΔE00 of its
+#: colour: flat ink, scanned or compressed, stays under 3 in the generated
+#: tests (the same bound as fit/inkcount.TONE_SPREAD_DE).
+EVEN_DE = 3.5
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
 _WINDOW = 5
@@ -102,6 +145,11 @@ class Regions:
         pixels from their region's mean colour (inf without regions).
         Flat ink, scanned or compressed, stays within a few ΔE00; shading
         and photographs do not.
+    even_share : float
+        Share of the flat pixels (0-1) in regions that are even on their own:
+        90 % of their pixels within :data:`EVEN_DE` of their colour.  A
+        logo with a tinted photograph in one corner keeps most of its flat
+        area even; a photograph does not.
     """
 
     lab: np.ndarray
@@ -112,6 +160,7 @@ class Regions:
     scale: int
     spread: float
     centre: np.ndarray
+    even_share: float = 1.0
 
     @property
     def share(self) -> np.ndarray:
@@ -238,6 +287,201 @@ def _grow(labels: np.ndarray, allowed: np.ndarray, steps: int) -> np.ndarray:
 
 
 
+def _weighted_lab_distance(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Lab distance with chroma differences divided by CIEDE2000's ``S_C`` at ``a``'s chroma (as the flat test)."""
+    weight = 1.0 + 0.045 * np.hypot(a[..., 1], a[..., 2])
+    d = a - b
+    return np.sqrt(d[..., 0] ** 2 + (d[..., 1] ** 2 + d[..., 2] ** 2) / weight**2)
+
+
+def _seams(smooth: np.ndarray) -> np.ndarray:
+    """Pixels whose colour is a mix of two pixels 2 px away on either side of them (any of four directions)."""
+    seam = np.zeros(smooth.shape[:2], bool)
+    for dy, dx in ((0, 2), (2, 0), (2, 2), (2, -2)):
+        a = _shifted(smooth, -dy, -dx, np.nan)
+        b = _shifted(smooth, dy, dx, np.nan)
+        ab = b - a
+        length2 = np.einsum("ijk,ijk->ij", ab, ab)
+        t = np.einsum("ijk,ijk->ij", smooth - a, ab) / np.maximum(length2, 1e-12)
+        off = np.sqrt(np.einsum("ijk,ijk->ij", smooth - a - t[..., None] * ab, smooth - a - t[..., None] * ab))
+        apart = np.sqrt(length2)
+        with np.errstate(invalid="ignore"):
+            mix = ((off <= SEAM_TOLERANCE * apart) & (t > 0) & (t < 1)
+                   & (_weighted_lab_distance(smooth, a) >= UNEXPLAINED_DE / 2)
+                   & (_weighted_lab_distance(smooth, b) >= UNEXPLAINED_DE / 2))
+        seam |= mix
+    return seam
+
+
+#: Barycentric weights of mixes of three colours, in steps of 0.05.
+_MIX_WEIGHTS = np.array([(a, b, 20 - a - b) for a in range(21) for b in range(21 - a)], dtype=np.float64) / 20.0
+
+
+def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray) -> np.ndarray:
+    """Every mix of up to three of the largest distinct flat colours: shape (m, 3).
+
+    Mixes of encoded sRGB values, as image filters and resamplers average
+    them, and of CIELAB values, as the analysis smooths them.  Only the
+    :data:`MIX_COLOURS` distinct colours of most pixels take part: the
+    number of mixes grows with the cube of the colours, and a photograph
+    has a hundred.
+    """
+    distinct, weight = [], []
+    for i in np.argsort(-flat_count, kind="stable"):  # regions of one ink count once
+        near = [j for j, d in enumerate(distinct) if np.linalg.norm(flat_lab[i] - d) < 3.0]
+        if near:
+            weight[near[0]] += flat_count[i]
+        else:
+            distinct.append(flat_lab[i])
+            weight.append(float(flat_count[i]))
+    top = np.argsort(-np.asarray(weight), kind="stable")[:MIX_COLOURS]
+    labs = np.asarray(distinct)[top].reshape(-1, 3)
+    if len(labs) < 3:
+        labs = np.vstack([labs, np.repeat(labs[:1], 3 - len(labs), axis=0)])
+    i, j, k = np.array([(i, j, k) for i in range(len(labs)) for j in range(i + 1, len(labs))
+                        for k in range(j + 1, len(labs))]).T
+    trio_lab = np.stack([labs[i], labs[j], labs[k]], axis=1)  # (t, 3, 3)
+    trio_rgb = clip_to_gamut(lab_to_srgb(trio_lab))
+    in_srgb = srgb_to_lab(np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_rgb).reshape(-1, 3))
+    return np.vstack([in_srgb, np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_lab).reshape(-1, 3)])
+
+
+def _is_even(colours: np.ndarray) -> bool:
+    """Whether 80 % of ``colours`` lie within :data:`SPOT_SPREAD` (ΔE, chroma weighted) of their mean.
+
+    The inside of lettering, where strokes close in, can be as deep as a
+    spot, but its colours run from the ink of the strokes to the ground.
+    """
+    mean = np.broadcast_to(colours.mean(axis=0), colours.shape)
+    return float(np.percentile(_weighted_lab_distance(colours, mean), 80)) <= SPOT_SPREAD
+
+
+def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
+    """Coherent structures of a colour no flat region has: small spots and thin strokes.
+
+    A pixel counts when its smoothed colour is :data:`UNEXPLAINED_DE` or
+    more from every flat region's colour and it is no seam between two
+    colours (:func:`_seams`).  Such pixels that touch form a structure, kept
+    with ``min_pixels`` or more.  A structure with at least
+    :data:`SPOT_MIN_DEEP` pixels 2 px inside it, and inner pixels of one
+    colour (:data:`SPOT_SPREAD`), is a spot: its colour is
+    the mean of its inner pixels (whose 3 x 3 neighbours all belong to it),
+    and it is kept if
+    that is :data:`UNEXPLAINED_DE` from every flat colour.  Otherwise it is
+    a stroke of 1-3 px: its colour is the median of its half farthest from
+    the flat colours (the pixels the stroke covers most), and it is kept if
+    no mix of three flat colours comes that close.  Returns the
+    label image (0 outside) and the colours.
+    """
+    far = np.full(smooth.shape[:2], np.inf)
+    inv_w2 = 1.0 / (1.0 + 0.045 * np.hypot(smooth[..., 1], smooth[..., 2])) ** 2
+    distinct = []
+    for c in flat_lab:  # regions within 1 of each other add nothing here
+        if all(np.abs(c - d).max() >= 1.0 for d in distinct):
+            distinct.append(c)
+            d2 = (smooth[..., 0] - c[0]) ** 2 + ((smooth[..., 1] - c[1]) ** 2 + (smooth[..., 2] - c[2]) ** 2) * inv_w2
+            np.minimum(far, d2, out=far)
+    far = np.sqrt(far)
+    # The picture's own border is no structure: blur and JPEG treat it apart.
+    inside = np.zeros_like(opaque)
+    inside[2:-2, 2:-2] = True
+    unexplained = (far >= UNEXPLAINED_DE) & _erode(opaque, _SQUARE) & inside
+    mask = unexplained & ~_seams(smooth)
+    labels, n = _label(mask)
+    if not n:
+        return labels, np.zeros((0, 3))
+    count = np.bincount(labels.ravel(), minlength=n + 1)
+    keep = count >= min_pixels
+    keep[0] = False
+    relabel = np.cumsum(keep) * keep
+    labels = relabel[labels]
+    n = int(keep.sum())
+    inner = _erode(labels > 0, _SQUARE)
+    # Depth is measured with the holes noise leaves in a spot closed (one
+    # dilation and one erosion), then two erosions.
+    closed = _erode(_grow((labels > 0).astype(np.int32), np.ones_like(opaque), 1) > 0, _SQUARE)
+    deep = _erode(_erode(closed, _SQUARE), _SQUARE)
+    colours, kept, mixes, strokes, sizes = [], np.zeros(n + 1, bool), None, [], []
+    # Each structure's pixels as a slice of one sort: no full-picture mask per structure.
+    flat_labels = labels.ravel()
+    order = np.argsort(flat_labels, kind="stable")
+    bounds = np.cumsum(np.bincount(flat_labels, minlength=n + 1))
+    n_deep = np.bincount(flat_labels[deep.ravel()], minlength=n + 1)
+    lab2, smooth2, far2, inner2 = lab.reshape(-1, 3), smooth.reshape(-1, 3), far.ravel(), inner.ravel()
+    for i in range(1, n + 1):
+        own = order[bounds[i - 1]:bounds[i]]
+        core = own[inner2[own]]
+        # A spot holds a disc of radius 2 px inside its seams; a stroke, or
+        # the thin tail of a shape, does not.
+        if n_deep[i] >= SPOT_MIN_DEEP and len(core) >= STRUCTURE_MIN_PIXELS and _is_even(lab2[core]):
+            colour = lab2[core].mean(axis=0)
+            explained_by, tested = flat_lab, colour[None]
+        else:
+            d = far2[own]
+            full = own[d >= np.median(d)]
+            colour = np.median(lab2[full], axis=0)
+            # Tested as it is and on the smoothed picture, whose noise is
+            # averaged away: either within reach of a mix explains it.
+            tested = np.stack([colour, np.median(smooth2[full], axis=0)])
+            # A blurred sliver of a flat ink between two others is a mix of
+            # the three: a stroke is an ink of its own only if no mix of
+            # three flat colours comes within UNEXPLAINED_DE of it.
+            mixes = _mixes(flat_lab, flat_count) if mixes is None and len(flat_lab) else mixes
+            explained_by = flat_lab if mixes is None else mixes
+        if not len(explained_by) or min(_weighted_lab_distance(np.broadcast_to(t, explained_by.shape),
+                                                              explained_by).min() for t in tested) >= UNEXPLAINED_DE:
+            colours.append(colour)
+            strokes.append(len(tested) > 1)
+            sizes.append(len(own))
+            kept[i] = True
+    labels = (np.cumsum(kept) * kept)[labels]
+    colours = _one_ink_per_linework(np.asarray(colours).reshape(-1, 3), np.asarray(strokes, bool),
+                                    np.asarray(sizes, np.float64))
+    return labels, colours
+
+
+def _one_ink_per_linework(colours: np.ndarray, stroke: np.ndarray, size: np.ndarray) -> np.ndarray:
+    """Strokes of one lightness and roughly one chroma get one colour, their size-weighted mean.
+
+    JPEG keeps chroma at half resolution (4:2:0), so the chroma of a line
+    1-3 px wide takes on the ground around each of its pieces; its lightness
+    survives.  Pieces within :data:`UNEXPLAINED_DE` / 2 in L* and twice
+    :data:`UNEXPLAINED_DE` in chroma-weighted a*, b* (directly or through a
+    chain) are one ink.
+    """
+    idx = np.flatnonzero(stroke)
+    if len(idx) < 2:
+        return colours
+    c = colours[idx]
+    close_l = np.abs(c[:, None, 0] - c[None, :, 0]) < UNEXPLAINED_DE / 2
+    ab = np.hypot(c[:, None, 1] - c[None, :, 1], c[:, None, 2] - c[None, :, 2])
+    weight = 1.0 + 0.045 * np.hypot(c[:, 1], c[:, 2])
+    close = close_l & (ab / np.maximum(weight[:, None], weight[None, :]) < 2 * UNEXPLAINED_DE)
+    group = np.arange(len(idx))
+    while True:  # single linkage: every piece takes the lowest number it reaches
+        new = np.array([group[close[i]].min() for i in range(len(idx))])
+        if np.array_equal(new, group):
+            break
+        group = new
+    out = colours.copy()
+    for g in np.unique(group):
+        m = group == g
+        out[idx[m]] = (c[m] * size[idx[m], None]).sum(axis=0) / size[idx[m]].sum()
+    return out
+
+
+def _even_share(de: np.ndarray, label: np.ndarray, n: int) -> float:
+    """Share of the pixels in regions whose 90th percentile ``de`` is at most :data:`EVEN_DE`."""
+    order = np.lexsort((de, label))
+    de, label = de[order], label[order]
+    count = np.bincount(label, minlength=n + 1)[1:]
+    start = np.cumsum(count) - count
+    have = count > 0
+    p90 = np.full(n, np.inf)
+    p90[have] = de[start[have] + (0.9 * (count[have] - 1)).astype(np.intp)]
+    return float(count[p90 <= EVEN_DE].sum()) / max(int(count.sum()), 1)
+
+
 def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
                  max_pixels: int = ANALYSIS_PIXELS) -> Regions:
     """The flat, coherent regions of ``picture`` and their colours.
@@ -285,8 +529,11 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
         # MIN_CORE_RADIUS (2 px) from its edge -- no pixel whose 3 x 3
         # neighbours are all flat -- is a line or a stroke's edge, not an
         # area of ink.
+        # A core only in the picture's outer 3 px is the border's own blur.
+        band = np.zeros_like(flat)
+        band[3:-3, 3:-3] = True
         thick = np.zeros(n + 1, bool)
-        thick[np.unique(labels[_erode(flat, _SQUARE)])] = True
+        thick[np.unique(labels[_erode(flat, _SQUARE) & band])] = True
         thick[0] = False
         flat = thick[labels]
         labels, n = _label(flat)
@@ -304,11 +551,35 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
                           axis=1) / np.array([labels.shape[1], labels.shape[0]])
         inside = labels > 0
         step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
-        spread = float(np.percentile(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]), 90))
+        de = delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1])
+        spread = float(np.percentile(de, 90))
+        even_share = _even_share(de, labels[inside][::step], n)
     else:
         mean, area, spread, centre = np.zeros((0, 3)), np.zeros(0), float("inf"), np.zeros((0, 2))
+        even_share = 0.0
     n_opaque = int(np.count_nonzero(picture.opaque))
     flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
+    # Spots too small or too noisy to be flat, and strokes too thin: regions
+    # too, after the flat ones (which alone decide flat_share and spread).
+    # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
+    min_pixels = max(STRUCTURE_MIN_PIXELS, int(STRUCTURE_MIN_SHARE * np.count_nonzero(opaque)))
+    s_labels, s_lab = np.zeros_like(labels), np.zeros((0, 3))
+    if len(area):
+        s_labels, s_lab = _structures(lab, smooth, opaque, np.asarray(mean).reshape(-1, 3),
+                                      np.asarray(area, dtype=np.float64), min_pixels)
+    if len(s_lab):
+        s_count = np.bincount(s_labels.ravel(), minlength=len(s_lab) + 1)[1:]
+        # Their anti-aliased rim, one pixel that no flat region holds, is theirs.
+        grown = _grow(s_labels, opaque & (labels == 0), 1)
+        s_area = np.bincount(grown.ravel(), minlength=len(s_lab) + 1)[1:].astype(np.float64) * scale * scale
+        yy, xx = np.indices(s_labels.shape)
+        s_centre = np.stack([np.bincount(s_labels.ravel(), weights=xx.ravel(), minlength=len(s_lab) + 1)[1:],
+                             np.bincount(s_labels.ravel(), weights=yy.ravel(), minlength=len(s_lab) + 1)[1:]],
+                            axis=1) / s_count[:, None] / np.array([labels.shape[1], labels.shape[0]])
+        labels = np.where(s_labels > 0, s_labels + len(area), labels)
+        mean = np.vstack([np.asarray(mean).reshape(-1, 3), s_lab])
+        area = np.concatenate([area, s_area])
+        centre = np.vstack([centre.reshape(-1, 2), s_centre])
     return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
                    flat_share=flat_share, labels=labels, scale=scale, spread=spread,
-                   centre=centre)
+                   centre=centre, even_share=even_share)

@@ -38,7 +38,8 @@ class KMeansResult:
         Lloyd iterations of the kept restart.
     history : tuple of float
         Inertia after each assignment step of the kept restart
-        (non-increasing).
+        (non-increasing), then the polished inertia if a jump move lowered
+        it.
     k_requested : int
         The ``k`` asked for; ``len(centres)`` is smaller when there were too
         few distinct points.
@@ -203,6 +204,141 @@ def _lloyd(points, weights, centres, n_fixed, max_iter, tol):
     return centres, labels, history, n_iter
 
 
+#: Jump moves that may fail in a row before :func:`_jump_polish` stops.  With
+#: every restart polished, 16 brought k-means to scikit-learn's inertia or
+#: lower (same data, weights and number of restarts) for every k from 2 to
+#: 32 on a cloud of blobs and uniform noise and on a photo's CIELAB colours
+#: (tests/test_kmeans.py); at 8 it still missed one k of 62.  Chosen by
+#: that measurement.
+JUMP_PATIENCE = 16
+
+
+def _removal_costs(points, weights, centres, labels, d2, n_fixed):
+    """What the inertia would rise by if each centre alone were removed; locked ones cost infinity."""
+    k = len(centres)
+    cost = np.full(k, np.inf)
+    for j in range(n_fixed, k):
+        sel = np.flatnonzero(labels == j)
+        if not sel.size:
+            cost[j] = 0.0
+            continue
+        _, d2o = assign_nearest(points[sel], np.delete(centres, j, axis=0))
+        cost[j] = float((weights[sel] * (d2o - d2[sel])).sum())
+    return cost
+
+
+def _jump_polish(points, weights, centres, n_fixed, max_iter, tol, rng):
+    """Relocate one centre at a time to escape the local minimum Lloyd stopped in.
+
+    A jump moves a free centre onto a point drawn by D² sampling, runs
+    Lloyd from there, and keeps the result only if its inertia is lower.
+    The centres are tried in the order of what removing each alone would
+    cost, cheapest first; :data:`JUMP_PATIENCE` failures in a row end the
+    search.  This is the jump neighbourhood of Hansen & Mladenović's J-means
+    (2001), with the removed centre chosen by its cost and the new place
+    drawn as k-means++ does.
+
+    Returns the centres, labels, inertia and whether any jump was kept.
+    """
+    labels, d2 = assign_nearest(points, centres)
+    best = float((weights * d2).sum())
+    free = len(centres) - n_fixed
+    if free < 1 or len(centres) == 1:  # one centre: its mean is the optimum already
+        return centres, labels, best, False
+    order = np.argsort(_removal_costs(points, weights, centres, labels, d2, n_fixed), kind="stable")
+    fails, improved = 0, False
+    while fails < JUMP_PATIENCE:
+        pot = weights * d2
+        if pot.sum() <= 0:
+            break
+        trial = centres.copy()
+        trial[order[fails % free]] = points[_weighted_pick(rng, pot, 1)[0]]
+        c, lab, hist, _ = _lloyd(points, weights, trial, n_fixed, max_iter, tol)
+        if hist[-1] < best * (1.0 - 1e-12):
+            centres, labels, best, improved, fails = c, lab, hist[-1], True, 0
+            d2 = assign_nearest(points, centres)[1]
+            order = np.argsort(_removal_costs(points, weights, centres, labels, d2, n_fixed), kind="stable")
+        else:
+            fails += 1
+    return centres, labels, best, improved
+
+
+def _hartigan_gains(points, weights, means, wsum, labels, n_fixed):
+    """Each point's best inertia drop from moving it alone to another cluster, and that cluster.
+
+    Moving weight ``w`` at ``x`` from free cluster ``a`` to free cluster
+    ``b`` changes the inertia by ``w Wb/(Wb+w) |x-mb|² - w Wa/(Wa-w) |x-ma|²``
+    (Hartigan & Wong 1979, weighted); a locked cluster's mean does not move,
+    so its factor is 1.  Rows go in blocks so the distance table stays small.
+    """
+    n, k = len(points), len(means)
+    locked = np.arange(k) < n_fixed
+    gain, dest = np.zeros(n), np.zeros(n, dtype=np.intp)
+    for lo in range(0, n, 1 << 15):
+        sl = slice(lo, min(n, lo + (1 << 15)))
+        x, wi, a = points[sl], weights[sl], labels[sl]
+        d2 = np.einsum("ijk,ijk->ij", x[:, None, :] - means[None], x[:, None, :] - means[None])
+        rows = np.arange(len(a))
+        own, wa = d2[rows, a], wsum[a]
+        # A point alone in its free cluster stays: moving it would empty the cluster.
+        left = np.where(locked[a], np.inf, wa - wi)
+        rem = np.where(left > 1e-12 * wi, wi * np.where(locked[a], 1.0, wa / np.maximum(left, 1e-300)) * own, 0.0)
+        factor = np.where(locked[None], 1.0, wsum[None] / (wsum[None] + wi[:, None]))
+        add = wi[:, None] * factor * d2
+        add[rows, a] = np.inf
+        dest[sl] = np.argmin(add, axis=1)
+        gain[sl] = rem - add[rows, dest[sl]]
+    return gain, dest
+
+
+def _hartigan_polish(points, weights, centres, labels, n_fixed, max_pass=50):
+    """Move single points between clusters while that lowers the inertia (Hartigan & Wong 1979).
+
+    Lloyd's fixed points include partitions where moving one point still
+    pays, because moving it also shifts both means; this finds those moves.
+    Candidates are screened in blocks, then moved one by one with their gain
+    recomputed against the current means.  Returns the means.
+    """
+    k = len(centres)
+    wsum, sums = centre_sums(points, weights, labels, k)
+    means = centres.copy()
+    filled = wsum > 0
+    means[filled] = sums[filled] / wsum[filled, None]
+    means[:n_fixed] = centres[:n_fixed]
+    labels = labels.copy()
+    locked = np.arange(k) < n_fixed
+    for _ in range(max_pass):
+        gain, _ = _hartigan_gains(points, weights, means, wsum, labels, n_fixed)
+        cand = np.flatnonzero(gain > 1e-12 * np.abs(gain).max(initial=0.0))
+        moved = 0
+        for i in cand[np.argsort(-gain[cand], kind="stable")]:
+            g, b = _hartigan_gains(points[i:i + 1], weights[i:i + 1], means, wsum, labels[i:i + 1], n_fixed)
+            if g[0] <= 0:
+                continue
+            a, b, x, wi = labels[i], b[0], points[i], weights[i]
+            if not locked[a]:
+                means[a] = (wsum[a] * means[a] - wi * x) / (wsum[a] - wi)
+            if not locked[b]:
+                means[b] = (wsum[b] * means[b] + wi * x) / (wsum[b] + wi)
+            wsum[a] -= wi
+            wsum[b] += wi
+            labels[i] = b
+            moved += 1
+        if not moved:
+            break
+    return means
+
+
+def _polish(points, weights, centres, n_fixed, max_iter, tol, rng):
+    """Jump moves, then Hartigan's single-point moves, then Lloyd: centres, labels, inertia."""
+    centres, labels, cost, _ = _jump_polish(points, weights, centres, n_fixed, max_iter, tol, rng)
+    means = _hartigan_polish(points, weights, centres, labels, n_fixed)
+    c, lab, hist, _ = _lloyd(points, weights, means, n_fixed, max_iter, tol)
+    if hist[-1] < cost:
+        return c, lab, hist[-1]
+    return centres, labels, cost
+
+
 def tolerance_scale(points: np.ndarray, weights: np.ndarray) -> float:
     """Weighted mean per-coordinate variance: the scale of the stopping tolerance."""
     mu = (weights[:, None] * points).sum(axis=0) / weights.sum()
@@ -246,6 +382,7 @@ def kmeans(
     init_centres=None,
     max_iter: int = 300,
     tol: float = 1e-4,
+    polish: bool = True,
 ) -> KMeansResult:
     """Weighted k-means clustering with k-means++ seeding and restarts.
 
@@ -255,6 +392,9 @@ def kmeans(
     or the centres move less than ``tol``.  The restart of lowest inertia is
     kept.  A free centre that loses all its points is moved onto the point
     that currently costs most, so the result always has ``k`` centres.
+    With ``polish``, the kept centres then go through jump moves: one centre
+    at a time is moved elsewhere and Lloyd rerun, kept only if the inertia
+    falls.
 
     Parameters
     ----------
@@ -286,6 +426,12 @@ def kmeans(
     tol : float, default=1e-4
         Stop when the summed squared centre shift falls below ``tol`` times
         the weighted mean variance of the data.
+    polish : bool, default=True
+        Improve every restart by jump moves and single-point moves (see
+        Notes) and keep the best.  It costs two to four times the restarts'
+        own time and never raises the inertia.  With
+        it, the inertia reached is at most scikit-learn's ``KMeans`` with as
+        many restarts on the project's test clouds (``tests/test_kmeans.py``).
 
     Returns
     -------
@@ -297,6 +443,21 @@ def kmeans(
         Bad shapes, negative or all-zero weights, ``k < 1``, more locked
         centres than ``k``, or an unknown ``init``.
 
+    Notes
+    -----
+    Lloyd's iterations stop in a local minimum, and restarts only sample
+    other minima.  With ``polish``, each restart's centres then go through
+    jump moves [4]_: the free centre whose removal raises the inertia least
+    is put on a point drawn with probability proportional to its weighted
+    squared distance (as k-means++ seeds), Lloyd reruns, and the result is
+    kept if the inertia fell.  After a failed jump the next-cheapest centre
+    is tried; :data:`JUMP_PATIENCE` failures in a row end the search.  Then
+    single points move between clusters while that lowers the inertia
+    (Hartigan's method [5]_, whose stable partitions are a subset of
+    Lloyd's), and Lloyd runs once more.  ``runs`` keeps the restarts as they
+    converged; the result is the best polished one, so its inertia may be
+    lower than every run's.
+
     References
     ----------
     .. [1] S. Lloyd, "Least squares quantization in PCM", IEEE Transactions
@@ -307,6 +468,12 @@ def kmeans(
     .. [3] T. F. Gonzalez, "Clustering to minimize the maximum intercluster
        distance", Theoretical Computer Science 38, 293-306, 1985
        (farthest-point traversal).
+    .. [4] P. Hansen and N. Mladenović, "J-Means: a new local search
+       heuristic for minimum sum of squares clustering", Pattern Recognition
+       34(2), 405-413, 2001.
+    .. [5] J. A. Hartigan and M. A. Wong, "Algorithm AS 136: a k-means
+       clustering algorithm", Journal of the Royal Statistical Society,
+       Series C 28(1), 100-108, 1979.
 
     Examples
     --------
@@ -376,6 +543,13 @@ def kmeans(
         if best is None or history[-1] < best[2][-1]:
             best = (centres, labels, history, n_iter)
     centres, labels, history, n_iter = best
+    if polish:
+        # Every restart is polished, after all of them ran: the restarts draw
+        # the same numbers with and without the polish.
+        for c0, _ in runs:
+            c, lab, cost = _polish(pts, w, c0, m, max_iter, abs_tol, rng)
+            if cost < history[-1]:
+                centres, labels, history = c, lab, list(best[2]) + [cost]
     if not keep.all():
         full = np.full(keep.size, -1, dtype=labels.dtype)
         full[keep] = labels

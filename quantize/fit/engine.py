@@ -452,7 +452,8 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
                 fresh = coarse = kmeans(bin_pts, k, weights=bin_w, restarts=settings.restarts,
-                                        seed=size_rng(settings.seed, k), fixed=fixed, init=settings.init)
+                                        seed=size_rng(settings.seed, k), fixed=fixed, init=settings.init,
+                                        polish=False)
                 start = "fresh"
                 if settings.warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1:
                     coarse, start = warm_coarse(bin_pts, bin_w, fresh, prev_coarse, m, bin_tol,

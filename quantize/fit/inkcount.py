@@ -29,7 +29,8 @@ Constants and why (docs/method.md §"How many inks"):
   :data:`MIN_FLAT_SHARE` of it is flat (texture everywhere), or when its flat
   regions themselves vary: the colours inside them lie, at the 90th
   percentile, more than :data:`TONE_SPREAD_DE` from their region's colour
-  (shading and gradients, not ink).  Flat artwork, scanned or JPEG-compressed,
+  (shading and gradients, not ink), and less than :data:`MIN_EVEN_SHARE` of
+  the flat area is in regions that are even on their own.  Flat artwork, scanned or JPEG-compressed,
   stays under 3 in the project's generated tests; photos and colour ramps
   exceed 4.
 """
@@ -45,7 +46,7 @@ from quantize.colour.spaces import delta_e_ciede2000
 from quantize.core.regions import Regions
 
 __all__ = ["InkGroups", "Judgement", "ink_groups", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
-           "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE",
+           "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE", "MIN_EVEN_SHARE",
            "TONE_TARGET_DE", "TONE_MAX_K", "auto_choice"]
 
 DISTINCT_DE = 10.0
@@ -55,6 +56,11 @@ MIN_PIXELS = 16
 SAME_INK_DE = 3.0
 MIN_FLAT_SHARE = 0.35
 TONE_SPREAD_DE = 3.5
+#: Artwork may hold some tone (a tinted photograph in a logo): its colours
+#: vary inside some flat areas, but most of its flat area stays even.  At
+#: least this share of even flat area makes it artwork: scikit-image's logo
+#: has 70 %, its sample photographs and colour wheel 32 % at most.
+MIN_EVEN_SHARE = 0.5
 #: The visual target of the automatic size for continuous tone: mean ΔE00
 #: 2.5.  On scikit-image's sample photos each doubling of the palette beyond
 #: it buys less than 0.5 ΔE00 (astronaut 2.34 at 64 colours, 1.82 at 128),
@@ -188,9 +194,14 @@ def judge(regions: Sequence[Regions]) -> Judgement:
     if flat < MIN_FLAT_SHARE:
         return Judgement("continuous tone", f"only {flat:.0%} of the image is flat colour (texture everywhere)",
                          flat, spread)
-    if spread > TONE_SPREAD_DE:
+    even = min(r.even_share for r in regions)
+    if spread > TONE_SPREAD_DE and even < MIN_EVEN_SHARE:
         return Judgement("continuous tone", f"colours vary inside its flat areas (90 % within ΔE00 {spread:.1f} "
-                         f"of their area's colour; flat ink stays within {TONE_SPREAD_DE:g})", flat, spread)
+                         f"of their area's colour; flat ink stays within {TONE_SPREAD_DE:g}; only {even:.0%} of the "
+                         "flat area is even)", flat, spread)
+    if spread > TONE_SPREAD_DE:
+        return Judgement("artwork", f"{flat:.0%} of the image is flat areas, {even:.0%} of them of even colour "
+                         "(the rest holds some tone)", flat, spread)
     return Judgement("artwork", f"{flat:.0%} of the image is flat areas of even colour (90 % within ΔE00 "
                      f"{spread:.1f} of their area's colour)", flat, spread)
 
