@@ -67,20 +67,20 @@ def test_inertia_not_worse_than_scikit_learn(k, seed):
 def mixed_cloud(seed):
     """Twelve blobs and uniform noise, with uneven weights: many local minima (invented data)."""
     rng = np.random.default_rng(seed)
-    blobs_ = np.concatenate([rng.normal(c, 3, (150, 3)) for c in rng.uniform(0, 100, (12, 3))])
-    pts = np.concatenate([blobs_, rng.uniform(0, 100, (1200, 3))])
+    blobs_ = np.concatenate([rng.normal(c, 3, (100, 3)) for c in rng.uniform(0, 100, (12, 3))])
+    pts = np.concatenate([blobs_, rng.uniform(0, 100, (800, 3))])
     return pts, rng.uniform(0.5, 2, len(pts))
 
 
 def photo_colours():
-    """The distinct colours of scikit-image's astronaut photo (every 8th pixel) in CIELAB, weighted by count.
+    """The distinct colours of scikit-image's astronaut photo (every 10th pixel) in CIELAB, weighted by count.
 
     CIELAB by scikit-image's rgb2lab (D65), so the data does not pass through our conversion.
     """
     import skimage.data
     from skimage.color import rgb2lab
 
-    codes, counts = np.unique(skimage.data.astronaut()[::8, ::8].reshape(-1, 3), axis=0, return_counts=True)
+    codes, counts = np.unique(skimage.data.astronaut()[::10, ::10].reshape(-1, 3), axis=0, return_counts=True)
     return rgb2lab(codes[None].astype(np.uint8))[0], counts.astype(float)
 
 
