@@ -152,3 +152,25 @@ def test_thin_linework_in_its_own_ink_is_a_region(width):
     # Expected: a region within ΔE00 5 of the line's ink (FOUND_DE), of at least 0.1 % of the image.
     assert (de < 5.0).any()
     assert regions.share[de < 5.0].sum() >= MIN_SHARE
+
+
+def test_spots_and_strokes_are_looked_for_only_where_the_flat_regions_say_artwork():
+    # The fitting engine skips the spot and stroke search in a picture its flat
+    # regions alone call continuous tone (scikit-image's "astronaut" photo):
+    # the flat regions are the same as without the search; in artwork (its
+    # "logo") the search runs as before.
+    from skimage import data
+
+    from quantize.fit.inkcount import artwork_like
+    from quantize.io.read import as_picture
+
+    photo = as_picture(data.astronaut())
+    full, lean = find_regions(photo), find_regions(photo, structures=artwork_like)
+    assert not artwork_like(flat_share=lean.flat_share, spread=lean.spread, even_share=lean.even_share)
+    flat = find_regions(photo, structures=False)
+    assert len(lean) == len(flat) <= len(full)
+    np.testing.assert_array_equal(lean.lab, flat.lab)
+    logo = data.logo()
+    rgb = (logo[..., :3] * (logo[..., 3:] / 255.0) + 255 * (1 - logo[..., 3:] / 255.0)).round().astype(np.uint8)
+    art = as_picture(rgb)
+    assert len(find_regions(art, structures=artwork_like)) == len(find_regions(art))

@@ -483,7 +483,7 @@ def _even_share(de: np.ndarray, label: np.ndarray, n: int) -> float:
 
 
 def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
-                 max_pixels: int = ANALYSIS_PIXELS) -> Regions:
+                 max_pixels: int = ANALYSIS_PIXELS, structures=True) -> Regions:
     """The flat, coherent regions of ``picture`` and their colours.
 
     Parameters
@@ -495,6 +495,12 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     max_pixels : int, default=300_000
         Pictures larger than this are analysed at the smallest whole-pixel
         reduction that brings them below it.
+    structures : bool or callable, default=True
+        Whether to look for small spots and thin strokes too (the costliest
+        step on a photograph).  A callable is asked with the flat regions'
+        ``flat_share``, ``spread`` and ``even_share`` (as keywords): the
+        fitting engine looks for them only in a picture that those alone
+        would not call continuous tone.
 
     Returns
     -------
@@ -564,7 +570,9 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
     min_pixels = max(STRUCTURE_MIN_PIXELS, int(STRUCTURE_MIN_SHARE * np.count_nonzero(opaque)))
     s_labels, s_lab = np.zeros_like(labels), np.zeros((0, 3))
-    if len(area):
+    if callable(structures):
+        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share))
+    if len(area) and structures:
         s_labels, s_lab = _structures(lab, smooth, opaque, np.asarray(mean).reshape(-1, 3),
                                       np.asarray(area, dtype=np.float64), min_pixels)
     if len(s_lab):

@@ -592,7 +592,8 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
         region_jobs: list = []
         sample, sources, load_notes = load_samples(
             images, weighting=settings.weighting, max_pixels=max_pixels, pictures=pictures,
-            on_picture=lambda pic: region_jobs.append(run(functools.partial(find_regions, pic))))
+            on_picture=lambda pic: region_jobs.append(run(functools.partial(find_regions, pic,
+                                                                            structures=_structures_wanted(settings)))))
         has_regions = bool(pictures) and all(p is not None for p in pictures)
         size_notes = []
         ks_eff = [kk for kk in ks if kk <= sample.n_colours] or [sample.n_colours]
@@ -625,6 +626,16 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
     sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
     return pal
+
+
+def _structures_wanted(settings: FitSettings):
+    """Whether the region analysis looks for spots and strokes: always for artwork, never for continuous tone,
+    and for an image judged by its flat regions only where they alone would not call it continuous tone."""
+    from .inkcount import artwork_like
+
+    if settings.kind == "auto":
+        return artwork_like
+    return settings.kind == "artwork"
 
 
 @dataclass(frozen=True, eq=False)

@@ -45,7 +45,7 @@ import numpy as np
 from quantize.colour.spaces import delta_e_ciede2000
 from quantize.core.regions import Regions
 
-__all__ = ["InkGroups", "Judgement", "ink_groups", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
+__all__ = ["InkGroups", "Judgement", "ink_groups", "artwork_like", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
            "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE", "MIN_EVEN_SHARE",
            "TONE_TARGET_DE", "TONE_MAX_K", "auto_choice"]
 
@@ -180,6 +180,11 @@ class Judgement:
     reason: str
     flat_share: float
     spread: float
+
+
+def artwork_like(*, flat_share: float, spread: float, even_share: float) -> bool:
+    """Whether one picture's flat regions alone would be judged artwork by :func:`judge`."""
+    return not (flat_share < MIN_FLAT_SHARE or (spread > TONE_SPREAD_DE and even_share < MIN_EVEN_SHARE))
 
 
 def judge(regions: Sequence[Regions]) -> Judgement:
