@@ -83,7 +83,9 @@ GOALS = {
 }
 #: Peak memory goals, MiB, by megapixels.
 MEMORY_GOALS = {1: 150, 12: 600, 78: 1500}
-#: docs/benchmarks.md, "Mean ΔE00 on scikit-image's sample photos": quantize's column.
+#: The quality baseline of the speed goals: docs/benchmarks.md's "Mean ΔE00 on
+#: scikit-image's sample photos", quantize's column, as it stood when the speed
+#: work began (fourth session); kept fixed so that losses cannot add up.
 QUALITY = {("astronaut", 4): 8.344, ("astronaut", 8): 5.801, ("astronaut", 16): 4.185,
            ("chelsea", 4): 5.674, ("chelsea", 8): 4.281, ("chelsea", 16): 3.34,
            ("coffee", 4): 6.667, ("coffee", 8): 4.319, ("coffee", 16): 2.883,

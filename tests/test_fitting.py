@@ -326,3 +326,21 @@ def test_a_range_given_for_a_photo_gives_the_smallest_size_meeting_the_target(ta
             assert fit_palette(img, pal.k - 1, restarts=2).fit.delta_e["mean"] > target
         else:
             assert pal.k == 12 and pal.fit.delta_e["mean"] > target
+
+
+@pytest.mark.parametrize("k", [6, (2, 8)])
+def test_a_fit_without_extra_threads_gives_the_same_palette(k):
+    # FitSettings.threads only decides where independent steps run: the
+    # palette, its record and its measured error are the same without them
+    # (scikit-image's "coffee" sample photo, half size; a fixed size and a range).
+    from skimage import data
+
+    img = np.ascontiguousarray(data.coffee()[::2, ::2])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        a = fit_palette(img, k, restarts=3, threads=True)
+        b = fit_palette(img, k, restarts=3, threads=False)
+    assert np.array_equal(a.rgb8, b.rgb8)
+    assert a.fit.to_dict() == b.fit.to_dict()
+    with pytest.raises(ValueError, match="threads must be True or False"):
+        fit_palette(img, 4, threads="yes")

@@ -51,6 +51,9 @@ class BatchJob:
     restarts : int
     max_pixels : int
         Decompression-bomb limit for reading the input.
+    threads : bool, default=True
+        Whether the fit may use a second thread (``FitSettings.threads``):
+        off when the run already has a worker process per core.
     """
 
     path: str
@@ -63,6 +66,7 @@ class BatchJob:
     seed: int
     restarts: int
     max_pixels: int
+    threads: bool = True
 
     @property
     def outputs(self) -> tuple[str, ...]:
@@ -127,7 +131,8 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
         try:
             pic = load_image(job.path, max_pixels=job.max_pixels)
             if palette_doc is None:
-                pal = fit_palette(pic, job.k, space=job.space, seed=job.seed, restarts=job.restarts)
+                pal = fit_palette(pic, job.k, space=job.space, seed=job.seed, restarts=job.restarts,
+                                  threads=job.threads)
             else:
                 pal = Palette.from_dict(palette_doc, source="batch palette")
             res = pal.apply(pic)

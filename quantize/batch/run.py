@@ -249,13 +249,17 @@ class _Run:
         owned = {o for r in self.prev_rows.values() for o in (r.get("outputs") or [])}
         out_root = self.dst.resolve()
         jobs, by_output = [], {}
+        # With a worker process per core the images keep the cores busy; a
+        # fit's own second thread would only contend with the other worker.
+        threads = s.cluster is None and (s.workers in (0, 1) or (s.workers is None and (os.cpu_count() or 1) == 1))
         for rel in self.rels:
             out_rel = rel.with_suffix("." + s.fmt).as_posix()
             outs_rel = (out_rel,) + ((rel.with_suffix(".palette.json").as_posix(),) if s.mode == "per-image" else ())
             job = BatchJob(path=os.path.abspath(self.src / rel), rel=str(rel), output_dir=str(out_root),
                            outputs_rel=outs_rel, replace=s.force or any(o in owned for o in outs_rel), k=s.k,
                            space=s.space, seed=s.seed, restarts=s.restarts,
-                           max_pixels=DEFAULT_MAX_PIXELS if s.max_pixels is None else s.max_pixels)
+                           max_pixels=DEFAULT_MAX_PIXELS if s.max_pixels is None else s.max_pixels,
+                           threads=threads)
             by_output.setdefault(out_rel, []).append(job)
             jobs.append(job)
         for out_rel, same in by_output.items():

@@ -447,7 +447,7 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
     bin_tol = 1e-4 * tolerance_scale(bin_pts, bin_w) if settings.warm else 0.0
     jobs = []
     prev_coarse = prev_fine = None
-    with size_workers(sample, space, len(ks) > 1) as submit:
+    with size_workers(sample, space, len(ks) > 1 and settings.threads) as submit:
         for k in ks:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
@@ -470,7 +470,7 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             # One size alone refines on two threads; several keep two busy with sizes.
             jobs.append((k, fine, start, submit(finish_palette, sample, fine.centres, fixed_rgb8, space=space,
                                                 metric=settings.metric, refine=settings.refine, others=others,
-                                                threads=len(ks) == 1)))
+                                                threads=len(ks) == 1 and settings.threads)))
             if progress:
                 progress(k)
         done = [(k, fine, start, job.result()) for k, fine, start, job in jobs]
@@ -588,7 +588,7 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     # The flat-region analysis of each picture runs on a second thread
     # while the pictures are sampled and, at a fixed size, fitted: it is
     # wanted only to choose the size from a range and to name lost areas.
-    with _second_thread(True) as run:
+    with _second_thread(settings.threads) as run:
         region_jobs: list = []
         sample, sources, load_notes = load_samples(
             images, weighting=settings.weighting, max_pixels=max_pixels, pictures=pictures,

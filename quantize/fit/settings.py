@@ -78,6 +78,12 @@ class FitSettings:
         split, and one k-means++ addition), keeping the start of lowest
         cost: the k-means cost then never rises with k, but a size's
         palette depends on the sizes fitted before it.
+    threads : bool, default=True
+        Run independent steps on a second thread (the region analysis beside
+        the sampling and fit, a single size's refinements beside each
+        other, several sizes' refinements beside the next fit).  The results
+        are the same either way; a caller that already keeps every core
+        busy (a batch with one worker process per core) turns it off.
 
     Raises
     ------
@@ -107,6 +113,7 @@ class FitSettings:
     weighting: str = "equal"
     warm: bool = False
     kind: str = "auto"
+    threads: bool = True
 
     def __post_init__(self):
         from quantize.colour.spaces import check_space
@@ -128,6 +135,8 @@ class FitSettings:
         _choice(self.kind, "image kind", ("auto", "artwork", "continuous tone"))
         if not isinstance(self.warm, bool):
             raise ValueError(f"warm must be True or False, got {self.warm!r}")
+        if not isinstance(self.threads, bool):
+            raise ValueError(f"threads must be True or False, got {self.threads!r}")
         if self.target is not None:
             if isinstance(self.target, bool) or not isinstance(self.target, (int, float)) or not self.target > 0 \
                     or self.target == float("inf"):
