@@ -11,6 +11,7 @@ import json
 
 import numpy as np
 import pytest
+from films import read_films
 from click.testing import CliRunner
 from PIL import Image
 from scipy import ndimage as ndi
@@ -28,14 +29,6 @@ def _palette():
     return Palette(np.array([SHIRT, YELLOW, RED, NAVY], np.uint8), np.array([True, False, False, False]), names=NAMES)
 
 
-def _films(sep, tmp_path):
-    written = sep.write(tmp_path, stem="job", pdf=False)
-    out = {}
-    for p in sep.plates:
-        with Image.open(written["plates"][p.name][0]) as im:
-            out[p.name] = ~np.asarray(im)
-    return out, written
-
 
 @pytest.mark.parametrize("trap_mm", [0.1, 0.2, 0.33])
 def test_abutting_rectangles_overlap_by_the_trap_width(trap_mm, tmp_path):
@@ -44,7 +37,7 @@ def test_abutting_rectangles_overlap_by_the_trap_width(trap_mm, tmp_path):
     img[10:70, 10:80] = YELLOW
     img[10:70, 80:150] = NAVY
     sep = separate(img, _palette(), dpi=150, settings=SeparationSettings(film_dpi=600, trap_mm=trap_mm))
-    films, _ = _films(sep, tmp_path)
+    films, _ = read_films(sep, tmp_path)
     y, n = films["Yellow"], films["Navy"]
     want = trap_mm / MM_PER_INCH * 600
     overlap = (y & n)[100:180]  # rows well inside both rectangles
@@ -70,7 +63,7 @@ def test_a_light_disc_in_a_dark_field_grows_and_a_dark_disc_shrinks_the_light_ho
         img[:] = outside
         img[disc] = inside
         sep = separate(img, _palette(), dpi=200, settings=SeparationSettings(film_dpi=600, trap_mm=trap_mm))
-        films, _ = _films(sep, tmp_path / str(inside))
+        films, _ = read_films(sep, tmp_path / str(inside))
         yellow_ko = sep.indices == sep.palette.names.index("Yellow")
         y = films["Yellow"]
         if inside == YELLOW:
@@ -96,7 +89,7 @@ def test_pair_overrides_and_no_spread_without_a_darker_neighbour(tmp_path):
     img[5:55, 180:235] = YELLOW  # yellow next to navy again, and next to the shirt
     st = SeparationSettings(film_dpi=300, trap_mm=0.2, trap_pairs=(("Red", "Navy", 0.5),))
     sep = separate(img, _palette(), dpi=300, settings=st)
-    films, written = _films(sep, tmp_path)
+    films, written = read_films(sep, tmp_path)
     y, r, n = films["Yellow"], films["Red"], films["Navy"]
     px = 300 / MM_PER_INCH
     assert abs((y & r)[30].sum() - 0.2 * px) <= 0.5  # yellow under red, the default
@@ -119,7 +112,7 @@ def test_a_keyline_overprints_and_the_inks_beside_it_continue_under_it(tmp_path)
     img[55:59, 5:125] = NAVY  # the keyline continues along the shirt: nothing goes under its outer half
     st = SeparationSettings(film_dpi=300, trap_mm=0, overprint=("Navy",))
     sep = separate(img, _palette(), dpi=300, settings=st)
-    films, _ = _films(sep, tmp_path)
+    films, _ = read_films(sep, tmp_path)
     y, r, n = films["Yellow"], films["Red"], films["Navy"]
     key = sep.indices == sep.palette.names.index("Navy")
     np.testing.assert_array_equal(n, key)  # the keyline film is itself

@@ -11,7 +11,7 @@ import json
 
 import numpy as np
 import pytest
-from PIL import Image
+from films import read_films
 from scipy import ndimage as ndi
 
 from quantize.errors import SeparationError
@@ -29,14 +29,6 @@ def _palette(*colours, names=()):
     return Palette(np.array(colours, np.uint8), lk, names=names)
 
 
-def _films(sep, tmp_path):
-    written = sep.write(tmp_path, stem="job", pdf=False)
-    out = {}
-    for p in sep.films():
-        with Image.open(written["plates"][p.name][0]) as im:
-            out[p.name] = ~np.asarray(im)
-    return out, written
-
 
 @pytest.mark.parametrize("choke_mm", [0.08, 0.25, 0.4])
 def test_straight_edges_pull_back_by_the_choke_within_half_a_pixel(choke_mm, tmp_path):
@@ -45,7 +37,7 @@ def test_straight_edges_pull_back_by_the_choke_within_half_a_pixel(choke_mm, tmp
     img[20:80, 30:120] = YELLOW
     sep = separate(img, _palette(BLACK, YELLOW, names=("shirt", "Yellow")), dpi=150, underbase=True,
                    choke_mm=choke_mm, settings=SeparationSettings(film_dpi=600))
-    films, _ = _films(sep, tmp_path)
+    films, _ = read_films(sep, tmp_path)
     ink, base = films["Yellow"], films["underbase"]
     want = choke_mm / MM_PER_INCH * 600
     row = ink.shape[0] // 2
@@ -68,7 +60,7 @@ def test_a_disc_shrinks_by_the_choke_within_half_a_pixel(tmp_path):
     choke_mm = 0.3
     sep = separate(img, _palette(BLACK, YELLOW, names=("shirt", "Yellow")), dpi=200, underbase=True,
                    choke_mm=choke_mm, settings=SeparationSettings(film_dpi=600))
-    films, _ = _films(sep, tmp_path)
+    films, _ = read_films(sep, tmp_path)
     ink, base = films["Yellow"], films["underbase"]
     r_ink, r_base = np.sqrt(ink.sum() / np.pi), np.sqrt(base.sum() / np.pi)
     want = choke_mm / MM_PER_INCH * 600
@@ -98,7 +90,7 @@ def test_islands_below_the_minimum_dot_are_removed_and_thin_areas_reported(tmp_p
     img[10:110, 150:152] = WHITE  # a line 2 px = 0.17 mm wide, at x = 12.7 mm
     sep = separate(img, _palette(BLACK, WHITE, names=("shirt", "White")), dpi=300, underbase=True,
                    choke_mm=0.1, settings=SeparationSettings(film_dpi=600, min_feature_mm=0.5, keep_detail=False))
-    films, written = _films(sep, tmp_path)
+    films, written = read_films(sep, tmp_path)
     base = films["underbase"]
     from skimage.measure import label
 
@@ -123,7 +115,7 @@ def test_dark_inks_can_be_left_off_the_base(tmp_path):
     img[10:50, 65:110] = NAVY
     pal = _palette(BLACK, YELLOW, NAVY, names=("shirt", "Yellow", "Navy"))
     sep = separate(img, pal, dpi=300, underbase=True, settings=SeparationSettings(film_dpi=300, base_min_l=40))
-    films, _ = _films(sep, tmp_path)
+    films, _ = read_films(sep, tmp_path)
     assert films["underbase"][:, :60].any() and not films["underbase"][:, 60:].any()
     assert any("left off the underbase" in n and "Navy" in n for n in sep.notes)
 
@@ -137,7 +129,7 @@ def test_highlight_white_and_the_default_sequence_with_a_flash(tmp_path):
     pal = _palette(BLACK, WHITE, YELLOW, NAVY, names=("shirt", "White", "Yellow", "Navy"))
     sep = separate(img, pal, dpi=300, underbase=True,
                    settings=SeparationSettings(film_dpi=300, highlight_white=True, highlight_min_l=90))
-    films, written = _films(sep, tmp_path)
+    films, written = read_films(sep, tmp_path)
     white_area = np.zeros((60, 120), bool)
     white_area[10:50, 10:40] = True
     np.testing.assert_array_equal(films["highlight white"], white_area)
