@@ -1,0 +1,212 @@
+"""Amplitude-modulated halftone screens: an ink's share per film pixel becomes a 1-bit film.
+
+A screen is a grid of cells, ``lines per inch`` of them to the inch along
+its two axes, turned by its screen angle.  Each cell prints one dot whose
+area is the ink's share there (the Murray-Davies view of a halftone: the
+printed fraction is the inked area).  Which film pixels a dot of a given
+size covers follows from a *spot function* S of the position in the cell
+(round, elliptical or square dots): a pixel inks when the share of the cell
+whose S is below its own is less than the ink's share.  Ranking S by area
+makes the inked fraction of a cell equal to the share for every dot shape
+(up to the film's pixel grid), so no tone curve is needed to undo the shape.
+
+The dot a screen cannot hold is never left as a speck: a share whose dot
+would be smaller than the minimum printable dot is dropped (below half of
+it) or grown to it, and a share whose hole would be smaller than that
+minimum is filled or opened to it, as :func:`printable_share` says.
+
+References
+----------
+.. [1] A. Murray, "Monochrome reproduction in photoengraving", Journal of the
+   Franklin Institute 221(6), 721-744, 1936 (area coverage of a halftone).
+.. [2] Adobe Systems, *PostScript Language Reference*, 3rd ed., 1999,
+   section 7.4.2 (spot functions of a halftone screen).
+
+Default frequencies, angles and the checks of :func:`screen_warnings` are
+common practice, from memory, and marked so where they are set.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from quantize.core.units import MM_PER_INCH
+from quantize.errors import SeparationError
+
+__all__ = ["Screen", "DOT_SHAPES", "halftone", "printable_share", "screen_warnings", "default_angles"]
+
+#: Dot shapes: round (a circle grows from the cell's centre), elliptical
+#: (an ellipse of axes 1 : 0.7, so dots join along one axis first) and square.
+DOT_SHAPES = ("round", "elliptical", "square")
+
+#: Samples per cell side used to rank a spot function by area.
+_RANK_SAMPLES = 256
+
+
+@dataclass(frozen=True)
+class Screen:
+    """One ink's screen.
+
+    Attributes
+    ----------
+    lpi : float
+        Screen frequency in lines per inch (cells per inch along each axis).
+    angle : float
+        Screen angle in degrees, counter-clockwise from the film's x axis.
+    shape : {"round", "elliptical", "square"}
+    min_dot_mm : float
+        The smallest dot (and hole) the screen holds, as a diameter in mm;
+        0 for no limit.
+    """
+
+    lpi: float
+    angle: float = 22.5
+    shape: str = "round"
+    min_dot_mm: float = 0.0
+
+    def __post_init__(self):
+        if not (isinstance(self.lpi, (int, float)) and math.isfinite(self.lpi) and self.lpi > 0):
+            raise SeparationError(f"screen frequency must be a positive number of lines per inch, got {self.lpi!r}")
+        if not (isinstance(self.angle, (int, float)) and math.isfinite(self.angle)):
+            raise SeparationError(f"screen angle must be a number of degrees, got {self.angle!r}")
+        if self.shape not in DOT_SHAPES:
+            raise SeparationError(f"dot shape must be one of {', '.join(DOT_SHAPES)}, got {self.shape!r}")
+        if not (isinstance(self.min_dot_mm, (int, float)) and math.isfinite(self.min_dot_mm)
+                and self.min_dot_mm >= 0):
+            raise SeparationError(f"minimum dot must be a size of 0 mm or more, got {self.min_dot_mm!r}")
+
+    @property
+    def cell_mm(self) -> float:
+        """The side of one cell in mm."""
+        return MM_PER_INCH / self.lpi
+
+    @property
+    def min_share(self) -> float:
+        """The share of a cell that a dot of the minimum diameter covers (at most 0.5)."""
+        return min(0.5, math.pi * (self.min_dot_mm / 2.0) ** 2 / self.cell_mm**2)
+
+
+def _spot(shape: str, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """The spot function at cell coordinates ``x``, ``y`` in [-1, 1): lower values ink first."""
+    if shape == "round":
+        return x * x + y * y
+    if shape == "elliptical":
+        return x * x + (y / 0.7) ** 2
+    return np.maximum(np.abs(x), np.abs(y))
+
+
+def _rank_table(shape: str) -> np.ndarray:
+    """The spot function's values over a fine grid of one cell, sorted: its area distribution."""
+    t = (np.arange(_RANK_SAMPLES) + 0.5) / _RANK_SAMPLES * 2.0 - 1.0
+    return np.sort(_spot(shape, t[:, None], t[None, :]).ravel())
+
+
+def printable_share(share: np.ndarray, min_share: float) -> np.ndarray:
+    """``share`` with dots and holes below ``min_share`` of a cell dropped or grown to it.
+
+    A share below half the minimum prints nothing, one from half the
+    minimum up to it prints the minimum dot; the same for holes near full
+    cover.  Between, the share is unchanged.
+
+    Examples
+    --------
+    >>> printable_share(np.array([0.01, 0.03, 0.5, 0.97, 0.99]), 0.04).tolist()
+    [0.0, 0.04, 0.5, 0.96, 1.0]
+    """
+    s = np.clip(np.asarray(share, dtype=np.float64), 0.0, 1.0)
+    if min_share <= 0:
+        return s
+    out = s.copy()
+    low = s < min_share
+    out[low] = np.where(s[low] < min_share / 2.0, 0.0, min_share)
+    high = s > 1.0 - min_share
+    out[high] = np.where(s[high] > 1.0 - min_share / 2.0, 1.0, 1.0 - min_share)
+    return out
+
+
+def halftone(share: np.ndarray, screen: Screen, dpi: float) -> np.ndarray:
+    """The 1-bit film of an ink's share per film pixel under ``screen``.
+
+    Parameters
+    ----------
+    share : (H, W) array of float
+        The ink's share of each film pixel, 0 to 1.
+    screen : Screen
+    dpi : float
+        The film's resolution.
+
+    Returns
+    -------
+    (H, W) bool ndarray
+        True where the film prints.
+
+    Examples
+    --------
+    >>> film = halftone(np.full((300, 300), 0.25), Screen(lpi=60, angle=45), 600)
+    >>> round(float(film.mean()), 2)
+    0.25
+    """
+    share = np.asarray(share, dtype=np.float64)
+    if share.ndim != 2:
+        raise SeparationError(f"a halftone needs a 2-D share per film pixel, got shape {share.shape}")
+    if not (isinstance(dpi, (int, float)) and math.isfinite(dpi) and dpi > 0):
+        raise SeparationError(f"film resolution must be positive, got {dpi!r}")
+    h, w = share.shape
+    # Pixel centres in cells of the turned screen.
+    scale = screen.lpi / float(dpi)
+    a = math.radians(screen.angle)
+    ys, xs = (np.arange(h) + 0.5)[:, None], (np.arange(w) + 0.5)[None, :]
+    u = (xs * math.cos(a) + ys * math.sin(a)) * scale
+    v = (-xs * math.sin(a) + ys * math.cos(a)) * scale
+    x = 2.0 * (u - np.floor(u)) - 1.0
+    y = 2.0 * (v - np.floor(v)) - 1.0
+    table = _rank_table(screen.shape)
+    # The area of the cell whose spot value is below this pixel's: the share at which its dot reaches it.
+    reach = np.searchsorted(table, _spot(screen.shape, x, y), side="left") / table.size
+    printed = printable_share(share, screen.min_share)
+    # A full share inks every pixel, even where the spot function peaks above the ranked samples.
+    return (reach < printed) | (printed >= 1.0)
+
+
+def default_angles(n: int) -> list[float]:
+    """Screen angles for ``n`` inks, kept apart: 30 degrees for up to three, else spread over 90.
+
+    Common practice, from memory: halftone screens of different inks are
+    set at least 15 to 30 degrees apart so that their patterns do not beat
+    (moire); a square grid repeats every 90 degrees.
+
+    Examples
+    --------
+    >>> default_angles(3)
+    [22.5, 52.5, 82.5]
+    """
+    if n < 1:
+        return []
+    step = 30.0 if n <= 3 else 90.0 / n
+    return [round(22.5 + i * step, 4) % 180.0 for i in range(n)]
+
+
+def screen_warnings(screen: Screen, dpi: float, mesh: float | None = None) -> list[str]:
+    """What the film resolution and the mesh say about a screen (common practice, from memory).
+
+    - Film pixels per cell: fewer than 10 along a side give fewer than about
+      100 distinct dot sizes (a cell of n x n pixels has n^2 + 1 levels),
+      and tones band.
+    - Mesh: the mesh count should be at least 4 times the screen frequency,
+      or the threads cut the dots.
+    """
+    out = []
+    per_cell = float(dpi) / screen.lpi
+    if per_cell < 10:
+        out.append(f"{screen.lpi:g} lpi is too fine for {dpi:g} dpi film: {per_cell:.1f} film pixels per cell, "
+                   f"about {int(per_cell * per_cell) + 1} tone levels (at least 10 pixels per cell is common practice)")
+    if mesh is not None and mesh < 4 * screen.lpi:
+        out.append(f"a {mesh:g} mesh is too coarse for {screen.lpi:g} lpi: common practice asks at least 4 threads "
+                   f"per screen line ({4 * screen.lpi:g} mesh or finer, or {mesh / 4:g} lpi or coarser)")
+    if screen.min_dot_mm > 0 and screen.min_share >= 0.5:
+        out.append(f"the minimum dot of {screen.min_dot_mm:g} mm covers half a {screen.cell_mm:.2f} mm cell: "
+                   f"{screen.lpi:g} lpi cannot print tones at this minimum")
+    return out
