@@ -539,6 +539,9 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     warm : bool, default=False
         Also start each size from the one before (:mod:`quantize.fit.warm`);
         a size's palette then depends on the range.
+    threads : bool, default=True
+        Run independent steps on a second thread; the results are the same
+        either way (:class:`quantize.fit.settings.FitSettings`).
 
     Returns
     -------

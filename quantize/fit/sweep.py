@@ -148,6 +148,9 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
         Add the warm starts from the previous size (:mod:`quantize.fit.warm`):
         the cost never rises with k, but a row then depends on the rows
         before it and may differ from ``fit_palette`` at that size.
+    threads : bool, default=True
+        Run independent steps on a second thread; the results are the same
+        either way (:class:`quantize.fit.settings.FitSettings`).
 
     Returns
     -------

@@ -460,8 +460,9 @@ def keep_detail(indices: np.ndarray, opaque: np.ndarray, printed: list[int], *, 
     makes no new thin part. A thin line part (where that disk does not fit
     in the ink) lying on one colour (three quarters of the pixels around it;
     a sliver between two colours is an edge artefact and is left alone, to
-    be reported) is redrawn ``line_px`` wide around its skeleton
-    (:func:`skimage.morphology.skeletonize`); a small element grows outward
+    be reported) is redrawn ``line_px`` wide around the skeleton of its
+    whole stroke (:func:`skimage.morphology.skeletonize`), so that a stroke
+    whose width hovers at the minimum is not beaded; a small element grows outward
     ring by ring until it has the area of the minimum dot or meets no more
     room. Nothing is taken away from the ink being thickened.
 
@@ -497,14 +498,19 @@ def keep_detail(indices: np.ndarray, opaque: np.ndarray, printed: list[int], *, 
             parts = keep[lab]
             if not parts.any():
                 continue
-            # The line redrawn n wide around its skeleton, in a window around the parts only.
+            # The line redrawn n wide, in a window around the parts only.
             rows, cols = np.flatnonzero(parts.any(axis=1)), np.flatnonzero(parts.any(axis=0))
             y0, x0 = box[0].start + int(rows[0]) - n, box[1].start + int(cols[0]) - n
             y0, x0 = max(y0, 0), max(x0, 0)
             win = (slice(y0, box[0].start + int(rows[-1]) + n + 1), slice(x0, box[1].start + int(cols[-1]) + n + 1))
             full = np.zeros(idx.shape, bool)
             full[box] = parts
-            band = distance_to_edge(~skeletonize(full[win])) <= (n - 1) / 2.0 + 1e-9
+            # Around the skeleton of the whole ink, not of the thin parts alone: a part of
+            # a stroke whose width hovers at the minimum is a short piece, and a tube
+            # around each piece's own skeleton ends in round caps that bead the stroke.
+            ink_win = (idx[win] == i) & op[win]
+            band = distance_to_edge(~skeletonize(ink_win)) <= (n - 1) / 2.0 + 1e-9
+            band &= distance_to_edge(~full[win]) <= (n - 1) / 2.0 + 1e-9  # only where a thin part is
             take = band & room[win] & op[win] & (idx[win] != i)
             idx[win][take] = i
             room[win] &= ~take
