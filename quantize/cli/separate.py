@@ -18,11 +18,15 @@ from quantize.separation.defaults import (
     DEFAULT_CHOKE_MM,
     DEFAULT_FILM_DPI,
     DEFAULT_HIGHLIGHT_MIN_L,
+    DEFAULT_INDEX_DPI,
     DEFAULT_KEEP_FRACTION,
+    DEFAULT_LPI,
     DEFAULT_MARGIN_MM,
+    DEFAULT_MIN_DOT_MM,
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
     DEFAULT_TRAP_MM,
+    DEFAULT_VIEW_DISTANCE_MM,
 )
 
 from ._common import _run
@@ -125,12 +129,35 @@ class PrintSize(click.ParamType):
 @click.option("--dithered", type=click.Choice(["auto", "keep", "clean"]), default="auto", show_default=True,
               help="Dithered input: auto keeps every dot of an image that looks dithered (no clean-up), "
                    "keep always does, clean treats it as flat art.")
+@click.option("--tones", type=click.Choice(["spot", "halftone", "index"]), default="spot", show_default=True,
+              help="How the inks print: spot (flat areas, cleaned up and trapped), halftone (dots of each ink's "
+                   "share, for photos and gradients) or index (square pixels of one ink each, never overlapping).")
+@click.option("--lpi", type=click.FloatRange(min=1, max=1000), default=DEFAULT_LPI, show_default=True,
+              help="Halftone screen frequency, lines per inch.")
+@click.option("--angles", default=None, metavar="DEG,DEG,...",
+              help="Halftone screen angle of each ink in print order (default: kept 30 degrees apart, or spread "
+                   "over 90 for more than three inks).")
+@click.option("--dot", "dot_shape", type=click.Choice(["round", "elliptical", "square"]), default="round",
+              show_default=True, help="Halftone dot shape.")
+@click.option("--min-dot-mm", type=click.FloatRange(min=0, max=10), default=DEFAULT_MIN_DOT_MM, show_default=True,
+              help="Smallest halftone dot and hole the screen holds; smaller ones are dropped or grown to it.")
+@click.option("--mesh", type=click.FloatRange(min=10, max=1000), default=None, metavar="THREADS",
+              help="Screen mesh (threads per inch): warns when the halftone frequency is too fine for it.")
+@click.option("--index-dpi", type=click.FloatRange(min=10, max=2400), default=DEFAULT_INDEX_DPI, show_default=True,
+              help="Index separation resolution: the side of an index square is 25.4 / this mm.")
+@click.option("--index-dither", default="floyd-steinberg", show_default=True,
+              type=click.Choice(["floyd-steinberg", "jarvis-judice-ninke", "stucki", "bayer4", "bayer8",
+                                 "blue-noise"]),
+              help="How index squares are chosen: an error diffusion or an ordered pattern.")
+@click.option("--view-distance", "view_distance", type=PrintSize(), default=DEFAULT_VIEW_DISTANCE_MM,
+              show_default="1000 mm", metavar="LENGTH",
+              help="Viewing distance for the perceived ΔE00 of the simulated print (e.g. 1m is 1000mm, 40in).")
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
              min_line_mm, keep_detail, keep_fraction, underbase, choke_mm, base_min_l, highlight_white,
              highlight_min_l, trap_mm, trap_pairs, overprint, marks, margin_mm, order, png, seed, force, as_json,
-             dithered):
+             dithered, tones, lpi, angles, dot_shape, min_dot_mm, mesh, index_dpi, index_dither, view_distance):
     """Separate IMAGE into one 1-bit TIFF plate per printed ink, in the -o folder.
 
     Inks come from --palette, from an ink library (--inks with -n, or --snap),
@@ -151,6 +178,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
     if print_width is not None and print_height is not None:
         raise click.UsageError("give --print-width or --print-height, not both (the other follows the artwork)")
     order_list = [s.strip() for s in order.split(",") if s.strip()] if order else None
+    angle_list = _angles(angles) if angles else ()
     pairs = tuple(_trap_pair(t) for t in trap_pairs)
 
     def work():
@@ -160,6 +188,7 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         from quantize.separation.inks import load_ink_library
         from quantize.separation.plates import SeparationSettings
         from quantize.separation.plates import separate as run
+        from quantize.separation.tonal import TonalSettings
 
         pal = Palette.load(palette_file) if palette_file else None
         lib = load_ink_library(inks_file, illuminant=illuminant) if inks_file else None
@@ -171,7 +200,11 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                                       negative=negative, base_min_l=base_min_l,
                                       highlight_white=highlight_white, highlight_min_l=highlight_min_l,
                                       trap_mm=trap_mm, trap_pairs=pairs, overprint=tuple(overprint),
-                                      keep_detail=keep_detail, keep_fraction=keep_fraction, dithered=dithered)
+                                      keep_detail=keep_detail, keep_fraction=keep_fraction, dithered=dithered,
+                                      tones=tones, view_distance_mm=view_distance,
+                                      tonal=TonalSettings(lpi=lpi, angles=angle_list, dot_shape=dot_shape,
+                                                          min_dot_mm=min_dot_mm, mesh=mesh, index_dpi=index_dpi,
+                                                          index_dither=index_dither))
         sub = info["substrate"] if info["substrate"] is not None else "none"
         sep = run(pic, pal, substrate=sub, order=order_list, settings=settings)
         # Every note printed below is also in the manifest: where the substrate came from, the
@@ -202,11 +235,21 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
              + (" + highlight white" if sep.highlight else ""))
     click.echo(f"{image}: {len(films)} film(s), {kinds}, at {sep.dpi:g} dpi, printed {g.width_mm:.1f} x "
                f"{g.height_mm:.1f} mm (size from the {g.size_from}; {doc['settings']['inks_from']['method']})")
+    screens = (sep.tonal or {}).get("plates", {})
     for p in films:
         click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> "
                    + ", ".join(t.name for t in written["plates"][p.name]))
         g = (sep.guidance or {}).get(p.name)
-        if g and g["pieces"]:
+        sc = screens.get(p.name)
+        if sc and "lpi" in sc:
+            click.echo(f"      {sc['lpi']:g} lpi at {sc['angle']:g}°, {sc['dot_shape']} dots of at least "
+                       f"{sc['min_dot_mm']:g} mm; screen area {g['area_cm2']:.1f} cm², mesh about "
+                       f"{g['mesh']['threads_per_inch']} threads/in (common practice)")
+        elif sc:
+            click.echo(f"      index squares of {sc['square_mm']:.3f} mm ({sc['index_dpi']:g} dpi, {sc['dither']}); "
+                       f"screen area {g['area_cm2']:.1f} cm², mesh about {g['mesh']['threads_per_inch']} threads/in "
+                       "(common practice)")
+        elif g and g["pieces"]:
             line = f"line {g['smallest_line_mm']:.2f} mm, " if g["smallest_line_mm"] is not None else ""
             click.echo(f"      smallest dot {g['smallest_dot_mm']:.2f} mm, {line}screen area {g['area_cm2']:.1f} cm², "
                        f"mesh about {g['mesh']['threads_per_inch']} threads/in (common practice)")
@@ -223,9 +266,10 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         click.echo(f"edges: {sep.edges.pixels_changed} pixel(s) blending two inks given to one of those two, "
                    "not to a third ink")
     c = sep.cleanup
-    click.echo(f"clean-up: {c.pixels_changed} pixel(s) changed in {c.regions_merged} region(s) below "
-               f"{c.min_feature_mm:g} mm; ΔE00 of the change: mean {c.delta_e_image_mean:.3f} over the "
-               f"image, {c.delta_e_changed_mean:.2f} over changed pixels")
+    if c is not None:
+        click.echo(f"clean-up: {c.pixels_changed} pixel(s) changed in {c.regions_merged} region(s) below "
+                   f"{c.min_feature_mm:g} mm; ΔE00 of the change: mean {c.delta_e_image_mean:.3f} over the "
+                   f"image, {c.delta_e_changed_mean:.2f} over changed pixels")
     t = sep.thin_summary
     if t["lines"] or t["gaps"]:
         click.echo(f"thin detail below {min_line_mm:g} mm: {t['lines']} line(s), {t['gaps']} gap(s); "
@@ -237,7 +281,11 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         n_traps = sum(1 for t in sep.traps if "lighter" in t)
         click.echo(f"traps: {n_traps} join(s), lighter under darker; {len(sep.traps) - n_traps} keyline fill(s)")
     d = sep.delta_e
-    click.echo(f"ΔE00 to the source: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
+    click.echo(f"ΔE00 to the source, pixel by pixel: mean {d['mean']:.2f}  p95 {d['p95']:.2f}  max {d['max']:.2f}")
+    if sep.perceived:
+        f = sep.perceived["filtered"]
+        click.echo(f"perceived ΔE00 of the simulated print at {sep.perceived['distance_mm']:g} mm (S-CIELAB): "
+                   f"mean {f['mean']:.2f}  p95 {f['p95']:.2f}  (compare spot, halftone and index by this)")
     for note in notes:
         click.echo(f"note: {note}")
     n_files = sum(len(ts) for ts in written["plates"].values()) + 2 + (1 if written["pdf"] else 0)
@@ -258,6 +306,18 @@ def _snap_line(s: dict) -> str:
     if s["prints_as"] != s["ink"]:
         line += f" (assigned {s['ink']}, ΔE00 {s['delta_e']:.2f}, but its pixels are nearer another ink)"
     return line
+
+
+def _angles(text: str) -> tuple[float, ...]:
+    """``'15,45,75'`` -> ``(15.0, 45.0, 75.0)``."""
+    try:
+        out = tuple(float(a) for a in text.split(",") if a.strip())
+    except ValueError:
+        out = ()
+    if not out or not all(-360 <= a <= 360 for a in out):
+        raise click.BadParameter(f"{text!r}: write degrees separated by commas, e.g. '15,45,75'",
+                                 param_hint="--angles")
+    return out
 
 
 def _trap_pair(text: str) -> tuple[str, str, float]:

@@ -6,7 +6,7 @@ emulsion and ink.
 """
 
 __all__ = ["DEFAULT_CHOKE_MM", "DEFAULT_DPI", "DEFAULT_FILM_DPI", "DEFAULT_HIGHLIGHT_MIN_L", "DEFAULT_KEEP_FRACTION", "DEFAULT_MARGIN_MM", "DEFAULT_MIN_FEATURE_MM", "DEFAULT_MIN_LINE_MM",
-           "DEFAULT_TRAP_MM"]
+           "DEFAULT_TRAP_MM", "DEFAULT_LPI", "DEFAULT_MIN_DOT_MM", "DEFAULT_INDEX_DPI", "DEFAULT_VIEW_DISTANCE_MM"]
 
 #: Smallest printable dot diameter, mm (common practice, no source).
 DEFAULT_MIN_FEATURE_MM = 0.5
@@ -29,3 +29,14 @@ DEFAULT_TRAP_MM = 0.15
 #: Small elements of at least this fraction of the minimum dot's area are grown to it, smaller ones
 #: dropped whole; a starting point, no source.
 DEFAULT_KEEP_FRACTION = 0.5
+#: Halftone screen frequency, lines per inch (common practice, from memory: textile halftones are
+#: usually 45 to 65 lpi).
+DEFAULT_LPI = 55.0
+#: The smallest halftone dot (and hole) a screen holds, diameter in mm (common practice, from memory;
+#: set it from the mesh and emulsion).
+DEFAULT_MIN_DOT_MM = 0.1
+#: Index separation resolution, dpi: square index pixels of 0.127 mm (common practice, from memory).
+DEFAULT_INDEX_DPI = 200.0
+#: Viewing distance of the perceived error, mm: a printed garment or poster seen from about a metre
+#: (a stated assumption, no source).
+DEFAULT_VIEW_DISTANCE_MM = 1000.0

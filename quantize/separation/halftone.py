@@ -36,7 +36,8 @@ import numpy as np
 from quantize.core.units import MM_PER_INCH
 from quantize.errors import SeparationError
 
-__all__ = ["Screen", "DOT_SHAPES", "halftone", "printable_share", "screen_warnings", "default_angles"]
+__all__ = ["Screen", "DOT_SHAPES", "halftone", "printable_share", "screen_warnings", "default_angles",
+           "drop_specks"]
 
 #: Dot shapes: round (a circle grows from the cell's centre), elliptical
 #: (an ellipse of axes 1 : 0.7, so dots join along one axis first) and square.
@@ -127,7 +128,7 @@ def printable_share(share: np.ndarray, min_share: float) -> np.ndarray:
     return out
 
 
-def halftone(share: np.ndarray, screen: Screen, dpi: float) -> np.ndarray:
+def halftone(share: np.ndarray, screen: Screen, dpi: float, *, row0: int = 0) -> np.ndarray:
     """The 1-bit film of an ink's share per film pixel under ``screen``.
 
     Parameters
@@ -137,6 +138,9 @@ def halftone(share: np.ndarray, screen: Screen, dpi: float) -> np.ndarray:
     screen : Screen
     dpi : float
         The film's resolution.
+    row0 : int, default 0
+        The film row of ``share``'s first row: a film made in strips of
+        rows is the same film as one made whole.
 
     Returns
     -------
@@ -158,7 +162,7 @@ def halftone(share: np.ndarray, screen: Screen, dpi: float) -> np.ndarray:
     # Pixel centres in cells of the turned screen.
     scale = screen.lpi / float(dpi)
     a = math.radians(screen.angle)
-    ys, xs = (np.arange(h) + 0.5)[:, None], (np.arange(w) + 0.5)[None, :]
+    ys, xs = (np.arange(row0, row0 + h) + 0.5)[:, None], (np.arange(w) + 0.5)[None, :]
     u = (xs * math.cos(a) + ys * math.sin(a)) * scale
     v = (-xs * math.sin(a) + ys * math.cos(a)) * scale
     x = 2.0 * (u - np.floor(u)) - 1.0
@@ -169,6 +173,64 @@ def halftone(share: np.ndarray, screen: Screen, dpi: float) -> np.ndarray:
     printed = printable_share(share, screen.min_share)
     # A full share inks every pixel, even where the spot function peaks above the ranked samples.
     return (reach < printed) | (printed >= 1.0)
+
+
+def drop_specks(film: np.ndarray, min_area_px: float, *, printable: np.ndarray | None = None) -> tuple[int, int]:
+    """Remove, in place, inked pieces and holes of fewer than ``min_area_px`` pixels.
+
+    :func:`printable_share` keeps every dot of a flat tone at or above the
+    minimum; where the tone changes within a cell, or where the film's pixel
+    grid cuts a dot, a smaller piece can remain. Pieces are 4-connected (a
+    diagonal touch does not hold two dots together on a screen). A piece or
+    hole that touches the edge of the printed area is cut by it and is kept.
+
+    Parameters
+    ----------
+    film : (H, W) bool ndarray
+        Changed in place.
+    min_area_px : float
+        The minimum dot's area in film pixels.
+    printable : (H, W) bool ndarray, optional
+        Where anything prints (default: everywhere); holes are looked for
+        only there.
+
+    Returns
+    -------
+    (int, int)
+        Pieces removed and holes filled.
+
+    Examples
+    --------
+    >>> f = np.zeros((20, 20), bool); f[2, 2] = True; f[8:14, 8:14] = True
+    >>> drop_specks(f, 4.0), int(f.sum())
+    ((1, 0), 36)
+    """
+    from scipy import ndimage as ndi
+
+    if min_area_px <= 1:
+        return 0, 0
+    counts = []
+    for want in (True, False):
+        region = film if want else ~film
+        if not want and printable is not None:
+            region &= printable
+        lab, n = ndi.label(region)
+        if n == 0:
+            counts.append(0)
+            continue
+        area = np.bincount(lab.ravel(), minlength=n + 1)
+        edge = np.zeros(n + 1, bool)
+        for side in (lab[0], lab[-1], lab[:, 0], lab[:, -1]):
+            edge[side] = True
+        if printable is not None:
+            # Pieces beside a pixel that prints nothing are cut by the print's edge.
+            edge[np.unique(lab[ndi.binary_dilation(~printable, structure=np.ones((3, 3), bool))])] = True
+        small = (area < min_area_px) & ~edge
+        small[0] = False
+        if small.any():
+            film[small[lab]] = not want
+        counts.append(int(small.sum()))
+    return counts[0], counts[1]
 
 
 def default_angles(n: int) -> list[float]:

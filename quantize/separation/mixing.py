@@ -29,6 +29,9 @@ References
    and its effect on halftone reproduction", Proc. TAGA 3, 65-76, 1951.
 .. [3] J. Duchi, S. Shalev-Shwartz, Y. Singer and T. Chandra, "Efficient
    projections onto the l1-ball for learning in high dimensions", ICML 2008.
+.. [4] D. R. Wyble and R. S. Berns, "A critical review of spectral models
+   applied to binary color printing", Color Res. Appl. 25(1), 4-19, 2000
+   (Demichel's equations: the areas of overlapping independent screens).
 """
 
 from __future__ import annotations
@@ -38,7 +41,7 @@ import numpy as np
 from quantize.colour.spaces import srgb_to_linear
 from quantize.errors import SeparationError
 
-__all__ = ["ink_shares", "mix", "project_simplex"]
+__all__ = ["ink_shares", "mix", "project_simplex", "printed_shares"]
 
 
 def project_simplex(v: np.ndarray) -> np.ndarray:
@@ -118,3 +121,25 @@ def ink_shares(rgb8, ink_rgb8, substrate_rgb8, *, n: float = 1.0, iters: int = 5
     for _ in range(iters):
         w = project_simplex(w - step * (w @ gram - tv))
     return w[:, 1:]
+
+
+def printed_shares(visible: np.ndarray) -> np.ndarray:
+    """The share each ink must print so that ``visible`` of it shows under the inks printed after it.
+
+    Columns of ``visible`` are inks in print order.  Halftone screens at
+    different angles overlap at random (independently), so an opaque ink
+    printed with area ``a_i`` shows on ``a_i * prod_{j > i} (1 - a_j)`` of
+    the area (Demichel's equations, as reviewed by Wyble & Berns 2000).
+    Solving from the last ink back gives ``a_i = v_i / (1 - sum_{j > i} v_j)``.
+
+    Examples
+    --------
+    >>> printed_shares(np.array([[0.25, 0.5]])).tolist()
+    [[0.5, 0.5]]
+    """
+    v = np.clip(np.asarray(visible, dtype=np.float64), 0.0, 1.0)
+    later = np.cumsum(v[:, ::-1], axis=1)[:, ::-1] - v  # sum of the shares printed after each ink
+    free = 1.0 - later
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(free > 1e-9, v / np.maximum(free, 1e-9), np.where(v > 0, 1.0, 0.0))
+    return np.clip(a, 0.0, 1.0)

@@ -52,7 +52,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from quantize.core.units import mm_to_px, px_to_mm
+from quantize.core.units import MM_PER_INCH, mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
 from quantize.io.write import to_jsonable
 
@@ -71,11 +71,14 @@ from .defaults import (
     DEFAULT_MIN_FEATURE_MM,
     DEFAULT_MIN_LINE_MM,
     DEFAULT_TRAP_MM,
+    DEFAULT_VIEW_DISTANCE_MM,
 )
 from .dithered import DITHER_CHOICES, dither_handling
 from .edges import SeamReport, resolve_seams
 from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
-from .guidance import MESH_RULE, plate_guidance
+from .guidance import MESH_COUNTS, MESH_RULE, mesh_for, plate_guidance
+from .halftone import screen_warnings
+from .tonal import TONES, TonalSettings, print_error, simulate_print
 from .trap import trap_plates
 from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
 
@@ -176,6 +179,15 @@ class SeparationSettings:
         those two (:func:`quantize.separation.edges.resolve_seams`).
     dithered : {"auto", "keep", "clean"}, default "auto"
         How dithered input is treated (:mod:`quantize.separation.dithered`).
+    tones : {"spot", "halftone", "index"}, default "spot"
+        How the inks print: flat spot areas (cleaned up, trapped), halftone
+        dots of each ink's share, or index pixels
+        (:mod:`quantize.separation.tonal`).
+    tonal : TonalSettings
+        Screens and index resolution of halftone and index plates.
+    view_distance_mm : float, default 1000
+        Viewing distance of the perceived error of the simulated print
+        (a stated assumption, no source).
     """
 
     dpi: float | None = None
@@ -203,6 +215,9 @@ class SeparationSettings:
     keep_fraction: float = DEFAULT_KEEP_FRACTION
     edges: bool = True
     dithered: str = "auto"
+    tones: str = "spot"
+    tonal: TonalSettings = field(default_factory=TonalSettings)
+    view_distance_mm: float = DEFAULT_VIEW_DISTANCE_MM
 
     def to_dict(self) -> dict:
         """The settings as the manifest lists them."""
@@ -217,7 +232,9 @@ class SeparationSettings:
 
 
 def _plain(v):
-    """Tuples (of tuples) as lists, for JSON."""
+    """Tuples (of tuples) as lists and settings objects as dicts, for JSON."""
+    if isinstance(v, TonalSettings):
+        return {f.name: _plain(getattr(v, f.name)) for f in fields(v)}
     return [_plain(x) for x in v] if isinstance(v, tuple) else v
 
 
@@ -242,8 +259,9 @@ class Separation:
     alpha : ndarray of shape (H, W) or None
         Where the films print (255) or not (0), when the input had an alpha channel.
     source : str
-    cleanup : CleanupReport
-        What merging the regions too small to print changed.
+    cleanup : CleanupReport or None
+        What merging the regions too small to print changed (None for
+        halftone and index plates: their dots are kept as screened).
     thin : list of dict
         Thin lines and gaps, largest first (at most 200); see
         :func:`quantize.separation.cleanup.find_thin_features`.
@@ -290,6 +308,16 @@ class Separation:
         Film name -> smallest dot and line, area in cm² and a mesh
         suggestion, measured on the film
         (:func:`quantize.separation.guidance.plate_guidance`).
+    perceived : dict or None
+        Plain and perceived (S-CIELAB filtered) ΔE00 of the simulated print
+        against the artwork at ``settings.view_distance_mm``
+        (:func:`quantize.separation.tonal.print_error`).
+    preview : ndarray of shape (h, w, 3) or None
+        The simulated print of halftone and index plates on the artwork's
+        grid, 8-bit sRGB (written as the composite); None for spot plates.
+    tonal : dict or None
+        Halftone or index plates: ``tones``, and per film name its screen
+        (``lpi``, ``angle``, ``dot_shape``, ``min_dot_mm``) or index pixel.
     """
 
     indices: np.ndarray
@@ -300,7 +328,7 @@ class Separation:
     dpi: float
     alpha: np.ndarray | None
     source: str
-    cleanup: CleanupReport
+    cleanup: CleanupReport | None
     thin: list
     thin_summary: dict
     delta_e: dict
@@ -320,6 +348,9 @@ class Separation:
     traps: tuple = ()
     detail: DetailReport | None = None
     guidance: dict | None = None
+    perceived: dict | None = None
+    preview: np.ndarray | None = None
+    tonal: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -376,10 +407,13 @@ class Separation:
                          "lab": [round(float(v), 3) for v in pal.lab[i]],
                          "role": "substrate" if i == self.substrate else "ink", **self._measured_doc(i)})
 
+        screens = (self.tonal or {}).get("plates", {})
+
         def plate_doc(p: Plate) -> dict:
             return {"name": p.name, "order": p.order, "palette_index": p.index, "hex": _hex(p.rgb8),
                     "lab": [round(float(v), 3) for v in srgb8_to_space(p.rgb8, "lab")],
                     "coverage_percent": round(p.coverage, 4), "files": files.get(p.name, []),
+                    **({"screen": screens[p.name]} if p.name in screens else {}),
                     **(self._measured_doc(p.index) if p.index is not None else {})}
 
         h, w = self.shape
@@ -412,9 +446,12 @@ class Separation:
                            "physical proof decide"},
             "coverage_percent": {k: round(v, 4) for k, v in self.coverage().items()},
             "delta_e": self.delta_e,
+            "tones": self.settings.tones,
+            "perceived": self.perceived,
+            "tonal": None if self.tonal is None else {k: v for k, v in self.tonal.items() if k != "plates"},
             "edges": self._edges_doc(),
             "dither": self.dither,
-            "cleanup": self.cleanup.to_dict(),
+            "cleanup": None if self.cleanup is None else self.cleanup.to_dict(),
             "thin_features": {"summary": self.thin_summary, "items": self.thin},
             "settings": self.settings.to_dict(),
             "composite": composite,
@@ -540,8 +577,16 @@ class Separation:
         if pdf and pages:
             atomic_write_bytes(pdf_path, pdf_bytes(pages, self.dpi, title=f"{job}: films"),
                                force=force, inputs=inputs)
-        save_image(composite, self.composite_indices(), self.palette.rgb8, alpha=self.alpha,
-                   dpi=(self.dpi, self.dpi), force=force, inputs=inputs)
+        if self.preview is None:
+            save_image(composite, self.composite_indices(), self.palette.rgb8, alpha=self.alpha,
+                       dpi=(self.dpi, self.dpi), force=force, inputs=inputs)
+        else:  # the simulated print of dots or index pixels, on the artwork's grid
+            from PIL import Image
+
+            buf = io.BytesIO()
+            pdpi = self.perceived["dpi"] if self.perceived else self.dpi
+            Image.fromarray(self.preview, "RGB").save(buf, format="PNG", dpi=(pdpi, pdpi), optimize=True)
+            atomic_write_bytes(composite, buf.getvalue(), force=force, inputs=inputs)
         files = {name: [t.name for t in ts] for name, ts in plan.items()}
         doc = self.manifest(files, composite=composite.name, margin_px=margin,
                             films_pdf=pdf_path.name if pdf and pages else None)
@@ -620,7 +665,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
              min_feature_mm: float | None = None, min_line_mm: float | None = None,
              underbase: bool | None = None, choke_mm: float | None = None, order: Sequence | None = None,
              max_pixels=None, edges: bool | None = None, dithered: str | None = None,
-             settings: SeparationSettings | None = None) -> Separation:
+             tones: str | None = None, settings: SeparationSettings | None = None) -> Separation:
     """Separate an image into one knocked-out 1-bit film per printed ink, at print size.
 
     Parameters
@@ -659,6 +704,12 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         Dithered input (:mod:`quantize.separation.dithered`): "auto" keeps
         every dot of an image that looks dithered (no edge step, no
         clean-up; noted), "keep" does so always, "clean" treats it as flat art.
+    tones : {"spot", "halftone", "index"}, default "spot"
+        Flat spot plates, or tonal plates: halftone dots of each ink's share
+        of the colour, or index pixels (:mod:`quantize.separation.tonal`;
+        screens and index resolution in ``settings.tonal``). Tonal plates
+        need a substrate to mix on, and get no clean-up, trap or highlight
+        white; an underbase under them is solid and choked.
     settings : SeparationSettings, optional
         Every other option (film resolution, print size, mirror, negative);
         the keywords above, when given, take precedence over its fields.
@@ -706,13 +757,16 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     from quantize.render.mapping import map_picture
 
     given = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
-             "choke_mm": choke_mm, "edges": edges, "dithered": dithered}
+             "choke_mm": choke_mm, "edges": edges, "dithered": dithered, "tones": tones}
     st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
     _check_settings(st)
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
     art_dpi = _resolve_dpi(pic, st.dpi, notes)
+    grid = _film_grid(pic, art_dpi, st, notes)
+    if st.tones != "spot":
+        return _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes)
     smp = sample_picture(pic)
     mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
     dither, dither_note = dither_handling(mapped.indices, pic.opaque, st.dithered, source=pic.source)
@@ -724,7 +778,6 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                                       palette.lab, opaque=pic.opaque)
         mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
     art_idx = mapped.indices
-    grid = _film_grid(pic, art_dpi, st, notes)
     film_idx, film_op = resample_indices(art_idx, pic.opaque, grid.shape, fill=0 if sub is None else sub)
     # A dither's dots are deliberate: neither edge blends nor specks to merge or grow.
     clean_st = replace(st, min_feature_mm=0.0, keep_detail=False) if dither["kept"] else st
@@ -748,7 +801,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                  mapping=_EDGE_MAPPING if st.edges else "nearest by ΔE00")
     sub_cov = float(100.0 * ((cleaned == sub) & film_op).sum() / n_opaque) if sub is not None else 0.0
     alpha = None if pic.alpha is None else np.where(film_op, 255, 0).astype(np.uint8)
-    return Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
+    sep = Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=cleanup, thin=thin,
                       thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
@@ -757,12 +810,146 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
                       base_plan=base_plan, traps=tuple(traps), detail=detail,
                       guidance={p.name: plate_guidance(p.mask, grid.dpi, white=p.index is None)
                                 for p in sorted([*plates, *(x for x in (ub, hl) if x)], key=lambda p: p.order)})
+    # The one number that compares spot, halftone and index plates: the print as seen from a distance.
+    top = sep.composite_indices().astype(np.int32)
+    top[~film_op] = -1
+    preview = simulate_print(top, palette.rgb8, pic.shape)
+    return replace(sep, perceived=print_error(pic, preview, width_mm=grid.width_mm,
+                                              distance_mm=st.view_distance_mm))
 
 
 # --------------------------------------------------------------------------- the steps of separate
 
 
+def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: list) -> Separation:
+    """Halftone or index plates (:mod:`quantize.separation.tonal`), with an optional solid underbase."""
+    from quantize.core.sampling import sample_picture
+
+    from .tonal import film_coverage, halftone_films, index_films, index_grid, share_maps
+
+    if sub is None:
+        raise SeparationError(f"{pic.source}: {st.tones} plates mix the inks with the bare substrate between "
+                              "them; give the substrate's colour instead of 'none'")
+    tn = st.tonal
+    ink_order, layout = split_order(order)
+    ordered = print_order(palette, [i for i in range(palette.k) if i != sub], ink_order)
+    if st.highlight_white:
+        notes.append(f"no highlight white with {st.tones} plates: the inks' shares already set how light each "
+                     "area prints")
+    shape, white = grid.shape, np.array([255, 255, 255], np.uint8)
+    screens = {}
+    if st.tones == "halftone":
+        scr = tn.screens(len(ordered))
+        shares, on_base = share_maps(sample_picture(pic), pic.shape, palette.rgb8[ordered], palette.rgb8[sub],
+                                     base_rgb8=white if st.underbase else None, yule_nielsen=tn.yule_nielsen)
+        printable = film_coverage(pic.float_alpha(), shape) if pic.alpha is not None else np.ones(shape, bool)
+        films, specks = halftone_films(shares, scr, shape, grid.dpi, printable)
+        base_need = film_coverage(on_base.astype(np.float32), shape) & printable if st.underbase else None
+        for i, sc, (dropped, filled) in zip(ordered, scr, specks, strict=True):
+            screens[_ink_name(palette, i)] = {"lpi": sc.lpi, "angle": sc.angle, "dot_shape": sc.shape,
+                                              "min_dot_mm": sc.min_dot_mm, "specks_removed": dropped,
+                                              "holes_filled": filled}
+        for w in dict.fromkeys(w for sc in scr for w in screen_warnings(sc, grid.dpi, tn.mesh)):
+            notes.append(f"warning: {w}")
+        mapping = ("halftone: ink shares by the Murray-Davies area law in linear light"
+                   + (f" (Yule-Nielsen n = {tn.yule_nielsen:g})" if tn.yule_nielsen != 1 else "")
+                   + ", screened at each ink's angle, overlaps by Demichel's equations")
+    else:
+        ih, iw = index_grid(grid.width_mm, grid.height_mm, tn.index_dpi)
+        film_idx, printable = index_films(pic, palette, (ih, iw), shape, dither=tn.index_dither)
+        films = [(film_idx == i) & printable for i in ordered]
+        light = [i for i in ordered if palette.lab[i, 0] >= st.base_min_l]
+        base_need = np.isin(film_idx, light) & printable if st.underbase else None
+        side = MM_PER_INCH / tn.index_dpi
+        for i in ordered:
+            screens[_ink_name(palette, i)] = {"index_dpi": tn.index_dpi, "square_mm": round(side, 4),
+                                              "dither": tn.index_dither}
+        if abs(grid.dpi / tn.index_dpi - round(grid.dpi / tn.index_dpi)) > 1e-6:
+            notes.append(f"the film's {grid.dpi:g} dpi is not a whole multiple of the index's {tn.index_dpi:g} dpi: "
+                         "index squares differ by a film pixel")
+        mapping = f"index: resampled to {iw} x {ih} squares of {side:.3f} mm, dithered ({tn.index_dither})"
+    n_op = max(int(printable.sum()), 1)
+    names = [_ink_name(palette, i) for i in ordered]
+    if len({nm.casefold() for nm in names}) != len(names):
+        raise SeparationError("two printed colours have the same name; plates are named after inks, so every "
+                              "ink needs its own name")
+    plates = []
+    for i, nm, sl, film in zip(ordered, names, _unique_slugs(names), films, strict=True):
+        if not film.any():
+            notes.append(f"no pixel prints {nm}: no plate for it")
+            continue
+        plates.append(Plate(name=nm, index=i, order=len(plates) + 1, mask=film,
+                            coverage=float(100.0 * film.sum() / n_op), rgb8=palette.rgb8[i], lab=palette.lab[i],
+                            slug=sl))
+    d_px = mm_to_px(st.min_feature_mm, grid.dpi)
+    min_area = math.pi * d_px * d_px / 4.0
+    ub = base_plan = None
+    if base_need is not None:
+        base_plan = underbase_plan(base_need, choke_px=mm_to_px(st.choke_mm, grid.dpi), min_area_px=min_area,
+                                   dpi=grid.dpi)
+        ub = _white_plate(UNDERBASE, base_plan.mask, n_op)
+    seq = print_sequence([p.name for p in plates], underbase=ub is not None, highlight=False, layout=layout)
+    plates, ub, _ = _numbered(seq, plates, ub, None)
+    # What shows at every film pixel: the last ink printed there, else the underbase, else the substrate.
+    top = np.zeros(shape, np.int16)
+    top[~printable] = -1
+    if ub is not None:
+        top[ub.mask] = 1
+    for j, p in enumerate(plates):
+        top[p.mask] = 2 + j
+    colours = np.vstack([palette.rgb8[sub], white] + [p.rgb8 for p in plates]).astype(np.uint8)
+    preview = simulate_print(top, colours, pic.shape)
+    perceived = print_error(pic, preview, width_mm=grid.width_mm, distance_mm=st.view_distance_mm)
+    lut = np.array([sub, sub] + [p.index for p in plates], dtype=np.int64)
+    indices = lut[np.maximum(top, 0)].astype(np.uint8 if palette.k <= 256 else np.uint16)
+    st = replace(st, dpi=art_dpi, min_area_px=round(min_area, 3), choke_mm=st.choke_mm if st.underbase else None,
+                 order="given" if order is not None else "light to dark",
+                 palette_fit=palette.fit.to_dict() if palette.fit is not None else {}, mapping=mapping)
+    px_cm = MM_PER_INCH / 10.0 / grid.dpi
+    guidance = {p.name: _tonal_guidance(p, screens[p.name], px_cm) for p in plates}
+    if ub is not None:
+        guidance[ub.name] = plate_guidance(ub.mask, grid.dpi, white=True)
+    alpha = None if pic.alpha is None else np.where(printable, 255, 0).astype(np.uint8)
+    return Separation(indices=indices, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
+                      dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=None, thin=[],
+                      thin_summary={"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0},
+                      delta_e=perceived["plain"], settings=st, notes=tuple(notes),
+                      substrate_coverage=float(100.0 * (top == 0).sum() / n_op), substrate_from=said,
+                      film=grid, art_shape=tuple(pic.shape), art_dpi=art_dpi, sequence=tuple(seq),
+                      base_plan=base_plan, guidance=guidance, perceived=perceived, preview=preview,
+                      tonal={"tones": st.tones, "plates": screens,
+                             "coverage": "each film's inked share of the print; halftone films overlap, so "
+                                         "they need not sum to 100 with the substrate"})
+
+
+def _tonal_guidance(p: Plate, screen: dict, px_cm: float) -> dict:
+    """Area and mesh of a halftone or index film, from its screen (its dots are too many to measure one by one)."""
+    finest = screen.get("min_dot_mm") or screen.get("square_mm")
+    mesh = mesh_for(finest)
+    if "lpi" in screen:
+        needed = 4 * screen["lpi"]  # common practice, from memory: 4 threads per screen line or more
+        fits = [m for m in MESH_COUNTS if m >= needed]
+        mesh = {"threads_per_inch": fits[0] if fits else MESH_COUNTS[-1], "needed": needed,
+                "note": "" if fits else f"{screen['lpi']:g} lpi needs a mesh finer than {MESH_COUNTS[-1]}"}
+    return {"smallest_dot_mm": finest, "smallest_line_mm": None,
+            "area_cm2": round(float(p.mask.sum()) * px_cm * px_cm, 3), "pieces": None, "mesh": mesh}
+
+
+def _white_plate(name: str, mask: np.ndarray, n_opaque: int) -> Plate:
+    """An underbase or highlight white film (no palette index), numbered later."""
+    return Plate(name=name, index=None, order=0, mask=mask, coverage=float(100.0 * mask.sum() / max(n_opaque, 1)),
+                 rgb8=np.array([255, 255, 255], np.uint8), lab=np.array([100.0, 0, 0]), slug=_slug(name))
+
+
 def _check_settings(st: SeparationSettings) -> None:
+    if st.tones not in TONES:
+        raise SeparationError(f"tones must be one of {', '.join(TONES)}, got {st.tones!r}")
+    if not isinstance(st.tonal, TonalSettings):
+        raise SeparationError(f"tonal must be a TonalSettings, got {type(st.tonal).__name__}")
+    st.tonal.check()
+    v = st.view_distance_mm
+    if not (isinstance(v, (int, float)) and math.isfinite(v) and 10 <= v <= 100_000):
+        raise SeparationError(f"view_distance_mm must be 10 to 100000 mm, got {v!r}")
     for nm in ("min_feature_mm", "min_line_mm", "choke_mm"):
         v = getattr(st, nm)
         if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
@@ -960,9 +1147,7 @@ def _underbase_plate(cleaned, opaque, palette, sub, plates, st, *, min_area_px, 
     left_off = [p.name for p in plates if p.index not in on_base]
     base = np.isin(cleaned, on_base) & opaque
     plan = underbase_plan(base, choke_px=mm_to_px(st.choke_mm, dpi), min_area_px=min_area_px, dpi=dpi)
-    ub = Plate(name=UNDERBASE, index=None, order=0, mask=plan.mask,
-               coverage=float(100.0 * plan.mask.sum() / int(opaque.sum())), rgb8=np.array([255, 255, 255], np.uint8),
-               lab=np.array([100.0, 0, 0]), slug="underbase")
+    ub = _white_plate(UNDERBASE, plan.mask, int(opaque.sum()))
     if left_off:
         notes.append(f"left off the underbase (L* below {st.base_min_l:g}): {', '.join(left_off)}")
     if plan.islands_removed:
@@ -986,8 +1171,7 @@ def _highlight_plate(cleaned, opaque, palette, plates, st, *, min_area_px, notes
     if not mask.any():
         notes.append(f"no ink is as light as L* {st.highlight_min_l:g}: no highlight white plate")
         return None
-    return Plate(name=HIGHLIGHT, index=None, order=0, mask=mask, coverage=float(100.0 * mask.sum() / int(opaque.sum())),
-                 rgb8=np.array([255, 255, 255], np.uint8), lab=np.array([100.0, 0, 0]), slug="highlight-white")
+    return _white_plate(HIGHLIGHT, mask, int(opaque.sum()))
 
 
 def _numbered(seq: list[str], plates: list[Plate], ub: Plate | None, hl: Plate | None):
