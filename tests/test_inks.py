@@ -370,3 +370,18 @@ def test_cgats_data_before_format_is_reported():
     text = 'CGATS.17\nBEGIN_DATA\n1 A 50 10 10\nEND_DATA\nBEGIN_DATA_FORMAT\nSAMPLE_ID\nEND_DATA_FORMAT\n'
     with pytest.raises(InkLibraryError, match=r"x.txt: line 2: BEGIN_DATA before any BEGIN_DATA_FORMAT"):
         parse_ink_library(text, source="x.txt")
+
+
+def test_illuminant_whites_equal_colour_science_table():
+    # colour-science ships the CIE 15:2004 chromaticities; the package carries its own copy
+    # so that adapting Lab never imports colour-science (whose import changes numpy's print options).
+    import colour
+
+    from quantize.colour.adaptation import ILLUMINANTS, WHITE_XY, _white_xyz
+
+    names = {2: "CIE 1931 2 Degree Standard Observer", 10: "CIE 1964 10 Degree Standard Observer"}
+    for obs, name in names.items():
+        for ill in ILLUMINANTS:
+            np.testing.assert_allclose(WHITE_XY[obs][ill], colour.CCS_ILLUMINANTS[name][ill], atol=0)
+            np.testing.assert_allclose(_white_xyz(ill, obs), colour.xy_to_XYZ(colour.CCS_ILLUMINANTS[name][ill]),
+                                       rtol=1e-15)

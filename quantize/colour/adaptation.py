@@ -3,30 +3,37 @@
 Instruments report Lab relative to D50 (ISO 13655) or another illuminant
 the file names; :mod:`quantize` works in CIELAB relative to the D65 white of
 sRGB.  :func:`adapt_lab` converts with the Bradford transform
-(:func:`bradford_matrix`).  The illuminants' whites come from colour-science,
-which is imported only when a Lab value needs adapting.
+(:func:`bradford_matrix`).  The illuminants' whites are the CIE 15:2004
+chromaticities (:data:`WHITE_XY`); colour-science, which ships the same table,
+is the tests' reference and is not imported here (its import changes numpy's
+print options in the caller's process).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["BRADFORD", "ILLUMINANTS", "adapt_lab", "bradford_matrix", "check_illuminant", "check_observer"]
+__all__ = ["BRADFORD", "ILLUMINANTS", "WHITE_XY", "adapt_lab", "bradford_matrix", "check_illuminant", "check_observer"]
 
 #: The Bradford cone-response matrix (Lam 1985), as given in ICC.1:2010 Annex E.
 BRADFORD = np.array([[0.8951, 0.2664, -0.1614], [-0.7502, 1.7135, 0.0367], [0.0389, -0.0685, 1.0296]])
 
-#: Illuminants a library may name; their whites come from colour-science
-#: (CIE 15:2004 chromaticities for the 2 and 10 degree observers).
+#: Illuminants a library may name.
 ILLUMINANTS = ("A", "C", "D50", "D55", "D65", "D75")
-_OBSERVERS = {2: "CIE 1931 2 Degree Standard Observer", 10: "CIE 1964 10 Degree Standard Observer"}
+#: Chromaticity (x, y) of each illuminant's white for the CIE 1931 2 degree and
+#: CIE 1964 10 degree observers: CIE 15:2004, Colorimetry, 3rd ed., Table T.3.
+WHITE_XY = {
+    2: {"A": (0.44758, 0.40745), "C": (0.31006, 0.31616), "D50": (0.3457, 0.3585),
+        "D55": (0.33243, 0.34744), "D65": (0.3127, 0.329), "D75": (0.29903, 0.31488)},
+    10: {"A": (0.45117, 0.40594), "C": (0.31039, 0.31905), "D50": (0.34773, 0.35952),
+         "D55": (0.33412, 0.34877), "D65": (0.31382, 0.331), "D75": (0.29968, 0.3174)},
+}
 
 
 def _white_xyz(name: str, observer: int) -> np.ndarray:
-    import colour
-
-    xy = colour.CCS_ILLUMINANTS[_OBSERVERS[observer]][name]
-    return colour.xy_to_XYZ(xy)
+    """XYZ (Y = 1) of an illuminant's white from its chromaticity."""
+    x, y = WHITE_XY[observer][name]
+    return np.array([x / y, 1.0, (1.0 - x - y) / y])
 
 
 def bradford_matrix(source_white, target_white) -> np.ndarray:
@@ -124,6 +131,6 @@ def check_observer(observer) -> int:
         obs = int(str(observer).strip().rstrip("°").strip())
     except ValueError:
         obs = -1
-    if obs not in _OBSERVERS:
+    if obs not in WHITE_XY:
         raise ValueError(f"unknown observer {observer!r}; choose 2 or 10 (degrees)")
     return obs

@@ -290,10 +290,16 @@ def oklab_to_srgb(oklab: ArrayLike) -> Float64Array:
 def _colour() -> tuple[Any, dict[str, Any]]:
     """Import colour-science (lazily: seconds to import, and only CAM16-UCS
     needs it); return it and the CAM16 keyword arguments."""
-    options = np.get_printoptions()
+    import warnings
+
+    options, filters = np.get_printoptions(), list(warnings.filters)
     import colour
 
-    np.set_printoptions(**options)  # its import switches numpy to 1.13-style printing
+    # Its import switches numpy to 1.13-style printing and adds warning filters: put the caller's back.
+    np.set_printoptions(**options)
+    if warnings.filters != filters:
+        warnings.filters[:] = filters
+        getattr(warnings, "_filters_mutated", lambda: None)()  # as catch_warnings does on exit
     kwargs = dict(CAM16_VIEWING_CONDITIONS)
     kwargs["surround"] = colour.appearance.InductionFactors_CAM16(**kwargs["surround"])
     return colour, kwargs

@@ -28,6 +28,7 @@ common practice, from memory, and marked so where they are set.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -99,10 +100,24 @@ def _spot(shape: str, x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.maximum(np.abs(x), np.abs(y))
 
 
-def _rank_table(shape: str) -> np.ndarray:
-    """The spot function's values over a fine grid of one cell, sorted: its area distribution."""
+@functools.lru_cache(maxsize=None)
+def _reach_table(shape: str) -> np.ndarray:
+    """Per sample of a fine grid over one cell, the share at which the dot reaches it.
+
+    The spot function's samples ranked by value: the share of the cell whose
+    value lies below a sample's. Read-only, cached.
+    """
     t = (np.arange(_RANK_SAMPLES) + 0.5) / _RANK_SAMPLES * 2.0 - 1.0
-    return np.sort(_spot(shape, t[:, None], t[None, :]).ravel())
+    x, y = np.broadcast_arrays(t[:, None], t[None, :])
+    spot = _spot(shape, x, y)
+    # Ties (a square dot's rings, a round dot's circles) are broken by distance from the centre, then by
+    # place, so that every sample has its own rank and a flat share inks exactly that share of a cell.
+    order = np.lexsort(((x + 2.0 * y).ravel(), (x * x + y * y).ravel(), spot.ravel()))
+    rank = np.empty(order.size, np.int64)
+    rank[order] = np.arange(order.size)
+    reach = (rank / order.size).reshape(spot.shape).astype(np.float32)
+    reach.flags.writeable = False
+    return reach
 
 
 def printable_share(share: np.ndarray, min_share: float) -> np.ndarray:
@@ -165,11 +180,11 @@ def halftone(share: np.ndarray, screen: Screen, dpi: float, *, row0: int = 0) ->
     ys, xs = (np.arange(row0, row0 + h) + 0.5)[:, None], (np.arange(w) + 0.5)[None, :]
     u = (xs * math.cos(a) + ys * math.sin(a)) * scale
     v = (-xs * math.sin(a) + ys * math.cos(a)) * scale
-    x = 2.0 * (u - np.floor(u)) - 1.0
-    y = 2.0 * (v - np.floor(v)) - 1.0
-    table = _rank_table(screen.shape)
-    # The area of the cell whose spot value is below this pixel's: the share at which its dot reaches it.
-    reach = np.searchsorted(table, _spot(screen.shape, x, y), side="left") / table.size
+    # The area of the cell whose spot value is below this pixel's: the share at which its dot reaches it,
+    # read from the ranked samples of the cell nearest the pixel's place in it (1/256 of a cell).
+    col = np.minimum(((u - np.floor(u)) * _RANK_SAMPLES).astype(np.intp), _RANK_SAMPLES - 1)
+    row = np.minimum(((v - np.floor(v)) * _RANK_SAMPLES).astype(np.intp), _RANK_SAMPLES - 1)
+    reach = _reach_table(screen.shape)[col, row]
     printed = printable_share(share, screen.min_share)
     # A full share inks every pixel, even where the spot function peaks above the ranked samples.
     return (reach < printed) | (printed >= 1.0)
@@ -222,7 +237,7 @@ def drop_specks(film: np.ndarray, min_area_px: float, *, printable: np.ndarray |
         edge = np.zeros(n + 1, bool)
         for side in (lab[0], lab[-1], lab[:, 0], lab[:, -1]):
             edge[side] = True
-        if printable is not None:
+        if printable is not None and not printable.all():
             # Pieces beside a pixel that prints nothing are cut by the print's edge.
             edge[np.unique(lab[ndi.binary_dilation(~printable, structure=np.ones((3, 3), bool))])] = True
         small = (area < min_area_px) & ~edge

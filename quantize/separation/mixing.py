@@ -12,8 +12,8 @@ scattered in the paper)::
 so the reachable colours are the convex hull of the substrate and the inks
 in that space.  :func:`ink_shares` finds, for each colour, the shares whose
 mixture lies nearest to it there: the Euclidean projection onto the hull,
-a least-squares problem over the simplex, solved by projected gradient
-steps (the simplex projection of Duchi et al. 2008).
+a least-squares problem over the simplex, solved by accelerated projected
+gradient steps (the simplex projection of Duchi et al. 2008).
 
 Reflectances are linear-light sRGB (IEC 61966-2-1) values of the colours'
 sRGB previews: a stand-in for measured spectra, so the shares are a starting
@@ -32,6 +32,9 @@ References
 .. [4] D. R. Wyble and R. S. Berns, "A critical review of spectral models
    applied to binary color printing", Color Res. Appl. 25(1), 4-19, 2000
    (Demichel's equations: the areas of overlapping independent screens).
+.. [5] A. Beck and M. Teboulle, "A fast iterative shrinkage-thresholding
+   algorithm for linear inverse problems", SIAM J. Imaging Sci. 2(1),
+   183-202, 2009 (the accelerated steps).
 """
 
 from __future__ import annotations
@@ -75,7 +78,7 @@ def mix(shares: np.ndarray, ink_rgb8, substrate_rgb8, *, n: float = 1.0) -> np.n
     return ((1.0 - a.sum(axis=1, keepdims=True)) * sub + a @ inks) ** n
 
 
-def ink_shares(rgb8, ink_rgb8, substrate_rgb8, *, n: float = 1.0, iters: int = 500) -> np.ndarray:
+def ink_shares(rgb8, ink_rgb8, substrate_rgb8, *, n: float = 1.0, iters: int = 200) -> np.ndarray:
     """Per colour, the share of each ink to print on the substrate to match it.
 
     Parameters
@@ -88,8 +91,8 @@ def ink_shares(rgb8, ink_rgb8, substrate_rgb8, *, n: float = 1.0, iters: int = 5
     n : float, default=1.0
         The Yule-Nielsen factor (1: Murray-Davies; 1.5 to 2 is often used
         for uncoated paper, common practice from memory).
-    iters : int, default=500
-        Projected gradient steps.
+    iters : int, default=200
+        Accelerated projected gradient steps.
 
     Returns
     -------
@@ -118,8 +121,13 @@ def ink_shares(rgb8, ink_rgb8, substrate_rgb8, *, n: float = 1.0, iters: int = 5
     step = 1.0 / max(float(np.linalg.eigvalsh(gram).max()), 1e-12)
     w = np.full((len(t), len(verts)), 1.0 / len(verts))
     tv = t @ verts.T
+    # Accelerated projected gradient (FISTA, Beck & Teboulle 2009): the same fixed point in far fewer steps.
+    z, theta = w, 1.0
     for _ in range(iters):
-        w = project_simplex(w - step * (w @ gram - tv))
+        w_next = project_simplex(z - step * (z @ gram - tv))
+        theta_next = 0.5 * (1.0 + np.sqrt(1.0 + 4.0 * theta * theta))
+        z = w_next + ((theta - 1.0) / theta_next) * (w_next - w)
+        w, theta = w_next, theta_next
     return w[:, 1:]
 
 
