@@ -95,18 +95,44 @@ def test_alpha_levels_are_the_finest_that_fit(tmp_path):
         assert im.mode == "P"
 
 
+def _webp_colour_table(data: bytes) -> int | None:
+    """Entries of a lossless WebP's colour-indexing transform, if it is the first transform.
+
+    RFC 9649 (WebP lossless bitstream): a VP8L chunk starts with the byte 0x2f, then
+    14 + 14 bits of width and height less one, an alpha bit and 3 version bits; then
+    for each transform a 1 bit and a 2-bit type, type 3 being colour indexing, whose
+    next 8 bits are the table size less one.
+    """
+    assert data[:4] == b"RIFF" and data[8:12] == b"WEBP"
+    pos = 12
+    while pos < len(data):
+        tag, n = data[pos:pos + 4], int.from_bytes(data[pos + 4:pos + 8], "little")
+        if tag == b"VP8L":
+            body = data[pos + 8:pos + 8 + n]
+            assert body[0] == 0x2F
+            bits = int.from_bytes(body[1:9], "little")
+            if (bits >> 32) & 1 and (bits >> 33) & 3 == 3:
+                return ((bits >> 35) & 0xFF) + 1
+            return None
+        pos += 8 + n + (n & 1)
+    return None
+
+
 def test_lossless_webp_decodes_to_exactly_the_png(tmp_path):
     idx, a8 = _sticker(seed=2)
     png = write_image(tmp_path / "s.png", idx, PALETTE, alpha=a8)
     webp = write_image(tmp_path / "s.webp", idx, PALETTE, alpha=a8)
     with Image.open(webp.path) as im:
         assert im.format == "WEBP"
+    # Lossless, and stored as a palette: a colour index of the PNG's entries.
+    assert _webp_colour_table(webp.path.read_bytes()) == webp.palette_entries == png.palette_entries
     a, b = _rgba(png.path), _rgba(webp.path)
     assert np.array_equal(a, b)  # same colours and alpha, pixel for pixel
     colours = {tuple(c) for c in b[b[..., 3] > 0][:, :3]}
     assert colours <= {tuple(c) for c in PALETTE.tolist()}
     # Without alpha, too.
     w = write_image(tmp_path / "o.webp", idx, PALETTE)
+    assert _webp_colour_table(w.path.read_bytes()) == 4
     with Image.open(w.path) as im:
         assert np.array_equal(np.asarray(im.convert("RGB")), PALETTE[idx])
 
