@@ -201,7 +201,7 @@ def test_jpeg_warns_and_its_delta_e_is_that_of_the_decoded_file(tmp_path):
 
     pal = fit_palette(pic, 5, seed=1, restarts=2)
     res = pal.apply(pic)
-    with pytest.warns(ImageWarning, match="no longer 5 colours"):
+    with pytest.warns(ImageWarning, match="no longer the palette's 5 colours"):
         saved = res.write(tmp_path / "o.jpg", picture=pic)
     with Image.open(saved.file.path) as im:
         decoded = np.asarray(im.convert("RGB"))
@@ -287,3 +287,23 @@ def test_reduce_apply_and_batch_write_the_same_palette_image(sticker_file, tmp_p
     assert r.exit_code == 0, r.output
     with Image.open(tmp_path / "gifs" / "sticker.gif") as im:
         assert im.mode == "P" and isinstance(im.info["transparency"], int)
+
+
+def test_a_jpeg_with_no_opaque_pixel_is_written_and_says_its_delta_e_is_not_measured(tmp_path):
+    # Every pixel half transparent: the JPEG flattens them all onto white, so no pixel
+    # shows an input colour to compare with.
+    rgba = np.dstack([PALETTE[_sticker(size=32)[0]], np.full((32, 32), 128, np.uint8)])
+    src = tmp_path / "veil.png"
+    Image.fromarray(rgba).save(src)
+    out = tmp_path / "veil.jpg"
+    r = _run("reduce", src, "-o", out, "-k", "3")
+    assert r.exit_code == 0, r.output
+    assert "not measured" in r.output and out.exists()
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "veil.png").write_bytes(src.read_bytes())
+    r = _run("batch", folder, "-o", tmp_path / "out", "-k", "3", "--format", "jpg", "--workers", "0")
+    assert r.exit_code == 0, r.output
+    row = json.loads((tmp_path / "out" / "manifest.json").read_text())["images"][0]
+    assert row["status"] == "ok" and row["delta_e"] is None
+    assert row["bytes"] == (tmp_path / "out" / "veil.jpg").stat().st_size

@@ -148,7 +148,8 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
                 pal.save(outs[1], force=job.replace)
                 row["outputs"].append(job.outputs_rel[1])
             # The ΔE00 of the file written (of the decoded pixels for a JPEG) and its size.
-            row.update(status="ok", k=pal.k, delta_e={s: float(v) for s, v in saved.delta_e.items()},
+            de = saved.delta_e  # None: a JPEG with no fully opaque pixel to measure
+            row.update(status="ok", k=pal.k, delta_e=None if de is None else {s: float(v) for s, v in de.items()},
                        bytes=saved.n_bytes,
                        entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
                        coverage=[round(float(c), 4) for c in res.coverage])

@@ -110,7 +110,10 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         _print_palette(_palette_rows(pal))
         for row, (_, lines, sv) in zip(per_image, extras):
             jpeg = " (of the decoded JPEG)" if sv.file.lossy else ""
-            _print_de(f"{row['input']} -> {row['output']}  ΔE00{jpeg}", row["delta_e"])
+            if row["delta_e"] is None:  # a JPEG measures opaque pixels only
+                click.echo(f"{row['input']} -> {row['output']}  ΔE00: not measured (no fully opaque pixel)")
+            else:
+                _print_de(f"{row['input']} -> {row['output']}  ΔE00{jpeg}", row["delta_e"])
             for line in lines:
                 click.echo(f"  {line}")
             click.echo(f"  wrote {sv.describe()}")

@@ -98,8 +98,11 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from quantize.fit.sweep_result import format_table
 
             click.echo(format_table(pal.fit.candidates, chosen=pal.k))
-        _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", saved.delta_e)
-        if saved.file.lossy:
+        if saved.delta_e is None:  # a JPEG measures opaque pixels only
+            click.echo("ΔE00: not measured (the file has no fully opaque pixel to compare)")
+        else:
+            _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", saved.delta_e)
+        if saved.file.lossy and saved.delta_e is not None:
             click.echo("  (ΔE00 of the JPEG as written and decoded again: it is no longer the palette's colours)")
         for line in dlines:
             click.echo(line)

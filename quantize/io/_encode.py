@@ -221,9 +221,9 @@ def _jpeg(idx, palette, a8, dpi, name) -> Encoded:
         decoded = np.asarray(im.convert("RGB"))
     flat = decoded.reshape(-1, 3).astype(np.uint32)
     n = np.unique((flat[:, 0] << 16) | (flat[:, 1] << 8) | flat[:, 2]).size
-    notes.append(f"{name}: JPEG re-encodes the colours: the file is no longer {len(palette)} colours but "
-                 f"{n} distinct ones; its ΔE00 is measured on the decoded JPEG, coverage is that of the "
-                 "palette image")
+    notes.append(f"{name}: JPEG re-encodes the colours, so the file is no longer the palette's {len(palette)} "
+                 f"colours ({n} distinct colours in it); its ΔE00 is measured on the decoded JPEG, coverage "
+                 "is that of the palette image")
     return Encoded(data, None, None, 255 if a8 is not None else 0, decoded, notes=tuple(notes))
 
 
