@@ -307,3 +307,19 @@ def test_a_jpeg_with_no_opaque_pixel_is_written_and_says_its_delta_e_is_not_meas
     row = json.loads((tmp_path / "out" / "manifest.json").read_text())["images"][0]
     assert row["status"] == "ok" and row["delta_e"] is None
     assert row["bytes"] == (tmp_path / "out" / "veil.jpg").stat().st_size
+
+
+def test_more_than_256_colours_png_and_webp_keep_every_colour_and_alpha(tmp_path):
+    # Not a palette image: RGB(A), exact; a GIF cannot hold them and says so.
+    rng = np.random.default_rng(11)
+    pal = rng.integers(0, 256, (300, 3)).astype(np.uint8)
+    idx = np.arange(300).reshape(15, 20)
+    a8 = rng.integers(0, 256, idx.shape).astype(np.uint8)
+    for ext in ("png", "webp"):
+        w = write_image(tmp_path / f"many.{ext}", idx, pal, alpha=a8)
+        assert w.palette_entries is None
+        rgba = _rgba(w.path)
+        assert np.array_equal(rgba[..., 3], a8)
+        assert np.array_equal(rgba[a8 > 0][:, :3], pal[idx][a8 > 0])
+    with pytest.raises(OutputError, match="300 colours and transparency do not fit"):
+        write_image(tmp_path / "many.gif", idx, pal, alpha=a8)

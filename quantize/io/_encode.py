@@ -35,6 +35,8 @@ ALPHA_STEPS = (1, 3, 5, 15, 17, 51, 85, 255)
 ALPHA_THRESHOLD = 128
 #: Entries a PNG, GIF or WebP colour index can hold.
 MAX_ENTRIES = 256
+#: Pillow's options where every colour and alpha is kept as given (TIFF; PNG and WebP above 256 colours).
+_EXACT_OPTIONS = {"TIFF": {"compression": "tiff_lzw"}, "PNG": {}, "WEBP": {"lossless": True, "exact": True}}
 #: JPEG settings: quality 95 and no chroma subsampling (4:4:4), so flat-colour edges stay crisp.
 _JPEG = {"quality": 95, "subsampling": 0}
 
@@ -169,9 +171,7 @@ def encode(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None
         # Not a palette image: every colour and alpha kept exactly.
         rgb = palette[idx]
         image = Image.fromarray(rgb if a8 is None else np.dstack([rgb, a8]))
-        options = {"compression": "tiff_lzw"} if fmt == "TIFF" else {"lossless": True, "exact": True} \
-            if fmt == "WEBP" else {}
-        return Encoded(_pillow(image, fmt, options, dpi, name))
+        return Encoded(_pillow(image, fmt, dict(_EXACT_OPTIONS[fmt]), dpi, name))
     if a8 is None:
         ia = IndexedAlpha(idx.astype(np.uint8), palette, np.full(k, 255, np.uint8), 1, 0)
     else:
