@@ -218,7 +218,7 @@ def test_rerun_skips_up_to_date_and_redoes_the_rest(tree, tmp_path):
     (dict(shared_weighting="area"), "'area'"),
     (dict(space="xyz"), "'xyz'"),
     (dict(restarts=0), "at least 1, got 0"),
-    (dict(fmt="gif"), "'gif'"),
+    (dict(fmt="bmp"), "'bmp'"),
     (dict(workers=-1), "got -1"),
     (dict(worst=-2), "got -2"),
     (dict(k="12-2"), "12-2"),

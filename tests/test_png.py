@@ -90,3 +90,20 @@ def test_smaller_than_pillows_encoder_on_a_photo_result():
     im.save(buf, format="PNG")
     assert len(ours) <= len(buf.getvalue())
     np.testing.assert_array_equal(np.asarray(_decode(ours)), idx)
+
+
+def test_one_alpha_per_palette_entry():
+    # tRNS holds one alpha per palette entry (PNG section 11.3.2.1); entries past its end
+    # are opaque, so trailing opaque entries are left out of the chunk.
+    idx = np.array([[0, 1, 2, 3], [3, 2, 1, 0]], np.uint8)
+    pal = np.array([[10, 20, 30], [200, 100, 0], [255, 255, 255], [0, 90, 0]], np.uint8)
+    alpha = np.array([255, 40, 0, 255], np.uint8)
+    data = _png.indexed_png(idx, pal, alpha=alpha)
+    im = _decode(data)
+    assert im.mode == "P"
+    assert im.info["transparency"] == bytes([255, 40, 0])
+    rgba = np.asarray(im.convert("RGBA"))
+    np.testing.assert_array_equal(rgba[..., 3], alpha[idx])
+    np.testing.assert_array_equal(rgba[..., :3], pal[idx])
+    # All opaque: no tRNS chunk at all.
+    assert b"tRNS" not in _png.indexed_png(idx, pal, alpha=np.full(4, 255, np.uint8))

@@ -48,7 +48,7 @@ def whole_sizes(photo, tmp_path_factory) -> dict:
     """Size of each output written without a limit (the control), which reads back whole."""
     folder = tmp_path_factory.mktemp("whole")
     sizes = {}
-    for ext in (".png", ".jpg", ".tif"):
+    for ext in (".png", ".jpg", ".tif", ".webp", ".gif"):
         out = folder / f"out{ext}"
         res = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(photo), "-o", str(out), "-k", "8"],
                              capture_output=True, text=True, check=False)
@@ -65,7 +65,7 @@ def _limited(limit: int, *args: str) -> subprocess.CompletedProcess:
                           check=False)
 
 
-@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif"])
+@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif", ".webp", ".gif"])
 def test_a_full_disk_leaves_no_output_and_says_so(photo, whole_sizes, tmp_path, ext):
     out = tmp_path / f"out{ext}"
     res = _limited(whole_sizes[ext] // 2, "reduce", str(photo), "-o", str(out), "-k", "8")
@@ -76,7 +76,7 @@ def test_a_full_disk_leaves_no_output_and_says_so(photo, whole_sizes, tmp_path, 
     assert list(tmp_path.iterdir()) == []  # neither the output nor a temporary file
 
 
-@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif"])
+@pytest.mark.parametrize("ext", [".png", ".jpg", ".tif", ".webp", ".gif"])
 def test_a_full_disk_keeps_the_file_it_would_replace(photo, whole_sizes, tmp_path, ext):
     out = tmp_path / f"out{ext}"
     out.write_bytes(b"the previous proof")

@@ -125,7 +125,7 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
 
     t0 = time.perf_counter()
     row = {"input": job.rel, "status": "failed", "k": None, "delta_e": None, "entries_used": None,
-           "coverage": None, "outputs": [], "error": None}
+           "coverage": None, "outputs": [], "bytes": None, "error": None}
     with _WARNINGS_LOCK, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
@@ -141,13 +141,16 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
                 raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "
                                   "not written")
             outs[0].parent.mkdir(parents=True, exist_ok=True)
-            res.save(outs[0], force=job.replace, inputs=[job.path])
+            saved = res.write(outs[0], picture=pic, force=job.replace, inputs=[job.path])
             # Recorded as soon as written, so that a later run knows the file is its own to replace.
             row["outputs"].append(job.outputs_rel[0])
             if len(outs) > 1:
                 pal.save(outs[1], force=job.replace)
                 row["outputs"].append(job.outputs_rel[1])
-            row.update(status="ok", k=pal.k, delta_e={s: float(v) for s, v in res.delta_e.items()},
+            # The ΔE00 of the file written (of the decoded pixels for a JPEG) and its size.
+            de = saved.delta_e  # None: a JPEG with no fully opaque pixel to measure
+            row.update(status="ok", k=pal.k, delta_e=None if de is None else {s: float(v) for s, v in de.items()},
+                       bytes=saved.n_bytes,
                        entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
                        coverage=[round(float(c), 4) for c in res.coverage])
         except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero

@@ -28,7 +28,7 @@ MANIFEST_JSON = "manifest.json"
 MANIFEST_CSV = "manifest.csv"
 _MANIFEST_FORMAT = "quantize.batch-manifest"
 _CSV_FIELDS = ("input", "status", "k", "de_mean", "de_median", "de_p95", "de_max", "entries_used",
-               "outputs", "seconds", "peak_rss_mb", "error")
+               "outputs", "bytes", "seconds", "peak_rss_mb", "error")
 
 
 def _key(obj) -> str:
@@ -96,6 +96,7 @@ def _csv_text(rows) -> str:
             **{f"de_{s}": ("" if de.get(s) is None else f"{de[s]:.4f}") for s in ("mean", "median", "p95", "max")},
             "entries_used": " ".join(map(str, r.get("entries_used") or [])),
             "outputs": ";".join(r.get("outputs") or []),
+            "bytes": "" if r.get("bytes") is None else r["bytes"],
             "seconds": "" if r.get("seconds") is None else f"{r['seconds']:.3f}",
             "peak_rss_mb": "" if r.get("peak_rss_mb") is None else f"{r['peak_rss_mb']:.1f}",
             "error": r.get("error") or "",
@@ -107,6 +108,12 @@ def _summary(rows) -> dict:
     counts = {s: sum(r["status"] == s for r in rows) for s in ("ok", "skipped", "failed", "not run")}
     return {"total": len(rows), "ok": counts["ok"], "skipped": counts["skipped"], "failed": counts["failed"],
             "not_run": counts["not run"]}
+
+
+def _image_bytes(rows) -> int:
+    """Size of the reduced images on disk, written now or kept from the last run (rows of
+    manifests older than this figure count 0)."""
+    return sum(r.get("bytes") or 0 for r in rows if r["status"] in ("ok", "skipped"))
 
 
 def _write_manifest(output_dir: Path, doc: dict) -> tuple[Path, Path]:

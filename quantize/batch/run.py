@@ -44,6 +44,7 @@ from .manifest import (
     MANIFEST_CSV,
     MANIFEST_JSON,
     _consistency,
+    _image_bytes,
     _key,
     _read_previous,
     _summary,
@@ -69,6 +70,7 @@ class BatchResult:
         One per image, as in the manifest.
     summary : dict
         Counts: ``total``, ``ok``, ``skipped``, ``failed``, ``not_run``.
+        The manifest's ``image_bytes`` is the size of the reduced images on disk.
     manifest : dict
         The whole JSON manifest.
     manifest_paths : tuple of Path
@@ -227,6 +229,7 @@ class _Run:
         doc = self.doc
         doc["images"] = ordered
         doc["summary"] = _summary(ordered)
+        doc["image_bytes"] = _image_bytes(ordered)
         doc["seconds"] = round(time.perf_counter() - self.t_run, 3)
         doc["error"] = error
         if self.palette is not None and self.settings.mode != "per-image":
@@ -379,7 +382,7 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
     seed : int, default=0
     restarts : int, default=8
-    fmt : {"png", "tif", "jpg"}, default="png"
+    fmt : {"png", "webp", "gif", "tif", "jpg"}, default="png"
         Output file type.
     workers : int, optional
         Worker processes (default ``os.cpu_count()``); ``0`` works in this

@@ -17,7 +17,7 @@ from .files import _check_patterns
 __all__ = ["BatchSettings", "DEFAULT_K", "DEFAULT_RESTARTS", "DEFAULT_WORST", "FORMATS", "WEIGHTINGS"]
 
 #: Output file types.
-FORMATS = ("png", "tif", "jpg")
+FORMATS = ("png", "webp", "gif", "tif", "jpg")
 #: The library's one default range, as the command line shows it.
 DEFAULT_K = f"{_FIT_DEFAULT_K[0]}-{_FIT_DEFAULT_K[1]}"
 #: k-means++ restarts per palette size.
@@ -55,8 +55,8 @@ class BatchSettings:
     seed : int, default=0
     restarts : int, default=8
         k-means++ restarts per palette size, at least 1.
-    fmt : {"png", "tif", "jpg"}, default="png"
-        Output file type.
+    fmt : {"png", "webp", "gif", "tif", "jpg"}, default="png"
+        Output file type (see :func:`quantize.io.write.save_image`).
     workers : int or None, default=None
         Worker processes (None: one per CPU core; 0: in this process).
     cluster : str or None, default=None

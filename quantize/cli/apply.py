@@ -30,8 +30,8 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
 @click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
               help="Folder for the reduced images (created if missing).")
-@click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
-              help="Output file type: indexed PNG, RGB TIFF or JPEG.")
+@click.option("--format", "fmt", type=click.Choice(("png", "webp", "gif", "tif", "jpg")), default="png",
+              show_default=True, help="Output file type: indexed PNG, lossless WebP, GIF, RGB TIFF or JPEG.")
 @click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
               help="Map pixels by ΔE00 or by distance in the palette's space; auto: ΔE00, "
                    "or the space's distance when dithering.")
@@ -76,7 +76,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                     res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(nearest))
                     res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=inputs,
                                                              error_map_path=emap)
-                    res.save(out, force=force, inputs=inputs)
+                    saved = res.write(out, picture=pic, force=force, inputs=inputs)
                 except QuantizeError as exc:
                     if results:  # damage found only when decoding: say what is already written
                         done = ", ".join(str(o) for o in outs[:len(results)])
@@ -84,7 +84,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                                             f"{done}") from exc
                     raise
                 results.append(res)
-                extras.append((dextra, dlines))
+                extras.append((dextra, dlines, saved))
                 if report_dir:
                     # The page needs the pixels, not the colour sample the picture keeps: a copy
                     # (same read-only arrays, empty cache) lets the sample go with this image.
@@ -98,9 +98,9 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         return pal, results, extras
 
     pal, results, extras = _run(ctx, work)
-    per_image = [{"input": str(im), "output": str(out), "delta_e": r.delta_e,
+    per_image = [{"input": str(im), "output": str(out), "delta_e": sv.delta_e, "file": sv.to_dict(),
                   "coverage": [round(float(c), 3) for c in r.coverage], **ex}
-                 for im, out, r, (ex, _) in zip(images, outs, results, extras)]
+                 for im, out, r, (ex, _, sv) in zip(images, outs, results, extras)]
     summary = {"command": "apply", "palette_file": str(palette), "k": pal.k, "rule": "saved palette",
                "palette": _palette_rows(pal), "images": per_image, "outputs": [str(o) for o in outs],
                "seconds": round(time.perf_counter() - t0, 3)}
@@ -108,9 +108,14 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
     def human():
         click.echo(f"{palette}: {pal.k} colours")
         _print_palette(_palette_rows(pal))
-        for row, (_, lines) in zip(per_image, extras):
-            _print_de(f"{row['input']} -> {row['output']}  ΔE00", row["delta_e"])
+        for row, (_, lines, sv) in zip(per_image, extras):
+            jpeg = " (of the decoded JPEG)" if sv.file.lossy else ""
+            if row["delta_e"] is None:  # a JPEG measures opaque pixels only
+                click.echo(f"{row['input']} -> {row['output']}  ΔE00: not measured (no fully opaque pixel)")
+            else:
+                _print_de(f"{row['input']} -> {row['output']}  ΔE00{jpeg}", row["delta_e"])
             for line in lines:
                 click.echo(f"  {line}")
+            click.echo(f"  wrote {sv.describe()}")
 
     _emit(as_json, summary, human)

@@ -118,14 +118,14 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
     s = res.summary
     failed = [{"input": r["input"], "error": r.get("error")} for r in res.rows if r["status"] == "failed"]
     summary = {"command": "batch", "input_dir": str(input_dir), "output_dir": str(output_dir),
-               "mode": doc["settings"]["mode"], "summary": s, "failed": failed,
+               "mode": doc["settings"]["mode"], "summary": s, "image_bytes": doc["image_bytes"], "failed": failed,
                "palette_report": doc.get("palette_report"), "manifest": [str(p) for p in res.manifest_paths],
                "notes": res.notes, "seconds": doc["seconds"]}
     if as_json:
         click.echo(json.dumps(summary, indent=2, ensure_ascii=False))
     else:
         click.echo(f"{s['total']} images: {s['ok']} done, {s['skipped']} up to date, {s['failed']} failed"
-                   f" in {doc['seconds']:.1f} s")
+                   f" in {doc['seconds']:.1f} s; reduced images {doc['image_bytes'] / 1000:.1f} kB")
         for f in failed:
             click.echo(f"failed: {f['input']}: {f['error']}")
         rep = doc.get("palette_report")

@@ -11,6 +11,7 @@ from ._common import (
     _check_indexed_size,
     _check_outputs,
     _emit,
+    _Failure,
     _fit_options,
     _fit_settings,
     _fit_with_progress,
@@ -31,7 +32,7 @@ from .dither_options import dither_options, pop_dither_options, run_dither_outpu
 @click.command()
 @click.argument("image", type=click.Path(exists=True, dir_okay=False))
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Reduced image: .png (indexed), .tif or .jpg.")
+              help="Reduced image: .png (indexed), .webp (lossless), .gif, .tif or .jpg.")
 @_fit_options
 @dither_options
 @click.option("--keep-palette", is_flag=True, help="Also write the palette as OUTPUT-stem.palette.json beside it.")
@@ -46,6 +47,11 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     settings = _fit_settings(fit_opts)
     k, max_pixels = fit_opts["colours"], fit_opts["max_pixels"]
     out = Path(output)
+    from quantize.io.write import SAVE_FORMATS
+
+    if out.suffix.lower() not in SAVE_FORMATS:  # refused before the fit, not after it
+        raise _Failure(f"{output}: unsupported output extension {out.suffix or '(none)'!r}; "
+                       f"use one of {', '.join(SAVE_FORMATS)}")
     pal_path = out.with_name(out.stem + ".palette.json") if keep_palette else None
     emap = [Path(dopts.error_map)] if dopts.error_map else []
     _check_outputs([out] + ([pal_path] if pal_path else []) + emap + _report_targets(report_dir), force, [image])
@@ -59,7 +65,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         pal = _fit_with_progress(pic, k, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(fit_opts["nearest"]))
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
-        res.save(out, force=force, inputs=[image])
+        saved = res.write(out, picture=pic, force=force, inputs=[image])
         if pal_path:
             pal.save(pal_path, force=force)
         if report_dir:
@@ -68,13 +74,13 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
                          error_map_path=dextra["error_map"],
                          title=f"quantize reduce: {Path(image).name}", force=force)
-        return pal, res, dextra, dlines
+        return pal, res, saved, dextra, dlines
 
-    pal, res, dextra, dlines = _run(ctx, work)
+    pal, res, saved, dextra, dlines = _run(ctx, work)
     rows = _palette_rows(pal, res.coverage)
     summary = {
         "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit.rule,
-        "reason": pal.fit.reason, "space": pal.space, "delta_e": res.delta_e,
+        "reason": pal.fit.reason, "space": pal.space, "delta_e": saved.delta_e, "file": saved.to_dict(),
         "kmeans_cost": pal.fit.inertia, "palette": rows,
         "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
@@ -92,13 +98,20 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from quantize.fit.sweep_result import format_table
 
             click.echo(format_table(pal.fit.candidates, chosen=pal.k))
-        _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", res.delta_e)
+        if saved.delta_e is None:  # a JPEG measures opaque pixels only
+            click.echo("ΔE00: not measured (the file has no fully opaque pixel to compare)")
+        else:
+            _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", saved.delta_e)
+        if saved.file.lossy and saved.delta_e is not None:
+            click.echo("  (ΔE00 of the JPEG as written and decoded again: it is no longer the palette's colours)")
         for line in dlines:
             click.echo(line)
         _print_palette(rows)
         for n in summary["notes"]:
             click.echo(f"note: {n}")
-        click.echo("wrote " + ", ".join(summary["outputs"]))
+        click.echo("wrote " + saved.describe())
+        if len(summary["outputs"]) > 1:
+            click.echo("wrote " + ", ".join(summary["outputs"][1:]))
 
     _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)

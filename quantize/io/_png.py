@@ -17,7 +17,7 @@ result (``benchmarks/bench_engine.py``):
   join into one valid stream.  A run cannot refer back across its start,
   which costs a few hundred bytes per band.
 
-Chunks written: IHDR, PLTE, tRNS (when one index is transparent), pHYs
+Chunks written: IHDR, PLTE, tRNS (when an entry is not opaque), pHYs
 (when a resolution is given, as whole pixels per metre), IDAT, IEND.
 
 :func:`image_data_bytes` serves the reading side: Pillow fills the missing
@@ -95,7 +95,8 @@ def _zlib_stream(raw: bytes, level: int) -> bytes:
 
 
 def indexed_png(indices: np.ndarray, palette: np.ndarray, *, transparent: int | None = None,
-                dpi: tuple[float, float] | None = None, level: int = 6) -> bytes:
+                alpha: np.ndarray | None = None, dpi: tuple[float, float] | None = None,
+                level: int = 6) -> bytes:
     """Encode an index image and its palette as a PNG of colour type 3.
 
     Parameters
@@ -106,6 +107,10 @@ def indexed_png(indices: np.ndarray, palette: np.ndarray, *, transparent: int | 
         sRGB colours, 1 <= k <= 256.
     transparent : int, optional
         The one index whose pixels are fully transparent (written in tRNS).
+    alpha : ndarray of shape (k,), uint8, optional
+        Opacity of every palette entry, 0 = fully transparent (written in
+        tRNS, which holds one alpha per entry, section 11.3.2.1 of the
+        specification).  Not with `transparent`.
     dpi : (float, float), optional
         Resolution, recorded as whole pixels per metre (pHYs).
     level : int, default=6
@@ -135,6 +140,11 @@ def indexed_png(indices: np.ndarray, palette: np.ndarray, *, transparent: int | 
              _chunk(b"PLTE", pal.tobytes())]
     if transparent is not None:
         parts.append(_chunk(b"tRNS", b"\xff" * int(transparent) + b"\x00"))
+    elif alpha is not None:
+        trns = np.ascontiguousarray(alpha, dtype=np.uint8).ravel()
+        translucent = np.flatnonzero(trns != 255)
+        if translucent.size:  # entries after the last translucent one default to opaque
+            parts.append(_chunk(b"tRNS", trns[:translucent[-1] + 1].tobytes()))
     if dpi is not None:
         # The rounding Pillow uses, so files read back alike whichever wrote them.
         ppm = [int(d / 0.0254 + 0.5) for d in dpi]

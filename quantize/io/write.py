@@ -2,28 +2,122 @@
 
 Every output goes to a temporary file in the target folder and is renamed
 into place, so an interrupted run leaves no half-written file; an existing
-file is replaced only with ``force``, and an input never.  Split out of
+file is replaced only with ``force``, and an input never.  How each format
+holds a palette and its transparency is in :mod:`quantize.io._encode`.
 Readers are in :mod:`quantize.io.read`.
 """
 
 
 import contextlib
-import io
 import os
 import tempfile
 import warnings
 from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import IO, Union
 
 import numpy as np
-from PIL import Image
 
 from quantize.core.picture import ImageWarning
 from quantize.errors import OutputError
 from quantize.io._decode import dpi_pair, to_8bit
+from quantize.io._encode import ALPHA_STEPS, ALPHA_THRESHOLD, encode
+
+__all__ = ["ALPHA_STEPS", "ALPHA_THRESHOLD", "SAVE_FORMATS", "WrittenImage", "atomic_write_bytes",
+           "atomic_write_text", "save_image", "to_jsonable", "write_image"]
 
 PathLike = Union[str, "os.PathLike[str]"]
+
+
+@dataclass(frozen=True, eq=False)
+class WrittenImage:
+    """What :func:`write_image` put on disk, measured from the encoded file.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+    format : str
+        "PNG", "WEBP", "GIF", "TIFF" or "JPEG".
+    n_bytes : int
+        Size of the file, in bytes.
+    palette_entries : int or None
+        Entries of the file's colour index (indexed PNG, GIF, lossless WebP
+        with at most 256 colours): the palette, then a fully transparent
+        entry and (colour, alpha) entries where there is transparency.
+        None for a file without one.
+    alpha_step : int or None
+        Spacing, on the 0-255 scale, of the alpha levels written: 1 keeps
+        alpha exactly, 255 thresholds it at :data:`ALPHA_THRESHOLD`.  None
+        without transparency, and for TIFF (exact) and JPEG (flattened).
+    alpha_max_change : int
+        Largest change of one pixel's alpha, 0-255.
+    decoded : ndarray of shape (H, W, 3), uint8, or None
+        A lossy file's pixels as Pillow decodes them; None for lossless files,
+        whose pixels are exactly the entries written.
+    cleared : ndarray of shape (H, W), bool, or None
+        Pixels given some opacity (alpha > 0) but written fully transparent
+        by the alpha levels; None if there are none.
+    notes : tuple of str
+        Warnings about the file (a JPEG's colours, flattened or thresholded alpha).
+    """
+
+    path: Path
+    format: str
+    n_bytes: int
+    palette_entries: int | None = None
+    alpha_step: int | None = None
+    alpha_max_change: int = 0
+    decoded: np.ndarray | None = field(default=None, repr=False)
+    cleared: np.ndarray | None = field(default=None, repr=False)
+    notes: tuple = ()
+
+    @property
+    def lossy(self) -> bool:
+        """True when the file's pixels differ from the palette image given (JPEG)."""
+        return self.decoded is not None
+
+
+def write_image(
+    path: PathLike,
+    indices: np.ndarray,
+    palette_rgb: np.ndarray,
+    *,
+    alpha: np.ndarray | None = None,
+    dpi: tuple[float, float] | None = None,
+    force: bool = False,
+    inputs: Iterable[PathLike] = (),
+) -> WrittenImage:
+    """Write a palette-reduced image, atomically, and describe the file written.
+
+    Parameters and errors as :func:`save_image`, which calls this and warns
+    the notes.  Nothing is warned here: the notes come back in the result.
+
+    Returns
+    -------
+    WrittenImage
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> w = write_image("out.webp", np.zeros((4, 4), int), np.array([[200, 30, 40]], np.uint8))  # doctest: +SKIP
+    >>> w.format, w.palette_entries  # doctest: +SKIP
+    ('WEBP', 1)
+    """
+    target = Path(path)
+    fmt = SAVE_FORMATS.get(target.suffix.lower())
+    if fmt is None:
+        raise OutputError(
+            f"{os.fspath(path)}: unsupported output extension {target.suffix or '(none)'!r}; "
+            f"use one of {', '.join(SAVE_FORMATS)}"
+        )
+    idx, palette, a8 = _check_raster(indices, palette_rgb, alpha)
+    dpi = _check_dpi(dpi)
+    enc = encode(fmt, idx, palette, a8, dpi if fmt in _KEEPS_DPI else None, os.fspath(path))
+    written = _atomic_write(target, lambda fh: fh.write(enc.data), force=force, inputs=inputs)
+    return WrittenImage(written, fmt, len(enc.data), enc.palette_entries, enc.alpha_step,
+                        enc.alpha_max_change, enc.decoded, enc.cleared, enc.notes)
+
 
 def save_image(
     path: PathLike,
@@ -41,7 +135,7 @@ def save_image(
     ----------
     path : str or path-like
         Output file. Its extension selects the format (see `SAVE_FORMATS`):
-        ``.png``, ``.tif``/``.tiff`` or ``.jpg``/``.jpeg``.
+        ``.png``, ``.webp``, ``.gif``, ``.tif``/``.tiff`` or ``.jpg``/``.jpeg``.
     indices : (H, W) ndarray of int
         Palette index of every pixel.
     palette_rgb : (k, 3) ndarray of uint8
@@ -49,7 +143,8 @@ def save_image(
     alpha : (H, W) ndarray of uint8, uint16 or bool, optional
         Opacity, 0 = fully transparent.
     dpi : (float, float), optional
-        Resolution to record in the file.
+        Resolution to record in the file (PNG, TIFF and JPEG; WebP and GIF
+        have no field for it).
     force : bool, default False
         Replace `path` if it already exists.
     inputs : iterable of path-like, default ()
@@ -64,9 +159,10 @@ def save_image(
     Raises
     ------
     OutputError
-        Unknown extension; the path is a folder, an input, or already exists
-        without `force`; the folder is missing or not writable; writing failed.
-        A file already at `path` is left as it was.
+        Unknown extension; the colours (and transparency) do not fit a GIF's
+        or indexed PNG's 256 entries; the path is a folder, an input, or
+        already exists without `force`; the folder is missing or not
+        writable; writing failed.  A file already at `path` is left as it was.
     ValueError
         `indices`, `palette_rgb`, `alpha` or `dpi` have the wrong shape, dtype
         or range.
@@ -74,20 +170,30 @@ def save_image(
     Warns
     -----
     ImageWarning
-        A JPEG was asked for with transparent pixels. They are flattened onto white.
+        A JPEG: it is no longer k colours (the count in the file is given),
+        and transparent pixels are flattened onto white.  Partly transparent
+        pixels thresholded at :data:`ALPHA_THRESHOLD`.
 
     Notes
     -----
-    PNG: a palette (P) image when k <= 256 and alpha is absent or only fully
-    transparent / fully opaque. Fully transparent pixels are given one extra
-    white palette entry that carries tRNS alpha 0 (the other indices stay as
-    given). Partial alpha, or k = 256 with transparency, gives an 8-bit RGBA PNG
-    instead, and k > 256 an RGB(A) PNG. TIFF: RGB or RGBA (unassociated alpha),
-    LZW-compressed. JPEG: RGB, quality 95, no chroma subsampling (4:4:4), so
-    flat-colour edges stay crisp. No ICC profile is embedded; the values are sRGB.
-    Indexed PNGs come from :mod:`quantize.io._png` (unfiltered rows, zlib level 6,
-    compressed on several threads), the others from Pillow. PNG records the
-    resolution as whole pixels per metre, so 300 dpi reads back as 299.9994.
+    PNG and WebP with k <= 256 are palette images; transparency goes into the
+    palette (PNG: one tRNS alpha per entry): entries 0 to k-1 are the palette,
+    opaque and in order, then one fully transparent entry and one entry per
+    (colour, alpha level) the image uses.  Alpha is rounded to levels spaced
+    by the finest of `ALPHA_STEPS` that keeps the entries within 256; the
+    coarsest thresholds at `ALPHA_THRESHOLD` (alpha 128 and above opaque).
+    WebP is lossless and keeps the colour under transparent pixels, so it
+    decodes to exactly the PNG's colours and alpha.  GIF: one transparent
+    entry, alpha thresholded at `ALPHA_THRESHOLD`.  k = 256 with
+    transparency fits none of these and is refused.  With k > 256, PNG and
+    WebP are RGB(A) and keep alpha exactly.  TIFF: RGB or RGBA (unassociated
+    alpha, exact), LZW-compressed.  JPEG: RGB, quality 95, no chroma
+    subsampling (4:4:4), so flat-colour edges stay crisp; it re-encodes the
+    colours, so the file holds many more than k.  No ICC profile is
+    embedded; the values are sRGB.  Indexed PNGs come from
+    :mod:`quantize.io._png` (unfiltered rows, zlib level 6, compressed on
+    several threads), the others from Pillow. PNG records the resolution as
+    whole pixels per metre, so 300 dpi reads back as 299.9994.
 
     Examples
     --------
@@ -95,46 +201,23 @@ def save_image(
     >>> save_image("out.png", np.zeros((4, 4), int), np.array([[200, 30, 40]], np.uint8))  # doctest: +SKIP
     PosixPath('out.png')
     """
-    target = Path(path)
-    fmt = SAVE_FORMATS.get(target.suffix.lower())
-    if fmt is None:
-        raise OutputError(
-            f"{os.fspath(path)}: unsupported output extension {target.suffix or '(none)'!r}; "
-            f"use one of {', '.join(SAVE_FORMATS)}"
-        )
-    idx, palette, a8 = _check_raster(indices, palette_rgb, alpha)
-    dpi = _check_dpi(dpi)
-    image, options, note = _plan_encoding(fmt, idx, palette, a8)
-    if image is None:  # an indexed PNG: quantize's own encoder (quantize.io._png)
-        from ._png import indexed_png
-
-        data = indexed_png(options["indices"], options["palette"], transparent=options["transparent"], dpi=dpi)
-        written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
-        return written
-    if dpi is not None:
-        options["dpi"] = dpi
-    # Encoded in memory, then written by Python: Pillow's encoders write to a
-    # real file through its descriptor and do not notice a short write, so on
-    # a full disk a JPEG came out cut short with no error.
-    buf = io.BytesIO()
-    try:
-        image.save(buf, format=fmt, **options)
-    except OSError as exc:
-        raise OutputError(f"{os.fspath(path)}: writing failed ({exc.strerror or exc})") from exc
-    data = buf.getvalue()
-    written = _atomic_write(target, lambda fh: fh.write(data), force=force, inputs=inputs)
-    if note:
-        warnings.warn(f"{os.fspath(path)}: {note}", ImageWarning, stacklevel=2)
-    return written
+    written = write_image(path, indices, palette_rgb, alpha=alpha, dpi=dpi, force=force, inputs=inputs)
+    for note in written.notes:
+        warnings.warn(note, ImageWarning, stacklevel=2)
+    return written.path
 
 #: Output extensions :func:`save_image` understands, and the format each selects.
 SAVE_FORMATS: dict[str, str] = {
     ".png": "PNG",
+    ".webp": "WEBP",
+    ".gif": "GIF",
     ".tif": "TIFF",
     ".tiff": "TIFF",
     ".jpg": "JPEG",
     ".jpeg": "JPEG",
 }
+#: Formats that record a resolution.
+_KEEPS_DPI = ("PNG", "TIFF", "JPEG")
 
 
 def _check_raster(indices, palette_rgb, alpha):
@@ -167,33 +250,6 @@ def _check_dpi(dpi) -> tuple[float, float] | None:
     if checked is None:
         raise ValueError(f"dpi must be two positive finite numbers, got {dpi!r}")
     return checked
-
-
-def _plan_encoding(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None):
-    """The Pillow image to write, its save options and a warning (or None).
-
-    For an indexed PNG the image is None and the options hold the indices,
-    palette and transparent index for :func:`quantize.io._png.indexed_png`.
-    """
-    k = len(palette)
-    binary = a8 is None or bool(((a8 == 0) | (a8 == 255)).all())
-    if fmt == "PNG" and binary and k + (a8 is not None) <= 256:
-        transparent = None
-        if a8 is not None:
-            palette = np.vstack([palette, [[255, 255, 255]]]).astype(np.uint8)
-            idx = np.where(a8 == 0, k, idx)
-            transparent = k
-        return None, {"indices": idx.astype(np.uint8), "palette": palette, "transparent": transparent}, None
-    rgb = palette[idx]
-    if fmt == "JPEG":
-        note = None
-        if a8 is not None:
-            a = a8[..., None] / 255.0
-            rgb = np.rint(rgb * a + 255.0 * (1.0 - a)).astype(np.uint8)
-            note = f"JPEG has no transparency; {int((a8 < 255).sum())} transparent pixels flattened onto white"
-        return Image.fromarray(rgb), {"quality": 95, "subsampling": 0}, note
-    image = Image.fromarray(rgb if a8 is None else np.dstack([rgb, a8]))
-    return image, ({"compression": "tiff_lzw"} if fmt == "TIFF" else {}), None
 
 
 def atomic_write_bytes(

@@ -2,15 +2,20 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
+from quantize.core.picture import ImageWarning
 from quantize.fit.assign import map_sample
 from quantize.quality.perception import FilteredDeltaE
 from quantize.quality.stats import coverage_percent, delta_e_stats
 
-__all__ = ["DitherInfo", "MappedImage", "nearest_image"]
+__all__ = ["DitherInfo", "MappedImage", "SavedImage", "file_delta_e", "nearest_image"]
+
+#: Distinct (input colour, file colour) pairs per CIEDE2000 block: bounds the temporaries.
+_DE_BLOCK = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -100,11 +105,174 @@ class MappedImage:
         return [int(i) for i in np.flatnonzero(self.coverage == 0)]
 
     def save(self, path, *, force: bool = False, inputs=()):
-        """Write the reduced image (indexed PNG, or RGB TIFF/JPEG by extension)."""
+        """Write the reduced image in the format its extension names; return the path.
+
+        See :func:`quantize.io.write.save_image` for the formats and how
+        transparency is kept; :meth:`write` also measures the file.
+        """
         from quantize.io.write import save_image
 
         return save_image(path, self.indices, self.palette.rgb8, alpha=self.alpha,
                           dpi=self.dpi, force=force, inputs=inputs)
+
+    def write(self, path, *, picture=None, force: bool = False, inputs=()) -> SavedImage:
+        """Write the reduced image and measure the file written.
+
+        Parameters
+        ----------
+        path : str or path-like
+            Output file; its extension selects the format, as for
+            :func:`quantize.io.write.save_image`.
+        picture : Picture, optional
+            The picture this image was mapped from.  Needed to measure the
+            ΔE00 of a file whose pixels differ from this image (a JPEG, or
+            pixels made fully transparent by the alpha levels); without it
+            that ΔE00 is not measured (None).
+        force : bool, default False
+            Replace an existing file.
+        inputs : iterable of path-like, default ()
+            Files never to overwrite.
+
+        Returns
+        -------
+        SavedImage
+
+        Warns
+        -----
+        ImageWarning
+            The file's notes: a JPEG is no longer k colours, transparency
+            flattened or thresholded.
+        """
+        from quantize.io.write import write_image
+
+        if picture is not None and picture.rgb.shape[:2] != self.indices.shape:
+            raise ValueError(f"picture is {picture.rgb.shape[:2]} pixels, the mapped image "
+                             f"{self.indices.shape}: not the picture it was mapped from")
+        written = write_image(path, self.indices, self.palette.rgb8, alpha=self.alpha,
+                              dpi=self.dpi, force=force, inputs=inputs)
+        if written.decoded is None and written.cleared is None:
+            de = self.delta_e  # the file holds exactly these pixels
+        elif picture is None:
+            de = None
+        else:
+            rgb, left_out = written.decoded, written.cleared
+            if rgb is None:
+                rgb = self.rgb
+            elif picture.alpha is not None:
+                # A JPEG shows partly transparent pixels flattened onto white, which no
+                # input colour is to be compared with: only opaque pixels are measured.
+                left_out = picture.alpha < picture.max_code
+            de = file_delta_e(picture, rgb, left_out=left_out)
+        for note in written.notes:
+            warnings.warn(note, ImageWarning, stacklevel=2)
+        return SavedImage(file=written, delta_e=de, k=len(self.palette))
+
+
+@dataclass(frozen=True, eq=False)
+class SavedImage:
+    """A reduced image as written, with figures that describe the file.
+
+    Attributes
+    ----------
+    file : quantize.io.write.WrittenImage
+        Path, format, size in bytes, palette entries and alpha levels of the file.
+    delta_e : dict or None
+        CIEDE2000 between each input pixel with some opacity and the colour
+        the file shows there (``mean``, ``median``, ``p95``, ``max``): the
+        mapping's figures for a lossless file, measured on the decoded
+        pixels for a JPEG (over the input's fully opaque pixels only, as
+        JPEG flattens the others onto white).  Pixels the file makes fully
+        transparent are left out.  None when it could not be measured (no
+        picture given).
+    k : int
+        Colours of the palette.
+    """
+
+    file: object
+    delta_e: dict | None
+    k: int
+
+    @property
+    def n_bytes(self) -> int:
+        """Size of the file, in bytes."""
+        return self.file.n_bytes
+
+    def to_dict(self) -> dict:
+        """The file's figures for a JSON summary."""
+        f = self.file
+        return {"path": str(f.path), "format": f.format, "bytes": f.n_bytes,
+                "kB": round(f.n_bytes / 1000, 1), "colours": self.k, "palette_entries": f.palette_entries,
+                "alpha_step": f.alpha_step, "alpha_max_change": f.alpha_max_change,
+                "delta_e": self.delta_e,
+                "delta_e_measured_on": "decoded file" if f.lossy else "palette image",
+                "warnings": list(f.notes)}
+
+    def describe(self) -> str:
+        """One line for people: the file, its format, what it holds and its size."""
+        f = self.file
+        what = {"PNG": "PNG", "WEBP": "lossless WebP", "GIF": "GIF", "TIFF": "TIFF", "JPEG": "JPEG"}[f.format]
+        parts = [f"{f.path}: {'indexed ' if f.palette_entries and f.format == 'PNG' else ''}{what}"]
+        if f.lossy:
+            parts.append(f"no longer {self.k} colours (JPEG re-encodes them)")
+        elif f.palette_entries is not None and f.palette_entries > self.k:
+            parts.append(f"{self.k} colours in {f.palette_entries} palette entries with alpha")
+        if f.alpha_step is not None:
+            levels = 255 // f.alpha_step + 1
+            parts.append(f"alpha in {levels} levels (at most {f.alpha_max_change}/255 from the input)"
+                         if f.alpha_step < 255 else
+                         f"alpha thresholded at 128 (at most {f.alpha_max_change}/255 from the input)")
+        parts.append(_size_text(f.n_bytes))
+        return ", ".join(parts)
+
+
+def _size_text(n: int) -> str:
+    return f"{n} bytes" if n < 1000 else f"{n / 1000:.1f} kB" if n < 1_000_000 else f"{n / 1e6:.2f} MB"
+
+
+def file_delta_e(picture, rgb8: np.ndarray, *, left_out: np.ndarray | None = None) -> dict | None:
+    """CIEDE2000 statistics between a picture and the pixels of a file made from it.
+
+    Parameters
+    ----------
+    picture : Picture
+        The input.
+    rgb8 : ndarray of shape (H, W, 3), uint8
+        The file's pixels as decoded, same size as ``picture``.
+    left_out : ndarray of shape (H, W), bool, optional
+        Pixels not to measure (those the file makes fully transparent); the
+        picture's fully transparent ones are always left out.
+
+    Returns
+    -------
+    dict or None
+        ``mean``, ``median``, ``p95``, ``max`` over the pixels, each counted
+        once; None when no pixel is left.
+
+    Notes
+    -----
+    Computed once per distinct pair (input colour, file colour), weighted by
+    its pixel count, so a photo's million colours cost what its pairs do.
+    """
+    from quantize.colour.spaces import delta_e_ciede2000, srgb8_to_space
+    from quantize.core.sampling import sample_picture
+
+    smp = sample_picture(picture)
+    rows = smp.inverse
+    flat = rgb8.reshape(-1, 3).astype(np.int64)
+    keep = rows >= 0
+    if left_out is not None:
+        keep &= ~left_out.ravel()
+    key = (rows[keep].astype(np.int64) << 24) | (flat[keep, 0] << 16) | (flat[keep, 1] << 8) | flat[keep, 2]
+    if key.size == 0:
+        return None
+    pairs, counts = np.unique(key, return_counts=True)
+    lab_in = smp.points("lab")
+    de = np.empty(pairs.size)
+    for at in range(0, pairs.size, _DE_BLOCK):
+        p = pairs[at:at + _DE_BLOCK]
+        codes = np.stack([(p >> 16) & 255, (p >> 8) & 255, p & 255], axis=1).astype(np.uint8)
+        de[at:at + _DE_BLOCK] = delta_e_ciede2000(lab_in[p >> 24], srgb8_to_space(codes, "lab"))
+    return delta_e_stats(de, counts.astype(np.float64))
 
 
 def nearest_image(pic, palette, *, metric: str, sample=None) -> MappedImage:
