@@ -258,8 +258,8 @@ def test_minimum_feature_that_would_erase_the_image_is_refused():
     with pytest.raises(SeparationError, match="would erase the image: every printed area is smaller"):
         separate(img, pal, dpi=300, min_feature_mm=1.0)
     with pytest.raises(SeparationError, match="larger than the whole print"):
-        separate(img, pal, dpi=300, min_feature_mm=50)
-    with pytest.raises(SeparationError, match="min_feature_mm must be a size of 0 mm or more"):
+        separate(img, pal, dpi=300, min_feature_mm=5)
+    with pytest.raises(SeparationError, match="min_feature_mm must be from 0 to 10 mm"):
         separate(img, pal, dpi=300, min_feature_mm=-1)
 
 
@@ -574,3 +574,37 @@ def test_manifest_values_match_an_independent_computation(tmp_path):
     assert doc["settings"]["min_area_px"] == pytest.approx(min_area, abs=1e-3)
     assert (doc["format"], doc["version"], doc["composite"], doc["margin_px"]) == \
         ("quantize.separation.plates", 1, "job-composite.png", 0)
+
+
+def test_numbers_without_a_real_job_are_refused_before_any_memory_is_asked(tmp_path):
+    # Each of these once ended in a traceback or asked for petabytes (issue findings); the bounds are the
+    # project's own (plates.LIMITS), far beyond any real job.
+    from click.testing import CliRunner
+
+    from quantize.cli.separate import separate as command
+
+    img = np.full((48, 64, 3), 240, np.uint8)
+    img[10:30, 10:40] = (200, 30, 40)
+    src = tmp_path / "art.png"
+    Image.fromarray(img).save(src)
+    cases = [["--marks", "--margin-mm", "1e7"], ["--min-line-mm", "1e308"], ["--choke-mm", "1e308", "--underbase"],
+             ["--trap-pair", "a/b=1e300"], ["--print-width", "9000mm"], ["--print-width", "1e9mm"]]
+    for extra in cases:
+        res = CliRunner().invoke(command, [str(src), "-o", str(tmp_path / "out"), "-n", "1", *extra])
+        assert res.exit_code in (1, 2), (extra, res.output)
+        assert res.exception is None or isinstance(res.exception, SystemExit), (extra, res.exception)
+        assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+    pal = Palette(np.array([[240, 240, 240], [200, 30, 40]], np.uint8), np.array([True, False]))
+    with pytest.raises(SeparationError, match="margin_mm"):
+        separate(img, pal, dpi=300).write(tmp_path / "m", margin_mm=1e7, marks=True)
+
+
+def test_a_palette_of_thousands_of_colours_is_refused_not_a_memory_blow_up():
+    img = np.full((48, 64, 3), 240, np.uint8)
+    rgb = np.random.default_rng(0).choice(256**3, 5000, replace=False)
+    rgb = np.stack([rgb >> 16, (rgb >> 8) & 255, rgb & 255], axis=1).astype(np.uint8)
+    pal = Palette(rgb, None)
+    with pytest.raises(SeparationError, match="at most 64 colours"):
+        separate(img, pal, substrate="none", dpi=300)
+    with pytest.raises(SeparationError, match="must be a Palette"):
+        separate(img, None, dpi=300)

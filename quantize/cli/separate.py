@@ -53,8 +53,8 @@ class PrintSize(click.ParamType):
             mm = float(text) * scale
         except ValueError:
             self.fail(f"{value!r} is not a length (examples: 200mm, 20cm, 8in)", param, ctx)
-        if not (mm > 0 and mm < 1e6):
-            self.fail(f"{value!r} must be a positive length", param, ctx)
+        if not (mm > 0 and mm <= 10_000):
+            self.fail(f"{value!r} must be a positive length of at most 10 m", param, ctx)
         return mm
 
 
@@ -76,7 +76,7 @@ class PrintSize(click.ParamType):
               help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate; "
                    "'none': every colour prints. Default: the --palette's locked colour, else the colour "
                    "that dominates the image border (said in the summary); refused when the border is mixed.")
-@click.option("--dpi", type=click.FloatRange(min=1), default=None,
+@click.option("--dpi", type=click.FloatRange(min=1, max=10000), default=None,
               help="The artwork's resolution (default: the file's, else 300). It sets the printed size only "
                    "without --print-width/--print-height, and a value that differs from the file's is reported.")
 @click.option("--print-width", type=PrintSize(), default=None, metavar="LENGTH",
@@ -90,9 +90,9 @@ class PrintSize(click.ParamType):
 @click.option("--negative", is_flag=True, help="Negative films: clear where ink prints, black elsewhere.")
 @click.option("--job", default=None, metavar="NAME", help="Job name on the film labels (default: the file name).")
 @click.option("--no-pdf", is_flag=True, help="Do not write the PDF of all films.")
-@click.option("--min-feature-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
+@click.option("--min-feature-mm", type=click.FloatRange(min=0, max=10), default=DEFAULT_MIN_FEATURE_MM, show_default=True,
               help="Smallest printable dot diameter; smaller areas are merged into a neighbour (0: off).")
-@click.option("--min-line-mm", type=click.FloatRange(min=0), default=DEFAULT_MIN_LINE_MM, show_default=True,
+@click.option("--min-line-mm", type=click.FloatRange(min=0, max=10), default=DEFAULT_MIN_LINE_MM, show_default=True,
               help="Thinner lines are thickened to it where there is room; what stays thinner, and knock-out "
                    "gaps, are reported with their location (0: off).")
 @click.option("--keep-detail/--merge-only", default=True, show_default=True,
@@ -102,7 +102,7 @@ class PrintSize(click.ParamType):
               show_default=True, help="Small elements of at least this fraction of the minimum dot are grown; "
                                       "smaller ones are dropped whole, with a warning.")
 @click.option("--underbase", is_flag=True, help="Add a white underbase plate (for dark substrates), printed first.")
-@click.option("--choke-mm", type=click.FloatRange(min=0), default=DEFAULT_CHOKE_MM, show_default=True,
+@click.option("--choke-mm", type=click.FloatRange(min=0, max=10), default=DEFAULT_CHOKE_MM, show_default=True,
               help="How far the underbase is pulled in from the print's edges.")
 @click.option("--base-min-l", type=click.FloatRange(min=0, max=100), default=0.0, show_default=True,
               metavar="L*", help="Inks darker than this L* get no underbase under them (0: every ink gets one).")
@@ -110,14 +110,14 @@ class PrintSize(click.ParamType):
               help="Add a highlight white plate, printed last, on the inks at least --highlight-min-l light.")
 @click.option("--highlight-min-l", type=click.FloatRange(min=0, max=100), default=DEFAULT_HIGHLIGHT_MIN_L,
               show_default=True, metavar="L*", help="How light an ink must be to get the highlight white.")
-@click.option("--trap", "trap_mm", type=click.FloatRange(min=0), default=DEFAULT_TRAP_MM, show_default=True,
+@click.option("--trap", "trap_mm", type=click.FloatRange(min=0, max=10), default=DEFAULT_TRAP_MM, show_default=True,
               metavar="MM", help="Where two inks meet, the lighter spreads this far under the darker (0: butt joins).")
 @click.option("--trap-pair", "trap_pairs", multiple=True, metavar="INK/INK=MM",
               help="A trap width for one pair of inks, e.g. 'Gold/Navy=0.3' (repeatable).")
 @click.option("--overprint", multiple=True, metavar="INK",
               help="A keyline ink that overprints: the inks beside it continue under it (repeatable).")
 @click.option("--marks", is_flag=True, help="Add registration marks and a label in a margin around the artwork.")
-@click.option("--margin-mm", type=click.FloatRange(min=1), default=DEFAULT_MARGIN_MM, show_default=True,
+@click.option("--margin-mm", type=click.FloatRange(min=1, max=100), default=DEFAULT_MARGIN_MM, show_default=True,
               help="Margin width for --marks.")
 @click.option("--order", default=None, metavar="INK,INK,...",
               help="Print order of the inks by name (default light to dark); it may also place 'underbase', "
@@ -328,7 +328,7 @@ def _trap_pair(text: str) -> tuple[str, str, float]:
         mm = float(width)
     except ValueError:
         mm = -1.0
-    if not (eq and slash and a.strip() and b.strip()) or not mm >= 0:
+    if not (eq and slash and a.strip() and b.strip()) or not 0 <= mm <= 10:
         raise click.BadParameter(f"{text!r}: write INK/INK=MM, e.g. 'Gold/Navy=0.3'", param_hint="--trap-pair")
     return a.strip(), b.strip(), mm
 

@@ -94,6 +94,24 @@ CAUTION = ("ΔE figures are computed from file data on an assumed sRGB display; 
            "print. Proof physically and follow the print shop's own standards before a production run.")
 
 
+#: Bounds of the settings: far beyond any real job, so that a mistyped number is refused with a message
+#: instead of asking for petabytes. Name -> (lowest, highest, unit).
+LIMITS = {
+    "dpi": (0, 10_000, " dpi"), "film_dpi": (10, 10_000, " dpi"),
+    "print_width_mm": (0, 10_000, " mm"), "print_height_mm": (0, 10_000, " mm"),
+    "min_feature_mm": (0, 10, " mm"), "min_line_mm": (0, 10, " mm"), "choke_mm": (0, 10, " mm"),
+    "trap_mm": (0, 10, " mm"), "keep_fraction": (0, 1, ""), "base_min_l": (0, 100, ""),
+    "highlight_min_l": (0, 100, ""), "view_distance_mm": (10, 100_000, " mm"),
+}
+_POSITIVE = ("dpi", "print_width_mm", "print_height_mm")
+#: Widest margin for marks and label, mm.
+MAX_MARGIN_MM = 100.0
+#: Most colours (inks and the substrate) a separation takes: a press has far fewer stations.
+MAX_INKS = 64
+#: Most pixels of one film (about 1.2 x 1.2 m at 600 dpi); a larger film is refused before anything is made.
+MAX_FILM_PIXELS = 800_000_000
+
+
 @dataclass(frozen=True, eq=False)
 class Plate:
     """One film: where one ink (or the underbase) prints."""
@@ -535,8 +553,8 @@ class Separation:
         from .filmfiles import FilmPage, film_image, pdf_bytes
 
         if (marks or pdf) and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm)
-                                   and margin_mm > 0):
-            raise SeparationError(f"margin_mm must be a positive size in mm, got {margin_mm!r}")
+                                   and 0 < margin_mm <= MAX_MARGIN_MM):
+            raise SeparationError(f"margin_mm must be above 0 and at most {MAX_MARGIN_MM:g} mm, got {margin_mm!r}")
         out = Path(folder)
         if out.exists() and not out.is_dir():
             raise OutputError(f"{out}: exists and is not a folder")
@@ -760,6 +778,11 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
              "choke_mm": choke_mm, "edges": edges, "dithered": dithered, "tones": tones}
     st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
     _check_settings(st)
+    if not hasattr(palette, "rgb8"):
+        raise SeparationError(f"palette must be a Palette, got {type(palette).__name__}")
+    if palette.k > MAX_INKS:
+        raise SeparationError(f"a separation takes at most {MAX_INKS} colours (inks and the substrate); the "
+                              f"palette has {palette.k}")
     pic = _picture(image, max_pixels)
     notes = [f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
@@ -942,34 +965,27 @@ def _white_plate(name: str, mask: np.ndarray, n_opaque: int) -> Plate:
 
 
 def _check_settings(st: SeparationSettings) -> None:
+    """Refuse a value no job can use; every size has a bound far beyond a real job's (see LIMITS)."""
+    def number(v, lo, hi) -> bool:
+        return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and lo <= v <= hi
+
     if st.tones not in TONES:
         raise SeparationError(f"tones must be one of {', '.join(TONES)}, got {st.tones!r}")
     if not isinstance(st.tonal, TonalSettings):
         raise SeparationError(f"tonal must be a TonalSettings, got {type(st.tonal).__name__}")
     st.tonal.check()
-    v = st.view_distance_mm
-    if not (isinstance(v, (int, float)) and math.isfinite(v) and 10 <= v <= 100_000):
-        raise SeparationError(f"view_distance_mm must be 10 to 100000 mm, got {v!r}")
-    for nm in ("min_feature_mm", "min_line_mm", "choke_mm"):
+    for nm, (lo, hi, unit) in LIMITS.items():
         v = getattr(st, nm)
-        if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
-            raise SeparationError(f"{nm} must be a size of 0 mm or more, got {v!r}")
-    for nm in ("dpi", "print_width_mm", "print_height_mm"):
-        v = getattr(st, nm)
-        if v is not None and not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
-            raise SeparationError(f"{nm} must be positive, got {v!r}")
-    for nm in ("trap_mm", "base_min_l", "highlight_min_l"):
-        v = getattr(st, nm)
-        if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
-            raise SeparationError(f"{nm} must be 0 or more, got {v!r}")
+        if nm in _POSITIVE:
+            if v is not None and not (number(v, lo, hi) and v > 0):
+                raise SeparationError(f"{nm} must be above 0 and at most {hi:g}{unit}, got {v!r}")
+        elif not number(v, lo, hi):
+            raise SeparationError(f"{nm} must be from {lo:g} to {hi:g}{unit}, got {v!r}")
     for pair in st.trap_pairs:
-        if not (isinstance(pair, (tuple, list)) and len(pair) == 3 and isinstance(pair[2], (int, float))
-                and math.isfinite(pair[2]) and pair[2] >= 0):
-            raise SeparationError(f"a trap pair is (ink, ink, width in mm of 0 or more), got {pair!r}")
+        if not (isinstance(pair, (tuple, list)) and len(pair) == 3 and number(pair[2], 0, LIMITS["trap_mm"][1])):
+            raise SeparationError(f"a trap pair is (ink, ink, width of 0 to {LIMITS['trap_mm'][1]:g} mm), got {pair!r}")
     if st.dithered not in DITHER_CHOICES:
         raise SeparationError(f"dithered must be one of {', '.join(DITHER_CHOICES)}, got {st.dithered!r}")
-    if not (isinstance(st.film_dpi, (int, float)) and math.isfinite(st.film_dpi) and 10 <= st.film_dpi <= 10000):
-        raise SeparationError(f"film_dpi must be between 10 and 10000, got {st.film_dpi!r}")
 
 
 def _film_grid(pic, art_dpi: float, st: SeparationSettings, notes: list) -> FilmGrid:
@@ -977,6 +993,10 @@ def _film_grid(pic, art_dpi: float, st: SeparationSettings, notes: list) -> Film
     h, w = pic.opaque.shape
     grid = film_grid((h, w), art_dpi, film_dpi=st.film_dpi, print_width_mm=st.print_width_mm,
                      print_height_mm=st.print_height_mm)
+    if grid.width_px * grid.height_px > MAX_FILM_PIXELS:
+        raise SeparationError(f"{pic.source}: films of {grid.width_px} x {grid.height_px} px ({grid.width_mm:.0f} x "
+                              f"{grid.height_mm:.0f} mm at {grid.dpi:g} dpi) exceed {MAX_FILM_PIXELS / 1e6:.0f} "
+                              "million pixels; lower the film resolution or the print size")
     recorded = _recorded_dpi(pic)
     if st.print_width_mm is None and st.print_height_mm is None and recorded and abs(recorded - art_dpi) > 0.01:
         notes.append(f"the artwork's resolution was given as {art_dpi:g} dpi; the file records {recorded:g} dpi: "
