@@ -226,6 +226,9 @@ def test_report_page_is_one_self_contained_file(report, art, art_sweep):
     for name, value in (("space", "lab"), ("seed", "0"), ("restarts", "2"), ("ΔE00 target", "3.0")):
         assert f'<td class="l">{name}</td><td class="l">{value}</td>' in settings, name
     assert not re.search(r"<td>[0-9.]+e[+-][0-9]+</td>", text)
+    means = [r.delta_e["mean"] for r in art_sweep.rows]
+    for before, now in zip(means, means[1:]):  # each size's mean ΔE00 against the size before, in %
+        assert f"<td>{100 * (now - before) / before:+.0f} %</td>" in text
     first = art_sweep.rows[0].cost
     for r in art_sweep.rows:
         assert f"<td>{100 * r.cost / first:.1f} %</td>" in text

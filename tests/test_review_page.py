@@ -68,7 +68,11 @@ _ZOOM = """var z = root.querySelector('button.zoom'), before = root.querySelecto
     out.fitWidth = stage.getBoundingClientRect().width; z.click();
     out.zoomWidth = stage.getBoundingClientRect().width; out.natural = before.naturalWidth;
     out.afterWidth = after.getBoundingClientRect().width; z.click();
-    out.backWidth = stage.getBoundingClientRect().width;"""
+    out.backWidth = stage.getBoundingClientRect().width;
+    var d = root.querySelector('.divider'); d.focus();
+    d.dispatchEvent(new KeyboardEvent('keydown', {key: 'ArrowRight', bubbles: true}));
+    d.dispatchEvent(new KeyboardEvent('keydown', {key: 'ArrowRight', bubbles: true}));
+    out.keyed = Number(root.dataset.divider);"""
 
 
 @pytest.fixture(scope="module")
@@ -189,7 +193,7 @@ def test_swatch_click_highlights_that_colours_pixels(case, tmp_path):
     assert _in(shown[:, right][~here], colours).mean() < 0.01
 
 
-def test_one_to_one_shows_the_embedded_pixels(case, tmp_path):
+def test_one_to_one_view_and_keyboard_divider(case, tmp_path):
     rgb, s, mapped, page = case
     out, console, _ = _drive(page, tmp_path, _ZOOM, "drive-zoom.html")
     assert console == []
@@ -198,3 +202,5 @@ def test_one_to_one_shows_the_embedded_pixels(case, tmp_path):
     assert out["zoomWidth"] == pytest.approx(rgb.shape[1], abs=0.5)
     assert out["afterWidth"] == pytest.approx(rgb.shape[1], abs=0.5)
     assert out["backWidth"] == pytest.approx(out["fitWidth"], abs=0.5)
+    # The divider also moves from the keyboard: two steps of 2 % to the right.
+    assert out["keyed"] == pytest.approx(out["divider"] + 4, abs=0.05)

@@ -123,7 +123,11 @@ SET_REPORT_PAGE = "palette-report.html"
 
 
 def _write_set_page(output_dir: Path, rows, palette, worst: int) -> Path:
-    """The set's consistency as a page beside the manifest (rewritten every run, as the manifest is)."""
+    """The set's consistency as a page beside the manifest (rewritten every run, as the manifest is).
+
+    Built from the rows alone: the page decodes no image again (each input
+    is decoded once, by its job).
+    """
     from quantize.report.set_report import SetImage, write_set_report
 
     done = [r for r in rows if r["status"] in ("ok", "skipped") and r.get("delta_e")]
@@ -134,8 +138,7 @@ def _write_set_page(output_dir: Path, rows, palette, worst: int) -> Path:
         notes.append(f"{left} of {len(rows)} images failed or were not run; they are not in this page "
                      f"(see {MANIFEST_JSON}).")
     return write_set_report(output_dir / SET_REPORT_PAGE, palette=palette, images=images, worst=worst,
-                            title=f"One palette across {len(done)} images", notes=notes,
-                            force=True)
+                            title=f"One palette across {len(done)} images", notes=notes, force=True)
 
 
 def _consistency(rows, palette, worst: int) -> dict:

@@ -17,7 +17,7 @@ import numpy as np
 
 from .assets import CSS
 
-__all__ = ["SetImage", "set_section", "write_set_report", "CAUTION"]
+__all__ = ["SetImage", "set_section", "worst_images", "write_set_report", "CAUTION"]
 
 e = html.escape
 
@@ -46,7 +46,11 @@ class SetImage:
     coverage: Sequence[float]
 
 
-def _worst(images: Sequence[SetImage], worst: int) -> list[SetImage]:
+def worst_images(images: Sequence, worst: int) -> list:
+    """The ``worst`` images with the highest ΔE00 mean (then p95, then name), worst first.
+
+    Works on anything with ``source`` and ``delta_e`` attributes.
+    """
     return sorted(images, key=lambda m: (-m.delta_e["mean"], -m.delta_e["p95"], m.source))[:worst]
 
 
@@ -82,17 +86,19 @@ def set_section(palette, images: Sequence[SetImage], *, worst: int = 5) -> str:
              f"{np.median(means):.2f}, worst {means.max():.2f}, best {means.min():.2f}."
              + (f" Colours no image uses: {', '.join(unused)}." if unused else "") + "</p>"]
     rows = []
-    for n, m in enumerate(_worst(images, worst), start=1):
+    ranked = worst_images(images, worst)
+    for n, m in enumerate(ranked, start=1):
         rows.append(f'<tr><td>{n}</td><td class="l">{e(m.source)}</td><td>{m.delta_e["mean"]:.2f}</td>'
                     f'<td>{m.delta_e["p95"]:.2f}</td><td>{m.delta_e["max"]:.2f}</td></tr>')
-    parts.append(f"<h3>Worst-fitting images (the {min(worst, len(images))} with the highest ΔE00 mean)</h3>"
+    parts.append(f"<h3>Worst-fitting images (the {len(ranked)} with the highest ΔE00 mean)</h3>"
                  '<table class="worst"><thead><tr><th>rank</th><th class="l">image</th><th>ΔE00 mean</th>'
                  f"<th>ΔE00 p95</th><th>ΔE00 max</th></tr></thead><tbody>{''.join(rows)}</tbody></table>")
     head = "".join(f'<th title="{hx}"><span class="sw" style="background:{hx}"></span><br>{j} {hx}</th>'
                    for j, hx in enumerate(palette.hex))
     body = []
     for m, c in zip(images, cov):
-        cells = "".join(f"<td>{v:.2f}</td>" if v > 0 else "<td>–</td>" for v in c)
+        cells = "".join("<td>–</td>" if v <= 0 else f"<td>{v:.2f}</td>" if v >= 0.005 else "<td>&lt;0.01</td>"
+                        for v in c)
         body.append(f'<tr><td class="l">{e(m.source)}</td>{cells}</tr>')
     for name, vals in (("images using it", [str(int(u)) for u in using]),
                        ("lowest %", [f"{v:.2f}" for v in cov.min(axis=0)]),
