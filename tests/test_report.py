@@ -25,6 +25,7 @@ from quantize import fit_palette
 from quantize.errors import OutputError
 from quantize.fit.selection import bic_scores
 from quantize.fit.sweep import sweep
+from quantize.io.read import as_picture
 from quantize.report.page import (
     REPORT_PAGE,
     plot_sweep,
@@ -298,6 +299,26 @@ def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
     assert im.mode == "RGBA" and tuple(px[10, 20]) == (255, 0, 128, 255) and px[0, 0, 3] == 0
     shown = np.asarray(_decode(_img(_refs(page), "after")["src"]).convert("RGBA"))
     assert shown[0, 0, 3] == 0 and shown[10, 20, 3] == 255
+
+
+@pytest.mark.slow
+def test_review_page_of_a_12_megapixel_photo_stays_under_3_mb(tmp_path):
+    # A 4000 x 3000 px photo-like image (invented for the check: smooth light, shapes and sensor-like
+    # noise, which makes the embedded original harder to compress than most photos).
+    rng = np.random.default_rng(12)
+    y, x = np.mgrid[0:3000, 0:4000].astype(np.float32)
+    rgb = np.stack([90 + 100 * x / 4000, 60 + 120 * y / 3000, 160 - 80 * (x + y) / 7000], axis=-1)
+    rgb[(x - 2000) ** 2 + (y - 1500) ** 2 < 900 ** 2] *= (0.45, 0.7, 1.3)
+    rgb += rng.normal(0, 3.0, rgb.shape).astype(np.float32)
+    rgb = np.clip(rgb, 0, 255).astype(np.uint8)
+    pic = as_picture(rgb)
+    # The sizes are fitted to a quarter-size copy (quicker; any palettes will do for the page's size).
+    s = sweep(np.ascontiguousarray(rgb[::4, ::4]), (2, 16), restarts=1)
+    page = write_report(tmp_path / "r", original_picture=pic, mapped=s.chosen.palette.apply(pic), sweep=s)
+    size = page.stat().st_size
+    assert size < 3_000_000, f"{size / 1e6:.2f} MB"  # the size docs/palette-per-size.md states
+    text = page.read_text(encoding="utf-8")
+    assert text.count('class="palette-at"') == 15  # every size is in it
 
 
 def test_report_module_imports_no_matplotlib():

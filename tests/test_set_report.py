@@ -93,3 +93,4 @@ def test_batch_with_one_palette_writes_the_set_page(tmp_path):
         for j, hx in enumerate(pal.hex):
             share = (got == np.array([int(hx[k:k + 2], 16) for k in (1, 3, 5)])).all(axis=1).mean() * 100
             assert _value(cov[f"p{i}.png"][j]) == pytest.approx(share, abs=0.01)
+

@@ -352,7 +352,8 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     -----
     What is embedded is bounded by ``max_side`` and ``preview_side``, not
     by the image: a 12-megapixel photo swept over k = 2-16 at the defaults
-    gave a 1.8 MB page (docs/palette-per-size.md).  ΔE00 figures are from
+    gave a 1.8 MB page, 8.2 MB with ``max_side=None``
+    (docs/palette-per-size.md).  ΔE00 figures are from
     file data, not a measured print; the page says so.
 
     Examples
