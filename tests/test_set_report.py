@@ -94,3 +94,21 @@ def test_batch_with_one_palette_writes_the_set_page(tmp_path):
             share = (got == np.array([int(hx[k:k + 2], 16) for k in (1, 3, 5)])).all(axis=1).mean() * 100
             assert _value(cov[f"p{i}.png"][j]) == pytest.approx(share, abs=0.01)
 
+
+
+def test_batch_command_lists_every_worst_image_and_names_the_page(tmp_path):
+    from click.testing import CliRunner
+
+    from quantize.cli.main import main
+
+    root = tmp_path / "in"
+    root.mkdir()
+    for i, im in enumerate(_images(7)):
+        Image.fromarray(im).save(root / f"p{i}.png")
+    pfile = fit_palette(root / "p0.png", 4, restarts=1).save(tmp_path / "house.palette.json")
+    r = CliRunner().invoke(main, ["batch", str(root), "-o", str(tmp_path / "out"), "--palette", str(pfile),
+                                  "--worst", "7", "--workers", "0"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    assert sum(ln.strip().startswith("fits worst:") for ln in r.output.splitlines()) == 7  # was cut at 5
+    assert f"consistency page: {tmp_path / 'out' / SET_REPORT_PAGE}" in r.output
+    assert (tmp_path / "out" / SET_REPORT_PAGE).is_file()
