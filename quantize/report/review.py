@@ -146,6 +146,9 @@ def review_block(picture, views: Sequence[SizeView], *, start: int, picks: dict,
                            f"{v.k}</button>")
         parts.append(f'<div class="sizes" role="group" aria-label="palette sizes">{"".join(buttons)}</div>')
     parts.append('<button type="button" class="zoom" aria-pressed="false">1:1 pixels</button></div>')
+    if len(views) == 1:
+        parts.append('<p class="note">This page shows one palette size; a sweep\'s page (quantize sweep '
+                     "--report) shows the image at every size.</p>")
     if picks and len(views) > 1:
         named = ", ".join(f"k = {k} ({n} rule)" for n, k in picks.items())
         parts.append(f'<p class="note">Sizes a rule picked are framed red: {e(named)}.</p>')
