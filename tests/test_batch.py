@@ -499,7 +499,7 @@ def test_dask_cluster_gives_the_local_result(tree, tmp_path, dask_cluster, share
     assert _comparable(local.rows) == _comparable(remote.rows)
     assert local.manifest["palette_report"] == remote.manifest["palette_report"]
     outs_local, outs_dask = _outputs(tmp_path / "local"), _outputs(tmp_path / "dask")
-    assert outs_local == outs_dask and len(outs_local) == (4 if shared else 6)
+    assert outs_local == outs_dask and len(outs_local) == (5 if shared else 6)  # shared: + palette-report.html
 
 
 def test_dask_missing_gives_a_clear_message(tree, tmp_path, monkeypatch):

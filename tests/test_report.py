@@ -1,8 +1,8 @@
 """Sweep plot, swatch strip and the HTML report page, including a real browser.
 
-The browser check runs Debian's chromium headless (the binary the CI
-installs): the page must load with no console message, every image it
-references must load (an inline probe script, added by the test to a copy
+The page is one file with every image inside it (data URIs).  The browser
+check runs Debian's chromium headless (the binary the CI installs): the
+page must load with no console message, every image it references must load (an inline probe script, added by the test to a copy
 of the page, writes each image's state into the DOM), and a screenshot must
 show the page's content.  A negative control proves the probe catches a
 missing image and a console error.  Without chromium the test is skipped
@@ -10,9 +10,7 @@ with the reason shown.
 """
 
 import html.parser
-import os
 import re
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -20,12 +18,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 from artwork import flat_artwork
+from browser import CHROMIUM, NO_CHROMIUM, chromium
 from PIL import Image
 
 from quantize import fit_palette
 from quantize.errors import OutputError
 from quantize.fit.selection import bic_scores
 from quantize.fit.sweep import sweep
+from quantize.io.read import as_picture
 from quantize.report.page import (
     REPORT_PAGE,
     plot_sweep,
@@ -35,8 +35,6 @@ from quantize.report.page import (
     sweep_figure,
     write_report,
 )
-
-CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None)
 
 
 @pytest.fixture(scope="module")
@@ -182,10 +180,27 @@ def report(art, art_sweep, tmp_path_factory):
     return page, pal, mapped
 
 
-def test_report_page_holds_everything_and_only_local_files(report):
+def _decode(src: str) -> Image.Image:
+    """The image of a data URI (the page embeds every image)."""
+    import base64
+    import io
+
+    head, _, payload = src.partition(",")
+    assert head.startswith("data:image/") and head.endswith(";base64"), head[:40]
+    im = Image.open(io.BytesIO(base64.b64decode(payload)))
+    im.load()
+    return im
+
+
+def _img(refs: _Refs, cls: str, n: int = 0) -> dict:
+    return [i for i in refs.imgs if cls in (i.get("class") or "").split()][n]
+
+
+def test_report_page_is_one_self_contained_file(report, art, art_sweep):
     page, pal, mapped = report
     text = page.read_text(encoding="utf-8")
     assert page.name == REPORT_PAGE
+    assert [p.name for p in page.parent.iterdir()] == [REPORT_PAGE]  # nothing beside it
     assert "Poster &lt;test&gt; &amp; report" in text
     lab = pal.lab
     for j, hx in enumerate(pal.hex):
@@ -194,22 +209,30 @@ def test_report_page_holds_everything_and_only_local_files(report):
     for v in mapped.delta_e.values():
         assert f"{v:.2f}" in text
     refs = _refs(page)
-    for ref in refs.refs:
-        if ref.startswith("data:"):
-            continue
-        assert not re.match(r"^[a-z]+:|^//|^/", ref), f"non-local reference {ref}"
-        assert (page.parent / ref).is_file(), ref
-    assert "url(http" not in text and "@import" not in text
-    srcs = {i["src"] for i in refs.imgs}
-    assert {"original.png", "result.png", "error-map.png", "sweep.png", "swatches.png"} <= srcs
-    # Side by side at the same size, and the result holds only palette colours.
-    with Image.open(page.parent / "original.png") as o, Image.open(page.parent / "result.png") as r:
-        assert o.size == r.size == (160, 160)
-        res = np.asarray(r.convert("RGB")).reshape(-1, 3)
-    assert {tuple(c) for c in np.unique(res, axis=0)} <= {tuple(int(v) for v in c) for c in pal.rgb8}
-    sizes = {(i["width"], i["height"]) for i in refs.imgs if i["src"] in ("original.png", "result.png")}
-    assert sizes == {("160", "160")}
+    # Every reference is inline: nothing to fetch, from disk or a network.
+    assert refs.refs and all(r.startswith("data:") for r in refs.refs), [r[:40] for r in refs.refs]
+    assert "url(" not in text and "@import" not in text and "http://" not in text and "https://" not in text
+    assert len(refs.imgs) == 5  # before, after, error map, sweep plot, swatch strip
+    # The original at full size (160 px, JPEG at quality 90: within a few codes of the input) and the
+    # result pixel for pixel, as an indexed PNG holding only palette colours.
+    before = np.asarray(_decode(_img(refs, "before")["src"]).convert("RGB")).astype(int)
+    assert before.shape == art.shape and np.abs(before - art).mean() < 3
+    after = _decode(_img(refs, "after")["src"])
+    assert after.mode == "P"
+    np.testing.assert_array_equal(np.asarray(after.convert("RGB")), mapped.rgb)
     assert text.count('<tr class="chosen">') == 1
+    assert "proof physically" in text.lower()
+    # The settings of the sweep, and the cost given a meaning, not a bare number.
+    settings = re.search(r"Settings that produced it</h2>(.*?)</table>", text, re.S).group(1)
+    for name, value in (("space", "lab"), ("seed", "0"), ("restarts", "2"), ("ΔE00 target", "3.0")):
+        assert f'<td class="l">{name}</td><td class="l">{value}</td>' in settings, name
+    assert not re.search(r"<td>[0-9.]+e[+-][0-9]+</td>", text)
+    means = [r.delta_e["mean"] for r in art_sweep.rows]
+    for before, now in zip(means, means[1:]):  # each size's mean ΔE00 against the size before, in %
+        assert f"<td>{100 * (now - before) / before:+.0f} %</td>" in text
+    first = art_sweep.rows[0].cost
+    for r in art_sweep.rows:
+        assert f"<td>{100 * r.cost / first:.1f} %</td>" in text
 
 
 def test_report_refuses_to_overwrite_and_checks_inputs(report, art, art_sweep, tmp_path):
@@ -227,6 +250,8 @@ def test_report_refuses_to_overwrite_and_checks_inputs(report, art, art_sweep, t
         write_report(tmp_path / "x", original_picture=art[:, :80], mapped=mapped)
     with pytest.raises(ValueError, match="error map not found"):
         write_report(tmp_path / "x", original_picture=art, mapped=mapped, error_map_path=tmp_path / "nope.png")
+    with pytest.raises(ValueError, match="preview_side"):
+        write_report(tmp_path / "x", original_picture=art, mapped=mapped, preview_side=4)
     assert not (tmp_path / "x").exists()
 
 
@@ -237,6 +262,9 @@ def test_report_of_a_fit_over_a_range_lists_the_candidates(art, tmp_path):
     assert "Palette sizes considered" in text and text.count('<tr class="chosen">') == 1
     assert text.count('<td class="l">locked</td>') == 1
     assert pal.fit.reason.split(";")[0] in text
+    # The settings that produced it, read off the palette's own fit record.
+    settings = re.search(r"Settings that produced it</h2>(.*?)</table>", text, re.S).group(1)
+    assert "#ffffff" in settings and "<td class=\"l\">seed</td><td class=\"l\">0</td>" in settings
 
 
 def test_report_of_several_images_and_downscaled_display(tmp_path):
@@ -246,13 +274,14 @@ def test_report_of_several_images_and_downscaled_display(tmp_path):
     pal = fit_palette([big, b], 3, restarts=2)
     page = write_report(tmp_path / "r", original_picture=[big, b], mapped=[pal.apply(big), pal.apply(b)],
                         max_side=200)
-    for name in ("original-1.png", "result-1.png"):
-        with Image.open(page.parent / name) as im:
-            assert im.size == (200, 200)
-    with Image.open(page.parent / "result-1.png") as im:
-        colours = {tuple(c) for c in np.unique(np.asarray(im.convert("RGB")).reshape(-1, 3), axis=0)}
+    refs = _refs(page)
+    assert _decode(_img(refs, "before", 0)["src"]).size == (200, 200)
+    shown = _decode(_img(refs, "after", 0)["src"])
+    assert shown.size == (200, 200)
+    colours = {tuple(c) for c in np.unique(np.asarray(shown.convert("RGB")).reshape(-1, 3), axis=0)}
     assert colours <= {tuple(int(v) for v in c) for c in pal.rgb8}
-    assert (page.parent / "original-2.png").is_file()
+    assert _decode(_img(refs, "before", 1)["src"]).size == (90, 90)
+    assert "Consistency across the set" in page.read_text(encoding="utf-8")
 
 
 def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
@@ -265,9 +294,31 @@ def test_report_keeps_16_bit_and_alpha_inputs(tmp_path):
     pic = Picture(rgb=rgb, alpha=alpha, bit_depth=16)
     pal = fit_palette(pic, 2)
     page = write_report(tmp_path / "r", original_picture=pic, mapped=pal.apply(pic))
-    with Image.open(page.parent / "original.png") as im:
-        px = np.asarray(im)
+    im = _decode(_img(_refs(page), "before")["src"])
+    px = np.asarray(im)
     assert im.mode == "RGBA" and tuple(px[10, 20]) == (255, 0, 128, 255) and px[0, 0, 3] == 0
+    shown = np.asarray(_decode(_img(_refs(page), "after")["src"]).convert("RGBA"))
+    assert shown[0, 0, 3] == 0 and shown[10, 20, 3] == 255
+
+
+@pytest.mark.slow
+def test_review_page_of_a_12_megapixel_photo_stays_under_3_mb(tmp_path):
+    # A 4000 x 3000 px photo-like image (invented for the check: smooth light, shapes and sensor-like
+    # noise, which makes the embedded original harder to compress than most photos).
+    rng = np.random.default_rng(12)
+    y, x = np.mgrid[0:3000, 0:4000].astype(np.float32)
+    rgb = np.stack([90 + 100 * x / 4000, 60 + 120 * y / 3000, 160 - 80 * (x + y) / 7000], axis=-1)
+    rgb[(x - 2000) ** 2 + (y - 1500) ** 2 < 900 ** 2] *= (0.45, 0.7, 1.3)
+    rgb += rng.normal(0, 3.0, rgb.shape).astype(np.float32)
+    rgb = np.clip(rgb, 0, 255).astype(np.uint8)
+    pic = as_picture(rgb)
+    # The sizes are fitted to a quarter-size copy (quicker; any palettes will do for the page's size).
+    s = sweep(np.ascontiguousarray(rgb[::4, ::4]), (2, 16), restarts=1)
+    page = write_report(tmp_path / "r", original_picture=pic, mapped=s.chosen.palette.apply(pic), sweep=s)
+    size = page.stat().st_size
+    assert size < 3_000_000, f"{size / 1e6:.2f} MB"  # the size docs/palette-per-size.md states
+    text = page.read_text(encoding="utf-8")
+    assert text.count('class="palette-at"') == 15  # every size is in it
 
 
 def test_report_module_imports_no_matplotlib():
@@ -292,20 +343,12 @@ window.addEventListener('load', function () {
 </script>"""
 
 
-def _chromium(args, url, tmp_path):
-    profile = tmp_path / f"profile-{len(list(tmp_path.iterdir()))}"
-    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-           "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}",
-           "--enable-logging=stderr", "--v=0", "--virtual-time-budget=5000", *args, url]
-    return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
-
-
 def _probe(page: Path, tmp_path):
     """(number of images, broken srcs, console lines) of a page, via a probe copy beside it."""
     probe = page.with_name("probe-" + page.name)
     probe.write_text(page.read_text(encoding="utf-8").replace("</body>", _PROBE + "</body>"), encoding="utf-8")
     try:
-        run = _chromium(["--dump-dom"], probe.as_uri(), tmp_path)
+        run = chromium(["--dump-dom"], probe.as_uri(), tmp_path)
     finally:
         probe.unlink()
     m = re.search(r"IMAGES (\d+) BROKEN (\[.*?\])", run.stdout)
@@ -316,13 +359,14 @@ def _probe(page: Path, tmp_path):
     return int(m.group(1)), json.loads(m.group(2)), console
 
 
-@pytest.mark.skipif(CHROMIUM is None, reason="no chromium browser on this machine (the CI installs Debian's)")
+@pytest.mark.skipif(CHROMIUM is None, reason=NO_CHROMIUM)
 def test_report_loads_in_a_real_browser(report, tmp_path):
     page, pal, mapped = report
     # Negative control: a missing image and a console error must be caught.
     bad = page.with_name("bad.html")
+    good = _img(_refs(page), "after")["src"]
     bad.write_text('<!DOCTYPE html><html><head><meta charset="utf-8"><link rel="icon" href="data:,"></head>'
-                   '<body><img src="nowhere.png"><img src="result.png">'
+                   f'<body><img src="nowhere.png"><img src="{good}">'
                    '<script>console.error("deliberate")</script></body></html>', encoding="utf-8")
     try:
         n, broken, console = _probe(bad, tmp_path)
@@ -332,12 +376,12 @@ def test_report_loads_in_a_real_browser(report, tmp_path):
     assert any("deliberate" in ln for ln in console)
 
     n, broken, console = _probe(page, tmp_path)
-    assert n == len(_refs(page).imgs) >= 5
+    assert n == len(_refs(page).imgs) == 5
     assert broken == []
     assert console == []
 
     shot = tmp_path / "shot.png"
-    run = _chromium(["--window-size=1280,1800", "--hide-scrollbars", f"--screenshot={shot}"], page.as_uri(),
+    run = chromium(["--window-size=1280,1800", "--hide-scrollbars", f"--screenshot={shot}"], page.as_uri(),
                     tmp_path)
     assert shot.is_file(), run.stderr[-500:]
     px = np.asarray(Image.open(shot).convert("RGB"))

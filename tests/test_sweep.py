@@ -272,7 +272,9 @@ def test_cli_writes_every_output_and_marks_the_chosen_row(image_files, tmp_path)
     for p in out.values():
         assert p.is_file()
     page = (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
-    assert "original-2.png" in page and "sweep.png" in page
+    # One self-contained page: a review block per image and the sweep's table, images inline.
+    assert page.count('<section class="review"') == 2 and "Palette size sweep" in page
+    assert 'src="data:image/png;base64,' in page and 'src="sweep.png"' not in page
     # Same numbers as the library with the same settings.
     lib = sweep([str(a), str(b)], (2, 6), restarts=2, target=2.5, rule="target")  # --target implies it
     assert [r["k"] for r in doc["rows"]] == lib.ks and doc["chosen"] == lib.chosen.k

@@ -125,6 +125,29 @@ def _write_manifest(output_dir: Path, doc: dict) -> tuple[Path, Path]:
     return j, c
 
 
+#: The page of a one-palette run: the set's consistency (worst images, coverage per image).
+SET_REPORT_PAGE = "palette-report.html"
+
+
+def _write_set_page(output_dir: Path, rows, palette, worst: int) -> Path:
+    """The set's consistency as a page beside the manifest (rewritten every run, as the manifest is).
+
+    Built from the rows alone: the page decodes no image again (each input
+    is decoded once, by its job).
+    """
+    from quantize.report.set_report import SetImage, write_set_report
+
+    done = [r for r in rows if r["status"] in ("ok", "skipped") and r.get("delta_e")]
+    images = [SetImage(r["input"], r["delta_e"], r.get("coverage")) for r in done]
+    notes = []
+    left = len(rows) - len(done)
+    if left:
+        notes.append(f"{left} of {len(rows)} images failed or were not run; they are not in this page "
+                     f"(see {MANIFEST_JSON}).")
+    return write_set_report(output_dir / SET_REPORT_PAGE, palette=palette, images=images, worst=worst,
+                            title=f"One palette across {len(done)} images", notes=notes, force=True)
+
+
 def _consistency(rows, palette, worst: int) -> dict:
     """How well one palette serves the set: images by ΔE00, and how many images use each entry."""
     done = [r for r in rows if r["status"] in ("ok", "skipped") and r.get("delta_e")]

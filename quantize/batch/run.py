@@ -50,6 +50,7 @@ from .manifest import (
     _summary,
     _up_to_date,
     _write_manifest,
+    _write_set_page,
 )
 from .settings import FORMATS, BatchSettings
 from .workers import _executor, _one_line
@@ -234,6 +235,9 @@ class _Run:
         doc["error"] = error
         if self.palette is not None and self.settings.mode != "per-image":
             doc["palette_report"] = _consistency(ordered, self.palette, self.settings.worst)
+            if error is None:
+                page = _write_set_page(self.dst, ordered, self.palette, self.settings.worst)
+                doc["palette_report"]["page"] = page.name
         self.written = True
         paths = _write_manifest(self.dst, doc)
         return BatchResult(rows=ordered, summary=doc["summary"], manifest=doc, manifest_paths=paths,

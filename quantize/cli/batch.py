@@ -133,9 +133,11 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
             click.echo(f"one palette of {rep['k']} colours: {' '.join(rep['hex'])}")
             if rep["unused_entries"]:
                 click.echo(f"  entries no image uses: {', '.join(map(str, rep['unused_entries']))}")
-            for w in rep["worst"][:5]:
+            for w in rep["worst"]:
                 click.echo(f"  fits worst: {w['input']}  ΔE00 mean {w['delta_e']['mean']:.2f}"
                            f"  p95 {w['delta_e']['p95']:.2f}")
+            if rep.get("page"):
+                click.echo(f"  the set's consistency page: {Path(output_dir) / rep['page']}")
         for n in res.notes:
             click.echo(f"note: {n}")
         click.echo("manifest: " + ", ".join(summary["manifest"]))

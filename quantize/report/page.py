@@ -5,8 +5,11 @@
   rule below it, the chosen k marked and labelled.
 * :func:`swatch_strip` / :func:`save_swatches`: the palette at every size
   of a sweep, one row per k.
-* :func:`write_report`: a self-contained HTML page in a folder, the images
-  beside it and nothing fetched from a network.
+* :func:`write_report`: the review page, one self-contained HTML file in a
+  folder (images inline, nothing fetched from a network); its parts are in
+  :mod:`.review` (the per-image block), :mod:`.embed` (images as data URIs),
+  :mod:`.set_report` (a set on one palette) and :mod:`.assets` (style and
+  script).
 
 matplotlib is imported inside the plotting functions only, and without
 pyplot, so nothing here touches a global backend or opens a window.
@@ -203,65 +206,6 @@ def save_swatches(sweep, path, *, force: bool = False, **options) -> Path:
 
 # -- the HTML page ---------------------------------------------------------
 
-_CSS = """
-body { font: 15px/1.45 system-ui, sans-serif; color: #1b1b1b; margin: 2em auto; max-width: 1200px; padding: 0 1em; }
-h1 { font-size: 1.5em; margin-bottom: .2em; } h2 { font-size: 1.15em; margin-top: 1.8em; }
-.note { color: #555; font-size: .9em; }
-.pair { display: grid; grid-template-columns: 1fr 1fr; gap: 1em; }
-.pair figure { margin: 0; } .pair img { width: 100%; height: auto; display: block;
-  image-rendering: pixelated; border: 1px solid #ccc; background: repeating-conic-gradient(#eee 0 25%, #fff 0 50%) 0 0 / 16px 16px; }
-figcaption { font-size: .9em; color: #444; margin-top: .3em; }
-table { border-collapse: collapse; margin: .5em 0; font-variant-numeric: tabular-nums; }
-th, td { padding: .25em .7em; border-bottom: 1px solid #ddd; text-align: right; }
-th { background: #f4f4f4; } td.l, th.l { text-align: left; }
-.sw { display: inline-block; width: 2.6em; height: 1.3em; border: 1px solid #999; vertical-align: middle; }
-tr.chosen td { background: #fdecea; font-weight: 600; }
-img.wide { max-width: 100%; height: auto; border: 1px solid #ddd; }
-"""
-
-
-def _rgb8_image(picture):
-    """8-bit RGB(A) PIL image of a Picture (16-bit codes divided by 257)."""
-    from PIL import Image
-
-    rgb = picture.rgb
-    if picture.bit_depth == 16:
-        rgb = np.rint(rgb.astype(np.float64) / 257).astype(np.uint8)
-    if picture.alpha is None:
-        return Image.fromarray(np.ascontiguousarray(rgb), "RGB")
-    a = picture.alpha
-    if a.dtype != np.uint8:
-        a = np.rint(a.astype(np.float64) / 257).astype(np.uint8)
-    return Image.fromarray(np.dstack([rgb, a]), "RGBA")
-
-
-def _result_image(mapped):
-    from PIL import Image
-
-    rgb = np.ascontiguousarray(mapped.rgb)
-    if mapped.alpha is None:
-        return Image.fromarray(rgb, "RGB")
-    a = mapped.alpha
-    if a.dtype == bool:
-        a = a.astype(np.uint8) * 255
-    elif a.dtype != np.uint8:
-        a = np.rint(a.astype(np.float64) / 257).astype(np.uint8)
-    return Image.fromarray(np.dstack([rgb, a]), "RGBA")
-
-
-def _png(img) -> bytes:
-    buf = io.BytesIO()
-    img.save(buf, format="PNG")
-    return buf.getvalue()
-
-
-def _fit_size(size, max_side):
-    w, h = size
-    if max_side is None or max(w, h) <= max_side:
-        return w, h
-    s = max_side / max(w, h)
-    return max(1, round(w * s)), max(1, round(h * s))
-
 
 def _as_list(x) -> list:
     return list(x) if isinstance(x, (list, tuple)) else [x]
@@ -277,33 +221,90 @@ def _table(head: Sequence[str], rows: Sequence[Sequence[str]], *, left=(0,), mar
     return f"<table><thead><tr>{th}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
-def _candidates_table(cands, chosen, picks=None) -> str:
+def _sizes_table(cands, chosen, picks=None) -> str:
+    """Every size with the meaning of its numbers: ΔE00 and its change, the cost relative to the first size."""
     from quantize.fit.sweep_result import candidate_rows
 
     rows, marks = [], []
-    for n, c in enumerate(candidate_rows(cands)):
+    cands = candidate_rows(cands)
+    first = cands[0]["inertia"] if cands else 0.0
+    for n, c in enumerate(cands):
         de = c["delta_e"]
         by = ", ".join(name for name, k in (picks or {}).items() if k == c["k"])
-        rows.append([str(c["k"]), f"{c['inertia']:.6g}", f"{de['mean']:.2f}", f"{de['p95']:.2f}",
-                     f"{de['max']:.2f}", f"{c['score']:.2f}", html.escape(by)])
+        prev = cands[n - 1]["delta_e"]["mean"] if n else None
+        change = f"{100.0 * (de['mean'] - prev) / prev:+.0f} %" if prev else ""
+        cost = f"{100.0 * c['inertia'] / first:.1f} %" if first > 0 else ""
+        rows.append([str(c["k"]), f"{de['mean']:.2f}", change, f"{de['p95']:.2f}", f"{de['max']:.2f}", cost,
+                     f"{c['score']:.2f}", html.escape(by)])
         if c["k"] == chosen:
             marks.append(n)
-    head = ["k", "k-means cost", "ΔE00 mean", "ΔE00 p95", "ΔE00 max", "penalised score", "picked by"]
-    return _table(head, rows, left=(), marks=marks)
+    k0 = cands[0]["k"] if cands else ""
+    head = ["k", "ΔE00 mean", "mean against the size before", "ΔE00 p95", "ΔE00 max",
+            f"k-means cost, % of k = {k0}", "penalised score", "picked by"]
+    return (_table(head, rows, left=(), marks=marks)
+            + '<p class="note">ΔE00 mean: the average colour difference per pixel between the image and its '
+              "reduction (about 1 is at the edge of what a trained eye sees side by side; common practice, "
+              "no source). The k-means cost is the fit's own measure, the sum over pixels of the squared "
+              f"distance to their palette colour in the fitting space, shown relative to k = {k0}. "
+              "The penalised score weighs that error against the number of colours; lower is better.</p>")
+
+
+_SETTING_NAMES = {"locked": "locked colours asked for", "k_requested": "palette size asked for",
+                  "init": "seeding", "metric": "nearest colour by", "refine": "refinement",
+                  "weighting": "images weighted", "target": "ΔE00 target", "target_stat": "target statistic"}
+
+
+def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
+    """The settings that produced the page's palettes, as (name, value) text."""
+    def text(v):
+        if v is None or v == () or v == []:
+            return "—"
+        if isinstance(v, (list, tuple)):
+            return ", ".join(str(x) for x in v)
+        return str(v)
+
+    rows = []
+    if sweep is not None:
+        d = sweep.settings_dict()
+        rows.append(("palette sizes swept", f"{d['k_range'][0]}–{d['k_range'][1]}"))
+        rows.append(("rule for the marked size", sweep.rule))
+        for key in ("space", "seed", "restarts", "init", "refine", "warm", "metric", "weighting", "target",
+                    "target_stat", "locked"):
+            rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(d[key])))
+        rows.append(("pixels / distinct colours sampled", f"{d['n_pixels']} / {d['n_distinct']}"))
+    elif pal.fit is not None:
+        f = pal.fit
+        for key in ("rule", "k_requested", "space", "seed", "restarts", "init", "refine", "metric", "weighting",
+                    "target", "target_stat", "kind", "locked"):
+            rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(getattr(f, key))))
+    else:
+        rows.append(("palette", f"saved palette, {pal.k} colours, space {pal.space} (not fitted here)"))
+    locked = [hx for hx, lk in zip(pal.hex, pal.locked) if lk]
+    rows.append(("locked colours in the palette", text(locked)))
+    d = result.dither
+    rows.append(("dither", "none" if d is None else
+                 f"{d.method}, strength {d.strength:g}" + ("" if d.serpentine is None else
+                                                          (", serpentine" if d.serpentine else ", raster"))
+                 + f", error in {d.error_space}"))
+    return rows
 
 
 def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, error_map_path=None,
-                 title: str = "quantize report", max_side: int | None = 1600, force: bool = False) -> Path:
-    """Write a self-contained HTML report of a reduction into ``folder``.
+                 title: str = "quantize report", max_side: int | None = 1600, preview_side: int = 640,
+                 worst: int = 5, force: bool = False) -> Path:
+    """Write a self-contained HTML review page of a reduction into ``folder``.
 
-    The folder receives ``index.html`` and the PNG images it shows:
-    the original and the result side by side at the same size, the palette
-    swatches with hex, CIELAB, coverage and locked flags, the ΔE00
-    statistics, the error map when one is given, and the sweep plot, swatch
-    strip and table when a sweep is given (or the candidates table of a
-    fit over a range).  The page fetches nothing from a network and has no
-    script.  Images are written first and the page last, each atomically,
-    so a page never points at a missing file.
+    The folder receives one file, ``index.html``, with every image inside
+    it as a data URI: nothing beside it and nothing fetched from a network,
+    so the page can be mailed on its own.  Per image it shows a
+    before/after comparison with a draggable divider, the palette of the
+    size shown (swatch, hex, CIELAB, coverage, locked; a click on a swatch
+    shows where that colour is), a 1:1 view, and the ΔE00 statistics and
+    error map.  With a sweep, a size slider shows the image at every
+    palette size (a preview mapped with that size's palette) and the sizes
+    table gives each size's ΔE00 and its change; the settings that
+    produced the palettes are listed.  Several images on one palette add
+    the set's consistency (worst images, each colour's coverage per image).
 
     Parameters
     ----------
@@ -316,15 +317,20 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     palette : Palette, optional
         Default: the palette of the first ``mapped``.
     sweep : Sweep, optional
-        Adds the sweep plot, swatch strip and table.
+        Adds the size slider, the sweep plot, swatch strip and table.
     error_map_path : path or list of paths, optional
-        An error-map image per input, copied beside the page.
+        An error-map image per input, embedded in the page.
     title : str
         Page title.
     max_side : int or None, default=1600
-        Longest side of the images on the page (the result is scaled by
-        nearest neighbour, so its colours stay the palette's); None keeps
-        full size.
+        Longest side, px, of the original and the result embedded in the
+        page (the result is scaled by nearest neighbour, so its colours
+        stay the palette's); None embeds them at full size, so that 1:1
+        shows the file's own pixels.
+    preview_side : int, default=640
+        Longest side, px, of the preview of each other palette size.
+    worst : int, default=5
+        Worst-fitting images listed for a set.
     force : bool, default=False
         Replace an existing report in ``folder``.
 
@@ -336,11 +342,19 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     Raises
     ------
     OutputError
-        A file of the report exists and ``force`` is false, or the folder
-        cannot be written.
+        The page exists and ``force`` is false, or the folder cannot be
+        written.
     ValueError
-        Inputs and results differ in number or size, or an error map is
-        missing.
+        Inputs and results differ in number or size, an error map is
+        missing, or ``preview_side`` is below 16.
+
+    Notes
+    -----
+    What is embedded is bounded by ``max_side`` and ``preview_side``, not
+    by the image: a 12-megapixel photo swept over k = 2-16 at the defaults
+    gave a 1.8 MB page, 8.2 MB with ``max_side=None``
+    (docs/palette-per-size.md).  ΔE00 figures are from
+    file data, not a measured print; the page says so.
 
     Examples
     --------
@@ -351,14 +365,14 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     """
     from quantize.io.write import atomic_write_text
 
+    if int(preview_side) < 16:
+        raise ValueError(f"preview_side {preview_side}: expected at least 16 px")
     pics, results, maps = _report_inputs(original_picture, mapped, error_map_path)
     pal = palette if palette is not None else results[0].palette
     out = Path(folder)
-    suffix = (lambda i: "") if len(pics) == 1 else (lambda i: f"-{i + 1}")
-    files = _report_files(len(pics), maps, sweep is not None, suffix)
-    _make_report_folder(out, list(files) + [REPORT_PAGE], force)
-    sizes = _write_report_files(out, files, pics, results, maps, sweep, max_side, force)
-    page = _page(title, pics, results, pal, sweep, files, sizes, suffix)
+    _make_report_folder(out, [REPORT_PAGE], force)
+    page = _page(title, pics, results, pal, sweep, maps, max_side=max_side, preview_side=int(preview_side),
+                 worst=worst)
     return atomic_write_text(out / REPORT_PAGE, page, force=force)
 
 
@@ -385,19 +399,6 @@ def _report_inputs(original_picture, mapped, error_map_path):
     return pics, results, maps
 
 
-def _report_files(n: int, maps, with_sweep: bool, suffix) -> dict[str, tuple[str, int]]:
-    """File name -> (kind, input number) of every file the page shows, in the order they are written."""
-    files = {}
-    for i in range(n):
-        files[f"original{suffix(i)}.png"] = ("original", i)
-        files[f"result{suffix(i)}.png"] = ("result", i)
-        if maps:
-            files[f"error-map{suffix(i)}{Path(maps[i]).suffix.lower() or '.png'}"] = ("map", i)
-    if with_sweep:
-        files.update({"sweep.png": ("plot", 0), "swatches.png": ("strip", 0), "sweep.csv": ("csv", 0)})
-    return files
-
-
 def _make_report_folder(out: Path, names, force: bool) -> None:
     """Refuse before writing anything: a file in the way, or any file of the report unless ``force``."""
     from quantize.errors import OutputError
@@ -414,96 +415,79 @@ def _make_report_folder(out: Path, names, force: bool) -> None:
         raise OutputError(f"{out}: cannot create the report folder ({exc.strerror or exc})") from exc
 
 
-def _write_report_files(out: Path, files, pics, results, maps, sweep, max_side, force) -> list[tuple[int, int]]:
-    """Write the page's images (and the sweep table), each atomically; the displayed size of each input."""
-    from quantize.io.write import atomic_write_bytes
-
-    sizes = []
-    for name, (kind, i) in files.items():
-        target = out / name
-        if kind in ("original", "result"):
-            img, size = _display_image(pics[i] if kind == "original" else results[i], kind, max_side)
-            if kind == "original":
-                sizes.append(size)
-            atomic_write_bytes(target, _png(img), force=force)
-        elif kind == "map":
-            if Path(maps[i]).resolve() != target.resolve():
-                atomic_write_bytes(target, Path(maps[i]).read_bytes(), force=force)
-        elif kind == "plot":
-            plot_sweep(sweep, target, force=force)
-        elif kind == "strip":
-            save_swatches(sweep, target, force=force)
-        else:
-            sweep.save_csv(target, force=force)
-    return sizes
-
-
-def _display_image(item, kind: str, max_side):
-    """An original (Picture) or result (MappedImage) as a PIL image no longer than ``max_side``, and its size.
-
-    The original is scaled smoothly; the result by nearest neighbour, so
-    that its colours stay the palette's.
-    """
+def _error_map_uri(path) -> str:
+    """An error map as a data URI; a file type a browser may not show (TIFF) is re-encoded as PNG."""
     from PIL import Image
 
-    img = _rgb8_image(item) if kind == "original" else _result_image(item)
-    size = _fit_size(img.size, max_side)
-    if size != img.size:
-        img = img.resize(size, Image.Resampling.LANCZOS if kind == "original" else Image.Resampling.NEAREST)
-    return img, size
+    from .embed import data_uri
+
+    p = Path(path)
+    mime = {".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg"}.get(p.suffix.lower())
+    if mime:
+        return data_uri(p.read_bytes(), mime)
+    with Image.open(p) as im:
+        return data_uri(_png(im.convert("RGBA" if "A" in im.getbands() else "RGB")), "image/png")
 
 
-def _page(title, pics, results, pal, sweep, files, sizes, suffix) -> str:
+def _png(img) -> bytes:
+    buf = io.BytesIO()
+    img.save(buf, format="PNG")
+    return buf.getvalue()
+
+
+def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side) -> list[str]:
+    """Each image's review block, ΔE00 table and error map."""
+    from .review import review_block, size_views
+
     e = html.escape
-    parts = [f"<h1>{e(title)}</h1>",
-             '<p class="note">ΔE00 (CIEDE2000) figures are computed from file data on an assumed sRGB '
-             "display; they are not measurements of a print. Proof physically before a production run.</p>"]
-    fit = pal.fit
-    if fit is not None and fit.reason:
-        parts.append(f"<p>{pal.k} colours: {e(str(fit.reason))}</p>")
+    picks = {n: c.k for n, c in sweep.choices.items()} if sweep is not None else {}
+    parts = []
     for i, (p, r) in enumerate(zip(pics, results)):
-        w, h = sizes[i]
-        s = suffix(i)
-        parts.append(f"<h2>{e(p.source)}</h2>" if len(pics) > 1 else "<h2>Original and result</h2>")
-        parts.append(
-            '<div class="pair">'
-            f'<figure><img src="original{s}.png" width="{w}" height="{h}" alt="original image">'
-            f"<figcaption>Original: {e(p.source)}, {p.rgb.shape[1]}×{p.rgb.shape[0]} px, "
-            f"{p.bit_depth}-bit</figcaption></figure>"
-            f'<figure><img src="result{s}.png" width="{w}" height="{h}" alt="reduced image">'
-            f"<figcaption>Result: {r.palette.k} colours</figcaption></figure></div>")
+        views = size_views(p, r, sweep, max_side=max_side, preview_side=preview_side)
+        start = next(n for n, v in enumerate(views) if v.full)
+        heading = e(p.source) if len(pics) > 1 else "Original and result"
+        parts.append(review_block(p, views, start=start, picks=picks, max_side=max_side, heading=heading))
         de = r.delta_e
         rows = [["plain"] + [f"{de[k]:.2f}" for k in ("mean", "median", "p95", "max")]]
         if "filtered_mean" in de:
             rows.append(["filtered (S-CIELAB)"] + [f"{de['filtered_' + k]:.2f}" for k in ("mean", "median", "p95", "max")])
-        parts.append("<h3>ΔE00 per pixel</h3>" + _table(
+        parts.append(f"<h3>ΔE00 per pixel of the result ({r.palette.k} colours, full image)</h3>" + _table(
             ["ΔE00", "mean", "median", "95th percentile", "maximum"], rows))
-        maps = [name for name, (kind, j) in files.items() if kind == "map" and j == i]
         if maps:
-            parts.append(f'<h3>Error map</h3><img class="wide" src="{e(maps[0])}" alt="ΔE00 error map">')
+            parts.append(f'<h3>Error map</h3><img class="wide" src="{_error_map_uri(maps[i])}" alt="ΔE00 error map">')
+    return parts
 
-    head = ["colour", "#", "hex", "L*", "a*", "b*"]
-    head += ["coverage %"] if len(results) == 1 else [f"coverage % {e(p.source)}" for p in pics]
-    head += ["locked", "name"]
-    lab = pal.lab
-    rows = []
-    for j, hx in enumerate(pal.hex):
-        cov = [f"{r.coverage[j]:.2f}" if j < len(r.coverage) else "" for r in results]
-        rows.append([f'<span class="sw" style="background:{hx}"></span>', str(j), hx,
-                     f"{lab[j, 0]:.2f}", f"{lab[j, 1]:.2f}", f"{lab[j, 2]:.2f}", *cov,
-                     "locked" if pal.locked[j] else "", e(pal.names[j] or "")])
-    parts.append("<h2>Palette</h2>" + _table(head, rows, left=(0, 2, len(head) - 2, len(head) - 1)))
 
+def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, worst) -> str:
+    from .assets import SCRIPT
+    from .embed import data_uri
+    from .set_report import CAUTION, SetImage, html_document, set_section
+
+    e = html.escape
+    parts = [f"<h1>{e(title)}</h1>", CAUTION]
+    fit = pal.fit
+    if fit is not None and fit.reason:
+        parts.append(f"<p>{pal.k} colours: {e(str(fit.reason))}</p>")
+    parts.extend(_image_blocks(pics, results, sweep, maps, max_side=max_side, preview_side=preview_side))
+    if len(pics) > 1:
+        parts.append(set_section(pal, [SetImage(p.source, dict(r.delta_e), list(r.coverage))
+                                       for p, r in zip(pics, results)], worst=worst))
+    parts.append("<h2>Settings that produced it</h2>"
+                 + _table(["setting", "value"], [[e(a), e(b)] for a, b in _settings_rows(pal, sweep, results[0])],
+                          left=(0, 1)))
     if sweep is not None:
         parts.append("<h2>Palette size sweep</h2>")
-        parts.append('<img class="wide" src="sweep.png" alt="colour error and penalised score per palette size">')
-        parts.append('<img class="wide" src="swatches.png" alt="the palette at every size">')
-        parts.append(_candidates_table(sweep, sweep.chosen.k, {n: c.k for n, c in sweep.choices.items()}))
-        parts.append('<p class="note">Table as CSV: <a href="sweep.csv">sweep.csv</a></p>')
+        parts.append(_sizes_table(sweep, sweep.chosen.k, {n: c.k for n, c in sweep.choices.items()}))
+        parts.append(f'<img class="wide" src="{data_uri(_png_bytes_of(sweep_figure(sweep)), "image/png")}" '
+                     'alt="colour error and penalised score per palette size">')
+        strip = io.BytesIO()
+        swatch_strip(sweep).save(strip, format="PNG")
+        parts.append(f'<img class="wide" src="{data_uri(strip.getvalue(), "image/png")}" '
+                     'alt="the palette at every size">')
+        csv = data_uri(sweep.to_csv().encode("utf-8"), "text/csv")
+        parts.append(f'<p class="note">The table as CSV, with the raw k-means cost: '
+                     f'<a download="sweep.csv" href="{csv}">sweep.csv</a></p>')
     elif fit is not None and fit.candidates:
         parts.append("<h2>Palette sizes considered</h2>")
-        parts.append(_candidates_table(fit.candidates, fit.k, {fit.rule or "": fit.k}))
-    body = "\n".join(parts)
-    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
-            f"<title>{e(title)}</title>\n<link rel=\"icon\" href=\"data:,\">\n"
-            f"<style>{_CSS}</style>\n</head>\n<body>\n{body}\n</body>\n</html>\n")
+        parts.append(_sizes_table(fit.candidates, fit.k, {fit.rule or "": fit.k}))
+    return html_document(title, "\n".join(parts), script=SCRIPT)
