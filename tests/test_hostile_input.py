@@ -316,3 +316,54 @@ def test_parse_k_refuses_a_range_of_non_integers(k):
     # Was a TypeError from int(None), or "invalid literal for int()", naming no option.
     with pytest.raises(ValueError, match="palette size range must be two whole numbers"):
         parse_k(k)
+
+
+def _png_with_chunk_changed(src: Path, dst: Path, chunk: bytes, *, flip_crc=False, drop=False) -> None:
+    """Rewrite a PNG with one chunk's CRC flipped or the chunk dropped (ISO/IEC 15948:2004, 5.3: length,
+    type, data, CRC-32 of type and data)."""
+    import struct
+
+    data = bytearray(src.read_bytes())
+    i = data.find(chunk)
+    length = struct.unpack(">I", data[i - 4:i])[0]
+    if flip_crc:
+        data[i + 4 + length] ^= 0xFF
+    if drop:
+        del data[i - 4:i + 8 + length]
+    dst.write_bytes(bytes(data))
+
+
+def test_damaged_pngs_are_refused_naming_the_damage(tmp_path):
+    ok = tmp_path / "ok.png"
+    Image.fromarray(_art()).save(ok)
+    pal = tmp_path / "pal.png"
+    Image.fromarray(_art()).convert("P").save(pal)
+    _png_with_chunk_changed(ok, tmp_path / "crc.png", b"IDAT", flip_crc=True)
+    _png_with_chunk_changed(pal, tmp_path / "noplte.png", b"PLTE", drop=True)
+    (tmp_path / "cut.png").write_bytes(ok.read_bytes()[:-12])  # the IEND chunk cut off
+    frames = [Image.fromarray(_art(seed=s)) for s in range(3)]
+    frames[0].save(tmp_path / "anim.png", save_all=True, append_images=frames[1:])
+    (tmp_path / "anim-cut.png").write_bytes((tmp_path / "anim.png").read_bytes()[:-200])
+    for name, words in [("crc.png", "CRC"), ("noplte.png", "PLTE"), ("cut.png", "IEND"),
+                        ("anim-cut.png", "truncated")]:
+        res = CliRunner().invoke(main, ["reduce", str(tmp_path / name), "-o", str(tmp_path / f"o-{name}"), "-k", "2"])
+        assert res.exit_code == 1, (name, res.output)
+        line = res.output.strip().splitlines()[-1]
+        assert name in line and words in line, line
+        assert not (tmp_path / f"o-{name}").exists()
+    assert CliRunner().invoke(main, ["reduce", str(ok), "-o", str(tmp_path / "o.png"), "-k", "2"]).exit_code == 0
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="named pipes need a POSIX system")
+def test_a_named_pipe_is_refused_instead_of_blocking(tmp_path):
+    # Opening a FIFO with no writer blocks forever; it must be refused from its file type.
+    for name, args in [("in.png", ["reduce", "{}", "-o", str(tmp_path / "o.png"), "-k", "2"]),
+                       ("inks.csv", ["separate", str(tmp_path / "art.png"), "-o", str(tmp_path / "s"), "--inks", "{}",
+                                     "-n", "1"])]:
+        Image.fromarray(_art()).save(tmp_path / "art.png")
+        fifo = tmp_path / name
+        os.mkfifo(fifo)
+        cmd = [sys.executable, "-m", "quantize"] + [a.format(fifo) for a in args]
+        res = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+        assert res.returncode == 1, res.stderr
+        assert name in res.stderr and "regular file" in res.stderr and "Traceback" not in res.stderr

@@ -75,3 +75,43 @@ def exif_orientation(img: Image.Image, name: str, notes: list[_Note]) -> int:
 def to_8bit(a: np.ndarray) -> np.ndarray:
     """uint16 codes -> nearest uint8 codes (v / 257, rounded)."""
     return ((a.astype(np.uint32) * 255 + 32767) // 65535).astype(np.uint8)
+
+
+def check_png_chunks(path: Path, name: str) -> None:
+    """Refuse a PNG whose chunks are damaged: a CRC that does not match, a palette image without its
+    palette (PLTE), or a file that ends before its IEND chunk (truncated, also mid-animation).
+
+    Pillow reads past each of these without a word (ISO/IEC 15948:2004 sections 5.3, 11.2.2, 11.2.5:
+    every chunk carries a CRC-32 of its type and data; colour type 3 requires PLTE; IEND ends the file).
+    """
+    with open(path, "rb") as fh:
+        fh.seek(8)
+        colour_type, seen_plte = None, False
+        while True:
+            head = fh.read(8)
+            if len(head) < 8:
+                raise ImageReadError(f"{name}: PNG ends before its IEND chunk (truncated or damaged)")
+            length, ctype = struct.unpack(">I4s", head)
+            if length > 2**31 - 1:
+                raise ImageReadError(f"{name}: PNG chunk {ctype!r} has an impossible length (damaged file)")
+            crc = zlib.crc32(ctype)
+            left = length
+            while left:
+                part = fh.read(min(left, 1 << 20))
+                if not part:
+                    raise ImageReadError(f"{name}: PNG ends inside its {ctype.decode('latin-1')} chunk "
+                                         "(truncated or damaged)")
+                crc = zlib.crc32(part, crc)
+                if ctype == b"IHDR" and colour_type is None and len(part) >= 10:
+                    colour_type = part[9]
+                left -= len(part)
+            stored = fh.read(4)
+            if len(stored) < 4 or struct.unpack(">I", stored)[0] != crc:
+                raise ImageReadError(f"{name}: PNG chunk {ctype.decode('latin-1')} fails its CRC check "
+                                     "(damaged file)")
+            if ctype == b"PLTE":
+                seen_plte = True
+            elif ctype == b"IDAT" and colour_type == 3 and not seen_plte:
+                raise ImageReadError(f"{name}: palette PNG without its palette (no PLTE chunk before the image data)")
+            elif ctype == b"IEND":
+                return

@@ -61,6 +61,7 @@ from quantize.io._decode import (
     DECODE_ERRORS,
     PNG16_RAWMODE,
     check_pixels,
+    check_png_chunks,
     dpi_pair,
     exif_orientation,
     open_pil,
@@ -69,6 +70,7 @@ from quantize.io._decode import (
 from quantize.io._icc import convert_8bit, convert_deep
 
 __all__ = [
+    "check_regular_file",
     "DEFAULT_MAX_PIXELS",
     "ImageWarning",
     "Picture",
@@ -246,6 +248,7 @@ def _file_head(path: PathLike, max_pixels: int | None) -> tuple[str, Path, bytes
         raise ImageReadError(f"{name}: is a folder, not an image file")
     if not p.exists():
         raise ImageReadError(f"{name}: no such file")
+    check_regular_file(p, name)
     try:
         with open(p, "rb") as fh:
             head = fh.read(32)
@@ -254,6 +257,27 @@ def _file_head(path: PathLike, max_pixels: int | None) -> tuple[str, Path, bytes
     if not head:
         raise ImageReadError(f"{name}: file is empty (0 bytes)")
     return name, p, head
+
+
+def check_regular_file(path: PathLike, name: str | None = None) -> None:
+    """Refuse a path that is not a regular file (a named pipe, device or socket would block or never end).
+
+    Raises
+    ------
+    ImageReadError
+        Naming the file and what it is.
+    """
+    import stat
+
+    name = os.fspath(path) if name is None else name
+    try:
+        mode = os.stat(path).st_mode
+    except OSError as exc:
+        raise ImageReadError(f"{name}: cannot read the file ({exc.strerror or exc})") from exc
+    if not stat.S_ISREG(mode):
+        kind = ("a named pipe" if stat.S_ISFIFO(mode) else "a device" if stat.S_ISCHR(mode) or stat.S_ISBLK(mode)
+                else "a socket" if stat.S_ISSOCK(mode) else "a folder" if stat.S_ISDIR(mode) else "not a file")
+        raise ImageReadError(f"{name}: is {kind}, not a regular file")
 
 
 def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -> tuple[int, int]:
@@ -288,6 +312,8 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
 
     notes: list[_Note] = []
     with _decode_errors(name):
+        if head[:8] == _PNG_SIGNATURE:
+            check_png_chunks(p, name)
         deep = None
         if head[:8] == _PNG_SIGNATURE and head[12:16] == b"IHDR" and head[24] == 16 and head[25] in PNG16_RAWMODE:
             deep = _deep.read_png16(p, name, head[25], max_pixels, notes)

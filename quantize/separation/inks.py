@@ -52,6 +52,9 @@ __all__ = [
     "load_ink_library", "parse_ink_library", "adapt_lab", "bradford_matrix",
 ]
 
+#: Largest ink library file read: a measured library of thousands of inks is well under 1 MB.
+MAX_LIBRARY_BYTES = 16_000_000
+
 _HEX = re.compile(r"^#?([0-9a-fA-F]{6})$")
 # A CGATS token: a double-quoted string (may hold spaces) or a run of non-blanks.
 _CGATS_TOKEN = re.compile(r'"((?:[^"]|"")*)"|(\S+)')
@@ -194,6 +197,14 @@ def load_ink_library(path, *, illuminant: str | None = None) -> InkLibrary:
     """
     p = Path(path)
     try:
+        import stat
+
+        st = p.stat()
+        if not stat.S_ISREG(st.st_mode) and not stat.S_ISDIR(st.st_mode):
+            raise InkLibraryError(f"{p}: is not a regular file (a pipe, device or socket); give an ink library file")
+        if st.st_size > MAX_LIBRARY_BYTES:
+            raise InkLibraryError(f"{p}: {st.st_size / 1e6:.0f} MB is larger than an ink library may be "
+                                  f"({MAX_LIBRARY_BYTES / 1e6:.0f} MB)")
         raw = p.read_bytes()
     except FileNotFoundError:
         raise InkLibraryError(f"{p}: no such ink library file") from None
