@@ -172,7 +172,7 @@ def test_unwritable_or_missing_output_folder(art, tmp_path):
     (["-k", "2-\u00b9\u00b2"], "is not N or MIN-MAX"),  # superscript digits
     (["--space", "hsv"], "hsv"),
     (["--rule", "target"], "--target"),
-    (["--lock", "purple"], "purple"),
+    (["--lock", "purplish"], "purplish"),
 ])
 def test_bad_option_values(art, tmp_path, args, words):
     r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "o.png"), *args])
@@ -300,7 +300,7 @@ def test_target_stat_p95_and_pixel_limit(art, tmp_path):
 @pytest.mark.parametrize("args, settings, code", [
     (["--restarts", "0"], dict(restarts=0), 2),
     (["--seed", "-1"], dict(seed=-1), 1),
-    (["--lock", "purple"], dict(locked=["purple"]), 1),
+    (["--lock", "purplish"], dict(locked=["purplish"]), 1),
     (["--lock", "#000000", "--lock", "000000"], dict(locked=["#000000", "000000"]), 1),
 ])
 @pytest.mark.parametrize("command", ["reduce", "fit", "sweep"])

@@ -13,7 +13,6 @@ from ._common import (
     _check_outputs,
     _emit,
     _Failure,
-    _metric,
     _palette_rows,
     _print_de,
     _print_palette,
@@ -73,7 +72,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                 try:
                     # The one decode of this input: mapping, ΔE figures, error map and report share it.
                     pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
-                    res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(nearest))
+                    res = pal.apply(pic, **dopts.apply_kwargs(), nearest=nearest)
                     res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=inputs,
                                                              error_map_path=emap)
                     res.save(out, force=force, inputs=inputs)

@@ -7,7 +7,7 @@ library is imported inside the functions.  Use::
     def reduce(ctx, ..., **opts):
         choice = pop_dither_options(opts)          # before the other options are read
         pic = load_image(image)                    # the one decode of the input
-        res = pal.apply(pic, **choice.apply_kwargs(), metric=...)
+        res = pal.apply(pic, **choice.apply_kwargs(), nearest=...)
         res, extra, lines = run_dither_outputs(pic, res, choice, force=force, inputs=[image])
         summary.update(extra)                      # JSON: dither, delta_e_filtered, viewing, error_map
         for line in lines: click.echo(line)        # human summary
@@ -56,7 +56,7 @@ class DitherChoice:
 
     def apply_kwargs(self) -> dict:
         """Keyword arguments for ``Palette.apply`` / ``map_picture``."""
-        return {"dither": self.dither, "strength": self.strength, "serpentine": self.serpentine}
+        return {"dither": self.dither, "dither_strength": self.strength, "serpentine": self.serpentine}
 
 
 #: The defaults of every option: the command line's and pop_dither_options' one source.
