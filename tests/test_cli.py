@@ -342,3 +342,48 @@ def test_the_command_line_lists_the_names_the_library_knows():
 
     assert set(SPACE_NAMES) == set(SPACES)
     assert set(SEEDINGS) == set(INITS)
+
+
+# -- one option set -------------------------------------------------------------------------------
+
+def _params(command) -> dict:
+    return {p.name: p for p in main.commands[command].params}
+
+
+def _same(a, b) -> bool:
+    return (a.opts, a.secondary_opts, a.default, getattr(a.type, "choices", None), a.multiple, a.help) == \
+        (b.opts, b.secondary_opts, b.default, getattr(b.type, "choices", None), b.multiple, b.help)
+
+
+def test_reduces_options_work_in_every_command_where_they_make_sense():
+    from quantize.cli._common import _fit_option_list
+
+    fitting = set(_fit_option_list())
+    mapping = {"nearest", "dither", "dither_strength", "serpentine"}
+    reduce = _params("reduce")
+    wanted = {"fit": fitting, "batch": fitting | mapping, "sweep": fitting - {"colours", "max_pixels"},
+              "apply": mapping | {"view_dpi", "view_distance", "error_map", "error_map_kind"}}
+    for command, names in wanted.items():
+        got = _params(command)
+        missing = names - set(got)
+        assert not missing, f"{command} lacks {sorted(missing)}"
+        for n in names:  # one definition: the same flags, choices, default and help as reduce's
+            assert _same(got[n], reduce[n]), f"{command} --{n} differs from reduce's"
+
+
+def test_sweep_takes_seeding_nearest_and_css_locks(art, tmp_path):
+    table = tmp_path / "t.json"
+    r = run("sweep", art, "-k", "3-4", "--restarts", "1", "--seeding", "farthest", "--nearest", "space",
+            "--lock", "#fff", "--table-json", table)
+    assert r.exit_code == 0, r.output
+    s = json.loads(table.read_text())["settings"]
+    assert (s["init"], s["metric"], s["locked"]) == ("farthest", "space", ["#ffffff"])
+
+
+def test_batch_defaults_to_the_library_size_range(art, tmp_path):
+    from quantize.fit.settings import DEFAULT_K
+
+    out = tmp_path / "out"
+    r = run("batch", art.parent, "-o", out, "--exclude", "out", "--workers", "0", "--restarts", "1")
+    assert r.exit_code == 0, r.output
+    assert Palette.load(out / "art.palette.json").fit.k_requested == DEFAULT_K

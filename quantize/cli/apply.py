@@ -9,10 +9,10 @@ from pathlib import Path
 import click
 
 from ._common import (
-    NEAREST,
     _check_outputs,
     _emit,
     _Failure,
+    _nearest_option,
     _palette_rows,
     _print_de,
     _print_palette,
@@ -31,9 +31,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
               help="Folder for the reduced images (created if missing).")
 @click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
               help="Output file type: indexed PNG, RGB TIFF or JPEG.")
-@click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
-              help="Map pixels by ΔE00 or by distance in the palette's space; auto: ΔE00, "
-                   "or the space's distance when dithering.")
+@_nearest_option
 @click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
 @dither_options
 @_report_option

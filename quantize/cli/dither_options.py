@@ -1,4 +1,4 @@
-"""Command-line options of the dithering stage, for ``reduce`` and ``apply``.
+"""Command-line options of the dithering stage, for ``reduce``, ``apply`` and ``batch``.
 
 Only click is imported at the top, so ``quantize --help`` stays fast; the
 library is imported inside the functions.  Use::
@@ -25,6 +25,7 @@ from quantize.render.methods import DITHERS
 __all__ = [
     "DITHER_NAMES",
     "DitherChoice",
+    "dither_method_options",
     "dither_options",
     "error_map_paths",
     "pop_dither_options",
@@ -74,16 +75,29 @@ def _check(choice: DitherChoice) -> DitherChoice:
     return choice
 
 
-def dither_options(f):
-    """Decorator adding --dither, --dither-strength, --serpentine/--raster,
-    --view-dpi, --view-distance, --error-map and --error-map-kind."""
-    opts = [
+def _method_options() -> list:
+    return [
         click.option("--dither", type=click.Choice(DITHER_NAMES, case_sensitive=False), default=_DEFAULT.dither,
                      show_default=True, help="Dithering method (error diffusion, ordered or clustered-dot)."),
         click.option("--dither-strength", type=click.FloatRange(0.0, 1.0), default=_DEFAULT.strength, show_default=True,
                      help="Share of the dither, 0 (none) to 1 (full)."),
         click.option("--serpentine/--raster", default=_DEFAULT.serpentine, show_default=True,
                      help="Error diffusion scans alternate rows backwards, or every row left to right."),
+    ]
+
+
+def dither_method_options(f):
+    """Decorator adding --dither, --dither-strength and --serpentine/--raster only: for commands
+    (``batch``) that write no per-image viewing report or error map."""
+    for opt in reversed(_method_options()):
+        f = opt(f)
+    return f
+
+
+def dither_options(f):
+    """Decorator adding --dither, --dither-strength, --serpentine/--raster,
+    --view-dpi, --view-distance, --error-map and --error-map-kind."""
+    opts = _method_options() + [
         click.option("--view-dpi", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="DPI",
                      help="Output resolution for the filtered (S-CIELAB) ΔE00 report."),
         click.option("--view-distance", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="MM",
