@@ -361,8 +361,8 @@ def test_reduces_options_work_in_every_command_where_they_make_sense():
     fitting = set(_fit_option_list())
     mapping = {"nearest", "dither", "dither_strength", "serpentine"}
     reduce = _params("reduce")
-    wanted = {"fit": fitting, "batch": fitting | mapping, "sweep": fitting - {"colours", "max_pixels"},
-              "apply": mapping | {"view_dpi", "view_distance", "error_map", "error_map_kind"}}
+    wanted = {"fit": fitting, "batch": fitting | mapping, "sweep": fitting - {"colours"},
+              "apply": mapping | {"max_pixels", "view_dpi", "view_distance", "error_map", "error_map_kind"}}
     for command, names in wanted.items():
         got = _params(command)
         missing = names - set(got)
@@ -387,3 +387,15 @@ def test_batch_defaults_to_the_library_size_range(art, tmp_path):
     r = run("batch", art.parent, "-o", out, "--exclude", "out", "--workers", "0", "--restarts", "1")
     assert r.exit_code == 0, r.output
     assert Palette.load(out / "art.palette.json").fit.k_requested == DEFAULT_K
+
+
+@pytest.mark.parametrize("method, says, never", [
+    ("bayer4", "threshold matrix", ("serpentine", "raster", "error in")),
+    ("floyd-steinberg", "serpentine (error in linear light)", ("threshold",)),
+])
+def test_the_dither_line_describes_the_method_it_ran(art, tmp_path, method, says, never):
+    # Ordered dithers have no scan order and diffuse no error: their summary line once said both.
+    r = run("reduce", art, "-o", tmp_path / "o.png", "-k", "4", "--restarts", "1", "--dither", method)
+    assert r.exit_code == 0, r.output
+    line = next(x for x in r.stdout.splitlines() if x.startswith("dither:"))
+    assert says in line and not any(w in line for w in never)

@@ -386,9 +386,19 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     k : int or "min-max", optional
         Palette size, or the range the rule chooses from.  Default: the
         library's (2-12; a photo under the automatic rule, up to 256).
+    fit : FitSettings, optional
+        The rest of the fit (rule, ΔE00 target, locked colours, seeding, ...),
+        as :func:`quantize.fit.engine.fit_palette` takes it.
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
     seed : int, default=0
     restarts : int, default=8
+        When given, these three replace the same fields of ``fit``.
+    dither : str, default="none"
+    dither_strength : float, default=1.0
+    serpentine : bool, default=True
+    nearest : {"auto", "ciede2000", "space"}, default="auto"
+        How each image is mapped, as :meth:`quantize.palette.Palette.apply`
+        takes it.
     fmt : {"png", "tif", "jpg"}, default="png"
         Output file type.
     workers : int, optional
@@ -436,6 +446,8 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     Examples
     --------
     >>> res = run_batch("photos", "out", shared=True, k=8)  # doctest: +SKIP
+    >>> brand = FitSettings(locked=["#c8102e", "white"])  # doctest: +SKIP
+    >>> res = run_batch("packs", "out", k="2-12", fit=brand, dither="blue-noise")  # doctest: +SKIP
     >>> res.summary["failed"], res.manifest["palette_report"]["worst"][0]["input"]  # doctest: +SKIP
     """
     s = _settings(settings, options)

@@ -82,6 +82,11 @@ def _nearest_option(f):
                         help=_NEAREST_HELP)(f)
 
 
+def _max_pixels_option(f):
+    """--max-pixels alone, for commands that fit nothing (``apply``)."""
+    return _fit_option_list()["max_pixels"](f)
+
+
 def _fit_option_list() -> dict:
     """Every fitting option, by its parameter name: the one definition the commands share."""
     return {

@@ -12,6 +12,7 @@ from ._common import (
     _check_outputs,
     _emit,
     _Failure,
+    _max_pixels_option,
     _nearest_option,
     _palette_rows,
     _print_de,
@@ -32,7 +33,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @click.option("--format", "fmt", type=click.Choice(("png", "tif", "jpg")), default="png", show_default=True,
               help="Output file type: indexed PNG, RGB TIFF or JPEG.")
 @_nearest_option
-@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@_max_pixels_option
 @dither_options
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")

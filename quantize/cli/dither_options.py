@@ -180,9 +180,12 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
                           "serpentine": choice.serpentine}, "delta_e_filtered": None, "viewing": None,
                "error_map": None}
     lines = []
-    if choice.dither != "none":
+    kind = DITHERS[choice.dither].kind
+    if kind == "diffusion":  # only error diffusion scans rows; an ordered dither has no scan order
         scan = ", serpentine" if choice.serpentine else ", raster"
         lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
+    elif kind != "none":
+        lines.append(f"dither: {choice.dither} at strength {choice.strength:g} (threshold matrix, two colours mixed in linear light)")
     filtered = None  # the filtered ΔE00 map: measured once, for the statistics and the error map
     if choice.viewing:
         from quantize.quality.perception import delta_e_map, with_filtered_delta_e

@@ -49,13 +49,12 @@ def _decoded(images, max_pixels) -> list:
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
 @click.option("-k", "--colours", "ks", default=DEFAULT_K_TEXT, show_default=True, callback=_range_option,
               metavar="MIN-MAX", help="Palette sizes to sweep, inclusive (at most 64).")
-@_fit_options(skip=("colours", "max_pixels"))
+@_fit_options(skip=("colours",))
 @click.option("--warm/--cold", default=False, show_default=True,
               help="Also start each size from the one before (the cost then never rises with the size, "
                    "but a row depends on the rows before it); --cold: each size on its own, as reduce fits it.")
 @click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="Pooled images count equally, or by their pixel count.")
-@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
 @click.option("--table-csv", type=click.Path(dir_okay=False), default=None, help="Write the table as CSV.")
 @click.option("--table-json", type=click.Path(dir_okay=False), default=None, help="Write the table as JSON.")
 @click.option("--plot", type=click.Path(dir_okay=False), default=None, callback=_png_path,
