@@ -643,7 +643,8 @@ def test_workers_rebuild_the_fit_and_the_dither(tmp_path):
     assert _outputs(tmp_path / "here") != _outputs(tmp_path / "pool")
 
 
-def test_batch_settings_carry_one_fit_settings():
+def test_batch_settings_carry_one_fit_settings(tmp_path):
+    from quantize.batch.run import _settings
     from quantize.fit.settings import FitSettings
 
     s = BatchSettings(space="oklab", fit=FitSettings(rule="bic", restarts=3))
@@ -659,3 +660,17 @@ def test_batch_settings_carry_one_fit_settings():
             BatchSettings(**bad)
     with pytest.raises(TypeError, match="FitSettings"):
         BatchSettings(fit={"rule": "bic"})
+    # run_batch(settings, fit=...): the new fit's space, seed and restarts, not the old settings' copies.
+    assert _settings(BatchSettings(), {"fit": FitSettings(space="oklab", seed=4)}).fit.space == "oklab"
+    assert _settings(BatchSettings(), {"fit": FitSettings(seed=4), "space": "cam16ucs"}).fit == \
+        FitSettings(seed=4, space="cam16ucs")
+
+
+def test_batch_weighting_has_fit_and_sweeps_name(tmp_path):
+    src = _set(tmp_path, n=2)
+    for flag in ("--weighting", "--shared-weighting"):
+        out = tmp_path / flag.strip("-")
+        r = CliRunner().invoke(batch, [str(src), "-o", str(out), "--shared", "-k", "2", "--restarts", "1",
+                                       "--workers", "0", flag, "pixels"])
+        assert r.exit_code == 0, r.output
+        assert _manifest(out)["settings"]["weighting"] == "pixels"

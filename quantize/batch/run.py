@@ -343,6 +343,8 @@ def _settings(settings: BatchSettings | None, options: dict) -> BatchSettings:
         return BatchSettings(**options)
     if not isinstance(settings, BatchSettings):
         raise TypeError(f"settings must be a BatchSettings, got {type(settings).__name__}")
+    if "fit" in options:  # a new fit brings its own space, seed and restarts unless given beside it
+        options = {**{n: None for n in ("space", "seed", "restarts")}, **options}
     return dataclasses.replace(settings, **options) if options else settings
 
 

@@ -56,7 +56,11 @@ class BatchSettings:
         How palettes are fitted, per image or for the shared palette: the
         rule, ΔE00 target, locked colours, seeding and the rest, exactly as
         ``fit_palette`` and ``reduce`` take them (default: the defaults).
-        After construction ``fit`` always holds the run's fit settings.
+        After construction ``fit`` always holds the run's fit settings and
+        ``space``, ``seed`` and ``restarts`` repeat its values (so
+        :func:`dataclasses.replace` with a new ``fit`` alone keeps the old
+        three: give them as None to take the new fit's; ``run_batch(settings,
+        fit=...)`` does so).
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
         Space the palettes are fitted in; when given, replaces ``fit.space``.
     seed : int, default=0

@@ -61,8 +61,10 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--palette", "palette_file", type=click.Path(dir_okay=False), default=None,
               help="Map every image onto this saved palette instead of fitting.")
 @click.option("--shared", is_flag=True, help="Fit one palette to the whole set and map every image onto it.")
-@click.option("--shared-weighting", type=click.Choice(WEIGHTINGS), default=WEIGHTINGS[0], show_default=True,
-              help="In the shared fit, each image counts equally or by its pixel count.")
+@click.option("--weighting", "--shared-weighting", "shared_weighting", type=click.Choice(WEIGHTINGS),
+              default=WEIGHTINGS[0], show_default=True,
+              help="In the shared fit, each image counts equally or by its pixel count (as fit's and sweep's "
+                   "--weighting; --shared-weighting is the older name).")
 @_fit_options
 @dither_method_options
 @click.option("--format", "fmt", type=click.Choice(FORMATS), default=FORMATS[0], show_default=True,
