@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import re
+import warnings
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from collections.abc import Mapping
@@ -36,21 +37,28 @@ import numpy as np
 
 from quantize.errors import PaletteFileError
 
-__all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
+__all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION",
+           "RENAMED_KEYWORDS", "renamed_keywords"]
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
 _HEX = re.compile(r"^#?([0-9a-fA-F]{6})\Z")  # \Z: "$" would let a trailing newline through
+#: The short form needs its "#": three bare letters read more like a word than a colour.
+_HEX3 = re.compile(r"^#([0-9a-fA-F]{3})\Z")
+_ASCII_LOWER = str.maketrans("ABCDEFGHIJKLMNOPQRSTUVWXYZ", "abcdefghijklmnopqrstuvwxyz")
+_FORMS = "sRGB hex (#rgb or #rrggbb), L,a,b nor a CSS colour name"
 
 
 def parse_colour(spec) -> np.ndarray:
-    """A colour given as sRGB hex (``"#c8102e"``) or CIELAB (``"53.2,80.1,67.2"``).
+    """A colour given as sRGB hex, CIELAB or a CSS colour name.
 
     Parameters
     ----------
     spec : str or sequence of 3 numbers
-        Hex with or without ``#``; or L*, a*, b* as a comma-separated string
-        or a 3-sequence (L* 0-100).
+        ``"#rrggbb"`` (the ``#`` may be left out), ``"#rgb"`` (each digit
+        doubled, as CSS reads it), L*, a*, b* as a comma-separated string or
+        a 3-sequence (L* 0-100), or one of the 148 named colours of CSS
+        Color Module Level 4 (``"rebeccapurple"``, any letter case).
 
     Returns
     -------
@@ -60,12 +68,25 @@ def parse_colour(spec) -> np.ndarray:
     Raises
     ------
     ValueError
-        The text is neither form, or L* is outside 0-100.
+        The text is none of these forms, or L* is outside 0-100.
+
+    Examples
+    --------
+    >>> parse_colour("#fa0").tolist(), parse_colour("Teal").tolist()
+    ([255, 170, 0], [0, 128, 128])
     """
     from quantize.colour.spaces import clip_to_gamut, lab_to_srgb
 
     if isinstance(spec, str):
-        m = _HEX.match(spec.strip())
+        from quantize.colour.css_names import CSS_COLOURS
+
+        text = spec.strip()
+        m = _HEX3.match(text)
+        if m:
+            text = "#" + "".join(2 * d for d in m.group(1))
+        # CSS names are ASCII case-insensitive; str.lower would also fold other scripts.
+        named = CSS_COLOURS.get(text.translate(_ASCII_LOWER))
+        m = _HEX.match(named or text)
         if m:
             h = m.group(1)
             return np.array([int(h[i:i + 2], 16) for i in (0, 2, 4)], dtype=np.uint8)
@@ -75,18 +96,64 @@ def parse_colour(spec) -> np.ndarray:
         except ValueError:
             lab = []
         if len(lab) != 3:
-            raise ValueError(f"colour {spec!r} is neither sRGB hex (#rrggbb) nor L,a,b")
+            raise ValueError(f"colour {spec!r} is neither {_FORMS}")
     else:
         try:
             lab = [float(v) for v in spec]
         except (TypeError, ValueError):
-            raise ValueError(f"colour {spec!r} is neither sRGB hex (#rrggbb) nor L,a,b") from None
+            raise ValueError(f"colour {spec!r} is neither {_FORMS}") from None
         if len(lab) != 3:
             raise ValueError(f"colour {spec!r} must have 3 components (L, a, b)")
     if not 0 <= lab[0] <= 100 or not all(np.isfinite(lab)):
         raise ValueError(f"colour {spec!r}: L* must be within 0-100")
     rgb = clip_to_gamut(lab_to_srgb(np.array(lab)))
     return np.round(rgb * 255).astype(np.uint8)
+
+
+#: Library keywords renamed to the command line's option names: old name -> new name
+#: (``init`` -> ``seeding`` as ``--seeding``, and so on).  The old names still work, with a
+#: DeprecationWarning.
+RENAMED_KEYWORDS = {"init": "seeding", "metric": "nearest", "strength": "dither_strength"}
+
+
+def renamed_keywords(options: Mapping, where: str, old_names, *, stacklevel: int = 3) -> dict:
+    """``options`` with each old keyword of ``old_names`` under its new name (see :data:`RENAMED_KEYWORDS`).
+
+    Each old keyword found is warned about with a :class:`DeprecationWarning`
+    (through :func:`warnings.warn`; filters are the caller's business).
+    ``nearest="auto"``, the command line's default, becomes None, which
+    every function reads as "the default metric".
+
+    Parameters
+    ----------
+    options : mapping
+        Keyword arguments as the caller gave them.
+    where : str
+        The public function's name, for the messages.
+    old_names : iterable of str
+        The old names this function still accepts.
+    stacklevel : int, default=3
+        Points the warning at the caller of the public function that calls this.
+
+    Raises
+    ------
+    TypeError
+        An old name given together with its new one.
+    """
+    out = dict(options)
+    for old in old_names:
+        if old not in out:
+            continue
+        new = RENAMED_KEYWORDS[old]
+        if new in out:
+            raise TypeError(f"{where}() got both {old!r} and its new name {new!r}; give {new!r} only")
+        warnings.warn(f"{where}(): the keyword {old!r} is now {new!r}, as the command line's "
+                      f"--{new.replace('_', '-')}; {old!r} will be removed", DeprecationWarning,
+                      stacklevel=stacklevel)
+        out[new] = out.pop(old)
+    if out.get("nearest") == "auto":
+        out["nearest"] = None
+    return out
 
 
 @dataclass(frozen=True)
@@ -354,8 +421,12 @@ class Palette:
 
         return srgb8_to_space(self.rgb8, space or self.space)
 
-    def apply(self, image, *, dither: str = "none", metric: str | None = None, **options):
+    def apply(self, image, *, dither: str = "none", nearest: str | None = None, dither_strength: float = 1.0,
+              serpentine: bool = True, max_pixels=None, sample=None, **deprecated):
         """Map an image onto this palette (out-of-sample, no refit).
+
+        The keywords are named as the command line's options (``--nearest``,
+        ``--dither-strength``, ...).
 
         Parameters
         ----------
@@ -364,22 +435,49 @@ class Palette:
         dither : str, default="none"
             Dithering method; ``"none"`` maps every pixel to its nearest
             colour.
-        metric : {"ciede2000", "space"}, optional
+        nearest : {"ciede2000", "space", "auto"}, optional
             Nearest by CIEDE2000, or by Euclidean distance in the palette's
-            space.  Default: CIEDE2000 without dithering, the space's
-            distance with it.
-        **options
-            Passed to :func:`quantize.render.mapping.map_picture`.
+            space.  Default (None or ``"auto"``): CIEDE2000 without
+            dithering, the space's distance with it.
+        dither_strength : float, default=1.0
+            Share of the dither, 0 (none) to 1 (full); ignored without dithering.
+        serpentine : bool, default=True
+            Error diffusion scans alternate rows backwards.
+        max_pixels : int, optional
+            Decompression-bomb limit when ``image`` is a path.
+        sample : ColourSample, optional
+            This image's colour sample, if the caller has it
+            (:func:`quantize.render.mapping.map_picture`).
+        **deprecated
+            ``metric`` (now ``nearest``) and ``strength`` (now
+            ``dither_strength``): still accepted, with a DeprecationWarning.
+            Other keywords go to :func:`quantize.render.mapping.map_picture`.
 
         Returns
         -------
         MappedImage
             ``.indices``, ``.rgb``, ``.delta_e`` (mean, median, p95, max ΔE00)
             and ``.coverage`` (percent per colour).
+
+        Raises
+        ------
+        TypeError
+            An unknown keyword, or an old name given with its new one.
         """
         from quantize.render.mapping import map_picture
 
-        return map_picture(image, self, dither=dither, metric=metric, **options)
+        for old_name, new_name, given in (("metric", "nearest", nearest is not None),
+                                          ("strength", "dither_strength", dither_strength != 1.0)):
+            if old_name in deprecated and given:
+                raise TypeError(f"Palette.apply() got both {old_name!r} and its new name {new_name!r}; "
+                                f"give {new_name!r} only")
+        old = renamed_keywords(deprecated, "Palette.apply", ("metric", "strength"))
+        nearest = old.pop("nearest", nearest)
+        dither_strength = old.pop("dither_strength", dither_strength)
+        # Anything else is map_picture's to accept or refuse.
+        return map_picture(image, self, dither=dither, metric=None if nearest == "auto" else nearest,
+                           strength=dither_strength, serpentine=serpentine, max_pixels=max_pixels, sample=sample,
+                           **old)
 
     # -- JSON -------------------------------------------------------------
 

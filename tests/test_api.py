@@ -54,3 +54,68 @@ def test_ci_tests_the_installed_package_not_the_checkout():
     # The checkout's own package folder, not a copy installed (in a venv that may sit inside the checkout).
     assert Path(quantize.__file__).resolve().parent != checkout / "quantize"
     assert "site-packages" in Path(quantize.__file__).resolve().parts
+
+
+# -- one vocabulary: the library's keywords are the command line's option names ------------------
+
+def _picture():
+    import numpy as np
+
+    rgb = np.zeros((12, 12, 3), np.uint8)
+    rgb[:, 6:] = (200, 30, 40)
+    rgb[:4] = (250, 240, 220)
+    rgb[8:, :3] = (20, 60, 160)
+    return rgb
+
+
+def test_reduce_options_are_library_keywords():
+    """Every fitting, mapping and dithering option of ``reduce`` is a keyword of fit_palette or Palette.apply."""
+    from quantize.cli.reduce import reduce
+
+    fit_words = {f.name for f in dataclasses.fields(quantize.FitSettings)} - {"init", "metric"} | {"seeding", "nearest"}
+    fit_words |= set(inspect.signature(quantize.fit_palette).parameters)
+    apply_words = set(inspect.signature(quantize.Palette.apply).parameters)
+    cli_only = {"output", "force", "json", "report", "keep_palette", "view_dpi", "view_distance", "error_map",
+                "error_map_kind", "help"}
+    # The two spelled apart: -k/--colours is the positional k, --lock (one colour each time) is locked.
+    known = {"colours": "k", "lock": "locked", "serpentine": "serpentine"}
+    for p in reduce.params:
+        longs = [o for o in p.opts + p.secondary_opts if o.startswith("--")]
+        if not longs:
+            continue
+        name = longs[0][2:].replace("-", "_")
+        if name in cli_only:
+            continue
+        word = known.get(name, name)
+        assert word in fit_words or word in apply_words, f"--{name} has no library keyword {word!r}"
+
+
+def test_new_keywords_equal_the_old_ones_which_warn():
+    import warnings
+
+    import numpy as np
+
+    img = _picture()
+    filters = list(warnings.filters)
+    new = quantize.fit_palette(img, 3, seeding="random", nearest="space", restarts=2)
+    with pytest.warns(DeprecationWarning, match="'init' is now 'seeding'"):
+        old = quantize.fit_palette(img, 3, init="random", metric="space", restarts=2)
+    assert new.hex == old.hex and new.fit.init == "random" and new.fit.metric == "space"
+    with pytest.warns(DeprecationWarning, match="'metric' is now 'nearest'"):
+        quantize.sweep(img, (2, 3), metric="space", restarts=1)
+    s = quantize.sweep(img, (2, 3), seeding="farthest", nearest="auto", restarts=1)
+    assert s.settings.init == "farthest" and s.settings.metric == "ciede2000"
+    a = new.apply(img, dither="floyd-steinberg", dither_strength=0.5, nearest="space")
+    with pytest.warns(DeprecationWarning, match="'strength' is now 'dither_strength'"):
+        b = new.apply(img, dither="floyd-steinberg", strength=0.5, metric="space")
+    np.testing.assert_array_equal(a.indices, b.indices)
+    # A weaker dither changes the result: the keyword reaches the dither.
+    full = new.apply(img, dither="floyd-steinberg", dither_strength=1.0, nearest="space")
+    none = new.apply(img, dither="floyd-steinberg", dither_strength=0.0, nearest="space")
+    np.testing.assert_array_equal(none.indices, new.apply(img, nearest="space").indices)
+    assert not np.array_equal(full.indices, none.indices)
+    with pytest.raises(TypeError, match="give 'nearest' only"):
+        new.apply(img, nearest="space", metric="space")
+    with pytest.raises(TypeError, match="give 'seeding' only"):
+        quantize.fit_palette(img, 3, seeding="random", init="random")
+    assert warnings.filters == filters  # warned through warnings.warn; no filter was changed

@@ -252,11 +252,15 @@ def test_a_job_pickles_whole_for_worker_processes_and_dask(tmp_path):
 
     from quantize.batch.jobs import BatchJob
 
+    from quantize.fit.settings import FitSettings
+
+    fit = FitSettings(space="oklab", seed=5, restarts=2, locked=["navy"], rule="target", target=2.0)
     job = BatchJob(path=str(tmp_path / "in" / "a.png"), rel="sub/a.png", output_dir=str(tmp_path / "out"),
-                   outputs_rel=("sub/a.png", "sub/a.palette.json"), replace=False, k="2-12", space="oklab",
-                   seed=5, restarts=2, max_pixels=1000)
+                   outputs_rel=("sub/a.png", "sub/a.palette.json"), replace=False, k="2-12", max_pixels=1000,
+                   fit=BatchJob.fit_fields(fit), threads=False, dither="stucki", dither_strength=0.5)
     back = pickle.loads(pickle.dumps(job))
     assert back == job
+    assert back.fit_settings() == dataclasses.replace(fit, threads=False)
     assert back.outputs == (str(tmp_path / "out" / "sub" / "a.png"), str(tmp_path / "out" / "sub" / "a.palette.json"))
 
 
@@ -277,7 +281,7 @@ def test_pool_matches_the_engine_pooling(tmp_path, monkeypatch, merge_rows):
         paths.append(tmp_path / f"im{i}.png")
         Image.fromarray(rng.integers(0, 6, (h, 9, 3)).astype(np.uint8) * 40).save(paths[-1])
     jobs = [BatchJob(path=str(p), rel=p.name, output_dir=str(tmp_path), outputs_rel=(), replace=False, k=2,
-                     space="lab", seed=0, restarts=1, max_pixels=10_000) for p in paths]
+                     max_pixels=10_000) for p in paths]
     for weighting in ("equal", "pixels"):
         ref = pool_samples([sample_picture(load_image(p)) for p in paths], weighting=weighting)
         pool = _Pool(weighting)
@@ -533,3 +537,140 @@ def test_batch_settings_are_checked_by_the_fit_settings_with_the_same_messages()
         with pytest.raises(ValueError) as batch_err:
             BatchSettings(**bad)
         assert str(batch_err.value) == str(fit_err.value)
+
+
+# --------------------------------------------------------------------------- reduce's options in batch
+
+def _set(tmp_path, n=7) -> Path:
+    """n small images: flat artwork and one smooth gradient, for the fitting and dithering options."""
+    root = tmp_path / "set"
+    for i in range(n - 1):
+        _write(root / f"art{i}.png", flat_artwork(3 + i % 3, 10 + i, size=32)[0])
+    x = np.linspace(0, 1, 48)
+    grad = np.stack([np.broadcast_to(40 + 200 * x, (48, 48)), np.full((48, 48), 90.0), np.full((48, 48), 170.0)],
+                    axis=-1)
+    _write(root / "gradient.png", np.round(grad))
+    return root
+
+
+def _rgb(path: Path) -> np.ndarray:
+    return np.asarray(Image.open(path).convert("RGB"))
+
+
+def _mean_de00(a, b) -> float:
+    # The error measured from the files: sRGB -> CIELAB by scikit-image (IEC 61966-2-1, D65), CIEDE2000
+    # by colour-science (Sharma, Wu & Dalal 2005), both outside the project.
+    from colour import delta_E
+    from skimage.color import rgb2lab
+
+    return float(np.mean(delta_E(rgb2lab(a / 255.0), rgb2lab(b / 255.0), method="CIE 2000")))
+
+
+def test_worst_lists_as_many_images_as_asked(tmp_path):
+    src = _set(tmp_path)
+    for worst, listed in ((6, 6), (9, 7)):  # 7 images: 9 asked lists all of them
+        out = tmp_path / f"out{worst}"
+        r = CliRunner().invoke(batch, [str(src), "-o", str(out), "--shared", "-k", "3", "--restarts", "1",
+                                       "--workers", "0", "--worst", str(worst)])
+        assert r.exit_code == 0, r.output
+        assert r.stdout.count("fits worst:") == listed
+        assert len(_manifest(out)["palette_report"]["worst"]) == listed
+
+
+def test_a_shared_batch_without_k_uses_the_default_range(tmp_path):
+    # "-k" left out once failed: the manifest's "auto" was handed to the fit as a size.
+    src = _set(tmp_path, n=3)
+    res = run_batch(src, tmp_path / "out", workers=0, shared=True, restarts=1)
+    assert res.summary["ok"] == 3
+    assert 2 <= res.manifest["palette_report"]["k"] <= 12
+
+
+def test_target_lock_rule_and_dither_reach_every_image_as_reduce_does(tmp_path):
+    """batch with reduce's fitting and dithering options writes, image by image, what reduce writes."""
+    import quantize
+    from quantize.cli.main import main
+
+    src = _set(tmp_path, n=4)
+    opts = ["--restarts", "2", "--lock", "white", "--lock", "#c8102e", "--dither", "floyd-steinberg",
+            "--dither-strength", "0.8"]
+    target = ["-k", "3-12", "--target", "3"]
+    out = tmp_path / "out"
+    r = CliRunner().invoke(batch, [str(src), "-o", str(out), "--workers", "0", *opts, *target])
+    assert r.exit_code == 0, r.output
+    m = _manifest(out)["settings"]
+    assert (m["rule"], m["target"], m["locked"], m["dither"]) == ("target", 3.0, ["#ffffff", "#c8102e"],
+                                                                  "floyd-steinberg")
+    for rel in sorted(p.name for p in src.iterdir()):
+        pal = json.loads((out / rel).with_suffix(".palette.json").read_text())
+        assert [c["hex"] for c in pal["colours"][:2]] == ["#ffffff", "#c8102e"]
+        assert pal["colours"][0]["locked"] and pal["colours"][1]["locked"]
+        assert pal["fit"]["rule"] == "target"
+        one = tmp_path / f"reduce-{rel}"
+        r = CliRunner().invoke(main, ["reduce", str(src / rel), "-o", str(one), *opts, *target])
+        assert r.exit_code == 0, r.output
+        np.testing.assert_array_equal(_rgb(out / rel), _rgb(one))
+    # The locked colours are written exactly: the gradient's output holds no colour outside the palette.
+    used = {tuple(c) for c in _rgb(out / "gradient.png").reshape(-1, 3)}
+    pal = json.loads((out / "gradient.palette.json").read_text())
+    assert used <= {tuple(int(c["hex"][i:i + 2], 16) for i in (1, 3, 5)) for c in pal["colours"]}
+    # Without a dither the target is met as measured from the files (not from the tool's own report).
+    plain = tmp_path / "plain"
+    r = CliRunner().invoke(batch, [str(src), "-o", str(plain), "--workers", "0", "--restarts", "2", *target])
+    assert r.exit_code == 0, r.output
+    for rel in sorted(p.name for p in src.iterdir()):
+        assert _mean_de00(_rgb(src / rel).astype(float), _rgb(plain / rel).astype(float)) <= 3.0 + 0.05
+    # ... and with one colour fewer it is not: the gradient's size is the smallest that meets it.
+    k = _rows(plain)["gradient.png"]["k"]
+    fewer = quantize.fit_palette(src / "gradient.png", k - 1, restarts=2).apply(src / "gradient.png")
+    assert k > 3 and _mean_de00(_rgb(src / "gradient.png").astype(float), fewer.rgb.astype(float)) > 3.0
+
+
+def test_workers_rebuild_the_fit_and_the_dither(tmp_path):
+    src = _set(tmp_path, n=3)
+    from quantize.fit.settings import FitSettings
+
+    fit = FitSettings(rule="bic", locked=["#fff"], init="farthest", restarts=1)
+    kw = dict(k="2-6", fit=fit, dither="bayer4", dither_strength=0.7, nearest="space")
+    here = run_batch(src, tmp_path / "here", workers=0, **kw)
+    pool = run_batch(src, tmp_path / "pool", workers=1, **kw)
+    assert here.summary["ok"] == pool.summary["ok"] == 3
+    assert _outputs(tmp_path / "here") == _outputs(tmp_path / "pool")
+    pal = json.loads((tmp_path / "pool" / "art0.palette.json").read_text())
+    assert pal["colours"][0]["hex"] == "#ffffff" and pal["fit"]["rule"] == "bic" and pal["fit"]["init"] == "farthest"
+    # A different dither is a different setting: a rerun redoes every image.
+    again = run_batch(src, tmp_path / "here", workers=0, **dict(kw, dither="none"))
+    assert again.summary["ok"] == 3 and again.summary["skipped"] == 0
+    assert _outputs(tmp_path / "here") != _outputs(tmp_path / "pool")
+
+
+def test_batch_settings_carry_one_fit_settings(tmp_path):
+    from quantize.batch.run import _settings
+    from quantize.fit.settings import FitSettings
+
+    s = BatchSettings(space="oklab", fit=FitSettings(rule="bic", restarts=3))
+    assert s.fit.space == "oklab" and s.fit.rule == "bic" and (s.space, s.restarts, s.seed) == ("oklab", 3, 0)
+    assert BatchSettings().fit == FitSettings()
+    assert BatchSettings(nearest="space").fit.metric == "space"
+    assert dataclasses.replace(s, k=4).fit == s.fit
+    for bad, message in ((dict(dither="wiggle"), "wiggle"), (dict(dither_strength=1.5), "1.5"),
+                         (dict(nearest="closest"), "closest"), (dict(k=2, fit=FitSettings(locked=["red", "blue",
+                                                                                                    "lime"])),
+                                                                "3 locked colours")):
+        with pytest.raises(ValueError, match=message):
+            BatchSettings(**bad)
+    with pytest.raises(TypeError, match="FitSettings"):
+        BatchSettings(fit={"rule": "bic"})
+    # run_batch(settings, fit=...): the new fit's space, seed and restarts, not the old settings' copies.
+    assert _settings(BatchSettings(), {"fit": FitSettings(space="oklab", seed=4)}).fit.space == "oklab"
+    assert _settings(BatchSettings(), {"fit": FitSettings(seed=4), "space": "cam16ucs"}).fit == \
+        FitSettings(seed=4, space="cam16ucs")
+
+
+def test_batch_weighting_has_fit_and_sweeps_name(tmp_path):
+    src = _set(tmp_path, n=2)
+    for flag in ("--weighting", "--shared-weighting"):
+        out = tmp_path / flag.strip("-")
+        r = CliRunner().invoke(batch, [str(src), "-o", str(out), "--shared", "-k", "2", "--restarts", "1",
+                                       "--workers", "0", flag, "pixels"])
+        assert r.exit_code == 0, r.output
+        assert _manifest(out)["settings"]["weighting"] == "pixels"

@@ -172,7 +172,7 @@ def test_unwritable_or_missing_output_folder(art, tmp_path):
     (["-k", "2-\u00b9\u00b2"], "is not N or MIN-MAX"),  # superscript digits
     (["--space", "hsv"], "hsv"),
     (["--rule", "target"], "--target"),
-    (["--lock", "purple"], "purple"),
+    (["--lock", "purplish"], "purplish"),
 ])
 def test_bad_option_values(art, tmp_path, args, words):
     r = CliRunner().invoke(main, ["reduce", str(art), "-o", str(tmp_path / "o.png"), *args])
@@ -300,7 +300,7 @@ def test_target_stat_p95_and_pixel_limit(art, tmp_path):
 @pytest.mark.parametrize("args, settings, code", [
     (["--restarts", "0"], dict(restarts=0), 2),
     (["--seed", "-1"], dict(seed=-1), 1),
-    (["--lock", "purple"], dict(locked=["purple"]), 1),
+    (["--lock", "purplish"], dict(locked=["purplish"]), 1),
     (["--lock", "#000000", "--lock", "000000"], dict(locked=["#000000", "000000"]), 1),
 ])
 @pytest.mark.parametrize("command", ["reduce", "fit", "sweep"])
@@ -342,3 +342,60 @@ def test_the_command_line_lists_the_names_the_library_knows():
 
     assert set(SPACE_NAMES) == set(SPACES)
     assert set(SEEDINGS) == set(INITS)
+
+
+# -- one option set -------------------------------------------------------------------------------
+
+def _params(command) -> dict:
+    return {p.name: p for p in main.commands[command].params}
+
+
+def _same(a, b) -> bool:
+    return (a.opts, a.secondary_opts, a.default, getattr(a.type, "choices", None), a.multiple, a.help) == \
+        (b.opts, b.secondary_opts, b.default, getattr(b.type, "choices", None), b.multiple, b.help)
+
+
+def test_reduces_options_work_in_every_command_where_they_make_sense():
+    from quantize.cli._common import _fit_option_list
+
+    fitting = set(_fit_option_list())
+    mapping = {"nearest", "dither", "dither_strength", "serpentine"}
+    reduce = _params("reduce")
+    wanted = {"fit": fitting, "batch": fitting | mapping, "sweep": fitting - {"colours"},
+              "apply": mapping | {"max_pixels", "view_dpi", "view_distance", "error_map", "error_map_kind"}}
+    for command, names in wanted.items():
+        got = _params(command)
+        missing = names - set(got)
+        assert not missing, f"{command} lacks {sorted(missing)}"
+        for n in names:  # one definition: the same flags, choices, default and help as reduce's
+            assert _same(got[n], reduce[n]), f"{command} --{n} differs from reduce's"
+
+
+def test_sweep_takes_seeding_nearest_and_css_locks(art, tmp_path):
+    table = tmp_path / "t.json"
+    r = run("sweep", art, "-k", "3-4", "--restarts", "1", "--seeding", "farthest", "--nearest", "space",
+            "--lock", "#fff", "--table-json", table)
+    assert r.exit_code == 0, r.output
+    s = json.loads(table.read_text())["settings"]
+    assert (s["init"], s["metric"], s["locked"]) == ("farthest", "space", ["#ffffff"])
+
+
+def test_batch_defaults_to_the_library_size_range(art, tmp_path):
+    from quantize.fit.settings import DEFAULT_K
+
+    out = tmp_path / "out"
+    r = run("batch", art.parent, "-o", out, "--exclude", "out", "--workers", "0", "--restarts", "1")
+    assert r.exit_code == 0, r.output
+    assert Palette.load(out / "art.palette.json").fit.k_requested == DEFAULT_K
+
+
+@pytest.mark.parametrize("method, says, never", [
+    ("bayer4", "threshold matrix", ("serpentine", "raster", "error in")),
+    ("floyd-steinberg", "serpentine (error in linear light)", ("threshold",)),
+])
+def test_the_dither_line_describes_the_method_it_ran(art, tmp_path, method, says, never):
+    # Ordered dithers have no scan order and diffuse no error: their summary line once said both.
+    r = run("reduce", art, "-o", tmp_path / "o.png", "-k", "4", "--restarts", "1", "--dither", method)
+    assert r.exit_code == 0, r.output
+    line = next(x for x in r.stdout.splitlines() if x.startswith("dither:"))
+    assert says in line and not any(w in line for w in never)

@@ -17,10 +17,45 @@ def test_parse_hex_and_lab():
     np.testing.assert_array_equal(parse_colour((0, 0, 0)), [0, 0, 0])
 
 
-@pytest.mark.parametrize("bad", ["#12345", "red", "1,2", "120,0,0", "a,b,c"])
+@pytest.mark.parametrize("bad", ["#12345", "reddish", "1,2", "120,0,0", "a,b,c", "#ffff", "fff", "#ggg",
+                                 "\uff52ed", "light blue"])
 def test_parse_rejects(bad):
+    # "fff": the short form needs its "#"; "\uff52ed" (a full-width r): CSS folds ASCII case only.
     with pytest.raises(ValueError, match="colour|L\\*"):
         parse_colour(bad)
+
+
+@pytest.mark.parametrize("short, long", [("#fff", "#ffffff"), ("#000", "#000000"), ("#FA0", "#ffaa00"),
+                                         ("#1e9", "#11ee99")])
+def test_parse_short_hex_doubles_each_digit(short, long):
+    # CSS Color Module Level 4, section 5.2 (the hex notation): "#rgb" is "#rrggbb" with each digit doubled.
+    np.testing.assert_array_equal(parse_colour(short), parse_colour(long))
+
+
+# Values as the W3C's CSS Color Module Level 4, section 6.1 "Named Colors", lists them.
+@pytest.mark.parametrize("name, rgb", [
+    ("rebeccapurple", (102, 51, 153)), ("cornflowerblue", (100, 149, 237)), ("papayawhip", (255, 239, 213)),
+    ("darkgoldenrod", (184, 134, 11)), ("lightslategray", (119, 136, 153)), ("lightslategrey", (119, 136, 153)),
+    ("teal", (0, 128, 128)), ("white", (255, 255, 255)), ("black", (0, 0, 0)), ("red", (255, 0, 0)),
+    ("orange", (255, 165, 0)), ("mediumspringgreen", (0, 250, 154)),
+])
+def test_css_colour_names_give_the_specifications_values(name, rgb):
+    np.testing.assert_array_equal(parse_colour(name), rgb)
+    np.testing.assert_array_equal(parse_colour(f" {name.upper()} "), rgb)  # ASCII case-insensitive, as CSS
+
+
+def test_the_css_table_holds_the_specifications_148_names():
+    from PIL import ImageColor
+
+    from quantize.colour.css_names import CSS_COLOURS
+
+    # CSS Color Module Level 4 lists 148 named colours (gray/grey spellings counted apart; "transparent"
+    # and "currentcolor" are keywords, not named colours).  Pillow's ImageColor carries its own copy of
+    # the list: a second reader of the same standard, checked name by name.
+    assert len(CSS_COLOURS) == 148
+    # (Pillow replaces its table's entries by tuples once read: compare through getrgb.)
+    assert set(CSS_COLOURS) == set(ImageColor.colormap)
+    assert all(parse_colour(n).tolist() == list(ImageColor.getrgb(n)) for n in CSS_COLOURS)
 
 
 def make_palette():

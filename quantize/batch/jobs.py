@@ -9,6 +9,7 @@ manifest row with its error text, :func:`sample_image` a
 
 from __future__ import annotations
 
+import dataclasses
 import threading
 import time
 import warnings
@@ -45,15 +46,20 @@ class BatchJob:
         earlier run of this batch wrote them.
     k : int or str
         Palette size, or "MIN-MAX" (per-image fits only).
-    space : str
-        Space the palette is fitted in.
-    seed : int
-    restarts : int
     max_pixels : int
         Decompression-bomb limit for reading the input.
+    fit : tuple of (name, value) pairs, default=()
+        The fields of the run's :class:`quantize.fit.settings.FitSettings`
+        but ``threads``, as plain values; the worker rebuilds the settings
+        from them (:meth:`fit_settings`).  Empty: the defaults.
     threads : bool, default=True
         Whether the fit may use a second thread (``FitSettings.threads``):
         off when the run already has a worker process per core.
+    dither : str, default="none"
+    dither_strength : float, default=1.0
+    serpentine : bool, default=True
+    nearest : str, default="auto"
+        How the image is mapped, as :meth:`quantize.palette.Palette.apply` takes it.
     """
 
     path: str
@@ -62,11 +68,29 @@ class BatchJob:
     outputs_rel: tuple[str, ...]
     replace: bool
     k: Any
-    space: str
-    seed: int
-    restarts: int
     max_pixels: int
+    fit: tuple = ()
     threads: bool = True
+    dither: str = "none"
+    dither_strength: float = 1.0
+    serpentine: bool = True
+    nearest: str = "auto"
+
+    @staticmethod
+    def fit_fields(settings) -> tuple:
+        """``settings`` (a FitSettings) as the plain (name, value) pairs a job carries."""
+        return tuple((f.name, getattr(settings, f.name)) for f in dataclasses.fields(settings) if f.name != "threads")
+
+    def fit_settings(self):
+        """The run's FitSettings, rebuilt in the worker (checked again there, as any FitSettings)."""
+        from quantize.fit.settings import FitSettings
+
+        return FitSettings(**dict(self.fit), threads=self.threads)
+
+    def mapping(self) -> dict:
+        """Keyword arguments of :meth:`quantize.palette.Palette.apply` for this image."""
+        return {"dither": self.dither, "dither_strength": self.dither_strength, "serpentine": self.serpentine,
+                "nearest": self.nearest}
 
     @property
     def outputs(self) -> tuple[str, ...]:
@@ -131,11 +155,10 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
         try:
             pic = load_image(job.path, max_pixels=job.max_pixels)
             if palette_doc is None:
-                pal = fit_palette(pic, job.k, space=job.space, seed=job.seed, restarts=job.restarts,
-                                  threads=job.threads)
+                pal = fit_palette(pic, job.k, settings=job.fit_settings())
             else:
                 pal = Palette.from_dict(palette_doc, source="batch palette")
-            res = pal.apply(pic)
+            res = pal.apply(pic, **job.mapping())
             outs = [Path(p) for p in job.outputs]
             if not outs[0].parent.resolve().is_relative_to(job.output_dir):
                 raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "

@@ -141,17 +141,16 @@ class _Pool:
         return s
 
 
-def _fit_pooled(sample, *, k, space, seed, restarts, weighting, n_images):
-    """One palette for the pooled sample, by :func:`quantize.fit.engine.fit_palette`."""
+def _fit_pooled(sample, *, k, fit, weighting, n_images):
+    """One palette for the pooled sample, by :func:`quantize.fit.engine.fit_palette` with the run's ``fit``."""
     import dataclasses
     import warnings
 
     from quantize.fit.clustering import PaletteSizeWarning
     from quantize.fit.engine import fit_palette
-    from quantize.fit.settings import FitSettings
     from quantize.palette import Palette
 
-    settings = FitSettings(space=space, seed=seed, restarts=restarts, weighting=weighting)
+    settings = dataclasses.replace(fit, weighting=weighting)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PaletteSizeWarning)  # recorded in the fit's notes
         pal = fit_palette(sample, k, settings=settings)
@@ -175,12 +174,22 @@ def _manifest_settings(s: BatchSettings) -> dict:
     # The package version is part of the settings: a new engine redoes the images.
     settings = {"quantize": __version__, "mode": s.mode, "k": "auto" if s.k is None else str(s.k), "space": s.space, "seed": s.seed,
                 "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
+    f = s.fit
+    # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
+    settings.update(rule=f.rule, kind=f.kind, target=f.target, target_stat=f.target_stat, locked=list(f.locked),
+                    seeding=f.init, fit_nearest=f.metric, refine=f.refine, warm=f.warm)
+    settings.update(dither=s.dither, dither_strength=s.dither_strength, serpentine=s.serpentine,
+                    nearest=s.nearest)
     if s.mode == "shared":
         settings["weighting"] = s.shared_weighting
     elif s.mode == "palette":  # the fit settings do not change a mapping onto a given palette
-        for name in ("k", "space", "seed", "restarts"):
+        for name in ("k", "space", "seed", "restarts") + _FIT_RECORDED:
             del settings[name]
     return settings
+
+
+#: Fit settings the manifest records beside k, space, seed and restarts (see _manifest_settings).
+_FIT_RECORDED = ("rule", "kind", "target", "target_stat", "locked", "seeding", "fit_nearest", "refine", "warm")
 
 
 class _Run:
@@ -259,14 +268,15 @@ class _Run:
         # With a worker process per core the images keep the cores busy; a
         # fit's own second thread would only contend with the other worker.
         threads = s.cluster is None and (s.workers in (0, 1) or (s.workers is None and (os.cpu_count() or 1) == 1))
+        fit = BatchJob.fit_fields(s.fit)
         for rel in self.rels:
             out_rel = rel.with_suffix("." + s.fmt).as_posix()
             outs_rel = (out_rel,) + ((rel.with_suffix(".palette.json").as_posix(),) if s.mode == "per-image" else ())
             job = BatchJob(path=os.path.abspath(self.src / rel), rel=str(rel), output_dir=str(out_root),
                            outputs_rel=outs_rel, replace=s.force or any(o in owned for o in outs_rel), k=s.k,
-                           space=s.space, seed=s.seed, restarts=s.restarts,
                            max_pixels=DEFAULT_MAX_PIXELS if s.max_pixels is None else s.max_pixels,
-                           threads=threads)
+                           fit=fit, threads=threads, dither=s.dither, dither_strength=s.dither_strength,
+                           serpentine=s.serpentine, nearest=s.nearest)
             by_output.setdefault(out_rel, []).append(job)
             jobs.append(job)
         for out_rel, same in by_output.items():
@@ -340,6 +350,8 @@ def _settings(settings: BatchSettings | None, options: dict) -> BatchSettings:
         return BatchSettings(**options)
     if not isinstance(settings, BatchSettings):
         raise TypeError(f"settings must be a BatchSettings, got {type(settings).__name__}")
+    if "fit" in options:  # a new fit brings its own space, seed and restarts unless given beside it
+        options = {**{n: None for n in ("space", "seed", "restarts")}, **options}
     return dataclasses.replace(settings, **options) if options else settings
 
 
@@ -383,9 +395,19 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     k : int or "min-max", optional
         Palette size, or the range the rule chooses from.  Default: the
         library's (2-12; a photo under the automatic rule, up to 256).
+    fit : FitSettings, optional
+        The rest of the fit (rule, ΔE00 target, locked colours, seeding, ...),
+        as :func:`quantize.fit.engine.fit_palette` takes it.
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
     seed : int, default=0
     restarts : int, default=8
+        When given, these three replace the same fields of ``fit``.
+    dither : str, default="none"
+    dither_strength : float, default=1.0
+    serpentine : bool, default=True
+    nearest : {"auto", "ciede2000", "space"}, default="auto"
+        How each image is mapped, as :meth:`quantize.palette.Palette.apply`
+        takes it.
     fmt : {"png", "webp", "gif", "tif", "jpg"}, default="png"
         Output file type.
     workers : int, optional
@@ -433,6 +455,8 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     Examples
     --------
     >>> res = run_batch("photos", "out", shared=True, k=8)  # doctest: +SKIP
+    >>> brand = FitSettings(locked=["#c8102e", "white"])  # doctest: +SKIP
+    >>> res = run_batch("packs", "out", k="2-12", fit=brand, dither="blue-noise")  # doctest: +SKIP
     >>> res.summary["failed"], res.manifest["palette_report"]["worst"][0]["input"]  # doctest: +SKIP
     """
     s = _settings(settings, options)
@@ -472,7 +496,8 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
 
     src, dst, rels, rows, doc, notes = run.src, run.dst, run.rels, run.rows, run.doc, run.notes
     prev_doc, force, settings = run.prev_doc, run.settings.force, run.doc["settings"]
-    fit_settings = {k: settings[k] for k in ("k", "space", "seed", "restarts", "weighting", "max_pixels")}
+    fit_settings = {k: settings[k] for k in ("k", "space", "seed", "restarts", "weighting", "max_pixels")
+                    + _FIT_RECORDED}
     stamp = []
     for rel in rels:
         try:
@@ -511,8 +536,7 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
         return None, len(jobs)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        pal = _fit_pooled(pool.sample(), k=settings["k"], space=settings["space"], seed=settings["seed"],
-                          restarts=settings["restarts"], weighting=settings["weighting"],
+        pal = _fit_pooled(pool.sample(), k=run.settings.k, fit=run.settings.fit, weighting=settings["weighting"],
                           n_images=len(pool.pixels))
     pal.save(path, force=force or prev_shared.get("palette_file") == SHARED_PALETTE)
     doc["shared"]["fit"] = pal.fit.to_dict()

@@ -72,41 +72,68 @@ def _restarts_option(ctx, param, value):
         raise click.BadParameter(str(exc)) from None
 
 
-def _fit_options(f):
-    """Options shared by every command that fits a palette."""
-    opts = [
-        click.option("-k", "--colours", "colours", default=None,
-                     callback=lambda c, p, v: None if v is None else _k_option(v),
-                     help=f"Palette size N, or MIN-MAX to let the rule choose [default: {DEFAULT_K_TEXT}; "
-                          "for a photo under the auto rule, up to 256]."),
-        click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
-                     help="Perceptual space the palette is fitted in."),
-        click.option("--rule", type=click.Choice(("auto", "bic", "target")), default=None,
-                     help="How N is chosen from a range. auto (default): artwork gets the fewest inks that print "
-                          "every flat area, a photo the smallest palette meeting the ΔE00 target (2.5 unless "
-                          "--target); bic: penalised score; target: smallest N meeting --target."),
-        click.option("--kind", type=click.Choice(("auto", "artwork", "photo")), default="auto", show_default=True,
-                     help="What the auto rule takes the image to be; auto judges it and says why."),
-        click.option("--target", "target", type=click.FloatRange(min=0, min_open=True), default=None,
-                     help="ΔE00 target for --rule target (implies it), or for photos under --rule auto."),
-        click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
-                     help="Which ΔE00 statistic the target applies to."),
-        click.option("--lock", "locked", multiple=True, metavar="COLOUR",
-                     help="Hold a colour fixed (substrate, brand colour): #rrggbb or L,a,b. Repeatable."),
-        click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palette."),
-        click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
-                     help="k-means++ restarts per palette size (at least 1)."),
-        click.option("--seeding", type=click.Choice(SEEDINGS), default="k-means++", show_default=True,
-                     help="How each restart picks its first centres."),
-        click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
-                     help="Map pixels by ΔE00 or by distance in the fitting space; auto: ΔE00, "
-                          "or the space's distance when dithering."),
-        click.option("--max-pixels", type=click.IntRange(min=1), default=None,
-                     help="Refuse images larger than this (decompression-bomb guard; default Pillow's limit)."),
-    ]
-    for opt in reversed(opts):
-        f = opt(f)
-    return f
+#: Help of --nearest, wherever a command maps pixels.
+_NEAREST_HELP = "Map pixels by ΔE00 or by distance in the fitting space; auto: ΔE00, or the space's distance when dithering."
+
+
+def _nearest_option(f):
+    """--nearest alone, for commands that map onto a saved palette (``apply``)."""
+    return click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+                        help=_NEAREST_HELP)(f)
+
+
+def _max_pixels_option(f):
+    """--max-pixels alone, for commands that fit nothing (``apply``)."""
+    return _fit_option_list()["max_pixels"](f)
+
+
+def _fit_option_list() -> dict:
+    """Every fitting option, by its parameter name: the one definition the commands share."""
+    return {
+        "colours": click.option("-k", "--colours", "colours", default=None,
+                                callback=lambda c, p, v: None if v is None else _k_option(v),
+                                help=f"Palette size N, or MIN-MAX to let the rule choose [default: {DEFAULT_K_TEXT}; "
+                                     "for a photo under the auto rule, up to 256]."),
+        "space": click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
+                              help="Perceptual space the palette is fitted in."),
+        "rule": click.option("--rule", type=click.Choice(("auto", "bic", "target")), default=None,
+                             help="How N is chosen from a range. auto (default): artwork gets the fewest inks that "
+                                  "print every flat area, a photo the smallest palette meeting the ΔE00 target (2.5 "
+                                  "unless --target); bic: penalised score; target: smallest N meeting --target."),
+        "kind": click.option("--kind", type=click.Choice(("auto", "artwork", "photo")), default="auto",
+                             show_default=True, help="What the auto rule takes the image to be; auto judges it and "
+                                                     "says why."),
+        "target": click.option("--target", "target", type=click.FloatRange(min=0, min_open=True), default=None,
+                               help="ΔE00 target for --rule target (implies it), or for photos under --rule auto."),
+        "target_stat": click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean",
+                                    show_default=True, help="Which ΔE00 statistic the target applies to."),
+        "locked": click.option("--lock", "locked", multiple=True, metavar="COLOUR",
+                               help="Hold a colour fixed (substrate, brand colour): #rgb, #rrggbb, L,a,b or a CSS "
+                                    "colour name. Repeatable."),
+        "seed": click.option("--seed", type=int, default=0, show_default=True,
+                             help="Random seed; same seed, same palette."),
+        "restarts": click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
+                                 help="k-means++ restarts per palette size (at least 1)."),
+        "seeding": click.option("--seeding", type=click.Choice(SEEDINGS), default="k-means++", show_default=True,
+                                help="How each restart picks its first centres."),
+        "nearest": click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
+                                help=_NEAREST_HELP),
+        "max_pixels": click.option("--max-pixels", type=click.IntRange(min=1), default=None,
+                                   help="Refuse images larger than this (decompression-bomb guard; default "
+                                        "Pillow's limit)."),
+    }
+
+
+def _fit_options(f=None, *, skip=()):
+    """Options shared by every command that fits a palette; ``skip`` names any a command defines
+    its own way (``sweep``'s -k is a range to sweep)."""
+    def add(g):
+        for name, opt in reversed(list(_fit_option_list().items())):
+            if name not in skip:
+                g = opt(g)
+        return g
+
+    return add if f is None else add(f)
 
 
 #: Choices of --nearest; "auto" leaves the choice to quantize.render.mapping.resolve_metric.
@@ -124,14 +151,15 @@ def _fit_settings(o: dict, **more):
     rule = o["rule"] or ("target" if o["target"] is not None else "auto")
     if rule == "target" and o["target"] is None:
         raise click.UsageError("--rule target needs --target DELTA_E")
-    if o["target"] is not None and o["colours"] is not None and "-" not in o["colours"]:
+    if o["target"] is not None and o.get("colours") is not None and "-" not in o["colours"]:
         raise click.UsageError(f"--target chooses the palette size, but -k {o['colours']} fixes it; "
                                "give a range (-k MIN-MAX) or no -k")
     more.setdefault("kind", {"photo": "continuous tone"}.get(o.get("kind", "auto"), o.get("kind", "auto")))
+    more.setdefault("init", o.get("seeding", "k-means++"))
+    more.setdefault("metric", _metric(o.get("nearest", "auto")))
     try:
         return FitSettings(space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
-                           locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], init=o["seeding"],
-                           metric=_metric(o["nearest"]), **more)
+                           locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], **more)
     except ValueError as exc:
         raise _Failure(str(exc)) from None
 

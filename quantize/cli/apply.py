@@ -9,11 +9,11 @@ from pathlib import Path
 import click
 
 from ._common import (
-    NEAREST,
     _check_outputs,
     _emit,
     _Failure,
-    _metric,
+    _max_pixels_option,
+    _nearest_option,
     _palette_rows,
     _print_de,
     _print_palette,
@@ -32,10 +32,8 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
               help="Folder for the reduced images (created if missing).")
 @click.option("--format", "fmt", type=click.Choice(("png", "webp", "gif", "tif", "jpg")), default="png",
               show_default=True, help="Output file type: indexed PNG, lossless WebP, GIF, RGB TIFF or JPEG.")
-@click.option("--nearest", type=click.Choice(NEAREST), default="auto", show_default=True,
-              help="Map pixels by ΔE00 or by distance in the palette's space; auto: ΔE00, "
-                   "or the space's distance when dithering.")
-@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
+@_nearest_option
+@_max_pixels_option
 @dither_options
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
@@ -73,7 +71,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                 try:
                     # The one decode of this input: mapping, ΔE figures, error map and report share it.
                     pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
-                    res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(nearest))
+                    res = pal.apply(pic, **dopts.apply_kwargs(), nearest=nearest)
                     res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=inputs,
                                                              error_map_path=emap)
                     saved = res.write(out, picture=pic, force=force, inputs=inputs)

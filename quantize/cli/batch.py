@@ -13,16 +13,13 @@ from pathlib import Path
 import click
 
 # Choices and defaults from the library's settings module, which imports nothing heavy.
-from quantize.batch.settings import DEFAULT_K, DEFAULT_RESTARTS, DEFAULT_WORST, FORMATS, WEIGHTINGS
+from quantize.batch.settings import DEFAULT_WORST, FORMATS, WEIGHTINGS
 
-from ._common import SPACE_NAMES, _check_indexed_size, _Failure, _k_option
+from ._common import _check_indexed_size, _Failure, _fit_options, _fit_settings
+from .dither_options import dither_method_options, pop_dither_options
 
 #: Exit code when the run finished but some images failed.
 EXIT_IMAGES_FAILED = 1
-
-
-def _check_k(ctx, param, value):
-    return None if value is None else _k_option(value)
 
 
 class _Bar:
@@ -64,34 +61,30 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--palette", "palette_file", type=click.Path(dir_okay=False), default=None,
               help="Map every image onto this saved palette instead of fitting.")
 @click.option("--shared", is_flag=True, help="Fit one palette to the whole set and map every image onto it.")
-@click.option("--shared-weighting", type=click.Choice(WEIGHTINGS), default=WEIGHTINGS[0], show_default=True,
-              help="In the shared fit, each image counts equally or by its pixel count.")
-@click.option("-k", "--colours", "colours", default=None, callback=_check_k,
-              help=f"Palette size N, or MIN-MAX to let the rule choose [default: {DEFAULT_K}; a photo under the "
-                   "automatic rule, up to 256].")
-@click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
-              help="Perceptual space the palettes are fitted in.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same palettes.")
-@click.option("--restarts", type=click.IntRange(min=1), default=DEFAULT_RESTARTS, show_default=True,
-              help="k-means++ restarts per palette size.")
+@click.option("--weighting", "--shared-weighting", "shared_weighting", type=click.Choice(WEIGHTINGS),
+              default=WEIGHTINGS[0], show_default=True,
+              help="In the shared fit, each image counts equally or by its pixel count (as fit's and sweep's "
+                   "--weighting; --shared-weighting is the older name).")
+@_fit_options
+@dither_method_options
 @click.option("--format", "fmt", type=click.Choice(FORMATS), default=FORMATS[0], show_default=True,
               help="Output file type.")
 @click.option("--workers", type=click.IntRange(min=0), default=None,
               help="Worker processes (default: the number of CPU cores; 0: in this process).")
 @click.option("--cluster", metavar="ADDRESS", default=None,
               help="Run the per-image work on this Dask scheduler (needs quantize[dask]).")
-@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard per image.")
 @click.option("--worst", type=click.IntRange(min=0), default=DEFAULT_WORST, show_default=True,
               help="How many worst-fitting images the one-palette report lists.")
 @click.option("--force", is_flag=True, help="Redo every image and replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, shared_weighting, colours, space,
-          seed, restarts, fmt, workers, cluster, max_pixels, worst, force, as_json):
+def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, shared_weighting, fmt, workers,
+          cluster, worst, force, as_json, **fit_opts):
     """Reduce every image under INPUT_DIR into OUTPUT_DIR.
 
     Each image gets its own palette, or all share --palette FILE, or --shared
-    fits one palette to the whole set first.  OUTPUT_DIR/manifest.json and
+    fits one palette to the whole set first.  The fitting, mapping and
+    dithering options are reduce's.  OUTPUT_DIR/manifest.json and
     manifest.csv record every image; a rerun skips images that are up to date.
     Exits non-zero if any image failed.
     """
@@ -101,14 +94,17 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
 
     if shared and palette_file:
         raise click.UsageError("give either --palette or --shared, not both")
-
+    dopts = pop_dither_options(fit_opts)
+    fit = _fit_settings(fit_opts)  # the same checks and messages as reduce
+    colours = fit_opts["colours"]
     _check_indexed_size(Path(f"image.{fmt}"), colours)  # as reduce: an indexed PNG holds 256 colours
     bar = _Bar()
     try:
         settings = BatchSettings(include=include or None, exclude=exclude, palette=palette_file, shared=shared,
-                                 shared_weighting=shared_weighting, k=colours, space=space, seed=seed,
-                                 restarts=restarts, fmt=fmt, workers=workers, cluster=cluster, force=force,
-                                 max_pixels=max_pixels, worst=worst)
+                                 shared_weighting=shared_weighting, k=colours, fit=fit, fmt=fmt, workers=workers,
+                                 cluster=cluster, force=force, max_pixels=fit_opts["max_pixels"], worst=worst,
+                                 dither=dopts.dither, dither_strength=dopts.strength, serpentine=dopts.serpentine,
+                                 nearest=fit_opts["nearest"])
         res = run_batch(input_dir, output_dir, settings, progress=bar)
     except (QuantizeError, ValueError, OSError) as exc:
         bar.close()
@@ -133,7 +129,7 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
             click.echo(f"one palette of {rep['k']} colours: {' '.join(rep['hex'])}")
             if rep["unused_entries"]:
                 click.echo(f"  entries no image uses: {', '.join(map(str, rep['unused_entries']))}")
-            for w in rep["worst"]:
+            for w in rep["worst"]:  # as many as --worst asked for (fewer if the set is smaller)
                 click.echo(f"  fits worst: {w['input']}  ΔE00 mean {w['delta_e']['mean']:.2f}"
                            f"  p95 {w['delta_e']['p95']:.2f}")
             if rep.get("page"):

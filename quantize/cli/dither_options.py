@@ -1,4 +1,4 @@
-"""Command-line options of the dithering stage, for ``reduce`` and ``apply``.
+"""Command-line options of the dithering stage, for ``reduce``, ``apply`` and ``batch``.
 
 Only click is imported at the top, so ``quantize --help`` stays fast; the
 library is imported inside the functions.  Use::
@@ -7,7 +7,7 @@ library is imported inside the functions.  Use::
     def reduce(ctx, ..., **opts):
         choice = pop_dither_options(opts)          # before the other options are read
         pic = load_image(image)                    # the one decode of the input
-        res = pal.apply(pic, **choice.apply_kwargs(), metric=...)
+        res = pal.apply(pic, **choice.apply_kwargs(), nearest=...)
         res, extra, lines = run_dither_outputs(pic, res, choice, force=force, inputs=[image])
         summary.update(extra)                      # JSON: dither, delta_e_filtered, viewing, error_map
         for line in lines: click.echo(line)        # human summary
@@ -25,6 +25,7 @@ from quantize.render.methods import DITHERS
 __all__ = [
     "DITHER_NAMES",
     "DitherChoice",
+    "dither_method_options",
     "dither_options",
     "error_map_paths",
     "pop_dither_options",
@@ -56,7 +57,7 @@ class DitherChoice:
 
     def apply_kwargs(self) -> dict:
         """Keyword arguments for ``Palette.apply`` / ``map_picture``."""
-        return {"dither": self.dither, "strength": self.strength, "serpentine": self.serpentine}
+        return {"dither": self.dither, "dither_strength": self.strength, "serpentine": self.serpentine}
 
 
 #: The defaults of every option: the command line's and pop_dither_options' one source.
@@ -74,16 +75,29 @@ def _check(choice: DitherChoice) -> DitherChoice:
     return choice
 
 
-def dither_options(f):
-    """Decorator adding --dither, --dither-strength, --serpentine/--raster,
-    --view-dpi, --view-distance, --error-map and --error-map-kind."""
-    opts = [
+def _method_options() -> list:
+    return [
         click.option("--dither", type=click.Choice(DITHER_NAMES, case_sensitive=False), default=_DEFAULT.dither,
                      show_default=True, help="Dithering method (error diffusion, ordered or clustered-dot)."),
         click.option("--dither-strength", type=click.FloatRange(0.0, 1.0), default=_DEFAULT.strength, show_default=True,
                      help="Share of the dither, 0 (none) to 1 (full)."),
         click.option("--serpentine/--raster", default=_DEFAULT.serpentine, show_default=True,
                      help="Error diffusion scans alternate rows backwards, or every row left to right."),
+    ]
+
+
+def dither_method_options(f):
+    """Decorator adding --dither, --dither-strength and --serpentine/--raster only: for commands
+    (``batch``) that write no per-image viewing report or error map."""
+    for opt in reversed(_method_options()):
+        f = opt(f)
+    return f
+
+
+def dither_options(f):
+    """Decorator adding --dither, --dither-strength, --serpentine/--raster,
+    --view-dpi, --view-distance, --error-map and --error-map-kind."""
+    opts = _method_options() + [
         click.option("--view-dpi", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="DPI",
                      help="Output resolution for the filtered (S-CIELAB) ΔE00 report."),
         click.option("--view-distance", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="MM",
@@ -166,9 +180,12 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
                           "serpentine": choice.serpentine}, "delta_e_filtered": None, "viewing": None,
                "error_map": None}
     lines = []
-    if choice.dither != "none":
+    kind = DITHERS[choice.dither].kind
+    if kind == "diffusion":  # only error diffusion scans rows; an ordered dither has no scan order
         scan = ", serpentine" if choice.serpentine else ", raster"
         lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
+    elif kind != "none":
+        lines.append(f"dither: {choice.dither} at strength {choice.strength:g} (threshold matrix, two colours mixed in linear light)")
     filtered = None  # the filtered ΔE00 map: measured once, for the statistics and the error map
     if choice.viewing:
         from quantize.quality.perception import delta_e_map, with_filtered_delta_e

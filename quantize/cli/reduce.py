@@ -16,7 +16,6 @@ from ._common import (
     _fit_settings,
     _fit_with_progress,
     _judgement_summary,
-    _metric,
     _palette_rows,
     _print_de,
     _print_judgement,
@@ -63,7 +62,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
         pal = _fit_with_progress(pic, k, settings, max_pixels)
-        res = pal.apply(pic, **dopts.apply_kwargs(), metric=_metric(fit_opts["nearest"]))
+        res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
         saved = res.write(out, picture=pic, force=force, inputs=[image])
         if pal_path:

@@ -14,13 +14,12 @@ import click
 
 from ._common import (
     DEFAULT_K_TEXT,
-    SPACE_NAMES,
     _check_outputs,
     _emit,
-    _Failure,
+    _fit_options,
+    _fit_settings,
     _progress,
     _report_targets,
-    _restarts_option,
     _run,
 )
 
@@ -50,26 +49,12 @@ def _decoded(images, max_pixels) -> list:
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
 @click.option("-k", "--colours", "ks", default=DEFAULT_K_TEXT, show_default=True, callback=_range_option,
               metavar="MIN-MAX", help="Palette sizes to sweep, inclusive (at most 64).")
-@click.option("--space", type=click.Choice(SPACE_NAMES), default="lab", show_default=True,
-              help="Perceptual space the palettes are fitted in.")
-@click.option("--rule", type=click.Choice(("auto", "bic", "target")), default=None,
-              help="Rule whose pick is marked: auto (default: artwork or photo, judged), penalised score (bic) "
-                   "or a ΔE00 target.")
-@click.option("--target", type=click.FloatRange(min=0, min_open=True), default=None,
-              help="ΔE00 target: also report the smallest size that meets it.")
-@click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean", show_default=True,
-              help="Which ΔE00 statistic the target applies to.")
-@click.option("--lock", "locked", multiple=True, metavar="COLOUR",
-              help="Hold a colour fixed in every palette: #rrggbb or L,a,b. Repeatable.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Random seed; same seed, same sweep.")
-@click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
-              help="Fresh k-means++ restarts per size, at least 1 (warm starts come on top).")
+@_fit_options(skip=("colours",))
 @click.option("--warm/--cold", default=False, show_default=True,
               help="Also start each size from the one before (the cost then never rises with the size, "
                    "but a row depends on the rows before it); --cold: each size on its own, as reduce fits it.")
 @click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="Pooled images count equally, or by their pixel count.")
-@click.option("--max-pixels", type=click.IntRange(min=1), default=None, help="Decompression-bomb guard.")
 @click.option("--table-csv", type=click.Path(dir_okay=False), default=None, help="Write the table as CSV.")
 @click.option("--table-json", type=click.Path(dir_okay=False), default=None, help="Write the table as JSON.")
 @click.option("--plot", type=click.Path(dir_okay=False), default=None, callback=_png_path,
@@ -81,27 +66,19 @@ def _decoded(images, max_pixels) -> list:
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
-def sweep(ctx, images, ks, space, rule, target, target_stat, locked, seed, restarts, warm, weighting,
-          max_pixels, table_csv, table_json, plot, swatches, report_dir, force, as_json):
+def sweep(ctx, images, ks, warm, weighting, max_pixels, table_csv, table_json, plot, swatches, report_dir, force,
+          as_json, **fit_opts):
     """Fit a palette at every size from MIN to MAX to IMAGES (pooled) and tabulate
     the k-means cost, ΔE00 mean / p95 / max and the penalised score; mark the
     size each rule picks."""
 
     t0 = time.perf_counter()
-    rule = rule or ("target" if target is not None else "auto")
-    if rule == "target" and target is None:
-        raise click.UsageError("--rule target needs --target DELTA_E")
+    settings = _fit_settings(fit_opts, weighting=weighting, warm=warm)  # reduce's options, reduce's checks
+    space, rule = settings.space, settings.rule
     files = [p for p in (table_csv, table_json, plot, swatches) if p]
     if len({Path(p).resolve() for p in files}) != len(files):
         raise click.UsageError("two outputs name the same file")
     _check_outputs(files + _report_targets(report_dir), force, images)
-    from quantize.fit.settings import FitSettings
-
-    try:
-        settings = FitSettings(space=space, restarts=restarts, seed=seed, locked=list(locked), rule=rule,
-                               target=target, target_stat=target_stat, weighting=weighting, warm=warm)
-    except ValueError as exc:
-        raise _Failure(str(exc)) from None
 
     def work():
         from quantize.fit.sweep import sweep as run_sweep

@@ -17,7 +17,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from quantize.core.regions import find_regions
-from quantize.palette import FitCandidate, FitRecord, Palette
+from quantize.palette import FitCandidate, FitRecord, Palette, renamed_keywords
 from quantize.quality.stats import coverage_percent, delta_e_stats
 
 from .clustering import PaletteSizeWarning, kmeans, lloyd_from, tolerance_scale
@@ -481,6 +481,22 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             for k, fine, start, (pal, merged, labels, de, refined) in done]
 
 
+def settings_of(settings: FitSettings | None, options: dict, where: str) -> FitSettings:
+    """The :class:`FitSettings` of a public function's keyword options.
+
+    The keywords are named as the command line's options: ``seeding``
+    (``--seeding``, the field ``init``) and ``nearest`` (``--nearest``, the
+    field ``metric``; ``"auto"`` is the default).  The old names ``init`` and
+    ``metric`` still work, with a DeprecationWarning pointed at the caller
+    of ``where``.
+    """
+    opts = renamed_keywords(options, where, ("init", "metric"), stacklevel=4)
+    for new, field_name in (("seeding", "init"), ("nearest", "metric")):
+        if new in opts:
+            opts[field_name] = opts.pop(new)
+    return FitSettings.of(settings, **opts)
+
+
 def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixels=None,
                 progress: Callable | None = None, **options) -> Palette:
     """Fit an N-colour palette to one image or a set of images.
@@ -501,7 +517,9 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     progress : callable, optional
         Called with each k as it is fitted.
     **options
-        Fields of :class:`quantize.fit.settings.FitSettings`:
+        Fields of :class:`quantize.fit.settings.FitSettings`, named as the
+        command line's options (``seeding`` and ``nearest``; the old names
+        ``init`` and ``metric`` still work, with a DeprecationWarning):
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
         Perceptual space of the fit.
     restarts : int, default=8
@@ -523,10 +541,12 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     target : float, optional
         ΔE00 target of the ``"target"`` rule.
     target_stat : {"mean", "p95"}, default="mean"
-    init : {"k-means++", "random", "farthest"}, default="k-means++"
+    seeding : {"k-means++", "random", "farthest"}, default="k-means++"
+        How each restart picks its first centres (the field ``init``).
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count: equally, or by pixel count.
-    metric : {"ciede2000", "space"}, optional
+    nearest : {"ciede2000", "space", "auto"}, optional
+        (The field ``metric``.)
         Nearest-colour metric the palette is refined for and each candidate
         measured with (default CIEDE2000, as :meth:`Palette.apply` maps).
     refine : {"robust", "none"}, default="robust"
@@ -584,7 +604,7 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     >>> sorted(pal.hex)
     ['#000000', '#c81e28']
     """
-    settings = FitSettings.of(settings, **options)
+    settings = settings_of(settings, options, "fit_palette")
     ks = parse_k(DEFAULT_K if k is None else k)
     settings.check_sizes(ks)  # before any image is read
     pictures: list = []

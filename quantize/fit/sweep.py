@@ -71,7 +71,9 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
     from .inkcount import auto_choice
     from .selection import choose_k
 
-    settings = FitSettings.of(settings, **options)
+    from .engine import settings_of
+
+    settings = settings_of(settings, options, "sweep_sample")
     settings.check_sizes(ks)
     cands = fit_sizes(sample, list(ks), settings, progress=progress)
     notes = [f"k = {c.k}: rounding to 8 bits merged colours; the palette has {c.palette.k}"
@@ -116,7 +118,9 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     progress : callable, optional
         Called with each k once it is done.
     **options
-        Fields of :class:`quantize.fit.settings.FitSettings`:
+        Fields of :class:`quantize.fit.settings.FitSettings`, named as the
+        command line's options (``seeding`` and ``nearest``; the old names
+        ``init`` and ``metric`` still work, with a DeprecationWarning):
     space : {"lab", "oklab", "cam16ucs"}, default="lab"
         Perceptual space of the fit; the cost is measured there.
     restarts : int, default=8
@@ -133,11 +137,11 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     target : float, optional
         ΔE00 target of the ``"target"`` rule.
     target_stat : {"mean", "p95"}, default="mean"
-    init : {"k-means++", "random", "farthest"}, default="k-means++"
-        Seeding of the fresh restarts.
+    seeding : {"k-means++", "random", "farthest"}, default="k-means++"
+        Seeding of the fresh restarts (the field ``init``).
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count.
-    metric : {"ciede2000", "space"}, optional
+    nearest : {"ciede2000", "space", "auto"}, optional
         Nearest-colour metric used to refine and measure each palette
         (default CIEDE2000).
     refine : {"robust", "none"}, default="robust"
@@ -192,10 +196,10 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     """
     from quantize.core.sampling import pool_samples
 
-    from .engine import load_samples
+    from .engine import load_samples, settings_of
 
     ks = parse_sweep_range(ks)
-    settings = FitSettings.of(settings, **options)
+    settings = settings_of(settings, options, "sweep")
     settings.check_sizes(ks)  # before any image is read
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
