@@ -89,7 +89,9 @@ _NO_LOCATOR = (
     # where file permissions cannot make a folder read-only.)
     "import runpy, sys\n"
     "from numba.core import caching\n"
-    "caching.CacheImpl._locator_classes = [caching.UserProvidedCacheLocator]\n"
+    # numba before 0.60 names the class with a leading underscore.
+    "locator = getattr(caching, 'UserProvidedCacheLocator', None) or caching._UserProvidedCacheLocator\n"
+    "caching.CacheImpl._locator_classes = [locator]\n"
     "if sys.argv[1] == 'kernel':\n"
     "    import numpy as np\n"
     "    from quantize.kernels.loading import compiled\n"

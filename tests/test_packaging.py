@@ -33,3 +33,12 @@ def test_the_licence_file_is_the_licence_claimed():
     assert "Redistributions of source code must retain" in text
     assert "Redistributions in binary form must reproduce" in text
     assert "Neither the name of the copyright holder" in text
+
+
+def test_the_command_reports_the_package_version():
+    from click.testing import CliRunner
+
+    from quantize.cli.main import main
+
+    res = CliRunner().invoke(main, ["--version"])
+    assert res.exit_code == 0 and res.output.strip() == f"quantize, version {quantize.__version__}"

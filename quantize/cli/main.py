@@ -12,6 +12,8 @@ import warnings
 
 import click
 
+from quantize import __version__
+
 from .apply import apply
 from .batch import batch
 from .fit import fit
@@ -47,7 +49,7 @@ def _warning_line(message, category, filename, lineno, line=None) -> str:
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show full tracebacks on errors.")
-@click.version_option(package_name="quantize")
+@click.version_option(version=__version__, prog_name="quantize")
 @click.pass_context
 def main(ctx, debug):
     """Reduce images to a small, fixed palette of colours in a perceptual space,

@@ -517,6 +517,10 @@ def delta_e_ciede2000(lab1: ArrayLike, lab2: ArrayLike, *, kL: float = 1.0,
     # which is then 0 whatever the hues, so those cases need no code.
     dhp = h2p - h1p
     far = np.abs(dhp) > np.pi  # hue angles more than 180 degrees apart
+    # Exactly opposite hues (the cross product of (a', b') is exactly 0, the dot product negative) are
+    # 180 degrees apart, not more: decided from the coordinates, not from the last bit of arctan2,
+    # which differs between numpy versions (Sharma et al. 2005, Table 1, pair 10).
+    far &= ~((a1p * b2 == a2p * b1) & (a1p * a2p + b1 * b2 < 0.0))
     # Mean hue (eq. 14): move the sum by 360 degrees when the hues are far
     # apart (up if it is below 360, else down), then halve it.
     hbar = h1p + h2p

@@ -162,10 +162,13 @@ def _angle_form(L1, a1, b1, L2, a2, b2):
     h1 = np.arctan2(b1, a1p) % (2.0 * np.pi)
     h2 = np.arctan2(b2, a2p) % (2.0 * np.pi)
     cc = c1p * c2p
+    # Exactly opposite hues are 180 degrees apart, decided from the coordinates (as colour.spaces does).
+    opposite = (a1p * b2 == a2p * b1) & (a1p * a2p + b1 * b2 < 0.0)
     dhp = h2 - h1
-    dhp = np.where(dhp > np.pi, dhp - 2.0 * np.pi, np.where(dhp < -np.pi, dhp + 2.0 * np.pi, dhp))
+    wrapped = np.where(dhp > np.pi, dhp - 2.0 * np.pi, np.where(dhp < -np.pi, dhp + 2.0 * np.pi, dhp))
+    dhp = np.where(opposite, dhp, wrapped)
     hbar = h1 + h2
-    shift = (np.abs(h1 - h2) > np.pi) & (cc != 0.0)
+    shift = (np.abs(h1 - h2) > np.pi) & (cc != 0.0) & ~opposite
     hbar = np.where(shift, np.where(hbar < 2.0 * np.pi, hbar + 2.0 * np.pi, hbar - 2.0 * np.pi), hbar)
     hbar = np.where(cc != 0.0, 0.5 * hbar, hbar)
     dh = 2.0 * np.sqrt(cc) * np.sin(0.5 * np.where(cc != 0.0, dhp, 0.0))
