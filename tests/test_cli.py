@@ -399,3 +399,82 @@ def test_the_dither_line_describes_the_method_it_ran(art, tmp_path, method, says
     assert r.exit_code == 0, r.output
     line = next(x for x in r.stdout.splitlines() if x.startswith("dither:"))
     assert says in line and not any(w in line for w in never)
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="a pseudo-terminal needs POSIX")
+@pytest.mark.parametrize("env, flag, coloured", [({}, [], True), ({"NO_COLOR": "1"}, [], False),
+                                                 ({"NO_COLOR": "1"}, ["--color", "always"], True),
+                                                 ({}, ["--color", "never"], False)])
+def test_colour_follows_no_color_and_the_color_option_on_a_terminal(tmp_path, env, flag, coloured):
+    # no-color.org: a non-empty NO_COLOR turns colour off; an explicit --color wins.
+    import os
+    import pty
+    import subprocess
+
+    src = tmp_path / "a.png"
+    img = np.full((20, 30, 3), 240, np.uint8)
+    img[5:15, 5:25] = (200, 30, 40)
+    Image.fromarray(img).save(src)
+    leader, follower = pty.openpty()
+    run_env = {k: v for k, v in os.environ.items() if k != "NO_COLOR"} | env
+    proc = subprocess.run([sys.executable, "-m", "quantize", *flag, "reduce", str(src), "-o", str(tmp_path / "o.png"),
+                           "-k", "2"], stdout=follower, stderr=subprocess.PIPE, env=run_env, timeout=300)
+    os.close(follower)
+    out = b""
+    while True:
+        try:
+            chunk = os.read(leader, 65536)
+        except OSError:
+            break
+        if not chunk:
+            break
+        out += chunk
+    os.close(leader)
+    assert proc.returncode == 0, proc.stderr
+    assert b"#c81e28" in out
+    assert (b"\x1b[" in out) == coloured
+
+
+def test_every_json_summary_names_its_schema_and_version(tmp_path):
+    # Like the palette and manifest files: a reader can tell which layout it has.
+    src = tmp_path / "a.png"
+    img = np.full((20, 30, 3), 240, np.uint8)
+    img[5:15, 5:25] = (200, 30, 40)
+    Image.fromarray(img).save(src)
+    runs = {"reduce": ["reduce", str(src), "-o", str(tmp_path / "r.png"), "-k", "2", "--keep-palette"],
+            "fit": ["fit", str(src), "-o", str(tmp_path / "f.json"), "-k", "2"],
+            "sweep": ["sweep", str(src), "-k", "2-3"]}
+    for name, args in runs.items():
+        res = CliRunner().invoke(main, [*args, "--json"])
+        assert res.exit_code == 0, res.output
+        doc = json.loads(res.stdout)
+        assert doc["format"] == f"quantize.{name}.summary" and doc["version"] == 1
+    res = CliRunner().invoke(main, ["apply", str(tmp_path / "r.palette.json"), str(src), "-o", str(tmp_path / "ap"),
+                                    "--json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["format"] == "quantize.apply.summary"
+    (tmp_path / "in").mkdir()
+    Image.fromarray(img).save(tmp_path / "in" / "a.png")
+    res = CliRunner().invoke(main, ["batch", str(tmp_path / "in"), "-o", str(tmp_path / "bo"), "-k", "2", "--workers", "0",
+                                    "--json"])
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)["format"] == "quantize.batch.summary"
+
+
+def test_quiet_prints_no_summary_and_verbose_logs_to_stderr(tmp_path):
+    import logging
+
+    src = tmp_path / "a.png"
+    img = np.full((20, 30, 3), 240, np.uint8)
+    img[5:15, 5:25] = (200, 30, 40)
+    Image.fromarray(img).save(src)
+    quiet = CliRunner().invoke(main, ["-q", "reduce", str(src), "-o", str(tmp_path / "q.png"), "-k", "2"])
+    assert quiet.exit_code == 0 and quiet.stdout == "" and (tmp_path / "q.png").exists()
+    loud = CliRunner().invoke(main, ["-v", "reduce", str(src), "-o", str(tmp_path / "v.png"), "-k", "2"])
+    assert loud.exit_code == 0
+    assert f"read {src}" in loud.stderr and f"wrote {tmp_path / 'v.png'}" in loud.stderr
+    assert "#c81e28" in loud.stdout  # the summary still prints
+    # The command leaves the logging set-up as it found it.
+    assert not logging.getLogger("quantize").handlers
+    plain = CliRunner().invoke(main, ["reduce", str(src), "-o", str(tmp_path / "p.png"), "-k", "2"])
+    assert "wrote" not in plain.stderr

@@ -190,8 +190,20 @@ def _fit_with_progress(images, k: str | None, settings, max_pixels):
         return fit_palette(images, k, settings=settings, max_pixels=max_pixels, progress=lambda _: bar.update(1))
 
 
+def _colour_on() -> bool:
+    """Whether to print colour: --color always / never, else on a terminal unless NO_COLOR is set
+    (no-color.org: any non-empty value)."""
+    import os
+
+    ctx = click.get_current_context(silent=True)
+    mode = ((ctx.find_root().obj or {}).get("colour") if ctx else None) or "auto"
+    if mode != "auto":
+        return mode == "always"
+    return not os.environ.get("NO_COLOR") and sys.stdout.isatty()
+
+
 def _swatch(hexcode: str) -> str:
-    if not sys.stdout.isatty():
+    if not _colour_on():
         return ""
     r, g, b = (int(hexcode[i:i + 2], 16) for i in (1, 3, 5))
     return click.style("    ", bg=(r, g, b)) + " "
@@ -217,7 +229,8 @@ def _print_palette(rows):
         flag = " locked" if r["locked"] else ""
         unused = "  (unused: no pixel maps here)" if "coverage" in r and r["coverage"] == 0 else ""
         L, a, b = r["lab"]
-        click.echo(f"  {r['index']:>3} {_swatch(r['hex'])}{r['hex']}  Lab {L:6.2f} {a:7.2f} {b:7.2f}  {cov}{flag}{unused}")
+        click.echo(f"  {r['index']:>3} {_swatch(r['hex'])}{r['hex']}  Lab {L:6.2f} {a:7.2f} {b:7.2f}  {cov}{flag}{unused}",
+                   color=_colour_on() or None)
 
 
 def _print_de(label, stats):
@@ -225,10 +238,28 @@ def _print_de(label, stats):
                f"p95 {stats['p95']:.2f}  max {stats['max']:.2f}")
 
 
+#: Version of the --json summaries' layout; raise it when a key changes meaning or goes away.
+SUMMARY_VERSION = 1
+
+
+def _with_schema(summary: dict) -> dict:
+    """The summary under its schema's name and version (``quantize.<command>.summary``), as the palette
+    and manifest files carry theirs."""
+    ctx = click.get_current_context(silent=True)
+    command = ctx.info_name if ctx is not None and ctx.info_name else "command"
+    return {"format": f"quantize.{command}.summary", "version": SUMMARY_VERSION, **summary}
+
+
+def _quiet() -> bool:
+    """Whether -q asked for no summary."""
+    ctx = click.get_current_context(silent=True)
+    return bool(ctx and (ctx.find_root().obj or {}).get("quiet"))
+
+
 def _emit(as_json: bool, summary: dict, human):
     if as_json:
-        click.echo(json.dumps(summary, indent=2, ensure_ascii=False))
-    else:
+        click.echo(json.dumps(_with_schema(summary), indent=2, ensure_ascii=False))
+    elif not _quiet():
         human()
         click.echo(f"done in {summary['seconds']:.2f} s")
 

@@ -15,7 +15,7 @@ import click
 # Choices and defaults from the library's settings module, which imports nothing heavy.
 from quantize.batch.settings import DEFAULT_WORST, FORMATS, WEIGHTINGS
 
-from ._common import _check_indexed_size, _Failure, _fit_options, _fit_settings
+from ._common import _check_indexed_size, _Failure, _fit_options, _fit_settings, _quiet, _with_schema
 from .dither_options import dither_method_options, pop_dither_options
 
 #: Exit code when the run finished but some images failed.
@@ -118,8 +118,8 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
                "palette_report": doc.get("palette_report"), "manifest": [str(p) for p in res.manifest_paths],
                "notes": res.notes, "seconds": doc["seconds"]}
     if as_json:
-        click.echo(json.dumps(summary, indent=2, ensure_ascii=False))
-    else:
+        click.echo(json.dumps(_with_schema(summary), indent=2, ensure_ascii=False))
+    elif not _quiet():
         click.echo(f"{s['total']} images: {s['ok']} done, {s['skipped']} up to date, {s['failed']} failed"
                    f" in {doc['seconds']:.1f} s; reduced images {doc['image_bytes'] / 1000:.1f} kB")
         for f in failed:

@@ -32,7 +32,7 @@ def _stop_on_terminate(ctx: click.Context) -> None:
     import signal
 
     def interrupt(signum, frame):
-        raise KeyboardInterrupt
+        raise _Terminated
 
     try:
         saved = signal.signal(signal.SIGTERM, interrupt)
@@ -41,17 +41,69 @@ def _stop_on_terminate(ctx: click.Context) -> None:
     ctx.call_on_close(lambda: signal.signal(signal.SIGTERM, saved))
 
 
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, raised as an interrupt so that the same clean-up runs."""
+
+
+class _Commands(click.Group):
+    """The command group: an interrupt ends the run with one line and the shell's exit code.
+
+    Ctrl-C exits 130 and SIGTERM 143 (128 + the signal's number, as shells report them), after the
+    atomic writers have removed their temporary files; never a traceback.
+    """
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except KeyboardInterrupt as exc:
+            terminated = isinstance(exc, _Terminated)
+            click.echo(f"quantize: {'terminated' if terminated else 'interrupted'}; nothing half-written is left",
+                       err=True)
+            ctx.exit(143 if terminated else 130)
+
+
+def _log_to_stderr(ctx: click.Context, verbose: int) -> None:
+    """Send the library's log records (logger ``quantize``) to stderr at the level -v asks for.
+
+    The library only creates loggers; the command line, which owns this process, attaches the
+    handler, and removes it when the command ends. Warnings stay with :mod:`warnings`, printed once.
+    """
+    import logging
+
+    if not verbose:
+        return
+    logger = logging.getLogger("quantize")
+    handler = logging.StreamHandler()
+    handler.setFormatter(logging.Formatter("quantize: %(message)s"))
+    saved = logger.level
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO if verbose == 1 else logging.DEBUG)
+
+    def restore():
+        logger.removeHandler(handler)
+        logger.setLevel(saved)
+
+    ctx.call_on_close(restore)
+
+
 def _warning_line(message, category, filename, lineno, line=None) -> str:
     """Warnings as one line, like errors, without the source line Python adds."""
     text = (str(message).splitlines() or [category.__name__])[0]
     return f"quantize: warning: {text}\n"
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=_Commands, context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show full tracebacks on errors.")
+@click.option("--color", "--colour", "colour", type=click.Choice(["auto", "always", "never"]), default="auto",
+              show_default=True, help="Colour swatches in the terminal; auto: only on a terminal, and never when "
+                                      "the NO_COLOR environment variable is set.")
+@click.option("-v", "--verbose", count=True,
+              help="Say what is read, fitted and written (-vv: more), on stderr through Python's logging.")
+@click.option("-q", "--quiet", is_flag=True,
+              help="Print no summary: only errors and warnings (and --json output, when asked for).")
 @click.version_option(version=__version__, prog_name="quantize")
 @click.pass_context
-def main(ctx, debug):
+def main(ctx, debug, colour, verbose, quiet):
     """Reduce images to a small, fixed palette of colours in a perceptual space,
     and report the CIEDE2000 (ΔE00) error of each reduction.
 
@@ -60,6 +112,9 @@ def main(ctx, debug):
     """
     ctx.ensure_object(dict)
     ctx.obj["debug"] = debug
+    ctx.obj["colour"] = colour
+    ctx.obj["quiet"] = quiet
+    _log_to_stderr(ctx, verbose)
     _stop_on_terminate(ctx)
     if not debug:
         saved = warnings.formatwarning

@@ -49,8 +49,8 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     from quantize.io.write import SAVE_FORMATS
 
     if out.suffix.lower() not in SAVE_FORMATS:  # refused before the fit, not after it
-        raise _Failure(f"{output}: unsupported output extension {out.suffix or '(none)'!r}; "
-                       f"use one of {', '.join(SAVE_FORMATS)}")
+        raise click.BadParameter(f"{output}: unsupported output extension {out.suffix or '(none)'!r}; "
+                                 f"use one of {', '.join(SAVE_FORMATS)}", param_hint="'-o' / '--output'")
     pal_path = out.with_name(out.stem + ".palette.json") if keep_palette else None
     emap = [Path(dopts.error_map)] if dopts.error_map else []
     _check_outputs([out] + ([pal_path] if pal_path else []) + emap + _report_targets(report_dir), force, [image])

@@ -29,7 +29,7 @@ from quantize.separation.defaults import (
     DEFAULT_VIEW_DISTANCE_MM,
 )
 
-from ._common import _run
+from ._common import _quiet, _run
 
 _UNITS_MM = {"mm": 1.0, "cm": 10.0, "in": 25.4, '"': 25.4}
 
@@ -228,6 +228,8 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         doc["manifest_file"] = str(written["manifest"])
         doc["seconds"] = round(time.perf_counter() - t0, 3)
         click.echo(json.dumps(doc, indent=2, ensure_ascii=False))
+        return
+    if _quiet():
         return
     films = sep.films()
     g = sep.film

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import functools
+import logging
 import warnings
 from dataclasses import dataclass
 from typing import Any, Callable, Sequence
@@ -79,6 +80,9 @@ class Candidate:
     refined: str
     start: str = "fresh"
     merged: bool = False
+
+
+_log = logging.getLogger(__name__)
 
 
 def parse_k(k) -> list[int]:
@@ -646,6 +650,8 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
         warnings.warn(n, PaletteSizeWarning, stacklevel=2)
     chosen = cands[[c.palette.k for c in cands].index(record.k)]
     pal = Palette(chosen.palette.rgb8, chosen.palette.locked, settings.space, fit=record)
+    _log.info("fitted %d colours (rule %s; sizes tried %s): mean ΔE00 %.3f", pal.k, record.rule,
+              ",".join(str(c.palette.k) for c in cands), record.delta_e["mean"])
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
     sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
     return pal

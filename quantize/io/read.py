@@ -46,6 +46,7 @@ Writing results (atomically) lives in :mod:`quantize.io.write`.
 from __future__ import annotations
 
 import contextlib
+import logging
 import os
 import warnings
 from collections.abc import Callable
@@ -94,6 +95,9 @@ _PIL_8BIT_MODES = {"1", "L", "LA", "La", "P", "PA", "RGB", "RGBA", "RGBa", "RGBX
 _PIL_DEEP_GREY = {"I;16", "I;16L", "I;16B", "I;16N", "I", "F"}
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
+
+
+_log = logging.getLogger(__name__)
 
 
 def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -> Picture:
@@ -339,6 +343,9 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
                     tail = np.asarray(img.crop((0, max(0, h - 2), img.size[0], h)))
                     _check_png_complete(tail.reshape(tail.shape[0], -1), p, name)
                 picture = _finish(name, *_from_pil(img, name, notes), notes)
+    _log.info("read %s: %d x %d px, %d bit%s%s", name, picture.shape[1], picture.shape[0], picture.bit_depth,
+              ", alpha" if picture.alpha is not None else "",
+              f", profile {picture.profile!r}" if picture.profile else "")
     return picture, notes
 
 

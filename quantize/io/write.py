@@ -9,6 +9,7 @@ Readers are in :mod:`quantize.io.read`.
 
 
 import contextlib
+import logging
 import os
 import tempfile
 import warnings
@@ -78,6 +79,9 @@ class WrittenImage:
         return self.decoded is not None
 
 
+_log = logging.getLogger(__name__)
+
+
 def write_image(
     path: PathLike,
     indices: np.ndarray,
@@ -115,6 +119,7 @@ def write_image(
     dpi = _check_dpi(dpi)
     enc = encode(fmt, idx, palette, a8, dpi if fmt in _KEEPS_DPI else None, os.fspath(path))
     written = _atomic_write(target, lambda fh: fh.write(enc.data), force=force, inputs=inputs)
+    _log.info("wrote %s: %s, %d bytes", os.fspath(path), fmt, len(enc.data))
     return WrittenImage(written, fmt, len(enc.data), enc.palette_entries, enc.alpha_step,
                         enc.alpha_max_change, enc.decoded, enc.cleared, enc.notes)
 
