@@ -167,8 +167,9 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
                "error_map": None}
     lines = []
     if choice.dither != "none":
-        scan = ", serpentine" if choice.serpentine else ", raster"
-        lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
+        from quantize.render.methods import describe
+
+        lines.append("dither: " + describe(choice.dither, strength=choice.strength, serpentine=choice.serpentine))
     filtered = None  # the filtered ΔE00 map: measured once, for the statistics and the error map
     if choice.viewing:
         from quantize.quality.perception import delta_e_map, with_filtered_delta_e
