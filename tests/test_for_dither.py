@@ -88,3 +88,124 @@ def test_spread_keeps_locked_colours_and_a_covering_palette():
     # A palette whose hull already holds every colour (the cube's corners) stays as it is.
     cube = np.array(list(itertools.product([0.0, 1.0], repeat=3)))
     assert_array_equal(fd.spread_for_dither(cube, np.zeros(8, bool), lin, w), cube)
+
+
+# --------------------------------------------------------------------------- the fit for a dither, end to end
+
+VIEW = {"dpi": 150, "distance_mm": 500}  # a print held at arm's length (51.5 px/degree)
+
+
+def _sky(h=240, w=96):
+    """A vertical dusk-sky gradient made here: dark blue, purple, orange, pale yellow (encoded sRGB stops)."""
+    stops = np.array([[0.11, 0.16, 0.38], [0.50, 0.33, 0.55], [0.98, 0.62, 0.40], [1.0, 0.85, 0.55]])
+    t = np.linspace(0, 1, h) * (len(stops) - 1)
+    i = np.minimum(t.astype(int), len(stops) - 2)
+    f = (t - i)[:, None]
+    rows = (1 - f) * stops[i] + f * stops[i + 1]
+    return np.rint(np.broadcast_to(rows[:, None, :], (h, w, 3)) * 255).astype(np.uint8)
+
+
+def _row_band(original, mapped, half=4):
+    """Per row, ΔE00 between the mean colours (linear light) of rows y-half..y+half, full width, of both images."""
+    from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab
+
+    kernel = np.ones(2 * half + 1) / (2 * half + 1)
+
+    def local_mean(img):
+        rows = srgb_to_linear(img / 255.0).mean(axis=1)
+        return np.stack([np.convolve(rows[:, c], kernel, mode="valid") for c in range(3)], axis=1)
+
+    return delta_e_ciede2000(srgb_to_lab(linear_to_srgb(local_mean(original))),
+                             srgb_to_lab(linear_to_srgb(local_mean(mapped))))
+
+
+@pytest.fixture(scope="module")
+def sky_palettes():
+    from quantize.fit.engine import fit_palette
+
+    img = _sky()
+    return img, fit_palette(img, 8), fit_palette(img, 8, for_dither=True)
+
+
+def test_dithered_gradient_has_no_row_band(sky_palettes):
+    img, plain, for_dither = sky_palettes
+    # Issue 17's criterion: the local mean of the dithered image follows the
+    # original's, row by row, within ΔE00 1.5.  With the palette fitted as if
+    # no dither followed, the ends of the ramp lie outside what its colours
+    # can mix and come out as flat bands.
+    before = _row_band(img, plain.apply(img, dither="floyd-steinberg").rgb)
+    after = _row_band(img, for_dither.apply(img, dither="floyd-steinberg").rgb)
+    assert before.max() > 1.5
+    assert after.max() <= 1.5
+
+
+@pytest.mark.filterwarnings("ignore::quantize.fit.clustering.PaletteSizeWarning")
+def test_fit_for_dither_lowers_the_filtered_error(sky_palettes):
+    from skimage import data
+
+    from quantize.fit.engine import fit_palette
+    from quantize.quality.perception import filtered_delta_e
+
+    img, plain, for_dither = sky_palettes
+    photo = data.chelsea()[::2, ::2]  # scikit-image sample photograph, halved for time
+    cases = [(img, plain, for_dither), (photo, fit_palette(photo, 8, restarts=2),
+                                        fit_palette(photo, 8, restarts=2, for_dither=True))]
+    for image, before, after in cases:
+        # S-CIELAB (Zhang & Wandell 1996) filtered ΔE00, the viewer's measure of a dither.
+        fb = filtered_delta_e(image, before.apply(image, dither="floyd-steinberg"), **VIEW)["mean"]
+        fa = filtered_delta_e(image, after.apply(image, dither="floyd-steinberg"), **VIEW)["mean"]
+        assert fa < 0.8 * fb, (fa, fb)
+
+
+def test_spread_keeps_flat_areas_and_locked_colours_exact():
+    from quantize.core.sampling import sample_picture
+    from quantize.io.read import as_picture
+    from quantize.palette import Palette
+
+    img = _sky(h=160, w=96).copy()
+    img[:24] = np.rint(np.linspace(30, 58, 24)[:, None, None] * np.array([1.0, 40 / 58, 74 / 58]))  # night
+    img[120:, :] = (58, 40, 74)  # a flat dark hill, a quarter of the picture
+    # A palette as a fit gives it: the hill's colour exactly, the rest inside the sky.
+    rgb8 = np.array([[58, 40, 74], [120, 84, 136], [200, 130, 120], [245, 160, 105], [250, 205, 135],
+                     [255, 255, 255]], np.uint8)
+    pal = Palette(rgb8, locked=np.array([False] * 5 + [True]))
+    moved, n = fd.palette_for_dither(pal, sample_picture(as_picture(img)))
+    assert n > 0 and moved.k == 6
+    # The night lies beyond the hill's colour, yet that colour stays: moved,
+    # the hill would no longer be exact and would be dithered into speckles.
+    assert_array_equal(moved.rgb8[0], rgb8[0])
+    assert_array_equal(moved.rgb8[5], rgb8[5])  # locked
+    out = moved.apply(img, dither="floyd-steinberg").rgb
+    assert (out[124:, 4:-4] == (58, 40, 74)).all()
+    # Same input, same palette.
+    assert_array_equal(fd.palette_for_dither(pal, sample_picture(as_picture(img)))[0].rgb8, moved.rgb8)
+
+
+def test_without_a_dither_the_palette_is_unchanged():
+    from quantize.fit.engine import fit_palette
+    from quantize.fit.settings import FitSettings
+
+    img = _sky(h=96, w=32)
+    assert_array_equal(fit_palette(img, 5).rgb8, fit_palette(img, 5, for_dither=False).rgb8)
+    with pytest.raises(ValueError, match="for_dither must be True or False"):
+        FitSettings(for_dither="yes")
+
+
+def test_reduce_fits_for_the_dither_and_the_written_file_shows_no_band(tmp_path):
+    from click.testing import CliRunner
+    from PIL import Image
+
+    from quantize.cli.main import main
+
+    src = tmp_path / "sky.png"
+    Image.fromarray(_sky()).save(src)
+    outs = {}
+    for dither in ("none", "floyd-steinberg"):
+        out = tmp_path / f"{dither}.png"
+        r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "8", "--dither", dither])
+        assert r.exit_code == 0, r.output
+        assert ("moved outward for dithering" in r.output) == (dither != "none")
+        with Image.open(out) as im:
+            assert im.mode == "P"
+            outs[dither] = np.asarray(im.convert("RGB"))
+    assert _row_band(_sky(), outs["floyd-steinberg"]).max() <= 1.5

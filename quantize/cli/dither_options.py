@@ -58,6 +58,14 @@ class DitherChoice:
         """Keyword arguments for ``Palette.apply`` / ``map_picture``."""
         return {"dither": self.dither, "strength": self.strength, "serpentine": self.serpentine}
 
+    def fit_settings(self, settings):
+        """``settings`` (a FitSettings) for a palette this dither will follow: fitted for it when one does."""
+        if self.dither == "none" or self.strength == 0.0:
+            return settings
+        from quantize.fit.settings import FitSettings
+
+        return FitSettings.of(settings, for_dither=True)
+
 
 #: The defaults of every option: the command line's and pop_dither_options' one source.
 _DEFAULT = DitherChoice()

@@ -15,15 +15,14 @@ image's colours, all but a trimmed share of the pixels, lie in or within a
 small tolerance of the hull.  Each step finds, for every colour outside,
 its nearest point on the hull (barycentric weights over the palette colours)
 and moves each palette colour by the weighted mean of the residuals it
-carries: a Gauss-Newton step on the summed squared distance to the hull.
-Locked colours do not move.  The step is deterministic (no randomness), so
-the same seed still gives the same palette.
-
-Status: not yet wired into the fit (no :class:`FitSettings` field calls it).
-Measured (docs/dithering.md) it lowers the filtered ΔE00 of a Floyd-Steinberg
-dither on every test image, but the step stalls short of closing the gap on
-curved colour ramps (the darkest sky of ``dusk_sky.png`` stays outside), and
-it moves palette colours that flat areas used exactly, which then speckle.
+carries: a Gauss-Newton step on the summed squared distance to the hull.  A
+moved colour is then put back inside the image's own colour range (the hull
+of its extreme colours), so the palette gains no colour the image lacks.
+Locked colours do not move, nor do colours that a flat area of the image
+matches exactly (:func:`palette_for_dither`): moved, that area would be
+dithered into speckles.  Nothing is random, so the same seed still gives the
+same palette.  :class:`quantize.fit.settings.FitSettings` ``for_dither``
+asks for it; the ``reduce`` command does when it dithers.
 
 The nearest hull point is the projection onto the simplex of barycentric
 weights, solved by accelerated projected gradient (FISTA, A. Beck and
@@ -50,6 +49,12 @@ TOLERANCE = 1e-3
 TRIM = 0.002
 #: Outer steps of the spreading at most.
 STEPS = 40
+#: Cells of colours the spreading follows at most, unless the coarser cells are still more.
+MAX_CELLS = 8000
+#: Steps between checks of every colour against the hull.
+FULL_CHECK = 8
+#: A step that moves no colour further than this (linear light) ends the spreading.
+MIN_STEP = 2e-4
 
 
 def project_simplex(v: np.ndarray) -> np.ndarray:
@@ -117,18 +122,23 @@ def outside_share(points: np.ndarray, weights: np.ndarray, vertices: np.ndarray,
     return float(weights[dist > tolerance].sum() / weights.sum())
 
 
-def _candidates(colours_lin: np.ndarray, weights: np.ndarray, bits: int = 6):
-    """Pool the colours into cells of ``bits`` per channel of *encoded* sRGB (weighted means in linear light).
+def _candidates(colours_lin: np.ndarray, weights: np.ndarray):
+    """Pool the colours into cells of *encoded* sRGB (weighted means in linear light).
 
     The hull needs no more detail; cells in encoded values keep the dark
     tones apart, where linear-light cells would pool a whole shadow range.
+    Cells are 4 codes wide, or 8 where that leaves more than
+    :data:`MAX_CELLS` of them (photos: the time goes with the cells).
     """
     from quantize.colour.spaces import linear_to_srgb
 
     enc = linear_to_srgb(colours_lin)
-    cells = np.minimum((enc * (1 << bits)).astype(np.int64), (1 << bits) - 1)
-    key = (cells[:, 0] << (2 * bits)) | (cells[:, 1] << bits) | cells[:, 2]
-    _, inv = np.unique(key, return_inverse=True)
+    for bits in (6, 5):
+        cells = np.minimum((enc * (1 << bits)).astype(np.int64), (1 << bits) - 1)
+        key = (cells[:, 0] << (2 * bits)) | (cells[:, 1] << bits) | cells[:, 2]
+        _, inv = np.unique(key, return_inverse=True)
+        if inv.max(initial=0) < MAX_CELLS:
+            break
     w = np.bincount(inv, weights=weights)
     pts = np.stack([np.bincount(inv, weights=weights * colours_lin[:, c]) for c in range(3)], axis=1) / w[:, None]
     return pts, w
@@ -182,18 +192,30 @@ def spread_for_dither(pal_lin: np.ndarray, fixed: np.ndarray, colours_lin: np.nd
     pts, w = _candidates(np.clip(colours_lin, 0.0, 1.0), np.asarray(weights, np.float64))
     corners = extreme_colours(pts)
     allowed = trim * w.sum()
-    bary = None
-    for _ in range(steps):
-        bary, resid, dist = _outside(pts, pal, start=bary, iterations=150 if bary is None else 50)
+    bary_all = None
+    for step_no in range(steps):
+        if step_no % FULL_CHECK == 0:
+            # Every colour, now and then; in between only those outside at
+            # the last full check (the hull mostly grows, so colours inside
+            # it stay inside), which saves most of the time on photos.
+            bary_all, _, dist_all = _outside(pts, pal, start=bary_all, iterations=150 if step_no == 0 else 60)
+            track = np.flatnonzero(dist_all > 0.1 * tolerance)
+            if len(track) == 0:
+                break
+        bary, resid, dist = _outside(pts[track], pal, start=bary_all[track], iterations=50)
+        bary_all[track] = bary
+        tw = w[track]
         order = np.argsort(-dist, kind="stable")
-        active = np.zeros(len(pts), bool)
-        active[order[np.cumsum(w[order]) > allowed]] = True  # the furthest pixels up to the trimmed share go
+        active = np.zeros(len(track), bool)
+        active[order[np.cumsum(tw[order]) > allowed]] = True  # the furthest pixels up to the trimmed share go
         active &= dist > tolerance
         if not active.any():
-            break
+            if step_no % FULL_CHECK == 0:
+                break
+            continue
         # Each palette colour moves by the mean residual of the colours
         # whose nearest hull point it carries, weighted by pixels and share.
-        bw = bary[active] * w[active, None]
+        bw = bary[active] * tw[active, None]
         mass = bw.sum(axis=0)
         move = (bw.T @ resid[active]) / np.maximum(mass, 1e-300)[:, None]
         move[~free | (mass <= 0.0)] = 0.0
@@ -202,7 +224,10 @@ def spread_for_dither(pal_lin: np.ndarray, fixed: np.ndarray, colours_lin: np.nd
         # of its colours): reaching far past the cloud's curved edges would
         # put garish colours in the palette, whose mixtures show as noise.
         inside = hull_weights(pal[moved] + move[moved], corners, iterations=400) @ corners
-        pal[moved] = np.clip(inside, 0.0, 1.0)
+        step = np.clip(inside, 0.0, 1.0) - pal[moved]
+        pal[moved] += step
+        if np.abs(step).max() < MIN_STEP:  # settled: further steps would not show in 8 bits
+            break
     return pal
 
 
