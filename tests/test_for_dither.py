@@ -85,6 +85,9 @@ def test_spread_keeps_locked_colours_and_a_covering_palette():
     fixed = np.array([True, False, False, True])
     new = fd.spread_for_dither(pal, fixed, lin, w)
     assert_array_equal(new[fixed], pal[fixed])
+    # Colours outside only beside fixed palette colours: nothing can move.
+    ends = lin[[10, 128, 245]]
+    assert_array_equal(fd.spread_for_dither(ends, np.array([True, False, True]), lin[:8], w[:8]), ends)
     # A palette whose hull already holds every colour (the cube's corners) stays as it is.
     cube = np.array(list(itertools.product([0.0, 1.0], repeat=3)))
     assert_array_equal(fd.spread_for_dither(cube, np.zeros(8, bool), lin, w), cube)

@@ -46,7 +46,7 @@ TOLERANCE = 1e-3
 #: Share of the pixels, the furthest outside, that may stay outside the hull:
 #: single noisy or specular pixels should not pull a colour out of the cloud
 #: (common practice, no source).
-TRIM = 0.002
+TRIM = 0.004
 #: Outer steps of the spreading at most.
 STEPS = 40
 #: Cells of colours the spreading follows at most, unless the coarser cells are still more.
@@ -220,6 +220,8 @@ def spread_for_dither(pal_lin: np.ndarray, fixed: np.ndarray, colours_lin: np.nd
         move = (bw.T @ resid[active]) / np.maximum(mass, 1e-300)[:, None]
         move[~free | (mass <= 0.0)] = 0.0
         moved = np.flatnonzero(np.abs(move).sum(axis=1) > 0.0)
+        if len(moved) == 0:  # only fixed colours carry the colours outside
+            break
         # A moved colour stays within the image's own colour range (the hull
         # of its colours): reaching far past the cloud's curved edges would
         # put garish colours in the palette, whose mixtures show as noise.
