@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["extreme_colours", "flat_colours", "hull_weights", "outside_share", "palette_for_dither", "project_simplex",
+__all__ = ["extreme_colours", "flat_colours", "hull_weights", "palette_for_dither", "project_simplex",
            "spread_for_dither"]
 
 #: Distance from the hull (linear light, 0-1 per channel) below which a colour
@@ -113,13 +113,6 @@ def _outside(points, vertices, start=None, iterations=150):
     w = hull_weights(points, vertices, start=start, iterations=iterations)
     resid = points - w @ vertices
     return w, resid, np.sqrt((resid**2).sum(axis=1))
-
-
-def outside_share(points: np.ndarray, weights: np.ndarray, vertices: np.ndarray,
-                  tolerance: float = TOLERANCE) -> float:
-    """Share of the weight of ``points`` further than ``tolerance`` outside the hull of ``vertices``."""
-    _, _, dist = _outside(points, vertices)
-    return float(weights[dist > tolerance].sum() / weights.sum())
 
 
 def _candidates(colours_lin: np.ndarray, weights: np.ndarray):
