@@ -390,8 +390,8 @@ def test_batch_defaults_to_the_library_size_range(art, tmp_path):
 
 
 @pytest.mark.parametrize("method, says, never", [
-    ("bayer4", "threshold matrix", ("serpentine", "raster", "error in")),
-    ("floyd-steinberg", "serpentine (error in linear light)", ("threshold",)),
+    ("bayer4", "Bayer matrix", ("serpentine", "raster", "error in")),
+    ("floyd-steinberg", "serpentine scan (error in linear light)", ("matrix",)),
 ])
 def test_the_dither_line_describes_the_method_it_ran(art, tmp_path, method, says, never):
     # Ordered dithers have no scan order and diffuse no error: their summary line once said both.

@@ -260,6 +260,39 @@ def test_twin_ordered(method, space, metric):
                     equal_nan=True)
 
 
+@pytest.mark.parametrize("method", DIFFUSIONS)
+@pytest.mark.parametrize("space,metric", [("lab", "space"), ("oklab", "space"), ("lab", "ciede2000")])
+def test_twin_diffusion_with_threshold_modulation(method, space, metric):
+    rgb8, pal = _random_case(zlib.crc32(f"mod{method}{space}{metric}".encode()), h=12, w=13)
+    palette, pic, clear, pinned = _arrays(rgb8, pal, space=space)
+    got, _ = qd.dither_indices(pic, palette, method=method, strength=0.7, metric=metric, modulation=9.0)
+    mask = qd.threshold_matrix("blue-noise") - 0.5
+    want = naive.diffuse(rgb8 / 255.0, clear, pinned, pal, weights=qd.DITHERS[method].weights, space=space,
+                         metric=metric, strength=0.7, mod=mask, mod_amp=9.0 * 0.7)
+    assert_array_equal(got, want)
+    plain, _ = qd.dither_indices(pic, palette, method=method, strength=0.7, metric=metric, modulation=0.0)
+    # The modulation changes some choices (else this test could not fail).
+    assert (got != plain).any()
+
+
+def test_modulation_is_refused_when_negative():
+    with pytest.raises(ValueError, match="threshold modulation"):
+        qd.dither_indices(np.zeros((4, 4, 3), np.uint8), _palette([[0, 0, 0], [255, 255, 255]]),
+                          method="floyd-steinberg", modulation=-1)
+
+
+def test_summary_line_says_what_each_method_does():
+    from quantize.render.methods import describe
+
+    # Issue 17: an ordered dither's summary said "serpentine (error in linear light)".
+    for name in ORDERED:
+        line = describe(name, serpentine=True)
+        assert "ordered" in line and "serpentine" not in line and "error" not in line, line
+    for name in DIFFUSIONS:
+        assert "error diffusion, serpentine scan" in describe(name)
+        assert "raster scan" in describe(name, serpentine=False)
+
+
 def test_twin_sixteen_bit_input():
     rng = np.random.default_rng(3)
     rgb16 = rng.integers(0, 65536, (6, 7, 3)).astype(np.uint16)
@@ -535,7 +568,7 @@ def test_cli_options_run_dither_filtered_report_and_error_map(ramp_file, tmp_pat
                                           "--view-distance", "500", "--error-map", str(emap),
                                           "--error-map-kind", "filtered"])
     assert res.exit_code == 0, res.output
-    assert "dither: stucki at strength 0.5, raster" in res.output
+    assert "dither: stucki at strength 0.5: error diffusion, raster scan (error in linear light)" in res.output
     assert "ΔE00 plain: mean" in res.output
     assert "ΔE00 filtered (S-CIELAB, 150 dpi at 500 mm, 51.5 px/degree): mean" in res.output
     assert f"error map (filtered ΔE00): {emap}" in res.output

@@ -95,7 +95,8 @@ def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, sh
     if shared and palette_file:
         raise click.UsageError("give either --palette or --shared, not both")
     dopts = pop_dither_options(fit_opts)
-    fit = _fit_settings(fit_opts)  # the same checks and messages as reduce
+    fit = dopts.fit_settings(_fit_settings(fit_opts))  # the same checks and messages as reduce; a dither
+    # gets a palette fitted for it, as in reduce
     colours = fit_opts["colours"]
     _check_indexed_size(Path(f"image.{fmt}"), colours)  # as reduce: an indexed PNG holds 256 colours
     bar = _Bar()

@@ -59,6 +59,14 @@ class DitherChoice:
         """Keyword arguments for ``Palette.apply`` / ``map_picture``."""
         return {"dither": self.dither, "dither_strength": self.strength, "serpentine": self.serpentine}
 
+    def fit_settings(self, settings):
+        """``settings`` (a FitSettings) for a palette this dither will follow: fitted for it when one does."""
+        if self.dither == "none" or self.strength == 0.0:
+            return settings
+        from quantize.fit.settings import FitSettings
+
+        return FitSettings.of(settings, for_dither=True)
+
 
 #: The defaults of every option: the command line's and pop_dither_options' one source.
 _DEFAULT = DitherChoice()
@@ -180,12 +188,10 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
                           "serpentine": choice.serpentine}, "delta_e_filtered": None, "viewing": None,
                "error_map": None}
     lines = []
-    kind = DITHERS[choice.dither].kind
-    if kind == "diffusion":  # only error diffusion scans rows; an ordered dither has no scan order
-        scan = ", serpentine" if choice.serpentine else ", raster"
-        lines.append(f"dither: {choice.dither} at strength {choice.strength:g}{scan} (error in linear light)")
-    elif kind != "none":
-        lines.append(f"dither: {choice.dither} at strength {choice.strength:g} (threshold matrix, two colours mixed in linear light)")
+    if choice.dither != "none":
+        from quantize.render.methods import describe
+
+        lines.append("dither: " + describe(choice.dither, strength=choice.strength, serpentine=choice.serpentine))
     filtered = None  # the filtered ΔE00 map: measured once, for the statistics and the error map
     if choice.viewing:
         from quantize.quality.perception import delta_e_map, with_filtered_delta_e

@@ -43,7 +43,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""
     t0 = time.perf_counter()
     dopts = pop_dither_options(fit_opts)
-    settings = _fit_settings(fit_opts)
+    settings = dopts.fit_settings(_fit_settings(fit_opts))  # a dither gets a palette fitted for it
     k, max_pixels = fit_opts["colours"], fit_opts["max_pixels"]
     out = Path(output)
     from quantize.io.write import SAVE_FORMATS

@@ -566,6 +566,10 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     threads : bool, default=True
         Run independent steps on a second thread; the results are the same
         either way (:class:`quantize.fit.settings.FitSettings`).
+    for_dither : bool, default=False
+        A dither follows: spread the chosen palette's free colours so that
+        their mixtures reach the image's extreme colours
+        (:mod:`quantize.fit.for_dither`); the record gets a note.
 
     Returns
     -------
@@ -652,6 +656,12 @@ def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixe
     pal = Palette(chosen.palette.rgb8, chosen.palette.locked, settings.space, fit=record)
     _log.info("fitted %d colours (rule %s; sizes tried %s): mean ΔE00 %.3f", pal.k, record.rule,
               ",".join(str(c.palette.k) for c in cands), record.delta_e["mean"])
+    if settings.for_dither:
+        from .for_dither import palette_for_dither
+
+        pal, moved = palette_for_dither(pal, sample)
+        if moved:
+            return pal  # the sample's mapping below is the unmoved palette's
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
     sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
     return pal

@@ -78,6 +78,12 @@ class FitSettings:
         split, and one k-means++ addition), keeping the start of lowest
         cost: the k-means cost then never rises with k, but a size's
         palette depends on the sizes fitted before it.
+    for_dither : bool, default=False
+        A dither will follow: after the fit, spread the palette's free
+        colours so that mixtures of them reach the image's extreme colours
+        (:func:`quantize.fit.for_dither.palette_for_dither`).  Without it
+        the palette is fitted for nearest-colour mapping, and a dither
+        cannot reproduce colours outside the palette's hull.
     threads : bool, default=True
         Run independent steps on a second thread (the region analysis beside
         the sampling and fit, a single size's refinements beside each
@@ -114,6 +120,7 @@ class FitSettings:
     warm: bool = False
     kind: str = "auto"
     threads: bool = True
+    for_dither: bool = False
 
     def __post_init__(self):
         from quantize.colour.spaces import check_space
@@ -137,6 +144,8 @@ class FitSettings:
             raise ValueError(f"warm must be True or False, got {self.warm!r}")
         if not isinstance(self.threads, bool):
             raise ValueError(f"threads must be True or False, got {self.threads!r}")
+        if not isinstance(self.for_dither, bool):
+            raise ValueError(f"for_dither must be True or False, got {self.for_dither!r}")
         if self.target is not None:
             if isinstance(self.target, bool) or not isinstance(self.target, (int, float)) or not self.target > 0 \
                     or self.target == float("inf"):

@@ -253,11 +253,11 @@ def _nearest(p0, p1, p2, pal_pts, metric):
 
 @numba.njit(cache=True, nogil=True)
 def diffuse(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-            off_dy, off_dx, off_w, strength, serpentine, out):
+            off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, out):
     """Error diffusion over the whole image; see :func:`diffuse_rows`."""
     err = np.zeros((error_rows(off_dy), state.shape[1], 3))
     diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, err, 0, state.shape[0], out)
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, err, 0, state.shape[0], out)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -271,7 +271,7 @@ def error_rows(off_dy):
 
 @numba.njit(cache=True, nogil=True)
 def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, err, y0, y1, out):
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, err, y0, y1, out):
     """Error diffusion in linear light of rows y0..y1; writes palette indices into ``out``.
 
     The target of each open pixel is its linear RGB plus the error it has
@@ -283,8 +283,17 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
     ``err`` (:func:`error_rows`, W, 3), zero at the start, carries the error
     between calls, so consecutive bands of rows give the same result as one
     call over the whole image.
+
+    Threshold modulation: the *choice* is made with the target's lightness
+    (the first coordinate of the working space, L* or OKLab L x 100) moved by
+    ``mod_amp * mod[y % mh, x % mw]`` (``mod`` a tiled mask of values in
+    -0.5-0.5); the error passed on is still measured from the unmoved
+    target, so the mean light is kept.  The mask's fixed, patternless offsets
+    stop the long regular runs (worms) that form where a target sits just
+    beside a palette colour.  ``mod_amp = 0`` is plain error diffusion.
     """
     h, w = state.shape
+    mh, mw = mod.shape
     rows = err.shape[0]
     n_off = off_dy.shape[0]
     ring = np.empty(n_off, dtype=np.int64)  # buffer row of each offset, once per image row
@@ -306,7 +315,7 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
             g = min(max(lut[codes[y, x, 1]] + err[cur, x, 1], LOW), HIGH)
             b = min(max(lut[codes[y, x, 2]] + err[cur, x, 2], LOW), HIGH)
             p0, p1, p2 = to_space(r, g, b, mat, mat2, space)
-            j = _nearest(p0, p1, p2, pal_pts, metric)
+            j = _nearest(p0 + mod_amp * mod[y % mh, x % mw], p1, p2, pal_pts, metric)
             out[y, x] = j
             er = strength * (r - pal_lin[j, 0])
             eg = strength * (g - pal_lin[j, 1])

@@ -316,16 +316,18 @@ def compile_all() -> None:
         state, pinned = np.zeros((2, 2), dtype=np.uint8), np.zeros((2, 2), dtype=np.uint16)
         out, de2 = np.zeros((2, 2), dtype=np.uint8), np.zeros((2, 2))
         dy, dx, w = np.array([0, 1]), np.array([1, 0]), np.array([0.5, 0.5])
+        mod = np.zeros((1, 1))  # threshold modulation mask
         near, other = np.zeros(4, dtype=np.int64), np.zeros(4, dtype=np.int64)
         share, de_near, de_other = np.zeros(4), np.zeros(4), np.zeros(4)
         dk.to_space(0.0, 0.0, 0.0, mat, mat, 0)
         for depth in (np.uint8, np.uint16):  # 8- and 16-bit images
             codes = np.zeros((2, 2, 3), dtype=depth)
             for metric in (0, 1):
-                dk.diffuse(codes, lut, state, pinned, pal, pal, mat, mat, 0, metric, dy, dx, w, 1.0, True, out)
+                dk.diffuse(codes, lut, state, pinned, pal, pal, mat, mat, 0, metric, dy, dx, w, 1.0, True, mod, 0.0,
+                           out)
             err = np.zeros((dk.error_rows(dy), 2, 3))
-            dk.diffuse_rows(codes, lut, state, pinned, pal, pal, mat, mat, 0, 0, dy, dx, w, 1.0, True, err, 0, 2,
-                            out)
+            dk.diffuse_rows(codes, lut, state, pinned, pal, pal, mat, mat, 0, 0, dy, dx, w, 1.0, True, mod, 0.0,
+                            err, 0, 2, out)
             dk.delta_e_rows(codes, lut, state, out, pal, mat, 0, 2, de2)
             dk.bracket(codes.reshape(-1, 3), lut, pal, pal, pal, mat, mat, mat, 0, 0, near, other, share,
                        de_near, de_other)

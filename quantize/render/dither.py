@@ -42,7 +42,7 @@ import numpy as np
 
 # The method table and the threshold arrays live in their own modules; their
 # names stay importable here.
-from .methods import DITHERS, DitherMethod, check_dither, check_strength
+from .methods import DITHERS, DitherMethod, check_dither, check_modulation, check_strength
 from .result import DitherInfo, MappedImage, nearest_image
 from .thresholds import (
     CLUSTERED_CELL,
@@ -139,18 +139,26 @@ class _Diffusion:
     off_w: np.ndarray  # float64 shares, summing to 1
     strength: float
     serpentine: bool
+    mod: np.ndarray  # tiled lightness offsets of the choice, -0.5 to 0.5
+    mod_amp: float  # their scale, in L* (OKLab L x 100) units
 
     @classmethod
-    def of(cls, method: DitherMethod, strength: float, serpentine: bool) -> _Diffusion:
+    def of(cls, method: DitherMethod, strength: float, serpentine: bool, modulation: float) -> _Diffusion:
         off = np.array(method.weights, dtype=np.float64)
+        if modulation > 0.0:
+            mod = np.ascontiguousarray(threshold_matrix("blue-noise") - 0.5)
+        else:
+            mod = np.zeros((1, 1))
         return cls(off_dy=np.ascontiguousarray(off[:, 0].astype(np.int64)),
                    off_dx=np.ascontiguousarray(off[:, 1].astype(np.int64)),
-                   off_w=np.ascontiguousarray(off[:, 2]), strength=float(strength), serpentine=bool(serpentine))
+                   off_w=np.ascontiguousarray(off[:, 2]), strength=float(strength), serpentine=bool(serpentine),
+                   mod=mod, mod_amp=float(modulation) * float(strength))
 
     def kernel_args(self, a: DitherArrays) -> tuple:
         """The leading arguments of ``diffuse`` and ``diffuse_rows``, in the kernels' order."""
         return (a.codes, a.lut, a.state, a.pinned, a.pal_lin, a.pal_pts, a.mat, a.mat2, a.space_code,
-                a.metric_code, self.off_dy, self.off_dx, self.off_w, self.strength, self.serpentine)
+                a.metric_code, self.off_dy, self.off_dx, self.off_w, self.strength, self.serpentine,
+                self.mod, self.mod_amp)
 
 
 def _kernel_inputs(pic, palette, metric) -> DitherArrays:
@@ -229,7 +237,8 @@ def _diffuse_measured(a: DitherArrays, diffusion: _Diffusion, out) -> np.ndarray
 
 
 def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
-                   serpentine: bool = True, measure: bool = False) -> tuple[np.ndarray, DitherArrays]:
+                   serpentine: bool = True, modulation: float | None = None,
+                   measure: bool = False) -> tuple[np.ndarray, DitherArrays]:
     """Palette index of every pixel under a dither, without the statistics.
 
     Parameters are those of :func:`dither_picture` (``method`` must not be
@@ -261,17 +270,18 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     arrays = _kernel_inputs(pic, palette, metric)
     dtype = np.uint8 if len(palette) <= 256 else np.uint16
     out = np.empty(pic.shape, dtype=dtype)
-    de = with_fresh_cache(lambda: _run_method(m, pic, arrays, strength, bool(serpentine), measure, out))
+    modulation = check_modulation(modulation)
+    de = with_fresh_cache(lambda: _run_method(m, pic, arrays, strength, bool(serpentine), modulation, measure, out))
     return out, replace(arrays, delta_e=de)
 
 
-def _run_method(m, pic, a: DitherArrays, strength, serpentine, measure, out) -> np.ndarray | None:
+def _run_method(m, pic, a: DitherArrays, strength, serpentine, modulation, measure, out) -> np.ndarray | None:
     """Run the kernels of method ``m``, filling ``out``; the per-pixel ΔE00 when measured, else None."""
     from quantize.kernels.loading import compiled
 
     dk = compiled("dither_loops")
     if m.kind == "diffusion":
-        diffusion = _Diffusion.of(m, strength, serpentine)
+        diffusion = _Diffusion.of(m, strength, serpentine, modulation)
         if measure:
             return _diffuse_measured(a, diffusion, out)
         dk.diffuse(*diffusion.kernel_args(a), out)
@@ -294,7 +304,7 @@ def _run_method(m, pic, a: DitherArrays, strength, serpentine, measure, out) -> 
 
 
 def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
-                   serpentine: bool = True):
+                   serpentine: bool = True, modulation: float | None = None):
     """Reduce an image to ``palette`` with a dither.
 
     Parameters
@@ -314,6 +324,14 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
     serpentine : bool, default=True
         Error diffusion only: scan odd rows right to left (reduces the
         diagonal "worm" texture of raster scanning).
+    modulation : float, optional
+        Error diffusion only: threshold modulation, in L* units (OKLab L x
+        100 for an OKLab palette), times ``strength``.  The choice of colour
+        sees the target's lightness moved by up to half this, by a tiled
+        blue-noise mask; the error passed on is measured from the unmoved
+        target.  Default :data:`quantize.render.methods.DEFAULT_MODULATION`
+        (0, off: measured in docs/dithering.md, it did not lower the
+        filtered ΔE00).
 
     Returns
     -------
@@ -366,7 +384,7 @@ def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: 
     if m.kind == "none":
         return nearest_image(pic, palette, metric=metric)
     idx, arrays = dither_indices(pic, palette, method=m.name, strength=strength, metric=metric,
-                                 serpentine=serpentine, measure=True)
+                                 serpentine=serpentine, modulation=modulation, measure=True)
     dk = compiled("dither_loops")
     de = arrays.delta_e
     clear = arrays.state == dk.CLEAR if pic.alpha is not None else None
