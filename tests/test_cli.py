@@ -299,7 +299,7 @@ def test_target_stat_p95_and_pixel_limit(art, tmp_path):
 
 @pytest.mark.parametrize("args, settings, code", [
     (["--restarts", "0"], dict(restarts=0), 2),
-    (["--seed", "-1"], dict(seed=-1), 1),
+    (["--seed", "-1"], dict(seed=-1), 2),
     (["--lock", "purplish"], dict(locked=["purplish"]), 1),
     (["--lock", "#000000", "--lock", "000000"], dict(locked=["#000000", "000000"]), 1),
 ])

@@ -582,7 +582,7 @@ def test_cli_options_run_dither_filtered_report_and_error_map(ramp_file, tmp_pat
 @pytest.mark.parametrize("args,shown", [
     (["--dither", "wormy"], "'wormy' is not one of 'none', 'floyd-steinberg'"),
     (["--dither-strength", "1.5"], "1.5 is not in the range 0.0<=x<=1.0"),
-    (["--view-dpi", "0", "--view-distance", "500"], "0.0 is not in the range x>0.0"),
+    (["--view-dpi", "0", "--view-distance", "500"], "0.0 is not in the range 0.0<x<=10000"),
     (["--view-dpi", "300"], "--view-dpi and --view-distance go together"),
     (["--error-map", "e.png", "--error-map-kind", "filtered"], "needs --view-dpi and --view-distance"),
     (["--error-map", "e.jpg"], "name it *.png"),

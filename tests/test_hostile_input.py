@@ -367,3 +367,19 @@ def test_a_named_pipe_is_refused_instead_of_blocking(tmp_path):
         res = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
         assert res.returncode == 1, res.stderr
         assert name in res.stderr and "regular file" in res.stderr and "Traceback" not in res.stderr
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--dither", "floyd-steinberg", "--view-dpi", "1e6", "--view-distance", "500"], "--view-dpi"),
+    (["--dither", "floyd-steinberg", "--view-dpi", "5000", "--view-distance", "5000"], "pixels per degree"),
+    (["--seed", "-1"], "--seed"),
+])
+def test_numbers_beyond_any_job_are_usage_errors_before_any_work(tmp_path, args, words):
+    # --view-dpi 1e6 once asked for 880 GiB (an S-CIELAB kernel a degree wide); --seed -1 did not name the option.
+    src = tmp_path / "a.png"
+    Image.fromarray(_art()).save(src)
+    out = tmp_path / "o.png"
+    res = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "2", *args])
+    assert res.exit_code == 2, res.output
+    assert words in res.output and "Traceback" not in res.output
+    assert not out.exists()

@@ -229,3 +229,28 @@ def test_properties(pts, k, seed, n_fixed):
     if fixed is not None:
         np.testing.assert_array_equal(res.centres[0], fixed[0])
     assert res.centres.tobytes() == again.centres.tobytes()
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"k": 2.5}, "k must be a whole number"), ({"k": True}, "k must be a whole number"),
+    ({"k": 2, "max_iter": -1}, "max_iter must be at least 1"), ({"k": 2, "tol": -1}, "tol"),
+    ({"k": 2, "tol": float("nan")}, "tol"), ({"k": 2, "restarts": 1.5}, "restarts must be a whole number"),
+    ({"k": 2, "fixed": [[np.nan, 0, 0]]}, "fixed centres must be finite"),
+    ({"k": 2, "init_centres": [[np.nan, 0, 0], [1, 1, 1]]}, "init_centres"),
+])
+def test_kmeans_refuses_nonsense_arguments(kwargs, words):
+    # Found by a hostile-input audit: each was accepted silently (k=2.5 ran as 2).
+    pts = np.random.default_rng(0).random((20, 3))
+    with pytest.raises(ValueError, match=words):
+        kmeans(pts, **kwargs)
+
+
+def test_kmeans_refuses_points_without_coordinates_or_too_large_to_measure():
+    import warnings
+
+    with pytest.raises(ValueError, match="at least one coordinate"):
+        kmeans(np.zeros((5, 0)), 2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no numpy overflow warning may leak
+        with pytest.raises(ValueError, match="overflow"):
+            kmeans(np.full((5, 3), 1e308), 2)

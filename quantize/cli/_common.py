@@ -62,6 +62,16 @@ def _k_option(value: str) -> str:
     return from_
 
 
+def _seed_option(ctx, param, value):
+    """--seed checked by the library's own validator, named as the option that was wrong."""
+    from quantize.fit.settings import FitSettings
+
+    try:
+        return FitSettings(seed=value).seed
+    except ValueError as exc:
+        raise click.BadParameter(str(exc)) from None
+
+
 def _restarts_option(ctx, param, value):
     """--restarts checked by the library's own validator: the same message as ``fit_palette``."""
     from quantize.fit.settings import FitSettings
@@ -110,7 +120,7 @@ def _fit_option_list() -> dict:
         "locked": click.option("--lock", "locked", multiple=True, metavar="COLOUR",
                                help="Hold a colour fixed (substrate, brand colour): #rgb, #rrggbb, L,a,b or a CSS "
                                     "colour name. Repeatable."),
-        "seed": click.option("--seed", type=int, default=0, show_default=True,
+        "seed": click.option("--seed", type=int, default=0, show_default=True, callback=_seed_option,
                              help="Random seed; same seed, same palette."),
         "restarts": click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
                                  help="k-means++ restarts per palette size (at least 1)."),

@@ -75,6 +75,13 @@ _DEFAULT = DitherChoice()
 def _check(choice: DitherChoice) -> DitherChoice:
     if (choice.view_dpi is None) != (choice.view_distance is None):
         raise click.UsageError("--view-dpi and --view-distance go together: give both, or neither")
+    if choice.viewing:  # refused before any work, not after the image is written
+        from quantize.quality.perception import viewing_ppd
+
+        try:
+            viewing_ppd(dpi=choice.view_dpi, distance_mm=choice.view_distance)
+        except ValueError as exc:
+            raise click.UsageError(f"--view-dpi and --view-distance: {exc}") from None
     if choice.error_map_kind == "filtered" and not choice.viewing:
         raise click.UsageError("--error-map-kind filtered needs --view-dpi and --view-distance")
     if choice.error_map is not None and Path(choice.error_map).suffix.lower() != ".png":
@@ -106,9 +113,10 @@ def dither_options(f):
     """Decorator adding --dither, --dither-strength, --serpentine/--raster,
     --view-dpi, --view-distance, --error-map and --error-map-kind."""
     opts = _method_options() + [
-        click.option("--view-dpi", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="DPI",
+        click.option("--view-dpi", type=click.FloatRange(min=0.0, max=10_000, min_open=True), default=None,
+                     metavar="DPI",
                      help="Output resolution for the filtered (S-CIELAB) ΔE00 report."),
-        click.option("--view-distance", type=click.FloatRange(min=0.0, min_open=True), default=None, metavar="MM",
+        click.option("--view-distance", type=click.FloatRange(min=10.0, max=100_000), default=None, metavar="MM",
                      help="Viewing distance in mm for the filtered ΔE00 report."),
         click.option("--error-map", type=click.Path(dir_okay=False), default=None, metavar="FILE.png",
                      help="Also write a picture of per-pixel ΔE00 with its colour scale."),

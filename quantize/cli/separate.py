@@ -123,7 +123,8 @@ class PrintSize(click.ParamType):
               help="Print order of the inks by name (default light to dark); it may also place 'underbase', "
                    "'flash' and 'highlight white' (default: underbase, flash, inks, highlight white).")
 @click.option("--png", is_flag=True, help="Also write every plate as a 1-bit PNG.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Random seed for fitting and ink search.")
+@click.option("--seed", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Random seed for fitting and ink search.")
 @click.option("--force", is_flag=True, help="Replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the manifest as JSON.")
 @click.option("--dithered", type=click.Choice(["auto", "keep", "clean"]), default="auto", show_default=True,

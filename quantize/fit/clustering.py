@@ -8,6 +8,7 @@ compiled with numba; everything else is plain numpy.
 
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import dataclass, field
 
@@ -370,6 +371,19 @@ def lloyd_from(points: np.ndarray, weights: np.ndarray, centres: np.ndarray, *, 
                         history=tuple(history), k_requested=len(c))
 
 
+#: Largest coordinate magnitude: squared distances of larger values overflow float64.
+_MAX_COORD = 1e150
+
+
+def _whole(value, name: str, low: int) -> int:
+    """``value`` as an int of at least ``low``; a float, bool or string is refused, not truncated."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise ValueError(f"{name} must be a whole number, got {value!r}")
+    if value < low:
+        raise ValueError(f"{name} must be at least {low}, got {value}")
+    return int(value)
+
+
 def kmeans(
     points,
     k: int,
@@ -492,15 +506,25 @@ def kmeans(
         raise ValueError(f"weights must have shape ({n},), got {w.shape}")
     if not np.all(np.isfinite(w)) or (w < 0).any() or w.sum() <= 0:
         raise ValueError("weights must be finite, non-negative and not all zero")
+    if d == 0:
+        raise ValueError(f"points must have at least one coordinate, got shape {pts.shape}")
     if not np.all(np.isfinite(pts)):
         raise ValueError("points must be finite")
-    k = int(k)
-    if k < 1:
-        raise ValueError(f"k must be at least 1, got {k}")
-    if restarts < 1:
-        raise ValueError(f"restarts must be at least 1, got {restarts}")
+    if np.abs(pts).max() > _MAX_COORD:
+        raise ValueError(f"points must lie within ±{_MAX_COORD:g} (their squared distances would overflow)")
+    k = _whole(k, "k", 1)
+    restarts = _whole(restarts, "restarts", 1)
+    max_iter = _whole(max_iter, "max_iter", 1)
+    if isinstance(tol, bool) or not isinstance(tol, (int, float, np.floating)) or not (math.isfinite(tol) and tol >= 0):
+        raise ValueError(f"tol must be a finite number of 0 or more, got {tol!r}")
     check_init(init)
     fx = np.zeros((0, d)) if fixed is None else np.asarray(fixed, dtype=np.float64).reshape(-1, d)
+    if not np.all(np.isfinite(fx)):
+        raise ValueError("fixed centres must be finite")
+    if init_centres is not None:
+        ic = np.asarray(init_centres, dtype=np.float64)
+        if ic.ndim != 2 or ic.shape[1] != d or not np.all(np.isfinite(ic)):
+            raise ValueError(f"init_centres must be finite with shape (k, {d}), got shape {ic.shape}")
     m = fx.shape[0]
     if m > k:
         raise ValueError(f"{m} locked centres do not fit in k={k}")

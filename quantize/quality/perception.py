@@ -99,22 +99,33 @@ def _positive(value, what: str) -> float:
     return v
 
 
+#: Most pixels per degree a viewing condition may give: the S-CIELAB kernels span one degree, so their side
+#: is this many pixels (2400 dpi seen from 1 m is about 1650).
+MAX_PPD = 2000.0
+
+
 def viewing_ppd(*, dpi=None, distance_mm=None, ppd=None) -> float:
     """Pixels per degree from ``ppd`` or from ``dpi`` and ``distance_mm``, validated.
 
     Raises
     ------
     ValueError
-        Neither form is complete, both are given, or a value is not positive.
+        Neither form is complete, both are given, a value is not positive, or
+        the condition gives more than :data:`MAX_PPD` pixels per degree.
     """
     if ppd is not None:
         if dpi is not None or distance_mm is not None:
             raise ValueError("give the viewing condition as dpi and distance_mm, or as ppd, not both")
-        return _positive(ppd, "pixels per degree")
-    if dpi is None or distance_mm is None:
+        value = _positive(ppd, "pixels per degree")
+    elif dpi is None or distance_mm is None:
         raise ValueError("filtered ΔE00 needs a viewing condition: dpi and distance_mm (or ppd); "
                          f"got dpi={dpi!r}, distance_mm={distance_mm!r}")
-    return pixels_per_degree(dpi=dpi, distance_mm=distance_mm)
+    else:
+        value = pixels_per_degree(dpi=dpi, distance_mm=distance_mm)
+    if value > MAX_PPD:
+        raise ValueError(f"the viewing condition gives {value:.0f} pixels per degree, more than {MAX_PPD:g}: "
+                         "lower the resolution or the distance")
+    return value
 
 
 def scielab_kernels(ppd: float) -> list[np.ndarray]:
