@@ -84,3 +84,55 @@ def test_a_full_disk_keeps_the_file_it_would_replace(photo, whole_sizes, tmp_pat
     assert res.returncode == 1, res.stderr
     assert out.read_bytes() == b"the previous proof"
     assert sorted(p.name for p in tmp_path.iterdir()) == [out.name]
+
+
+def _fail_on_fsync(monkeypatch, n: int):
+    """Make the n-th os.fsync fail as a full disk does (ENOSPC), as the writers sync each file."""
+    import errno
+    import os
+
+    real, calls = os.fsync, []
+
+    def fsync(fd):
+        calls.append(fd)
+        if len(calls) == n:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real(fd)
+
+    monkeypatch.setattr(os, "fsync", fsync)
+    return calls
+
+
+def test_an_image_and_its_palette_land_together_or_not_at_all(photo, tmp_path, monkeypatch):
+    from click.testing import CliRunner
+
+    from quantize.cli.main import main
+
+    out = tmp_path / "poster.png"
+    out.write_bytes(b"the previous proof")
+    _fail_on_fsync(monkeypatch, 2)  # the image is synced, then its palette fails
+    res = CliRunner().invoke(main, ["reduce", str(photo), "-o", str(out), "-k", "4", "--keep-palette", "--force"])
+    assert res.exit_code == 1 and "No space left" in res.output and "Traceback" not in res.output
+    assert out.read_bytes() == b"the previous proof"  # not replaced by a new image without its palette
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["poster.png"]  # no palette, no temporary file
+
+
+def test_a_set_of_plates_lands_whole_or_not_at_all(tmp_path, monkeypatch):
+    from quantize.errors import OutputError
+    from quantize.palette import Palette
+    from quantize.separation.plates import separate
+
+    img = np.full((40, 60, 3), 245, np.uint8)
+    img[5:20, 5:30] = (200, 30, 40)
+    img[22:35, 30:55] = (30, 60, 150)
+    pal = Palette(np.array([[245, 245, 245], [200, 30, 40], [30, 60, 150]], np.uint8),
+                  np.array([True, False, False]))
+    sep = separate(img, pal, dpi=300)
+    _fail_on_fsync(monkeypatch, 3)  # two files written, the third fails
+    with pytest.raises(OutputError, match="No space left"):
+        sep.write(tmp_path / "films")
+    assert list((tmp_path / "films").iterdir()) == []
+    monkeypatch.undo()
+    written = sep.write(tmp_path / "films")
+    assert len(list((tmp_path / "films").iterdir())) == 2 + 1 + 1 + 1  # two films, PDF, preview, manifest
+    assert written["manifest"].exists()

@@ -21,6 +21,7 @@ import numpy as np
 
 from quantize.errors import OutputError
 
+from .guard import journal_output
 from .workers import _one_line
 
 __all__ = ["BatchJob", "SampledImage", "process_image", "sample_image"]
@@ -145,6 +146,7 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
     """
     from quantize.fit.engine import fit_palette
     from quantize.io.read import load_image
+    from quantize.io.write import publish_together
     from quantize.palette import Palette
 
     t0 = time.perf_counter()
@@ -164,12 +166,15 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
                 raise OutputError(f"{outs[0]}: its folder leads outside the output folder (a symbolic link?); "
                                   "not written")
             outs[0].parent.mkdir(parents=True, exist_ok=True)
-            saved = res.write(outs[0], picture=pic, force=job.replace, inputs=[job.path])
-            # Recorded as soon as written, so that a later run knows the file is its own to replace.
-            row["outputs"].append(job.outputs_rel[0])
-            if len(outs) > 1:
-                pal.save(outs[1], force=job.replace)
-                row["outputs"].append(job.outputs_rel[1])
+            with publish_together():  # the image and its palette land together, or neither does
+                saved = res.write(outs[0], picture=pic, force=job.replace, inputs=[job.path])
+                if len(outs) > 1:
+                    pal.save(outs[1], force=job.replace)
+            # Recorded as soon as written, so that a later run knows the files are its own to replace,
+            # in the row and, in case this run is killed before its manifest, in the folder's journal.
+            for rel_out in job.outputs_rel[:len(outs)]:
+                row["outputs"].append(rel_out)
+                journal_output(job.output_dir, job.rel, rel_out)
             # The ΔE00 of the file written (of the decoded pixels for a JPEG) and its size.
             de = saved.delta_e  # None: a JPEG with no fully opaque pixel to measure
             row.update(status="ok", k=pal.k, delta_e=None if de is None else {s: float(v) for s, v in de.items()},

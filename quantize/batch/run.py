@@ -38,6 +38,7 @@ import numpy as np
 from quantize.errors import OutputError, QuantizeError
 
 from .files import DEFAULT_INCLUDE, _check_folders, discover_images
+from .guard import clear_journal, journal_outputs, output_lock, remove_stale_parts
 from .jobs import BatchJob, process_image, sample_image
 from .manifest import (
     _MANIFEST_FORMAT,
@@ -210,6 +211,7 @@ class _Run:
                 and (self.prev_doc.get("shared") or {}).get("palette_file") != SHARED_PALETTE):
             raise OutputError(f"{dst / SHARED_PALETTE}: already exists; not replaced without force")
         self.prev_rows = {r.get("input"): r for r in self.prev_doc.get("images", []) if isinstance(r, dict)}
+        self.journal = journal_outputs(dst)
         self.rels = discover_images(src, include=s.include, exclude=s.exclude, skip=[dst])
         self.doc = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
                     "settings": _manifest_settings(s), "settings_key": None, "summary": None,
@@ -233,6 +235,7 @@ class _Run:
                 # files are this run's own, so they are listed for the next run to replace.
                 late = [o for o in self.planned.get(str(rel), ())
                         if _written_since(self.dst / o, self.started_ns)]
+                late += [o for o in self.journal.get(str(rel), ()) if (self.dst / o).exists()]
                 if late:
                     r["outputs"] = sorted(set(r.get("outputs") or []) | set(late))
             ordered.append(r)
@@ -249,6 +252,7 @@ class _Run:
                 doc["palette_report"]["page"] = page.name
         self.written = True
         paths = _write_manifest(self.dst, doc)
+        clear_journal(self.dst)  # the manifest now lists every file the journal recorded
         return BatchResult(rows=ordered, summary=doc["summary"], manifest=doc, manifest_paths=paths,
                            notes=self.notes)
 
@@ -263,6 +267,8 @@ class _Run:
 
         s = self.settings
         owned = {o for r in self.prev_rows.values() for o in (r.get("outputs") or [])}
+        # Files a killed run wrote before it could write its manifest.
+        owned |= {o for outs in self.journal.values() for o in outs}
         out_root = self.dst.resolve()
         jobs, by_output = [], {}
         # With a worker process per core the images keep the cores busy; a
@@ -462,7 +468,17 @@ def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
     s = _settings(settings, options)
     src, dst = Path(input_dir), Path(output_dir)
     _prepare_output(src, dst, s.exclude)
-    run = _Run(src, dst, s)
+    with output_lock(dst):
+        stale = remove_stale_parts(dst)
+        run = _Run(src, dst, s)
+        if stale:
+            run.notes.append(f"removed {stale} temporary file(s) left by an earlier run that was stopped")
+        return _run_locked(run, s, progress)
+
+
+def _run_locked(run: _Run, s: BatchSettings, progress) -> BatchResult:
+    """The run, once it holds the output folder's lock."""
+    src = run.src
     if not run.rels:
         run.fail(f"{src}: no images found (include {', '.join(s.include or DEFAULT_INCLUDE)}"
                  + (f"; exclude {', '.join(s.exclude)})" if s.exclude else ")"))

@@ -22,6 +22,27 @@ def _init_worker(threads: int) -> None:
     # fight over the cores.
     for var in ("NUMBA_NUM_THREADS", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ[var] = str(threads)
+    _exit_with_parent()
+
+
+def _exit_with_parent(every: float = 0.5) -> None:
+    """End this worker when the batch that started it is gone (killed: SIGKILL runs no clean-up).
+
+    A worker left behind would block on its pipe for ever; the next run removes any temporary file
+    it leaves (:func:`quantize.batch.guard.remove_stale_parts`).
+    """
+    import threading
+    import time
+
+    parent = os.getppid()
+
+    def watch():
+        while True:
+            time.sleep(every)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="quantize-parent-watch", daemon=True).start()
 
 
 def _one_line(exc: BaseException) -> str:

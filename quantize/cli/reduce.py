@@ -64,9 +64,12 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         pal = _fit_with_progress(pic, k, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
-        saved = res.write(out, picture=pic, force=force, inputs=[image])
-        if pal_path:
-            pal.save(pal_path, force=force)
+        from quantize.io.write import publish_together
+
+        with publish_together():  # the image and its palette land together, or neither does
+            saved = res.write(out, picture=pic, force=force, inputs=[image])
+            if pal_path:
+                pal.save(pal_path, force=force)
         if report_dir:
             from quantize.report.page import write_report
 

@@ -9,6 +9,7 @@ Readers are in :mod:`quantize.io.read`.
 
 
 import contextlib
+import contextvars
 import logging
 import os
 import tempfile
@@ -26,7 +27,7 @@ from quantize.io._decode import dpi_pair, to_8bit
 from quantize.io._encode import ALPHA_STEPS, ALPHA_THRESHOLD, encode
 
 __all__ = ["ALPHA_STEPS", "ALPHA_THRESHOLD", "SAVE_FORMATS", "WrittenImage", "atomic_write_bytes",
-           "atomic_write_text", "save_image", "to_jsonable", "write_image"]
+           "atomic_write_text", "publish_together", "save_image", "to_jsonable", "write_image"]
 
 PathLike = Union[str, "os.PathLike[str]"]
 
@@ -303,6 +304,55 @@ def atomic_write_text(
     return atomic_write_bytes(path, text.encode("utf-8"), force=force, inputs=inputs)
 
 
+#: The set of files being written together (:func:`publish_together`), or None: each file lands alone.
+_TOGETHER: contextvars.ContextVar[list | None] = contextvars.ContextVar("quantize_publish_together", default=None)
+
+
+@contextlib.contextmanager
+def publish_together():
+    """Write every file of a block so that they all land, or none does.
+
+    Inside the block each atomic write (:func:`save_image`, :func:`write_image`,
+    :func:`atomic_write_bytes`, ``Palette.save``, ...) writes and syncs its
+    temporary file but does not yet give it its name; when the block ends
+    without an error, every file is named in turn (a rename, which needs no
+    space), and on any error, a full disk or an interrupt, every temporary
+    file is removed and no output of the block appears. An image and its
+    palette, or a set of plates, are never half-written.
+
+    The pending set is per context (a :class:`contextvars.ContextVar`), not
+    process-wide: threads and other callers are unaffected.
+
+    Examples
+    --------
+    >>> with publish_together():  # doctest: +SKIP
+    ...     atomic_write_text("a.txt", "one")
+    ...     atomic_write_text("b.txt", "two")
+    """
+    if _TOGETHER.get() is not None:  # nested: the outer block publishes
+        yield
+        return
+    pending: list = []
+    token = _TOGETHER.set(pending)
+    try:
+        yield
+    except BaseException:
+        for tmp, _target, _name, _force in pending:
+            _discard(tmp)
+        raise
+    finally:
+        _TOGETHER.reset(token)
+    for i, (tmp, target, name, force) in enumerate(pending):
+        try:
+            _publish(tmp, target, name, force)
+        except BaseException as exc:
+            for later, *_ in pending[i:]:
+                _discard(later)
+            if isinstance(exc, OSError):
+                raise OutputError(f"{name}: writing failed ({exc.strerror or exc})") from exc
+            raise
+
+
 def _atomic_write(target: Path, write: Callable[[IO[bytes]], object], *, force: bool, inputs) -> Path:
     name = os.fspath(target)
     _check_target(target, name, force, inputs)
@@ -317,7 +367,11 @@ def _atomic_write(target: Path, write: Callable[[IO[bytes]], object], *, force: 
             fh.flush()
             os.fsync(fh.fileno())
         os.chmod(tmp, mode)
-        _publish(tmp, target, name, force)
+        pending = _TOGETHER.get()
+        if pending is None:
+            _publish(tmp, target, name, force)
+        else:
+            pending.append((tmp, target, name, force))
     except OSError as exc:
         _discard(tmp)
         raise OutputError(f"{name}: writing failed ({exc.strerror or exc})") from exc

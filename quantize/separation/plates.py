@@ -548,9 +548,7 @@ class Separation:
         """
         import datetime
 
-        from quantize.io.write import atomic_write_bytes, atomic_write_text, save_image
-
-        from .filmfiles import FilmPage, film_image, pdf_bytes
+        from quantize.io.write import publish_together
 
         if (marks or pdf) and not (isinstance(margin_mm, (int, float)) and math.isfinite(margin_mm)
                                    and 0 < margin_mm <= MAX_MARGIN_MM):
@@ -576,6 +574,18 @@ class Separation:
                 if t.exists():
                     raise OutputError(f"{t}: already exists; not replaced without force")
         out.mkdir(parents=True, exist_ok=True)
+        with publish_together():  # every film, the PDF, the preview and the manifest land together, or none
+            return self._write_files(out, plan, composite, manifest, pdf_path, force=force, marks=marks,
+                                     margin_mm=margin_mm, inputs=inputs, pdf=pdf, job=job, date=date)
+
+    def _write_files(self, out, plan, composite, manifest, pdf_path, *, force, marks, margin_mm, inputs, pdf, job,
+                     date) -> dict:
+        """The files of :meth:`write`, each written atomically (published together by the caller)."""
+        from quantize.io.write import atomic_write_bytes, atomic_write_text, save_image
+
+        from .filmfiles import FilmPage, film_image, pdf_bytes
+
+        every = self.films()
         margin_px = int(round(mm_to_px(margin_mm, self.dpi)))
         margin = margin_px if marks else 0
         total = len(every)
