@@ -508,7 +508,7 @@ def test_dask_cluster_gives_the_local_result(tree, tmp_path, dask_cluster, share
 
 def test_dask_missing_gives_a_clear_message(tree, tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "dask.distributed", None)  # import now raises ImportError
-    with pytest.raises(QuantizeError, match=r"pip install 'quantize\[dask\]'"):
+    with pytest.raises(QuantizeError, match=r"pip install 'quantize-palette\[dask\]'"):
         run_batch(tree, tmp_path / "out", cluster="tcp://127.0.0.1:1", **FAST)
 
 

@@ -383,3 +383,50 @@ def test_numbers_beyond_any_job_are_usage_errors_before_any_work(tmp_path, args,
     assert res.exit_code == 2, res.output
     assert words in res.output and "Traceback" not in res.output
     assert not out.exists()
+
+
+def test_ink_libraries_nested_too_deeply_or_with_impossible_lab_are_refused(tmp_path):
+    art = tmp_path / "art.png"
+    Image.fromarray(_art()).save(art)
+    deep = tmp_path / "deep.json"
+    deep.write_text('{"a":' * 5000 + "1" + "}" * 5000)
+    huge = tmp_path / "huge.csv"
+    huge.write_text("name,L,a,b\nInk1,50,1e300,0\nInk2,40,10,10\n")
+    for lib, words in [(deep, "nested too deeply"), (huge, "line 2: a* 1e+300 is outside")]:
+        res = CliRunner().invoke(main, ["separate", str(art), "-o", str(tmp_path / "o"), "--inks", str(lib), "-n", "1"])
+        assert res.exit_code == 1, res.output
+        assert lib.name in res.output and words in res.output and "Traceback" not in res.output
+        assert not (tmp_path / "o").exists()
+
+
+def test_a_file_name_the_system_refuses_is_one_line(tmp_path):
+    src = tmp_path / "a.png"
+    Image.fromarray(_art()).save(src)
+    res = CliRunner().invoke(main, ["reduce", str(src), "-o", str(tmp_path / ("x" * 300 + ".png")), "-k", "2"])
+    assert res.exit_code == 1 and (res.exception is None or isinstance(res.exception, SystemExit))
+    line = res.output.strip().splitlines()[-1]
+    assert "File name too long" in line and len(line) < 300  # the name is cut short, not echoed whole
+
+
+def test_a_cluster_that_is_not_an_address_is_refused_at_once(tmp_path):
+    (tmp_path / "in").mkdir()
+    Image.fromarray(_art()).save(tmp_path / "in" / "a.png")
+    res = CliRunner().invoke(main, ["batch", str(tmp_path / "in"), "-o", str(tmp_path / "o"), "-k", "2",
+                                    "--cluster", "notanaddress"])
+    assert res.exit_code == 1 and "not a scheduler address" in res.output and "Traceback" not in res.output
+
+
+@pytest.mark.skipif(not os.path.exists("/dev/full"), reason="needs /dev/full")
+def test_standard_output_closed_early_or_full_is_not_a_traceback(tmp_path):
+    src = tmp_path / "a.png"
+    Image.fromarray(_art()).save(src)
+    cmd = [sys.executable, "-m", "quantize", "reduce", str(src), "-o", str(tmp_path / "o.png"), "-k", "2", "--force"]
+    # A reader that stops at once (as `| head -c 1` does): the work is done, so exit 0 and say nothing.
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=300) == 0, err
+    assert "Traceback" not in err and "Exception ignored" not in err and (tmp_path / "o.png").exists()
+    with open("/dev/full", "w") as full:
+        res = subprocess.run(cmd, stdout=full, stderr=subprocess.PIPE, text=True, timeout=300)
+    assert res.returncode == 1 and "standard output" in res.stderr and "Traceback" not in res.stderr

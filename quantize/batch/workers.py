@@ -9,6 +9,7 @@ fails that image only.
 from __future__ import annotations
 
 import os
+import re
 from typing import Iterator
 
 from quantize.errors import QuantizeError
@@ -94,13 +95,20 @@ def _local_map(fn, items: list, extra: tuple, workers: int) -> Iterator[tuple[di
                     break  # start a fresh pool for what is left
 
 
+#: A Dask scheduler address: protocol://host:port or host:port (the protocols dask.distributed speaks).
+_ADDRESS = re.compile(r"^((tcp|tls|ucx|ws|wss)://)?(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+):\d{1,5}$|^inproc://\S+$")
+
+
 def _dask_client(cluster):
     try:
         from dask.distributed import Client
     except ImportError:
-        raise QuantizeError("--cluster needs dask.distributed; install it with: pip install 'quantize[dask]'") \
+        raise QuantizeError("--cluster needs dask.distributed; install it with: pip install 'quantize-palette[dask]'") \
             from None
     address = getattr(cluster, "scheduler_address", cluster)
+    if isinstance(address, str) and not _ADDRESS.match(address):
+        raise QuantizeError(f"--cluster {address[:200]!r} is not a scheduler address; give one such as "
+                            "tcp://host:8786 or host:8786")
     try:
         return Client(address, timeout="20s", set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:

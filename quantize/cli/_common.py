@@ -276,7 +276,21 @@ def _emit(as_json: bool, summary: dict, human):
 
 def _check_outputs(paths, force: bool, inputs):
     """Refuse before any work: an existing output (without --force), an input as output, or a
-    folder that cannot take the file."""
+    folder that cannot take the file; a name the system refuses (too long) is said in one line."""
+    try:
+        _check_output_paths(paths, force, inputs)
+    except OSError as exc:
+        name = exc.filename if exc.filename is not None else (paths[0] if paths else "")
+        raise _Failure(f"{_shown(name)}: {exc.strerror or exc}") from None
+
+
+def _shown(name, limit: int = 200) -> str:
+    """A file name as a message shows it: on one line, and cut short when it is very long."""
+    text = str(name).replace("\n", "\\n").replace("\r", "\\r")
+    return text if len(text) <= limit else text[: limit - 20] + "..." + text[-17:]
+
+
+def _check_output_paths(paths, force: bool, inputs):
     ins = {Path(p).resolve() for p in inputs}
     folders = {}
     for p in paths:

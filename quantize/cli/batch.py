@@ -72,7 +72,7 @@ def _fail(ctx: click.Context, exc: BaseException):
 @click.option("--workers", type=click.IntRange(min=0), default=None,
               help="Worker processes (default: the number of CPU cores; 0: in this process).")
 @click.option("--cluster", metavar="ADDRESS", default=None,
-              help="Run the per-image work on this Dask scheduler (needs quantize[dask]).")
+              help="Run the per-image work on this Dask scheduler (needs quantize-palette[dask]).")
 @click.option("--worst", type=click.IntRange(min=0), default=DEFAULT_WORST, show_default=True,
               help="How many worst-fitting images the one-palette report lists.")
 @click.option("--force", is_flag=True, help="Redo every image and replace existing files.")

@@ -55,6 +55,23 @@ class _Commands(click.Group):
     def invoke(self, ctx: click.Context):
         try:
             return super().invoke(ctx)
+        except BrokenPipeError:
+            # The reader stopped reading (`| head`): the outputs are written and the summary is not wanted.
+            # Standard output goes to the null device so that closing it at exit raises nothing more.
+            import os
+            import sys
+
+            null = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(null, sys.stdout.fileno())
+            os.close(null)
+            ctx.exit(0)
+        except OSError as exc:  # the work's own file errors are reported by the command; this is the summary's
+            if exc.filename is None:
+                click.echo(f"quantize: error: cannot write the summary to standard output ({exc.strerror or exc}); "
+                           "the output files are written", err=True)
+            else:
+                click.echo(f"quantize: error: {exc.filename}: {exc.strerror or exc}", err=True)
+            ctx.exit(1)
         except KeyboardInterrupt as exc:
             terminated = isinstance(exc, _Terminated)
             click.echo(f"quantize: {'terminated' if terminated else 'interrupted'}; nothing half-written is left",

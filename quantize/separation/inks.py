@@ -318,6 +318,10 @@ def _lab_value(values, rows: _Rows, line) -> tuple:
     lab = tuple(_number(v, rows, line, n) for v, n in zip(values, ("L*", "a*", "b*")))
     if not 0.0 <= lab[0] <= 100.0:
         raise rows.bad(line, f"L* {lab[0]:g} is outside 0-100")
+    # No surface colour comes near |a*| or |b*| of 200 (the sRGB gamut stays within about 130).
+    for v, n in zip(lab[1:], ("a*", "b*")):
+        if not -200.0 <= v <= 200.0:
+            raise rows.bad(line, f"{n} {v:.6g} is outside -200 to 200, no ink's colour")
     return lab
 
 
@@ -372,6 +376,8 @@ def _parse_json(text: str, source: str, illuminant: str | None) -> InkLibrary:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
         raise InkLibraryError(f"{source}: line {exc.lineno}: not JSON ({exc.msg}, column {exc.colno})") from None
+    except RecursionError:
+        raise InkLibraryError(f"{source}: not an ink library (JSON nested too deeply)") from None
     ill, obs = illuminant, 2
     if isinstance(doc, dict):
         fmt = doc.get("format", "quantize.separation.inks")
