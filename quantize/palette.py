@@ -542,6 +542,8 @@ class Palette:
             raise PaletteFileError(f"{p}: not JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
         except RecursionError:
             raise PaletteFileError(f"{p}: not a palette (JSON nested too deeply)") from None
+        except ValueError:  # a number of thousands of digits (Python's limit on integer conversion)
+            raise PaletteFileError(f"{p}: not a palette (a number with thousands of digits)") from None
         return cls.from_dict(doc, source=str(p))
 
     @classmethod

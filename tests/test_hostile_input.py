@@ -430,3 +430,72 @@ def test_standard_output_closed_early_or_full_is_not_a_traceback(tmp_path):
     with open("/dev/full", "w") as full:
         res = subprocess.run(cmd, stdout=full, stderr=subprocess.PIPE, text=True, timeout=300)
     assert res.returncode == 1 and "standard output" in res.stderr and "Traceback" not in res.stderr
+
+
+def test_messages_name_the_file_and_never_echo_huge_values(tmp_path):
+    # 5000-digit numbers hit Python's integer-conversion limit; long values were echoed whole.
+    art = tmp_path / "art.png"
+    Image.fromarray(_art()).save(art)
+    pal = tmp_path / "p.palette.json"
+    assert CliRunner().invoke(main, ["fit", str(art), "-o", str(pal), "-k", "2"]).exit_code == 0
+    big = tmp_path / "big.json"
+    big.write_text(pal.read_text().replace('"version": 1', '"version": ' + "9" * 5000, 1))
+    cg = tmp_path / "sets.txt"
+    cg.write_text('CGATS.17\nNUMBER_OF_FIELDS 4\nBEGIN_DATA_FORMAT\nSAMPLE_NAME LAB_L LAB_A LAB_B\nEND_DATA_FORMAT\n'
+                  "NUMBER_OF_SETS " + "9" * 5000 + '\nBEGIN_DATA\n"Red" 50 60 40\nEND_DATA\n')
+    hexes = tmp_path / "hex.csv"
+    hexes.write_text("name,hex\nInk,#" + "f" * 200_000 + "\n")
+    runs = [(["apply", str(big), str(art), "-o", str(tmp_path / "a")], "big.json"),
+            (["separate", str(art), "-o", str(tmp_path / "s1"), "--inks", str(cg), "-n", "1"], "sets.txt"),
+            (["separate", str(art), "-o", str(tmp_path / "s2"), "--inks", str(hexes), "-n", "1"], "hex.csv")]
+    for args, name in runs:
+        res = CliRunner().invoke(main, args)
+        assert res.exit_code == 1, res.output
+        line = res.output.strip().splitlines()[-1]
+        assert name in line and len(line) < 500 and "Traceback" not in res.output and "4300" not in line
+
+
+def test_a_file_name_with_a_newline_is_shown_whole_on_one_line(tmp_path):
+    src = tmp_path / "two\nlines.png"
+    Image.fromarray(_art()).save(src)
+    res = CliRunner().invoke(main, ["reduce", str(src), "-o", str(tmp_path / "o.png"), "-k", "2",
+                                    "--max-pixels", "10"])
+    assert res.exit_code == 1
+    assert "two\\nlines.png" in res.output.strip().splitlines()[-1]
+
+
+def test_damaged_tiff_tags_are_noted_not_a_traceback(tmp_path):
+    # TIFF 6.0: Orientation (274) is one SHORT 1-8; XResolution (282) a RATIONAL. Written damaged with tifffile.
+    tifffile = pytest.importorskip("tifffile")
+    rng = np.random.default_rng(0)
+    cases = {
+        "orient8.tif": (rng.integers(0, 255, (20, 30, 3), dtype=np.uint8), [(274, "H", 2, (1, 1), True)]),
+        "orient16.tif": (rng.integers(0, 65535, (20, 30, 3), dtype=np.uint16), [(274, "H", 2, (1, 1), True)]),
+        "res0.tif": (rng.integers(0, 255, (20, 30, 3), dtype=np.uint8),
+                     [(282, "2I", 1, (0, 1), True), (283, "2I", 1, (0, 1), True)]),
+    }
+    for name, (data, tags) in cases.items():
+        tifffile.imwrite(tmp_path / name, data, photometric="rgb", extratags=tags)
+        out = tmp_path / f"{name}.png"
+        res = CliRunner().invoke(main, ["reduce", str(tmp_path / name), "-o", str(out), "-k", "2"])
+        assert res.exit_code == 0, (name, res.output)
+        assert "Traceback" not in res.output and out.exists()
+        if name == "orient16.tif":  # the 16-bit reader ended in a TypeError traceback before
+            assert "damaged orientation tag" in res.output
+        with Image.open(out) as im:
+            assert im.size == (30, 20)  # orientation 1: as stored
+
+
+def test_the_library_never_writes_over_the_image_it_read_even_with_force(tmp_path):
+    from quantize import fit_palette, load_image
+    from quantize.errors import OutputError
+
+    src = tmp_path / "art.png"
+    Image.fromarray(_art()).save(src)
+    before = src.read_bytes()
+    pic = load_image(src)
+    res = fit_palette(pic, 2).apply(pic)
+    for write in (res.save, res.write):
+        with pytest.raises(OutputError, match="input"):
+            write(src, force=True)
+    assert src.read_bytes() == before

@@ -45,7 +45,22 @@ def _run(ctx: click.Context, fn):
             msg = f"{exc.filename}: {exc.strerror}"  # not "[Errno 2] ...: 'name'"
         elif isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
             msg = f"{exc.filename}: {msg}"
-        raise _Failure(msg.splitlines()[0]) from None
+        raise _Failure(_one_message_line(ctx, msg)) from None
+
+
+#: Longest message line shown: a hostile file's contents or a huge number are never echoed whole.
+_MESSAGE_LIMIT = 1000
+
+
+def _one_message_line(ctx: click.Context, msg: str) -> str:
+    """The message's first line, with the command's own file names kept whole (a newline in a file name
+    is shown as \\n, not taken for the end of the message), cut to :data:`_MESSAGE_LIMIT` characters."""
+    for value in ctx.params.values():
+        for v in value if isinstance(value, (tuple, list)) else (value,):
+            if isinstance(v, str) and ("\n" in v or "\r" in v):
+                msg = msg.replace(v, v.replace("\n", "\\n").replace("\r", "\\r"))
+    line = msg.splitlines()[0] if msg else msg
+    return line if len(line) <= _MESSAGE_LIMIT else line[: _MESSAGE_LIMIT - 20] + " ... (cut)"
 
 
 def _k_option(value: str) -> str:

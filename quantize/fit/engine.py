@@ -169,7 +169,7 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures:
         sources.append(pic.source)
         if pictures is not None:
             pictures.append(pic)
-        notes.extend(f"{pic.source}: {w}" for w in pic.warnings)
+        notes.extend(w if w.startswith(f"{pic.source}: ") else f"{pic.source}: {w}" for w in pic.warnings)
     return pool_samples(samples, weighting=weighting), sources, notes
 
 

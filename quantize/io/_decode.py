@@ -61,15 +61,32 @@ def dpi_pair(value: object) -> tuple[float, float] | None:
         x, y = (float(v) for v in value)  # type: ignore[union-attr]
     except (TypeError, ValueError):
         return None
-    return (x, y) if x > 0 and y > 0 and np.isfinite(x) and np.isfinite(y) else None
+    # A resolution of 0, or beyond any device (TIFF stores it as a 32-bit rational), is no resolution.
+    ok = all(0 < v <= MAX_DPI and np.isfinite(v) for v in (x, y))
+    return (x, y) if ok else None
+
+
+#: Highest resolution read from a file (dots per inch); above it the file's value is ignored.
+MAX_DPI = 1_000_000.0
 
 
 def exif_orientation(img: Image.Image, name: str, notes: list[_Note]) -> int:
     try:
-        return int(img.getexif().get(0x0112, 1))
+        value = img.getexif().get(0x0112, 1)
     except (*DECODE_ERRORS, TypeError):
         notes.append((ImageWarning, f"{name}: unreadable EXIF data; orientation ignored"))
         return 1
+    return orientation_value(value, name, notes)
+
+
+def orientation_value(value: object, name: str, notes: list[_Note]) -> int:
+    """An orientation tag's value: one whole number 1-8 (TIFF 6.0 / Exif tag 274), else 1 with a note."""
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and 1 <= int(value) <= 8:
+        return int(value)
+    if value is None:
+        return 1
+    notes.append((ImageWarning, f"{name}: damaged orientation tag ({str(value)[:40]}); orientation ignored"))
+    return 1
 
 
 def to_8bit(a: np.ndarray) -> np.ndarray:

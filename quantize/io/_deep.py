@@ -18,7 +18,15 @@ from PIL import Image
 
 from quantize.core.picture import ImageWarning
 
-from ._decode import DECODE_ERRORS, PNG16_RAWMODE, check_pixels, dpi_pair, exif_orientation, open_pil
+from ._decode import (
+    DECODE_ERRORS,
+    PNG16_RAWMODE,
+    check_pixels,
+    dpi_pair,
+    exif_orientation,
+    open_pil,
+    orientation_value,
+)
 
 __all__ = ["read_png16", "read_tiff16"]
 
@@ -131,8 +139,15 @@ def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
         per_unit = 1.0 if tags.get(296, 2) == 2 else 2.54
         dpi = dpi_pair([_rational(tags[282]) * per_unit, _rational(tags[283]) * per_unit])
     icc = tags.get(34675)
-    return colour, alpha, bytes(icc) if icc else None, int(tags.get(274, 1)), dpi
+    return colour, alpha, bytes(icc) if icc else None, orientation_value(tags.get(274, 1), name, notes), dpi
 
 
 def _rational(v) -> float:
-    return v[0] / v[1] if isinstance(v, tuple) else float(v)
+    """A TIFF RATIONAL (numerator, denominator) as a number; a zero denominator or a value of the wrong
+    form reads as 0, which :func:`dpi_pair` takes for no resolution."""
+    try:
+        if isinstance(v, tuple):
+            return v[0] / v[1] if len(v) == 2 and v[1] else 0.0
+        return float(v)
+    except (TypeError, ValueError):
+        return 0.0

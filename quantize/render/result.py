@@ -113,7 +113,14 @@ class MappedImage:
         from quantize.io.write import save_image
 
         return save_image(path, self.indices, self.palette.rgb8, alpha=self.alpha,
-                          dpi=self.dpi, force=force, inputs=inputs)
+                          dpi=self.dpi, force=force, inputs=self._never_overwritten(inputs))
+
+    def _never_overwritten(self, inputs) -> list:
+        """``inputs`` plus the file this image was read from: never replaced, even with force."""
+        out = list(inputs)
+        if self.source and not self.source.startswith("<"):
+            out.append(self.source)
+        return out
 
     def write(self, path, *, picture=None, force: bool = False, inputs=()) -> SavedImage:
         """Write the reduced image and measure the file written.
@@ -149,7 +156,7 @@ class MappedImage:
             raise ValueError(f"picture is {picture.rgb.shape[:2]} pixels, the mapped image "
                              f"{self.indices.shape}: not the picture it was mapped from")
         written = write_image(path, self.indices, self.palette.rgb8, alpha=self.alpha,
-                              dpi=self.dpi, force=force, inputs=inputs)
+                              dpi=self.dpi, force=force, inputs=self._never_overwritten(inputs))
         if written.decoded is None and written.cleared is None:
             de = self.delta_e  # the file holds exactly these pixels
         elif picture is None:

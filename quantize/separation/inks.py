@@ -305,12 +305,13 @@ def _where(line) -> str:
 
 
 def _number(text: str, rows: _Rows, line, what: str) -> float:
+    shown = text if not isinstance(text, str) or len(text) <= 40 else text[:30] + "..." + text[-6:]
     try:
         v = float(text)
     except (TypeError, ValueError):
-        raise rows.bad(line, f"{what} {text!r} is not a number") from None
+        raise rows.bad(line, f"{what} {shown!r} is not a number") from None
     if not math.isfinite(v):
-        raise rows.bad(line, f"{what} {text!r} is not finite")
+        raise rows.bad(line, f"{what} {shown!r} is not finite")
     return v
 
 
@@ -328,7 +329,8 @@ def _lab_value(values, rows: _Rows, line) -> tuple:
 def _hex_value(text: str, rows: _Rows, line) -> np.ndarray:
     m = _HEX.match(text.strip())
     if not m:
-        raise rows.bad(line, f"colour {text!r} is neither sRGB hex (#rrggbb) nor L,a,b")
+        shown = text if len(text) <= 40 else text[:30] + "..." + text[-6:]
+        raise rows.bad(line, f"colour {shown!r} is neither sRGB hex (#rrggbb) nor L,a,b")
     h = m.group(1)
     return np.array([int(h[i:i + 2], 16) for i in (0, 2, 4)], dtype=np.uint8)
 
@@ -521,8 +523,8 @@ class _CgatsReader:
         elif head in ("END_DATA", "END_DATA_FORMAT"):
             raise self.rows.bad(lineno, f"{head} without a matching BEGIN")
         elif head in ("NUMBER_OF_FIELDS", "NUMBER_OF_SETS"):
-            if len(toks) != 2 or not toks[1].isdigit():
-                raise self.rows.bad(lineno, f"{head} needs one whole number")
+            if len(toks) != 2 or not toks[1].isdigit() or len(toks[1]) > 9:
+                raise self.rows.bad(lineno, f"{head} needs one whole number below a billion")
             if head == "NUMBER_OF_FIELDS":
                 self.n_fields = int(toks[1])
             else:

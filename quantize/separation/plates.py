@@ -794,7 +794,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
         raise SeparationError(f"a separation takes at most {MAX_INKS} colours (inks and the substrate); the "
                               f"palette has {palette.k}")
     pic = _picture(image, max_pixels)
-    notes = [f"{pic.source}: {w}" for w in pic.warnings]
+    notes = [w if w.startswith(f"{pic.source}: ") else f"{pic.source}: {w}" for w in pic.warnings]
     palette, sub, said = _with_named_substrate(pic, palette, substrate, notes)
     art_dpi = _resolve_dpi(pic, st.dpi, notes)
     grid = _film_grid(pic, art_dpi, st, notes)
