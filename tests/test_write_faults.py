@@ -136,3 +136,23 @@ def test_a_set_of_plates_lands_whole_or_not_at_all(tmp_path, monkeypatch):
     written = sep.write(tmp_path / "films")
     assert len(list((tmp_path / "films").iterdir())) == 2 + 1 + 1 + 1  # two films, PDF, preview, manifest
     assert written["manifest"].exists()
+
+
+def test_the_next_write_removes_a_temporary_file_a_killed_run_left(photo, tmp_path):
+    import os
+    import time
+
+    from click.testing import CliRunner
+
+    from quantize.cli.main import main
+
+    out = tmp_path / "poster.png"
+    stale = tmp_path / ".poster.png.k2j4x9q1.part"  # as a SIGKILL mid-write leaves it (mkstemp's name)
+    stale.write_bytes(b"half an image")
+    old = time.time() - 3600
+    os.utime(stale, (old, old))
+    fresh = tmp_path / ".poster.png.abcdefgh.part"  # another writer's file in progress: left alone
+    fresh.write_bytes(b"in progress")
+    res = CliRunner().invoke(main, ["reduce", str(photo), "-o", str(out), "-k", "4"])
+    assert res.exit_code == 0, res.output
+    assert not stale.exists() and fresh.exists() and out.exists()

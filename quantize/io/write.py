@@ -357,6 +357,7 @@ def _atomic_write(target: Path, write: Callable[[IO[bytes]], object], *, force: 
     name = os.fspath(target)
     _check_target(target, name, force, inputs)
     mode = _new_file_mode(target)
+    _remove_stale_temporaries(target)
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     except OSError as exc:
@@ -379,6 +380,27 @@ def _atomic_write(target: Path, write: Callable[[IO[bytes]], object], *, force: 
         _discard(tmp)
         raise
     return target
+
+
+#: A temporary file of this writer older than this (seconds) was left by a process that was killed
+#: mid-write (a write holds its temporary file for the time of one disk write, never minutes).
+_STALE_SECONDS = 600.0
+
+
+def _remove_stale_temporaries(target: Path) -> None:
+    """Remove this writer's leftover temporary files for ``target`` (``.NAME.XXXXXXXX.part``, as mkstemp
+    names them), left by a run that was killed; only those older than :data:`_STALE_SECONDS`."""
+    import time
+
+    prefix, now = f".{target.name}.", time.time()
+    with contextlib.suppress(OSError):
+        for entry in os.scandir(target.parent):
+            name = entry.name
+            if (name.startswith(prefix) and name.endswith(".part") and len(name) == len(prefix) + 8 + 5
+                    and entry.is_file(follow_symlinks=False)
+                    and now - entry.stat(follow_symlinks=False).st_mtime > _STALE_SECONDS):
+                with contextlib.suppress(OSError):
+                    os.unlink(entry.path)
 
 
 def _check_target(target: Path, name: str, force: bool, inputs) -> None:
