@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import json
 import re
-import warnings
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from collections.abc import Mapping
@@ -35,10 +34,10 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from quantize.core.vocabulary import renamed_keywords
 from quantize.errors import PaletteFileError
 
-__all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION",
-           "RENAMED_KEYWORDS", "renamed_keywords"]
+__all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
@@ -108,52 +107,6 @@ def parse_colour(spec) -> np.ndarray:
         raise ValueError(f"colour {spec!r}: L* must be within 0-100")
     rgb = clip_to_gamut(lab_to_srgb(np.array(lab)))
     return np.round(rgb * 255).astype(np.uint8)
-
-
-#: Library keywords renamed to the command line's option names: old name -> new name
-#: (``init`` -> ``seeding`` as ``--seeding``, and so on).  The old names still work, with a
-#: DeprecationWarning.
-RENAMED_KEYWORDS = {"init": "seeding", "metric": "nearest", "strength": "dither_strength"}
-
-
-def renamed_keywords(options: Mapping, where: str, old_names, *, stacklevel: int = 3) -> dict:
-    """``options`` with each old keyword of ``old_names`` under its new name (see :data:`RENAMED_KEYWORDS`).
-
-    Each old keyword found is warned about with a :class:`DeprecationWarning`
-    (through :func:`warnings.warn`; filters are the caller's business).
-    ``nearest="auto"``, the command line's default, becomes None, which
-    every function reads as "the default metric".
-
-    Parameters
-    ----------
-    options : mapping
-        Keyword arguments as the caller gave them.
-    where : str
-        The public function's name, for the messages.
-    old_names : iterable of str
-        The old names this function still accepts.
-    stacklevel : int, default=3
-        Points the warning at the caller of the public function that calls this.
-
-    Raises
-    ------
-    TypeError
-        An old name given together with its new one.
-    """
-    out = dict(options)
-    for old in old_names:
-        if old not in out:
-            continue
-        new = RENAMED_KEYWORDS[old]
-        if new in out:
-            raise TypeError(f"{where}() got both {old!r} and its new name {new!r}; give {new!r} only")
-        warnings.warn(f"{where}(): the keyword {old!r} is now {new!r}, as the command line's "
-                      f"--{new.replace('_', '-')}; {old!r} will be removed", DeprecationWarning,
-                      stacklevel=stacklevel)
-        out[new] = out.pop(old)
-    if out.get("nearest") == "auto":
-        out["nearest"] = None
-    return out
 
 
 @dataclass(frozen=True)
@@ -250,6 +203,9 @@ class FitRecord:
     target_met : bool
         Whether the chosen size meets the ΔE00 target (target and automatic
         rules); None where no target applied.
+    for_dither : bool
+        Whether the palette was fitted for a dither that follows
+        (:mod:`quantize.fit.for_dither`); None in files written before it was recorded.
     extra : Mapping
         Other keys of the file's ``fit`` object, kept as read (e.g. what a
         separation adds: the ink library, the snapped colours).
@@ -283,6 +239,7 @@ class FitRecord:
     kind_reason: str | None = None
     lost: tuple | None = None
     target_met: bool | None = None
+    for_dither: bool | None = None
     extra: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
@@ -475,9 +432,9 @@ class Palette:
         nearest = old.pop("nearest", nearest)
         dither_strength = old.pop("dither_strength", dither_strength)
         # Anything else is map_picture's to accept or refuse.
-        return map_picture(image, self, dither=dither, metric=None if nearest == "auto" else nearest,
-                           strength=dither_strength, serpentine=serpentine, max_pixels=max_pixels, sample=sample,
-                           **old)
+        return map_picture(image, self, dither=dither, nearest=None if nearest == "auto" else nearest,
+                           dither_strength=dither_strength, serpentine=serpentine, max_pixels=max_pixels,
+                           sample=sample, **old)
 
     # -- JSON -------------------------------------------------------------
 

@@ -119,3 +119,24 @@ def test_new_keywords_equal_the_old_ones_which_warn():
     with pytest.raises(TypeError, match="give 'seeding' only"):
         quantize.fit_palette(img, 3, seeding="random", init="random")
     assert warnings.filters == filters  # warned through warnings.warn; no filter was changed
+
+
+def test_map_picture_speaks_the_command_line_vocabulary_and_warns_on_old_names():
+    import warnings
+
+    import numpy as np
+
+    from quantize.palette import Palette
+    from quantize.render.mapping import map_picture
+
+    img = np.zeros((8, 8, 3), np.uint8)
+    img[:, 4:] = (200, 30, 40)
+    pal = Palette(np.array([[0, 0, 0], [200, 30, 40]], np.uint8), None)
+    new = map_picture(img, pal, nearest="ciede2000", dither="floyd-steinberg", dither_strength=0.5)
+    filters = list(warnings.filters)
+    with pytest.warns(DeprecationWarning, match="metric"):
+        old = map_picture(img, pal, metric="ciede2000", dither="floyd-steinberg", strength=0.5)
+    assert warnings.filters == filters
+    np.testing.assert_array_equal(new.indices, old.indices)
+    with pytest.raises(TypeError, match="both"):
+        map_picture(img, pal, metric="ciede2000", nearest="space")

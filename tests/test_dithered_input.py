@@ -101,7 +101,7 @@ def test_flat_artwork_is_not_taken_for_a_dither(seed):
     # Anti-aliased and JPEG-compressed flat art (tests/artwork.py) keeps its clean-up.
     for img, inks in (flat_artwork(5, seed, size=160, jpeg_quality=75), lettering_artwork(4, seed)[:2]):
         pal = Palette(np.asarray(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
-        assert alternation_share(map_picture(img, pal, metric="ciede2000").indices) < DITHER_SHARE
+        assert alternation_share(map_picture(img, pal, nearest="ciede2000").indices) < DITHER_SHARE
         sep = separate(img, pal, dpi=300, settings=AT_ART)
         assert not sep.dither["kept"] and sep.cleanup.min_feature_mm == 0.5
 
@@ -111,7 +111,7 @@ def test_keep_is_honoured_on_flat_art_and_a_bad_choice_is_refused():
     pal = Palette(np.asarray(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
     sep = separate(img, pal, dpi=300, settings=AT_ART, dithered="keep")
     assert sep.dither["kept"] and sep.cleanup.pixels_changed == 0 and sep.edges is None
-    np.testing.assert_array_equal(sep.indices, map_picture(img, pal, metric="ciede2000").indices)
+    np.testing.assert_array_equal(sep.indices, map_picture(img, pal, nearest="ciede2000").indices)
     from quantize.errors import SeparationError
 
     with pytest.raises(SeparationError, match="dithered"):

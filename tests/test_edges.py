@@ -106,7 +106,7 @@ def test_anti_aliased_edges_print_only_the_inks_that_cover_them(art):
     inks, paint = art
     rgb, allowed = _draw(inks, paint)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
-    before = _slivers(map_picture(rgb, pal, metric="ciede2000").indices, allowed).sum()
+    before = _slivers(map_picture(rgb, pal, nearest="ciede2000").indices, allowed).sum()
     assert before > 100  # the plain nearest colour does make slivers of a third ink on this art
     sep = separate(rgb, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)  # no clean-up: the edge step alone
     assert _slivers(sep.indices, allowed).sum() == 0
@@ -122,7 +122,7 @@ def test_jpeg_edges_keep_at_most_a_trace_and_no_plate_keeps_a_sliver_region():
     jpg = _jpeg(rgb)
     near = _grow(allowed, 1)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
-    before = _slivers(map_picture(jpg, pal, metric="ciede2000").indices, near).sum()
+    before = _slivers(map_picture(jpg, pal, nearest="ciede2000").indices, near).sum()
     alone = separate(jpg, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)
     after = _slivers(alone.indices, near).sum()
     assert before > 300 and after <= 0.1 * before  # at least 90 % of the slivers go (measured: 92 %)
@@ -148,7 +148,7 @@ def test_a_reduced_image_loses_its_one_pixel_slivers_but_not_its_lines():
     inks, paint = POSTER
     rgb, allowed = _draw(inks, paint)
     pal = Palette(np.array(inks, np.uint8), np.r_[True, np.zeros(len(inks) - 1, bool)])
-    idx = map_picture(rgb, pal, metric="ciede2000").indices
+    idx = map_picture(rgb, pal, nearest="ciede2000").indices
     reduced = pal.rgb8[idx]
     sep = separate(reduced, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0)
     before, after = _slivers(idx, allowed), _slivers(sep.indices, allowed)
@@ -176,7 +176,7 @@ def test_a_blend_goes_to_the_nearer_ink_along_the_segment():
         assert np.argmin(deltaE_ciede2000(ref[3 + i][None], ref[:3])) == 1
     rgb = np.zeros((6, 10, 3), np.uint8)
     rgb[:, :4], rgb[:, 6:], rgb[:, 4], rgb[:, 5] = NAVY, CREAM, blends[0], blends[1]
-    idx = map_picture(rgb, Palette(inks, None), metric="ciede2000").indices
+    idx = map_picture(rgb, Palette(inks, None), nearest="ciede2000").indices
     assert (idx[:, 4:6] == 1).all()
     out, rep = resolve_seams(idx, srgb8_to_space(rgb.reshape(-1, 3), "lab"), np.arange(60).reshape(6, 10),
                              srgb8_to_space(inks, "lab"))
@@ -209,7 +209,7 @@ def test_manifest_counts_the_edge_pixels_the_composite_shows(tmp_path):
                   names=("tee", "White", "Green"))
     written = separate(rgb, pal, dpi=300, settings=AT_ART, min_feature_mm=0, min_line_mm=0).write(tmp_path, stem="job")
     comp = np.asarray(Image.open(written["composite"]).convert("RGB"))
-    plain = pal.rgb8[map_picture(rgb, pal, metric="ciede2000").indices]
+    plain = pal.rgb8[map_picture(rgb, pal, nearest="ciede2000").indices]
     moved = (comp != plain).any(axis=-1)
     doc = json.loads(written["manifest"].read_text(encoding="utf-8"))
     assert doc["edges"]["pixels_changed"] == int(moved.sum()) > 0

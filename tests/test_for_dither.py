@@ -212,3 +212,15 @@ def test_reduce_fits_for_the_dither_and_the_written_file_shows_no_band(tmp_path)
             assert im.mode == "P"
             outs[dither] = np.asarray(im.convert("RGB"))
     assert _row_band(_sky(), outs["floyd-steinberg"]).max() <= 1.5
+
+
+def test_the_palette_file_records_that_it_was_fitted_for_a_dither(tmp_path):
+    from quantize import fit_palette
+    from quantize.palette import Palette
+
+    rng = np.random.default_rng(3)
+    img = np.clip(np.linspace(0, 255, 64)[None, :, None] + rng.normal(0, 3, (32, 64, 3)), 0, 255).astype(np.uint8)
+    for flag in (True, False):
+        pal = fit_palette(img, 4, for_dither=flag)
+        pal.save(tmp_path / f"{flag}.json")
+        assert Palette.load(tmp_path / f"{flag}.json").fit.for_dither is flag

@@ -270,7 +270,7 @@ def test_selection_cost_is_the_error_of_the_image_mapped_onto_the_inks():
     rng = np.random.default_rng(7)
     lib = _library(np.vstack([inks[1:], rng.integers(0, 256, (5, 3))]).astype(np.uint8))
     sel = choose_inks(img, lib, 3, substrate="#{:02x}{:02x}{:02x}".format(*map(int, inks[0])))
-    mapped = map_picture(img, sel.palette, metric="ciede2000")
+    mapped = map_picture(img, sel.palette, nearest="ciede2000")
     assert sel.cost == pytest.approx(mapped.delta_e["mean"], rel=1e-9)
     # The artwork's own inks are in the library: they are the ones chosen.
     assert sorted(lib.names[i] for i in sel.chosen) == ["Ink0", "Ink1", "Ink2"]

@@ -80,7 +80,7 @@ def test_cleaned_image_stays_close_to_the_mapped_one(separation, artwork):
     from quantize.render.mapping import map_picture
 
     img, pal, _ = artwork
-    mapped = map_picture(img, pal, metric="ciede2000")
+    mapped = map_picture(img, pal, nearest="ciede2000")
     changed = (mapped.indices != separation.indices).sum()
     # JPEG noise specks were merged, and edge blends given to one of their two inks (tests/test_edges.py).
     assert separation.cleanup.pixels_changed > 0

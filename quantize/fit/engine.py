@@ -18,7 +18,8 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from quantize.core.regions import find_regions
-from quantize.palette import FitCandidate, FitRecord, Palette, renamed_keywords
+from quantize.core.vocabulary import renamed_keywords
+from quantize.palette import FitCandidate, FitRecord, Palette
 from quantize.quality.stats import coverage_percent, delta_e_stats
 
 from .clustering import PaletteSizeWarning, kmeans, lloyd_from, tolerance_scale
@@ -859,6 +860,7 @@ def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSetti
         space=settings.space, restarts=settings.restarts, seed=settings.seed, init=settings.init,
         weighting=settings.weighting, metric=settings.metric, refine=settings.refine, target=settings.target,
         target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
+        for_dither=settings.for_dither,
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,
         candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,

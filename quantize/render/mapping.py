@@ -17,8 +17,9 @@ from .result import MappedImage, nearest_image  # MappedImage: the return annota
 __all__ = ["map_picture"]
 
 
-def map_picture(image, palette, *, dither: str = "none", metric: str | None = None,
-                strength: float = 1.0, serpentine: bool = True, max_pixels=None, sample=None) -> MappedImage:
+def map_picture(image, palette, *, dither: str = "none", nearest: str | None = None,
+                dither_strength: float = 1.0, serpentine: bool = True, max_pixels=None, sample=None,
+                **old_names) -> MappedImage:
     """Reduce an image to ``palette``.
 
     Parameters
@@ -29,12 +30,15 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
     dither : str, default="none"
         ``"none"``: every pixel takes its nearest colour.  Other methods are
         listed in :data:`quantize.render.dither.DITHERS`.
-    metric : {"ciede2000", "space"}, optional
+    nearest : {"auto", "ciede2000", "space"}, optional
         Nearest colour by CIEDE2000, or by Euclidean distance in the
-        palette's space.  Default: CIEDE2000 without dithering, the space's
-        distance with it (:func:`resolve_metric`).
-    strength : float, default=1.0
-        Dither strength in 0-1 (ignored without dithering).
+        palette's space.  Default (None or "auto"): CIEDE2000 without
+        dithering, the space's distance with it (:func:`resolve_metric`).
+        The command line's ``--nearest``; ``metric=`` is the old name
+        (accepted with a DeprecationWarning).
+    dither_strength : float, default=1.0
+        Dither strength in 0-1 (ignored without dithering); the command
+        line's ``--dither-strength``; ``strength=`` is the old name.
     serpentine : bool, default=True
         Error diffusion scans alternate rows right to left (ignored otherwise).
     max_pixels : int or None
@@ -57,8 +61,19 @@ def map_picture(image, palette, *, dither: str = "none", metric: str | None = No
         Unknown ``dither`` or ``metric``, or a ``sample`` of another size.
     """
     from quantize.io.read import as_picture, load_image
+    from quantize.core.vocabulary import renamed_keywords
 
-    metric = resolve_metric(metric, dither)
+    if old_names:
+        unknown = set(old_names) - {"metric", "strength"}
+        if unknown:
+            raise TypeError(f"map_picture() got an unexpected keyword argument {sorted(unknown)[0]!r}")
+        given = renamed_keywords(dict(old_names, **({"nearest": nearest} if nearest is not None else {}),
+                                      **({"dither_strength": dither_strength} if dither_strength != 1.0 else {})),
+                                 "map_picture", ("metric", "strength"))
+        nearest = given.get("nearest", nearest)
+        dither_strength = given.get("dither_strength", dither_strength)
+    metric = resolve_metric(None if nearest == "auto" else nearest, dither)
+    strength = dither_strength
     if isinstance(image, (str, bytes)) or hasattr(image, "__fspath__"):
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
     else:

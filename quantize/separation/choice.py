@@ -567,7 +567,7 @@ def _mapped(pic, palette):
         return None
     from quantize.render.mapping import map_picture
 
-    return map_picture(pic, palette, metric="ciede2000").indices
+    return map_picture(pic, palette, nearest="ciede2000").indices
 
 
 def resolve_substrate(picture, palette, substrate) -> tuple[Any, int | None, str]:
@@ -663,7 +663,7 @@ def snap_outcomes(image, snaps: Sequence[dict], indices: np.ndarray, palette, li
     pic = _picture(image)
     fitted = [parse_colour(s["fitted"]) for s in snaps]
     rgb = fitted + ([palette.rgb8[substrate]] if substrate is not None else [])
-    own = map_picture(pic, Palette(np.array(rgb, np.uint8), None), metric="ciede2000").indices
+    own = map_picture(pic, Palette(np.array(rgb, np.uint8), None), nearest="ciede2000").indices
     opaque = pic.opaque
     if indices.shape != own.shape:  # films at another resolution: read them at each artwork pixel's centre
         from .film import sample_at_artwork

@@ -801,7 +801,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     if st.tones != "spot":
         return _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes)
     smp = sample_picture(pic)
-    mapped = map_picture(pic, palette, metric="ciede2000", sample=smp)
+    mapped = map_picture(pic, palette, nearest="ciede2000", sample=smp)
     dither, dither_note = dither_handling(mapped.indices, pic.opaque, st.dithered, source=pic.source)
     if dither_note:
         notes.append(dither_note)
