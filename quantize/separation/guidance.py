@@ -26,7 +26,7 @@ import numpy as np
 
 from quantize.core.units import MM_PER_INCH, px_to_mm
 
-__all__ = ["MESH_COUNTS", "MESH_RULE", "mesh_for", "plate_guidance"]
+__all__ = ["MESH_COUNTS", "MESH_RULE", "mesh_for", "mesh_for_screen", "plate_guidance"]
 
 #: Usual screen mesh counts, threads per inch (common practice, from memory).
 MESH_COUNTS = (110, 156, 200, 230, 305)
@@ -57,6 +57,23 @@ def mesh_for(finest_mm: float | None, *, white: bool = False) -> dict:
         mesh = _WHITE_MAX
         note = "a white plate on a coarse mesh: its finest detail may not hold"
     return {"threads_per_inch": mesh, "needed": round(needed, 1), "note": note}
+
+
+def mesh_for_screen(lpi: float) -> dict:
+    """The mesh suggestion for a halftone of ``lpi`` lines per inch: the first usual count with
+    :data:`quantize.separation.halftone.THREADS_PER_LINE` threads per line (common practice, from memory).
+
+    Examples
+    --------
+    >>> mesh_for_screen(55)["threads_per_inch"], mesh_for_screen(45)["threads_per_inch"]
+    (230, 200)
+    """
+    from .halftone import THREADS_PER_LINE
+
+    needed = THREADS_PER_LINE * lpi
+    fits = [m for m in MESH_COUNTS if m >= needed]
+    return {"threads_per_inch": fits[0] if fits else MESH_COUNTS[-1], "needed": needed,
+            "note": "" if fits else f"{lpi:g} lpi needs a mesh finer than {MESH_COUNTS[-1]}"}
 
 
 def plate_guidance(mask: np.ndarray, dpi: float, *, white: bool = False) -> dict:

@@ -37,12 +37,16 @@ import numpy as np
 from quantize.core.units import MM_PER_INCH
 from quantize.errors import SeparationError
 
-__all__ = ["Screen", "DOT_SHAPES", "halftone", "printable_share", "screen_warnings", "default_angles",
+__all__ = ["Screen", "DOT_SHAPES", "THREADS_PER_LINE", "halftone", "printable_share", "screen_warnings", "default_angles",
            "drop_specks"]
 
 #: Dot shapes: round (a circle grows from the cell's centre), elliptical
 #: (an ellipse of axes 1 : 0.7, so dots join along one axis first) and square.
 DOT_SHAPES = ("round", "elliptical", "square")
+
+#: Mesh threads per screen line a halftone needs (common practice, from memory): finer lines are cut by
+#: the threads.
+THREADS_PER_LINE = 4
 
 #: Samples per cell side used to rank a spot function by area.
 _RANK_SAMPLES = 256
@@ -280,9 +284,10 @@ def screen_warnings(screen: Screen, dpi: float, mesh: float | None = None) -> li
     if per_cell < 10:
         out.append(f"{screen.lpi:g} lpi is too fine for {dpi:g} dpi film: {per_cell:.1f} film pixels per cell, "
                    f"about {int(per_cell * per_cell) + 1} tone levels (at least 10 pixels per cell is common practice)")
-    if mesh is not None and mesh < 4 * screen.lpi:
+    if mesh is not None and mesh < THREADS_PER_LINE * screen.lpi:
         out.append(f"a {mesh:g} mesh is too coarse for {screen.lpi:g} lpi: common practice asks at least 4 threads "
-                   f"per screen line ({4 * screen.lpi:g} mesh or finer, or {mesh / 4:g} lpi or coarser)")
+                   f"per screen line ({THREADS_PER_LINE * screen.lpi:g} mesh or finer, or "
+                   f"{mesh / THREADS_PER_LINE:g} lpi or coarser)")
     if screen.min_dot_mm > 0 and screen.min_share >= 0.5:
         out.append(f"the minimum dot of {screen.min_dot_mm:g} mm covers half a {screen.cell_mm:.2f} mm cell: "
                    f"{screen.lpi:g} lpi cannot print tones at this minimum")

@@ -76,7 +76,7 @@ from .defaults import (
 from .dithered import DITHER_CHOICES, dither_handling
 from .edges import SeamReport, resolve_seams
 from .film import FilmGrid, film_grid, resample_indices, sample_at_artwork
-from .guidance import MESH_COUNTS, MESH_RULE, mesh_for, plate_guidance
+from .guidance import MESH_RULE, mesh_for, mesh_for_screen, plate_guidance
 from .halftone import screen_warnings
 from .tonal import TONES, TonalSettings, print_error, simulate_print
 from .trap import trap_plates
@@ -958,12 +958,7 @@ def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: 
 def _tonal_guidance(p: Plate, screen: dict, px_cm: float) -> dict:
     """Area and mesh of a halftone or index film, from its screen (its dots are too many to measure one by one)."""
     finest = screen.get("min_dot_mm") or screen.get("square_mm")
-    mesh = mesh_for(finest)
-    if "lpi" in screen:
-        needed = 4 * screen["lpi"]  # common practice, from memory: 4 threads per screen line or more
-        fits = [m for m in MESH_COUNTS if m >= needed]
-        mesh = {"threads_per_inch": fits[0] if fits else MESH_COUNTS[-1], "needed": needed,
-                "note": "" if fits else f"{screen['lpi']:g} lpi needs a mesh finer than {MESH_COUNTS[-1]}"}
+    mesh = mesh_for_screen(screen["lpi"]) if "lpi" in screen else mesh_for(finest)
     return {"smallest_dot_mm": finest, "smallest_line_mm": None,
             "area_cm2": round(float(p.mask.sum()) * px_cm * px_cm, 3), "pieces": None, "mesh": mesh}
 
