@@ -21,7 +21,7 @@ def chromium(args, url, tmp_path: Path):
     profile = tmp_path / f"profile-{len(list(tmp_path.iterdir()))}"
     cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
            "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}",
-           "--enable-logging=stderr", "--v=0", "--virtual-time-budget=5000", *args, url]
+           "--enable-logging=stderr", "--v=0", "--virtual-time-budget=20000", *args, url]
     return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
 
 

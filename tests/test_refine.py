@@ -86,3 +86,71 @@ def test_refined_palette_beats_reference_kmeans_on_a_photo(k):
     ours = ciede2000_medians(lab, w, ref, iters=20)
     our_de = nearest_ciede2000(lab, ours)[1]
     assert (w * our_de).sum() < 0.97 * (w * ref_de).sum()
+
+
+def _compass_every_round(lab, w, centres, labels, n_fixed, steps, max_rounds):
+    """The compass search measuring every colour in every round (the plain form of _compass)."""
+    from quantize.kernels.nearest import CiedeColumns
+
+    cols = CiedeColumns(lab)
+    c = np.array(centres, dtype=np.float64)
+    k = c.shape[0]
+    free = np.arange(k) >= n_fixed
+    de = cols.to(c, labels)
+    for step in steps:
+        for _ in range(max_rounds):
+            moved = False
+            for axis in range(3):
+                for sign in (1.0, -1.0):
+                    trial = c.copy()
+                    trial[free, axis] += sign * step
+                    de_t = cols.to(trial, labels)
+                    better = free & (np.bincount(labels, weights=w * (de - de_t), minlength=k) > 0)
+                    if better.any():
+                        c[better] = trial[better]
+                        de = np.where(better[labels], de_t, de)
+                        moved = True
+            if not moved:
+                break
+    return c
+
+
+@settings(max_examples=20, deadline=None)
+@given(st.integers(0, 10_000), st.integers(1, 7))
+def test_compass_measuring_only_moved_centres_equals_measuring_all(seed, k):
+    # With the labels fixed each centre's sum depends on that centre alone, so
+    # skipping the colours of centres that stayed put through a round must
+    # give exactly the plain search's centres.
+    rng = np.random.default_rng(seed)
+    lab = srgb8_to_space(rng.integers(0, 256, (400, 3)).astype(np.uint8), "lab")
+    w = rng.integers(1, 20, 400).astype(float)
+    centres = lab[:k] + rng.normal(scale=3.0, size=(k, 3))
+    labels = naive.nearest_ciede2000(lab, centres)[0]
+    ours = compass_polish(lab, w, centres, labels, n_fixed=1, steps=(1.0, 0.5, 0.25))
+    plain = _compass_every_round(lab, w, centres, labels, 1, (1.0, 0.5, 0.25), 3)
+    assert_array_equal(ours, plain)
+
+
+def test_float32_columns_match_colour_science_and_the_full_scan():
+    # The k-medians measure ΔE00 on float32 columns; against colour-science's
+    # CIEDE2000 (reference library) they must agree to float32 rounding, and
+    # the nearest colour must be the full scan's wherever the two best
+    # differ by more than that rounding.
+    colour = pytest.importorskip("colour")
+    from quantize.kernels.nearest import CiedeColumns
+
+    rng = np.random.default_rng(7)
+    lab = srgb8_to_space(rng.integers(0, 256, (5000, 3)).astype(np.uint8), "lab")
+    pal = srgb8_to_space(rng.integers(0, 256, (12, 3)).astype(np.uint8), "lab")
+    cols = CiedeColumns(lab)
+    labels = rng.integers(0, 12, 5000)
+    ref_to = colour.difference.delta_E_CIE2000(lab, pal[labels])
+    # float32 keeps about 7 digits; a few operations lose one more (relative 2e-5).
+    np.testing.assert_allclose(cols.to(pal, labels), ref_to, rtol=2e-5, atol=2e-4)
+    got_labels, got_de = cols.nearest(pal)
+    table = np.stack([colour.difference.delta_E_CIE2000(lab, c) for c in pal], axis=1)
+    order = np.sort(table, axis=1)
+    clear = order[:, 1] - order[:, 0] > 1e-3
+    assert clear.mean() > 0.99
+    assert_array_equal(got_labels[clear], table.argmin(axis=1)[clear])
+    np.testing.assert_allclose(got_de, order[:, 0], rtol=2e-5, atol=2e-4)

@@ -193,27 +193,46 @@ def compass_polish(lab, weights, centres, labels, *, n_fixed: int = 0,
     >>> compass_polish(lab, np.ones(3), np.array([[53.0, 0, 0]]), np.zeros(3, int)).round(2).tolist()
     [[50.0, 0.0, 0.0]]
     """
-    from quantize.kernels.nearest import ciede2000_to
+    from quantize.kernels.nearest import CiedeColumns
 
-    w = np.asarray(weights, dtype=np.float64)
+    return _compass(CiedeColumns(lab), np.asarray(weights, dtype=np.float64), centres,
+                    np.asarray(labels, dtype=np.intp), n_fixed, steps, max_rounds)
+
+
+def _compass(cols, w, centres, labels, n_fixed, steps, max_rounds):
+    """:func:`compass_polish` on colours held as :class:`~quantize.kernels.nearest.CiedeColumns`.
+
+    With the labels fixed, each centre's sum depends on that centre alone,
+    so a centre that kept its place through a whole round of six trials
+    keeps it through every later round of the same step: the next rounds
+    measure only the colours of centres that moved.
+    """
     c = np.array(centres, dtype=np.float64)
     k = c.shape[0]
     free = np.arange(k) >= n_fixed
-    de = ciede2000_to(lab, c, labels)
+    de = cols.to(c, labels)
     for step in steps:
+        active = free.copy()
         for _ in range(max_rounds):
-            moved = False
+            rows = np.flatnonzero(active[labels])
+            if rows.size == 0:
+                break
+            part = cols if rows.size == labels.size else cols.subset(rows)
+            lab_r, w_r, de_r = labels[rows], w[rows], de[rows]
+            moved_now = np.zeros(k, dtype=bool)
             for axis in range(3):
                 for sign in (1.0, -1.0):
                     trial = c.copy()
-                    trial[free, axis] += sign * step
-                    de_t = ciede2000_to(lab, trial, labels)
-                    better = free & (np.bincount(labels, weights=w * (de - de_t), minlength=k) > 0)
+                    trial[active, axis] += sign * step
+                    de_t = part.to(trial, lab_r)
+                    better = active & (np.bincount(lab_r, weights=w_r * (de_r - de_t), minlength=k) > 0)
                     if better.any():
                         c[better] = trial[better]
-                        de = np.where(better[labels], de_t, de)
-                        moved = True
-            if not moved:
+                        de_r = np.where(better[lab_r], de_t, de_r)
+                        moved_now |= better
+            de[rows] = de_r
+            active = moved_now
+            if not active.any():
                 break
     return c
 
@@ -271,13 +290,14 @@ def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8
     >>> c[0].tolist(), bool(abs(c[1, 0] - 70) < 1)
     ([40.0, 0.0, 0.0], True)
     """
-    from quantize.kernels.nearest import ciede2000_to, nearest_ciede2000
+    from quantize.kernels.nearest import CiedeColumns
 
-    lab = np.ascontiguousarray(lab, dtype=np.float64)
+    cols = CiedeColumns(lab)
+    lab = cols.lab
     w = np.asarray(weights, dtype=np.float64)
     c = np.array(centres, dtype=np.float64)
     k = c.shape[0]
-    labels, de = nearest_ciede2000(lab, c)
+    labels, de = cols.nearest(c)
     cost = float((w * de).sum())
     for _ in range(iters):
         ww = w / np.maximum(de, _FLOOR)
@@ -286,18 +306,18 @@ def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8
         upd = s > 0
         upd[:n_fixed] = False
         new[upd] = sums[upd] / s[upd, None]
-        de_new = ciede2000_to(lab, new, labels)
+        de_new = cols.to(new, labels)
         gain = np.bincount(labels, weights=w * (de - de_new), minlength=k)
         keep = upd & (gain > 0)
         if not keep.any():
             break
         c[keep] = new[keep]
-        labels, de = nearest_ciede2000(lab, c)
+        labels, de = cols.nearest(c)
         new_cost = float((w * de).sum())
         done = new_cost > cost * (1.0 - rtol)
         cost = new_cost
         if done:
             break
     if len(polish):
-        c = compass_polish(lab, w, c, labels, n_fixed=n_fixed, steps=polish)
+        c = _compass(cols, w, c, labels, n_fixed, polish, 3)
     return c
