@@ -356,3 +356,21 @@ def test_lloyd_assigner_gives_every_step_what_a_full_scan_gives(k, compiled_path
         assert_array_equal(labels, ref_labels)
         assert_array_equal(labels, full_labels)
         assert_array_equal(d2, full_d2)
+
+
+def test_compiled_cluster_sums_are_bit_identical_to_bincount():
+    # Once the compiled loops are loaded every fit's sums run on them, so
+    # they must add exactly what np.bincount adds, in the same order.
+    from quantize.kernels import vectorised
+    from quantize.kernels.loading import compiled
+
+    rng = np.random.default_rng(11)
+    pts = rng.normal(50, 30, (5000, 3))
+    w = rng.integers(1, 1000, 5000).astype(float) * rng.random(5000)
+    labels = rng.integers(0, 7, 5000).astype(np.intp)
+    wsum, sums = np.zeros(7), np.zeros((7, 3))
+    compiled("engine_loops").centre_sums(pts, w, labels, wsum, sums)
+    ref_w, ref_s = vectorised.centre_sums(pts, w, labels, 7)
+    assert_array_equal(wsum, ref_w)
+    assert_array_equal(sums, ref_s)
+    np.testing.assert_allclose(sums, naive.centre_sums(pts, w, labels, 7)[1], rtol=1e-12)

@@ -440,9 +440,13 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
         One per size of ``ks``, in order.
     """
     from quantize.colour.spaces import srgb8_to_space
+    from quantize.kernels.nearest import load_for
 
     from .warm import warm_coarse, warm_fine
 
+    # A job whose final mapping needs the compiled loops loads them first,
+    # so that every restart's assignment runs on them too (bit-identical).
+    load_for(sample.n_colours, max(ks))
     space, m = settings.space, len(settings.locked)
     fixed_rgb8 = settings.locked_rgb8
     fixed = srgb8_to_space(fixed_rgb8, space) if m else None

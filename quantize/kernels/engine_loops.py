@@ -23,7 +23,7 @@ import numpy as np
 
 from .dither_loops import ciede2000, from_primed, primed_c
 
-__all__ = ["assign_euclid", "assign_euclid_two", "assign_ciede2000", "ciede2000_to"]
+__all__ = ["assign_euclid", "assign_euclid_two", "centre_sums", "assign_ciede2000", "ciede2000_to"]
 
 _POW25_7 = 25.0**7
 #: The largest value of CIEDE2000's hue weighting T over all hues (found by
@@ -112,6 +112,23 @@ def assign_euclid_two(points, centres, labels, dist2, second2):
         labels[i] = arg
         dist2[i] = best
         second2[i] = second
+
+
+@numba.njit(cache=True, nogil=True)
+def centre_sums(points, weights, labels, wsum, sums):
+    """Add each point's weight and weighted coordinates to its label's sums (zeroed by the caller).
+
+    Point by point in index order, each product rounded before it is
+    added: what ``np.bincount(labels, weights=weights * points[:, t])``
+    does, so both give bit-identical sums.  Serial on purpose: splitting
+    the rows would change the order of the additions.
+    """
+    for i in range(points.shape[0]):
+        j = labels[i]
+        w = weights[i]
+        wsum[j] += w
+        for t in range(points.shape[1]):
+            sums[j, t] += w * points[i, t]
 
 
 @numba.njit(cache=True, nogil=True)

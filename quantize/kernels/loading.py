@@ -310,6 +310,7 @@ def compile_all() -> None:
         pts, lab, de = np.zeros((2, 3)), np.zeros(2, dtype=np.intp), np.zeros(2)
         ek.assign_euclid(pts, pts, lab, de)
         ek.assign_euclid_two(pts, pts, lab, de, np.zeros(2))
+        ek.centre_sums(pts, de, lab, de, pts.copy())
         ek.assign_ciede2000(pts, pts, lab, 1.0, lab, de)
         ek.ciede2000_to(pts, lab, pts, de)
         lut, mat, pal = np.zeros(65536), np.eye(3), np.zeros((2, 3))

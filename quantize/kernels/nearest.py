@@ -20,7 +20,7 @@ import numpy as np
 from . import vectorised
 from .loading import compiled, run_blocks
 
-__all__ = ["COMPILED_FROM", "uses_compiled", "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums",
+__all__ = ["COMPILED_FROM", "uses_compiled", "load_for", "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums",
            "nearest_ciede2000", "ciede2000_to", "CiedeColumns"]
 
 #: Point-palette pairs from which a call runs the compiled loops (2^21, about
@@ -39,6 +39,30 @@ def uses_compiled(n: int, k: int) -> bool:
     return n * k >= COMPILED_FROM
 
 
+def _euclid_compiled(n: int, k: int) -> bool:
+    """Whether a Euclidean kernel call runs the compiled loops: by size, or whenever they are loaded.
+
+    The Euclidean assignment of both paths is bit-identical (tested), so
+    which path runs never changes a result, only its time; once a job has
+    loaded the compiled loops (:func:`load_for`) they are four to twelve
+    times as fast as numpy on every size (benchmarks/bench_everyday.py).
+    """
+    import sys
+
+    return n * k >= COMPILED_FROM or f"{__package__}.engine_loops" in sys.modules
+
+
+def load_for(n: int, k: int) -> None:
+    """Load the compiled loops now if a job on ``n`` distinct colours and ``k`` palette colours will need them.
+
+    A fit calls this first: a job whose final mapping will run the compiled
+    loops anyway (:func:`uses_compiled`) then runs its restarts' Euclidean
+    assignments on them too.  The choice is by size alone.
+    """
+    if uses_compiled(n, k):
+        compiled("engine_loops")
+
+
 def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest centre of every point by squared Euclidean distance.
 
@@ -50,7 +74,7 @@ def assign_nearest(points: np.ndarray, centres: np.ndarray) -> tuple[np.ndarray,
     """
     points = np.ascontiguousarray(points, dtype=np.float64)
     centres = np.ascontiguousarray(centres, dtype=np.float64)
-    if not uses_compiled(len(points), len(centres)):
+    if not _euclid_compiled(len(points), len(centres)):
         return vectorised.assign_euclid(points, centres)
     labels = np.empty(points.shape[0], dtype=np.intp)
     dist2 = np.empty(points.shape[0], dtype=np.float64)
@@ -64,7 +88,7 @@ assign_nearest_numpy = vectorised.assign_euclid
 
 def _assign_two(points: np.ndarray, centres: np.ndarray):
     """Labels, squared distances and second-nearest squared distances, on the path the size picks."""
-    if not uses_compiled(len(points), len(centres)):
+    if not _euclid_compiled(len(points), len(centres)):
         return vectorised.assign_euclid_two(points, centres)
     n = points.shape[0]
     labels = np.empty(n, dtype=np.intp)
@@ -115,17 +139,32 @@ class LloydAssigner:
 
     def __init__(self, points: np.ndarray, weights: np.ndarray | None = None) -> None:
         self.points = points
-        # Contiguous columns: the per-step passes over every point read in order.
-        self._columns = [np.ascontiguousarray(points[:, t]) for t in range(points.shape[1])]
         self._weights = weights
-        # The products are rounded as centre_sums rounds them, so the sums agree bit for bit.
-        self._weighted = None if weights is None else [weights * c for c in self._columns]
+        self._columns_: list[np.ndarray] | None = None
+        self._weighted_: list[np.ndarray] | None = None
         self._labels: np.ndarray | None = None
         self._lower: np.ndarray | None = None
         self._centres: np.ndarray | None = None
 
+    @property
+    def _columns(self) -> list[np.ndarray]:
+        # Contiguous columns, made on the numpy path's first use: its
+        # per-step passes over every point then read in order.
+        if self._columns_ is None:
+            self._columns_ = [np.ascontiguousarray(self.points[:, t]) for t in range(self.points.shape[1])]
+        return self._columns_
+
+    @property
+    def _weighted(self) -> list[np.ndarray]:
+        # The products are rounded as centre_sums rounds them, so the sums agree bit for bit.
+        if self._weighted_ is None:
+            self._weighted_ = [self._weights * c for c in self._columns]
+        return self._weighted_
+
     def sums(self, labels: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
         """:func:`centre_sums` of the points with the weights given at construction."""
+        if _euclid_compiled(len(self.points), k):
+            return centre_sums(self.points, self._weights, labels, k)
         wsum = np.bincount(labels, weights=self._weights, minlength=k)
         sums = np.stack([np.bincount(labels, weights=wc, minlength=k) for wc in self._weighted], axis=1)
         return wsum, sums
@@ -135,6 +174,9 @@ class LloydAssigner:
         pts = self.points
         centres = np.ascontiguousarray(centres, dtype=np.float64)
         k = centres.shape[0]
+        if _euclid_compiled(len(pts), k):
+            # The compiled loop measures every centre faster than the bounds' numpy passes.
+            return assign_nearest(pts, centres)
         if self._labels is None or self._centres.shape != centres.shape or k < 2:
             labels, d2, second = _assign_two(pts, centres)
             self._labels, self._lower, self._centres = labels, np.sqrt(second), centres.copy()
@@ -160,13 +202,19 @@ class LloydAssigner:
 def centre_sums(points: np.ndarray, weights: np.ndarray, labels: np.ndarray, k: int):
     """Per-label sum of weights, shape (k,), and of weighted points, shape (k, d).
 
-    Always numpy: ``np.bincount`` runs at memory speed, and a compiled loop
-    would not be faster.
+    ``np.bincount`` per coordinate, or once the compiled loops are loaded
+    their serial loop, which adds the same rounded products in the same
+    order (bit-identical, tested) in one pass instead of four.
     """
     points = np.ascontiguousarray(points, dtype=np.float64)
     weights = np.ascontiguousarray(weights, dtype=np.float64)
     labels = np.ascontiguousarray(labels, dtype=np.intp)
-    return vectorised.centre_sums(points, weights, labels, k)
+    if not _euclid_compiled(len(points), k):
+        return vectorised.centre_sums(points, weights, labels, k)
+    wsum = np.zeros(k)
+    sums = np.zeros((k, points.shape[1]))
+    compiled("engine_loops").centre_sums(points, weights, labels, wsum, sums)
+    return wsum, sums
 
 
 def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
