@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -11,6 +12,9 @@ from quantize.core.picture import ImageWarning
 from quantize.fit.assign import map_sample
 from quantize.quality.perception import FilteredDeltaE
 from quantize.quality.stats import coverage_percent, delta_e_stats
+
+if TYPE_CHECKING:
+    from quantize.io.write import WrittenImage
 
 __all__ = ["DitherInfo", "MappedImage", "SavedImage", "file_delta_e", "nearest_image"]
 
@@ -83,7 +87,7 @@ class MappedImage:
     """
 
     indices: np.ndarray
-    palette: object
+    palette: object  # a quantize.palette.Palette (palette.py imports this module: no import back)
     alpha: np.ndarray | None
     delta_e: dict
     coverage: np.ndarray
@@ -195,7 +199,7 @@ class SavedImage:
         Colours of the palette.
     """
 
-    file: object
+    file: WrittenImage
     delta_e: dict | None
     k: int
 
