@@ -204,7 +204,10 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
         raise ValueError("no images given: the image set is empty")
-    samples, sources, notes, pictures = [], [], [], []
+    samples: list = []
+    sources: list[str] = []
+    notes: list[str] = []
+    pictures: list = []
     for item in items:
         smp, src, nts = load_samples(item, max_pixels=max_pixels, pictures=pictures)
         samples.append(smp)

@@ -36,15 +36,15 @@ def _legend(width: int, vmax: float, title: str, stats_line: str) -> np.ndarray:
 
     dpi = 100
     fig = Figure(figsize=(width / dpi, _LEGEND_HEIGHT / dpi), dpi=dpi, facecolor="white")
-    FigureCanvasAgg(fig)
+    canvas = FigureCanvasAgg(fig)
     ax = fig.add_axes((0.04, 0.52, 0.92, 0.18))
     bar = fig.colorbar(ScalarMappable(norm=Normalize(0.0, vmax), cmap=COLOUR_MAP), cax=ax,
                        orientation="horizontal", extend="max")
     bar.ax.tick_params(labelsize=8)
     fig.text(0.04, 0.80, title, fontsize=9, ha="left", va="center")
     fig.text(0.04, 0.10, stats_line, fontsize=8, ha="left", va="center")
-    fig.canvas.draw()
-    rgba = np.asarray(fig.canvas.buffer_rgba())
+    canvas.draw()
+    rgba = np.asarray(canvas.buffer_rgba())
     return rgba[..., :3].copy()
 
 

@@ -74,7 +74,7 @@ def sweep_figure(sweep, *, width: float = 9.0, height: float = 7.0, dpi: int = 1
     ks = np.array(sweep.ks)
     fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
     # Room between the panels so the lowest tick label above never meets the highest below.
-    fig.get_layout_engine().set(hspace=0.07)
+    fig.get_layout_engine().set(hspace=0.07)  # type: ignore[union-attr,call-arg]  # constrained: it has hspace
     FigureCanvasAgg(fig)
     top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 2])
     stat = lambda name: [r.delta_e[name] for r in sweep.rows]  # noqa: E731

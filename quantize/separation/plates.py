@@ -784,7 +784,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     from quantize.core.sampling import sample_picture
     from quantize.render.mapping import map_picture
 
-    given = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
+    given: dict[str, Any] = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
              "choke_mm": choke_mm, "edges": edges, "dithered": dithered, "tones": tones}
     st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
     _check_settings(st)
@@ -906,7 +906,7 @@ def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: 
     if len({nm.casefold() for nm in names}) != len(names):
         raise SeparationError("two printed colours have the same name; plates are named after inks, so every "
                               "ink needs its own name")
-    plates = []
+    plates: list[Plate] = []
     for i, nm, sl, film in zip(ordered, names, _unique_slugs(names), films, strict=True):
         if not film.any():
             notes.append(f"no pixel prints {nm}: no plate for it")
@@ -1117,7 +1117,7 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
             raise SeparationError(f"two printed colours are both called {nm!r}; plates are named after "
                                   "inks, so every ink needs its own name")
         seen[nm.casefold()] = nm
-    plates = []
+    plates: list[Plate] = []
     for o, (i, nm, sl) in enumerate(zip(ordered, names, _unique_slugs(names), strict=True)):
         m = (cleaned == i) & opaque
         plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
@@ -1210,7 +1210,8 @@ def _numbered(seq: list[str], plates: list[Plate], ub: Plate | None, hl: Plate |
 
 def _thin_detail(plates, *, min_line_mm, dpi) -> tuple[list, dict]:
     """Thin lines and gaps of every plate, largest first (at most 200), and their counts."""
-    thin, summary = [], {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
+    thin: list[dict] = []
+    summary = {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
     if min_line_mm <= 0:
         return thin, summary
     w_px = mm_to_px(min_line_mm, dpi)
