@@ -87,6 +87,13 @@ def _check(choice: DitherChoice) -> DitherChoice:
     if choice.error_map is not None and Path(choice.error_map).suffix.lower() != ".png":
         raise click.BadParameter(f"{choice.error_map!r}: the error map is written as PNG; name it *.png",
                                  param_hint="'--error-map'")
+    if choice.error_map is not None:
+        from quantize.report.plotlib import PlotsUnavailable, require_matplotlib
+
+        try:
+            require_matplotlib("--error-map")  # matplotlib is the optional "plots" extra
+        except PlotsUnavailable as exc:
+            raise click.UsageError(str(exc)) from None
     return choice
 
 

@@ -79,6 +79,13 @@ def sweep(ctx, images, ks, warm, weighting, max_pixels, table_csv, table_json, p
     if len({Path(p).resolve() for p in files}) != len(files):
         raise click.UsageError("two outputs name the same file")
     _check_outputs(files + _report_targets(report_dir), force, images)
+    if plot or report_dir:  # both draw the sweep plot: matplotlib, the optional "plots" extra
+        from quantize.report.plotlib import PlotsUnavailable, require_matplotlib
+
+        try:
+            require_matplotlib("--plot" if plot else "--report")
+        except PlotsUnavailable as exc:
+            raise click.UsageError(str(exc)) from None
 
     def work():
         from quantize.fit.sweep import sweep as run_sweep

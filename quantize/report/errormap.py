@@ -7,7 +7,8 @@ to bright (far off).  Below it a legend strip shows the colour scale with its
 condition) and the statistics.  Fully transparent pixels are mid grey.  The
 scale is fixed (0 to ``vmax``, 10 by default, values above shown at the top
 colour) so maps of different runs compare directly.  matplotlib draws the
-legend and is imported only here, inside the functions.
+legend and is imported only here, inside the functions; it is the optional
+``plots`` extra, asked for by name when missing (:mod:`quantize.report.plotlib`).
 """
 
 from __future__ import annotations
@@ -16,6 +17,8 @@ import io
 from pathlib import Path
 
 import numpy as np
+
+from .plotlib import require_matplotlib
 
 __all__ = ["COLOUR_MAP", "ERROR_MAP_KINDS", "error_map_image", "save_error_map"]
 
@@ -94,6 +97,7 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     >>> error_map_image(img, img).shape  # doctest: +SKIP
     (116, 560, 3)
     """
+    require_matplotlib("the error map")
     from matplotlib import colormaps
 
     from quantize.quality.perception import check_map_shape, delta_e_map, pixel_delta_e_stats, viewing_ppd
@@ -146,6 +150,8 @@ def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, dis
         cannot be written.
     ValueError
         As :func:`error_map_image`.
+    quantize.report.plotlib.PlotsUnavailable
+        matplotlib is not installed (the ``plots`` extra); nothing is written.
     """
     from PIL import Image
 
