@@ -142,3 +142,13 @@ def test_the_library_plots_without_matplotlib_raise_a_clear_error(no_matplotlib,
     save_swatches(res, tmp_path / "swatches.png")
     with Image.open(tmp_path / "swatches.png") as im:
         assert im.height >= 2 * 34  # a row per size swept (34 px each by default) under a heading
+
+
+def test_the_package_ships_its_type_information():
+    # PEP 561 ("Distributing and Packaging Type Information"): a py.typed marker in the package folder,
+    # installed with it, tells type checkers to use the package's own annotations.
+    assert (Path(quantize.__file__).parent / "py.typed").is_file()
+    installed = {str(f).replace("\\", "/") for f in metadata.files(DIST) or []}
+    if not any(f.startswith("quantize/") for f in installed):
+        pytest.skip("an editable install lists no package files; CI installs the package (.ci/run)")
+    assert "quantize/py.typed" in installed

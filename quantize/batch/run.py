@@ -375,8 +375,9 @@ def _prepare_output(src: Path, dst: Path, exclude) -> None:
         raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
 
 
-def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
-              progress: Callable[[int, int, str], object] | None = None, **options) -> BatchResult:
+def run_batch(input_dir: str | os.PathLike[str], output_dir: str | os.PathLike[str],
+              settings: BatchSettings | None = None, *,
+              progress: Callable[[int, int, str], object] | None = None, **options: Any) -> BatchResult:
     """Reduce every image under ``input_dir`` into a mirrored tree under ``output_dir``.
 
     Parameters

@@ -58,11 +58,12 @@ def _decoded(images, max_pixels) -> list:
 @click.option("--table-csv", type=click.Path(dir_okay=False), default=None, help="Write the table as CSV.")
 @click.option("--table-json", type=click.Path(dir_okay=False), default=None, help="Write the table as JSON.")
 @click.option("--plot", type=click.Path(dir_okay=False), default=None, callback=_png_path,
-              help="Write the error-per-size plot (.png).")
+              help="Write the error-per-size plot (.png; needs matplotlib: the plots extra).")
 @click.option("--swatches", type=click.Path(dir_okay=False), default=None, callback=_png_path,
               help="Write the palette of every size, one row per size (.png).")
 @click.option("--report", "report_dir", type=click.Path(file_okay=False), default=None,
-              help="Write an HTML report page with its images into this folder.")
+              help="Write an HTML report page with its images into this folder (its sweep plot needs matplotlib: "
+                   "the plots extra).")
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context

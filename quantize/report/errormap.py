@@ -15,10 +15,16 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import TYPE_CHECKING, Iterable, Literal
 
 import numpy as np
 
 from .plotlib import require_matplotlib
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.io.write import PathLike
+    from quantize.render.result import MappedImage
 
 __all__ = ["COLOUR_MAP", "ERROR_MAP_KINDS", "error_map_image", "save_error_map"]
 
@@ -51,8 +57,10 @@ def _legend(width: int, vmax: float, title: str, stats_line: str) -> np.ndarray:
     return rgba[..., :3].copy()
 
 
-def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                    vmax: float = 10.0, pixel_delta_e=None) -> np.ndarray:
+def error_map_image(original: ImageInput, mapped: MappedImage | np.ndarray, *,
+                    kind: Literal["plain", "filtered"] = "plain", dpi: float | None = None,
+                    distance_mm: float | None = None, ppd: float | None = None, vmax: float = 10.0,
+                    pixel_delta_e: np.ndarray | None = None) -> np.ndarray:
     """The error map as an 8-bit RGB array.
 
     Parameters
@@ -109,7 +117,8 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     if pixel_delta_e is None:
         de = delta_e_map(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd)
     else:
-        de = check_map_shape(pixel_delta_e, np.shape(getattr(mapped, "indices", mapped))[:2])
+        # An array, or a MappedImage's indices (mypy cannot follow getattr's default).
+        de = check_map_shape(pixel_delta_e, np.shape(getattr(mapped, "indices", mapped))[:2])  # type: ignore[arg-type]
     clear = np.isnan(de)
     lut = (np.asarray(colormaps[COLOUR_MAP](np.linspace(0.0, 1.0, 256)))[:, :3] * 255 + 0.5).astype(np.uint8)
     level = np.rint(np.clip(np.nan_to_num(de) / vmax, 0.0, 1.0) * 255).astype(np.intp)
@@ -136,8 +145,11 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     return canvas
 
 
-def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                   vmax: float = 10.0, force: bool = False, inputs=(), pixel_delta_e=None) -> Path:
+def save_error_map(path: PathLike, original: ImageInput, mapped: MappedImage | np.ndarray, *,
+                   kind: Literal["plain", "filtered"] = "plain", dpi: float | None = None,
+                   distance_mm: float | None = None, ppd: float | None = None, vmax: float = 10.0,
+                   force: bool = False, inputs: Iterable[PathLike] = (),
+                   pixel_delta_e: np.ndarray | None = None) -> Path:
     """Write :func:`error_map_image` as a PNG file, atomically.
 
     The parameters are those of :func:`error_map_image`, and ``force`` and

@@ -48,13 +48,13 @@ import math
 import re
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Iterable, Literal, Sequence
 
 import numpy as np
 
 from quantize.core.units import MM_PER_INCH, mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
-from quantize.io.write import to_jsonable
+from quantize.io.write import PathLike, to_jsonable
 
 from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, DetailReport, clean_small_regions, find_thin_features, keep_detail
@@ -81,6 +81,12 @@ from .halftone import screen_warnings
 from .tonal import TONES, TonalSettings, print_error, simulate_print
 from .trap import trap_plates
 from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.palette import Palette
+
+    from .inks import InkLibrary
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
@@ -339,7 +345,7 @@ class Separation:
     """
 
     indices: np.ndarray
-    palette: Any
+    palette: Palette
     substrate: int | None
     plates: tuple
     underbase: Plate | None
@@ -379,7 +385,7 @@ class Separation:
         """The cleaned, reduced image as 8-bit sRGB."""
         return self.palette.rgb8[self.indices]
 
-    def with_measured(self, library) -> Separation:
+    def with_measured(self, library: InkLibrary) -> Separation:
         """This separation with each library ink's measured Lab recorded (matched by name).
 
         The preview colours are the inks' nearest sRGB colours; the manifest
@@ -498,8 +504,9 @@ class Separation:
         return {"lab_measured": [round(float(v), 3) for v in m],
                 "delta_e_preview_to_measured": round(float(delta_e_ciede2000(self.palette.lab[i], m)), 3)}
 
-    def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
-              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=(), pdf: bool = True,
+    def write(self, folder: PathLike, *, force: bool = False, png: bool = False, marks: bool = False,
+              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs: Iterable[PathLike] = (),
+              pdf: bool = True,
               job: str | None = None, date: str | None = None) -> dict:
         """Write the films (1-bit TIFF, optionally PNG), a PDF of them all, the preview and the manifest.
 
@@ -689,11 +696,13 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
     return out
 
 
-def separate(image, palette, *, substrate=None, dpi: float | None = None,
-             min_feature_mm: float | None = None, min_line_mm: float | None = None,
-             underbase: bool | None = None, choke_mm: float | None = None, order: Sequence | None = None,
-             max_pixels=None, edges: bool | None = None, dithered: str | None = None,
-             tones: str | None = None, settings: SeparationSettings | None = None) -> Separation:
+def separate(image: ImageInput, palette: Palette, *, substrate: int | str | Sequence[float] | None = None,
+             dpi: float | None = None, min_feature_mm: float | None = None, min_line_mm: float | None = None,
+             underbase: bool | None = None, choke_mm: float | None = None,
+             order: Sequence[str | int] | None = None, max_pixels: int | None = None, edges: bool | None = None,
+             dithered: Literal["auto", "keep", "clean"] | None = None,
+             tones: Literal["spot", "halftone", "index"] | None = None,
+             settings: SeparationSettings | None = None) -> Separation:
     """Separate an image into one knocked-out 1-bit film per printed ink, at print size.
 
     Parameters
