@@ -20,7 +20,8 @@ error), :mod:`quantize.report`, :mod:`quantize.separation` (films),
 
 The public names below are imported on first use (PEP 562), so that the
 command line's ``--help`` does not wait for numpy, Pillow and the fitting
-code to load.
+code to load.  Type checkers see them through the imports at the end of this
+module; the package ships its annotations (``py.typed``, PEP 561).
 """
 
 from __future__ import annotations

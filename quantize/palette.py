@@ -30,12 +30,19 @@ import re
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from collections.abc import Mapping
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
 from quantize.core.vocabulary import renamed_keywords
 from quantize.errors import PaletteFileError
+
+if TYPE_CHECKING:
+    from quantize.core.choices import DitherName, NearestName
+    from quantize.core.picture import ImageInput
+    from quantize.core.sampling import ColourSample
+    from quantize.io.write import PathLike
+    from quantize.render.result import MappedImage
 
 __all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked", "FORMAT_NAME", "FORMAT_VERSION"]
 
@@ -48,7 +55,7 @@ _ASCII_LOWER = str.maketrans("ABCDEFGHIJKLMNOPQRSTUVWXYZ", "abcdefghijklmnopqrst
 _FORMS = "sRGB hex (#rgb or #rrggbb), L,a,b nor a CSS colour name"
 
 
-def parse_colour(spec) -> np.ndarray:
+def parse_colour(spec: str | Sequence[float]) -> np.ndarray:
     """A colour given as sRGB hex, CIELAB or a CSS colour name.
 
     Parameters
@@ -378,8 +385,9 @@ class Palette:
 
         return srgb8_to_space(self.rgb8, space or self.space)
 
-    def apply(self, image, *, dither: str = "none", nearest: str | None = None, dither_strength: float = 1.0,
-              serpentine: bool = True, max_pixels=None, sample=None, **deprecated):
+    def apply(self, image: ImageInput, *, dither: DitherName = "none", nearest: NearestName | None = None,
+              dither_strength: float = 1.0, serpentine: bool = True, max_pixels: int | None = None,
+              sample: ColourSample | None = None, **deprecated: Any) -> MappedImage:
         """Map an image onto this palette (out-of-sample, no refit).
 
         The keywords are named as the command line's options (``--nearest``,
@@ -459,7 +467,7 @@ class Palette:
             "fit": to_jsonable(self.fit.to_dict()) if self.fit is not None else {},
         }
 
-    def save(self, path, *, force: bool = False) -> Path:
+    def save(self, path: PathLike, *, force: bool = False) -> Path:
         """Write the palette as JSON, atomically.
 
         Raises
@@ -474,7 +482,7 @@ class Palette:
         return Path(path)
 
     @classmethod
-    def load(cls, path) -> "Palette":
+    def load(cls, path: PathLike) -> "Palette":
         """Read a palette JSON file written by :meth:`save`.
 
         Raises
@@ -504,7 +512,7 @@ class Palette:
         return cls.from_dict(doc, source=str(p))
 
     @classmethod
-    def from_dict(cls, doc, *, source: str = "<palette>") -> "Palette":
+    def from_dict(cls, doc: Mapping[str, Any], *, source: str = "<palette>") -> "Palette":
         """Build a palette from its JSON document, validating every field."""
         from quantize.colour.spaces import SPACES, delta_e_ciede2000, srgb8_to_space
 

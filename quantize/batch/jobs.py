@@ -47,7 +47,7 @@ class BatchJob:
         earlier run of this batch wrote them.
     k : int or str
         Palette size, or "MIN-MAX" (per-image fits only).
-    max_pixels : int
+    max_pixels : int or None
         Decompression-bomb limit for reading the input.
     fit : tuple of (name, value) pairs, default=()
         The fields of the run's :class:`quantize.fit.settings.FitSettings`
@@ -69,13 +69,13 @@ class BatchJob:
     outputs_rel: tuple[str, ...]
     replace: bool
     k: Any
-    max_pixels: int
+    max_pixels: int | None
     fit: tuple = ()
     threads: bool = True
     dither: str = "none"
     dither_strength: float = 1.0
     serpentine: bool = True
-    nearest: str = "auto"
+    nearest: str | None = "auto"
 
     @staticmethod
     def fit_fields(settings) -> tuple:
@@ -150,7 +150,7 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
     from quantize.palette import Palette
 
     t0 = time.perf_counter()
-    row = {"input": job.rel, "status": "failed", "k": None, "delta_e": None, "entries_used": None,
+    row: dict[str, Any] = {"input": job.rel, "status": "failed", "k": None, "delta_e": None, "entries_used": None,
            "coverage": None, "outputs": [], "bytes": None, "error": None}
     with _WARNINGS_LOCK, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

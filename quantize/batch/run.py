@@ -31,7 +31,7 @@ import time
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import TYPE_CHECKING, Any, Callable, Iterator, cast
 
 import numpy as np
 
@@ -55,6 +55,9 @@ from .manifest import (
 )
 from .settings import FORMATS, BatchSettings
 from .workers import _executor, _one_line
+
+if TYPE_CHECKING:
+    from quantize.palette import Palette
 
 __all__ = ["discover_images", "run_batch", "BatchResult", "BatchSettings", "DEFAULT_INCLUDE", "FORMATS",
            "MANIFEST_JSON", "MANIFEST_CSV", "SHARED_PALETTE"]
@@ -173,7 +176,7 @@ def _manifest_settings(s: BatchSettings) -> dict:
     from quantize import __version__
 
     # The package version is part of the settings: a new engine redoes the images.
-    settings = {"quantize": __version__, "mode": s.mode, "k": "auto" if s.k is None else str(s.k), "space": s.space, "seed": s.seed,
+    settings: dict[str, Any] = {"quantize": __version__, "mode": s.mode, "k": "auto" if s.k is None else str(s.k), "space": s.space, "seed": s.seed,
                 "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
     f = s.fit
     # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
@@ -213,13 +216,13 @@ class _Run:
         self.prev_rows = {r.get("input"): r for r in self.prev_doc.get("images", []) if isinstance(r, dict)}
         self.journal = journal_outputs(dst)
         self.rels = discover_images(src, include=s.include, exclude=s.exclude, skip=[dst])
-        self.doc = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
+        self.doc: dict[str, Any] = {"format": _MANIFEST_FORMAT, "version": 1, "input_dir": str(src), "output_dir": str(dst),
                     "settings": _manifest_settings(s), "settings_key": None, "summary": None,
                     "palette_report": None, "error": None, "notes": self.notes, "images": []}
         self.rows: dict = {}
         self.planned: dict = {}  # input -> the outputs its job would write
-        self.palette = None
-        self.results = None  # the mapper over the images, once started
+        self.palette: Palette | None = None
+        self.results: Iterator[tuple[BatchJob, Any]] | None = None  # the mapper over the images, once started
         self.written = False
         self.t_run = time.perf_counter()
         self.started_ns = time.time_ns()
@@ -270,7 +273,8 @@ class _Run:
         # Files a killed run wrote before it could write its manifest.
         owned |= {o for outs in self.journal.values() for o in outs}
         out_root = self.dst.resolve()
-        jobs, by_output = [], {}
+        jobs: list[BatchJob] = []
+        by_output: dict[str, list[BatchJob]] = {}
         # With a worker process per core the images keep the cores busy; a
         # fit's own second thread would only contend with the other worker.
         threads = s.cluster is None and (s.workers in (0, 1) or (s.workers is None and (os.cpu_count() or 1) == 1))
@@ -321,7 +325,7 @@ class _Run:
                 continue
             prev = self.prev_rows.get(j.rel)
             if not self.settings.force and _up_to_date(prev, key, Path(j.path), self.dst):
-                self.rows[j.rel] = dict(prev, status="skipped", seconds=0.0)
+                self.rows[j.rel] = dict(cast(dict, prev), status="skipped", seconds=0.0)  # up to date: a row
             else:
                 todo.append(j)
         total = done0 + len(todo)
@@ -371,8 +375,9 @@ def _prepare_output(src: Path, dst: Path, exclude) -> None:
         raise OutputError(f"{dst}: cannot create the output folder ({exc.strerror or exc})") from None
 
 
-def run_batch(input_dir, output_dir, settings: BatchSettings | None = None, *,
-              progress: Callable[[int, int, str], object] | None = None, **options) -> BatchResult:
+def run_batch(input_dir: str | os.PathLike[str], output_dir: str | os.PathLike[str],
+              settings: BatchSettings | None = None, *,
+              progress: Callable[[int, int, str], object] | None = None, **options: Any) -> BatchResult:
     """Reduce every image under ``input_dir`` into a mirrored tree under ``output_dir``.
 
     Parameters

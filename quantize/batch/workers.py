@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import os
 import re
-from typing import Iterator
+from typing import Any, Iterator
 
 from quantize.errors import QuantizeError
 
@@ -71,7 +71,7 @@ def _local_map(fn, items: list, extra: tuple, workers: int) -> Iterator[tuple[di
     while todo:
         with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
                                  initializer=_init_worker, initargs=(threads,)) as ex:
-            pending = {}
+            pending: dict[Any, Any] = {}
             broken = False
             while todo or pending:
                 while todo and len(pending) < workers and not broken:

@@ -87,6 +87,13 @@ def _check(choice: DitherChoice) -> DitherChoice:
     if choice.error_map is not None and Path(choice.error_map).suffix.lower() != ".png":
         raise click.BadParameter(f"{choice.error_map!r}: the error map is written as PNG; name it *.png",
                                  param_hint="'--error-map'")
+    if choice.error_map is not None:
+        from quantize.report.plotlib import PlotsUnavailable, require_matplotlib
+
+        try:
+            require_matplotlib("--error-map")  # matplotlib is the optional "plots" extra
+        except PlotsUnavailable as exc:
+            raise click.UsageError(str(exc)) from None
     return choice
 
 
@@ -119,7 +126,8 @@ def dither_options(f):
         click.option("--view-distance", type=click.FloatRange(min=10.0, max=100_000), default=None, metavar="MM",
                      help="Viewing distance in mm for the filtered ΔE00 report."),
         click.option("--error-map", type=click.Path(dir_okay=False), default=None, metavar="FILE.png",
-                     help="Also write a picture of per-pixel ΔE00 with its colour scale."),
+                     help="Also write a picture of per-pixel ΔE00 with its colour scale (needs matplotlib: "
+                          "the plots extra)."),
         click.option("--error-map-kind", type=click.Choice(("plain", "filtered")), default=_DEFAULT.error_map_kind,
                      show_default=True, help="Plain ΔE00, or filtered as seen at the viewing condition."),
     ]

@@ -58,11 +58,12 @@ def _decoded(images, max_pixels) -> list:
 @click.option("--table-csv", type=click.Path(dir_okay=False), default=None, help="Write the table as CSV.")
 @click.option("--table-json", type=click.Path(dir_okay=False), default=None, help="Write the table as JSON.")
 @click.option("--plot", type=click.Path(dir_okay=False), default=None, callback=_png_path,
-              help="Write the error-per-size plot (.png).")
+              help="Write the error-per-size plot (.png; needs matplotlib: the plots extra).")
 @click.option("--swatches", type=click.Path(dir_okay=False), default=None, callback=_png_path,
               help="Write the palette of every size, one row per size (.png).")
 @click.option("--report", "report_dir", type=click.Path(file_okay=False), default=None,
-              help="Write an HTML report page with its images into this folder.")
+              help="Write an HTML report page with its images into this folder (its sweep plot needs matplotlib: "
+                   "the plots extra).")
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
 @click.pass_context
@@ -79,6 +80,13 @@ def sweep(ctx, images, ks, warm, weighting, max_pixels, table_csv, table_json, p
     if len({Path(p).resolve() for p in files}) != len(files):
         raise click.UsageError("two outputs name the same file")
     _check_outputs(files + _report_targets(report_dir), force, images)
+    if plot or report_dir:  # both draw the sweep plot: matplotlib, the optional "plots" extra
+        from quantize.report.plotlib import PlotsUnavailable, require_matplotlib
+
+        try:
+            require_matplotlib("--plot" if plot else "--report")
+        except PlotsUnavailable as exc:
+            raise click.UsageError(str(exc)) from None
 
     def work():
         from quantize.fit.sweep import sweep as run_sweep

@@ -7,13 +7,22 @@ and the warnings raised while reading one.  Split out of
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Union
 
 import numpy as np
 
 from quantize.core.derived import DerivedCache
 
-__all__ = ["ImageWarning", "Picture", "ProfileWarning"]
+if TYPE_CHECKING:
+    from PIL import Image
+
+__all__ = ["ImageInput", "ImageWarning", "Picture", "ProfileWarning"]
+
+#: What the public functions take as an image (see :func:`quantize.io.read.as_picture`): a Picture,
+#: a file path, a PIL image or an (H, W, 3) / (H, W, 4) array of sRGB codes.
+ImageInput = Union["Picture", str, "os.PathLike[str]", "Image.Image", "np.ndarray"]
 
 
 class ImageWarning(UserWarning):

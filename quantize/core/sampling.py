@@ -26,6 +26,8 @@ from quantize.core.picture import Picture
 if TYPE_CHECKING:
     import numpy.typing as npt
 
+    import quantize  # the Palette by its public name: the palette stage comes after this one
+
 __all__ = ["ColourSample", "pool_samples", "sample_picture"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
@@ -169,7 +171,7 @@ class ColourSample:
         table[-1] = fill  # the row -1 of transparent pixels reads this slot
         return _take_blocks(table, self.inverse)
 
-    def keep_mapping(self, palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
+    def keep_mapping(self, palette: quantize.Palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
         """Keep the mapping of these colours onto ``palette`` by ``metric``, for reuse.
 
         The fitting engine maps the sample onto every candidate palette to
@@ -194,7 +196,7 @@ class ColourSample:
             a.setflags(write=False)
         self._cache.put("kept mapping", (_mapping_key(palette, metric), labels, delta_e))
 
-    def kept_mapping(self, palette, metric: str) -> tuple[np.ndarray, np.ndarray] | None:
+    def kept_mapping(self, palette: quantize.Palette, metric: str) -> tuple[np.ndarray, np.ndarray] | None:
         """``(labels, delta_e)`` kept by :meth:`keep_mapping` for this palette and metric, else None."""
         kept = self._cache.peek("kept mapping")
         if kept is None or kept[0] != _mapping_key(palette, metric):

@@ -12,9 +12,15 @@ import math
 import warnings
 from dataclasses import dataclass, field
 
+from typing import TYPE_CHECKING
+
 import numpy as np
+from numpy.typing import ArrayLike
 
 from quantize.kernels.nearest import LloydAssigner, assign_nearest, centre_sums
+
+if TYPE_CHECKING:
+    from quantize.core.choices import SeedingName
 
 __all__ = ["kmeans", "KMeansResult", "INITS", "check_init", "PaletteSizeWarning"]
 
@@ -385,15 +391,15 @@ def _whole(value, name: str, low: int) -> int:
 
 
 def kmeans(
-    points,
+    points: ArrayLike,
     k: int,
     *,
-    weights=None,
+    weights: ArrayLike | None = None,
     restarts: int = 8,
     seed: int | np.random.Generator | None = 0,
-    fixed=None,
-    init: str = "k-means++",
-    init_centres=None,
+    fixed: ArrayLike | None = None,
+    init: SeedingName = "k-means++",
+    init_centres: ArrayLike | None = None,
     max_iter: int = 300,
     tol: float = 1e-4,
     polish: bool = True,

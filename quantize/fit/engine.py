@@ -13,7 +13,7 @@ import functools
 import logging
 import warnings
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import numpy as np
 
@@ -25,6 +25,10 @@ from quantize.quality.stats import coverage_percent, delta_e_stats
 from .clustering import PaletteSizeWarning, kmeans, lloyd_from, tolerance_scale
 from .selection import bic_scores, choose_k, robust_error
 from .settings import DEFAULT_K, FitSettings
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.core.sampling import ColourSample
 
 __all__ = ["fit_palette", "Candidate", "fit_sizes", "parse_k", "load_samples", "MAX_K", "FINE_ITER"]
 
@@ -506,8 +510,10 @@ def settings_of(settings: FitSettings | None, options: dict, where: str) -> FitS
     return FitSettings.of(settings, **opts)
 
 
-def fit_palette(images, k=None, *, settings: FitSettings | None = None, max_pixels=None,
-                progress: Callable | None = None, **options) -> Palette:
+def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | ColourSample],
+                k: int | tuple[int, int] | range | str | None = None, *, settings: FitSettings | None = None,
+                max_pixels: int | None = None, progress: Callable[[int], object] | None = None,
+                **options: Any) -> Palette:
     """Fit an N-colour palette to one image or a set of images.
 
     Parameters

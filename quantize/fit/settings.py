@@ -18,7 +18,12 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any, Sequence
+
+if TYPE_CHECKING:
+    import numpy as np
+
+    from quantize.palette import FitRecord
 
 __all__ = ["FitSettings", "DEFAULT_K", "REFINES", "WEIGHTINGS", "TARGET_STATS", "SEED_BOUND"]
 
@@ -108,9 +113,9 @@ class FitSettings:
 
     space: str = "lab"
     restarts: int = 8
-    seed: Any = 0
+    seed: int | np.random.Generator | None = 0
     init: str = "k-means++"
-    locked: tuple = ()
+    locked: Sequence[str] = ()
     refine: str = "robust"
     rule: str = "auto"
     target: float | None = None
@@ -155,7 +160,7 @@ class FitSettings:
             raise ValueError("the target rule needs a positive ΔE00 target, got None")
 
     @classmethod
-    def of(cls, settings: FitSettings | None = None, **options) -> FitSettings:
+    def of(cls, settings: FitSettings | None = None, **options: Any) -> FitSettings:
         """``settings`` (default: the defaults) with ``options`` replacing its fields.
 
         Raises
@@ -177,7 +182,7 @@ class FitSettings:
         return dataclasses.replace(settings, **options) if options else settings
 
     @classmethod
-    def from_record(cls, record) -> FitSettings:
+    def from_record(cls, record: FitRecord) -> FitSettings:
         """The settings a palette's fit record (:class:`quantize.palette.FitRecord`) was made with."""
         keep = {f.name: getattr(record, f.name) for f in dataclasses.fields(cls)
                 if getattr(record, f.name, None) is not None}
@@ -192,7 +197,7 @@ class FitSettings:
 
         return parse_locked(list(self.locked), len(self.locked))
 
-    def check_sizes(self, ks) -> None:
+    def check_sizes(self, ks: Sequence[int]) -> None:
         """Raise ValueError if the locked colours do not fit the smallest size of ``ks``."""
         if len(self.locked) > min(ks):
             raise ValueError(f"{len(self.locked)} locked colours do not fit in a palette of {min(ks)}")

@@ -19,11 +19,14 @@ set) and each image's own ΔE00 is reported beside the pooled figures.
 
 from __future__ import annotations
 
-from typing import Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 from .settings import DEFAULT_K, FitSettings
 # The result objects and tables live in their own module; their names stay importable here.
 from .sweep_result import Sweep, SweepRow, candidate_rows, format_table
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
 
 __all__ = ["sweep", "sweep_sample", "Sweep", "SweepRow", "parse_sweep_range", "candidate_rows",
            "format_table", "MAX_SWEEP_K"]
@@ -99,8 +102,9 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
                  n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), notes=notes)
 
 
-def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixels=None,
-          progress: Callable | None = None, **options) -> Sweep:
+def sweep(images: ImageInput | Sequence[ImageInput], ks: tuple[int, int] | str | range | int = DEFAULT_K, *,
+          settings: FitSettings | None = None, max_pixels: int | None = None,
+          progress: Callable[[int], object] | None = None, **options: Any) -> Sweep:
     """Fit a palette at every size of a range and tabulate its error.
 
     Parameters
@@ -204,7 +208,10 @@ def sweep(images, ks=DEFAULT_K, *, settings: FitSettings | None = None, max_pixe
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
         raise ValueError("no images given: the image set is empty")
-    samples, sources, notes, pictures = [], [], [], []
+    samples: list = []
+    sources: list[str] = []
+    notes: list[str] = []
+    pictures: list = []
     for item in items:
         smp, src, nts = load_samples(item, max_pixels=max_pixels, pictures=pictures)
         samples.append(smp)

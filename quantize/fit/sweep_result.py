@@ -12,11 +12,13 @@ import csv
 import io
 import json
 from dataclasses import dataclass, field, replace
+from typing import Sequence
+from pathlib import Path
 
 import numpy as np
 
-from quantize.io.write import to_jsonable
-from quantize.palette import FitCandidate
+from quantize.io.write import PathLike, to_jsonable
+from quantize.palette import FitCandidate, Palette
 
 from .settings import FitSettings
 
@@ -56,7 +58,7 @@ class SweepRow:
     """
 
     k: int
-    palette: object
+    palette: Palette
     cost: float
     delta_e: dict
     robust: float
@@ -98,7 +100,7 @@ class Sweep:
     images: tuple = ()
     notes: list = field(default_factory=list)
 
-    def with_inputs(self, images, notes) -> "Sweep":
+    def with_inputs(self, images: Sequence[str], notes: Sequence[str]) -> "Sweep":
         """A copy naming the pooled ``images``, with ``notes`` (from loading them) first."""
         return replace(self, images=tuple(images), notes=list(notes) + list(self.notes))
 
@@ -179,13 +181,13 @@ class Sweep:
             w.writerow(line)
         return buf.getvalue()
 
-    def save_csv(self, path, *, force: bool = False):
+    def save_csv(self, path: PathLike, *, force: bool = False) -> Path:
         """Write :meth:`to_csv` atomically; raises OutputError if it exists and not ``force``."""
         from quantize.io.write import atomic_write_text
 
         return atomic_write_text(path, self.to_csv(), force=force)
 
-    def save_json(self, path, *, force: bool = False):
+    def save_json(self, path: PathLike, *, force: bool = False) -> Path:
         """Write :meth:`to_json` atomically; raises OutputError if it exists and not ``force``."""
         from quantize.io.write import atomic_write_text
 

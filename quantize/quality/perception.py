@@ -30,8 +30,14 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+if TYPE_CHECKING:
+    # MappedImage by its public name: the render stage comes after this one.
+    import quantize
+    from quantize.core.picture import ImageInput
 
 __all__ = [
     "FilteredDeltaE",
@@ -321,7 +327,9 @@ def pixel_delta_e_stats(values, *, overwrite: bool = False) -> dict[str, float]:
     return {"mean": mean, "median": float(part[pos[0]]), "p95": float(part[pos[1]]), "max": top}
 
 
-def filtered_delta_e(original_picture, mapped, *, dpi=None, distance_mm=None, ppd=None) -> dict[str, float]:
+def filtered_delta_e(original_picture: ImageInput, mapped: quantize.MappedImage | np.ndarray, *,
+                     dpi: float | None = None, distance_mm: float | None = None,
+                     ppd: float | None = None) -> dict[str, float]:
     """S-CIELAB-filtered CIEDE2000 statistics (mean, median, p95, max) over opaque pixels.
 
     See :func:`delta_e_map` for the parameters.

@@ -37,6 +37,7 @@ Methods (:data:`DITHERS`)
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -44,6 +45,13 @@ import numpy as np
 # names stay importable here.
 from .methods import DITHERS, DitherMethod, check_dither, check_modulation, check_strength
 from .result import DitherInfo, MappedImage, nearest_image
+if TYPE_CHECKING:
+    # The palette by its public name: palette.py imports the render stage, so a direct import back
+    # would be a cycle (tests/test_architecture.py).
+    import quantize
+    from quantize.core.choices import DitherName
+    from quantize.core.picture import ImageInput
+
 from .thresholds import (
     CLUSTERED_CELL,
     CLUSTERED_MIN_DOT,
@@ -303,8 +311,9 @@ def _run_method(m, pic, a: DitherArrays, strength, serpentine, modulation, measu
     return de
 
 
-def dither_picture(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
-                   serpentine: bool = True, modulation: float | None = None):
+def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: DitherName, strength: float = 1.0,
+                   metric: str = "space", serpentine: bool = True,
+                   modulation: float | None = None) -> MappedImage:
     """Reduce an image to ``palette`` with a dither.
 
     Parameters

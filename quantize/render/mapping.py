@@ -9,17 +9,28 @@ colours actually written.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING, Any
+
 from quantize.fit.assign import resolve_metric
 
 from .dither import dither_picture
 from .result import MappedImage, nearest_image  # MappedImage: the return annotation
 
+if TYPE_CHECKING:
+    # The palette by its public name: palette.py imports this module, so a direct import back would be
+    # a cycle (tests/test_architecture.py).
+    import quantize
+    from quantize.core.choices import DitherName, NearestName
+    from quantize.core.picture import ImageInput
+    from quantize.core.sampling import ColourSample
+
 __all__ = ["map_picture"]
 
 
-def map_picture(image, palette, *, dither: str = "none", nearest: str | None = None,
-                dither_strength: float = 1.0, serpentine: bool = True, max_pixels=None, sample=None,
-                **old_names) -> MappedImage:
+def map_picture(image: ImageInput, palette: quantize.Palette, *, dither: DitherName = "none",
+                nearest: NearestName | None = None, dither_strength: float = 1.0, serpentine: bool = True,
+                max_pixels: int | None = None, sample: ColourSample | None = None,
+                **old_names: Any) -> MappedImage:
     """Reduce an image to ``palette``.
 
     Parameters

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Iterable
 
 import numpy as np
 
@@ -11,6 +13,13 @@ from quantize.core.picture import ImageWarning
 from quantize.fit.assign import map_sample
 from quantize.quality.perception import FilteredDeltaE
 from quantize.quality.stats import coverage_percent, delta_e_stats
+
+if TYPE_CHECKING:
+    # The palette by its public name: palette.py imports the render stage, so a direct import back
+    # would be a cycle (tests/test_architecture.py).
+    import quantize
+    from quantize.core.picture import Picture
+    from quantize.io.write import PathLike, WrittenImage
 
 __all__ = ["DitherInfo", "MappedImage", "SavedImage", "file_delta_e", "nearest_image"]
 
@@ -83,7 +92,7 @@ class MappedImage:
     """
 
     indices: np.ndarray
-    palette: object
+    palette: quantize.Palette
     alpha: np.ndarray | None
     delta_e: dict
     coverage: np.ndarray
@@ -104,7 +113,7 @@ class MappedImage:
         """Indices of palette colours that no opaque pixel uses."""
         return [int(i) for i in np.flatnonzero(self.coverage == 0)]
 
-    def save(self, path, *, force: bool = False, inputs=()):
+    def save(self, path: PathLike, *, force: bool = False, inputs: Iterable[PathLike] = ()) -> Path:
         """Write the reduced image in the format its extension names; return the path.
 
         See :func:`quantize.io.write.save_image` for the formats and how
@@ -122,7 +131,8 @@ class MappedImage:
             out.append(self.source)
         return out
 
-    def write(self, path, *, picture=None, force: bool = False, inputs=()) -> SavedImage:
+    def write(self, path: PathLike, *, picture: Picture | None = None, force: bool = False,
+              inputs: Iterable[PathLike] = ()) -> SavedImage:
         """Write the reduced image and measure the file written.
 
         Parameters
@@ -195,7 +205,7 @@ class SavedImage:
         Colours of the palette.
     """
 
-    file: object
+    file: WrittenImage
     delta_e: dict | None
     k: int
 

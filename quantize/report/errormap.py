@@ -7,15 +7,24 @@ to bright (far off).  Below it a legend strip shows the colour scale with its
 condition) and the statistics.  Fully transparent pixels are mid grey.  The
 scale is fixed (0 to ``vmax``, 10 by default, values above shown at the top
 colour) so maps of different runs compare directly.  matplotlib draws the
-legend and is imported only here, inside the functions.
+legend and is imported only here, inside the functions; it is the optional
+``plots`` extra, asked for by name when missing (:mod:`quantize.report.plotlib`).
 """
 
 from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import TYPE_CHECKING, Iterable, Literal
 
 import numpy as np
+
+from .plotlib import require_matplotlib
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.io.write import PathLike
+    from quantize.render.result import MappedImage
 
 __all__ = ["COLOUR_MAP", "ERROR_MAP_KINDS", "error_map_image", "save_error_map"]
 
@@ -36,20 +45,22 @@ def _legend(width: int, vmax: float, title: str, stats_line: str) -> np.ndarray:
 
     dpi = 100
     fig = Figure(figsize=(width / dpi, _LEGEND_HEIGHT / dpi), dpi=dpi, facecolor="white")
-    FigureCanvasAgg(fig)
+    canvas = FigureCanvasAgg(fig)
     ax = fig.add_axes((0.04, 0.52, 0.92, 0.18))
     bar = fig.colorbar(ScalarMappable(norm=Normalize(0.0, vmax), cmap=COLOUR_MAP), cax=ax,
                        orientation="horizontal", extend="max")
     bar.ax.tick_params(labelsize=8)
     fig.text(0.04, 0.80, title, fontsize=9, ha="left", va="center")
     fig.text(0.04, 0.10, stats_line, fontsize=8, ha="left", va="center")
-    fig.canvas.draw()
-    rgba = np.asarray(fig.canvas.buffer_rgba())
+    canvas.draw()
+    rgba = np.asarray(canvas.buffer_rgba())
     return rgba[..., :3].copy()
 
 
-def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                    vmax: float = 10.0, pixel_delta_e=None) -> np.ndarray:
+def error_map_image(original: ImageInput, mapped: MappedImage | np.ndarray, *,
+                    kind: Literal["plain", "filtered"] = "plain", dpi: float | None = None,
+                    distance_mm: float | None = None, ppd: float | None = None, vmax: float = 10.0,
+                    pixel_delta_e: np.ndarray | None = None) -> np.ndarray:
     """The error map as an 8-bit RGB array.
 
     Parameters
@@ -94,6 +105,7 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     >>> error_map_image(img, img).shape  # doctest: +SKIP
     (116, 560, 3)
     """
+    require_matplotlib("the error map")
     from matplotlib import colormaps
 
     from quantize.quality.perception import check_map_shape, delta_e_map, pixel_delta_e_stats, viewing_ppd
@@ -105,7 +117,8 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     if pixel_delta_e is None:
         de = delta_e_map(original, mapped, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd)
     else:
-        de = check_map_shape(pixel_delta_e, np.shape(getattr(mapped, "indices", mapped))[:2])
+        # An array, or a MappedImage's indices (mypy cannot follow getattr's default).
+        de = check_map_shape(pixel_delta_e, np.shape(getattr(mapped, "indices", mapped))[:2])  # type: ignore[arg-type]
     clear = np.isnan(de)
     lut = (np.asarray(colormaps[COLOUR_MAP](np.linspace(0.0, 1.0, 256)))[:, :3] * 255 + 0.5).astype(np.uint8)
     level = np.rint(np.clip(np.nan_to_num(de) / vmax, 0.0, 1.0) * 255).astype(np.intp)
@@ -132,8 +145,11 @@ def error_map_image(original, mapped, *, kind: str = "plain", dpi=None, distance
     return canvas
 
 
-def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, distance_mm=None, ppd=None,
-                   vmax: float = 10.0, force: bool = False, inputs=(), pixel_delta_e=None) -> Path:
+def save_error_map(path: PathLike, original: ImageInput, mapped: MappedImage | np.ndarray, *,
+                   kind: Literal["plain", "filtered"] = "plain", dpi: float | None = None,
+                   distance_mm: float | None = None, ppd: float | None = None, vmax: float = 10.0,
+                   force: bool = False, inputs: Iterable[PathLike] = (),
+                   pixel_delta_e: np.ndarray | None = None) -> Path:
     """Write :func:`error_map_image` as a PNG file, atomically.
 
     The parameters are those of :func:`error_map_image`, and ``force`` and
@@ -146,6 +162,8 @@ def save_error_map(path, original, mapped, *, kind: str = "plain", dpi=None, dis
         cannot be written.
     ValueError
         As :func:`error_map_image`.
+    quantize.report.plotlib.PlotsUnavailable
+        matplotlib is not installed (the ``plots`` extra); nothing is written.
     """
     from PIL import Image
 

@@ -12,7 +12,9 @@
   script).
 
 matplotlib is imported inside the plotting functions only, and without
-pyplot, so nothing here touches a global backend or opens a window.
+pyplot, so nothing here touches a global backend or opens a window.  It is
+the optional ``plots`` extra: the sweep plot, and a report page with a sweep,
+ask for it by name when it is missing (:mod:`quantize.report.plotlib`).
 """
 
 from __future__ import annotations
@@ -23,6 +25,8 @@ from pathlib import Path
 from typing import Sequence
 
 import numpy as np
+
+from .plotlib import require_matplotlib
 
 __all__ = ["sweep_figure", "plot_sweep", "swatch_strip", "save_swatches", "write_report",
            "score_terms", "REPORT_PAGE"]
@@ -66,7 +70,13 @@ def sweep_figure(sweep, *, width: float = 9.0, height: float = 7.0, dpi: int = 1
     Returns
     -------
     matplotlib.figure.Figure
+
+    Raises
+    ------
+    quantize.report.plotlib.PlotsUnavailable
+        matplotlib is not installed (the ``plots`` extra).
     """
+    require_matplotlib("the sweep plot")
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     from matplotlib.ticker import MaxNLocator
@@ -74,7 +84,7 @@ def sweep_figure(sweep, *, width: float = 9.0, height: float = 7.0, dpi: int = 1
     ks = np.array(sweep.ks)
     fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
     # Room between the panels so the lowest tick label above never meets the highest below.
-    fig.get_layout_engine().set(hspace=0.07)
+    fig.get_layout_engine().set(hspace=0.07)  # type: ignore[union-attr,call-arg]  # constrained: it has hspace
     FigureCanvasAgg(fig)
     top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 2])
     stat = lambda name: [r.delta_e[name] for r in sweep.rows]  # noqa: E731
@@ -135,6 +145,8 @@ def plot_sweep(sweep, path, *, force: bool = False, **figure_options) -> Path:
     ------
     OutputError
         The file exists and ``force`` is false, or cannot be written.
+    quantize.report.plotlib.PlotsUnavailable
+        matplotlib is not installed (the ``plots`` extra); nothing is written.
 
     Examples
     --------
@@ -147,13 +159,15 @@ def plot_sweep(sweep, path, *, force: bool = False, **figure_options) -> Path:
 
 
 def _font(size: int):
-    """DejaVu Sans from matplotlib's own data (it has the Greek Δ), else Pillow's default."""
-    import matplotlib
+    """DejaVu Sans from matplotlib's own data (it has the Greek Δ), else Pillow's default (matplotlib is
+    optional: the swatch strip needs no plot)."""
     from PIL import ImageFont
 
     try:
+        import matplotlib
+
         return ImageFont.truetype(str(Path(matplotlib.get_data_path()) / "fonts" / "ttf" / "DejaVuSans.ttf"), size)
-    except OSError:
+    except (OSError, ImportError):
         return ImageFont.load_default(size=size)
 
 
@@ -347,6 +361,9 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     ValueError
         Inputs and results differ in number or size, an error map is
         missing, or ``preview_side`` is below 16.
+    quantize.report.plotlib.PlotsUnavailable
+        A sweep is given and matplotlib is not installed (the ``plots``
+        extra); nothing is written.
 
     Notes
     -----
@@ -367,6 +384,8 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
 
     if int(preview_side) < 16:
         raise ValueError(f"preview_side {preview_side}: expected at least 16 px")
+    if sweep is not None:
+        require_matplotlib("the report page's sweep plot")
     pics, results, maps = _report_inputs(original_picture, mapped, error_map_path)
     pal = palette if palette is not None else results[0].palette
     out = Path(folder)

@@ -12,11 +12,14 @@ from __future__ import annotations
 import html
 import json
 from dataclasses import dataclass
-from typing import Sequence
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
 from .embed import original_uri, result_uri, size_previews
+
+if TYPE_CHECKING:
+    from quantize.palette import Palette
 
 e = html.escape
 
@@ -44,7 +47,7 @@ class SizeView:
     """
 
     k: int
-    palette: object
+    palette: Palette
     src: str
     size: tuple
     coverage: np.ndarray

@@ -8,7 +8,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Literal, Sequence
 
 import numpy as np
 
@@ -16,6 +16,10 @@ from quantize.errors import SeparationError
 
 from .inks import InkLibrary, InkLibraryError
 from .substrate import SAME_DE, infer_substrate, no_substrate_asked
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.palette import Palette
 
 __all__ = ["SELECTION_METHODS", "SNAP_WARN_DE", "InkSelection", "choose_inks", "choose_palette",
            "resolve_substrate", "snap_outcomes", "snap_palette", "subset_cost"]
@@ -157,8 +161,9 @@ def _search(d, w, n, base, restarts, rng):
     return s, c, count
 
 
-def choose_inks(image, library: InkLibrary, n: int, *, substrate=None, method: str = "auto",
-                restarts: int = 4, seed=0, max_colours: int = 50_000) -> InkSelection:
+def choose_inks(image: ImageInput, library: InkLibrary, n: int, *, substrate: int | str | Sequence[float] | None = None,
+                method: Literal["auto", "exact", "search"] = "auto", restarts: int = 4,
+                seed: int | np.random.Generator = 0, max_colours: int = 50_000) -> InkSelection:
     """Choose the ``n`` library inks that reproduce an image best.
 
     The cost of a set of inks is the pixel-weighted mean ΔE00 between every
@@ -317,7 +322,7 @@ def _resolve_substrate(substrate, library: InkLibrary | None):
     return None, srgb8_to_space(rgb, "lab"), rgb, "substrate"
 
 
-def snap_palette(palette, library: InkLibrary, *, substrate=None) -> tuple[Any, list[dict]]:
+def snap_palette(palette: Palette, library: InkLibrary, *, substrate: str | None = None) -> tuple[Palette, list[dict]]:
     """Replace each unlocked palette colour by a library ink, each ink used once.
 
     The assignment minimises the total ΔE00 between fitted colours and

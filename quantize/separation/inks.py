@@ -36,6 +36,7 @@ import csv
 import io
 import json
 import math
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -159,7 +160,7 @@ class InkLibrary:
 
 # --------------------------------------------------------------------------- reading
 
-def load_ink_library(path, *, illuminant: str | None = None) -> InkLibrary:
+def load_ink_library(path: str | os.PathLike[str], *, illuminant: str | None = None) -> InkLibrary:
     """Read an ink library file (CSV, JSON or CGATS.17 text).
 
     Parameters

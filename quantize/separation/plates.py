@@ -48,13 +48,13 @@ import math
 import re
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Iterable, Literal, Sequence
 
 import numpy as np
 
 from quantize.core.units import MM_PER_INCH, mm_to_px, px_to_mm
 from quantize.errors import OutputError, SeparationError
-from quantize.io.write import to_jsonable
+from quantize.io.write import PathLike, to_jsonable
 
 from .choice import _picture, resolve_substrate
 from .cleanup import CleanupReport, DetailReport, clean_small_regions, find_thin_features, keep_detail
@@ -81,6 +81,12 @@ from .halftone import screen_warnings
 from .tonal import TONES, TonalSettings, print_error, simulate_print
 from .trap import trap_plates
 from .underbase import FLASH, HIGHLIGHT, UNDERBASE, BasePlan, highlight_mask, print_sequence, split_order, underbase_plan
+
+if TYPE_CHECKING:
+    from quantize.core.picture import ImageInput
+    from quantize.palette import Palette
+
+    from .inks import InkLibrary
 
 __all__ = [
     "Plate", "Separation", "SeparationSettings", "separate", "print_order",
@@ -339,7 +345,7 @@ class Separation:
     """
 
     indices: np.ndarray
-    palette: Any
+    palette: Palette
     substrate: int | None
     plates: tuple
     underbase: Plate | None
@@ -379,7 +385,7 @@ class Separation:
         """The cleaned, reduced image as 8-bit sRGB."""
         return self.palette.rgb8[self.indices]
 
-    def with_measured(self, library) -> Separation:
+    def with_measured(self, library: InkLibrary) -> Separation:
         """This separation with each library ink's measured Lab recorded (matched by name).
 
         The preview colours are the inks' nearest sRGB colours; the manifest
@@ -498,8 +504,9 @@ class Separation:
         return {"lab_measured": [round(float(v), 3) for v in m],
                 "delta_e_preview_to_measured": round(float(delta_e_ciede2000(self.palette.lab[i], m)), 3)}
 
-    def write(self, folder, *, force: bool = False, png: bool = False, marks: bool = False,
-              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs=(), pdf: bool = True,
+    def write(self, folder: PathLike, *, force: bool = False, png: bool = False, marks: bool = False,
+              margin_mm: float = DEFAULT_MARGIN_MM, stem: str | None = None, inputs: Iterable[PathLike] = (),
+              pdf: bool = True,
               job: str | None = None, date: str | None = None) -> dict:
         """Write the films (1-bit TIFF, optionally PNG), a PDF of them all, the preview and the manifest.
 
@@ -689,11 +696,13 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
     return out
 
 
-def separate(image, palette, *, substrate=None, dpi: float | None = None,
-             min_feature_mm: float | None = None, min_line_mm: float | None = None,
-             underbase: bool | None = None, choke_mm: float | None = None, order: Sequence | None = None,
-             max_pixels=None, edges: bool | None = None, dithered: str | None = None,
-             tones: str | None = None, settings: SeparationSettings | None = None) -> Separation:
+def separate(image: ImageInput, palette: Palette, *, substrate: int | str | Sequence[float] | None = None,
+             dpi: float | None = None, min_feature_mm: float | None = None, min_line_mm: float | None = None,
+             underbase: bool | None = None, choke_mm: float | None = None,
+             order: Sequence[str | int] | None = None, max_pixels: int | None = None, edges: bool | None = None,
+             dithered: Literal["auto", "keep", "clean"] | None = None,
+             tones: Literal["spot", "halftone", "index"] | None = None,
+             settings: SeparationSettings | None = None) -> Separation:
     """Separate an image into one knocked-out 1-bit film per printed ink, at print size.
 
     Parameters
@@ -784,7 +793,7 @@ def separate(image, palette, *, substrate=None, dpi: float | None = None,
     from quantize.core.sampling import sample_picture
     from quantize.render.mapping import map_picture
 
-    given = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
+    given: dict[str, Any] = {"dpi": dpi, "min_feature_mm": min_feature_mm, "min_line_mm": min_line_mm, "underbase": underbase,
              "choke_mm": choke_mm, "edges": edges, "dithered": dithered, "tones": tones}
     st = replace(settings or SeparationSettings(), **{k: v for k, v in given.items() if v is not None})
     _check_settings(st)
@@ -906,7 +915,7 @@ def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: 
     if len({nm.casefold() for nm in names}) != len(names):
         raise SeparationError("two printed colours have the same name; plates are named after inks, so every "
                               "ink needs its own name")
-    plates = []
+    plates: list[Plate] = []
     for i, nm, sl, film in zip(ordered, names, _unique_slugs(names), films, strict=True):
         if not film.any():
             notes.append(f"no pixel prints {nm}: no plate for it")
@@ -1117,7 +1126,7 @@ def _ink_plates(cleaned, opaque, palette, sub, *, order, first: int, notes: list
             raise SeparationError(f"two printed colours are both called {nm!r}; plates are named after "
                                   "inks, so every ink needs its own name")
         seen[nm.casefold()] = nm
-    plates = []
+    plates: list[Plate] = []
     for o, (i, nm, sl) in enumerate(zip(ordered, names, _unique_slugs(names), strict=True)):
         m = (cleaned == i) & opaque
         plates.append(Plate(name=nm, index=i, order=first + o, mask=m, coverage=float(100.0 * m.sum() / n_opaque),
@@ -1210,7 +1219,8 @@ def _numbered(seq: list[str], plates: list[Plate], ub: Plate | None, hl: Plate |
 
 def _thin_detail(plates, *, min_line_mm, dpi) -> tuple[list, dict]:
     """Thin lines and gaps of every plate, largest first (at most 200), and their counts."""
-    thin, summary = [], {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
+    thin: list[dict] = []
+    summary = {"lines": 0, "gaps": 0, "width_px": 0, "width_mm": 0.0}
     if min_line_mm <= 0:
         return thin, summary
     w_px = mm_to_px(min_line_mm, dpi)
