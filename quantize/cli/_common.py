@@ -132,9 +132,11 @@ def _fit_option_list() -> dict:
                                help="ΔE00 target for --rule target (implies it), or for photos under --rule auto."),
         "target_stat": click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean",
                                     show_default=True, help="Which ΔE00 statistic the target applies to."),
-        "locked": click.option("--lock", "locked", multiple=True, metavar="COLOUR",
+        # --locked is the library's keyword (FitSettings.locked) and the palette file's key; --lock, the
+        # older spelling, stays so that existing scripts keep working.
+        "locked": click.option("--locked", "--lock", "locked", multiple=True, metavar="COLOUR",
                                help="Hold a colour fixed (substrate, brand colour): #rgb, #rrggbb, L,a,b or a CSS "
-                                    "colour name. Repeatable."),
+                                    "colour name. Repeatable; --lock is the same option."),
         "seed": click.option("--seed", type=int, default=0, show_default=True, callback=_seed_option,
                              help="Random seed; same seed, same palette."),
         "restarts": click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
@@ -180,8 +182,8 @@ def _fit_settings(o: dict, **more):
         raise click.UsageError(f"--target chooses the palette size, but -k {o['colours']} fixes it; "
                                "give a range (-k MIN-MAX) or no -k")
     more.setdefault("kind", {"photo": "continuous tone"}.get(o.get("kind", "auto"), o.get("kind", "auto")))
-    more.setdefault("init", o.get("seeding", "k-means++"))
-    more.setdefault("metric", _metric(o.get("nearest", "auto")))
+    more.setdefault("seeding", o.get("seeding", "k-means++"))
+    more.setdefault("nearest", _metric(o.get("nearest", "auto")))
     try:
         return FitSettings(space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
                            locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], **more)

@@ -250,7 +250,7 @@ def _sizes_table(cands, chosen, picks=None) -> str:
 
 
 _SETTING_NAMES = {"locked": "locked colours asked for", "k_requested": "palette size asked for",
-                  "init": "seeding", "metric": "nearest colour by", "refine": "refinement",
+                  "nearest": "nearest colour by", "refine": "refinement",
                   "weighting": "images weighted", "target": "ΔE00 target", "target_stat": "target statistic"}
 
 
@@ -268,13 +268,13 @@ def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
         d = sweep.settings_dict()
         rows.append(("palette sizes swept", f"{d['k_range'][0]}–{d['k_range'][1]}"))
         rows.append(("rule for the marked size", sweep.rule))
-        for key in ("space", "seed", "restarts", "init", "refine", "warm", "metric", "weighting", "target",
+        for key in ("space", "seed", "restarts", "seeding", "refine", "warm", "nearest", "weighting", "target",
                     "target_stat", "locked"):
             rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(d[key])))
         rows.append(("pixels / distinct colours sampled", f"{d['n_pixels']} / {d['n_distinct']}"))
     elif pal.fit is not None:
         f = pal.fit
-        for key in ("rule", "k_requested", "space", "seed", "restarts", "init", "refine", "metric", "weighting",
+        for key in ("rule", "k_requested", "space", "seed", "restarts", "seeding", "refine", "nearest", "weighting",
                     "target", "target_stat", "kind", "locked"):
             rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(getattr(f, key))))
     else:
