@@ -182,6 +182,36 @@ def test_256_colours_with_transparency(tmp_path):
         assert not (tmp_path / f"full.{ext}").exists()
 
 
+def test_reduce_refuses_256_colours_with_transparency_before_fitting(tmp_path, monkeypatch):
+    import quantize.fit.engine as engine
+
+    rng = np.random.default_rng(11)
+    rgb = rng.integers(0, 256, (40, 40, 3)).astype(np.uint8)  # 1600 pixels: well over 256 distinct colours
+    alpha = np.full((40, 40), 255, np.uint8)
+    alpha[:4] = 0  # a clear band: it needs a fully transparent entry in the colour index
+    src = tmp_path / "many.png"
+    Image.fromarray(np.dstack([rgb, alpha])).save(src)
+    fits = []
+    real = engine.fit_palette
+    monkeypatch.setattr(engine, "fit_palette", lambda *a, **kw: fits.append(1) or real(*a, **kw))
+    for ext in ("png", "gif", "webp"):
+        out = tmp_path / f"out.{ext}"
+        r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "256"])
+        assert r.exit_code == 2, r.output
+        line = [ln for ln in r.output.splitlines() if ln.startswith("Error:")]
+        assert len(line) == 1 and str(out) in line[0] and "transparency" in line[0] and "256 entries" in line[0]
+        assert not out.exists() and "Traceback" not in r.output
+    assert fits == []  # refused before any fitting work
+    # 255 colours leave the transparent entry its room: written, an indexed PNG whose clear band is clear.
+    out = tmp_path / "k255.png"
+    r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "255", "--restarts", "1"])
+    assert r.exit_code == 0, r.output
+    assert fits == [1]
+    with Image.open(out) as im:
+        assert im.mode == "P"
+    assert (_rgba(out)[:4, :, 3] == 0).all()
+
+
 def _lab_colour_science(rgb8):
     # colour-science's sRGB with its matrix derived from the IEC 61966-2-1 primaries and
     # white, as quantize uses (its default is the 4-decimal matrix: close, not equal).

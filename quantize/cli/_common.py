@@ -359,14 +359,54 @@ def _report_targets(report_dir):
     return []
 
 
+#: Entries of a colour index (PNG PLTE, GIF, WebP's colour-indexing transform).
+_INDEX_ENTRIES = 256
+#: Outputs written through a colour index (a WebP above 256 colours is written without one).
+_INDEXED = (".png", ".gif", ".webp")
+
+
 def _check_indexed_size(out: Path, k: str | None):
-    """Refuse a palette size above 256 where the output is an indexed PNG."""
+    """Refuse a palette size above 256 where the output is an indexed PNG or a GIF."""
     if k is None:  # the default: at most 256 colours
         return
     top = int(k.split("-")[-1])
-    if out.suffix.lower() == ".png" and top > 256:
-        raise click.BadParameter(f"{top} colours do not fit an indexed PNG (at most 256)",
+    fmt = {".png": "an indexed PNG", ".gif": "a GIF"}.get(out.suffix.lower())
+    if fmt and top > _INDEX_ENTRIES:
+        raise click.BadParameter(f"{top} colours do not fit {fmt} (at most {_INDEX_ENTRIES})",
                                  param_hint="'-k' / '--colours'")
+
+
+def _check_room_for_transparency(out: Path, k: str | None, picture) -> None:
+    """Refuse, before the fit, a fixed 256-colour palette for a picture that needs a clear index entry.
+
+    An indexed output keeps transparency in its colour index: a pixel below
+    alpha :data:`quantize.io.write.ALPHA_THRESHOLD` needs a fully transparent
+    entry, and with 256 colours (a picture with at least 256 distinct
+    colours, so the palette does not come out smaller) there is none left.
+    Found here, from the picture alone, the mistake costs no fit.
+
+    Raises
+    ------
+    click.UsageError
+        Naming the output and the problem (exit code 2).
+    """
+    if k is None or out.suffix.lower() not in _INDEXED or picture.alpha is None:
+        return
+    lo, _, hi = k.partition("-")
+    if int(lo) != _INDEX_ENTRIES or int(hi or lo) != _INDEX_ENTRIES:
+        return  # a smaller fixed size leaves room; a range may choose fewer, and the write says so if not
+    import numpy as np
+
+    from quantize.core.sampling import sample_picture
+    from quantize.io.write import ALPHA_THRESHOLD
+
+    # Alpha as the writer rounds it to 8 bits: below the threshold the pixel is written clear.
+    clear = np.rint(picture.alpha * (255.0 / picture.max_code)) < ALPHA_THRESHOLD
+    if clear.any() and sample_picture(picture).n_colours >= _INDEX_ENTRIES:
+        raise click.UsageError(
+            f"{out}: {_INDEX_ENTRIES} colours and transparency do not fit the {_INDEX_ENTRIES} entries of a "
+            f"{out.suffix.lower()[1:].upper()} colour index (transparent pixels need one); use -k 255 or fewer, "
+            "or a .tif output")
 
 
 def _judgement_summary(record) -> dict:

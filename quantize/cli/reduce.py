@@ -9,6 +9,7 @@ import click
 
 from ._common import (
     _check_indexed_size,
+    _check_room_for_transparency,
     _check_outputs,
     _emit,
     _Failure,
@@ -61,6 +62,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
 
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+        _check_room_for_transparency(out, k, pic)  # before the fit, not after it
         pal = _fit_with_progress(pic, k, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
