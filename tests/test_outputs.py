@@ -243,6 +243,43 @@ def test_jpeg_warns_and_its_delta_e_is_that_of_the_decoded_file(tmp_path):
     assert saved.n_bytes == saved.file.path.stat().st_size
 
 
+def test_jpeg_coverage_and_filtered_delta_e_are_those_of_the_decoded_file(tmp_path):
+    # Coverage of a JPEG: the share of its decoded pixels nearest (CIEDE2000, colour-science as the
+    # reference, Sharma et al. 2005) to each palette colour.  The JPEG is decoded here with Pillow.
+    colour = pytest.importorskip("colour")
+    from quantize.quality.perception import filtered_delta_e
+
+    # Black, white and six greys 3 codes apart, as 1-px noise: the JPEG's ringing moves many grey
+    # pixels nearer another grey, so its coverage differs from the palette image's.
+    rng = np.random.default_rng(21)
+    levels = np.array([0, 255, 120, 123, 126, 129, 132, 135], np.uint8)
+    rgb = np.repeat(levels[rng.integers(0, 8, (48, 64))][..., None], 3, axis=2)
+    src = tmp_path / "noise.png"
+    Image.fromarray(rgb).save(src)
+    out = tmp_path / "noise.jpg"
+    r = _run("reduce", src, "-o", out, "-k", "8", "--restarts", "1", "--keep-palette", "--json",
+             "--view-dpi", "150", "--view-distance", "400")
+    assert r.exit_code == 0, r.output
+    summary = json.loads(r.stdout)
+    pal = Palette.load(tmp_path / "noise.palette.json")
+    with Image.open(out) as im:
+        decoded = np.asarray(im.convert("RGB"))
+    de = colour.delta_E(_lab_colour_science(decoded)[:, :, None, :], _lab_colour_science(pal.rgb8)[None, None],
+                        method="CIE 2000")
+    nearest = de.argmin(axis=2)
+    expected = 100.0 * np.bincount(nearest.ravel(), minlength=pal.k) / nearest.size
+    reported = np.array([row["coverage"] for row in summary["palette"]])
+    np.testing.assert_allclose(reported, expected, atol=1e-3)  # the summary rounds to 3 decimals
+    palette_image = pal.apply(rgb).coverage
+    assert np.abs(palette_image - expected).max() > 0.5  # the check can tell the file from the palette image
+    # The filtered ΔE00 (S-CIELAB, checked in test_perception) of the pixels decoded here.
+    want = filtered_delta_e(rgb, decoded, dpi=150, distance_mm=400)
+    assert summary["delta_e_filtered"] == pytest.approx(want, abs=1e-9)
+    assert summary["file"]["delta_e_filtered"] == summary["delta_e_filtered"]
+    assert want["mean"] != pytest.approx(filtered_delta_e(rgb, pal.apply(rgb).rgb, dpi=150, distance_mm=400)["mean"],
+                                         abs=1e-3)
+
+
 def test_lossless_outputs_report_the_mapping_figures(tmp_path):
     # A lossless file shows exactly the mapped colours, so its ΔE00 is recomputed from the
     # file with colour-science and compared with what the tool reports.

@@ -437,3 +437,20 @@ def _print_judgement(record, target) -> None:
         click.echo(f"lost: a flat area of {x['share']:.2f} % near ({x['where'][0]:.0f} %, {x['where'][1]:.0f} %) "
                    f"of L*a*b* {x['lab'][0]:.1f}, {x['lab'][1]:.1f}, {x['lab'][2]:.1f} became {x['nearest_hex']} "
                    f"(ΔE00 {x['delta_e']:.1f})")
+
+
+def _of_the_file(saved, dextra: dict, dlines: list) -> tuple[dict, list]:
+    """A dither summary (``run_dither_outputs``) whose filtered ΔE00 is that of the file ``saved`` describes.
+
+    For a JPEG that is the file as written and decoded again; a lossless
+    file holds the mapping's own pixels, and its summary is returned as it is.
+    """
+    if not saved.file.lossy or dextra.get("delta_e_filtered") is None:
+        return dextra, dlines
+    f = saved.filtered
+    dextra = dict(dextra, delta_e_filtered=None if f is None else f.stats)
+    line = ("ΔE00 filtered: not measured (no fully opaque pixel)" if f is None else
+            f"ΔE00 filtered (S-CIELAB, {f.viewing['dpi']:g} dpi at {f.viewing['distance_mm']:g} mm, "
+            f"{f.ppd:.1f} px/degree), of the JPEG as written: mean {f.stats['mean']:.2f}  "
+            f"median {f.stats['median']:.2f}  p95 {f.stats['p95']:.2f}  max {f.stats['max']:.2f}")
+    return dextra, [line if ln.startswith("ΔE00 filtered") else ln for ln in dlines]

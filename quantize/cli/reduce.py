@@ -12,6 +12,7 @@ from ._common import (
     _check_room_for_transparency,
     _check_outputs,
     _emit,
+    _of_the_file,
     _Failure,
     _fit_options,
     _fit_settings,
@@ -81,7 +82,8 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         return pal, res, saved, dextra, dlines
 
     pal, res, saved, dextra, dlines = _run(ctx, work)
-    rows = _palette_rows(pal, res.coverage)
+    dextra, dlines = _of_the_file(saved, dextra, dlines)
+    rows = _palette_rows(pal, saved.coverage)
     summary = {
         "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit.rule,
         "reason": pal.fit.reason, "space": pal.space, "delta_e": saved.delta_e, "file": saved.to_dict(),
@@ -119,3 +121,4 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
 
     _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)
+
