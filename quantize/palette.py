@@ -126,6 +126,11 @@ class FitCandidate:
         The ``"bic"`` rule's robust error ``R_k`` (ΔE00 squared).
     score : float
         Penalised score of the ``"bic"`` rule (lower is better).
+    palette : Palette or None
+        This size's palette as the fit made it, kept so that a report can
+        show every size without fitting again (the review page's size
+        slider).  Not written to the palette file: None in a record read
+        from one.
     """
 
     k: int
@@ -133,6 +138,7 @@ class FitCandidate:
     delta_e: Mapping
     robust_error: float
     score: float
+    palette: Palette | None = field(default=None, compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """The row as written in a palette file's ``fit.candidates``."""

@@ -860,5 +860,5 @@ def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSetti
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,
         candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
-                                      score=float(sc)) for c, sc in zip(cands, scores)),
+                                      score=float(sc), palette=c.palette) for c, sc in zip(cands, scores)),
         notes=tuple(notes), **fields)
