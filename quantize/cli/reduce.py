@@ -77,7 +77,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from quantize.report.page import write_report
 
             write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
-                         error_map_path=dextra["error_map"],
+                         error_map_path=dextra["error_map"], more_sizes=_untried_sizes(pic, k, pal, settings),
                          title=f"quantize reduce: {Path(image).name}", force=force)
         return pal, res, saved, dextra, dlines
 
@@ -122,3 +122,27 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
     _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)
 
+
+def _untried_sizes(pic, k: str | None, pal, settings) -> list:
+    """The sizes of the range ``-k`` the fit's rule did not try, fitted for the review page's slider.
+
+    Every size tried keeps its palette from the fit (the page shows those as
+    they are); a rule that searched the range (the automatic rule on a photo
+    or on artwork with fewer inks than the range's top) left the others out.
+    Each is fitted on its own random stream, so it is the palette a fixed
+    ``-k`` of that size gives.
+    """
+    if k is None or "-" not in k:
+        return []
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.engine import parse_k
+    from quantize.fit.settings import FitSettings
+    from quantize.fit.sweep import sweep_sample
+
+    sample = sample_picture(pic)
+    tried = {c.k for c in pal.fit.candidates or () if c.palette is not None}
+    untried = [j for j in parse_k(k) if j not in tried and j <= sample.n_colours]
+    if not untried:
+        return []
+    # The rule does not matter here (no size is chosen): "bic" needs nothing the page lacks.
+    return list(sweep_sample(sample, untried, FitSettings.of(settings, rule="bic")).rows)
