@@ -34,7 +34,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
-from quantize.core.vocabulary import renamed_keywords
+from quantize.core.vocabulary import accepts_renamed, renamed_keywords
 from quantize.errors import PaletteFileError
 
 if TYPE_CHECKING:
@@ -133,6 +133,11 @@ class FitCandidate:
         The ``"bic"`` rule's robust error ``R_k`` (ΔE00 squared).
     score : float
         Penalised score of the ``"bic"`` rule (lower is better).
+    palette : Palette or None
+        This size's palette as the fit made it, kept so that a report can
+        show every size without fitting again (the review page's size
+        slider).  Not written to the palette file: None in a record read
+        from one.
     """
 
     k: int
@@ -140,6 +145,7 @@ class FitCandidate:
     delta_e: Mapping
     robust_error: float
     score: float
+    palette: Palette | None = field(default=None, compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """The row as written in a palette file's ``fit.candidates``."""
@@ -148,13 +154,17 @@ class FitCandidate:
 
 
 #: The ``fit`` keys every fitted palette's file has had since format version 1.
-_FIT_KEYS = ("k", "rule", "reason", "k_requested", "space", "restarts", "seed", "init", "weighting", "metric",
-             "refine", "target", "target_stat", "images", "n_pixels", "n_distinct", "inertia", "refined",
+_FIT_KEYS = ("k", "rule", "reason", "k_requested", "space", "restarts", "seed", "seeding", "weighting",
+             "nearest", "refine", "target", "target_stat", "images", "n_pixels", "n_distinct", "inertia", "refined",
              "delta_e", "candidates", "notes")
+#: Keys of the ``fit`` object renamed since version 1 files were first written: old key -> field.
+#: A file with the old key loads as if it had the new one.
+_OLD_FIT_KEYS = {"init": "seeding", "metric": "nearest"}
 #: Record fields that hold sequences (lists in the file, tuples in the record).
 _RECORD_LISTS = ("images", "notes", "locked", "candidates", "k_requested", "lost")
 
 
+@accepts_renamed("init", "metric")
 @dataclass(frozen=True)
 class FitRecord:
     """How a palette was fitted: the settings, what the fit saw, and why it has k colours.
@@ -174,9 +184,13 @@ class FitRecord:
         Why the palette has ``k`` colours, for people.
     k_requested : int or tuple of (int, int)
         The size, or the inclusive range, asked for.
-    space, restarts, seed, init, weighting, metric, refine, target, target_stat, warm
+    space, restarts, seed, seeding, weighting, nearest, refine, target, target_stat, warm
         The settings (see :class:`quantize.fit.settings.FitSettings`);
         ``seed`` is the integer actually used, also when a Generator was given.
+        ``seeding`` and ``nearest`` are named as the command line's options;
+        files written before the rename hold them as ``"init"`` and
+        ``"metric"``, which load as the new names (``FitRecord(init=...)``
+        and ``record.init`` still work, with a DeprecationWarning).
     locked : tuple of str
         The locked colours, ``#rrggbb`` (not in files written before it was
         recorded: there the palette's locked colours say it).
@@ -225,9 +239,9 @@ class FitRecord:
     space: str | None = None
     restarts: int | None = None
     seed: int | None = None
-    init: str | None = None
+    seeding: str | None = None
     weighting: str | None = None
-    metric: str | None = None
+    nearest: str | None = None
     refine: str | None = None
     target: float | None = None
     target_stat: str | None = None
@@ -295,6 +309,10 @@ class FitRecord:
             A candidate row that is not an object with ``k`` and ``delta_e``.
         """
         names = {f.name for f in fields(cls)} - {"extra"}
+        # A file written before the rename: its old keys load as the new fields (a file with both keeps
+        # the new key, and the old one as read in ``extra``).
+        doc = {(_OLD_FIT_KEYS[k] if k in _OLD_FIT_KEYS and _OLD_FIT_KEYS[k] not in doc else k): v
+               for k, v in doc.items()}
         known = {k: v for k, v in doc.items() if k in names}
         cands = known.get("candidates")
         if cands is not None and not isinstance(cands, list):

@@ -43,7 +43,8 @@ def test_documented_signatures():
         assert sig.parameters["options"].kind is inspect.Parameter.VAR_KEYWORD
         assert len(sig.parameters) <= 10
     fields = {f.name for f in dataclasses.fields(quantize.FitSettings)}
-    assert {"space", "restarts", "seed", "locked", "rule", "target", "init", "metric", "refine"} <= fields
+    assert {"space", "restarts", "seed", "locked", "rule", "target", "seeding", "nearest", "refine"} <= fields
+    assert not {"init", "metric"} & fields  # the old names are no fields, only deprecated keywords
     assert inspect.signature(quantize.Palette.apply).parameters["dither"].default == "none"
     assert callable(quantize.Palette.save) and callable(quantize.Palette.load)
 
@@ -72,13 +73,13 @@ def test_reduce_options_are_library_keywords():
     """Every fitting, mapping and dithering option of ``reduce`` is a keyword of fit_palette or Palette.apply."""
     from quantize.cli.reduce import reduce
 
-    fit_words = {f.name for f in dataclasses.fields(quantize.FitSettings)} - {"init", "metric"} | {"seeding", "nearest"}
+    fit_words = {f.name for f in dataclasses.fields(quantize.FitSettings)}
     fit_words |= set(inspect.signature(quantize.fit_palette).parameters)
     apply_words = set(inspect.signature(quantize.Palette.apply).parameters)
     cli_only = {"output", "force", "json", "report", "keep_palette", "view_dpi", "view_distance", "error_map",
                 "error_map_kind", "help"}
-    # The two spelled apart: -k/--colours is the positional k, --lock (one colour each time) is locked.
-    known = {"colours": "k", "lock": "locked", "serpentine": "serpentine"}
+    # -k/--colours is the positional k; every other option's first long name is its library keyword.
+    known = {"colours": "k", "serpentine": "serpentine"}
     for p in reduce.params:
         longs = [o for o in p.opts + p.secondary_opts if o.startswith("--")]
         if not longs:
@@ -100,11 +101,11 @@ def test_new_keywords_equal_the_old_ones_which_warn():
     new = quantize.fit_palette(img, 3, seeding="random", nearest="space", restarts=2)
     with pytest.warns(DeprecationWarning, match="'init' is now 'seeding'"):
         old = quantize.fit_palette(img, 3, init="random", metric="space", restarts=2)
-    assert new.hex == old.hex and new.fit.init == "random" and new.fit.metric == "space"
+    assert new.hex == old.hex and new.fit.seeding == "random" and new.fit.nearest == "space"
     with pytest.warns(DeprecationWarning, match="'metric' is now 'nearest'"):
         quantize.sweep(img, (2, 3), metric="space", restarts=1)
     s = quantize.sweep(img, (2, 3), seeding="farthest", nearest="auto", restarts=1)
-    assert s.settings.init == "farthest" and s.settings.metric == "ciede2000"
+    assert s.settings.seeding == "farthest" and s.settings.nearest == "ciede2000"
     a = new.apply(img, dither="floyd-steinberg", dither_strength=0.5, nearest="space")
     with pytest.warns(DeprecationWarning, match="'strength' is now 'dither_strength'"):
         b = new.apply(img, dither="floyd-steinberg", strength=0.5, metric="space")
@@ -140,3 +141,34 @@ def test_map_picture_speaks_the_command_line_vocabulary_and_warns_on_old_names()
     np.testing.assert_array_equal(new.indices, old.indices)
     with pytest.raises(TypeError, match="both"):
         map_picture(img, pal, metric="ciede2000", nearest="space")
+
+
+def test_settings_and_record_fields_are_the_command_line_names_and_the_old_ones_warn():
+    import warnings
+
+    from quantize.palette import FitRecord
+
+    filters = list(warnings.filters)
+    new = quantize.FitSettings(seeding="farthest", nearest="space", restarts=2)
+    with pytest.warns(DeprecationWarning, match="'init' is now 'seeding'"):
+        old = quantize.FitSettings(init="farthest", metric="space", restarts=2)
+    assert old == new and (old.seeding, old.nearest) == ("farthest", "space")
+    with pytest.warns(DeprecationWarning, match="'metric' is now 'nearest'"):
+        assert quantize.FitSettings.of(new, metric="ciede2000").nearest == "ciede2000"
+    with pytest.warns(DeprecationWarning, match="FitSettings.init is now FitSettings.seeding"):
+        assert new.init == "farthest"
+    with pytest.raises(TypeError, match="give 'seeding' only"):
+        quantize.FitSettings(seeding="random", init="random")
+    with pytest.raises(ValueError, match="unknown seeding 'best'"), pytest.warns(DeprecationWarning):
+        quantize.FitSettings(init="best")
+    # "auto", the command line's default, means the default metric here too.
+    assert quantize.FitSettings(nearest="auto").nearest == "ciede2000"
+    with pytest.warns(DeprecationWarning, match="'metric' is now 'nearest'"):
+        rec = FitRecord(init="random", metric="space")
+    assert (rec.seeding, rec.nearest) == ("random", "space")
+    assert rec.to_dict() == {"seeding": "random", "nearest": "space"}  # the file speaks the new names
+    with pytest.warns(DeprecationWarning, match="FitRecord.metric is now FitRecord.nearest"):
+        assert rec.metric == "space"
+    # The settings a record was made with come back under the same names.
+    assert quantize.FitSettings.from_record(rec).seeding == "random"
+    assert warnings.filters == filters

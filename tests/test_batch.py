@@ -629,14 +629,14 @@ def test_workers_rebuild_the_fit_and_the_dither(tmp_path):
     src = _set(tmp_path, n=3)
     from quantize.fit.settings import FitSettings
 
-    fit = FitSettings(rule="bic", locked=["#fff"], init="farthest", restarts=1)
+    fit = FitSettings(rule="bic", locked=["#fff"], seeding="farthest", restarts=1)
     kw = dict(k="2-6", fit=fit, dither="bayer4", dither_strength=0.7, nearest="space")
     here = run_batch(src, tmp_path / "here", workers=0, **kw)
     pool = run_batch(src, tmp_path / "pool", workers=1, **kw)
     assert here.summary["ok"] == pool.summary["ok"] == 3
     assert _outputs(tmp_path / "here") == _outputs(tmp_path / "pool")
     pal = json.loads((tmp_path / "pool" / "art0.palette.json").read_text())
-    assert pal["colours"][0]["hex"] == "#ffffff" and pal["fit"]["rule"] == "bic" and pal["fit"]["init"] == "farthest"
+    assert pal["colours"][0]["hex"] == "#ffffff" and pal["fit"]["rule"] == "bic" and pal["fit"]["seeding"] == "farthest"
     # A different dither is a different setting: a rerun redoes every image.
     again = run_batch(src, tmp_path / "here", workers=0, **dict(kw, dither="none"))
     assert again.summary["ok"] == 3 and again.summary["skipped"] == 0
@@ -650,7 +650,7 @@ def test_batch_settings_carry_one_fit_settings(tmp_path):
     s = BatchSettings(space="oklab", fit=FitSettings(rule="bic", restarts=3))
     assert s.fit.space == "oklab" and s.fit.rule == "bic" and (s.space, s.restarts, s.seed) == ("oklab", 3, 0)
     assert BatchSettings().fit == FitSettings()
-    assert BatchSettings(nearest="space").fit.metric == "space"
+    assert BatchSettings(nearest="space").fit.nearest == "space"
     assert dataclasses.replace(s, k=4).fit == s.fit
     for bad, message in ((dict(dither="wiggle"), "wiggle"), (dict(dither_strength=1.5), "1.5"),
                          (dict(nearest="closest"), "closest"), (dict(k=2, fit=FitSettings(locked=["red", "blue",

@@ -377,7 +377,20 @@ def test_sweep_takes_seeding_nearest_and_css_locks(art, tmp_path):
             "--lock", "#fff", "--table-json", table)
     assert r.exit_code == 0, r.output
     s = json.loads(table.read_text())["settings"]
-    assert (s["init"], s["metric"], s["locked"]) == ("farthest", "space", ["#ffffff"])
+    assert (s["seeding"], s["nearest"], s["locked"]) == ("farthest", "space", ["#ffffff"])
+
+
+def test_locked_is_the_option_name_and_lock_still_works(art, tmp_path):
+    """--locked is named as FitSettings.locked and the palette file's key; the older --lock is the same option."""
+    docs = []
+    for flag in ("--locked", "--lock"):
+        out = tmp_path / f"{flag[2:]}.png"
+        r = run("reduce", art, "-o", out, "-k", "3", "--restarts", "1", flag, "#fff", flag, "teal", "--keep-palette")
+        assert r.exit_code == 0, r.output
+        docs.append(json.loads(out.with_name(out.stem + ".palette.json").read_text()))
+    assert docs[0]["colours"] == docs[1]["colours"]
+    assert docs[0]["fit"]["locked"] == ["#ffffff", "#008080"]  # teal: CSS Color 4's #008080
+    assert [c["locked"] for c in docs[0]["colours"]] == [True, True, False]
 
 
 def test_batch_defaults_to_the_library_size_range(art, tmp_path):

@@ -209,7 +209,7 @@ BAD_SETTINGS = [
     (dict(locked=["not a colour"]), "colour 'not a colour' is neither sRGB hex"),
     (dict(seed=-3), "seed must be a whole number of at least 0 or a numpy Generator, got -3"),
     (dict(seed=1.5), "seed must be a whole number"),
-    (dict(init="best"), "unknown seeding 'best'"),
+    (dict(seeding="best"), "unknown seeding 'best'"),
     (dict(weighting="area"), "unknown weighting 'area'"),
     (dict(refine="more"), "unknown refinement 'more'"),
 ]

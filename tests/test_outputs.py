@@ -182,6 +182,36 @@ def test_256_colours_with_transparency(tmp_path):
         assert not (tmp_path / f"full.{ext}").exists()
 
 
+def test_reduce_refuses_256_colours_with_transparency_before_fitting(tmp_path, monkeypatch):
+    import quantize.fit.engine as engine
+
+    rng = np.random.default_rng(11)
+    rgb = rng.integers(0, 256, (40, 40, 3)).astype(np.uint8)  # 1600 pixels: well over 256 distinct colours
+    alpha = np.full((40, 40), 255, np.uint8)
+    alpha[:4] = 0  # a clear band: it needs a fully transparent entry in the colour index
+    src = tmp_path / "many.png"
+    Image.fromarray(np.dstack([rgb, alpha])).save(src)
+    fits = []
+    real = engine.fit_palette
+    monkeypatch.setattr(engine, "fit_palette", lambda *a, **kw: fits.append(1) or real(*a, **kw))
+    for ext in ("png", "gif", "webp"):
+        out = tmp_path / f"out.{ext}"
+        r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "256"])
+        assert r.exit_code == 2, r.output
+        line = [ln for ln in r.output.splitlines() if ln.startswith("Error:")]
+        assert len(line) == 1 and str(out) in line[0] and "transparency" in line[0] and "256 entries" in line[0]
+        assert not out.exists() and "Traceback" not in r.output
+    assert fits == []  # refused before any fitting work
+    # 255 colours leave the transparent entry its room: written, an indexed PNG whose clear band is clear.
+    out = tmp_path / "k255.png"
+    r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "255", "--restarts", "1"])
+    assert r.exit_code == 0, r.output
+    assert fits == [1]
+    with Image.open(out) as im:
+        assert im.mode == "P"
+    assert (_rgba(out)[:4, :, 3] == 0).all()
+
+
 def _lab_colour_science(rgb8):
     # colour-science's sRGB with its matrix derived from the IEC 61966-2-1 primaries and
     # white, as quantize uses (its default is the 4-decimal matrix: close, not equal).
@@ -211,6 +241,43 @@ def test_jpeg_warns_and_its_delta_e_is_that_of_the_decoded_file(tmp_path):
     assert saved.delta_e["max"] == pytest.approx(de.max(), abs=1e-6)
     assert saved.delta_e["mean"] != pytest.approx(res.delta_e["mean"], abs=1e-3)  # not the palette's
     assert saved.n_bytes == saved.file.path.stat().st_size
+
+
+def test_jpeg_coverage_and_filtered_delta_e_are_those_of_the_decoded_file(tmp_path):
+    # Coverage of a JPEG: the share of its decoded pixels nearest (CIEDE2000, colour-science as the
+    # reference, Sharma et al. 2005) to each palette colour.  The JPEG is decoded here with Pillow.
+    colour = pytest.importorskip("colour")
+    from quantize.quality.perception import filtered_delta_e
+
+    # Black, white and six greys 3 codes apart, as 1-px noise: the JPEG's ringing moves many grey
+    # pixels nearer another grey, so its coverage differs from the palette image's.
+    rng = np.random.default_rng(21)
+    levels = np.array([0, 255, 120, 123, 126, 129, 132, 135], np.uint8)
+    rgb = np.repeat(levels[rng.integers(0, 8, (48, 64))][..., None], 3, axis=2)
+    src = tmp_path / "noise.png"
+    Image.fromarray(rgb).save(src)
+    out = tmp_path / "noise.jpg"
+    r = _run("reduce", src, "-o", out, "-k", "8", "--restarts", "1", "--keep-palette", "--json",
+             "--view-dpi", "150", "--view-distance", "400")
+    assert r.exit_code == 0, r.output
+    summary = json.loads(r.stdout)
+    pal = Palette.load(tmp_path / "noise.palette.json")
+    with Image.open(out) as im:
+        decoded = np.asarray(im.convert("RGB"))
+    de = colour.delta_E(_lab_colour_science(decoded)[:, :, None, :], _lab_colour_science(pal.rgb8)[None, None],
+                        method="CIE 2000")
+    nearest = de.argmin(axis=2)
+    expected = 100.0 * np.bincount(nearest.ravel(), minlength=pal.k) / nearest.size
+    reported = np.array([row["coverage"] for row in summary["palette"]])
+    np.testing.assert_allclose(reported, expected, atol=1e-3)  # the summary rounds to 3 decimals
+    palette_image = pal.apply(rgb).coverage
+    assert np.abs(palette_image - expected).max() > 0.5  # the check can tell the file from the palette image
+    # The filtered ΔE00 (S-CIELAB, checked in test_perception) of the pixels decoded here.
+    want = filtered_delta_e(rgb, decoded, dpi=150, distance_mm=400)
+    assert summary["delta_e_filtered"] == pytest.approx(want, abs=1e-9)
+    assert summary["file"]["delta_e_filtered"] == summary["delta_e_filtered"]
+    assert want["mean"] != pytest.approx(filtered_delta_e(rgb, pal.apply(rgb).rgb, dpi=150, distance_mm=400)["mean"],
+                                         abs=1e-3)
 
 
 def test_lossless_outputs_report_the_mapping_figures(tmp_path):

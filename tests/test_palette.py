@@ -181,8 +181,15 @@ def test_a_file_written_by_the_previous_release_loads_and_writes_back_its_keys(t
     assert fit.k == 2 and fit.rule == "bic" and fit.k_requested == (2, 3) and fit.seed is None
     assert [c.k for c in fit.candidates] == [2, 3] and fit.candidates[1].score == 410.0
     assert fit.images == ("poster.png",) and fit.notes == () and fit.extra == {}
-    # Written back, the fit object has the same keys and values as the file.
-    assert pal.to_dict()["fit"] == doc["fit"]
+    # The settings once written as "init" and "metric" load under the command line's names ...
+    assert (fit.seeding, fit.nearest) == ("k-means++", "ciede2000") and "init" not in fit.extra
+    from quantize.fit.settings import FitSettings
+
+    again = FitSettings.from_record(fit)  # the palette can be refitted as it was
+    assert (again.seeding, again.nearest, again.rule) == ("k-means++", "ciede2000", "bic")
+    # ... and written back, the fit object has the file's keys and values, those two renamed.
+    renamed = {{"init": "seeding", "metric": "nearest"}.get(k, k): v for k, v in doc["fit"].items()}
+    assert pal.to_dict()["fit"] == renamed
 
 
 def test_unfitted_palettes_have_no_record_and_write_an_empty_fit(tmp_path):

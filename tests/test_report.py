@@ -260,7 +260,10 @@ def test_report_of_a_fit_over_a_range_lists_the_candidates(art, tmp_path):
     page = write_report(tmp_path / "r", original_picture=art, mapped=pal.apply(art))
     text = page.read_text(encoding="utf-8")
     assert "Palette sizes considered" in text and text.count('<tr class="chosen">') == 1
-    assert text.count('<td class="l">locked</td>') == 1
+    # Every size the fit tried has its palette table (the size slider's), each with the locked white once.
+    sizes = [c.k for c in pal.fit.candidates]
+    assert len(sizes) > 1 and text.count('<div class="palette-at"') == len(sizes)
+    assert text.count('<td class="l">locked</td>') == len(sizes)
     assert pal.fit.reason.split(";")[0] in text
     # The settings that produced it, read off the palette's own fit record.
     settings = re.search(r"Settings that produced it</h2>(.*?)</table>", text, re.S).group(1)

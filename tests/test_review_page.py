@@ -204,3 +204,89 @@ def test_one_to_one_view_and_keyboard_divider(case, tmp_path):
     assert out["backWidth"] == pytest.approx(out["fitWidth"], abs=0.5)
     # The divider also moves from the keyboard: two steps of 2 % to the right.
     assert out["keyed"] == pytest.approx(out["divider"] + 4, abs=0.05)
+
+
+# -- reduce --report: every size of the range, from the one fit -----------------------------------
+
+def _reduce_report(folder, rgb, *options):
+    """Run ``reduce -k 3-6 --report`` on ``rgb``; (written file, page, every size the engine fitted)."""
+    from click.testing import CliRunner
+
+    import quantize.fit.engine as engine
+    from quantize.cli.main import main
+
+    src, out = folder / "art.png", folder / "art-reduced.png"
+    Image.fromarray(rgb).save(src)
+    fitted = []
+    real = engine.fit_sizes
+    mp = pytest.MonkeyPatch()
+    mp.setattr(engine, "fit_sizes", lambda sample, ks, *a, **kw: fitted.extend(ks) or real(sample, ks, *a, **kw))
+    try:
+        r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "3-6", "--restarts", "2",
+                                      "--report", str(folder / "rep"), *options])
+    finally:
+        mp.undo()
+    assert r.exit_code == 0, r.output
+    return out, folder / "rep" / "index.html", fitted
+
+
+@pytest.fixture(scope="module")
+def reduce_case(tmp_path_factory):
+    rgb, _ = flat_artwork(5, seed=105, size=160, jpeg_quality=85)
+    out, page, fitted = _reduce_report(tmp_path_factory.mktemp("reduce-review"), rgb, "--rule", "bic")
+    # The reference: the sweep over the same sizes with the same settings, whose row of size k is the
+    # palette fit_palette gives for k (quantize.fit.sweep's documented equivalence).
+    s = sweep(rgb, (3, 6), rule="bic", restarts=2)
+    return rgb, s, out, page, fitted
+
+
+def _review_data(page):
+    text = page.read_text(encoding="utf-8")
+    return json.loads(re.search(r'<script type="application/json" class="review-data">(.*?)</script>', text,
+                                re.S).group(1).replace("<\\/", "</")), text
+
+
+def test_reduce_report_offers_every_size_of_the_range_from_its_one_fit(reduce_case):
+    rgb, s, out, page, fitted = reduce_case
+    assert sorted(fitted) == [3, 4, 5, 6]  # each size fitted once: the page fitted nothing more
+    data, text = _review_data(page)
+    assert [v["k"] for v in data["sizes"]] == [3, 4, 5, 6]
+    assert re.search(r'<input type="range" class="size" min="0" max="3"', text)
+    with Image.open(out) as im:
+        written = np.asarray(im.convert("RGB")).astype(int)
+    chosen = next(i for i, v in enumerate(data["sizes"]) if v["src"] is None)
+    assert data["sizes"][chosen]["k"] == len(np.unique(written.reshape(-1, 3), axis=0))
+    after = re.search(r'<img class="after" src="([^"]+)"', text).group(1)
+    np.testing.assert_array_equal(_decode(after), written)  # the chosen size is the file written
+    for i, row in enumerate(s.rows):
+        if i != chosen:  # each other size: that size's palette mapping, pixel for pixel
+            np.testing.assert_array_equal(_decode(data["sizes"][i]["src"]), row.palette.apply(rgb).rgb)
+
+
+def test_reduce_report_slider_shows_the_smallest_size_in_a_browser(reduce_case, tmp_path):
+    rgb, s, out, page, _ = reduce_case
+    data, _ = _review_data(page)
+    assert data["sizes"][SIZE_I]["src"] is not None  # the chosen size is not the smallest
+    out_, console, _ = _drive(page, tmp_path, "", "drive-reduce.html")
+    assert console == []
+    assert out_["k"] == "3" and out_["srcIsSize"] and out_["tables"] == ["3"]
+
+
+def test_reduce_report_under_the_automatic_rule_also_offers_the_sizes_it_did_not_try(tmp_path):
+    # Five inks: the automatic rule tries sizes up to the inks it finds and stops there; the page fits
+    # the rest of the range for its slider, each size once.
+    rgb, _ = flat_artwork(5, seed=105, size=160, jpeg_quality=85)
+    out, page, fitted = _reduce_report(tmp_path, rgb)
+    assert sorted(fitted) == [3, 4, 5, 6]
+    data, text = _review_data(page)
+    assert [v["k"] for v in data["sizes"]] == [3, 4, 5, 6]
+    from quantize.palette import palette_from_colours
+
+    for v in data["sizes"]:
+        if v["src"] is None:
+            continue
+        table = re.search(rf'<div class="palette-at" data-k="{v["k"]}"[^>]*>(.*?)</table>', text, re.S).group(1)
+        shown = palette_from_colours(sorted(set(re.findall(r'<td class="l">(#[0-9a-f]{6})</td>', table))))
+        assert shown.k == v["k"]
+        # The preview is that size's palette mapping (nearest colour) of the image, pixel for pixel.
+        np.testing.assert_array_equal(_decode(v["src"]), shown.apply(rgb).rgb)

@@ -179,8 +179,8 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
             de = saved.delta_e  # None: a JPEG with no fully opaque pixel to measure
             row.update(status="ok", k=pal.k, delta_e=None if de is None else {s: float(v) for s, v in de.items()},
                        bytes=saved.n_bytes,
-                       entries_used=[int(i) for i in np.flatnonzero(res.coverage > 0)],
-                       coverage=[round(float(c), 4) for c in res.coverage])
+                       entries_used=[int(i) for i in np.flatnonzero(saved.coverage > 0)],
+                       coverage=[round(float(c), 4) for c in saved.coverage])  # of the decoded file for a JPEG
         except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero
             row["error"] = _one_line(exc)
     row["notes"] = _notes(caught)

@@ -181,7 +181,7 @@ def _manifest_settings(s: BatchSettings) -> dict:
     f = s.fit
     # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
     settings.update(rule=f.rule, kind=f.kind, target=f.target, target_stat=f.target_stat, locked=list(f.locked),
-                    seeding=f.init, fit_nearest=f.metric, refine=f.refine, warm=f.warm)
+                    seeding=f.seeding, fit_nearest=f.nearest, refine=f.refine, warm=f.warm)
     settings.update(dither=s.dither, dither_strength=s.dither_strength, serpentine=s.serpentine,
                     nearest=s.nearest)
     if s.mode == "shared":

@@ -149,7 +149,7 @@ class BatchSettings:
             raise ValueError(f"unknown nearest-colour metric {nearest!r}; choose one of: {', '.join(NEAREST)}")
         given = {n: getattr(self, n) for n in ("space", "seed", "restarts") if getattr(self, n) is not None}
         if self.fit is None and nearest != "auto":
-            given["metric"] = nearest
+            given["nearest"] = nearest
         # The fit's own settings check space, restarts, seed and the rest: one validator, one set of messages.
         fit = FitSettings.of(self.fit, **given)
         for name in ("fit", "space", "seed", "restarts"):  # frozen: normalised once, here

@@ -132,9 +132,11 @@ def _fit_option_list() -> dict:
                                help="ΔE00 target for --rule target (implies it), or for photos under --rule auto."),
         "target_stat": click.option("--target-stat", type=click.Choice(("mean", "p95")), default="mean",
                                     show_default=True, help="Which ΔE00 statistic the target applies to."),
-        "locked": click.option("--lock", "locked", multiple=True, metavar="COLOUR",
+        # --locked is the library's keyword (FitSettings.locked) and the palette file's key; --lock, the
+        # older spelling, stays so that existing scripts keep working.
+        "locked": click.option("--locked", "--lock", "locked", multiple=True, metavar="COLOUR",
                                help="Hold a colour fixed (substrate, brand colour): #rgb, #rrggbb, L,a,b or a CSS "
-                                    "colour name. Repeatable."),
+                                    "colour name. Repeatable; --lock is the same option."),
         "seed": click.option("--seed", type=int, default=0, show_default=True, callback=_seed_option,
                              help="Random seed; same seed, same palette."),
         "restarts": click.option("--restarts", type=int, default=8, show_default=True, callback=_restarts_option,
@@ -180,8 +182,8 @@ def _fit_settings(o: dict, **more):
         raise click.UsageError(f"--target chooses the palette size, but -k {o['colours']} fixes it; "
                                "give a range (-k MIN-MAX) or no -k")
     more.setdefault("kind", {"photo": "continuous tone"}.get(o.get("kind", "auto"), o.get("kind", "auto")))
-    more.setdefault("init", o.get("seeding", "k-means++"))
-    more.setdefault("metric", _metric(o.get("nearest", "auto")))
+    more.setdefault("seeding", o.get("seeding", "k-means++"))
+    more.setdefault("nearest", _metric(o.get("nearest", "auto")))
     try:
         return FitSettings(space=o["space"], rule=rule, target=o["target"], target_stat=o["target_stat"],
                            locked=list(o["locked"]), seed=o["seed"], restarts=o["restarts"], **more)
@@ -357,14 +359,54 @@ def _report_targets(report_dir):
     return []
 
 
+#: Entries of a colour index (PNG PLTE, GIF, WebP's colour-indexing transform).
+_INDEX_ENTRIES = 256
+#: Outputs written through a colour index (a WebP above 256 colours is written without one).
+_INDEXED = (".png", ".gif", ".webp")
+
+
 def _check_indexed_size(out: Path, k: str | None):
-    """Refuse a palette size above 256 where the output is an indexed PNG."""
+    """Refuse a palette size above 256 where the output is an indexed PNG or a GIF."""
     if k is None:  # the default: at most 256 colours
         return
     top = int(k.split("-")[-1])
-    if out.suffix.lower() == ".png" and top > 256:
-        raise click.BadParameter(f"{top} colours do not fit an indexed PNG (at most 256)",
+    fmt = {".png": "an indexed PNG", ".gif": "a GIF"}.get(out.suffix.lower())
+    if fmt and top > _INDEX_ENTRIES:
+        raise click.BadParameter(f"{top} colours do not fit {fmt} (at most {_INDEX_ENTRIES})",
                                  param_hint="'-k' / '--colours'")
+
+
+def _check_room_for_transparency(out: Path, k: str | None, picture) -> None:
+    """Refuse, before the fit, a fixed 256-colour palette for a picture that needs a clear index entry.
+
+    An indexed output keeps transparency in its colour index: a pixel below
+    alpha :data:`quantize.io.write.ALPHA_THRESHOLD` needs a fully transparent
+    entry, and with 256 colours (a picture with at least 256 distinct
+    colours, so the palette does not come out smaller) there is none left.
+    Found here, from the picture alone, the mistake costs no fit.
+
+    Raises
+    ------
+    click.UsageError
+        Naming the output and the problem (exit code 2).
+    """
+    if k is None or out.suffix.lower() not in _INDEXED or picture.alpha is None:
+        return
+    lo, _, hi = k.partition("-")
+    if int(lo) != _INDEX_ENTRIES or int(hi or lo) != _INDEX_ENTRIES:
+        return  # a smaller fixed size leaves room; a range may choose fewer, and the write says so if not
+    import numpy as np
+
+    from quantize.core.sampling import sample_picture
+    from quantize.io.write import ALPHA_THRESHOLD
+
+    # Alpha as the writer rounds it to 8 bits: below the threshold the pixel is written clear.
+    clear = np.rint(picture.alpha * (255.0 / picture.max_code)) < ALPHA_THRESHOLD
+    if clear.any() and sample_picture(picture).n_colours >= _INDEX_ENTRIES:
+        raise click.UsageError(
+            f"{out}: {_INDEX_ENTRIES} colours and transparency do not fit the {_INDEX_ENTRIES} entries of a "
+            f"{out.suffix.lower()[1:].upper()} colour index (transparent pixels need one); use -k 255 or fewer, "
+            "or a .tif output")
 
 
 def _judgement_summary(record) -> dict:
@@ -395,3 +437,20 @@ def _print_judgement(record, target) -> None:
         click.echo(f"lost: a flat area of {x['share']:.2f} % near ({x['where'][0]:.0f} %, {x['where'][1]:.0f} %) "
                    f"of L*a*b* {x['lab'][0]:.1f}, {x['lab'][1]:.1f}, {x['lab'][2]:.1f} became {x['nearest_hex']} "
                    f"(ΔE00 {x['delta_e']:.1f})")
+
+
+def _of_the_file(saved, dextra: dict, dlines: list) -> tuple[dict, list]:
+    """A dither summary (``run_dither_outputs``) whose filtered ΔE00 is that of the file ``saved`` describes.
+
+    For a JPEG that is the file as written and decoded again; a lossless
+    file holds the mapping's own pixels, and its summary is returned as it is.
+    """
+    if not saved.file.lossy or dextra.get("delta_e_filtered") is None:
+        return dextra, dlines
+    f = saved.filtered
+    dextra = dict(dextra, delta_e_filtered=None if f is None else f.stats)
+    line = ("ΔE00 filtered: not measured (no fully opaque pixel)" if f is None else
+            f"ΔE00 filtered (S-CIELAB, {f.viewing['dpi']:g} dpi at {f.viewing['distance_mm']:g} mm, "
+            f"{f.ppd:.1f} px/degree), of the JPEG as written: mean {f.stats['mean']:.2f}  "
+            f"median {f.stats['median']:.2f}  p95 {f.stats['p95']:.2f}  max {f.stats['max']:.2f}")
+    return dextra, [line if ln.startswith("ΔE00 filtered") else ln for ln in dlines]

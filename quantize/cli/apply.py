@@ -14,6 +14,7 @@ from ._common import (
     _Failure,
     _max_pixels_option,
     _nearest_option,
+    _of_the_file,
     _palette_rows,
     _print_de,
     _print_palette,
@@ -82,7 +83,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                                             f"{done}") from exc
                     raise
                 results.append(res)
-                extras.append((dextra, dlines, saved))
+                extras.append((*_of_the_file(saved, dextra, dlines), saved))
                 if report_dir:
                     # The page needs the pixels, not the colour sample the picture keeps: a copy
                     # (same read-only arrays, empty cache) lets the sample go with this image.
@@ -97,7 +98,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
 
     pal, results, extras = _run(ctx, work)
     per_image = [{"input": str(im), "output": str(out), "delta_e": sv.delta_e, "file": sv.to_dict(),
-                  "coverage": [round(float(c), 3) for c in r.coverage], **ex}
+                  "coverage": [round(float(c), 3) for c in sv.coverage], **ex}
                  for im, out, r, (ex, _, sv) in zip(images, outs, results, extras)]
     summary = {"command": "apply", "palette_file": str(palette), "k": pal.k, "rule": "saved palette",
                "palette": _palette_rows(pal), "images": per_image, "outputs": [str(o) for o in outs],

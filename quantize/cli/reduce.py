@@ -9,8 +9,10 @@ import click
 
 from ._common import (
     _check_indexed_size,
+    _check_room_for_transparency,
     _check_outputs,
     _emit,
+    _of_the_file,
     _Failure,
     _fit_options,
     _fit_settings,
@@ -61,6 +63,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
 
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
+        _check_room_for_transparency(out, k, pic)  # before the fit, not after it
         pal = _fit_with_progress(pic, k, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
@@ -74,12 +77,13 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from quantize.report.page import write_report
 
             write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
-                         error_map_path=dextra["error_map"],
+                         error_map_path=dextra["error_map"], more_sizes=_untried_sizes(pic, k, pal, settings),
                          title=f"quantize reduce: {Path(image).name}", force=force)
         return pal, res, saved, dextra, dlines
 
     pal, res, saved, dextra, dlines = _run(ctx, work)
-    rows = _palette_rows(pal, res.coverage)
+    dextra, dlines = _of_the_file(saved, dextra, dlines)
+    rows = _palette_rows(pal, saved.coverage)
     summary = {
         "command": "reduce", "input": str(image), "k": pal.k, "rule": pal.fit.rule,
         "reason": pal.fit.reason, "space": pal.space, "delta_e": saved.delta_e, "file": saved.to_dict(),
@@ -117,3 +121,28 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
 
     _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)
+
+
+def _untried_sizes(pic, k: str | None, pal, settings) -> list:
+    """The sizes of the range ``-k`` the fit's rule did not try, fitted for the review page's slider.
+
+    Every size tried keeps its palette from the fit (the page shows those as
+    they are); a rule that searched the range (the automatic rule on a photo
+    or on artwork with fewer inks than the range's top) left the others out.
+    Each is fitted on its own random stream, so it is the palette a fixed
+    ``-k`` of that size gives.
+    """
+    if k is None or "-" not in k:
+        return []
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.engine import parse_k
+    from quantize.fit.settings import FitSettings
+    from quantize.fit.sweep import sweep_sample
+
+    sample = sample_picture(pic)
+    tried = {c.k for c in pal.fit.candidates or () if c.palette is not None}
+    untried = [j for j in parse_k(k) if j not in tried and j <= sample.n_colours]
+    if not untried:
+        return []
+    # The rule does not matter here (no size is chosen): "bic" needs nothing the page lacks.
+    return list(sweep_sample(sample, untried, FitSettings.of(settings, rule="bic")).rows)

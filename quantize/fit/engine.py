@@ -465,7 +465,7 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
                 fresh = coarse = kmeans(bin_pts, k, weights=bin_w, restarts=settings.restarts,
-                                        seed=size_rng(settings.seed, k), fixed=fixed, init=settings.init,
+                                        seed=size_rng(settings.seed, k), fixed=fixed, init=settings.seeding,
                                         polish=False)
                 start = "fresh"
                 if settings.warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1:
@@ -482,7 +482,7 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             others = [c for c, _ in fresh.runs if c is not coarse.centres]
             # One size alone refines on two threads; several keep two busy with sizes.
             jobs.append((k, fine, start, submit(finish_palette, sample, fine.centres, fixed_rgb8, space=space,
-                                                metric=settings.metric, refine=settings.refine, others=others,
+                                                metric=settings.nearest, refine=settings.refine, others=others,
                                                 threads=len(ks) == 1 and settings.threads)))
             if progress:
                 progress(k)
@@ -497,16 +497,13 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
 def settings_of(settings: FitSettings | None, options: dict, where: str) -> FitSettings:
     """The :class:`FitSettings` of a public function's keyword options.
 
-    The keywords are named as the command line's options: ``seeding``
-    (``--seeding``, the field ``init``) and ``nearest`` (``--nearest``, the
-    field ``metric``; ``"auto"`` is the default).  The old names ``init`` and
+    The keywords are named as the command line's options, as the fields
+    are: ``seeding`` (``--seeding``) and ``nearest`` (``--nearest``;
+    ``"auto"`` is the default).  The old names ``init`` and
     ``metric`` still work, with a DeprecationWarning pointed at the caller
     of ``where``.
     """
     opts = renamed_keywords(options, where, ("init", "metric"), stacklevel=4)
-    for new, field_name in (("seeding", "init"), ("nearest", "metric")):
-        if new in opts:
-            opts[field_name] = opts.pop(new)
     return FitSettings.of(settings, **opts)
 
 
@@ -557,11 +554,10 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
         ΔE00 target of the ``"target"`` rule.
     target_stat : {"mean", "p95"}, default="mean"
     seeding : {"k-means++", "random", "farthest"}, default="k-means++"
-        How each restart picks its first centres (the field ``init``).
+        How each restart picks its first centres.
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count: equally, or by pixel count.
     nearest : {"ciede2000", "space", "auto"}, optional
-        (The field ``metric``.)
         Nearest-colour metric the palette is refined for and each candidate
         measured with (default CIEDE2000, as :meth:`Palette.apply` maps).
     refine : {"robust", "none"}, default="robust"
@@ -674,7 +670,7 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
         if moved:
             return pal  # the sample's mapping below is the unmoved palette's
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
-    sample.keep_mapping(pal, settings.metric, chosen.labels, chosen.per_colour_de)
+    sample.keep_mapping(pal, settings.nearest, chosen.labels, chosen.per_colour_de)
     return pal
 
 
@@ -704,7 +700,7 @@ def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
     """``cand`` (fitted on another sample) measured on every distinct colour of ``sample``."""
     from .assign import map_sample
 
-    labels, de = map_sample(sample, cand.palette, metric=settings.metric)
+    labels, de = map_sample(sample, cand.palette, metric=settings.nearest)
     w = sample.weights
     pts, centres = sample.points(settings.space), cand.palette.points(settings.space)
     inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())
@@ -867,12 +863,12 @@ def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSetti
     """The record of ``chosen`` among ``cands``: the settings, what the fit saw, and ``fields``."""
     return FitRecord(
         k=chosen.palette.k, k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
-        space=settings.space, restarts=settings.restarts, seed=settings.seed, init=settings.init,
-        weighting=settings.weighting, metric=settings.metric, refine=settings.refine, target=settings.target,
+        space=settings.space, restarts=settings.restarts, seed=settings.seed, seeding=settings.seeding,
+        weighting=settings.weighting, nearest=settings.nearest, refine=settings.refine, target=settings.target,
         target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
         for_dither=settings.for_dither,
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,
         candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
-                                      score=float(sc)) for c, sc in zip(cands, scores)),
+                                      score=float(sc), palette=c.palette) for c, sc in zip(cands, scores)),
         notes=tuple(notes), **fields)

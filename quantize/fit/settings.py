@@ -25,6 +25,8 @@ if TYPE_CHECKING:
 
     from quantize.palette import FitRecord
 
+from quantize.core.vocabulary import accepts_renamed, renamed_keywords
+
 __all__ = ["FitSettings", "DEFAULT_K", "REFINES", "WEIGHTINGS", "TARGET_STATS", "SEED_BOUND"]
 
 #: The palette sizes the library and every command choose from when none is given.
@@ -40,6 +42,7 @@ TARGET_STATS = ("mean", "p95")
 SEED_BOUND = 2**53
 
 
+@accepts_renamed("init", "metric")
 @dataclass(frozen=True)
 class FitSettings:
     """How palettes are fitted, for every size of a range.
@@ -54,8 +57,10 @@ class FitSettings:
         A non-negative integer; a Generator gives one integer, drawn once
         when the settings are made; None means 0.  After construction
         ``seed`` is always that integer.
-    init : {"k-means++", "random", "farthest"}, default="k-means++"
-        How each restart picks its first centres.
+    seeding : {"k-means++", "random", "farthest"}, default="k-means++"
+        How each restart picks its first centres (the command line's
+        ``--seeding``; ``init=`` is its old name, still accepted with a
+        DeprecationWarning).
     locked : sequence of colour specs, default=()
         Colours held fixed (hex ``"#f4efe1"`` or Lab ``"95,1,6"``); kept as
         ``#rrggbb`` strings of the 8-bit colours actually written.
@@ -71,9 +76,11 @@ class FitSettings:
         ΔE00 target of the ``"target"`` rule (required by it), > 0.
     target_stat : {"mean", "p95"}, default="mean"
         The ΔE00 statistic the target applies to.
-    metric : {"ciede2000", "space"} or None, default="ciede2000"
+    nearest : {"ciede2000", "space", "auto"} or None, default="ciede2000"
         Nearest-colour metric the palettes are refined for and measured
-        with; None means CIEDE2000.
+        with (the command line's ``--nearest``); None or ``"auto"`` means
+        CIEDE2000.  ``metric=`` is its old name, still accepted with a
+        DeprecationWarning.
     weighting : {"equal", "pixels"}, default="equal"
         How pooled images count: equally, or by pixel count.
     kind : {"auto", "artwork", "continuous tone"}, default="auto"
@@ -114,13 +121,13 @@ class FitSettings:
     space: str = "lab"
     restarts: int = 8
     seed: int | np.random.Generator | None = 0
-    init: str = "k-means++"
+    seeding: str = "k-means++"
     locked: Sequence[str] = ()
     refine: str = "robust"
     rule: str = "auto"
     target: float | None = None
     target_stat: str = "mean"
-    metric: str | None = "ciede2000"
+    nearest: str | None = "ciede2000"
     weighting: str = "equal"
     warm: bool = False
     kind: str = "auto"
@@ -135,9 +142,9 @@ class FitSettings:
         from .selection import check_rule
 
         check_space(self.space)
-        check_init(self.init)
+        check_init(self.seeding)
         check_rule(self.rule)
-        object.__setattr__(self, "metric", resolve_metric(self.metric))
+        object.__setattr__(self, "nearest", resolve_metric(None if self.nearest == "auto" else self.nearest))
         object.__setattr__(self, "restarts", _whole(self.restarts, "restarts", 1))
         object.__setattr__(self, "seed", _seed_int(self.seed))
         object.__setattr__(self, "locked", _locked_hex(self.locked))
@@ -170,6 +177,7 @@ class FitSettings:
         ValueError
             A bad value (see :class:`FitSettings`).
         """
+        options = renamed_keywords(options, "FitSettings.of", ("init", "metric"))
         names = [f.name for f in dataclasses.fields(cls)]
         unknown = sorted(set(options) - set(names))
         if unknown:

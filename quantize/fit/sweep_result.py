@@ -107,7 +107,7 @@ class Sweep:
     def settings_dict(self) -> dict:
         """The settings as written in the JSON table's ``settings`` object."""
         s = self.settings
-        return {"space": s.space, "restarts": s.restarts, "init": s.init, "metric": s.metric, "refine": s.refine,
+        return {"space": s.space, "restarts": s.restarts, "seeding": s.seeding, "nearest": s.nearest, "refine": s.refine,
                 "warm": s.warm, "seed": s.seed, "locked": list(s.locked), "target": s.target,
                 "target_stat": s.target_stat, "k_range": [self.ks[0], self.ks[-1]], "n_pixels": self.n_pixels,
                 "n_distinct": self.n_distinct, "images": list(self.images), "weighting": s.weighting}

@@ -222,8 +222,8 @@ def _jpeg(idx, palette, a8, dpi, name) -> Encoded:
     flat = decoded.reshape(-1, 3).astype(np.uint32)
     n = np.unique((flat[:, 0] << 16) | (flat[:, 1] << 8) | flat[:, 2]).size
     notes.append(f"{name}: JPEG re-encodes the colours, so the file is no longer the palette's {len(palette)} "
-                 f"colours ({n} distinct colours in it); its ΔE00 is measured on the decoded JPEG, coverage "
-                 "is that of the palette image")
+                 f"colours ({n} distinct colours in it); its ΔE00 and coverage (each pixel counted for its "
+                 "nearest palette colour) are measured on the decoded JPEG")
     return Encoded(data, None, None, 255 if a8 is not None else 0, decoded, notes=tuple(notes))
 
 

@@ -21,7 +21,7 @@ if TYPE_CHECKING:
     from quantize.core.picture import Picture
     from quantize.io.write import PathLike, WrittenImage
 
-__all__ = ["DitherInfo", "MappedImage", "SavedImage", "file_delta_e", "nearest_image"]
+__all__ = ["DitherInfo", "MappedImage", "SavedImage", "file_coverage", "file_delta_e", "nearest_image"]
 
 #: Distinct (input colour, file colour) pairs per CIEDE2000 block: bounds the temporaries.
 _DE_BLOCK = 1 << 20
@@ -153,6 +153,9 @@ class MappedImage:
         Returns
         -------
         SavedImage
+            Its figures describe the file: for a JPEG, ΔE00, coverage and
+            (when this image carries a filtered ΔE00) the filtered ΔE00 are
+            measured on the decoded JPEG.
 
         Warns
         -----
@@ -167,6 +170,7 @@ class MappedImage:
                              f"{self.indices.shape}: not the picture it was mapped from")
         written = write_image(path, self.indices, self.palette.rgb8, alpha=self.alpha,
                               dpi=self.dpi, force=force, inputs=self._never_overwritten(inputs))
+        coverage, filtered = self.coverage, self.filtered
         if written.decoded is None and written.cleared is None:
             de = self.delta_e  # the file holds exactly these pixels
         elif picture is None:
@@ -180,9 +184,17 @@ class MappedImage:
                 # input colour is to be compared with: only opaque pixels are measured.
                 left_out = picture.alpha < picture.max_code
             de = file_delta_e(picture, rgb, left_out=left_out)
+        if written.decoded is not None:  # a JPEG: its pixels are no longer the palette's
+            if picture is not None and picture.alpha is not None:
+                shown = picture.alpha >= picture.max_code
+            else:
+                shown = None if self.alpha is None else self.alpha >= 2 ** self.bit_depth - 1
+            coverage = file_coverage(written.decoded, self.palette, shown=shown)
+            if filtered is not None:
+                filtered = _file_filtered(picture, written.decoded, filtered, shown) if picture is not None else None
         for note in written.notes:
             warnings.warn(note, ImageWarning, stacklevel=2)
-        return SavedImage(file=written, delta_e=de, k=len(self.palette))
+        return SavedImage(file=written, delta_e=de, k=len(self.palette), coverage=coverage, filtered=filtered)
 
 
 @dataclass(frozen=True, eq=False)
@@ -203,11 +215,23 @@ class SavedImage:
         picture given).
     k : int
         Colours of the palette.
+    coverage : ndarray of shape (k,) or None
+        Percent of pixels per palette colour: the mapping's for a lossless
+        file; for a JPEG, the share of its decoded pixels nearest (by
+        CIEDE2000) to each palette colour, over the pixels that are fully
+        opaque in the input (see :func:`file_coverage`).
+    filtered : FilteredDeltaE or None
+        The S-CIELAB filtered ΔE00, when the mapped image carried one: the
+        mapping's for a lossless file, measured on the decoded JPEG for a
+        JPEG (at the same viewing condition, over the same pixels as
+        ``delta_e``; None without a picture to compare with).
     """
 
     file: WrittenImage
     delta_e: dict | None
     k: int
+    coverage: np.ndarray | None = None
+    filtered: FilteredDeltaE | None = None
 
     @property
     def n_bytes(self) -> int:
@@ -221,6 +245,8 @@ class SavedImage:
                 "kB": round(f.n_bytes / 1000, 1), "colours": self.k, "palette_entries": f.palette_entries,
                 "alpha_step": f.alpha_step, "alpha_max_change": f.alpha_max_change,
                 "delta_e": self.delta_e,
+                "delta_e_filtered": None if self.filtered is None else self.filtered.stats,
+                # Every figure of the file (ΔE00, filtered ΔE00, coverage) is measured on the same pixels.
                 "delta_e_measured_on": "decoded file" if f.lossy else "palette image",
                 "warnings": list(f.notes)}
 
@@ -290,6 +316,53 @@ def file_delta_e(picture, rgb8: np.ndarray, *, left_out: np.ndarray | None = Non
         codes = np.stack([(p >> 16) & 255, (p >> 8) & 255, p & 255], axis=1).astype(np.uint8)
         de[at:at + _DE_BLOCK] = delta_e_ciede2000(lab_in[p >> 24], srgb8_to_space(codes, "lab"))
     return delta_e_stats(de, counts.astype(np.float64))
+
+
+def file_coverage(rgb8: np.ndarray, palette, *, shown: np.ndarray | None = None) -> np.ndarray:
+    """Percent of a file's pixels nearest to each palette colour, by CIEDE2000.
+
+    What coverage means for a file that no longer holds the palette's
+    colours (a JPEG): each decoded pixel counts for the palette colour it is
+    nearest to, as nearest-colour mapping would assign it.
+
+    Parameters
+    ----------
+    rgb8 : ndarray of shape (H, W, 3), uint8
+        The file's pixels as decoded.
+    palette : Palette
+    shown : ndarray of shape (H, W), bool, optional
+        The pixels to count (default: all).
+
+    Returns
+    -------
+    ndarray of shape (k,)
+        Percent per colour; all zero when no pixel is counted.
+    """
+    from quantize.core.sampling import sample_picture
+    from quantize.io.read import as_picture
+
+    k = len(palette)
+    if shown is not None and not shown.any():
+        return np.zeros(k)
+    alpha = None if shown is None else np.where(shown, 255, 0).astype(np.uint8)[..., None]
+    pic = as_picture(rgb8 if alpha is None else np.concatenate([rgb8, alpha], axis=2))
+    smp = sample_picture(pic)
+    labels, _ = map_sample(smp, palette, metric="ciede2000")
+    return coverage_percent(labels, smp.weights, k)
+
+
+def _file_filtered(picture, rgb8, like: FilteredDeltaE, shown) -> FilteredDeltaE | None:
+    """The filtered ΔE00 of decoded pixels ``rgb8`` at the viewing condition of ``like``, over ``shown``."""
+    from quantize.quality.perception import delta_e_map, pixel_delta_e_stats
+
+    view = ({"ppd": like.ppd} if like.dpi is None or like.distance_mm is None
+            else {"dpi": like.dpi, "distance_mm": like.distance_mm})
+    de = delta_e_map(picture, rgb8, kind="filtered", **view)
+    keep = ~np.isnan(de) if shown is None else ~np.isnan(de) & shown
+    if not keep.any():
+        return None
+    return FilteredDeltaE(stats=pixel_delta_e_stats(de[keep]), dpi=like.dpi, distance_mm=like.distance_mm,
+                          ppd=like.ppd)
 
 
 def nearest_image(pic, palette, *, metric: str, sample=None) -> MappedImage:

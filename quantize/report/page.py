@@ -264,7 +264,7 @@ def _sizes_table(cands, chosen, picks=None) -> str:
 
 
 _SETTING_NAMES = {"locked": "locked colours asked for", "k_requested": "palette size asked for",
-                  "init": "seeding", "metric": "nearest colour by", "refine": "refinement",
+                  "nearest": "nearest colour by", "refine": "refinement",
                   "weighting": "images weighted", "target": "ΔE00 target", "target_stat": "target statistic"}
 
 
@@ -282,13 +282,13 @@ def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
         d = sweep.settings_dict()
         rows.append(("palette sizes swept", f"{d['k_range'][0]}–{d['k_range'][1]}"))
         rows.append(("rule for the marked size", sweep.rule))
-        for key in ("space", "seed", "restarts", "init", "refine", "warm", "metric", "weighting", "target",
+        for key in ("space", "seed", "restarts", "seeding", "refine", "warm", "nearest", "weighting", "target",
                     "target_stat", "locked"):
             rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(d[key])))
         rows.append(("pixels / distinct colours sampled", f"{d['n_pixels']} / {d['n_distinct']}"))
     elif pal.fit is not None:
         f = pal.fit
-        for key in ("rule", "k_requested", "space", "seed", "restarts", "init", "refine", "metric", "weighting",
+        for key in ("rule", "k_requested", "space", "seed", "restarts", "seeding", "refine", "nearest", "weighting",
                     "target", "target_stat", "kind", "locked"):
             rows.append((_SETTING_NAMES.get(key, key.replace("_", " ")), text(getattr(f, key))))
     else:
@@ -305,7 +305,7 @@ def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
 
 def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, error_map_path=None,
                  title: str = "quantize report", max_side: int | None = 1600, preview_side: int = 640,
-                 worst: int = 5, force: bool = False) -> Path:
+                 worst: int = 5, force: bool = False, more_sizes=()) -> Path:
     """Write a self-contained HTML review page of a reduction into ``folder``.
 
     The folder receives one file, ``index.html``, with every image inside
@@ -347,6 +347,10 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
         Worst-fitting images listed for a set.
     force : bool, default=False
         Replace an existing report in ``folder``.
+    more_sizes : sequence of SweepRow, default=()
+        Without a sweep: palette sizes to add to the size slider beside
+        those the result's fit tried (see
+        :func:`quantize.report.review.size_views`).
 
     Returns
     -------
@@ -391,7 +395,7 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     out = Path(folder)
     _make_report_folder(out, [REPORT_PAGE], force)
     page = _page(title, pics, results, pal, sweep, maps, max_side=max_side, preview_side=int(preview_side),
-                 worst=worst)
+                 worst=worst, more_sizes=more_sizes)
     return atomic_write_text(out / REPORT_PAGE, page, force=force)
 
 
@@ -454,7 +458,7 @@ def _png(img) -> bytes:
     return buf.getvalue()
 
 
-def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side) -> list[str]:
+def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side, more_sizes=()) -> list[str]:
     """Each image's review block, ΔE00 table and error map."""
     from .review import review_block, size_views
 
@@ -462,7 +466,7 @@ def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side) -> list
     picks = {n: c.k for n, c in sweep.choices.items()} if sweep is not None else {}
     parts = []
     for i, (p, r) in enumerate(zip(pics, results)):
-        views = size_views(p, r, sweep, max_side=max_side, preview_side=preview_side)
+        views = size_views(p, r, sweep, max_side=max_side, preview_side=preview_side, more=more_sizes)
         start = next(n for n, v in enumerate(views) if v.full)
         heading = e(p.source) if len(pics) > 1 else "Original and result"
         parts.append(review_block(p, views, start=start, picks=picks, max_side=max_side, heading=heading))
@@ -477,7 +481,7 @@ def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side) -> list
     return parts
 
 
-def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, worst) -> str:
+def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, worst, more_sizes=()) -> str:
     from .assets import SCRIPT
     from .embed import data_uri
     from .set_report import CAUTION, SetImage, html_document, set_section
@@ -487,7 +491,8 @@ def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, wor
     fit = pal.fit
     if fit is not None and fit.reason:
         parts.append(f"<p>{pal.k} colours: {e(str(fit.reason))}</p>")
-    parts.extend(_image_blocks(pics, results, sweep, maps, max_side=max_side, preview_side=preview_side))
+    parts.extend(_image_blocks(pics, results, sweep, maps, max_side=max_side, preview_side=preview_side,
+                               more_sizes=more_sizes))
     if len(pics) > 1:
         parts.append(set_section(pal, [SetImage(p.source, dict(r.delta_e), list(r.coverage))
                                        for p, r in zip(pics, results)], worst=worst))

@@ -55,17 +55,24 @@ class SizeView:
     full: bool
 
 
-def size_views(picture, result, sweep, *, max_side, preview_side) -> list[SizeView]:
-    """The sizes one image is shown at: every row of ``sweep``, or just ``result``.
+def size_views(picture, result, sweep, *, max_side, preview_side, more=()) -> list[SizeView]:
+    """The sizes one image is shown at: every row of ``sweep``, or every size the result's fit tried.
 
     The row whose palette is the result's own shows the result itself, at
-    ``max_side``; the other rows show previews at ``preview_side``.
+    ``max_side``; the other rows show previews at ``preview_side``.  Without
+    a sweep, the sizes are the candidates of the result's fit record that
+    kept their palettes (:attr:`quantize.palette.FitCandidate.palette`: a
+    palette fitted in this run, not one read from a file), so ``reduce -k
+    3-6`` shows 3 to 6 colours from its one fit; a palette with no such
+    candidates shows just ``result``.  ``more`` (rows with ``k``,
+    ``palette`` and ``delta_e``, such as a sweep's) adds sizes the fit's
+    rule did not try; a size the fit tried keeps the fit's palette.
     """
     src, size = result_uri(result, max_side)
     own = SizeView(k=result.palette.k, palette=result.palette, src=src, size=size,
                    coverage=np.asarray(result.coverage, dtype=float), delta_e=dict(result.delta_e), full=True)
     if sweep is None:
-        return [own]
+        return _fitted_views(picture, result, own, preview_side, more)
     rows = list(sweep.rows)
     mine = [r for r in rows if list(r.palette.hex) == list(result.palette.hex)]
     others = [r for r in rows if not mine or r is not mine[0]]
@@ -81,6 +88,32 @@ def size_views(picture, result, sweep, *, max_side, preview_side) -> list[SizeVi
             views.append(SizeView(k=r.k, palette=r.palette, src=p.src, size=p.size, coverage=p.coverage,
                                   delta_e=dict(de), full=False))
     if not mine:  # a palette that is not one of the sweep's: the result first, then the sweep's sizes
+        views.insert(0, own)
+    return views
+
+
+def _fitted_views(picture, result, own: SizeView, preview_side, more=()) -> list[SizeView]:
+    """Every size of the result's own fit (its candidates' palettes, the chosen size as the result), and ``more``."""
+    record = result.palette.fit
+    if record is None:
+        return [own]
+    cands = [c for c in (record.candidates or ()) if c.palette is not None]
+    tried = {c.k for c in cands}
+    cands = sorted(cands + [m for m in more if m.palette.k not in tried and m.k not in tried],
+                   key=lambda c: c.palette.k)
+    if len(cands) < 2:
+        return [own]
+    others = [c for c in cands if c.k != record.k]
+    previews = iter(size_previews(picture, [c.palette for c in others], preview_side))
+    views = []
+    for c in cands:
+        if c.k == record.k:  # the result itself (also when a dither moved its palette after the fit)
+            views.append(own)
+        else:
+            p = next(previews)
+            views.append(SizeView(k=c.k, palette=c.palette, src=p.src, size=p.size, coverage=p.coverage,
+                                  delta_e=dict(c.delta_e), full=False))
+    if all(c.k != record.k for c in cands):
         views.insert(0, own)
     return views
 
