@@ -11,24 +11,37 @@ import numpy as np
 from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
 
 
-def _choose(target_lin, pal_pts, pal_lab, space, metric, lightness_offset=0.0):
+def _choose(target_lin, pal_pts, pal_lab, space, metric, lightness_offset=0.0, allowed=None):
     rgb = linear_to_srgb(target_lin)
     shift = np.array([lightness_offset, 0.0, 0.0])
     if metric == "space":
         d = ((pal_pts - (to_space(rgb, space) + shift)) ** 2).sum(axis=1)
     else:
         d = delta_e_ciede2000((srgb_to_lab(rgb) + shift)[None, :], pal_lab)
+    if allowed is not None:
+        d = np.where(allowed, d, np.inf)
     return int(np.argmin(d))  # first index on ties
 
 
+def _allowed(own_rgb, pal_pts, pal_lab, space, metric, reach):
+    """Palette colours at most ``reach`` further (Euclidean, choice space) from the pixel's own colour than its nearest."""
+    if reach == np.inf:
+        return None
+    pts = pal_pts if metric == "space" else pal_lab
+    d = np.sqrt(((pts - to_space(own_rgb, space if metric == "space" else "lab")) ** 2).sum(axis=1))
+    return d <= d.min() + reach
+
+
 def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="space", strength=1.0,
-            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0):
+            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf):
     """Error diffusion in linear light.
 
     rgb: (H, W, 3) encoded floats; clear: (H, W) bool (transparent);
     pinned: (H, W) int, palette index or -1; weights: [(dy, dx, w), ...];
     mod: tiled mask of lightness offsets (-0.5..0.5) scaled by mod_amp,
-    added to the target's lightness for the choice only.
+    added to the target's lightness for the choice only; reach: the choice
+    is limited to palette colours at most this much further from the pixel's
+    own colour than its nearest palette colour.
     """
     mod = np.zeros((1, 1)) if mod is None else mod
     h, w = clear.shape
@@ -52,7 +65,9 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
                 out[y, x] = pinned[y, x]
                 continue
             target = np.clip(lin[y, x] + err[y, x], low, high)
-            j = _choose(target, pal_pts, pal_lab, space, metric, mod_amp * mod[y % mod.shape[0], x % mod.shape[1]])
+            shift = mod_amp * mod[y % mod.shape[0], x % mod.shape[1]]
+            allowed = _allowed(rgb[y, x], pal_pts, pal_lab, space, metric, reach)
+            j = _choose(target, pal_pts, pal_lab, space, metric, shift, allowed)
             out[y, x] = j
             e = strength * (target - pal_lin[j])
             spots = [(y + dy, x + sign * dx, wt) for dy, dx, wt in weights if is_open(y + dy, x + sign * dx)]

@@ -224,3 +224,28 @@ def test_the_palette_file_records_that_it_was_fitted_for_a_dither(tmp_path):
         pal = fit_palette(img, 4, for_dither=flag)
         pal.save(tmp_path / f"{flag}.json")
         assert Palette.load(tmp_path / f"{flag}.json").fit.for_dither is flag
+
+
+def test_flat_artwork_keeps_its_palette(monkeypatch):
+    from quantize.core.sampling import sample_picture
+    from quantize.fit.engine import fit_palette
+    from quantize.io.read import as_picture
+
+    # Flat artwork made here: four inks in blocks, a disc with an
+    # anti-aliased edge (its edge pixels are mixes in encoded values, as
+    # drawing programs make them), two colours more than the inks.
+    inks = np.array([[240, 236, 222], [200, 30, 45], [20, 60, 140], [250, 190, 30]], float)
+    img = np.empty((160, 160, 3))
+    img[:80, :80], img[:80, 80:], img[80:, :80], img[80:, 80:] = inks
+    yy, xx = np.mgrid[:160, :160]
+    cover = np.clip(30.5 - np.hypot(yy - 80, xx - 80), 0, 1)[..., None]
+    img = np.rint(cover * inks[2] + (1 - cover) * img).astype(np.uint8)
+    sample = sample_picture(as_picture(img))
+    plain = fit_palette(img, 6, seed=0)
+    flat = fd.flat_colours(plain.rgb8, sample)
+    assert flat.sum() == 4  # the four inks, each exact over a large area
+    # Nothing to mix but the edges: the palette stays as fitted.
+    assert fd.palette_for_dither(plain, sample) == (plain, 0)
+    # Without the rule a spare colour would move (so the check above can fail).
+    monkeypatch.setattr(fd, "ARTWORK_SHARE", 1.01)
+    assert fd.palette_for_dither(plain, sample)[1] > 0

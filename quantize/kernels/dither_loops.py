@@ -252,12 +252,53 @@ def _nearest(p0, p1, p2, pal_pts, metric):
 
 
 @numba.njit(cache=True, nogil=True)
+def _reachable(o0, o1, o2, pal_pts, reach, allowed, dist):
+    """Mark in ``allowed`` the palette colours within ``reach`` of the nearest one, seen from (o0, o1, o2).
+
+    Distances are Euclidean in the choice space (``dist``, length k, is
+    scratch space); the nearest colour itself is always marked.
+    """
+    k = pal_pts.shape[0]
+    best = np.inf
+    for j in range(k):
+        d0 = o0 - pal_pts[j, 0]
+        d1 = o1 - pal_pts[j, 1]
+        d2 = o2 - pal_pts[j, 2]
+        dist[j] = math.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
+        best = min(best, dist[j])
+    for j in range(k):
+        allowed[j] = dist[j] <= best + reach
+
+
+@numba.njit(cache=True, nogil=True)
+def _nearest_allowed(p0, p1, p2, pal_pts, metric, allowed):
+    """:func:`_nearest` among the palette colours marked in ``allowed`` (lowest index wins a tie)."""
+    best = np.inf
+    arg = -1
+    for j in range(pal_pts.shape[0]):
+        if not allowed[j]:
+            continue
+        if metric == 0:
+            d0 = p0 - pal_pts[j, 0]
+            d1 = p1 - pal_pts[j, 1]
+            d2 = p2 - pal_pts[j, 2]
+            s = d0 * d0 + d1 * d1 + d2 * d2
+        else:
+            s = ciede2000(p0, p1, p2, pal_pts[j, 0], pal_pts[j, 1], pal_pts[j, 2])
+        if s < best or arg < 0:
+            best = s
+            arg = j
+    return arg
+
+
+@numba.njit(cache=True, nogil=True)
 def diffuse(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-            off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, out):
+            off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, out):
     """Error diffusion over the whole image; see :func:`diffuse_rows`."""
     err = np.zeros((error_rows(off_dy), state.shape[1], 3))
     diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, err, 0, state.shape[0], out)
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, err, 0, state.shape[0],
+                 out)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -271,7 +312,7 @@ def error_rows(off_dy):
 
 @numba.njit(cache=True, nogil=True)
 def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, err, y0, y1, out):
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, err, y0, y1, out):
     """Error diffusion in linear light of rows y0..y1; writes palette indices into ``out``.
 
     The target of each open pixel is its linear RGB plus the error it has
@@ -291,12 +332,23 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
     target, so the mean light is kept.  The mask's fixed, patternless offsets
     stop the long regular runs (worms) that form where a target sits just
     beside a palette colour.  ``mod_amp = 0`` is plain error diffusion.
+
+    Reach: a pixel may take only the palette colours whose distance (choice
+    space, Euclidean) from the pixel's *own* colour exceeds the distance of
+    its own nearest colour by at most ``reach``.  Received error can then
+    push a pixel to a neighbouring palette colour, but not to a far one (a
+    dark purple dot in an orange sky, where the palette holds no dark
+    orange); the error that is not discharged stays in the diffusion.
+    ``reach = inf`` lets every colour be chosen.
     """
     h, w = state.shape
     mh, mw = mod.shape
     rows = err.shape[0]
     n_off = off_dy.shape[0]
     ring = np.empty(n_off, dtype=np.int64)  # buffer row of each offset, once per image row
+    allowed = np.ones(pal_pts.shape[0], dtype=np.bool_)
+    dist = np.empty(pal_pts.shape[0])  # scratch of _reachable, allocated once
+    restrict = reach != np.inf
     for y in range(y0, y1):
         cur = y % rows
         for i in range(n_off):
@@ -315,7 +367,14 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
             g = min(max(lut[codes[y, x, 1]] + err[cur, x, 1], LOW), HIGH)
             b = min(max(lut[codes[y, x, 2]] + err[cur, x, 2], LOW), HIGH)
             p0, p1, p2 = to_space(r, g, b, mat, mat2, space)
-            j = _nearest(p0 + mod_amp * mod[y % mh, x % mw], p1, p2, pal_pts, metric)
+            shift = mod_amp * mod[y % mh, x % mw]
+            if restrict:
+                o0, o1, o2 = to_space(lut[codes[y, x, 0]], lut[codes[y, x, 1]], lut[codes[y, x, 2]], mat, mat2,
+                                      space)
+                _reachable(o0, o1, o2, pal_pts, reach, allowed, dist)
+                j = _nearest_allowed(p0 + shift, p1, p2, pal_pts, metric, allowed)
+            else:
+                j = _nearest(p0 + shift, p1, p2, pal_pts, metric)
             out[y, x] = j
             er = strength * (r - pal_lin[j, 0])
             eg = strength * (g - pal_lin[j, 1])
