@@ -20,12 +20,12 @@ import dataclasses
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Sequence
 
+from quantize.core.vocabulary import accepts_renamed, renamed_keywords
+
 if TYPE_CHECKING:
     import numpy as np
 
     from quantize.palette import FitRecord
-
-from quantize.core.vocabulary import accepts_renamed, renamed_keywords
 
 __all__ = ["FitSettings", "DEFAULT_K", "REFINES", "WEIGHTINGS", "TARGET_STATS", "SEED_BOUND"]
 
