@@ -21,6 +21,8 @@ from skimage.color import rgb2lab
 
 from artwork import add_linework, add_spot, flat_artwork, jpeg, lettering_artwork, scan, scanned_inks, shaded
 from quantize.cli.main import main
+from quantize.core.picture import Picture
+from quantize.core.regions import find_regions
 from quantize.fit.engine import fit_palette
 
 
@@ -56,9 +58,8 @@ def test_artwork_gets_one_colour_per_ink(name):
     pal = fit_palette(rgb)
     assert pal.fit.judged == "artwork", pal.fit.kind_reason
     assert pal.k == len(inks), pal.fit.reason
-    # The palette is the inks.  A small saturated spot through JPEG 4:2:0 comes back a
-    # little off its painted colour (its inside is mixed with the ground): ΔE00 3 there.
-    assert _worst_ink_de(inks, pal) < (3.0 if "spot" in name and "jpeg" in name else 2.0)
+    # The palette is the inks: each within ΔE00 2 (a small spot through JPEG 4:2:0 too).
+    assert _worst_ink_de(inks, pal) < 2.0
     assert pal.fit.lost == ()
 
 
@@ -158,17 +159,29 @@ def test_locked_colours_that_no_pixel_uses_or_that_a_fitted_colour_repeats_are_n
     assert any("locked colour #285aa0" in n and "apart" in n for n in pal.fit.notes), pal.fit.notes
 
 
-def _spot_case(seed):
-    """Flat art of 4-8 inks (N drawn from the seed), one spot of 0.2-0.5 %, through a simulated scan."""
+def _spot_case(seed, through="scan"):
+    """Flat art of 4-8 inks (N drawn from the seed), one spot of 0.2-0.5 %, through a simulated scan or JPEG 4:2:0."""
     rng = np.random.default_rng(500 + seed)
     n, share = int(rng.integers(4, 9)), float(rng.uniform(0.002, 0.005))
     rgb, inks = add_spot(*flat_artwork(n, 100 + seed), share, 100 + seed)
+    if through == "jpeg":
+        return jpeg(rgb, 75), inks
     return scan(rgb, seed), scanned_inks(inks)
 
 
 #: Seeds the spot and structure analysis was never tuned or looked at on
 #: (tuning used 0-59 and 100-159).
 HELD_OUT_SPOTS = list(range(200, 216))
+#: Held out when the spot's colour was moved from its flat core to its interior
+#: (core/regions.py INTERIOR_*, tuned on seeds 0-59).
+HELD_OUT_INTERIOR = list(range(300, 316))
+
+
+def _spot_and_inks_de(inks, palette):
+    """CIEDE2000 (colour-science) from each true ink to its nearest palette colour."""
+    truth = rgb2lab(np.asarray(inks, np.float64)[None] / 255.0)[0]
+    labs = rgb2lab(palette.rgb8[None].astype(np.float64) / 255.0)[0]
+    return np.array([delta_E(np.broadcast_to(t, labs.shape), labs, method="CIE 2000").min() for t in truth])
 
 
 @pytest.mark.parametrize("seed", HELD_OUT_SPOTS)
@@ -177,12 +190,33 @@ def test_a_small_spot_through_a_scan_is_an_ink(seed):
     pal = fit_palette(rgb)
     # Expected: N + 1 colours, the N inks the generator painted and the spot.
     assert pal.k == len(inks), pal.fit.reason
-    truth = rgb2lab(np.asarray(inks, np.float64)[None] / 255.0)[0]
-    labs = rgb2lab(pal.rgb8[None].astype(np.float64) / 255.0)[0]
-    de = np.array([delta_E(np.broadcast_to(t, labs.shape), labs, method="CIE 2000").min() for t in truth])
-    # Expected: every ink within ΔE00 2 of its palette colour; the spot, whose
-    # small inside JPEG's half-resolution chroma mixes with the ground, within 3.
-    assert de[:-1].max() < 2.0 and de[-1] < 3.0, de
+    de = _spot_and_inks_de(inks, pal)
+    # Expected: every ink, the spot included, within ΔE00 2 of its palette colour
+    # (the goal of docs/method.md): the spot's colour is read from its interior.
+    assert de.max() < 2.0, de
+
+
+@pytest.mark.parametrize("seed", HELD_OUT_INTERIOR[:8])
+def test_a_small_spot_through_jpeg_420_is_its_ink(seed):
+    rgb, inks = _spot_case(seed, "jpeg")
+    pal = fit_palette(rgb)
+    # Expected: N + 1 colours, each ink (the spot too) within ΔE00 2 of its palette colour,
+    # although JPEG keeps the spot's chroma at half resolution.
+    assert pal.k == len(inks), pal.fit.reason
+    de = _spot_and_inks_de(inks, pal)
+    assert de.max() < 2.0, de
+
+
+@pytest.mark.parametrize("through", ["scan", "jpeg"])
+@pytest.mark.parametrize("seed", HELD_OUT_INTERIOR)
+def test_a_small_spots_region_has_the_colour_of_its_ink(seed, through):
+    # The region analysis alone (where the spot's colour is decided): the region
+    # nearest the spot's ink is within ΔE00 2 of it (colour-science's CIEDE2000).
+    # Before the interior was read, the flat core's mean was up to 3.8 off.
+    rgb, inks = _spot_case(seed, through)
+    regions = find_regions(Picture(rgb))
+    spot = rgb2lab(inks[-1:][None].astype(np.float64) / 255.0)[0, 0]
+    assert delta_E(regions.lab, np.broadcast_to(spot, regions.lab.shape), method="CIE 2000").min() < 2.0
 
 
 def _logo_on_white():
@@ -226,3 +260,33 @@ def test_dark_linework_in_its_own_ink_is_an_ink(seed):
     # Expected: N + 1, the flat inks and the linework, each within ΔE00 2.
     assert pal.k == len(inks), pal.fit.reason
     assert _worst_ink_de(inks, pal) < 2.0
+
+
+#: Lettering seeds held out when JPEG's chroma spread was told from inks
+#: (core/regions.py BLEED_*, tuned on seeds 0-11).  Seed 41 at quality 85
+#: still gives one colour too many: a hairline's end at the picture's edge
+#: leaves a thin flat run no mix of two inks explains (a known miss).
+HELD_OUT_LETTERING = [(seed, q) for seed in range(40, 48) for q in (75, 90)] + [
+    pytest.param(41, 85, marks=pytest.mark.xfail(strict=True, reason="known miss: a hairline's end at the edge"))]
+
+
+@pytest.mark.parametrize(("seed", "quality"), HELD_OUT_LETTERING)
+def test_lettering_through_jpeg_420_gets_no_edge_colour(seed, quality):
+    # Text at several sizes, 1 px strokes and a block per ink, saved as JPEG 4:2:0:
+    # the chroma JPEG spreads around the lettering is no ink.
+    n = 3 + seed % 3
+    rgb, inks = lettering_artwork(n, seed)
+    pal = fit_palette(jpeg(rgb, quality))
+    # Expected: N colours, the inks the generator painted, each within ΔE00 2.
+    assert pal.k == n, pal.fit.reason
+    assert _worst_ink_de(inks, pal) < 2.0
+
+
+@pytest.mark.xfail(strict=True, reason="1 px linework in its own ink can still add blend colours (docs/method.md 6a)")
+def test_hairlines_in_their_own_ink_add_no_colour():
+    # 1 px outlines in a dark ink of their own over 4 flat inks: at 300 dpi 0.085 mm, below a
+    # printable line (docs/method.md), so not an ink; expected N = 4 colours, none a blend of the line.
+    rgb, inks = flat_artwork(4, 436, min_de=20)
+    rgb, _ = add_linework(rgb, inks, 436, width=1, colour=(25, 25, 30))
+    pal = fit_palette(rgb)
+    assert pal.k == len(inks), pal.fit.reason

@@ -158,7 +158,9 @@ def test_spots_and_strokes_are_looked_for_only_where_the_flat_regions_say_artwor
     # The fitting engine skips the spot and stroke search in a picture its flat
     # regions alone call continuous tone (scikit-image's "astronaut" photo):
     # the flat regions are the same as without the search; in artwork (its
-    # "logo") the search runs as before.
+    # "logo") the search runs as before.  (Forced on the photo, the artwork
+    # analysis also drops thin runs of a mix of two colours and reads small
+    # regions' colours from their interiors, so its regions differ from the flat ones.)
     from skimage import data
 
     from quantize.fit.inkcount import artwork_like
@@ -168,8 +170,9 @@ def test_spots_and_strokes_are_looked_for_only_where_the_flat_regions_say_artwor
     full, lean = find_regions(photo), find_regions(photo, structures=artwork_like)
     assert not artwork_like(flat_share=lean.flat_share, spread=lean.spread, even_share=lean.even_share)
     flat = find_regions(photo, structures=False)
-    assert len(lean) == len(flat) <= len(full)
+    assert len(lean) == len(flat)
     np.testing.assert_array_equal(lean.lab, flat.lab)
+    assert len(full) != len(flat) or not np.array_equal(full.lab, flat.lab)
     logo = data.logo()
     rgb = (logo[..., :3] * (logo[..., 3:] / 255.0) + 255 * (1 - logo[..., 3:] / 255.0)).round().astype(np.uint8)
     art = as_picture(rgb)

@@ -30,6 +30,11 @@ inside.  :func:`find_regions` separates the two:
    that are no seam, a mix of the colours on either side of them.  A spot
    is kept if its colour is that far from every flat colour, a stroke if it
    is that far from every mix of flat colours.  They add no flat share.
+5. Where spots and strokes are looked for (artwork), a region whose core
+   holds under :data:`INTERIOR_SHARE` of the picture takes its colour from
+   its interior, not its flat core (:func:`_interior_colours`), and a thin
+   run of a mix of two colours, JPEG's chroma spread from lettering, is no
+   region (:func:`_bleeds`).
 
 Large pictures are analysed at a reduced scale (every n-th pixel of every
 n-th row) so that the analysis stays a fraction of the fit's time and
@@ -58,7 +63,8 @@ from .picture import Picture
 
 __all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN_CORE_RADIUS", "ANALYSIS_PIXELS",
            "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
-           "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS"]
+           "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS", "INTERIOR_SHARE", "INTERIOR_REACH", "INTERIOR_RIM",
+           "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -112,6 +118,31 @@ SEAM_TOLERANCE = 0.3
 #: colour: flat ink, scanned or compressed, stays under 3 in the generated
 #: tests (the same bound as fit/inkcount.TONE_SPREAD_DE).
 EVEN_DE = 3.5
+#: A region whose flat core holds fewer than this share of the analysed
+#: pixels takes its colour from its interior (:func:`_interior_colours`):
+#: a larger region's core is its interior less the 3 px rim.
+INTERIOR_SHARE = 0.02
+#: How far, in pixels, a small region's footprint reaches beyond its core,
+#: and the rim taken off the footprint before its colour is read.  The
+#: footprint ends at the half-way line of the blurred edge; the next pixel
+#: in is still mixed by a 0.8 px blur and JPEG's 2 x 2 chroma.  On 60
+#: generated files (tuning seeds) with a 0.2-0.5 % spot through a simulated
+#: scan or JPEG 4:2:0 q75, the median of the footprint less 1 px came within
+#: ΔE00 1.7 of the ink (the flat core's mean: up to 3.7; less 2 px: up to
+#: 3.6, too few pixels left; the mean less 1 px: up to 2.0).
+INTERIOR_REACH = 6
+INTERIOR_RIM = 1
+#: A flat region at most this deep (px: three 3 x 3 erosions leave nothing
+#: of its core), under this share of the picture, and within this ΔE (chroma
+#: weighted) of a mix of two of the largest region colours is JPEG's chroma
+#: spread from lettering, not an ink (:func:`_bleeds`).  On generated
+#: lettering through JPEG 4:2:0 q75 and q90 (12 files, tuning), such
+#: regions lay within 0.9 of a mix and 2-3 px deep; 0.2-0.5 % spots (60
+#: files) 3-6 px deep and 6.4 or more from any mix; other small regions of
+#: an ink 2.3 or more.
+BLEED_DEPTH = 3
+BLEED_SHARE = 0.01
+BLEED_DE = 1.5
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
 _WINDOW = 5
@@ -490,6 +521,126 @@ def _one_ink_per_linework(colours: np.ndarray, stroke: np.ndarray, size: np.ndar
     return out
 
 
+def _bleeds(labels, colours, share):
+    """Which regions are thin runs of a mix of two other regions' colours.
+
+    JPEG keeps chroma at half resolution and quantises it coarsely: the
+    chroma of lettering and thin strokes spreads into the ground around
+    them, and a thick stroke's inside, or the ground between letters, can
+    be flat at a colour between the ink and the ground.  Such a region is
+    at most :data:`BLEED_DEPTH` px deep, under :data:`BLEED_SHARE` of the
+    picture, and within :data:`BLEED_DE` (chroma weighted) of a mix, 10-90 %
+    in encoded sRGB as JPEG's YCbCr averages, of two of the
+    :data:`MIX_COLOURS` largest distinct region colours, neither of its own
+    ink (within 3).  (The ground may be a region far from it: between
+    lines of text nothing is flat.)  A compact spot is deeper, whatever its
+    colour.
+    """
+    drop = np.zeros(len(colours), bool)
+    mix, pair_colours = None, None
+    small = np.flatnonzero(share < BLEED_SHARE)
+    if not len(small):
+        return drop
+    flat_labels = labels.ravel()
+    order = np.argsort(flat_labels, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(flat_labels, minlength=len(colours) + 1))])
+    for i in small:
+        ys, xs = np.divmod(order[bounds[i + 1]:bounds[i + 2]], labels.shape[1])
+        if not len(ys):
+            continue
+        core = np.pad(labels[ys.min():ys.max() + 1, xs.min():xs.max() + 1] == i + 1, 1)
+        for _ in range(BLEED_DEPTH):
+            core = _erode(core, _SQUARE)
+        if core.any():
+            continue
+        if mix is None:  # every mix of two of the largest distinct colours, once
+            pair_colours = _largest_distinct(colours, share)
+            rgb = clip_to_gamut(lab_to_srgb(pair_colours))
+            weights = np.linspace(0.1, 0.9, 33)[:, None, None, None]
+            mix = srgb_to_lab(weights * rgb[None, :, None] + (1 - weights) * rgb[None, None, :])
+        other = _weighted_lab_distance(pair_colours, np.broadcast_to(colours[i], pair_colours.shape)) >= 3.0
+        if np.count_nonzero(other) < 2:
+            continue
+        d = _weighted_lab_distance(mix, np.broadcast_to(colours[i], mix.shape))[:, other][:, :, other]
+        drop[i] = d.min() < BLEED_DE
+    return drop
+
+
+def _largest_distinct(colours, weight):
+    """The :data:`MIX_COLOURS` distinct colours (3 apart, chroma weighted) of most weight."""
+    distinct, total = [], []
+    for i in np.argsort(-weight, kind="stable"):
+        d = [j for j, c in enumerate(distinct) if _weighted_lab_distance(colours[i], c) < 3.0]
+        if d:
+            total[d[0]] += weight[i]
+        else:
+            distinct.append(colours[i])
+            total.append(float(weight[i]))
+    top = np.argsort(-np.asarray(total), kind="stable")[:MIX_COLOURS]
+    return np.asarray(distinct)[top].reshape(-1, 3)
+
+
+def _interior_colours(lab, smooth, labels, colours, count, limit):
+    """The colours of the smaller regions, read from their interiors rather than their flat cores.
+
+    The flat core of a small spot is the part of it where JPEG's chroma and
+    the scan's noise happen to be even, often a corner: its mean can lie
+    ΔE00 3-5 from the ink.  The ink is what the spot's interior holds.  The
+    spot's footprint is the pixels, connected to its core within
+    :data:`INTERIOR_REACH` px, whose smoothed colour is nearer its colour
+    than that of every other region around it (the half-way line of a
+    blurred edge is the edge) and within twice :data:`UNEXPLAINED_DE` of
+    it.  :data:`INTERIOR_RIM` px are taken off it, the rim that blur,
+    anti-aliasing and half-resolution chroma mix with the ground, and its
+    colour is the median of the rest (JPEG's chroma blocks leave outliers).
+    Regions of ``limit`` core pixels or more, footprints with fewer than
+    :data:`STRUCTURE_MIN_PIXELS` inner pixels (strokes) and footprints
+    whose colour is :data:`UNEXPLAINED_DE` from the core's keep their
+    colour.  (The ground between letters can take the colour JPEG spread
+    around them: :func:`_bleeds` then drops it.)
+    """
+    out = colours.copy()
+    h, w = labels.shape
+    small = np.flatnonzero(count < limit)
+    if not len(small) or len(colours) < 2:
+        return out
+    pad = INTERIOR_REACH + 1
+    flat_labels = labels.ravel()
+    order = np.argsort(flat_labels, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(flat_labels, minlength=len(colours) + 1))])
+    for i in small:
+        own = order[bounds[i + 1]:bounds[i + 2]]
+        if not len(own):
+            continue
+        ys, xs = np.divmod(own, w)
+        y0, y1 = max(ys.min() - pad, 0), min(ys.max() + pad + 1, h)
+        x0, x1 = max(xs.min() - pad, 0), min(xs.max() + pad + 1, w)
+        win, win_labels = smooth[y0:y1, x0:x1], labels[y0:y1, x0:x1]
+        # Its rivals are the regions around it, other than those of its own ink
+        # (within 3).  The colour being corrected can be 4 off and JPEG's chroma
+        # rings inside a spot, so only a pixel twice UNEXPLAINED_DE away is
+        # certainly no part of it (the bound where no rival is near).
+        near = np.unique(labels[max(y0 - pad, 0):y1 + pad, max(x0 - pad, 0):x1 + pad])
+        near = near[near > 0] - 1
+        rivals = near[_weighted_lab_distance(colours[near], np.broadcast_to(colours[i], colours[near].shape)) >= 3.0]
+        own_d = _weighted_lab_distance(win, np.broadcast_to(colours[i], win.shape))
+        member = own_d < 2 * UNEXPLAINED_DE
+        for c in colours[rivals]:
+            member &= own_d <= _weighted_lab_distance(win, np.broadcast_to(c, win.shape))
+        seed = (win_labels == i + 1).astype(np.int32)
+        # The window reaches a pixel past the footprint's farthest growth, so
+        # erosion (which counts outside as in) sees its whole edge.
+        inner = _grow(seed, member, INTERIOR_REACH) > 0
+        for _ in range(INTERIOR_RIM):
+            inner = _erode(inner, _SQUARE)
+        if np.count_nonzero(inner) >= STRUCTURE_MIN_PIXELS:
+            colour = np.median(lab[y0:y1, x0:x1][inner], axis=0)
+            # A footprint that far off its core's colour is not that region's.
+            if _weighted_lab_distance(colour, colours[i]) < UNEXPLAINED_DE:
+                out[i] = colour
+    return out
+
+
 def _even_share(de: np.ndarray, label: np.ndarray, n: int) -> float:
     """Share of the pixels in regions whose 90th percentile ``de`` is at most :data:`EVEN_DE`."""
     order = np.lexsort((de, label))
@@ -608,6 +759,15 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
         mean = np.vstack([np.asarray(mean).reshape(-1, 3), s_lab])
         area = np.concatenate([area, s_area])
         centre = np.vstack([centre.reshape(-1, 2), s_centre])
+    if len(area) and structures:
+        # Artwork only: a photograph's hundred small regions are left as they are, at no cost.
+        core = np.bincount(labels.ravel(), minlength=len(area) + 1)[1:]
+        mean = _interior_colours(lab, smooth, labels, np.asarray(mean, dtype=np.float64).reshape(-1, 3), core,
+                                 INTERIOR_SHARE * np.count_nonzero(opaque))
+        keep = ~_bleeds(labels, mean, area / max(n_opaque, 1))
+        if not keep.all():
+            labels = (np.concatenate([[0], np.cumsum(keep)]) * np.concatenate([[False], keep]))[labels]
+            mean, area, centre = mean[keep], area[keep], centre.reshape(-1, 2)[keep]
     return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
                    flat_share=flat_share, labels=labels, scale=scale, spread=spread,
                    centre=centre, even_share=even_share)
