@@ -499,3 +499,94 @@ def test_the_library_never_writes_over_the_image_it_read_even_with_force(tmp_pat
         with pytest.raises(OutputError, match="input"):
             write(src, force=True)
     assert src.read_bytes() == before
+
+
+def _retag_tiff(path: Path, code: int, *, page: int = 0, count: int | None = None, value: bytes | None = None,
+                new_code: int | None = None) -> None:
+    """Rewrite one entry of a little-endian TIFF's IFD in place (TIFF 6.0 section 2: an IFD entry is
+    tag SHORT, type SHORT, count LONG, value-or-offset 4 bytes)."""
+    import struct
+
+    b = bytearray(path.read_bytes())
+    assert b[:4] == b"II*\x00"
+    off = struct.unpack_from("<I", b, 4)[0]
+    for _ in range(page):
+        n = struct.unpack_from("<H", b, off)[0]
+        off = struct.unpack_from("<I", b, off + 2 + 12 * n)[0]
+    n = struct.unpack_from("<H", b, off)[0]
+    entries = [off + 2 + 12 * i for i in range(n)]
+    (entry,) = [e for e in entries if struct.unpack_from("<H", b, e)[0] == code]
+    if new_code is not None:
+        struct.pack_into("<H", b, entry, new_code)
+    if count is not None:
+        struct.pack_into("<I", b, entry + 4, count)
+    if value is not None:
+        b[entry + 8:entry + 12] = value
+    path.write_bytes(bytes(b))
+
+
+def test_damaged_tiff_structure_is_one_line_or_read_not_a_traceback(tmp_path):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    rng = np.random.default_rng(1)
+    # SamplesPerPixel (277) is one SHORT; here it holds two (a TypeError inside tifffile before).
+    spp = tmp_path / "spp.tif"
+    tifffile.imwrite(spp, rng.integers(0, 65535, (20, 30, 3), dtype=np.uint16), photometric="rgb")
+    _retag_tiff(spp, 277, count=2, value=struct.pack("<HH", 3, 3))
+    # A second page whose ImageWidth/ImageLength (256/257) are gone (Pillow's TypeError "Missing dimensions").
+    pages = tmp_path / "pages.tif"
+    with tifffile.TiffWriter(pages) as w:
+        for _ in range(2):
+            w.write(rng.integers(0, 255, (20, 30, 3), dtype=np.uint8), photometric="rgb")
+    _retag_tiff(pages, 256, page=1, new_code=65000)
+    _retag_tiff(pages, 257, page=1, new_code=65001)
+    for src in (spp, pages):
+        before = src.read_bytes()
+        out = tmp_path / f"{src.stem}.png"
+        res = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "2"])
+        assert "Traceback" not in res.output and isinstance(res.exception, (SystemExit, type(None))), res.output
+        if res.exit_code == 0:
+            with Image.open(out) as im:
+                assert im.size == (30, 20)
+        else:
+            _assert_one_line_failure(res, 1, src.name)
+            assert not out.exists()
+        assert src.read_bytes() == before
+
+
+def test_tifffile_messages_become_one_note_and_its_logger_is_left_as_it_was(tmp_path):
+    import logging
+    import struct
+    import warnings
+
+    from quantize import load_image
+
+    tifffile = pytest.importorskip("tifffile")
+    rng = np.random.default_rng(2)
+    src = tmp_path / "extra.tif"
+    # ExtraSamples (338) values are 0-2 (TIFF 6.0); 9 makes tifffile log an error and skip the tag.
+    tifffile.imwrite(src, rng.integers(0, 65535, (20, 30, 4), dtype=np.uint16), photometric="rgb",
+                     extrasamples=[2])
+    _retag_tiff(src, 338, value=struct.pack("<HH", 9, 0))
+    logger = logging.getLogger("tifffile")
+    state = (list(logger.filters), list(logger.handlers), logger.level, logger.propagate, logger.disabled)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        load_image(src)
+    assert (list(logger.filters), list(logger.handlers), logger.level, logger.propagate, logger.disabled) == state
+    assert sum("338" in str(w.message) for w in caught) == 1
+    # A real process: inside pytest, warnings are recorded rather than printed, and logging is set up.
+    spp = tmp_path / "spp8.tif"
+    tifffile.imwrite(spp, rng.integers(0, 255, (20, 30, 3), dtype=np.uint8), photometric="rgb")
+    _retag_tiff(spp, 277, count=2, value=struct.pack("<HH", 3, 3))
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    for image, tag in ((src, "338"), (spp, "277")):
+        p = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(image), "-o", str(image) + ".png",
+                            "-k", "2", "--restarts", "1"], capture_output=True, text=True, env=env, check=False)
+        assert p.returncode == 0, p.stderr
+        lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+        # Before: tifffile's "<tifffile.TiffTag 338 @190> raised ValueError(...)" and Pillow's "Metadata
+        # Warning" printed raw, without the file's name.
+        assert all(ln.startswith(f"quantize: warning: {image}: ") for ln in lines), p.stderr
+        assert sum(tag in ln for ln in lines) == 1, p.stderr

@@ -230,6 +230,43 @@ def _decode_errors(name: str):
         raise
     except DECODE_ERRORS as exc:
         raise ImageReadError(f"{name}: {_reason(exc)}") from exc
+    except (TypeError, AttributeError, ZeroDivisionError, OverflowError, RuntimeError) as exc:
+        # Damaged tags reach Pillow's and tifffile's own code paths with values of the wrong kind
+        # ("Missing dimensions" is a TypeError). Raised inside a decoder, it is the file's fault;
+        # raised in this package's code, it is a bug and keeps its traceback.
+        if not _raised_in_decoder(exc):
+            raise
+        raise ImageReadError(f"{name}: {_reason(exc)}") from exc
+
+
+@contextlib.contextmanager
+def _decoder_warnings(name: str, notes: list[_Note]):
+    """Keep what Pillow warns while decoding (a tag with too many values, say) as a note naming the file.
+
+    Such a warning would otherwise print without the file's name. The warning filters are restored on exit.
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    seen = set()
+    for w in caught:
+        text = " ".join(str(w.message).split())[:150]
+        if text not in seen:
+            seen.add(text)
+            notes.append((w.category if issubclass(w.category, (ImageWarning, ProfileWarning)) else ImageWarning,
+                          f"{name}: {text}"))
+
+
+def _raised_in_decoder(exc: BaseException) -> bool:
+    import tifffile
+
+    roots = tuple(os.path.dirname(m.__file__) + os.sep for m in (Image, tifffile) if m.__file__)
+    tb = exc.__traceback__
+    while tb is not None:
+        if tb.tb_frame.f_code.co_filename.startswith(roots):
+            return True
+        tb = tb.tb_next
+    return False
 
 
 def _reason(exc: BaseException) -> str:
@@ -315,7 +352,7 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
     from quantize.io import _deep as _deep
 
     notes: list[_Note] = []
-    with _decode_errors(name):
+    with _decode_errors(name), _decoder_warnings(name, notes):
         if head[:8] == _PNG_SIGNATURE:
             check_png_chunks(p, name)
         deep = None
