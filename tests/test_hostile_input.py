@@ -590,3 +590,81 @@ def test_tifffile_messages_become_one_note_and_its_logger_is_left_as_it_was(tmp_
         # Warning" printed raw, without the file's name.
         assert all(ln.startswith(f"quantize: warning: {image}: ") for ln in lines), p.stderr
         assert sum(tag in ln for ln in lines) == 1, p.stderr
+
+
+# --------------------------------------------------------------------------- names and paths
+
+def test_an_output_path_longer_than_path_max_is_one_line(tmp_path):
+    # Linux's PATH_MAX is 4096 bytes (limits.h); each part stays under NAME_MAX (255).
+    src = _png(tmp_path / "a.png")
+    out = tmp_path.joinpath(*["d" * 200] * 25, "o.png")
+    assert len(os.fsencode(out)) > 4096
+    res = _cli("reduce", src, "-o", out, "-k", "2")
+    line = _assert_one_line_failure(res, 1, "too long")
+    assert len(line) < 500
+
+
+@pytest.mark.parametrize("command", [
+    ["fit", "{img}", "-k", "2"], ["reduce", "{img}", "-k", "2"], ["apply", "{pal}", "{img}"],
+    ["separate", "{img}", "-n", "2"], ["batch", "{dir}", "-k", "2"]], ids=lambda c: c[0])
+def test_an_empty_output_name_is_a_usage_error(tmp_path, command, monkeypatch):
+    img = _png(tmp_path / "in" / "a.png")
+    pal = tmp_path / "p.palette.json"
+    pal.write_text(json.dumps(_palette_doc()))
+    monkeypatch.chdir(tmp_path)  # '' used to mean this folder
+    before = _snapshot(tmp_path)
+    args = [a.format(img=img, pal=pal, dir=img.parent) for a in command] + ["-o", ""]
+    res = _cli(*args)
+    assert res.exit_code == 2 and "is empty" in res.output and "Traceback" not in res.output, res.output
+    assert _snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("command", ["fit", "reduce"])
+def test_a_file_output_ending_in_a_slash_is_refused_as_a_folder_name(tmp_path, command):
+    # fit wrote a file named "pp" for "-o pp/" before; reduce said "unsupported extension".
+    img = _png(tmp_path / "a.png")
+    before = _snapshot(tmp_path)
+    res = _cli(command, img, "-k", "2", "-o", f"{tmp_path}/pp/")
+    assert res.exit_code == 2 and "names a folder" in res.output, res.output
+    assert _snapshot(tmp_path) == before and not (tmp_path / "pp").exists()
+
+
+def _bytes_name(folder: Path, raw: bytes) -> Path:
+    """A path whose last part holds bytes that are not UTF-8, as Python spells it (PEP 383)."""
+    return folder / os.fsdecode(raw)
+
+
+def test_file_names_that_are_not_utf8_are_processed(tmp_path):
+    src = _bytes_name(tmp_path, b"art\xff\xfe.png")
+    _png(src)
+    out = _bytes_name(tmp_path, b"out\xe9.png")
+    res = _cli("reduce", src, "-o", out, "-k", "2", "--keep-palette")
+    assert res.exit_code == 0, res.output
+    assert os.path.exists(os.fsencode(out))
+    # The palette JSON names its source with \udcXX escapes: json.loads and os.fsencode give the bytes back.
+    raw = Path(str(out)[:-4] + ".palette.json").read_text(encoding="utf-8")
+    assert "art\\udcff\\udcfe.png" in raw
+    assert b"art\xff\xfe.png" in os.fsencode(json.dumps(json.loads(raw), ensure_ascii=False))
+    # A real process (stdout is a pipe, strict UTF-8 before): the summary names the file.
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]), PYTHONIOENCODING="utf-8")
+    p = subprocess.run([os.fsencode(sys.executable), b"-m", b"quantize", b"reduce", os.fsencode(src), b"-o",
+                        os.fsencode(out), b"-k", b"2", b"--force", b"--restarts", b"1"],
+                       capture_output=True, env=env, check=False)
+    assert p.returncode == 0 and b"Traceback" not in p.stderr, p.stderr
+    assert b"art\xff\xfe.png" in p.stdout
+
+
+def test_a_batch_of_names_that_are_not_utf8_writes_its_manifest(tmp_path):
+    folder = _bytes_name(tmp_path, b"in\xff")
+    _png(_bytes_name(folder, b"x\xfe.png"))
+    _png(folder / "good.png")
+    out = tmp_path / "out"
+    res = _cli("batch", folder, "-o", out, "-k", "2", "--workers", "1")
+    assert res.exit_code == 0, res.output
+    doc = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    names = sorted(os.fsencode(row["input"]) for row in doc["images"])
+    assert names == [b"good.png", b"x\xfe.png"]  # \udcfe in the JSON: the same bytes back
+    assert "x\\udcfe.png" in (out / "manifest.csv").read_text(encoding="utf-8")
+    assert os.path.exists(os.fsencode(_bytes_name(out, b"x\xfe.png")))
+    again = _cli("batch", folder, "-o", out, "-k", "2", "--workers", "1")
+    assert again.exit_code == 0 and "2 up to date" in again.output, again.output

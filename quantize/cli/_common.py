@@ -77,6 +77,23 @@ def _k_option(value: str) -> str:
     return from_
 
 
+def _output_file(ctx, param, value):
+    """-o for one output file: neither empty nor ending in a path separator (a folder's name)."""
+    if value == "":
+        raise click.BadParameter("is empty; give the name of the file to write")
+    if value.endswith(("/", "\\")):
+        raise click.BadParameter(f"{value!r} ends in {value[-1]!r}, so it names a folder; give the name of "
+                                 "the file to write, such as out.png")
+    return value
+
+
+def _output_folder(ctx, param, value):
+    """-o for an output folder: not empty (an empty name would silently mean the current folder)."""
+    if value == "":
+        raise click.BadParameter("is empty; give the folder to write into ('.' for the current folder)")
+    return value
+
+
 def _seed_option(ctx, param, value):
     """--seed checked by the library's own validator, named as the option that was wrong."""
     from quantize.fit.settings import FitSettings

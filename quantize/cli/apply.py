@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _output_folder,
     _check_outputs,
     _emit,
     _Failure,
@@ -28,7 +29,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @click.command()
 @click.argument("palette", type=click.Path(exists=True, dir_okay=False))
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "outdir", required=True, callback=_output_folder, type=click.Path(file_okay=False),
               help="Folder for the reduced images (created if missing).")
 @click.option("--format", "fmt", type=click.Choice(("png", "webp", "gif", "tif", "jpg")), default="png",
               show_default=True, help="Output file type: indexed PNG, lossless WebP, GIF, RGB TIFF or JPEG.")

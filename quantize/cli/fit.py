@@ -7,6 +7,7 @@ import time
 import click
 
 from ._common import (
+    _output_file,
     _check_outputs,
     _emit,
     _fit_options,
@@ -24,7 +25,7 @@ from ._common import (
 
 @click.command()
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Palette JSON file to write.")
+@click.option("-o", "--output", required=True, callback=_output_file, type=click.Path(dir_okay=False), help="Palette JSON file to write.")
 @_fit_options
 @click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="Pooled images count equally, or by their pixel count.")

@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _output_file,
     _check_indexed_size,
     _check_outputs,
     _emit,
@@ -30,7 +31,7 @@ from .dither_options import dither_options, pop_dither_options, run_dither_outpu
 
 @click.command()
 @click.argument("image", type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+@click.option("-o", "--output", required=True, callback=_output_file, type=click.Path(dir_okay=False),
               help="Reduced image: .png (indexed), .webp (lossless), .gif, .tif or .jpg.")
 @_fit_options
 @dither_options
