@@ -94,6 +94,28 @@ def _output_folder(ctx, param, value):
     return value
 
 
+def _use_cmyk_profile(ctx, param, value):
+    """Read CMYK images without an embedded profile through this ICC profile for the whole command."""
+    if value is None:
+        return
+    from quantize.errors import QuantizeError
+    from quantize.io.read import assume_cmyk_profile
+
+    try:
+        ctx.with_resource(assume_cmyk_profile(value))
+    except QuantizeError as exc:
+        raise click.BadParameter(str(exc)) from exc
+
+
+def _cmyk_profile_option(f):
+    return click.option(
+        "--cmyk-profile", type=click.Path(dir_okay=False), default=None, expose_value=False,
+        callback=_use_cmyk_profile,
+        help="ICC profile (CMYK) of the press a CMYK image was separated for: CMYK images without an "
+             "embedded profile are read through it. Without it they are read with a naive formula, with a "
+             "warning. An embedded profile always wins.")(f)
+
+
 def _seed_option(ctx, param, value):
     """--seed checked by the library's own validator, named as the option that was wrong."""
     from quantize.fit.settings import FitSettings

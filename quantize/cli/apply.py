@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _cmyk_profile_option,
     _output_folder,
     _check_outputs,
     _emit,
@@ -39,6 +40,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json, **dither_opts):
     """Map IMAGES onto a saved PALETTE (no refit) and write them to a folder."""

@@ -7,6 +7,7 @@ import time
 import click
 
 from ._common import (
+    _cmyk_profile_option,
     _output_file,
     _check_outputs,
     _emit,
@@ -31,6 +32,7 @@ from ._common import (
               help="Pooled images count equally, or by their pixel count.")
 @click.option("--force", is_flag=True, help="Replace an existing palette file.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
     """Fit one palette to one or many IMAGES (pooled) and save it as JSON."""

@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _cmyk_profile_option,
     _output_file,
     _check_indexed_size,
     _check_outputs,
@@ -39,6 +40,7 @@ from .dither_options import dither_options, pop_dither_options, run_dither_outpu
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_opts):
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""

@@ -29,7 +29,7 @@ from quantize.separation.defaults import (
     DEFAULT_VIEW_DISTANCE_MM,
 )
 
-from ._common import _output_folder, _quiet, _run
+from ._common import _cmyk_profile_option, _output_folder, _quiet, _run
 
 _UNITS_MM = {"mm": 1.0, "cm": 10.0, "in": 25.4, '"': 25.4}
 
@@ -153,6 +153,7 @@ class PrintSize(click.ParamType):
 @click.option("--view-distance", "view_distance", type=PrintSize(), default=DEFAULT_VIEW_DISTANCE_MM,
               show_default="1000 mm", metavar="LENGTH",
               help="Viewing distance for the perceived ΔE00 of the simulated print (e.g. 1m is 1000mm, 40in).")
+@_cmyk_profile_option
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,
