@@ -7,7 +7,7 @@ is then damaged byte by byte (hypothesis chooses positions, values and
 truncations from a fixed, derandomised sequence, so CI runs the same small set
 of cases every time).
 
-The oracle is the project's rule for bad input (README "Bad input"): the reader
+The oracle is the project's rule for bad input (docs/batch.md "Bad input"): the reader
 either reads the file or raises a QuantizeError whose message is one line
 naming the file; the command line exits 0, 1 or 2 with no traceback; the input
 is never changed; nothing partial is left on disk; earlier outputs stay intact.
