@@ -352,3 +352,58 @@ def test_fuzz_command_arguments(args):
         assert set(after) - set(before) <= {"o.png"}
         if res.exit_code != 0:
             assert "o.png" not in after
+
+
+_SEPARATE_OPTIONS = ["--ink-count", "--dpi", "--print-width", "--film-dpi", "--min-feature-mm", "--min-line-mm",
+                     "--choke-mm", "--margin-mm", "--trap", "--lpi", "--angles", "--min-dot-mm", "--mesh",
+                     "--index-dpi", "--keep-fraction", "--base-min-l", "--substrate", "--seed"]
+
+
+@FUZZ_CLI
+@given(args=st.lists(st.tuples(st.sampled_from(_SEPARATE_OPTIONS), _OPTION_VALUES), min_size=1, max_size=3))
+def test_fuzz_separate_arguments(args):
+    # Numbers without bounds ended in memory errors and overflows here (--margin-mm 1e7, --choke-mm 1e308).
+    image_seeds = _image_seeds()
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        src = tmp / "art.png"
+        src.write_bytes(image_seeds["mode-RGB.png"])
+        flat = [part for pair in args for part in pair]
+        res = CliRunner().invoke(main, ["separate", str(src), "-o", str(tmp / "films"), "-n", "2",
+                                        "--substrate", "none", "--no-pdf", *flat])
+        _one_line_or_success(res)
+        assert src.read_bytes() == image_seeds["mode-RGB.png"]
+        if res.exit_code != 0:  # a refused run leaves no half-made set of films
+            assert not (tmp / "films").exists() or not any((tmp / "films").iterdir())
+        assert not [p for p in tmp.rglob("*") if p.name.endswith(".part")]
+
+
+@functools.lru_cache(maxsize=1)
+def _cmyk_seed() -> tuple[bytes, bytes]:
+    """(a CMYK TIFF without a profile, a CMYK ICC profile written from the ICC spec by test_images)."""
+    from test_images import _cmyk_profile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        profile = _cmyk_profile(Path(tmp) / "press.icc").read_bytes()
+    buf = io.BytesIO()
+    Image.fromarray(np.random.default_rng(4).integers(0, 255, (8, 8, 4), dtype=np.uint8), "CMYK").save(buf, "TIFF")
+    return buf.getvalue(), profile
+
+
+@FUZZ
+@given(edits=st.lists(st.tuples(st.one_of(st.floats(0, 0.2), st.floats(0, 1, exclude_max=True)),
+                                st.integers(0, 255)), min_size=1, max_size=5), cut=CUTS)
+def test_fuzz_cmyk_profile_reader(edits, cut):
+    image, profile = _cmyk_seed()
+    with tempfile.TemporaryDirectory() as tmp:
+        src, icc = Path(tmp) / "art.tif", Path(tmp) / "press.icc"
+        src.write_bytes(image)
+        icc.write_bytes(_mutate(profile, edits, cut))
+        before = icc.read_bytes()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                load_image(src, cmyk_profile=icc)
+            except QuantizeError as exc:
+                assert "\n" not in str(exc) and str(exc).startswith((str(icc), str(src))), str(exc)
+        assert icc.read_bytes() == before and src.read_bytes() == image
