@@ -668,3 +668,24 @@ def test_a_batch_of_names_that_are_not_utf8_writes_its_manifest(tmp_path):
     assert os.path.exists(os.fsencode(_bytes_name(out, b"x\xfe.png")))
     again = _cli("batch", folder, "-o", out, "-k", "2", "--workers", "1")
     assert again.exit_code == 0 and "2 up to date" in again.output, again.output
+
+
+@pytest.mark.parametrize("code, count, value, words", [
+    # TIFF 6.0: each of these tags holds one value. Found by byte-level mutants of 16-bit TIFFs (TypeError,
+    # AttributeError in the 16-bit reader before).
+    (262, 2, (2, 2), "PhotometricInterpretation (2 values"),
+    (256, 2, (16, 16), "cannot decode"),
+    (259, None, (9999, 0), "TIFF file that cannot be read"),  # a compression no reader knows
+], ids=["photometric-two-values", "width-two-values", "unknown-compression"])
+def test_damaged_tags_of_a_16bit_tiff_are_one_line(tmp_path, code, count, value, words):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    src = tmp_path / "deep.tif"
+    tifffile.imwrite(src, np.random.default_rng(5).integers(0, 65535, (12, 16, 4), dtype=np.uint16),
+                     photometric="rgb", extrasamples=[2])
+    _retag_tiff(src, code, count=count, value=struct.pack("<HH", *value))
+    before = src.read_bytes()
+    res = _cli("reduce", src, "-o", tmp_path / "o.png", "-k", "2")
+    _assert_one_line_failure(res, 1, "deep.tif", words)
+    assert src.read_bytes() == before and not (tmp_path / "o.png").exists()

@@ -155,7 +155,11 @@ def _whole(value, tag: str, name: str) -> int:
     these tags one value; a damaged file can hold a list, a fraction or a negative number)."""
     if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and int(value) >= 0:
         return int(value)
-    raise ImageReadError(f"{name}: damaged TIFF tag {tag} ({str(value)[:40]}); cannot read the image")
+    if isinstance(value, (tuple, list, np.ndarray)):
+        detail = f"{len(value)} values where one is due"
+    else:
+        detail = f"value {str(value)[:40]}"
+    raise ImageReadError(f"{name}: damaged TIFF tag {tag} ({detail}); cannot read the image")
 
 
 def _rational(v) -> float:

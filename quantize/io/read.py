@@ -305,20 +305,20 @@ def as_picture(obj: Picture | PathLike | Image.Image | np.ndarray) -> Picture:
 
 
 @contextlib.contextmanager
-def _decode_errors(name: str):
+def _decode_errors(name: str, head: bytes = b""):
     try:
         yield
     except QuantizeError:
         raise
     except DECODE_ERRORS as exc:
-        raise ImageReadError(f"{name}: {_reason(exc)}") from exc
+        raise ImageReadError(f"{name}: {_reason(exc, head)}") from exc
     except (TypeError, AttributeError, ZeroDivisionError, OverflowError, RuntimeError) as exc:
         # Damaged tags reach Pillow's and tifffile's own code paths with values of the wrong kind
         # ("Missing dimensions" is a TypeError). Raised inside a decoder, it is the file's fault;
         # raised in this package's code, it is a bug and keeps its traceback.
         if not _raised_in_decoder(exc):
             raise
-        raise ImageReadError(f"{name}: {_reason(exc)}") from exc
+        raise ImageReadError(f"{name}: {_reason(exc, head)}") from exc
 
 
 @contextlib.contextmanager
@@ -351,8 +351,11 @@ def _raised_in_decoder(exc: BaseException) -> bool:
     return False
 
 
-def _reason(exc: BaseException) -> str:
+def _reason(exc: BaseException, head: bytes = b"") -> str:
     if isinstance(exc, Image.UnidentifiedImageError):
+        if head[:4] in _TIFF_MAGIC:
+            # A TIFF header, but Pillow gives up on the tags: damage, or a compression it lacks.
+            return "a TIFF file that cannot be read (damaged tags, or a compression or layout Pillow does not read)"
         return "not an image file (or not in a format Pillow can read)"
     if isinstance(exc, MemoryError):
         return "not enough memory to decode the image"
@@ -420,8 +423,8 @@ def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIX
     ImageReadError
         As :func:`load_image` for those faults.
     """
-    name, p, _ = _file_head(path, max_pixels)
-    with _decode_errors(name), open_pil(p) as img:
+    name, p, head = _file_head(path, max_pixels)
+    with _decode_errors(name, head), open_pil(p) as img:
         check_pixels(name, img.size, max_pixels)
         return int(img.size[0]), int(img.size[1])
 
@@ -435,7 +438,7 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
     from quantize.io import _deep as _deep
 
     notes: list[_Note] = []
-    with _decode_errors(name), _decoder_warnings(name, notes):
+    with _decode_errors(name, head), _decoder_warnings(name, notes):
         if head[:8] == _PNG_SIGNATURE:
             check_png_chunks(p, name)
         deep = None
