@@ -689,3 +689,21 @@ def test_damaged_tags_of_a_16bit_tiff_are_one_line(tmp_path, code, count, value,
     res = _cli("reduce", src, "-o", tmp_path / "o.png", "-k", "2")
     _assert_one_line_failure(res, 1, "deep.tif", words)
     assert src.read_bytes() == before and not (tmp_path / "o.png").exists()
+
+
+def test_batch_records_a_damaged_tiff_as_bad_input_not_an_internal_error(tmp_path):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    (tmp_path / "in").mkdir()
+    _png(tmp_path / "in" / "good.png")
+    bad = tmp_path / "in" / "bad.tif"
+    tifffile.imwrite(bad, np.random.default_rng(6).integers(0, 65535, (12, 16, 3), dtype=np.uint16),
+                     photometric="rgb")
+    _retag_tiff(bad, 262, count=2, value=struct.pack("<HH", 2, 2))
+    res = _cli("batch", tmp_path / "in", "-o", tmp_path / "out", "-k", "2", "--workers", "1")
+    assert res.exit_code == 1 and "Traceback" not in res.output
+    rows = {r["input"]: r for r in json.loads((tmp_path / "out" / "manifest.json").read_text())["images"]}
+    assert rows["good.png"]["status"] == "ok"
+    assert rows["bad.tif"]["status"] == "failed"
+    assert "PhotometricInterpretation" in rows["bad.tif"]["error"] and "internal error" not in rows["bad.tif"]["error"]

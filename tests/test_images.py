@@ -1175,6 +1175,10 @@ def test_cmyk_profile_option_on_reduce_and_batch(tmp_path):
     assert res.exit_code == 0, res.output
     with Image.open(tmp_path / "b" / "art.tif") as im:  # read in a worker process
         assert _de00_to_reference(np.asarray(im.convert("RGB")), cmyk).max() < 1.5
+    import json
+
+    manifest = json.loads((tmp_path / "b" / "manifest.json").read_text())
+    assert manifest["settings"]["cmyk_profile"] == str(press)  # a rerun with another profile redoes the images
     res = CliRunner().invoke(main, ["reduce", str(tmp_path / "in" / "art.tif"), "-o", str(tmp_path / "x.png"),
                                     "--cmyk-profile", str(tmp_path / "in" / "art.tif")])
     assert res.exit_code == 2 and "not an ICC profile" in res.output and not (tmp_path / "x.png").exists()
