@@ -77,7 +77,8 @@ def test_reduce_options_are_library_keywords():
     fit_words |= set(inspect.signature(quantize.fit_palette).parameters)
     apply_words = set(inspect.signature(quantize.Palette.apply).parameters)
     cli_only = {"output", "force", "json", "report", "keep_palette", "view_dpi", "view_distance", "error_map",
-                "error_map_kind", "help"}
+                "error_map_kind", "help",
+                "cmyk_profile"}  # how a file is read: load_image's keyword (and io.read.assume_cmyk_profile)
     # -k/--colours is the positional k; every other option's first long name is its library keyword.
     known = {"colours": "k", "serpentine": "serpentine"}
     for p in reduce.params:

@@ -499,3 +499,211 @@ def test_the_library_never_writes_over_the_image_it_read_even_with_force(tmp_pat
         with pytest.raises(OutputError, match="input"):
             write(src, force=True)
     assert src.read_bytes() == before
+
+
+def _retag_tiff(path: Path, code: int, *, page: int = 0, count: int | None = None, value: bytes | None = None,
+                new_code: int | None = None) -> None:
+    """Rewrite one entry of a little-endian TIFF's IFD in place (TIFF 6.0 section 2: an IFD entry is
+    tag SHORT, type SHORT, count LONG, value-or-offset 4 bytes)."""
+    import struct
+
+    b = bytearray(path.read_bytes())
+    assert b[:4] == b"II*\x00"
+    off = struct.unpack_from("<I", b, 4)[0]
+    for _ in range(page):
+        n = struct.unpack_from("<H", b, off)[0]
+        off = struct.unpack_from("<I", b, off + 2 + 12 * n)[0]
+    n = struct.unpack_from("<H", b, off)[0]
+    entries = [off + 2 + 12 * i for i in range(n)]
+    (entry,) = [e for e in entries if struct.unpack_from("<H", b, e)[0] == code]
+    if new_code is not None:
+        struct.pack_into("<H", b, entry, new_code)
+    if count is not None:
+        struct.pack_into("<I", b, entry + 4, count)
+    if value is not None:
+        b[entry + 8:entry + 12] = value
+    path.write_bytes(bytes(b))
+
+
+def test_damaged_tiff_structure_is_one_line_or_read_not_a_traceback(tmp_path):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    rng = np.random.default_rng(1)
+    # SamplesPerPixel (277) is one SHORT; here it holds two (a TypeError inside tifffile before).
+    spp = tmp_path / "spp.tif"
+    tifffile.imwrite(spp, rng.integers(0, 65535, (20, 30, 3), dtype=np.uint16), photometric="rgb")
+    _retag_tiff(spp, 277, count=2, value=struct.pack("<HH", 3, 3))
+    # A second page whose ImageWidth/ImageLength (256/257) are gone (Pillow's TypeError "Missing dimensions").
+    pages = tmp_path / "pages.tif"
+    with tifffile.TiffWriter(pages) as w:
+        for _ in range(2):
+            w.write(rng.integers(0, 255, (20, 30, 3), dtype=np.uint8), photometric="rgb")
+    _retag_tiff(pages, 256, page=1, new_code=65000)
+    _retag_tiff(pages, 257, page=1, new_code=65001)
+    for src in (spp, pages):
+        before = src.read_bytes()
+        out = tmp_path / f"{src.stem}.png"
+        res = CliRunner().invoke(main, ["reduce", str(src), "-o", str(out), "-k", "2"])
+        assert "Traceback" not in res.output and isinstance(res.exception, (SystemExit, type(None))), res.output
+        if res.exit_code == 0:
+            with Image.open(out) as im:
+                assert im.size == (30, 20)
+        else:
+            _assert_one_line_failure(res, 1, src.name)
+            assert not out.exists()
+        assert src.read_bytes() == before
+
+
+def test_tifffile_messages_become_one_note_and_its_logger_is_left_as_it_was(tmp_path):
+    import logging
+    import struct
+    import warnings
+
+    from quantize import load_image
+
+    tifffile = pytest.importorskip("tifffile")
+    rng = np.random.default_rng(2)
+    src = tmp_path / "extra.tif"
+    # ExtraSamples (338) values are 0-2 (TIFF 6.0); 9 makes tifffile log an error and skip the tag.
+    tifffile.imwrite(src, rng.integers(0, 65535, (20, 30, 4), dtype=np.uint16), photometric="rgb",
+                     extrasamples=[2])
+    _retag_tiff(src, 338, value=struct.pack("<HH", 9, 0))
+    logger = logging.getLogger("tifffile")
+    state = (list(logger.filters), list(logger.handlers), logger.level, logger.propagate, logger.disabled)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        load_image(src)
+    assert (list(logger.filters), list(logger.handlers), logger.level, logger.propagate, logger.disabled) == state
+    assert sum("338" in str(w.message) for w in caught) == 1
+    # A real process: inside pytest, warnings are recorded rather than printed, and logging is set up.
+    spp = tmp_path / "spp8.tif"
+    tifffile.imwrite(spp, rng.integers(0, 255, (20, 30, 3), dtype=np.uint8), photometric="rgb")
+    _retag_tiff(spp, 277, count=2, value=struct.pack("<HH", 3, 3))
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    for image, tag in ((src, "338"), (spp, "277")):
+        p = subprocess.run([sys.executable, "-m", "quantize", "reduce", str(image), "-o", str(image) + ".png",
+                            "-k", "2", "--restarts", "1"], capture_output=True, text=True, env=env, check=False)
+        assert p.returncode == 0, p.stderr
+        lines = [ln for ln in p.stderr.splitlines() if ln.strip()]
+        # Before: tifffile's "<tifffile.TiffTag 338 @190> raised ValueError(...)" and Pillow's "Metadata
+        # Warning" printed raw, without the file's name.
+        assert all(ln.startswith(f"quantize: warning: {image}: ") for ln in lines), p.stderr
+        assert sum(tag in ln for ln in lines) == 1, p.stderr
+
+
+# --------------------------------------------------------------------------- names and paths
+
+def test_an_output_path_longer_than_path_max_is_one_line(tmp_path):
+    # Linux's PATH_MAX is 4096 bytes (limits.h); each part stays under NAME_MAX (255).
+    src = _png(tmp_path / "a.png")
+    out = tmp_path.joinpath(*["d" * 200] * 25, "o.png")
+    assert len(os.fsencode(out)) > 4096
+    res = _cli("reduce", src, "-o", out, "-k", "2")
+    line = _assert_one_line_failure(res, 1, "too long")
+    assert len(line) < 500
+
+
+@pytest.mark.parametrize("command", [
+    ["fit", "{img}", "-k", "2"], ["reduce", "{img}", "-k", "2"], ["apply", "{pal}", "{img}"],
+    ["separate", "{img}", "-n", "2"], ["batch", "{dir}", "-k", "2"]], ids=lambda c: c[0])
+def test_an_empty_output_name_is_a_usage_error(tmp_path, command, monkeypatch):
+    img = _png(tmp_path / "in" / "a.png")
+    pal = tmp_path / "p.palette.json"
+    pal.write_text(json.dumps(_palette_doc()))
+    monkeypatch.chdir(tmp_path)  # '' used to mean this folder
+    before = _snapshot(tmp_path)
+    args = [a.format(img=img, pal=pal, dir=img.parent) for a in command] + ["-o", ""]
+    res = _cli(*args)
+    assert res.exit_code == 2 and "is empty" in res.output and "Traceback" not in res.output, res.output
+    assert _snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("command", ["fit", "reduce"])
+def test_a_file_output_ending_in_a_slash_is_refused_as_a_folder_name(tmp_path, command):
+    # fit wrote a file named "pp" for "-o pp/" before; reduce said "unsupported extension".
+    img = _png(tmp_path / "a.png")
+    before = _snapshot(tmp_path)
+    res = _cli(command, img, "-k", "2", "-o", f"{tmp_path}/pp/")
+    assert res.exit_code == 2 and "names a folder" in res.output, res.output
+    assert _snapshot(tmp_path) == before and not (tmp_path / "pp").exists()
+
+
+def _bytes_name(folder: Path, raw: bytes) -> Path:
+    """A path whose last part holds bytes that are not UTF-8, as Python spells it (PEP 383)."""
+    return folder / os.fsdecode(raw)
+
+
+def test_file_names_that_are_not_utf8_are_processed(tmp_path):
+    src = _bytes_name(tmp_path, b"art\xff\xfe.png")
+    _png(src)
+    out = _bytes_name(tmp_path, b"out\xe9.png")
+    res = _cli("reduce", src, "-o", out, "-k", "2", "--keep-palette")
+    assert res.exit_code == 0, res.output
+    assert os.path.exists(os.fsencode(out))
+    # The palette JSON names its source with \udcXX escapes: json.loads and os.fsencode give the bytes back.
+    raw = Path(str(out)[:-4] + ".palette.json").read_text(encoding="utf-8")
+    assert "art\\udcff\\udcfe.png" in raw
+    assert b"art\xff\xfe.png" in os.fsencode(json.dumps(json.loads(raw), ensure_ascii=False))
+    # A real process (stdout is a pipe, strict UTF-8 before): the summary names the file.
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]), PYTHONIOENCODING="utf-8")
+    p = subprocess.run([os.fsencode(sys.executable), b"-m", b"quantize", b"reduce", os.fsencode(src), b"-o",
+                        os.fsencode(out), b"-k", b"2", b"--force", b"--restarts", b"1"],
+                       capture_output=True, env=env, check=False)
+    assert p.returncode == 0 and b"Traceback" not in p.stderr, p.stderr
+    assert b"art\xff\xfe.png" in p.stdout
+
+
+def test_a_batch_of_names_that_are_not_utf8_writes_its_manifest(tmp_path):
+    folder = _bytes_name(tmp_path, b"in\xff")
+    _png(_bytes_name(folder, b"x\xfe.png"))
+    _png(folder / "good.png")
+    out = tmp_path / "out"
+    res = _cli("batch", folder, "-o", out, "-k", "2", "--workers", "1")
+    assert res.exit_code == 0, res.output
+    doc = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    names = sorted(os.fsencode(row["input"]) for row in doc["images"])
+    assert names == [b"good.png", b"x\xfe.png"]  # \udcfe in the JSON: the same bytes back
+    assert "x\\udcfe.png" in (out / "manifest.csv").read_text(encoding="utf-8")
+    assert os.path.exists(os.fsencode(_bytes_name(out, b"x\xfe.png")))
+    again = _cli("batch", folder, "-o", out, "-k", "2", "--workers", "1")
+    assert again.exit_code == 0 and "2 up to date" in again.output, again.output
+
+
+@pytest.mark.parametrize("code, count, value, words", [
+    # TIFF 6.0: each of these tags holds one value. Found by byte-level mutants of 16-bit TIFFs (TypeError,
+    # AttributeError in the 16-bit reader before).
+    (262, 2, (2, 2), "PhotometricInterpretation (2 values"),
+    (256, 2, (16, 16), "cannot decode"),
+    (259, None, (9999, 0), "TIFF file that cannot be read"),  # a compression no reader knows
+], ids=["photometric-two-values", "width-two-values", "unknown-compression"])
+def test_damaged_tags_of_a_16bit_tiff_are_one_line(tmp_path, code, count, value, words):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    src = tmp_path / "deep.tif"
+    tifffile.imwrite(src, np.random.default_rng(5).integers(0, 65535, (12, 16, 4), dtype=np.uint16),
+                     photometric="rgb", extrasamples=[2])
+    _retag_tiff(src, code, count=count, value=struct.pack("<HH", *value))
+    before = src.read_bytes()
+    res = _cli("reduce", src, "-o", tmp_path / "o.png", "-k", "2")
+    _assert_one_line_failure(res, 1, "deep.tif", words)
+    assert src.read_bytes() == before and not (tmp_path / "o.png").exists()
+
+
+def test_batch_records_a_damaged_tiff_as_bad_input_not_an_internal_error(tmp_path):
+    import struct
+
+    tifffile = pytest.importorskip("tifffile")
+    (tmp_path / "in").mkdir()
+    _png(tmp_path / "in" / "good.png")
+    bad = tmp_path / "in" / "bad.tif"
+    tifffile.imwrite(bad, np.random.default_rng(6).integers(0, 65535, (12, 16, 3), dtype=np.uint16),
+                     photometric="rgb")
+    _retag_tiff(bad, 262, count=2, value=struct.pack("<HH", 2, 2))
+    res = _cli("batch", tmp_path / "in", "-o", tmp_path / "out", "-k", "2", "--workers", "1")
+    assert res.exit_code == 1 and "Traceback" not in res.output
+    rows = {r["input"]: r for r in json.loads((tmp_path / "out" / "manifest.json").read_text())["images"]}
+    assert rows["good.png"]["status"] == "ok"
+    assert rows["bad.tif"]["status"] == "failed"
+    assert "PhotometricInterpretation" in rows["bad.tif"]["error"] and "internal error" not in rows["bad.tif"]["error"]

@@ -1040,3 +1040,145 @@ def test_a_16_bit_png_whose_data_ends_early_is_refused(tmp_path, cat_pixels):
     with pytest.raises(ImageReadError, match="truncated or damaged") as exc:
         load_image(short)
     _one_line_naming(exc, short)
+
+
+# --------------------------------------------------------------------------- CMYK through a press profile
+
+_D50_XY = (0.3457, 0.3585)  # CIE 15:2004 table T.3, the ICC PCS illuminant's chromaticity
+
+
+def _press_lab(cmyk01: np.ndarray, *, paper: float = 0.9) -> np.ndarray:
+    """An invented press (demo data, not a real characterisation): each ink absorbs part of the light,
+    black darkens everything; the paper reflects `paper`. CMYK 0-1 -> CIELAB (D50) via colour-science."""
+    colour = pytest.importorskip("colour")
+    c = np.asarray(cmyk01, float)
+    linear = paper * (1 - 0.85 * c[..., :3]) ** 1.6 * (1 - 0.92 * c[..., 3:4]) ** 1.6
+    xyz = colour.RGB_to_XYZ(linear, colour.RGB_COLOURSPACES["sRGB"], illuminant=np.array(_D50_XY),
+                            chromatic_adaptation_transform="Bradford")
+    return colour.XYZ_to_Lab(xyz, np.array(_D50_XY))
+
+
+def _s15(v: float) -> bytes:
+    return struct.pack(">i", int(round(v * 65536)))  # s15Fixed16Number, ICC.1:2001-04 5.1.3
+
+
+def _cmyk_profile(path: Path, *, grid: int = 6, paper: float = 0.9, name: bytes = b"Test press") -> Path:
+    """A version 2 output profile (ICC.1:2001-04) whose A2B0 lut16Type (6.5.7) samples :func:`_press_lab`
+    on a grid; Lab PCS in the 16-bit legacy encoding (L* 0-100 -> 0-0xFF00, a*/b* (v + 128) * 256)."""
+    nodes = np.linspace(0, 1, grid)
+    at = np.stack(np.meshgrid(nodes, nodes, nodes, nodes, indexing="ij"), -1).reshape(-1, 4)  # C varies slowest
+    lab = _press_lab(at, paper=paper)
+    clut = np.column_stack([np.rint(np.clip(lab[:, 0], 0, 100) * 652.8),
+                            np.rint((np.clip(lab[:, 1:], -128, 127.99) + 128) * 256)]).astype(">u2").tobytes()
+    identity = struct.pack(">2H", 0, 65535)
+    mft2 = (b"mft2" + bytes(4) + bytes([4, 3, grid, 0]) + b"".join(_s15(v) for v in (1, 0, 0, 0, 1, 0, 0, 0, 1))
+            + struct.pack(">HH", 2, 2) + identity * 4 + clut + identity * 3)
+    text = name + b"\0"
+    tags = [(b"desc", b"desc" + bytes(4) + struct.pack(">I", len(text)) + text + bytes(8 + 3 + 67)),
+            (b"wtpt", b"XYZ " + bytes(4) + _s15(0.9642) + _s15(1.0) + _s15(0.8249)),
+            (b"cprt", b"text" + bytes(4) + b"Test data\0"),
+            (b"A2B0", mft2)]
+    start, table, data = 128 + 4 + 12 * len(tags), b"", b""
+    for sig, body in tags:
+        data += bytes(-(start + len(data)) % 4)  # tag data starts on a 4-byte boundary
+        table += sig + struct.pack(">II", start + len(data), len(body))
+        data += body
+    header = (struct.pack(">I", start + len(data)) + bytes(4) + bytes([2, 0x10, 0, 0]) + b"prtrCMYKLab "
+              + bytes(12) + b"acsp" + bytes(24 + 4) + _s15(0.9642) + _s15(1.0) + _s15(0.8249) + bytes(48))
+    assert len(header) == 128
+    path.write_bytes(header + struct.pack(">I", len(tags)) + table + data)
+    return path
+
+
+def _de00_to_reference(rgb8: np.ndarray, cmyk8: np.ndarray, **press) -> np.ndarray:
+    """ΔE00 of decoded sRGB codes from the press model's own colour, each through colour-science
+    (CIELAB D50 -> XYZ -> Bradford to D65 -> sRGB, IEC 61966-2-1), the reference quantised to 8 bits."""
+    colour = pytest.importorskip("colour")
+    d50 = np.array(_D50_XY)
+    want = colour.XYZ_to_sRGB(colour.Lab_to_XYZ(_press_lab(cmyk8 / 255.0, **press), d50), illuminant=d50,
+                              chromatic_adaptation_transform="Bradford")
+    lab = [colour.XYZ_to_Lab(colour.sRGB_to_XYZ(v)) for v in (rgb8 / 255.0, np.rint(np.clip(want, 0, 1) * 255) / 255)]
+    return colour.delta_E(lab[0], lab[1], method="CIE 2000")
+
+
+def _cmyk_grid_image(path: Path) -> np.ndarray:
+    # Values on the profile's grid nodes (multiples of 51), so its interpolation adds no error of its own.
+    cmyk = (np.random.default_rng(3).integers(0, 6, (12, 16, 4)) * 51).astype(np.uint8)
+    Image.fromarray(cmyk, "CMYK").save(path)
+    return cmyk
+
+
+def test_cmyk_without_profile_is_read_through_the_profile_given(tmp_path):
+    cmyk = _cmyk_grid_image(tmp_path / "art.tif")
+    press = _cmyk_profile(tmp_path / "press.icc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", ProfileWarning)  # the profile given is no guess: no warning
+        pic = load_image(tmp_path / "art.tif", cmyk_profile=press)
+    assert _de00_to_reference(pic.rgb, cmyk).max() < 1.0
+    assert pic.profile == f"Test press (assumed: {press})"  # says which was assumed
+    # The naive formula is far from this press: the check above can fail.
+    with pytest.warns(ProfileWarning, match="--cmyk-profile"):
+        naive = load_image(tmp_path / "art.tif")
+    assert _de00_to_reference(naive.rgb, cmyk).max() > 5.0
+
+
+def test_assume_cmyk_profile_applies_within_its_block_and_is_restored(tmp_path):
+    _cmyk_grid_image(tmp_path / "art.tif")
+    press = _cmyk_profile(tmp_path / "press.icc")
+    direct = load_image(tmp_path / "art.tif", cmyk_profile=press)
+    with images.assume_cmyk_profile(press):
+        assert images.assumed_cmyk_profile() == str(press)
+        inside = load_image(tmp_path / "art.tif")
+        as_pic = as_picture(tmp_path / "art.tif")
+    assert images.assumed_cmyk_profile() is None
+    np.testing.assert_array_equal(inside.rgb, direct.rgb)
+    np.testing.assert_array_equal(as_pic.rgb, direct.rgb)
+
+
+def test_an_embedded_cmyk_profile_wins_over_the_one_given(tmp_path):
+    cmyk = _cmyk_grid_image(tmp_path / "plain.tif")
+    own = _cmyk_profile(tmp_path / "own.icc", paper=0.7, name=b"Own press")
+    Image.fromarray(cmyk, "CMYK").save(tmp_path / "tagged.tif", icc_profile=own.read_bytes())
+    pic = load_image(tmp_path / "tagged.tif", cmyk_profile=_cmyk_profile(tmp_path / "other.icc"))
+    assert pic.profile == "Own press"
+    assert _de00_to_reference(pic.rgb, cmyk, paper=0.7).max() < 1.0
+
+
+def test_a_cmyk_profile_that_is_not_one_is_refused_naming_it(tmp_path):
+    _cmyk_grid_image(tmp_path / "art.tif")
+    rgb = tmp_path / "srgb.icc"
+    rgb.write_bytes(ImageCms.ImageCmsProfile(ImageCms.createProfile("sRGB")).tobytes())
+    junk = tmp_path / "junk.icc"
+    junk.write_bytes(b"\0" * 500)
+    for bad, words in ((rgb, "not CMYK"), (junk, "not an ICC profile"), (tmp_path / "none.icc", "no such")):
+        with pytest.raises(ImageReadError, match=words) as err:
+            load_image(tmp_path / "art.tif", cmyk_profile=bad)
+        assert str(err.value).startswith(str(bad))
+
+
+def test_cmyk_profile_option_on_reduce_and_batch(tmp_path):
+    from click.testing import CliRunner
+
+    from quantize.cli.main import main
+
+    (tmp_path / "in").mkdir()
+    cmyk = _cmyk_grid_image(tmp_path / "in" / "art.tif")
+    press = _cmyk_profile(tmp_path / "press.icc")
+    out = tmp_path / "r.tif"
+    res = CliRunner().invoke(main, ["reduce", str(tmp_path / "in" / "art.tif"), "-o", str(out), "-k", "256",
+                                    "--cmyk-profile", str(press)])
+    assert res.exit_code == 0 and "naive" not in res.output, res.output
+    with Image.open(out) as im:  # 192 pixels, so at most 192 colours: all kept, and the file shows the reading
+        assert _de00_to_reference(np.asarray(im.convert("RGB")), cmyk).max() < 1.5
+    res = CliRunner().invoke(main, ["batch", str(tmp_path / "in"), "-o", str(tmp_path / "b"), "-k", "256",
+                                    "--format", "tif", "--workers", "2", "--cmyk-profile", str(press)])
+    assert res.exit_code == 0, res.output
+    with Image.open(tmp_path / "b" / "art.tif") as im:  # read in a worker process
+        assert _de00_to_reference(np.asarray(im.convert("RGB")), cmyk).max() < 1.5
+    import json
+
+    manifest = json.loads((tmp_path / "b" / "manifest.json").read_text())
+    assert manifest["settings"]["cmyk_profile"] == str(press)  # a rerun with another profile redoes the images
+    res = CliRunner().invoke(main, ["reduce", str(tmp_path / "in" / "art.tif"), "-o", str(tmp_path / "x.png"),
+                                    "--cmyk-profile", str(tmp_path / "in" / "art.tif")])
+    assert res.exit_code == 2 and "not an ICC profile" in res.output and not (tmp_path / "x.png").exists()

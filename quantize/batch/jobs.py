@@ -61,6 +61,8 @@ class BatchJob:
     serpentine : bool, default=True
     nearest : str, default="auto"
         How the image is mapped, as :meth:`quantize.palette.Palette.apply` takes it.
+    cmyk_profile : str or None, default=None
+        ICC profile for CMYK inputs without an embedded one (``load_image``'s ``cmyk_profile``).
     """
 
     path: str
@@ -76,6 +78,7 @@ class BatchJob:
     dither_strength: float = 1.0
     serpentine: bool = True
     nearest: str | None = "auto"
+    cmyk_profile: str | None = None
 
     @staticmethod
     def fit_fields(settings) -> tuple:
@@ -155,7 +158,7 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
     with _WARNINGS_LOCK, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            pic = load_image(job.path, max_pixels=job.max_pixels)
+            pic = load_image(job.path, max_pixels=job.max_pixels, cmyk_profile=job.cmyk_profile)
             if palette_doc is None:
                 pal = fit_palette(pic, job.k, settings=job.fit_settings())
             else:
@@ -197,7 +200,7 @@ def sample_image(job: BatchJob) -> SampledImage:
     with _WARNINGS_LOCK, warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the mapping pass reports the same notes
         try:
-            s = sample_picture(load_image(job.path, max_pixels=job.max_pixels))
+            s = sample_picture(load_image(job.path, max_pixels=job.max_pixels, cmyk_profile=job.cmyk_profile))
         except Exception as exc:  # noqa: BLE001 - recorded as this image's failure
             return SampledImage(error=_one_line(exc))
     return SampledImage(ColourSample(codes=s.codes, weights=s.weights, bit_depth=s.bit_depth, n_pixels=s.n_pixels))

@@ -178,6 +178,10 @@ def _manifest_settings(s: BatchSettings) -> dict:
     # The package version is part of the settings: a new engine redoes the images.
     settings: dict[str, Any] = {"quantize": __version__, "mode": s.mode, "k": "auto" if s.k is None else str(s.k), "space": s.space, "seed": s.seed,
                 "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
+    from quantize.io.read import assumed_cmyk_profile
+
+    if assumed_cmyk_profile() is not None:  # only when given, so that earlier manifests still match
+        settings["cmyk_profile"] = os.path.abspath(assumed_cmyk_profile())
     f = s.fit
     # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
     settings.update(rule=f.rule, kind=f.kind, target=f.target, target_stat=f.target_stat, locked=list(f.locked),
@@ -266,7 +270,7 @@ class _Run:
 
     def plan(self) -> list[BatchJob]:
         """One job per image; images whose outputs would collide are failed instead."""
-        from quantize.io.read import DEFAULT_MAX_PIXELS
+        from quantize.io.read import DEFAULT_MAX_PIXELS, assumed_cmyk_profile
 
         s = self.settings
         owned = {o for r in self.prev_rows.values() for o in (r.get("outputs") or [])}
@@ -279,6 +283,8 @@ class _Run:
         # fit's own second thread would only contend with the other worker.
         threads = s.cluster is None and (s.workers in (0, 1) or (s.workers is None and (os.cpu_count() or 1) == 1))
         fit = BatchJob.fit_fields(s.fit)
+        cmyk_profile = assumed_cmyk_profile()  # the caller's assume_cmyk_profile, carried to the workers
+        cmyk_profile = None if cmyk_profile is None else os.path.abspath(cmyk_profile)
         for rel in self.rels:
             out_rel = rel.with_suffix("." + s.fmt).as_posix()
             outs_rel = (out_rel,) + ((rel.with_suffix(".palette.json").as_posix(),) if s.mode == "per-image" else ())
@@ -286,7 +292,7 @@ class _Run:
                            outputs_rel=outs_rel, replace=s.force or any(o in owned for o in outs_rel), k=s.k,
                            max_pixels=DEFAULT_MAX_PIXELS if s.max_pixels is None else s.max_pixels,
                            fit=fit, threads=threads, dither=s.dither, dither_strength=s.dither_strength,
-                           serpentine=s.serpentine, nearest=s.nearest)
+                           serpentine=s.serpentine, nearest=s.nearest, cmyk_profile=cmyk_profile)
             by_output.setdefault(out_rel, []).append(job)
             jobs.append(job)
         for out_rel, same in by_output.items():

@@ -77,6 +77,45 @@ def _k_option(value: str) -> str:
     return from_
 
 
+def _output_file(ctx, param, value):
+    """-o for one output file: neither empty nor ending in a path separator (a folder's name)."""
+    if value == "":
+        raise click.BadParameter("is empty; give the name of the file to write")
+    if value.endswith(("/", "\\")):
+        raise click.BadParameter(f"{value!r} ends in {value[-1]!r}, so it names a folder; give the name of "
+                                 "the file to write, such as out.png")
+    return value
+
+
+def _output_folder(ctx, param, value):
+    """-o for an output folder: not empty (an empty name would silently mean the current folder)."""
+    if value == "":
+        raise click.BadParameter("is empty; give the folder to write into ('.' for the current folder)")
+    return value
+
+
+def _use_cmyk_profile(ctx, param, value):
+    """Read CMYK images without an embedded profile through this ICC profile for the whole command."""
+    if value is None:
+        return
+    from quantize.errors import QuantizeError
+    from quantize.io.read import assume_cmyk_profile
+
+    try:
+        ctx.with_resource(assume_cmyk_profile(value))
+    except QuantizeError as exc:
+        raise click.BadParameter(str(exc)) from exc
+
+
+def _cmyk_profile_option(f):
+    return click.option(
+        "--cmyk-profile", type=click.Path(dir_okay=False), default=None, expose_value=False,
+        callback=_use_cmyk_profile,
+        help="ICC profile (CMYK) of the press a CMYK image was separated for: CMYK images without an "
+             "embedded profile are read through it. Without it they are read with a naive formula, with a "
+             "warning. An embedded profile always wins.")(f)
+
+
 def _seed_option(ctx, param, value):
     """--seed checked by the library's own validator, named as the option that was wrong."""
     from quantize.fit.settings import FitSettings

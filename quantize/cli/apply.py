@@ -9,6 +9,8 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _cmyk_profile_option,
+    _output_folder,
     _check_outputs,
     _emit,
     _Failure,
@@ -29,7 +31,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @click.command()
 @click.argument("palette", type=click.Path(exists=True, dir_okay=False))
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "outdir", required=True, callback=_output_folder, type=click.Path(file_okay=False),
               help="Folder for the reduced images (created if missing).")
 @click.option("--format", "fmt", type=click.Choice(("png", "webp", "gif", "tif", "jpg")), default="png",
               show_default=True, help="Output file type: indexed PNG, lossless WebP, GIF, RGB TIFF or JPEG.")
@@ -39,6 +41,7 @@ from .dither_options import dither_options, error_map_paths, pop_dither_options,
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, force, as_json, **dither_opts):
     """Map IMAGES onto a saved PALETTE (no refit) and write them to a folder."""

@@ -15,7 +15,7 @@ import click
 # Choices and defaults from the library's settings module, which imports nothing heavy.
 from quantize.batch.settings import DEFAULT_WORST, FORMATS, WEIGHTINGS
 
-from ._common import _check_indexed_size, _Failure, _fit_options, _fit_settings, _quiet, _with_schema
+from ._common import _cmyk_profile_option, _output_folder, _check_indexed_size, _Failure, _fit_options, _fit_settings, _quiet, _with_schema
 from .dither_options import dither_method_options, pop_dither_options
 
 #: Exit code when the run finished but some images failed.
@@ -52,7 +52,7 @@ def _fail(ctx: click.Context, exc: BaseException):
 
 @click.command()
 @click.argument("input_dir", type=click.Path(file_okay=False))
-@click.option("-o", "--output", "output_dir", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "output_dir", required=True, callback=_output_folder, type=click.Path(file_okay=False),
               help="Folder for the reduced images; the input's folder structure is mirrored.")
 @click.option("--include", multiple=True, metavar="GLOB",
               help="Only files matching this pattern (repeatable; default: common image types).")
@@ -77,6 +77,7 @@ def _fail(ctx: click.Context, exc: BaseException):
               help="How many worst-fitting images the one-palette report lists.")
 @click.option("--force", is_flag=True, help="Redo every image and replace existing files.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def batch(ctx, input_dir, output_dir, include, exclude, palette_file, shared, shared_weighting, fmt, workers,
           cluster, worst, force, as_json, **fit_opts):

@@ -7,6 +7,8 @@ import time
 import click
 
 from ._common import (
+    _cmyk_profile_option,
+    _output_file,
     _check_outputs,
     _emit,
     _fit_options,
@@ -24,12 +26,13 @@ from ._common import (
 
 @click.command()
 @click.argument("images", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Palette JSON file to write.")
+@click.option("-o", "--output", required=True, callback=_output_file, type=click.Path(dir_okay=False), help="Palette JSON file to write.")
 @_fit_options
 @click.option("--weighting", type=click.Choice(("equal", "pixels")), default="equal", show_default=True,
               help="Pooled images count equally, or by their pixel count.")
 @click.option("--force", is_flag=True, help="Replace an existing palette file.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def fit(ctx, images, output, weighting, force, as_json, **fit_opts):
     """Fit one palette to one or many IMAGES (pooled) and save it as JSON."""

@@ -103,6 +103,21 @@ def _log_to_stderr(ctx: click.Context, verbose: int) -> None:
     ctx.call_on_close(restore)
 
 
+def _names_in_any_bytes(ctx: click.Context) -> None:
+    """Print file names whose bytes are not UTF-8 instead of failing on them.
+
+    Python reads such a name as lone surrogates (PEP 383); a strict stream cannot encode them.
+    The ``surrogateescape`` handler writes the name's own bytes back, as Python does in the POSIX
+    locale. Only strict streams are changed, and each is restored when the command ends.
+    """
+    import sys
+
+    for stream in (sys.stdout, sys.stderr):
+        if getattr(stream, "errors", None) == "strict" and hasattr(stream, "reconfigure"):
+            stream.reconfigure(errors="surrogateescape")
+            ctx.call_on_close(lambda s=stream: s.reconfigure(errors="strict"))
+
+
 def _warning_line(message, category, filename, lineno, line=None) -> str:
     """Warnings as one line, like errors, without the source line Python adds."""
     text = (str(message).splitlines() or [category.__name__])[0]
@@ -133,6 +148,7 @@ def main(ctx, debug, colour, verbose, quiet):
     ctx.obj["quiet"] = quiet
     _log_to_stderr(ctx, verbose)
     _stop_on_terminate(ctx)
+    _names_in_any_bytes(ctx)
     if not debug:
         saved = warnings.formatwarning
         warnings.formatwarning = _warning_line

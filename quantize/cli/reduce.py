@@ -8,6 +8,8 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _cmyk_profile_option,
+    _output_file,
     _check_indexed_size,
     _check_room_for_transparency,
     _check_outputs,
@@ -32,7 +34,7 @@ from .dither_options import dither_options, pop_dither_options, run_dither_outpu
 
 @click.command()
 @click.argument("image", type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+@click.option("-o", "--output", required=True, callback=_output_file, type=click.Path(dir_okay=False),
               help="Reduced image: .png (indexed), .webp (lossless), .gif, .tif or .jpg.")
 @_fit_options
 @dither_options
@@ -40,6 +42,7 @@ from .dither_options import dither_options, pop_dither_options, run_dither_outpu
 @_report_option
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_opts):
     """Fit a palette to IMAGE and write the reduced image to OUTPUT."""

@@ -29,7 +29,7 @@ from quantize.separation.defaults import (
     DEFAULT_VIEW_DISTANCE_MM,
 )
 
-from ._common import _quiet, _run
+from ._common import _cmyk_profile_option, _output_folder, _quiet, _run
 
 _UNITS_MM = {"mm": 1.0, "cm": 10.0, "in": 25.4, '"': 25.4}
 
@@ -60,7 +60,7 @@ class PrintSize(click.ParamType):
 
 @click.command("separate")
 @click.argument("image", type=click.Path(exists=True, dir_okay=False))
-@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "outdir", required=True, callback=_output_folder, type=click.Path(file_okay=False),
               help="Folder for the plates, preview and manifest (created if missing).")
 @click.option("--palette", "palette_file", type=click.Path(exists=True, dir_okay=False),
               help="Use the colours of a saved palette JSON.")
@@ -153,6 +153,7 @@ class PrintSize(click.ParamType):
 @click.option("--view-distance", "view_distance", type=PrintSize(), default=DEFAULT_VIEW_DISTANCE_MM,
               show_default="1000 mm", metavar="LENGTH",
               help="Viewing distance for the perceived ΔE00 of the simulated print (e.g. 1m is 1000mm, 40in).")
+@_cmyk_profile_option
 @click.pass_context
 def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, substrate, dpi, print_width,
              print_height, film_dpi, mirror, negative, job, no_pdf, min_feature_mm,

@@ -13,6 +13,7 @@ from pathlib import Path
 import click
 
 from ._common import (
+    _cmyk_profile_option,
     DEFAULT_K_TEXT,
     _check_outputs,
     _emit,
@@ -66,6 +67,7 @@ def _decoded(images, max_pixels) -> list:
                    "the plots extra).")
 @click.option("--force", is_flag=True, help="Replace existing outputs.")
 @click.option("--json", "as_json", is_flag=True, help="Print a machine-readable summary.")
+@_cmyk_profile_option
 @click.pass_context
 def sweep(ctx, images, ks, warm, weighting, max_pixels, table_csv, table_json, plot, swatches, report_dir, force,
           as_json, **fit_opts):

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import contextlib
+import logging
+import re
 import struct
 import threading
 import warnings
@@ -87,6 +90,48 @@ def orientation_value(value: object, name: str, notes: list[_Note]) -> int:
         return 1
     notes.append((ImageWarning, f"{name}: damaged orientation tag ({str(value)[:40]}); orientation ignored"))
     return 1
+
+
+@contextlib.contextmanager
+def tiff_log_notes(name: str, notes: list[_Note]):
+    """Turn what tifffile logs while reading ``name`` (a damaged tag it skipped, say) into one note.
+
+    tifffile reports such faults through the ``logging`` module, which with no handler set up prints
+    them raw on stderr, even when the file then reads well.  A filter on tifffile's logger takes the
+    records for the duration of the block and is removed after it, so the logger is left as it was.
+    """
+    records: list[logging.LogRecord] = []
+
+    def keep(record: logging.LogRecord) -> bool:
+        if record.levelno >= logging.WARNING:
+            records.append(record)
+            return False
+        return True
+
+    logger = logging.getLogger("tifffile")
+    logger.addFilter(keep)
+    try:
+        yield
+    finally:
+        logger.removeFilter(keep)
+        # The orientation tag's fault is noted where the tag is read, on either route.
+        records = [r for r in records if "TiffTag 274 " not in str(r.msg)]
+        if records:
+            notes.append((ImageWarning, f"{name}: {_tiff_log_text(records[0])}"
+                          + (f" (and {len(records) - 1} more)" if len(records) > 1 else "")))
+
+
+def _tiff_log_text(record: logging.LogRecord) -> str:
+    try:
+        text = record.getMessage()
+    except Exception:  # noqa: BLE001 - a message that does not format is still a fault to note
+        text = str(record.msg)
+    text = " ".join(text.split())
+    tag = re.search(r"TiffTag (\d+)", text)
+    why = re.search(r"raised \w+\((.*)\)$", text)
+    if tag and why:
+        return f"damaged TIFF tag {tag.group(1)} ignored ({why.group(1).strip(chr(39) + chr(34))[:100]})"
+    return f"TIFF reader: {text[:150]}"
 
 
 def to_8bit(a: np.ndarray) -> np.ndarray:

@@ -17,6 +17,7 @@ import numpy as np
 from PIL import Image
 
 from quantize.core.picture import ImageWarning
+from quantize.errors import ImageReadError
 
 from ._decode import (
     DECODE_ERRORS,
@@ -26,6 +27,7 @@ from ._decode import (
     exif_orientation,
     open_pil,
     orientation_value,
+    tiff_log_notes,
 )
 
 __all__ = ["read_png16", "read_tiff16"]
@@ -89,35 +91,41 @@ def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
     """16-bit RGB(A) and grey+alpha TIFF via tifffile. Returns None if Pillow can read the file in full."""
     import tifffile
 
-    try:
-        tif = tifffile.TiffFile(path)
-    except (tifffile.TiffFileError, *DECODE_ERRORS):
-        return None  # let Pillow try and explain
-    with tif:
-        page = tif.pages[0]
-        photometric = int(page.photometric)
-        if page.bitspersample == 16 and photometric == 5:
+    with tiff_log_notes(name, notes):
+        try:
+            tif = tifffile.TiffFile(path)
+            page = tif.pages[0]
+        except (tifffile.TiffFileError, TypeError, *DECODE_ERRORS):
+            return None  # let Pillow try and explain
+    with tif, tiff_log_notes(name, notes):
+        # A damaged tag can hold several values, or a number tifffile has no name for, where one is due.
+        photometric, bits, spp, width, height = (
+            _whole(getattr(page, attr), tag, name) for attr, tag in (
+                ("photometric", "PhotometricInterpretation"), ("bitspersample", "BitsPerSample"),
+                ("samplesperpixel", "SamplesPerPixel"), ("imagewidth", "ImageWidth"),
+                ("imagelength", "ImageLength")))
+        if bits == 16 and photometric == 5:
             notes.append((ImageWarning, f"{name}: 16-bit CMYK is read at 8 bits (LittleCMS via Pillow is 8-bit)"))
-        if page.bitspersample != 16 or page.samplesperpixel < 2 or photometric not in (1, 2) or page.dtype != np.uint16:
+        if bits != 16 or spp < 2 or photometric not in (1, 2) or page.dtype != np.uint16:
             return None
-        check_pixels(name, (page.imagewidth, page.imagelength), max_pixels)
+        check_pixels(name, (width, height), max_pixels)
         if len(tif.pages) > 1:
             notes.append((ImageWarning, f"{name}: holds {len(tif.pages)} pages; only the first is used"))
         tags = {tag.code: tag.value for tag in page.tags.values()}
-        extras = [int(e) for e in page.extrasamples]
+        extras = [_whole(e, "ExtraSamples", name) for e in np.atleast_1d(page.extrasamples)]
         if _tifffile_decodes(page):
             data = page.asarray()
             if page.axes == "SYX":
                 data = np.moveaxis(data, 0, -1)
             elif page.axes != "YXS":
                 raise ValueError(f"unsupported TIFF layout {page.axes}")
-        elif photometric == 2 and int(page.planarconfig) == 1:
+        elif photometric == 2 and _whole(page.planarconfig, "PlanarConfiguration", name) == 1:
             with open_pil(path) as img:
                 data = _hi_lo(img, path)
         else:
             notes.append((
                 ImageWarning,
-                f"{name}: {page.compression.name} compression of this layout needs the imagecodecs "
+                f"{name}: {getattr(page.compression, 'name', page.compression)} compression of this layout needs the imagecodecs "
                 "package to keep 16 bits; read at 8 bits",
             ))
             return None
@@ -132,7 +140,7 @@ def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
                     colour = np.where(a > 0, np.rint(np.clip(colour / a, 0, 1) * 65535), 0).astype(np.uint16)
             break
     else:
-        if extras:
+        if extras and not any("TIFF tag 338 " in text for _, text in notes):
             notes.append((ImageWarning, f"{name}: extra channel of unspecified meaning ignored"))
     dpi = None
     if 282 in tags and 283 in tags and tags.get(296, 2) in (2, 3):
@@ -140,6 +148,18 @@ def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
         dpi = dpi_pair([_rational(tags[282]) * per_unit, _rational(tags[283]) * per_unit])
     icc = tags.get(34675)
     return colour, alpha, bytes(icc) if icc else None, orientation_value(tags.get(274, 1), name, notes), dpi
+
+
+def _whole(value, tag: str, name: str) -> int:
+    """One whole number from a TIFF tag, or an ImageReadError naming the tag (TIFF 6.0 gives each of
+    these tags one value; a damaged file can hold a list, a fraction or a negative number)."""
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool) and int(value) >= 0:
+        return int(value)
+    if isinstance(value, (tuple, list, np.ndarray)):
+        detail = f"{len(value)} values where one is due"
+    else:
+        detail = f"value {str(value)[:40]}"
+    raise ImageReadError(f"{name}: damaged TIFF tag {tag} ({detail}); cannot read the image")
 
 
 def _rational(v) -> float:

@@ -176,8 +176,9 @@ def convert_8bit(base: Image.Image, icc: bytes | None, name: str, notes: list):
     elif base.mode == "CMYK":
         notes.append((
             ProfileWarning,
-            f"{name}: CMYK image without an embedded ICC profile; converted with Pillow's naive "
-            "formula, so colours are approximate",
+            f"{name}: CMYK image without an embedded ICC profile; read with the naive formula "
+            "R = (1 - C)(1 - K) (likewise G, B), which assumes no press, so colours are approximate; "
+            "give the press's CMYK ICC profile with --cmyk-profile (library: cmyk_profile=)",
         ))
     return np.asarray(base if base.mode == "RGB" else base.convert("RGB")), None
 

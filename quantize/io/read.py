@@ -46,6 +46,8 @@ Writing results (atomically) lives in :mod:`quantize.io.write`.
 from __future__ import annotations
 
 import contextlib
+import contextvars
+import io
 import logging
 import os
 import warnings
@@ -77,6 +79,8 @@ __all__ = [
     "Picture",
     "ProfileWarning",
     "as_picture",
+    "assume_cmyk_profile",
+    "assumed_cmyk_profile",
     "check_image_file",
     "load_image",
 ]
@@ -100,7 +104,8 @@ _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
 _log = logging.getLogger(__name__)
 
 
-def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -> Picture:
+def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS,
+               cmyk_profile: PathLike | None = None) -> Picture:
     """Read an image file as sRGB codes, upright, with its alpha.
 
     Parameters
@@ -111,6 +116,12 @@ def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -
     max_pixels : int or None, default DEFAULT_MAX_PIXELS
         Refuse images with more pixels than this, to guard against
         decompression bombs. ``None`` removes the limit.
+    cmyk_profile : str or path-like, optional
+        An ICC profile of CMYK colour space (the press characterisation the
+        file was separated for) to read a CMYK file that has no embedded
+        profile through. An embedded profile always wins. Without one (and
+        outside :func:`assume_cmyk_profile`), such a file is converted with the
+        naive formula, with a :class:`ProfileWarning`.
 
     Returns
     -------
@@ -124,7 +135,8 @@ def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -
     ImageReadError
         ``"<path>: <problem>"`` when the file is missing, a folder, empty,
         truncated or damaged, not an image, in an unsupported mode, over
-        `max_pixels`, or fully transparent.
+        `max_pixels`, or fully transparent; ``"<profile>: <problem>"`` when
+        `cmyk_profile` is not a readable CMYK ICC profile.
 
     Warns
     -----
@@ -160,10 +172,80 @@ def load_image(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIXELS) -
     >>> pic.shape, pic.bit_depth  # doctest: +SKIP
     ((1200, 900), 8)
     """
-    picture, notes = _read_file(path, max_pixels)
+    with assume_cmyk_profile(cmyk_profile):  # None: the context's own, if any
+        picture, notes = _read_file(path, max_pixels)
     for category, text in notes:
         warnings.warn(text, category, stacklevel=2)
     return picture
+
+
+# The CMYK profile :func:`assume_cmyk_profile` set for this context: (file name, profile bytes).
+_ASSUMED_CMYK: contextvars.ContextVar[tuple[str, bytes] | None] = contextvars.ContextVar(
+    "quantize_assumed_cmyk_profile", default=None)
+#: Largest ICC profile file read (bytes); press characterisations with big tables are a few MB.
+MAX_PROFILE_BYTES = 64 * 1024 * 1024
+
+
+@contextlib.contextmanager
+def assume_cmyk_profile(path: PathLike | None):
+    """Read CMYK files without an embedded profile through the ICC profile at ``path``, within the block.
+
+    Every :func:`load_image` and :func:`as_picture` of a path in this thread's context (the fit, sweep
+    and separation functions read their paths through them) uses it, unless given its own
+    ``cmyk_profile``. ``None`` does nothing. The setting is restored when the block ends.
+
+    Raises
+    ------
+    ImageReadError
+        ``"<path>: <problem>"`` when the file is missing, not an ICC profile, or not for CMYK data.
+
+    Examples
+    --------
+    >>> with assume_cmyk_profile("press.icc"):  # doctest: +SKIP
+    ...     pic = load_image("catalogue_cmyk.tif")
+    """
+    if path is None:
+        yield
+        return
+    token = _ASSUMED_CMYK.set(_cmyk_profile_file(path))
+    try:
+        yield
+    finally:
+        _ASSUMED_CMYK.reset(token)
+
+
+def assumed_cmyk_profile() -> str | None:
+    """The file :func:`assume_cmyk_profile` set for the current context, or None."""
+    current = _ASSUMED_CMYK.get()
+    return None if current is None else current[0]
+
+
+def _cmyk_profile_file(path: PathLike) -> tuple[str, bytes]:
+    """(name, bytes) of a CMYK ICC profile file, checked: ICC.1:2010 7.2.6 puts the data colour space
+    signature at bytes 16-19 of the header, 'CMYK' for four-colour press data."""
+    name = os.fspath(path)
+    if not os.path.exists(path):
+        raise ImageReadError(f"{name}: no such CMYK profile file")
+    check_regular_file(path, name)
+    try:
+        with open(path, "rb") as fh:
+            data = fh.read(MAX_PROFILE_BYTES + 1)
+    except OSError as exc:
+        raise ImageReadError(f"{name}: cannot read the file ({exc.strerror or exc})") from exc
+    if len(data) > MAX_PROFILE_BYTES:
+        raise ImageReadError(f"{name}: larger than {MAX_PROFILE_BYTES // 2**20} MB; not an ICC profile")
+    if len(data) < 132 or data[36:40] != b"acsp":  # the profile file signature (ICC.1:2010 7.2.9)
+        raise ImageReadError(f"{name}: not an ICC profile")
+    if data[16:20] != b"CMYK":
+        space = data[16:20].decode("latin-1").strip() or "?"
+        raise ImageReadError(f"{name}: an ICC profile for {space!r} data, not CMYK")
+    from PIL import ImageCms
+
+    try:
+        ImageCms.ImageCmsProfile(io.BytesIO(data))
+    except (ImageCms.PyCMSError, OSError, ValueError, TypeError) as exc:
+        raise ImageReadError(f"{name}: damaged ICC profile ({_reason(exc)})") from exc
+    return name, data
 
 
 def as_picture(obj: Picture | PathLike | Image.Image | np.ndarray) -> Picture:
@@ -209,7 +291,7 @@ def as_picture(obj: Picture | PathLike | Image.Image | np.ndarray) -> Picture:
         notes: list[_Note] = []
         with _decode_errors(name):
             obj.load()
-            picture = _finish(name, *_from_pil(obj, name, notes), notes)
+            picture = _finish(name, *_from_pil(obj, name, notes, _ASSUMED_CMYK.get()), notes)
     elif isinstance(obj, np.ndarray):
         return _picture_from_array(obj)
     else:
@@ -223,17 +305,57 @@ def as_picture(obj: Picture | PathLike | Image.Image | np.ndarray) -> Picture:
 
 
 @contextlib.contextmanager
-def _decode_errors(name: str):
+def _decode_errors(name: str, head: bytes = b""):
     try:
         yield
     except QuantizeError:
         raise
     except DECODE_ERRORS as exc:
-        raise ImageReadError(f"{name}: {_reason(exc)}") from exc
+        raise ImageReadError(f"{name}: {_reason(exc, head)}") from exc
+    except (TypeError, AttributeError, ZeroDivisionError, OverflowError, RuntimeError) as exc:
+        # Damaged tags reach Pillow's and tifffile's own code paths with values of the wrong kind
+        # ("Missing dimensions" is a TypeError). Raised inside a decoder, it is the file's fault;
+        # raised in this package's code, it is a bug and keeps its traceback.
+        if not _raised_in_decoder(exc):
+            raise
+        raise ImageReadError(f"{name}: {_reason(exc, head)}") from exc
 
 
-def _reason(exc: BaseException) -> str:
+@contextlib.contextmanager
+def _decoder_warnings(name: str, notes: list[_Note]):
+    """Keep what Pillow warns while decoding (a tag with too many values, say) as a note naming the file.
+
+    Such a warning would otherwise print without the file's name. The warning filters are restored on exit.
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    seen = set()
+    for w in caught:
+        text = " ".join(str(w.message).split())[:150]
+        if text not in seen:
+            seen.add(text)
+            notes.append((w.category if issubclass(w.category, (ImageWarning, ProfileWarning)) else ImageWarning,
+                          f"{name}: {text}"))
+
+
+def _raised_in_decoder(exc: BaseException) -> bool:
+    import tifffile
+
+    roots = tuple(os.path.dirname(m.__file__) + os.sep for m in (Image, tifffile) if m.__file__)
+    tb = exc.__traceback__
+    while tb is not None:
+        if tb.tb_frame.f_code.co_filename.startswith(roots):
+            return True
+        tb = tb.tb_next
+    return False
+
+
+def _reason(exc: BaseException, head: bytes = b"") -> str:
     if isinstance(exc, Image.UnidentifiedImageError):
+        if head[:4] in _TIFF_MAGIC:
+            # A TIFF header, but Pillow gives up on the tags: damage, or a compression it lacks.
+            return "a TIFF file that cannot be read (damaged tags, or a compression or layout Pillow does not read)"
         return "not an image file (or not in a format Pillow can read)"
     if isinstance(exc, MemoryError):
         return "not enough memory to decode the image"
@@ -301,8 +423,8 @@ def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIX
     ImageReadError
         As :func:`load_image` for those faults.
     """
-    name, p, _ = _file_head(path, max_pixels)
-    with _decode_errors(name), open_pil(p) as img:
+    name, p, head = _file_head(path, max_pixels)
+    with _decode_errors(name, head), open_pil(p) as img:
         check_pixels(name, img.size, max_pixels)
         return int(img.size[0]), int(img.size[1])
 
@@ -311,11 +433,12 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
     """Decode a file: the one place a file's pixels are read (:func:`load_image` and
     :func:`as_picture` both come here; tests/test_decode_once.py counts the calls)."""
     name, p, head = _file_head(path, max_pixels)
+    cmyk = _ASSUMED_CMYK.get()
 
     from quantize.io import _deep as _deep
 
     notes: list[_Note] = []
-    with _decode_errors(name):
+    with _decode_errors(name, head), _decoder_warnings(name, notes):
         if head[:8] == _PNG_SIGNATURE:
             check_png_chunks(p, name)
         deep = None
@@ -342,7 +465,7 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
                     h = img.size[1]
                     tail = np.asarray(img.crop((0, max(0, h - 2), img.size[0], h)))
                     _check_png_complete(tail.reshape(tail.shape[0], -1), p, name)
-                picture = _finish(name, *_from_pil(img, name, notes), notes)
+                picture = _finish(name, *_from_pil(img, name, notes, cmyk), notes)
     _log.info("read %s: %d x %d px, %d bit%s%s", name, picture.shape[1], picture.shape[0], picture.bit_depth,
               ", alpha" if picture.alpha is not None else "",
               f", profile {picture.profile!r}" if picture.profile else "")
@@ -389,8 +512,10 @@ _ORIENT: dict[int, Callable[[np.ndarray], np.ndarray]] = {
 }
 
 
-def _from_pil(img: Image.Image, name: str, notes: list[_Note]):
-    """A decoded Pillow image -> (colour, alpha, bit_depth, dpi, profile description)."""
+def _from_pil(img: Image.Image, name: str, notes: list[_Note], cmyk: tuple[str, bytes] | None = None):
+    """A decoded Pillow image -> (colour, alpha, bit_depth, dpi, profile description).
+
+    ``cmyk`` is the (file name, bytes) of the profile assumed for CMYK without an embedded one."""
     dpi = dpi_pair(img.info.get("dpi"))
     orientation = exif_orientation(img, name, notes)
     if orientation in _ORIENT:
@@ -425,6 +550,11 @@ def _from_pil(img: Image.Image, name: str, notes: list[_Note]):
     else:
         # convert() copies even when the mode is already right: skip it then.
         base = img if img.mode == "RGB" else img.convert("RGB")
+    if mode == "CMYK" and not icc and cmyk is not None:
+        colour, desc = convert_8bit(base, cmyk[1], name, notes)
+        desc = f"{desc} (assumed: {cmyk[0]})" if desc else None
+        _log.info("%s: CMYK without an embedded profile, read through %s", name, cmyk[0])
+        return colour, alpha, 8, dpi, desc
     colour, desc = convert_8bit(base, icc, name, notes)
     return colour, alpha, 8, dpi, desc
 

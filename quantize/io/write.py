@@ -12,6 +12,7 @@ import contextlib
 import contextvars
 import logging
 import os
+import re
 import tempfile
 import warnings
 from collections.abc import Callable, Iterable
@@ -296,11 +297,17 @@ def atomic_write_text(
 ) -> Path:
     """Write `text` as UTF-8 to `path` atomically. Options as :func:`atomic_write_bytes`.
 
+    A file name whose bytes are not UTF-8 comes into Python as lone surrogates U+DC80-U+DCFF
+    (PEP 383), which UTF-8 cannot hold. Each is written as the escape ``\\udcXX``: in a JSON file
+    (palette, manifest) that is a JSON string escape, so ``json.loads`` gives back the same name
+    and ``os.fsencode`` its bytes; in a CSV or HTML file it reads as the same six characters.
+
     Examples
     --------
     >>> atomic_write_text("report.txt", "6 inks\\n", force=True)  # doctest: +SKIP
     PosixPath('report.txt')
     """
+    text = re.sub("[\ud800-\udfff]", lambda m: f"\\u{ord(m.group()):04x}", text)
     return atomic_write_bytes(path, text.encode("utf-8"), force=force, inputs=inputs)
 
 
