@@ -1,5 +1,5 @@
 """``python -m quantize``: the same command line as ``quantize``."""
 
-from quantize.cli.main import main
+from quantize.cli.entry import run
 
-main(prog_name="quantize")
+run()

@@ -145,3 +145,24 @@ def test_ctrl_c_at_any_moment_of_a_batch_ends_it_promptly_and_a_rerun_resumes(tm
         assert rerun.returncode == 0, rerun.stderr
         doc = json.loads((dst / "manifest.json").read_text())
         assert doc["summary"]["failed"] == 0 and doc["summary"]["total"] == 12
+
+
+def test_ctrl_c_while_the_command_line_loads_is_one_line_and_exit_130(tmp_path):
+    # An interrupt that lands while click and the commands are being imported
+    # (before any command runs) is simulated by an import that raises it.
+    code = (
+        "import builtins, sys\n"
+        "real = builtins.__import__\n"
+        "def interrupted(name, *a, **k):\n"
+        "    if name == 'click':\n"
+        "        raise KeyboardInterrupt\n"
+        "    return real(name, *a, **k)\n"
+        "builtins.__import__ = interrupted\n"
+        "sys.argv = ['quantize', '--help']\n"
+        "from quantize.cli.entry import run\n"
+        "run()\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 130, proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert proc.stderr.strip() == "quantize: interrupted; nothing half-written is left"

@@ -27,7 +27,7 @@ def test_the_distribution_has_its_own_name_and_one_version():
     assert "Programming Language :: Python :: 3.11" in classifiers
     # The command keeps the import name.
     (script,) = [e for e in metadata.entry_points(group="console_scripts") if e.name == "quantize"]
-    assert script.value == "quantize.cli.main:main"
+    assert script.value == "quantize.cli.entry:run"
 
 
 def test_the_licence_file_is_the_licence_claimed():
