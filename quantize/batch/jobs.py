@@ -180,10 +180,10 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
                 journal_output(job.output_dir, job.rel, rel_out)
             # The ΔE00 of the file written (of the decoded pixels for a JPEG) and its size.
             de = saved.delta_e  # None: a JPEG with no fully opaque pixel to measure
+            cov = saved.coverage if saved.coverage is not None else np.zeros(pal.k)  # of the decoded file for a JPEG
             row.update(status="ok", k=pal.k, delta_e=None if de is None else {s: float(v) for s, v in de.items()},
-                       bytes=saved.n_bytes,
-                       entries_used=[int(i) for i in np.flatnonzero(saved.coverage > 0)],
-                       coverage=[round(float(c), 4) for c in saved.coverage])  # of the decoded file for a JPEG
+                       bytes=saved.n_bytes, entries_used=[int(i) for i in np.flatnonzero(cov > 0)],
+                       coverage=[round(float(c), 4) for c in cov])
         except Exception as exc:  # noqa: BLE001 - one bad image must not stop a batch; the run exits non-zero
             row["error"] = _one_line(exc)
     row["notes"] = _notes(caught)

@@ -180,8 +180,9 @@ def _manifest_settings(s: BatchSettings) -> dict:
                 "restarts": s.restarts, "format": s.fmt, "max_pixels": s.max_pixels}
     from quantize.io.read import assumed_cmyk_profile
 
-    if assumed_cmyk_profile() is not None:  # only when given, so that earlier manifests still match
-        settings["cmyk_profile"] = os.path.abspath(assumed_cmyk_profile())
+    profile = assumed_cmyk_profile()
+    if profile is not None:  # only when given, so that earlier manifests still match
+        settings["cmyk_profile"] = os.path.abspath(profile)
     f = s.fit
     # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
     settings.update(rule=f.rule, kind=f.kind, target=f.target, target_stat=f.target_stat, locked=list(f.locked),

@@ -7,8 +7,11 @@ loads it in advance: a kernel module is imported on first use, in the
 calling thread, by :func:`compiled` -- the one way the package loads
 compiled code.  Only error diffusion, ordered dithers and inputs too large
 for the numpy kernels of :mod:`quantize.kernels.vectorised` get there
-(:func:`quantize.kernels.nearest.uses_compiled`).  This module changes no
-process-wide state: no garbage-collector settings, no import hooks.
+(:func:`quantize.kernels.nearest.uses_compiled`; a fit on such an input
+loads them at its start, :func:`quantize.kernels.nearest.load_for`).  Once
+loaded, the Euclidean kernels, whose two paths are bit-identical, run
+compiled on every size.  This module changes no process-wide state: no
+garbage-collector settings, no import hooks.
 """
 
 from __future__ import annotations

@@ -6,9 +6,10 @@ the numpy kernels of :mod:`quantize.kernels.vectorised` up to
 colours of everyday images, and the compiled loops of
 :mod:`quantize.kernels.engine_loops` above, loaded on first use in the
 calling thread.  Never timing or load: the same input always takes the same
-path, so a palette does not depend on how busy the machine is.  The
-Euclidean assignment and the cluster sums of both paths are bit-identical
-besides.  The kernels assume clean input (contiguous float64 arrays of
+CIEDE2000 path, so a palette does not depend on how busy the machine is.
+The Euclidean assignment and the cluster sums of both paths are
+bit-identical, so those run compiled whenever the compiled loops are
+loaded, whatever the size: only their time depends on it.  The kernels assume clean input (contiguous float64 arrays of
 matching dimension).  Their plain brute-force twins live in
 ``tests/naive.py``.
 """
