@@ -233,15 +233,20 @@ def spread_for_dither(pal_lin: np.ndarray, fixed: np.ndarray, colours_lin: np.nd
 FLAT_SHARE = 0.02
 
 
-def flat_colours(rgb8: np.ndarray, sample) -> np.ndarray:
-    """Which palette colours (8-bit sRGB, (k, 3)) a share of at least FLAT_SHARE of the sample's pixels is exactly."""
+def _exact_keys(sample) -> tuple[np.ndarray, np.ndarray]:
+    """One integer per distinct colour of the sample (8-bit R, G, B), and whether it is exactly an 8-bit colour."""
     codes = np.asarray(sample.codes, np.int64)
     if sample.bit_depth == 16:
         exact8 = (codes % 257 == 0).all(axis=1)
         codes = codes // 257
     else:
         exact8 = np.ones(len(codes), bool)
-    key = (codes[:, 0] << 16) | (codes[:, 1] << 8) | codes[:, 2]
+    return (codes[:, 0] << 16) | (codes[:, 1] << 8) | codes[:, 2], exact8
+
+
+def flat_colours(rgb8: np.ndarray, sample) -> np.ndarray:
+    """Which palette colours (8-bit sRGB, (k, 3)) a share of at least FLAT_SHARE of the sample's pixels is exactly."""
+    key, exact8 = _exact_keys(sample)
     pal_key = (rgb8[:, 0].astype(np.int64) << 16) | (rgb8[:, 1].astype(np.int64) << 8) | rgb8[:, 2]
     total = float(sample.weights.sum())
     out = np.zeros(len(rgb8), bool)
@@ -262,13 +267,7 @@ ARTWORK_SHARE = 0.95
 
 def _flat_share(rgb8, flat, sample) -> float:
     """Share of the sample's pixels that are exactly one of the ``flat`` palette colours."""
-    codes = np.asarray(sample.codes, np.int64)
-    if sample.bit_depth == 16:
-        exact8 = (codes % 257 == 0).all(axis=1)
-        codes = codes // 257
-    else:
-        exact8 = np.ones(len(codes), bool)
-    key = (codes[:, 0] << 16) | (codes[:, 1] << 8) | codes[:, 2]
+    key, exact8 = _exact_keys(sample)
     pal = rgb8[flat].astype(np.int64)
     hit = exact8 & np.isin(key, (pal[:, 0] << 16) | (pal[:, 1] << 8) | pal[:, 2])
     return float(sample.weights[hit].sum()) / float(sample.weights.sum())
