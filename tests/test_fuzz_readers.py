@@ -21,6 +21,7 @@ import io
 import json
 import os
 import tempfile
+import tracemalloc
 import warnings
 from pathlib import Path
 
@@ -170,15 +171,34 @@ def _check_refusal(exc: QuantizeError, path: Path) -> None:
     assert "\n" not in text and text.startswith(str(path)), text
 
 
+#: The most that reading one of these small files (16 x 12-pixel images, palettes and ink libraries of a
+#: few colours), however damaged, may allocate as traced by tracemalloc, which sees Python objects and
+#: numpy arrays (not Pillow's own decoder buffers). The issue asks that a hostile file must not make the
+#: tool take gigabytes; an honest read of these files takes kilobytes, so 256 MiB is a wide margin.
+_MAX_TRACED = 256 << 20
+
+
 def _read_or_refuse(read, path: Path) -> None:
-    """``read(path)`` either succeeds or raises a QuantizeError naming ``path`` on one line; the file is unchanged."""
+    """``read(path)`` either succeeds or raises a QuantizeError naming ``path`` on one line; the file is
+    unchanged, and what the read allocated stays under :data:`_MAX_TRACED`."""
     before = path.read_bytes()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        try:
-            read(path)
-        except QuantizeError as exc:
-            _check_refusal(exc, path)
+    tracing = tracemalloc.is_tracing()
+    if tracing:
+        tracemalloc.reset_peak()
+    else:
+        tracemalloc.start()
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                read(path)
+            except QuantizeError as exc:
+                _check_refusal(exc, path)
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        if not tracing:
+            tracemalloc.stop()
+    assert peak <= _MAX_TRACED, f"{path.name}: reading it allocated {peak / 2**20:.0f} MiB"
     assert path.read_bytes() == before
 
 
