@@ -9,9 +9,9 @@ calling thread.  Never timing or load: the same input always takes the same
 CIEDE2000 path, so a palette does not depend on how busy the machine is.
 The Euclidean assignment and the cluster sums of both paths are
 bit-identical, so those run compiled whenever the compiled loops are
-loaded, whatever the size: only their time depends on it.  The kernels assume clean input (contiguous float64 arrays of
-matching dimension).  Their plain brute-force twins live in
-``tests/naive.py``.
+loaded, whatever the size: only their time depends on it.  The kernels
+assume clean input (contiguous float64 arrays of matching dimension).
+Their plain brute-force twins live in ``tests/naive.py``.
 """
 
 from __future__ import annotations
@@ -21,8 +21,8 @@ import numpy as np
 from . import vectorised
 from .loading import compiled, run_blocks
 
-__all__ = ["COMPILED_FROM", "uses_compiled", "load_for", "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums",
-           "nearest_ciede2000", "ciede2000_to", "CiedeColumns"]
+__all__ = ["COMPILED_FROM", "uses_compiled", "load_for", "assign_nearest", "assign_nearest_numpy", "LloydAssigner",
+           "centre_sums", "nearest_ciede2000", "ciede2000_to", "CiedeColumns"]
 
 #: Point-palette pairs from which a call runs the compiled loops (2^21, about
 #: two million).  Below, numpy takes less time than loading the compiler
