@@ -233,30 +233,19 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
         return
     if _quiet():
         return
+    _summary(image, sep, doc, written, notes, min_line_mm)
+    click.echo(f"done in {time.perf_counter() - t0:.2f} s")
+
+
+def _summary(image, sep, doc: dict, written: dict, notes: list, min_line_mm: float) -> None:
+    """The summary of a separation: its films, then what was changed, measured and written."""
     films = sep.films()
     g = sep.film
     kinds = (f"{len(sep.plates)} ink(s)" + (" + underbase" if sep.underbase else "")
              + (" + highlight white" if sep.highlight else ""))
     click.echo(f"{image}: {len(films)} film(s), {kinds}, at {sep.dpi:g} dpi, printed {g.width_mm:.1f} x "
                f"{g.height_mm:.1f} mm (size from the {g.size_from}; {doc['settings']['inks_from']['method']})")
-    screens = (sep.tonal or {}).get("plates", {})
-    for p in films:
-        click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> "
-                   + ", ".join(t.name for t in written["plates"][p.name]))
-        g = (sep.guidance or {}).get(p.name)
-        sc = screens.get(p.name)
-        if sc and "lpi" in sc:
-            click.echo(f"      {sc['lpi']:g} lpi at {sc['angle']:g}°, {sc['dot_shape']} dots of at least "
-                       f"{sc['min_dot_mm']:g} mm; screen area {g['area_cm2']:.1f} cm², mesh about "
-                       f"{g['mesh']['threads_per_inch']} threads/in (common practice)")
-        elif sc:
-            click.echo(f"      index squares of {sc['square_mm']:.3f} mm ({sc['index_dpi']:g} dpi, {sc['dither']}); "
-                       f"screen area {g['area_cm2']:.1f} cm², mesh about {g['mesh']['threads_per_inch']} threads/in "
-                       "(common practice)")
-        elif g and g["pieces"]:
-            line = f"line {g['smallest_line_mm']:.2f} mm, " if g["smallest_line_mm"] is not None else ""
-            click.echo(f"      smallest dot {g['smallest_dot_mm']:.2f} mm, {line}screen area {g['area_cm2']:.1f} cm², "
-                       f"mesh about {g['mesh']['threads_per_inch']} threads/in (common practice)")
+    _film_lines(sep, films, written)
     if doc["flash_steps"]:
         click.echo("  sequence: " + ", ".join(sep.sequence))
     if doc["substrate"]:
@@ -298,7 +287,28 @@ def separate(ctx, image, outdir, palette_file, inks_file, n, snap, illuminant, s
                f"{written['composite'].name} and {Path(written['manifest']).name}")
     click.echo("caution: sizes, meshes and ΔE are computed from file data; proof physically and follow the "
                "shop's own standards before a production run")
-    click.echo(f"done in {time.perf_counter() - t0:.2f} s")
+
+
+def _film_lines(sep, films, written: dict) -> None:
+    """One line per film, then its screen: halftone dots, index squares or the smallest spot detail."""
+    screens = (sep.tonal or {}).get("plates", {})
+    for p in films:
+        click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> "
+                   + ", ".join(t.name for t in written["plates"][p.name]))
+        g = (sep.guidance or {}).get(p.name)
+        sc = screens.get(p.name)
+        if sc and "lpi" in sc:
+            click.echo(f"      {sc['lpi']:g} lpi at {sc['angle']:g}°, {sc['dot_shape']} dots of at least "
+                       f"{sc['min_dot_mm']:g} mm; screen area {g['area_cm2']:.1f} cm², mesh about "
+                       f"{g['mesh']['threads_per_inch']} threads/in (common practice)")
+        elif sc:
+            click.echo(f"      index squares of {sc['square_mm']:.3f} mm ({sc['index_dpi']:g} dpi, {sc['dither']}); "
+                       f"screen area {g['area_cm2']:.1f} cm², mesh about {g['mesh']['threads_per_inch']} threads/in "
+                       "(common practice)")
+        elif g and g["pieces"]:
+            line = f"line {g['smallest_line_mm']:.2f} mm, " if g["smallest_line_mm"] is not None else ""
+            click.echo(f"      smallest dot {g['smallest_dot_mm']:.2f} mm, {line}screen area {g['area_cm2']:.1f} cm², "
+                       f"mesh about {g['mesh']['threads_per_inch']} threads/in (common practice)")
 
 
 def _snap_line(s: dict) -> str:

@@ -503,34 +503,14 @@ def kmeans(
     >>> sorted(res.centres[:, 0].tolist()), float(res.inertia)
     ([0.0, 10.0], 1.0)
     """
-    pts = np.ascontiguousarray(points, dtype=np.float64)
-    if pts.ndim != 2 or pts.shape[0] == 0:
-        raise ValueError(f"points must have shape (n, d) with n >= 1, got {pts.shape}")
-    n, d = pts.shape
-    w = np.ones(n) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
-    if w.shape != (n,):
-        raise ValueError(f"weights must have shape ({n},), got {w.shape}")
-    if not np.all(np.isfinite(w)) or (w < 0).any() or w.sum() <= 0:
-        raise ValueError("weights must be finite, non-negative and not all zero")
-    if d == 0:
-        raise ValueError(f"points must have at least one coordinate, got shape {pts.shape}")
-    if not np.all(np.isfinite(pts)):
-        raise ValueError("points must be finite")
-    if np.abs(pts).max() > _MAX_COORD:
-        raise ValueError(f"points must lie within ±{_MAX_COORD:g} (their squared distances would overflow)")
+    pts, w, fx, ic = _checked(points, weights, fixed, init_centres)
+    d = pts.shape[1]
     k = _whole(k, "k", 1)
     restarts = _whole(restarts, "restarts", 1)
     max_iter = _whole(max_iter, "max_iter", 1)
     if isinstance(tol, bool) or not isinstance(tol, (int, float, np.floating)) or not (math.isfinite(tol) and tol >= 0):
         raise ValueError(f"tol must be a finite number of 0 or more, got {tol!r}")
     check_init(init)
-    fx = np.zeros((0, d)) if fixed is None else np.asarray(fixed, dtype=np.float64).reshape(-1, d)
-    if not np.all(np.isfinite(fx)):
-        raise ValueError("fixed centres must be finite")
-    if init_centres is not None:
-        ic = np.asarray(init_centres, dtype=np.float64)
-        if ic.ndim != 2 or ic.shape[1] != d or not np.all(np.isfinite(ic)):
-            raise ValueError(f"init_centres must be finite with shape (k, {d}), got shape {ic.shape}")
     m = fx.shape[0]
     if m > k:
         raise ValueError(f"{m} locked centres do not fit in k={k}")
@@ -540,8 +520,8 @@ def kmeans(
     keep = w > 0
     if not keep.all():
         pts, w = pts[keep], w[keep]
-    if init_centres is not None:
-        k_eff = np.shape(init_centres)[0]
+    if ic is not None:
+        k_eff = ic.shape[0]
     else:
         k_eff = m + _count_distinct_upto(pts, fx, k - m)
     if k_eff < k:
@@ -552,8 +532,8 @@ def kmeans(
         )
     abs_tol = tol * tolerance_scale(pts, w)
 
-    if init_centres is not None:
-        start = np.asarray(init_centres, dtype=np.float64)
+    if ic is not None:
+        start = ic
         if start.shape != (k_eff, d):
             raise ValueError(f"init_centres must have shape ({k_eff}, {d}), got {start.shape}")
         start = start.copy()
@@ -595,3 +575,31 @@ def kmeans(
         k_requested=k,
         runs=tuple(runs),
     )
+
+
+def _checked(points, weights, fixed, init_centres):
+    """:func:`kmeans`'s arrays, validated: points (n, d), weights (n,), locked centres (m, d), start or None."""
+    pts = np.ascontiguousarray(points, dtype=np.float64)
+    if pts.ndim != 2 or pts.shape[0] == 0:
+        raise ValueError(f"points must have shape (n, d) with n >= 1, got {pts.shape}")
+    n, d = pts.shape
+    w = np.ones(n) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
+    if w.shape != (n,):
+        raise ValueError(f"weights must have shape ({n},), got {w.shape}")
+    if not np.all(np.isfinite(w)) or (w < 0).any() or w.sum() <= 0:
+        raise ValueError("weights must be finite, non-negative and not all zero")
+    if d == 0:
+        raise ValueError(f"points must have at least one coordinate, got shape {pts.shape}")
+    if not np.all(np.isfinite(pts)):
+        raise ValueError("points must be finite")
+    if np.abs(pts).max() > _MAX_COORD:
+        raise ValueError(f"points must lie within ±{_MAX_COORD:g} (their squared distances would overflow)")
+    fx = np.zeros((0, d)) if fixed is None else np.asarray(fixed, dtype=np.float64).reshape(-1, d)
+    if not np.all(np.isfinite(fx)):
+        raise ValueError("fixed centres must be finite")
+    ic = None
+    if init_centres is not None:
+        ic = np.asarray(init_centres, dtype=np.float64)
+        if ic.ndim != 2 or ic.shape[1] != d or not np.all(np.isfinite(ic)):
+            raise ValueError(f"init_centres must be finite with shape (k, {d}), got shape {ic.shape}")
+    return pts, w, fx, ic

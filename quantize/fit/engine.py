@@ -481,17 +481,25 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             # The k-medians may also start from every fresh restart but the kept one.
             others = [c for c, _ in fresh.runs if c is not coarse.centres]
             # One size alone refines on two threads; several keep two busy with sizes.
-            jobs.append((k, fine, start, submit(finish_palette, sample, fine.centres, fixed_rgb8, space=space,
-                                                metric=settings.nearest, refine=settings.refine, others=others,
-                                                threads=len(ks) == 1 and settings.threads)))
+            jobs.append(submit(_finished, sample, k, fine, start, fixed_rgb8, space=space,
+                               metric=settings.nearest, refine=settings.refine, others=others,
+                               threads=len(ks) == 1 and settings.threads))
             if progress:
                 progress(k)
-        done = [(k, fine, start, job.result()) for k, fine, start, job in jobs]
-    return [Candidate(k=k, palette=pal, inertia=float(fine.inertia), delta_e=delta_e_stats(de, full_w),
-                      robust=robust_error(de, full_w), labels=labels, per_colour_de=de,
-                      coverage=coverage_percent(labels, full_w, pal.k), refined=refined or "none", start=start,
-                      merged=merged)
-            for k, fine, start, (pal, merged, labels, de, refined) in done]
+        return [job.result() for job in jobs]
+
+
+def _finished(sample, k: int, fine, start: str, fixed_rgb8, **options) -> Candidate:
+    """Size ``k``'s :class:`Candidate`: :func:`finish_palette` and the statistics of its mapping.
+
+    Measured on the worker thread that refined it, while the next size is fitted.
+    """
+    pal, merged, labels, de, refined = finish_palette(sample, fine.centres, fixed_rgb8, **options)
+    w = sample.weights
+    return Candidate(k=k, palette=pal, inertia=float(fine.inertia), delta_e=delta_e_stats(de, w),
+                     robust=robust_error(de, w), labels=labels, per_colour_de=de,
+                     coverage=coverage_percent(labels, w, pal.k), refined=refined or "none", start=start,
+                     merged=merged)
 
 
 def settings_of(settings: FitSettings | None, options: dict, where: str) -> FitSettings:
