@@ -106,8 +106,12 @@ class ColourSample:
     codes: np.ndarray
     weights: np.ndarray
     bit_depth: int
-    # Read as ``np.ndarray | None`` (the descriptor's __get__), given as one to __init__ (its __set__).
-    inverse: _LazyInverse = _LazyInverse()
+    if TYPE_CHECKING:
+        # The type checker sees the descriptor: read as ``np.ndarray | None`` (its __get__), given as
+        # one to __init__ (its __set__). At run time the field is annotated as what it holds.
+        inverse: _LazyInverse = _LazyInverse()
+    else:
+        inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
     #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
