@@ -30,7 +30,7 @@ import re
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from collections.abc import Mapping
-from typing import TYPE_CHECKING, Any, Sequence
+from typing import TYPE_CHECKING, Any, NoReturn, Sequence
 
 import numpy as np
 
@@ -323,11 +323,13 @@ class FitRecord:
         return cls(**known, extra={k: v for k, v in doc.items() if k not in names})
 
 
-def _candidate(c: Mapping, i: int) -> FitCandidate:
+def _candidate(c: Mapping[str, Any], i: int) -> FitCandidate:
     if not isinstance(c, Mapping):
         raise ValueError(f"fit candidate {i}: expected a FitCandidate or a mapping, got {c!r}")
-    return FitCandidate(k=c.get("k"), inertia=c.get("inertia"), delta_e=c.get("delta_e"),
-                        robust_error=c.get("robust_error"), score=c.get("score"))
+    # The row's values as given: FitRecord.from_dict checks only that k and delta_e are there, so a
+    # number missing from a hand-written file is None here, as it has always been.
+    row: dict[str, Any] = {key: c.get(key) for key in ("k", "inertia", "delta_e", "robust_error", "score")}
+    return FitCandidate(**row)
 
 
 @dataclass(frozen=True, eq=False)
@@ -534,7 +536,7 @@ class Palette:
         """Build a palette from its JSON document, validating every field."""
         from quantize.colour.spaces import SPACES, delta_e_ciede2000, srgb8_to_space
 
-        def bad(where, what):
+        def bad(where: str, what: str) -> NoReturn:
             raise PaletteFileError(f"{source}: {where}: {what}")
 
         if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
@@ -579,7 +581,7 @@ class Palette:
         rgb8 = np.array(rgb, dtype=np.uint8)
         if labs:
             idx = [i for i, _ in labs]
-            de = delta_e_ciede2000(srgb8_to_space(rgb8[idx], "lab"), np.array([l for _, l in labs], float))
+            de = np.asarray(delta_e_ciede2000(srgb8_to_space(rgb8[idx], "lab"), np.array([l for _, l in labs], float)))
             worst = int(np.argmax(de))
             if de[worst] > 0.5:
                 bad(f"colours[{idx[worst]}]", f"lab {labs[worst][1]} disagrees with hex "

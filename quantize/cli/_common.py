@@ -348,7 +348,7 @@ def _shown(name, limit: int = 200) -> str:
 
 def _check_output_paths(paths, force: bool, inputs):
     ins = {Path(p).resolve() for p in inputs}
-    folders = {}
+    folders: dict[Path, object] = {}  # each output folder -> the first output in it, as the user named it
     for p in paths:
         rp = Path(p).resolve()
         if rp in ins:

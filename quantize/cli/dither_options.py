@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any, Literal
 
 import click
 
@@ -48,7 +49,7 @@ class DitherChoice:
     view_dpi: float | None = None
     view_distance: float | None = None
     error_map: str | None = None
-    error_map_kind: str = "plain"
+    error_map_kind: Literal["plain", "filtered"] = "plain"
 
     @property
     def viewing(self) -> bool:
@@ -200,9 +201,9 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
     lines : list of str
         For the human summary, each naming which ΔE it reports.
     """
-    summary = {"dither": {"method": choice.dither, "strength": choice.strength,
-                          "serpentine": choice.serpentine}, "delta_e_filtered": None, "viewing": None,
-               "error_map": None}
+    summary: dict[str, Any] = {
+        "dither": {"method": choice.dither, "strength": choice.strength, "serpentine": choice.serpentine},
+        "delta_e_filtered": None, "viewing": None, "error_map": None}
     lines = []
     if choice.dither != "none":
         from quantize.render.methods import describe

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from types import MappingProxyType
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -298,7 +298,8 @@ def _colour() -> tuple[Any, dict[str, Any]]:
     # Its import switches numpy to 1.13-style printing and adds warning filters: put the caller's back.
     np.set_printoptions(**options)
     if warnings.filters != filters:
-        warnings.filters[:] = filters
+        # In place, so whoever holds the list keeps it; typeshed declares it a read-only Sequence.
+        cast(list, warnings.filters)[:] = filters
         getattr(warnings, "_filters_mutated", lambda: None)()  # as catch_warnings does on exit
     kwargs = dict(CAM16_VIEWING_CONDITIONS)
     kwargs["surround"] = colour.appearance.InductionFactors_CAM16(**kwargs["surround"])

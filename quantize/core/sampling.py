@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, overload
 
 import numpy as np
 
@@ -57,7 +57,12 @@ class _LazyInverse:
     callers that ask for it.
     """
 
-    def __get__(self, obj, objtype=None):
+    @overload
+    def __get__(self, obj: None, objtype: type | None = None) -> None: ...
+    @overload
+    def __get__(self, obj: ColourSample, objtype: type | None = None) -> np.ndarray | None: ...
+
+    def __get__(self, obj: ColourSample | None, objtype: type | None = None) -> np.ndarray | None:
         if obj is None:
             return None  # the dataclass default
         given = obj.__dict__.get("_inverse")
@@ -65,7 +70,7 @@ class _LazyInverse:
             return given
         return obj._cache.get("inverse", lambda: obj._spread(np.arange(obj.n_colours, dtype=np.int32), -1))
 
-    def __set__(self, obj, value):
+    def __set__(self, obj: ColourSample, value: np.ndarray | None) -> None:
         # Only the dataclass __init__ sets it (the instance is frozen).
         obj.__dict__["_inverse"] = value
 
@@ -103,7 +108,12 @@ class ColourSample:
     codes: np.ndarray
     weights: np.ndarray
     bit_depth: int
-    inverse: np.ndarray | None = _LazyInverse()
+    if TYPE_CHECKING:
+        # The type checker sees the descriptor: read as ``np.ndarray | None`` (its __get__), given as
+        # one to __init__ (its __set__). At run time the field is annotated as what it holds.
+        inverse: _LazyInverse = _LazyInverse()
+    else:
+        inverse: np.ndarray | None = _LazyInverse()
     shape: tuple[int, int] | None = None
     n_pixels: int = 0
     #: Dense path only: (H*W,) uint32 packed code of every pixel, ``_CLEAR``
@@ -116,7 +126,7 @@ class ColourSample:
         return (f"ColourSample(n_colours={self.n_colours}, bit_depth={self.bit_depth}, "
                 f"shape={self.shape}, n_pixels={self.n_pixels})")
 
-    def index_image(self, labels: np.ndarray, *, dtype: npt.DTypeLike = None) -> np.ndarray:
+    def index_image(self, labels: np.ndarray, *, dtype: npt.DTypeLike | None = None) -> np.ndarray:
         """Spread one value per distinct colour onto the pixels of the image.
 
         Parameters
@@ -171,7 +181,10 @@ class ColourSample:
         table = np.empty(values.size + 1, dtype=values.dtype)
         table[:-1] = values
         table[-1] = fill  # the row -1 of transparent pixels reads this slot
-        return _take_blocks(table, self.inverse)
+        inverse = self.inverse
+        if inverse is None:  # a pooled sample: index_image refuses it before coming here
+            raise ValueError("a pooled colour sample has no pixels to spread values onto")
+        return _take_blocks(table, inverse)
 
     def keep_mapping(self, palette: quantize.Palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
         """Keep the mapping of these colours onto ``palette`` by ``metric``, for reuse.
@@ -362,15 +375,16 @@ def _sample(picture: Picture) -> ColourSample:
     h, w = picture.rgb.shape[:2]
     bits = picture.bit_depth
     opaque = None if picture.alpha is None else picture.opaque.ravel()  # no alpha: every pixel is opaque
-    all_opaque = opaque is None or bool(opaque.all())
-    n_opaque = h * w if all_opaque else int(np.count_nonzero(opaque))
+    if opaque is not None and bool(opaque.all()):
+        opaque = None  # an alpha that hides nothing is sampled as no alpha
+    n_opaque = h * w if opaque is None else int(np.count_nonzero(opaque))
     if bits == 8 and n_opaque >= _DENSE_FROM:
-        return _sample_dense(picture, None if all_opaque else ~opaque, n_opaque)
+        return _sample_dense(picture, None if opaque is None else ~opaque, n_opaque)
     packed = _pack_pixels(picture.rgb, np.uint32) if bits == 8 else _pack(picture.rgb.reshape(-1, 3), bits)
-    sel = packed if all_opaque else packed[opaque]
+    sel = packed if opaque is None else packed[opaque]
     present, inv_sel, counts = np.unique(sel, return_inverse=True, return_counts=True)
     inv_sel = inv_sel.ravel().astype(np.int32)
-    if all_opaque:
+    if opaque is None:
         inverse = inv_sel
     else:
         inverse = np.full(packed.size, -1, dtype=np.int32)

@@ -12,7 +12,7 @@ import math
 import warnings
 from dataclasses import dataclass, field
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -552,6 +552,8 @@ def kmeans(
         runs.append((centres, history[-1]))
         if best is None or history[-1] < best[2][-1]:
             best = (centres, labels, history, n_iter)
+    # restarts >= 1 (checked above), so the loop ran and best is set
+    best = cast("tuple[Any, Any, Any, Any]", best)
     centres, labels, history, n_iter = best
     if polish:
         # Every restart is polished, after all of them ran: the restarts draw

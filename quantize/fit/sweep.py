@@ -19,7 +19,7 @@ set) and each image's own ΔE00 is reported beside the pooled figures.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence, cast
 
 from .settings import DEFAULT_K, FitSettings
 # The result objects and tables live in their own module; their names stay importable here.
@@ -92,9 +92,11 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
         choices["auto"] = auto_choice(kk, [c.palette.lab for c in cands], stats, rob, regions, sample.n_pixels,
                                       kind=settings.kind, target=settings.target, target_stat=settings.target_stat)
     rows = []
+    # FitSettings.__post_init__ resolves a None metric to its name; the field's type still admits None.
+    metric = cast(str, settings.nearest)
     for c, score in zip(cands, choices["bic"].scores):
         pal = Palette(c.palette.rgb8, c.palette.locked, settings.space)
-        per = {src: delta_e_stats(map_sample(smp, pal, metric=settings.nearest)[1], smp.weights)
+        per = {src: delta_e_stats(map_sample(smp, pal, metric=metric)[1], smp.weights)
                for src, smp in per_image}
         rows.append(SweepRow(k=c.k, palette=pal, cost=c.inertia, delta_e=c.delta_e, robust=c.robust,
                              score=float(score), start=c.start, coverage=c.coverage, per_image=per))
@@ -202,9 +204,9 @@ def sweep(images: ImageInput | Sequence[ImageInput], ks: tuple[int, int] | str |
 
     from .engine import load_samples, settings_of
 
-    ks = parse_sweep_range(ks)
+    sizes = parse_sweep_range(ks)
     settings = settings_of(settings, options, "sweep")
-    settings.check_sizes(ks)  # before any image is read
+    settings.check_sizes(sizes)  # before any image is read
     items = list(images) if isinstance(images, (list, tuple)) else [images]
     if not items:
         raise ValueError("no images given: the image set is empty")
@@ -220,16 +222,16 @@ def sweep(images: ImageInput | Sequence[ImageInput], ks: tuple[int, int] | str |
     sources = _unique_names(sources)
     pooled = pool_samples(samples, weighting=settings.weighting)
     n = pooled.n_colours
-    if ks[-1] > n:
+    if sizes[-1] > n:
         notes.append(f"the image set has only {n} distinct colours; sizes above {n} were not swept")
-        ks = [k for k in ks if k <= n] or [n]
+        sizes = [k for k in sizes if k <= n] or [n]
     per = list(zip(sources, samples)) if len(samples) > 1 else []
     regions = None
     if settings.rule == "auto" and all(p is not None for p in pictures):
         from quantize.core.regions import find_regions
 
         regions = [find_regions(p) for p in pictures]
-    res = sweep_sample(pooled, ks, settings, per_image=per, regions=regions, progress=progress)
+    res = sweep_sample(pooled, sizes, settings, per_image=per, regions=regions, progress=progress)
     return res.with_inputs(sources, notes)
 
 

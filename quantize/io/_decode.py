@@ -9,10 +9,11 @@ import struct
 import threading
 import warnings
 import zlib
+from collections.abc import Iterable
 from pathlib import Path
 
 import numpy as np
-from PIL import Image
+from PIL import Image, ImageFile
 
 from quantize.core.picture import ImageWarning
 from quantize.errors import ImageReadError
@@ -31,7 +32,7 @@ PNG16_RAWMODE = {2: "RGB;16B", 4: "LA;16B", 6: "RGBA;16B"}
 _LIMIT_LOCK = threading.Lock()
 
 
-def open_pil(path: Path) -> Image.Image:
+def open_pil(path: Path) -> ImageFile.ImageFile:
     """``Image.open`` with Pillow's pixel limit replaced by the caller's own."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", Image.DecompressionBombWarning)
@@ -60,8 +61,10 @@ def check_pixels(name: str, size: tuple[int, int], max_pixels: int | None) -> No
 
 
 def dpi_pair(value: object) -> tuple[float, float] | None:
+    if not isinstance(value, Iterable):
+        return None
     try:
-        x, y = (float(v) for v in value)  # type: ignore[union-attr]
+        x, y = (float(v) for v in value)
     except (TypeError, ValueError):
         return None
     # A resolution of 0, or beyond any device (TIFF stores it as a 32-bit rational), is no resolution.
@@ -76,7 +79,7 @@ MAX_DPI = 1_000_000.0
 def exif_orientation(img: Image.Image, name: str, notes: list[_Note]) -> int:
     try:
         value = img.getexif().get(0x0112, 1)
-    except (*DECODE_ERRORS, TypeError):
+    except DECODE_ERRORS + (TypeError,):
         notes.append((ImageWarning, f"{name}: unreadable EXIF data; orientation ignored"))
         return 1
     return orientation_value(value, name, notes)

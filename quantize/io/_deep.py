@@ -14,7 +14,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
-from PIL import Image
+from PIL import ImageFile
 
 from quantize.core.picture import ImageWarning
 from quantize.errors import ImageReadError
@@ -32,8 +32,12 @@ from ._decode import (
 
 __all__ = ["read_png16", "read_tiff16"]
 
+#: What both readers return: colour and alpha (or None) as uint16, the ICC profile (or None), the
+#: orientation tag (1-8) and the dpi (or None).
+Deep16 = tuple[np.ndarray, np.ndarray | None, bytes | None, int, tuple[float, float] | None]
 
-def read_png16(path: Path, name: str, ctype: int, max_pixels: int | None, notes: list):
+
+def read_png16(path: Path, name: str, ctype: int, max_pixels: int | None, notes: list) -> Deep16 | None:
     """Both bytes of every sample of a 16-bit colour PNG, from Pillow's own decoder."""
     with open_pil(path) as img:
         check_pixels(name, img.size, max_pixels)
@@ -63,13 +67,14 @@ def _retile(tile, rawmode: str):
     return tile._replace(args=args) if hasattr(tile, "_replace") else (*tile[:3], args)
 
 
-def _hi_lo(hi: Image.Image, path: Path) -> np.ndarray:
+def _hi_lo(hi: ImageFile.ImageFile, path: Path) -> np.ndarray:
     """Decode `hi` (not yet loaded) as stored, then again with the byte order
     swapped, and join the high and low bytes. Every tile must be 16-bit."""
     swap = {"B": "L", "L": "B", "N": "B" if sys.byteorder == "little" else "L"}
     tiles = []
     for tile in hi.tile:
-        rawmode = tile[3] if isinstance(tile[3], str) else tile[3][0]
+        args = tile[3]  # the rawmode, alone or first in a tuple; a tile without one is refused below
+        rawmode = args if isinstance(args, str) else args[0] if args else str(args)
         if not rawmode[:-1].endswith(";16") or rawmode[-1] not in swap:
             raise ValueError(f"unexpected rawmode {rawmode}")
         tiles.append(_retile(tile, rawmode[:-1] + swap[rawmode[-1]]))
@@ -87,7 +92,7 @@ def _tifffile_decodes(page) -> bool:
     return page.compression in TIFF.DECOMPRESSORS
 
 
-def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
+def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list) -> Deep16 | None:
     """16-bit RGB(A) and grey+alpha TIFF via tifffile. Returns None if Pillow can read the file in full."""
     import tifffile
 
@@ -95,8 +100,13 @@ def read_tiff16(path: Path, name: str, max_pixels: int | None, notes: list):
         try:
             tif = tifffile.TiffFile(path)
             page = tif.pages[0]
-        except (tifffile.TiffFileError, TypeError, *DECODE_ERRORS):
+        except (tifffile.TiffFileError, TypeError) + DECODE_ERRORS:
             return None  # let Pillow try and explain
+    if not isinstance(page, tifffile.TiffPage):
+        # tifffile reads the first page in full (a TiffPage, never a TiffFrame); this check is
+        # what tells the type checker so.
+        tif.close()
+        return None
     with tif, tiff_log_notes(name, notes):
         # A damaged tag can hold several values, or a number tifffile has no name for, where one is due.
         photometric, bits, spp, width, height = (

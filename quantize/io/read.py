@@ -95,6 +95,9 @@ DEFAULT_MAX_PIXELS: int | None = Image.MAX_IMAGE_PIXELS
 # --------------------------------------------------------------------------- reading
 
 _Note = tuple[type, str]
+#: What a decoder hands :func:`_finish`: colour, alpha (or None), bit depth, dpi (or None), and the
+#: description of the colour profile converted from (or None).
+_Decoded = tuple[np.ndarray, np.ndarray | None, int, tuple[float, float] | None, str | None]
 _PIL_8BIT_MODES = {"1", "L", "LA", "La", "P", "PA", "RGB", "RGBA", "RGBa", "RGBX", "CMYK", "YCbCr"}
 _PIL_DEEP_GREY = {"I;16", "I;16L", "I;16B", "I;16N", "I", "F"}
 _PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -284,11 +287,12 @@ def as_picture(obj: Picture | PathLike | Image.Image | np.ndarray) -> Picture:
     """
     if isinstance(obj, Picture):
         return obj
+    notes: list[_Note]
     if isinstance(obj, (str, os.PathLike)):
         picture, notes = _read_file(obj, DEFAULT_MAX_PIXELS)
     elif isinstance(obj, Image.Image):
         name = getattr(obj, "filename", "") or "<image>"
-        notes: list[_Note] = []
+        notes = []
         with _decode_errors(name):
             obj.load()
             picture = _finish(name, *_from_pil(obj, name, notes, _ASSUMED_CMYK.get()), notes)
@@ -512,7 +516,7 @@ _ORIENT: dict[int, Callable[[np.ndarray], np.ndarray]] = {
 }
 
 
-def _from_pil(img: Image.Image, name: str, notes: list[_Note], cmyk: tuple[str, bytes] | None = None):
+def _from_pil(img: Image.Image, name: str, notes: list[_Note], cmyk: tuple[str, bytes] | None = None) -> _Decoded:
     """A decoded Pillow image -> (colour, alpha, bit_depth, dpi, profile description).
 
     ``cmyk`` is the (file name, bytes) of the profile assumed for CMYK without an embedded one."""
@@ -579,7 +583,8 @@ def _deep_grey(img: Image.Image, name: str, notes: list[_Note]) -> np.ndarray:
 
 
 
-def _finish_deep(name, colour, alpha, icc, orientation, dpi, notes):
+def _finish_deep(name: str, colour: np.ndarray, alpha: np.ndarray | None, icc: bytes | None, orientation: int,
+                 dpi: tuple[float, float] | None, notes: list[_Note]) -> _Decoded:
     """Orient and colour-convert the arrays from a 16-bit route."""
     if orientation in _ORIENT:
         colour = _ORIENT[orientation](colour)

@@ -97,8 +97,11 @@ def _import(full: str):
             raise
         import numba
 
-        if numba.config.CACHE_DIR:
-            raise RuntimeError(f"numba cannot write its cache folder {numba.config.CACHE_DIR}; set "
+        # numba.config sets its settings at run time from the environment: numba's own
+        # type information does not declare them.
+        cache_dir = numba.config.CACHE_DIR  # type: ignore[attr-defined]
+        if cache_dir:
+            raise RuntimeError(f"numba cannot write its cache folder {cache_dir}; set "
                                "NUMBA_CACHE_DIR to a writable folder") from exc
         folder = _fallback_cache_dir()
         os.makedirs(folder, mode=0o700, exist_ok=True)
@@ -107,7 +110,7 @@ def _import(full: str):
             # that somebody else could have written.
             raise RuntimeError(f"numba has nowhere to cache compiled code, and {folder} is not a private "
                                "folder of this user; set NUMBA_CACHE_DIR to a writable folder") from exc
-        numba.config.CACHE_DIR = folder
+        numba.config.CACHE_DIR = folder  # type: ignore[attr-defined]  # set at run time, as above
         return importlib.import_module(full)
 
 
@@ -124,10 +127,10 @@ def forget_cached(*names: str) -> bool:
     for name in names:
         module = sys.modules.get(f"{__package__}.{name}")
         for obj in vars(module).values() if module else ():
-            cache = getattr(obj, "_cache", None)
-            if callable(getattr(cache, "flush", None)):
+            flush = getattr(getattr(obj, "_cache", None), "flush", None)
+            if callable(flush):
                 try:
-                    cache.flush()
+                    flush()
                     emptied = True
                 except OSError:
                     pass
@@ -144,10 +147,11 @@ def _from_the_cache(exc: BaseException) -> bool:
     import traceback
 
     marker = os.path.join("numba", "core", "caching")
-    while exc is not None:
-        if any(marker in frame.filename for frame in traceback.extract_tb(exc.__traceback__)):
+    link: BaseException | None = exc
+    while link is not None:
+        if any(marker in frame.filename for frame in traceback.extract_tb(link.__traceback__)):
             return True
-        exc = exc.__cause__ or exc.__context__
+        link = link.__cause__ or link.__context__
     return False
 
 

@@ -294,7 +294,7 @@ def delta_e_map(original, mapped, *, kind: str = "plain", dpi=None, distance_mm=
     ppd_value = viewing_ppd(dpi=dpi, distance_mm=distance_mm, ppd=ppd) if kind == "filtered" else None
     result = mapped if _is_mapped(mapped) else as_picture(np.asarray(mapped))
     lin, out, opaque = _pair(as_picture(original), result)
-    if kind == "plain":
+    if ppd_value is None:  # kind "plain": no viewing condition to filter for
         lab1, lab2 = xyz_to_lab(lin @ SRGB_TO_XYZ.T), xyz_to_lab(out @ SRGB_TO_XYZ.T)
     else:
         to_opp = SCIELAB_OPPONENT @ SRGB_TO_XYZ

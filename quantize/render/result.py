@@ -5,7 +5,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Iterable
+from typing import TYPE_CHECKING, Iterable, cast
 
 import numpy as np
 
@@ -185,6 +185,7 @@ class MappedImage:
                 left_out = picture.alpha < picture.max_code
             de = file_delta_e(picture, rgb, left_out=left_out)
         if written.decoded is not None:  # a JPEG: its pixels are no longer the palette's
+            shown: np.ndarray | None
             if picture is not None and picture.alpha is not None:
                 shown = picture.alpha >= picture.max_code
             else:
@@ -300,7 +301,7 @@ def file_delta_e(picture, rgb8: np.ndarray, *, left_out: np.ndarray | None = Non
     from quantize.core.sampling import sample_picture
 
     smp = sample_picture(picture)
-    rows = smp.inverse
+    rows = cast(np.ndarray, smp.inverse)  # a sample of one picture (not pooled) has its inverse
     flat = rgb8.reshape(-1, 3).astype(np.int64)
     keep = rows >= 0
     if left_out is not None:

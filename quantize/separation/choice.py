@@ -8,7 +8,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, Literal, Sequence
+from typing import TYPE_CHECKING, Any, Literal, Sequence, cast
 
 import numpy as np
 
@@ -366,7 +366,7 @@ def snap_palette(palette: Palette, library: InkLibrary, *, substrate: str | None
     """
     from scipy.optimize import linear_sum_assignment
 
-    from quantize.palette import Palette
+    from quantize.palette import FitRecord, Palette
 
     free = np.flatnonzero(~palette.locked)
     skip = library.find(substrate) if isinstance(substrate, str) else None
@@ -389,7 +389,7 @@ def snap_palette(palette: Palette, library: InkLibrary, *, substrate: str | None
         snaps.append({"fitted": palette.hex[i], "ink": ink.name, "ink_hex": ink.hex,
                       "delta_e": round(float(d[r, pick[r]]), 3)})
     snapped = {"inks": library.describe(), "snaps": snaps}
-    fit = palette.fit.with_extra(**snapped) if palette.fit is not None else snapped
+    fit = palette.fit.with_extra(**snapped) if palette.fit is not None else FitRecord.from_dict(snapped)
     out = Palette(rgb8=np.array(rgb, np.uint8), locked=np.arange(len(rgb)) < lk.size, space=palette.space,
                   names=tuple(names), fit=fit)
     return out, snaps
@@ -467,7 +467,8 @@ def choose_palette(image, *, palette=None, library=None, n: int | None = None, s
         said = guess.describe()
     none = no_substrate_asked(substrate)
     if library is not None and not snap:
-        sel = choose_inks(pic, library, n, substrate=None if none else substrate, seed=seed)
+        # No palette here (with a library it needs snap), so n was given: both are checked above.
+        sel = choose_inks(pic, library, cast(int, n), substrate=None if none else substrate, seed=seed)
         info = {"method": f"best {n} of {len(library)} library inks ({sel.method})",
                 "cost_delta_e": sel.cost, "subsets_evaluated": sel.evaluated, "library": library.describe(),
                 "substrate": None if none else 0, "substrate_from": said}
@@ -615,7 +616,7 @@ def resolve_substrate(picture, palette, substrate) -> tuple[Any, int | None, str
     guess = infer_substrate(pic, palette, indices=_mapped(pic, palette))
     if guess.rgb8 is None:
         return palette, None, guess.describe()
-    de = delta_e_ciede2000(palette.lab, srgb8_to_space(guess.rgb8, "lab"))
+    de = np.asarray(delta_e_ciede2000(palette.lab, srgb8_to_space(guess.rgb8, "lab")))  # one per colour
     near = int(np.argmin(de))
     if de[near] <= SAME_DE:
         return _lock(palette, near), near, guess.describe(palette.hex[near])
@@ -668,7 +669,7 @@ def snap_outcomes(image, snaps: Sequence[dict], indices: np.ndarray, palette, li
     pic = _picture(image)
     fitted = [parse_colour(s["fitted"]) for s in snaps]
     rgb = fitted + ([palette.rgb8[substrate]] if substrate is not None else [])
-    own = map_picture(pic, Palette(np.array(rgb, np.uint8), None), nearest="ciede2000").indices
+    own = map_picture(pic, Palette(np.array(rgb, np.uint8), np.zeros(len(rgb), bool)), nearest="ciede2000").indices
     opaque = pic.opaque
     if indices.shape != own.shape:  # films at another resolution: read them at each artwork pixel's centre
         from .film import sample_at_artwork

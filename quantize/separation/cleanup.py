@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -62,10 +63,11 @@ class CleanupReport:
 
     def to_dict(self) -> dict:
         """The report as the separation manifest lists it (``cleanup``)."""
-        doc = {"min_area_px": self.min_area_px, "pixels_changed": self.pixels_changed,
-               "regions_merged": self.regions_merged, "passes": self.passes,
-               "regions_left_small": self.regions_left_small, "delta_e_changed_mean": self.delta_e_changed_mean,
-               "delta_e_changed_max": self.delta_e_changed_max, "delta_e_image_mean": self.delta_e_image_mean}
+        doc: dict[str, Any] = {
+            "min_area_px": self.min_area_px, "pixels_changed": self.pixels_changed,
+            "regions_merged": self.regions_merged, "passes": self.passes,
+            "regions_left_small": self.regions_left_small, "delta_e_changed_mean": self.delta_e_changed_mean,
+            "delta_e_changed_max": self.delta_e_changed_max, "delta_e_image_mean": self.delta_e_image_mean}
         if self.min_feature_mm is not None:
             doc["min_feature_mm"] = self.min_feature_mm
         if self.delta_e_before is not None or self.delta_e_after is not None:
@@ -138,7 +140,7 @@ def clean_small_regions(indices: np.ndarray, ink_lab: np.ndarray, *, min_area: f
     idx = np.asarray(indices)
     op = np.ones(idx.shape, bool) if opaque is None else np.asarray(opaque, bool)
     lab = np.asarray(ink_lab, float)
-    de_ink = delta_e_ciede2000(lab[:, None, :], lab[None, :, :])
+    de_ink = np.asarray(delta_e_ciede2000(lab[:, None, :], lab[None, :, :]))  # (k, k): ink to ink
     out = idx.copy()
     merged = passes = 0
     left_small = 0

@@ -47,7 +47,8 @@ def distance_to_edge(outside: np.ndarray) -> np.ndarray:
     from scipy import ndimage as ndi
 
     d, (iy, ix) = ndi.distance_transform_edt(outside, return_indices=True)
-    yy, xx = np.indices(outside.shape, sparse=True)
+    h, w = outside.shape  # two axes, spelt out: numpy's stubs cannot count them from an ndarray's shape
+    yy, xx = np.indices((h, w), sparse=True)
     dy, dx = np.abs(iy - yy), np.abs(ix - xx)
     off = np.where((dx == 0) | (dy == 0), 0.5, np.where(dx == dy, _DIAGONAL, _OTHER))
     return np.where(outside, d - off, 0.0)

@@ -113,7 +113,7 @@ def _resample(cov: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     from PIL import Image
 
     img = Image.fromarray(np.ascontiguousarray(cov, np.float32), mode="F")
-    return np.asarray(img.resize((shape[1], shape[0]), Image.BICUBIC), np.float32)
+    return np.asarray(img.resize((shape[1], shape[0]), Image.Resampling.BICUBIC), np.float32)
 
 
 def resample_indices(indices: np.ndarray, opaque: np.ndarray, shape: tuple[int, int],

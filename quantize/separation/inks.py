@@ -339,7 +339,7 @@ def _hex_value(text: str, rows: _Rows, line) -> np.ndarray:
 def _parse_csv(text: str, source: str, illuminant: str | None) -> InkLibrary:
     rows = _Rows(source)
     ill = illuminant
-    notes = []
+    notes: list[str] = []
     header_done = False
     for lineno, line in enumerate(text.splitlines(), start=1):
         s = line.strip()
@@ -434,8 +434,8 @@ def _cgats_tokens(line: str) -> list[str]:
     return out
 
 
-def _cgats_illuminant(keywords: dict[str, str]) -> tuple[str | None, int | None]:
-    """Illuminant and observer stated by a CGATS file's keywords, if any."""
+def _cgats_illuminant(keywords: dict[str, str]) -> tuple[str | None, str | None]:
+    """Illuminant and observer (its text, e.g. ``"2"``) stated by a CGATS file's keywords, if any."""
     ill = keywords.get("ILLUMINATION_NAME")
     obs = keywords.get("OBSERVER_ANGLE")
     # Instruments also write them inside MEASUREMENT_SOURCE, e.g. "Illumination=D50 ObserverAngle=2°".
@@ -512,7 +512,8 @@ class _CgatsReader:
         cols = self.cols
         lab = _lab_value([toks[cols[k]] for k in ("LAB_L", "LAB_A", "LAB_B")], self.rows, lineno)
         sid = toks[cols["SAMPLE_ID"]] if "SAMPLE_ID" in cols else None
-        name = toks[cols["SAMPLE_NAME"]] if "SAMPLE_NAME" in cols else sid
+        # The data format has one of the two (_begin_data refuses it otherwise).
+        name = toks[cols["SAMPLE_NAME"]] if "SAMPLE_NAME" in cols else toks[cols["SAMPLE_ID"]]
         self.rows.add(name, lab, lineno, sid)
 
     def _header_line(self, lineno, toks) -> None:

@@ -48,7 +48,7 @@ import math
 import re
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterable, Literal, Sequence
+from typing import TYPE_CHECKING, Any, Iterable, Literal, Sequence, cast
 
 import numpy as np
 
@@ -575,7 +575,9 @@ class Separation:
         composite = out / f"{stem}-composite.png"
         manifest = out / f"{stem}-manifest.json"
         pdf_path = out / f"{stem}-films.pdf" if pdf else None
-        targets = [t for ts in plan.values() for t in ts] + [composite, manifest] + ([pdf_path] if pdf else [])
+        targets = [t for ts in plan.values() for t in ts] + [composite, manifest]
+        if pdf_path is not None:
+            targets.append(pdf_path)
         if not force:
             for t in targets:
                 if t.exists():
@@ -679,6 +681,7 @@ def print_order(palette, printed: Sequence[int], order: Sequence | None = None) 
     names = {_ink_name(palette, i).casefold(): i for i in printed}
     names.update({palette.hex[i]: i for i in printed})
     out = []
+    i: int | None
     for item in order:
         if isinstance(item, (int, np.integer)) and not isinstance(item, bool):
             i = int(item)
@@ -816,7 +819,8 @@ def separate(image: ImageInput, palette: Palette, *, substrate: int | str | Sequ
         notes.append(dither_note)
     seams = None
     if st.edges and not dither["kept"]:
-        seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), smp.inverse.reshape(pic.shape),
+        inverse = cast(np.ndarray, smp.inverse)  # a sample of one picture (not pooled) has its inverse
+        seamed, seams = resolve_seams(mapped.indices, smp.points("lab"), inverse.reshape(pic.shape),
                                       palette.lab, opaque=pic.opaque)
         mapped = replace(mapped, indices=seamed.astype(mapped.indices.dtype))
     art_idx = mapped.indices
@@ -843,9 +847,10 @@ def separate(image: ImageInput, palette: Palette, *, substrate: int | str | Sequ
                  mapping=_EDGE_MAPPING if st.edges else "nearest by ΔE00")
     sub_cov = float(100.0 * ((cleaned == sub) & film_op).sum() / n_opaque) if sub is not None else 0.0
     alpha = None if pic.alpha is None else np.where(film_op, 255, 0).astype(np.uint8)
+    delta_e = cast(dict, cleanup.delta_e_after)  # _clean always sets it
     sep = Separation(indices=cleaned, palette=palette, substrate=sub, plates=tuple(plates), underbase=ub,
                       dpi=grid.dpi, alpha=alpha, source=pic.source, cleanup=cleanup, thin=thin,
-                      thin_summary=thin_summary, delta_e=cleanup.delta_e_after, settings=st,
+                      thin_summary=thin_summary, delta_e=delta_e, settings=st,
                       notes=tuple(notes + list(mapped.notes)), substrate_coverage=sub_cov, edges=seams,
                       substrate_from=said, dither=dither, film=grid,
                       art_shape=tuple(art_idx.shape), art_dpi=art_dpi, highlight=hl, sequence=tuple(seq),

@@ -67,7 +67,7 @@ class SubstrateGuess:
         if self.rgb8 is None:
             return "substrate: none (the image border is transparent, so every colour prints)"
         hx = hex_ or "#{:02x}{:02x}{:02x}".format(*map(int, self.rgb8))
-        if self.source == "image border":
+        if self.source == "image border" and self.share is not None:
             return (f"substrate {hx} inferred from the image border ({100 * self.share:.0f} % of its pixels); "
                     "it gets no plate (--substrate to give another)")
         return f"substrate {hx}: the palette's {self.source} (--substrate to give another)"
@@ -132,7 +132,7 @@ def _densest(lab: np.ndarray, counts: np.ndarray) -> np.ndarray:
     for c in np.argsort(-counts, kind="stable")[:_CANDIDATES]:
         if counts[c] == 0:
             break
-        near = delta_e_ciede2000(lab, lab[c]) <= SAME_DE
+        near = np.asarray(delta_e_ciede2000(lab, lab[c])) <= SAME_DE  # one per colour of lab
         n = int(counts[near].sum())
         if n > best_n:
             best, best_n = near, n

@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -200,7 +201,7 @@ def _resampler(plane: np.ndarray, shape: tuple[int, int]):
 
     def rows(r0: int, r1: int) -> np.ndarray:
         box = (0.0, r0 * h / fh, float(w), r1 * h / fh)
-        return np.asarray(img.resize((fw, r1 - r0), Image.BICUBIC, box=box), np.float32)
+        return np.asarray(img.resize((fw, r1 - r0), Image.Resampling.BICUBIC, box=box), np.float32)
 
     return rows
 
@@ -330,7 +331,7 @@ def simulate_print(top: np.ndarray, colours_rgb8: np.ndarray, art_shape: tuple[i
         if c < 0:
             continue
         plane = Image.fromarray((top == c).astype(np.float32), mode="F")
-        frac = np.asarray(plane.resize((w, h), Image.BOX), np.float64)
+        frac = np.asarray(plane.resize((w, h), Image.Resampling.BOX), np.float64)
         acc += frac[..., None] * lin[c]
         weight += frac
     empty = weight <= 1e-9
@@ -363,7 +364,7 @@ def print_error(pic, preview: np.ndarray, *, width_mm: float, distance_mm: float
     from quantize.quality.perception import delta_e_map, pixel_delta_e_stats
 
     dpi = preview.shape[1] / (width_mm / MM_PER_INCH)
-    out = {"distance_mm": float(distance_mm), "dpi": round(float(dpi), 3)}
+    out: dict[str, Any] = {"distance_mm": float(distance_mm), "dpi": round(float(dpi), 3)}
     for kind in ("plain", "filtered"):
         de = delta_e_map(pic, preview, kind=kind, dpi=dpi, distance_mm=distance_mm)
         stats = pixel_delta_e_stats(de[~np.isnan(de)], overwrite=True)
