@@ -295,7 +295,7 @@ def _film_lines(sep, films, written: dict) -> None:
     for p in films:
         click.echo(f"  {p.order:>2}. {p.name:<24} {p.coverage:7.2f} %  -> "
                    + ", ".join(t.name for t in written["plates"][p.name]))
-        g = (sep.guidance or {}).get(p.name)
+        g: dict = (sep.guidance or {}).get(p.name) or {}
         sc = screens.get(p.name)
         if sc and "lpi" in sc:
             click.echo(f"      {sc['lpi']:g} lpi at {sc['angle']:g}°, {sc['dot_shape']} dots of at least "
