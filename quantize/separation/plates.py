@@ -870,51 +870,17 @@ def separate(image: ImageInput, palette: Palette, *, substrate: int | str | Sequ
 
 def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: list) -> Separation:
     """Halftone or index plates (:mod:`quantize.separation.tonal`), with an optional solid underbase."""
-    from quantize.core.sampling import sample_picture
-
-    from .tonal import film_coverage, halftone_films, index_films, index_grid, share_maps
-
     if sub is None:
         raise SeparationError(f"{pic.source}: {st.tones} plates mix the inks with the bare substrate between "
                               "them; give the substrate's colour instead of 'none'")
-    tn = st.tonal
     ink_order, layout = split_order(order)
     ordered = print_order(palette, [i for i in range(palette.k) if i != sub], ink_order)
     if st.highlight_white:
         notes.append(f"no highlight white with {st.tones} plates: the inks' shares already set how light each "
                      "area prints")
     shape, white = grid.shape, np.array([255, 255, 255], np.uint8)
-    screens = {}
-    if st.tones == "halftone":
-        scr = tn.screens(len(ordered))
-        shares, on_base = share_maps(sample_picture(pic), pic.shape, palette.rgb8[ordered], palette.rgb8[sub],
-                                     base_rgb8=white if st.underbase else None, yule_nielsen=tn.yule_nielsen)
-        printable = film_coverage(pic.float_alpha(), shape) if pic.alpha is not None else np.ones(shape, bool)
-        films, specks = halftone_films(shares, scr, shape, grid.dpi, printable)
-        base_need = film_coverage(on_base.astype(np.float32), shape) & printable if st.underbase else None
-        for i, sc, (dropped, filled) in zip(ordered, scr, specks, strict=True):
-            screens[_ink_name(palette, i)] = {"lpi": sc.lpi, "angle": sc.angle, "dot_shape": sc.shape,
-                                              "min_dot_mm": sc.min_dot_mm, "specks_removed": dropped,
-                                              "holes_filled": filled}
-        for w in dict.fromkeys(w for sc in scr for w in screen_warnings(sc, grid.dpi, tn.mesh)):
-            notes.append(f"warning: {w}")
-        mapping = ("halftone: ink shares by the Murray-Davies area law in linear light"
-                   + (f" (Yule-Nielsen n = {tn.yule_nielsen:g})" if tn.yule_nielsen != 1 else "")
-                   + ", screened at each ink's angle, overlaps by Demichel's equations")
-    else:
-        ih, iw = index_grid(grid.width_mm, grid.height_mm, tn.index_dpi)
-        film_idx, printable = index_films(pic, palette, (ih, iw), shape, dither=tn.index_dither)
-        films = [(film_idx == i) & printable for i in ordered]
-        light = [i for i in ordered if palette.lab[i, 0] >= st.base_min_l]
-        base_need = np.isin(film_idx, light) & printable if st.underbase else None
-        side = MM_PER_INCH / tn.index_dpi
-        for i in ordered:
-            screens[_ink_name(palette, i)] = {"index_dpi": tn.index_dpi, "square_mm": round(side, 4),
-                                              "dither": tn.index_dither}
-        if abs(grid.dpi / tn.index_dpi - round(grid.dpi / tn.index_dpi)) > 1e-6:
-            notes.append(f"the film's {grid.dpi:g} dpi is not a whole multiple of the index's {tn.index_dpi:g} dpi: "
-                         "index squares differ by a film pixel")
-        mapping = f"index: resampled to {iw} x {ih} squares of {side:.3f} mm, dithered ({tn.index_dither})"
+    make = _halftone_plan if st.tones == "halftone" else _index_plan
+    films, printable, base_need, screens, mapping = make(pic, palette, sub, ordered, grid, st, notes)
     n_op = max(int(printable.sum()), 1)
     names = [_ink_name(palette, i) for i in ordered]
     if len({nm.casefold() for nm in names}) != len(names):
@@ -968,6 +934,51 @@ def _tonal_separation(pic, palette, sub, said, art_dpi, grid, st, order, notes: 
                              "coverage": "each film's inked share of the print; halftone films overlap, so "
                                          "they need not sum to 100 with the substrate"})
 
+
+def _halftone_plan(pic, palette, sub, ordered, grid, st, notes: list):
+    """Halftone films of the inks ``ordered``: (films, printable, underbase need, screens, mapping)."""
+    from quantize.core.sampling import sample_picture
+
+    from .tonal import film_coverage, halftone_films, share_maps
+
+    tn, shape, white = st.tonal, grid.shape, np.array([255, 255, 255], np.uint8)
+    scr = tn.screens(len(ordered))
+    shares, on_base = share_maps(sample_picture(pic), pic.shape, palette.rgb8[ordered], palette.rgb8[sub],
+                                 base_rgb8=white if st.underbase else None, yule_nielsen=tn.yule_nielsen)
+    printable = film_coverage(pic.float_alpha(), shape) if pic.alpha is not None else np.ones(shape, bool)
+    films, specks = halftone_films(shares, scr, shape, grid.dpi, printable)
+    base_need = film_coverage(on_base.astype(np.float32), shape) & printable if st.underbase else None
+    screens = {}
+    for i, sc, (dropped, filled) in zip(ordered, scr, specks, strict=True):
+        screens[_ink_name(palette, i)] = {"lpi": sc.lpi, "angle": sc.angle, "dot_shape": sc.shape,
+                                          "min_dot_mm": sc.min_dot_mm, "specks_removed": dropped,
+                                          "holes_filled": filled}
+    for w in dict.fromkeys(w for sc in scr for w in screen_warnings(sc, grid.dpi, tn.mesh)):
+        notes.append(f"warning: {w}")
+    mapping = ("halftone: ink shares by the Murray-Davies area law in linear light"
+               + (f" (Yule-Nielsen n = {tn.yule_nielsen:g})" if tn.yule_nielsen != 1 else "")
+               + ", screened at each ink's angle, overlaps by Demichel's equations")
+    return films, printable, base_need, screens, mapping
+
+
+def _index_plan(pic, palette, sub, ordered, grid, st, notes: list):
+    """Index films of the inks ``ordered``: (films, printable, underbase need, screens, mapping)."""
+    from .tonal import index_films, index_grid
+
+    tn = st.tonal
+    ih, iw = index_grid(grid.width_mm, grid.height_mm, tn.index_dpi)
+    film_idx, printable = index_films(pic, palette, (ih, iw), grid.shape, dither=tn.index_dither)
+    films = [(film_idx == i) & printable for i in ordered]
+    light = [i for i in ordered if palette.lab[i, 0] >= st.base_min_l]
+    base_need = np.isin(film_idx, light) & printable if st.underbase else None
+    side = MM_PER_INCH / tn.index_dpi
+    screens = {_ink_name(palette, i): {"index_dpi": tn.index_dpi, "square_mm": round(side, 4),
+                                       "dither": tn.index_dither} for i in ordered}
+    if abs(grid.dpi / tn.index_dpi - round(grid.dpi / tn.index_dpi)) > 1e-6:
+        notes.append(f"the film's {grid.dpi:g} dpi is not a whole multiple of the index's {tn.index_dpi:g} dpi: "
+                     "index squares differ by a film pixel")
+    mapping = f"index: resampled to {iw} x {ih} squares of {side:.3f} mm, dithered ({tn.index_dither})"
+    return films, printable, base_need, screens, mapping
 
 def _tonal_guidance(p: Plate, screen: dict, px_cm: float) -> dict:
     """Area and mesh of a halftone or index film, from its screen (its dots are too many to measure one by one)."""
