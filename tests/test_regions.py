@@ -177,3 +177,30 @@ def test_spots_and_strokes_are_looked_for_only_where_the_flat_regions_say_artwor
     rgb = (logo[..., :3] * (logo[..., 3:] / 255.0) + 255 * (1 - logo[..., 3:] / 255.0)).round().astype(np.uint8)
     art = as_picture(rgb)
     assert len(find_regions(art, structures=artwork_like)) == len(find_regions(art))
+
+
+@pytest.mark.parametrize("angle", [0.0, 20.0, 45.0, 70.0])
+@pytest.mark.parametrize("width", [1.0, 2.0, 3.0])
+def test_a_stroke_width_is_the_width_of_the_band_drawn(width, angle):
+    # Reference: plane geometry. A straight band of known width through a pale ground,
+    # each pixel's ink the share of its area inside the band (16 x 16 samples a pixel),
+    # mixed in encoded sRGB as resampling mixes. The width read in pixels of the ink's
+    # own colour is the band's width, at any angle (core/regions.py _stroke_width).
+    from quantize.colour.spaces import srgb_to_lab
+    from quantize.core import regions as r
+
+    size, s = 48, 16
+    sub = (np.arange(size * s) + 0.5) / s - size / 2
+    y, x = np.meshgrid(sub, sub, indexing="ij")
+    t = np.radians(angle)
+    inside = np.abs(-np.sin(t) * x + np.cos(t) * y - 0.3) <= width / 2
+    cover = inside.reshape(size, s, size, s).mean(axis=(1, 3))
+    ink, ground = np.array([0.1, 0.1, 0.12]), np.array([0.95, 0.9, 0.8])
+    lab = srgb_to_lab(cover[..., None] * ink + (1 - cover[..., None]) * ground)
+    centre = np.zeros((size, size), bool)
+    centre[12:-12, 12:-12] = True
+    pixels = np.flatnonzero((cover >= 0.5) & centre)
+    measured = r._stroke_width(lab, pixels, srgb_to_lab(ink))
+    # A 3 px band crossed at 45 degrees spans 4.2 px of a row, nearly the whole 5 px
+    # window, and one shallower than 30 degrees is read on its column alone: within 10 %.
+    assert measured == pytest.approx(width, abs=0.15 if width <= 2 else 0.1 * width)

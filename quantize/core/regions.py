@@ -29,7 +29,11 @@ inside.  :func:`find_regions` separates the two:
    smoothed colour is :data:`UNEXPLAINED_DE` from every flat colour and
    that are no seam, a mix of the colours on either side of them.  A spot
    is kept if its colour is that far from every flat colour, a stroke if it
-   is that far from every mix of flat colours.  They add no flat share.
+   is that far from every mix of flat colours.  A stroke narrower than
+   :data:`PRINTABLE_WIDTH` (a line too thin to print, whose ink no pixel
+   holds), or within :data:`LINE_MIX_DE` of a mix of such a line's colour
+   and its ground, is no ink (:func:`_unprintable_lines`).  They add no
+   flat share.
 5. Where spots and strokes are looked for (artwork), a region whose core
    holds under :data:`INTERIOR_SHARE` of the picture takes its colour from
    its interior, not its flat core (:func:`_interior_colours`), and a thin
@@ -64,7 +68,8 @@ from .picture import Picture
 __all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN_CORE_RADIUS", "ANALYSIS_PIXELS",
            "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
            "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS", "INTERIOR_SHARE", "INTERIOR_REACH", "INTERIOR_RIM",
-           "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE"]
+           "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE", "BLEED_CHROMA_SHIFT", "PRINTABLE_WIDTH",
+           "LINE_MIX_DE"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -143,6 +148,33 @@ INTERIOR_RIM = 1
 BLEED_DEPTH = 3
 BLEED_SHARE = 0.01
 BLEED_DE = 1.5
+#: How far (in mix weight) a bleed's chroma may sit from its lightness's
+#: mix: JPEG 4:2:0 averages the chroma of a hairline over 2 x 2 pixels with
+#: its ground, so a thin run along it can hold the lightness of a 50 % mix
+#: and the chroma of a 20 % one.  On the generated lettering such a run
+#: (at the end of a hairline, where the picture's edge cuts the window)
+#: lay 4.8 from every mix of one weight and 0.26 from one with a shift of
+#: 0.35; the 0.2-0.5 % spots thin enough to be tested (60 files, tuning
+#: seeds 0-29, JPEG q75 and scan) stayed 5.1 or more from these mixes (at a
+#: shift of 0.5: 2.4).
+BLEED_CHROMA_SHIFT = 0.35
+#: The narrowest stroke kept as an ink, in pixels of its own colour
+#: (:func:`_stroke_width`).  A 1 px line gives 1 to 2 (1 / m where m is the
+#: coverage of its darker pixels), a 2 px line 2 and a 3 px line 3; on
+#: generated linework (tuning seeds 30-39) the pieces of 1 px lines measured
+#: 1.0-1.35 (73 of 84) or, where they fall half on two pixels, 1.9 or more;
+#: 2 px lines 1.66 or more and 3 px lines 2.5 or more.  At 300 dpi 1.5 px is 0.13 mm, below the finest
+#: line a screen usually holds (about 0.15-0.2 mm; common practice, from
+#: memory).
+PRINTABLE_WIDTH = 1.5
+#: A stroke within this ΔE (chroma weighted) of a 10-90 % mix of two of the
+#: colours around it, a thin line's among them, is that line's blend with
+#: its ground (:func:`_unprintable_lines`).  Wider than :data:`BLEED_DE`: a
+#: stroke's colour is the median of a few dozen pixels over grounds that
+#: vary along it.  On generated 1 px linework (tuning seeds 30-39) the
+#: blends lay within 1.8 of such a mix; the pieces of 2 and 3 px lines in
+#: their own ink, 4.8 or more.
+LINE_MIX_DE = 3.0
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
 _WINDOW = 5
@@ -397,6 +429,47 @@ def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray) -> np.ndarray:
     return np.vstack([in_srgb, np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_lab).reshape(-1, 3)])
 
 
+def _stroke_width(lab: np.ndarray, pixels: np.ndarray, colour: np.ndarray) -> float:
+    """How wide a stroke is, in pixels of its own ``colour``: the ink it lays across itself.
+
+    For each of the stroke's ``pixels`` (flat indices into ``lab``), the
+    pixels up to 2 px on either side along its row, and along its column,
+    are read as coverages: the share of the way from the ground (the mean
+    of the two pixels 3 px away) to ``colour``, in encoded sRGB, as
+    resampling and JPEG mix them.  A pixel's value is the area of it the
+    stroke covers, so the sum along a row is the length of the row the
+    stroke crosses, ``w / sin(angle)``, and along a column ``w / cos(angle)``:
+    ``w = 1 / sqrt(1 / row**2 + 1 / column**2)`` at any angle.  (Along a
+    stroke the pixels 3 px away are the stroke, no ground, and the pixel
+    is no more inked than they are: that direction adds nothing.  A stroke
+    more than about 6 px long along a row, shallower than 30 degrees at
+    3 px, is measured on its column alone, up to 15 % wide.)  Returns the median over the pixels.  A line 1 px wide
+    read at its darker pixels, of coverage ``m``, gives ``1 / m``, under 2
+    unless it falls half on each of two pixels; a line 2 px wide gives 2.
+    """
+    h, w = lab.shape[:2]
+    ys, xs = np.divmod(pixels, w)
+    rgb = clip_to_gamut(lab_to_srgb(colour))
+    inverse2 = np.zeros(len(pixels))
+    for dy, dx in ((0, 1), (1, 0)):
+        ring = [_neighbour(lab, ys + k * dy, xs + k * dx) for k in range(-3, 4)]
+        enc = [clip_to_gamut(lab_to_srgb(np.nan_to_num(r))) for r in ring]
+        ground = 0.5 * (enc[0] + enc[6])
+        v = rgb - ground
+        norm = np.maximum(np.einsum("ij,ij->i", v, v), 1e-12)
+        cover = [np.clip(np.einsum("ij,ij->i", e - ground, v) / norm, 0.0, 1.5) for e in enc[1:6]]
+        crossed = sum(cover)
+        # Across the stroke the pixel itself is inked against the ground 3 px
+        # away, and that ground is no part of the stroke.
+        with np.errstate(invalid="ignore"):
+            across = ((cover[2] >= 0.5)
+                      & (_weighted_lab_distance(ring[0], np.broadcast_to(colour, ring[0].shape)) >= UNEXPLAINED_DE / 2)
+                      & (_weighted_lab_distance(ring[6], np.broadcast_to(colour, ring[6].shape)) >= UNEXPLAINED_DE / 2))
+        inverse2 += np.where(across, 1.0 / np.maximum(crossed, 1e-6) ** 2, 0.0)
+    width = 1.0 / np.sqrt(inverse2[inverse2 > 0])
+    return float(np.median(width)) if len(width) else float("inf")
+
+
 def _is_even(colours: np.ndarray) -> bool:
     """Whether 80 % of ``colours`` lie within :data:`SPOT_SPREAD` (ΔE, chroma weighted) of their mean.
 
@@ -452,7 +525,7 @@ def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
     # dilation and one erosion), then two erosions.
     closed = _erode(_grow((labels > 0).astype(np.int32), np.ones_like(opaque), 1) > 0, _SQUARE)
     deep = _erode(_erode(closed, _SQUARE), _SQUARE)
-    colours, kept, mixes, strokes, sizes = [], np.zeros(n + 1, bool), None, [], []
+    colours, kept, mixes, strokes, sizes, widths = [], np.zeros(n + 1, bool), None, [], [], []
     # Each structure's pixels as a slice of one sort: no full-picture mask per structure.
     flat_labels = labels.ravel()
     order = np.argsort(flat_labels, kind="stable")
@@ -484,11 +557,42 @@ def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
             colours.append(colour)
             strokes.append(len(tested) > 1)
             sizes.append(len(own))
+            widths.append(_stroke_width(lab, full, colour) if strokes[-1] else np.inf)
             kept[i] = True
+    colours, strokes, sizes = np.asarray(colours).reshape(-1, 3), np.asarray(strokes, bool), np.asarray(sizes, float)
+    line = _unprintable_lines(colours, strokes, sizes, np.asarray(widths, np.float64), flat_lab, flat_count)
+    if line.any():
+        kept[np.flatnonzero(kept)[line]] = False
+        colours, strokes, sizes = colours[~line], strokes[~line], sizes[~line]
     labels = (np.cumsum(kept) * kept)[labels]
-    colours = _one_ink_per_linework(np.asarray(colours).reshape(-1, 3), np.asarray(strokes, bool),
-                                    np.asarray(sizes, np.float64))
+    colours = _one_ink_per_linework(colours, strokes, sizes)
     return labels, colours
+
+
+def _unprintable_lines(colours, stroke, size, width, flat_lab, flat_count):
+    """Which strokes are too thin to print, or the blend of such a line with its ground.
+
+    A stroke narrower than :data:`PRINTABLE_WIDTH` (:func:`_stroke_width`)
+    is a line below what a screen holds; its ink cannot be read from it
+    either (a 1 px anti-aliased line falls across two pixels, each a blend
+    with the ground).  Where such a line falls half on each of two pixels,
+    its pieces look 2 px wide in the blend's colour; where it falls on one,
+    they hold its ink.  So a stroke within :data:`LINE_MIX_DE` of a 10-90 %
+    mix of two of the colours around it (the :data:`MIX_COLOURS` largest
+    distinct flat colours and as many strokes' colours, the thin ones
+    included, by pixels: :func:`_pair_mixes`) is
+    the blend of a line with its ground, a seam as :func:`_bleeds` finds
+    JPEG's, and goes too.  Spots are left alone.
+    """
+    line = stroke & (width < PRINTABLE_WIDTH)
+    if not stroke.any() or not len(flat_lab):
+        return line
+    pair_colours = np.vstack([_largest_distinct(flat_lab, flat_count),
+                              _largest_distinct(colours[stroke], size[stroke])])
+    mix = _pair_mixes(pair_colours)
+    for i in np.flatnonzero(stroke & ~line):
+        line[i] = _mix_distance(colours[i], pair_colours, mix) < LINE_MIX_DE
+    return line
 
 
 def _one_ink_per_linework(colours: np.ndarray, stroke: np.ndarray, size: np.ndarray) -> np.ndarray:
@@ -555,15 +659,47 @@ def _bleeds(labels, colours, share):
             continue
         if mix is None:  # every mix of two of the largest distinct colours, once
             pair_colours = _largest_distinct(colours, share)
-            rgb = clip_to_gamut(lab_to_srgb(pair_colours))
-            weights = np.linspace(0.1, 0.9, 33)[:, None, None, None]
-            mix = srgb_to_lab(weights * rgb[None, :, None] + (1 - weights) * rgb[None, None, :])
-        other = _weighted_lab_distance(pair_colours, np.broadcast_to(colours[i], pair_colours.shape)) >= 3.0
-        if np.count_nonzero(other) < 2:
-            continue
-        d = _weighted_lab_distance(mix, np.broadcast_to(colours[i], mix.shape))[:, other][:, :, other]
-        drop[i] = d.min() < BLEED_DE
+            mix = _pair_mixes(pair_colours, chroma_shift=BLEED_CHROMA_SHIFT)
+        drop[i] = _mix_distance(colours[i], pair_colours, mix) < BLEED_DE
     return drop
+
+
+#: JPEG's YCbCr from encoded sRGB (ITU-T T.871, the JFIF colour space).
+_YCC = np.array([[0.299, 0.587, 0.114], [-0.168736, -0.331264, 0.5], [0.5, -0.418688, -0.081312]])
+
+
+def _pair_mixes(pair_colours: np.ndarray, *, chroma_shift: float = 0.0) -> np.ndarray:
+    """Every 10-90 % mix of two of ``pair_colours``, in encoded sRGB (as JPEG's YCbCr and resampling average).
+
+    With ``chroma_shift``, the chroma (JPEG's Cb, Cr) of each mix may lie
+    that far (in mix weight, steps of 0.05) from its luma's: JPEG 4:2:0
+    averages a thin feature's chroma over 2 x 2 pixels with its ground's.
+    Returns CIELAB colours of shape (m, n, n, 3): the mix of colours ``i``
+    and ``j`` at ``[:, i, j]``.
+    """
+    rgb = clip_to_gamut(lab_to_srgb(pair_colours))
+    luma = np.linspace(0.1, 0.9, 33)
+    shifts = np.arange(-chroma_shift, chroma_shift + 1e-9, 0.05) if chroma_shift else np.zeros(1)
+    wy = np.repeat(luma, len(shifts))
+    wc = np.clip(wy + np.tile(shifts, len(luma)), 0.1, 0.9)
+    ycc = rgb @ _YCC.T
+    mixed = np.empty((len(wy), len(rgb), len(rgb), 3))
+    for c, w in ((0, wy), (1, wc), (2, wc)):
+        w = w[:, None, None]
+        mixed[..., c] = w * ycc[None, :, None, c] + (1 - w) * ycc[None, None, :, c]
+    return srgb_to_lab(np.clip(mixed @ np.linalg.inv(_YCC).T, 0.0, 1.0))
+
+
+def _mix_distance(colour: np.ndarray, pair_colours: np.ndarray, mix: np.ndarray) -> float:
+    """Distance (chroma weighted) from ``colour`` to the nearest mix of two pair colours other than its own ink.
+
+    Pair colours within 3 of ``colour`` are its own ink and take no part;
+    with fewer than two others left it is no mix (inf).
+    """
+    other = _weighted_lab_distance(pair_colours, np.broadcast_to(colour, pair_colours.shape)) >= 3.0
+    if np.count_nonzero(other) < 2:
+        return float("inf")
+    return float(_weighted_lab_distance(mix, np.broadcast_to(colour, mix.shape))[:, other][:, :, other].min())
 
 
 def _largest_distinct(colours, weight):
