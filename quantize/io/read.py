@@ -430,8 +430,10 @@ def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIX
     name, p, head = _file_head(path, max_pixels)
     if head[:4] in _TIFF_MAGIC:
         from ._lab import lab_tiff_size
+        from ._tiff_tables import check_tiff_tables
 
         with _decode_errors(name, head):
+            check_tiff_tables(p, name)
             size = lab_tiff_size(p, name)  # Pillow opens no 16-bit Lab
         if size is not None:
             check_pixels(name, size, max_pixels)
@@ -449,6 +451,7 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
 
     from quantize.io import _deep as _deep
     from quantize.io import _lab as _lab
+    from quantize.io._tiff_tables import check_tiff_tables
 
     notes: list[_Note] = []
     with _decode_errors(name, head), _decoder_warnings(name, notes):
@@ -458,6 +461,7 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
         if head[:8] == _PNG_SIGNATURE and head[12:16] == b"IHDR" and head[24] == 16 and head[25] in PNG16_RAWMODE:
             deep = _deep.read_png16(p, name, head[25], max_pixels, notes)
         elif head[:4] in _TIFF_MAGIC:
+            check_tiff_tables(p, name)
             lab = _lab.read_lab_tiff(p, name, max_pixels, notes)
             if lab is None:
                 deep = _deep.read_tiff16(p, name, max_pixels, notes)
