@@ -48,6 +48,12 @@ __all__ = ["Palette", "FitRecord", "FitCandidate", "parse_colour", "parse_locked
 
 FORMAT_NAME = "quantize.palette"
 FORMAT_VERSION = 1
+#: Most colours a palette file may list: the fit's own limit (quantize.fit.engine.MAX_K), so every palette
+#: this package writes loads. A hostile file of millions took gigabytes to build before the cap.
+MAX_PALETTE_COLOURS = 4096
+#: Largest palette file read (bytes). 4096 colours and their fit record take well under 1 MB; parsing
+#: JSON can take some 25 times a file's size in memory, so the cap keeps a hostile file's parse near 100 MB.
+MAX_PALETTE_BYTES = 4_000_000
 _HEX = re.compile(r"^#?([0-9a-fA-F]{6})\Z")  # \Z: "$" would let a trailing newline through
 #: The short form needs its "#": three bare letters read more like a word than a colour.
 _HEX3 = re.compile(r"^#([0-9a-fA-F]{3})\Z")
@@ -514,13 +520,18 @@ class Palette:
         """
         p = Path(path)
         try:
-            text = p.read_text(encoding="utf-8")
+            with open(p, "rb") as fh:
+                data = fh.read(MAX_PALETTE_BYTES + 1)
+            text = data.decode("utf-8")
         except FileNotFoundError:
             raise PaletteFileError(f"{p}: no such palette file") from None
         except IsADirectoryError:
             raise PaletteFileError(f"{p}: is a folder, not a palette file") from None
         except (OSError, UnicodeDecodeError) as exc:
             raise PaletteFileError(f"{p}: cannot read palette file ({exc.__class__.__name__})") from None
+        if len(data) > MAX_PALETTE_BYTES:
+            raise PaletteFileError(f"{p}: larger than a palette file may be ({MAX_PALETTE_BYTES / 1e6:.0f} MB); "
+                                   "not a palette")
         try:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:
@@ -552,6 +563,8 @@ class Palette:
         cols = doc.get("colours")
         if not isinstance(cols, list) or not cols:
             bad("colours", "expected a non-empty list")
+        if len(cols) > MAX_PALETTE_COLOURS:
+            bad("colours", f"{len(cols):,} colours; a palette holds at most {MAX_PALETTE_COLOURS:,}")
         rgb, locked, names, labs = [], [], [], []
         for i, c in enumerate(cols):
             where = f"colours[{i}]"

@@ -46,6 +46,15 @@ def _run(ctx: click.Context, fn):
         elif isinstance(exc, OSError) and getattr(exc, "filename", None) and str(exc.filename) not in msg:
             msg = f"{exc.filename}: {msg}"
         raise _Failure(_one_message_line(ctx, msg)) from None
+    except MemoryError:
+        # Out of memory anywhere in the job (numpy raises it as a subclass): one line naming the inputs.
+        if (ctx.find_root().obj or {}).get("debug"):
+            raise
+        given = [ctx.params.get(p.name or "") for p in ctx.command.params if isinstance(p, click.Argument)]
+        names = [str(v) for g in given for v in (g if isinstance(g, (tuple, list)) else (g,))
+                 if isinstance(v, str)] or ["the job"]
+        raise _Failure(_one_message_line(ctx, f"{', '.join(names)[:300]}: not enough memory for this job; "
+                                              "lower --max-pixels or free memory")) from None
 
 
 #: Longest message line shown: a hostile file's contents or a huge number are never echoed whole.

@@ -25,6 +25,10 @@ How :func:`load_image` reads a file
   need the optional imagecodecs package when tifffile reads them (LZW, for
   one). Without it, chunky RGB(A) files are decoded by Pillow's libtiff with the
   same byte-order trick, and other layouts fall back to 8 bits with a warning.
+* CIELAB and ICCLAB TIFF (8 or 16 bits) and Pillow's LAB mode are decoded to
+  CIELAB under the file's white (its WhitePoint tag, else D50), adapted to D65
+  by Bradford and encoded as sRGB, at the file's depth (:mod:`quantize.io._lab`).
+  Colours outside sRGB are clipped, with one warning counting the pixels.
 
 Colour management
 
@@ -428,6 +432,16 @@ def check_image_file(path: PathLike, *, max_pixels: int | None = DEFAULT_MAX_PIX
         As :func:`load_image` for those faults.
     """
     name, p, head = _file_head(path, max_pixels)
+    if head[:4] in _TIFF_MAGIC:
+        from ._lab import lab_tiff_size
+        from ._tiff_tables import check_tiff_tables
+
+        with _decode_errors(name, head):
+            check_tiff_tables(p, name)
+            size = lab_tiff_size(p, name)  # Pillow opens no 16-bit Lab
+        if size is not None:
+            check_pixels(name, size, max_pixels)
+            return size
     with _decode_errors(name, head), open_pil(p) as img:
         check_pixels(name, img.size, max_pixels)
         return int(img.size[0]), int(img.size[1])
@@ -440,17 +454,24 @@ def _read_file(path: PathLike, max_pixels: int | None) -> tuple[Picture, list[_N
     cmyk = _ASSUMED_CMYK.get()
 
     from quantize.io import _deep as _deep
+    from quantize.io import _lab as _lab
+    from quantize.io._tiff_tables import check_tiff_tables
 
     notes: list[_Note] = []
     with _decode_errors(name, head), _decoder_warnings(name, notes):
         if head[:8] == _PNG_SIGNATURE:
             check_png_chunks(p, name)
-        deep = None
+        deep = lab = None
         if head[:8] == _PNG_SIGNATURE and head[12:16] == b"IHDR" and head[24] == 16 and head[25] in PNG16_RAWMODE:
             deep = _deep.read_png16(p, name, head[25], max_pixels, notes)
         elif head[:4] in _TIFF_MAGIC:
-            deep = _deep.read_tiff16(p, name, max_pixels, notes)
-        if deep is not None:
+            check_tiff_tables(p, name)
+            lab = _lab.read_lab_tiff(p, name, max_pixels, notes)
+            if lab is None:
+                deep = _deep.read_tiff16(p, name, max_pixels, notes)
+        if lab is not None:
+            picture = _finish_lab(name, lab, notes)
+        elif deep is not None:
             if head[:8] == _PNG_SIGNATURE:
                 colour, alpha = deep[0], deep[1]
                 tail = colour[-2:].reshape(min(2, len(colour)), -1)
@@ -536,6 +557,10 @@ def _from_pil(img: Image.Image, name: str, notes: list[_Note], cmyk: tuple[str, 
             alpha = np.where(grey == trns, 0, 65535).astype(np.uint16)
         colour, depth, desc = convert_deep(grey[..., None], icc, name, notes)
         return colour, alpha, depth, dpi, desc
+    if mode == "LAB":
+        from ._lab import pil_lab_to_srgb
+
+        return pil_lab_to_srgb(img, name, notes), None, 8, dpi, "CIELAB (Pillow LAB mode), D50 white assumed"
     if mode not in _PIL_8BIT_MODES:
         raise ImageReadError(f"{name}: unsupported colour mode {mode!r}")
     if mode == "La":  # Pillow unpremultiplies La only on the way to LA
@@ -593,6 +618,17 @@ def _finish_deep(name: str, colour: np.ndarray, alpha: np.ndarray | None, icc: b
             dpi = (dpi[1], dpi[0])
     colour, depth, desc = convert_deep(colour, icc, name, notes)
     return colour, alpha, depth, dpi, desc
+
+
+def _finish_lab(name, lab, notes) -> Picture:
+    """Orient the sRGB codes decoded from a Lab TIFF (:func:`quantize.io._lab.read_lab_tiff`)."""
+    colour, alpha, depth, orientation, dpi, desc = lab
+    if orientation in _ORIENT:
+        colour = _ORIENT[orientation](colour)
+        alpha = None if alpha is None else _ORIENT[orientation](alpha)
+        if orientation >= 5 and dpi:
+            dpi = (dpi[1], dpi[0])
+    return _finish(name, colour, alpha, depth, dpi, desc, notes)
 
 
 def _finish(name, colour, alpha, depth, dpi, desc, notes) -> Picture:

@@ -53,8 +53,14 @@ __all__ = [
     "load_ink_library", "parse_ink_library", "adapt_lab", "bradford_matrix",
 ]
 
-#: Largest ink library file read: a measured library of thousands of inks is well under 1 MB.
-MAX_LIBRARY_BYTES = 16_000_000
+#: Largest ink library file read: a measured library of thousands of inks is well under 1 MB. Parsing
+#: JSON can take some 25 times a file's size in memory (a file of empty objects), so the cap keeps a
+#: hostile file's parse near 100 MB (tests/test_memory_bound.py measures it).
+MAX_LIBRARY_BYTES = 4_000_000
+#: Most inks a library may hold: published spot-colour guides hold a few thousand (common practice, no
+#: source). Each ink is checked against the sRGB gamut when the library is built, so a million-ink file
+#: took minutes and half a gigabyte before this cap.
+MAX_LIBRARY_INKS = 20_000
 
 _HEX = re.compile(r"^#?([0-9a-fA-F]{6})$")
 # A CGATS token: a double-quoted string (may hold spaces) or a run of non-blanks.
@@ -261,6 +267,8 @@ class _Rows:
         name = " ".join(str(name).split())
         if not name:
             raise self.bad(line, "ink has no name")
+        if len(self.items) >= MAX_LIBRARY_INKS:
+            raise self.bad(line, f"more than {MAX_LIBRARY_INKS:,} inks; an ink library may hold at most that many")
         self.items.append((name, colour, line, sample_id))
 
     def build(self, fmt: str, illuminant: str, observer: int, notes=()) -> InkLibrary:
