@@ -67,7 +67,13 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
         _check_room_for_transparency(out, k, pic)  # before the fit, not after it
-        pal = _fit_with_progress(pic, k, settings, max_pixels)
+        from quantize.fit.index_room import sizes_with_room
+        from quantize.io.write import needs_clear_entry
+
+        # A range reaching 256 leaves the transparent pixels their index entry: its top is lowered first.
+        k_fit, room_note = sizes_with_room(k, settings, reserve=int(needs_clear_entry(out, pic.alpha, pic.max_code)),
+                                           picture=pic)
+        pal = _fit_with_progress(pic, k_fit, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
         res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
         from quantize.io.write import publish_together
@@ -80,11 +86,12 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             from quantize.report.page import write_report
 
             write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
-                         error_map_path=dextra["error_map"], more_sizes=_untried_sizes(pic, k, pal, settings),
+                         error_map_path=dextra["error_map"],
+                         more_sizes=_untried_sizes(pic, k_fit if isinstance(k_fit, str) else k, pal, settings),
                          title=f"quantize reduce: {Path(image).name}", force=force)
-        return pal, res, saved, dextra, dlines
+        return pal, res, saved, dextra, dlines, room_note
 
-    pal, res, saved, dextra, dlines = _run(ctx, work)
+    pal, res, saved, dextra, dlines, room_note = _run(ctx, work)
     dextra, dlines = _of_the_file(saved, dextra, dlines)
     rows = _palette_rows(pal, saved.coverage)
     summary = {
@@ -94,7 +101,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
         "candidates": [c.to_dict() for c in pal.fit.candidates],
-        "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
+        "notes": ([room_note] if room_note else []) + list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
         **_judgement_summary(pal.fit), **dextra,
     }
     if dextra["error_map"]:
