@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -75,17 +76,27 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
                                            picture=pic)
         pal = _fit_with_progress(pic, k_fit, settings, max_pixels)
         res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
-        res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
-        from quantize.io.write import publish_together
+        from quantize.io.write import SAVE_FORMATS, publish_together
 
+        # A JPEG's error map is drawn from the JPEG as written, so it waits for the file.
+        lossy = SAVE_FORMATS[out.suffix.lower()] == "JPEG"
+        res, dextra, dlines = run_dither_outputs(pic, res, dataclasses.replace(dopts, error_map=None) if lossy
+                                                 else dopts, force=force, inputs=[image])
         with publish_together():  # the image and its palette land together, or neither does
             saved = res.write(out, picture=pic, force=force, inputs=[image])
             if pal_path:
                 pal.save(pal_path, force=force)
+        if lossy and dopts.error_map:
+            from quantize.report.errormap import save_file_error_map
+
+            save_file_error_map(dopts.error_map, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
+                                distance_mm=dopts.view_distance, force=force, inputs=[image])
+            dextra["error_map"] = str(dopts.error_map)
+            dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {dopts.error_map}")
         if report_dir:
             from quantize.report.page import write_report
 
-            write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
+            write_report(report_dir, original_picture=pic, mapped=res, palette=pal, written=saved,
                          error_map_path=dextra["error_map"],
                          more_sizes=_untried_sizes(pic, k_fit if isinstance(k_fit, str) else k, pal, settings),
                          title=f"quantize reduce: {Path(image).name}", force=force)
