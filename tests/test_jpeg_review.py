@@ -130,3 +130,20 @@ def test_a_swatch_click_on_the_jpeg_page_marks_its_nearest_pixels_in_a_browser(j
     assert text, run.stderr[-500:]
     assert console_lines(run.stderr) == []
     assert json.loads(text)["marked"] == pytest.approx(share, abs=0.01)
+
+
+@pytest.mark.parametrize("method, says, never", [
+    ("bayer4", "ordered, 4 x 4 Bayer matrix, two palette colours mixed in linear light", "error in linear light"),
+    ("stucki", "error diffusion, serpentine scan (error in linear light)", "mixed"),
+])
+def test_the_pages_dither_setting_says_what_the_method_does(tmp_path, method, says, never):
+    """Issue 17: an ordered dither diffuses no error; the page's settings must not say it does."""
+    rgb = np.ascontiguousarray(skimage_data.chelsea()[::6, ::6])
+    src = tmp_path / "cat.png"
+    Image.fromarray(rgb).save(src)
+    r = CliRunner().invoke(main, ["reduce", str(src), "-o", str(tmp_path / "o.png"), "-k", "4", "--restarts", "1",
+                                  "--dither", method, "--report", str(tmp_path / "rep")])
+    assert r.exit_code == 0, r.output
+    page = (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
+    row = re.search(r'<td class="l">dither</td><td class="l">([^<]*)</td>', page).group(1)
+    assert says in row and never not in row

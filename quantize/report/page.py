@@ -296,10 +296,14 @@ def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
     locked = [hx for hx, lk in zip(pal.hex, pal.locked) if lk]
     rows.append(("locked colours in the palette", text(locked)))
     d = result.dither
-    rows.append(("dither", "none" if d is None else
-                 f"{d.method}, strength {d.strength:g}" + ("" if d.serpentine is None else
-                                                          (", serpentine" if d.serpentine else ", raster"))
-                 + f", error in {d.error_space}"))
+    if d is None:
+        rows.append(("dither", "none"))
+    else:
+        # The command line's one-line wording: an ordered dither mixes two colours, it diffuses no error.
+        from quantize.render.methods import describe
+
+        rows.append(("dither", describe(d.method, strength=d.strength,
+                                        serpentine=True if d.serpentine is None else d.serpentine)))
     return rows
 
 
