@@ -147,3 +147,26 @@ def test_the_pages_dither_setting_says_what_the_method_does(tmp_path, method, sa
     page = (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
     row = re.search(r'<td class="l">dither</td><td class="l">([^<]*)</td>', page).group(1)
     assert says in row and never not in row
+
+
+def test_a_scaled_page_shows_the_jpegs_pixels_scaled(tmp_path):
+    """Larger than the page's max_side: the JPEG's decoded pixels, scaled by nearest neighbour."""
+    from quantize.fit.engine import fit_palette
+    from quantize.io.read import as_picture
+    from quantize.report.page import write_report
+
+    pic = as_picture(np.ascontiguousarray(skimage_data.coffee()[::4, ::4]))  # 150 x 100 px
+    pal = fit_palette(pic, K, restarts=1)
+    res = pal.apply(pic)
+    with pytest.warns(Warning):
+        saved = res.write(tmp_path / "c.jpg", picture=pic)
+    page = write_report(tmp_path / "rep", original_picture=pic, mapped=res, written=saved, max_side=60)
+    shown = _decode_uri(_img_src(page.read_text(encoding="utf-8"), "after")).astype(int)
+    decoded = np.asarray(Image.open(tmp_path / "c.jpg").convert("RGB")).astype(int)
+    h, w = decoded.shape[:2]
+    rows = (np.arange(shown.shape[0]) * h // shown.shape[0])[:, None]
+    cols = (np.arange(shown.shape[1]) * w // shown.shape[1])[None, :]
+    assert max(shown.shape[:2]) == 60
+    # Exactly the JPEG's decoded pixels, subsampled; far from the palette image the JPEG was made from.
+    assert np.abs(shown - decoded[rows, cols]).mean() == 0
+    assert np.abs(shown - pal.rgb8[res.indices][rows, cols].astype(int)).mean() > 2.0

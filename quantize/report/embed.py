@@ -121,9 +121,12 @@ def written_uris(written, picture, palette, max_side: int | None) -> tuple[str, 
     """A lossy file as written (a JPEG) for the page: its image, its size, and where each palette colour is.
 
     The image is the file's own bytes when it fits ``max_side``; a larger
-    one is scaled by nearest neighbour from its decoded pixels and encoded
-    again as JPEG (quality 95, 4:4:4, as the writer), so the page shows
-    the JPEG's pixels, not the palette image it was made from.  The second
+    one is its decoded pixels scaled by nearest neighbour, as a PNG
+    (exactly those pixels: a second JPEG generation of a subsampled copy
+    moved them by 3 levels on average, nearly as far as the palette image
+    is), so the page shows the JPEG's pixels, not the palette image it was
+    made from.  That PNG of a photograph is larger than the indexed PNG a
+    palette image gives.  The second
     URI is an indexed PNG of the same size giving each pixel the palette
     colour nearest to it (CIEDE2000, as the file's coverage counts it;
     pixels not fully opaque in ``picture`` transparent): the swatch
@@ -156,10 +159,8 @@ def written_uris(written, picture, palette, max_side: int | None) -> tuple[str, 
             src = data_uri(Path(written.path).read_bytes(), "image/jpeg")
         except OSError:  # gone since it was written: its decoded pixels instead
             src = None
-    if src is None:
-        buf = io.BytesIO()
-        Image.fromarray(shown_rgb, "RGB").save(buf, format="JPEG", quality=95, subsampling=0)
-        src = data_uri(buf.getvalue(), "image/jpeg")
+    if src is None:  # PNG: exactly the JPEG's decoded pixels (another JPEG generation would add its own noise)
+        src = data_uri(png_bytes(Image.fromarray(shown_rgb, "RGB")), "image/png")
     opaque = None
     if picture.alpha is not None:
         opaque = (picture.alpha >= picture.max_code)[rows, cols] if size != (w, h) else picture.alpha >= picture.max_code
