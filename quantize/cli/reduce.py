@@ -112,7 +112,8 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
         "candidates": [c.to_dict() for c in pal.fit.candidates],
-        "notes": ([room_note] if room_note else []) + list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
+        "notes": ([room_note] if room_note else []) + list(pal.fit.notes),
+        "seconds": round(time.perf_counter() - t0, 3),
         **_judgement_summary(pal.fit), **dextra,
     }
     if dextra["error_map"]:

@@ -136,7 +136,8 @@ SCRIPT = r"""
       b.addEventListener("click", function () {
         if (b.getAttribute("aria-pressed") === "true") { unmark(); return; }
         var src = source();
-        if (src.complete) { highlight(b); } else { src.addEventListener("load", function () { highlight(b); }, { once: true }); }
+        if (src.complete) { highlight(b); }
+        else { src.addEventListener("load", function () { highlight(b); }, { once: true }); }
       });
     });
     var zoom = root.querySelector("button.zoom");

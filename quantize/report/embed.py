@@ -163,7 +163,8 @@ def written_uris(written, picture, palette, max_side: int | None) -> tuple[str, 
         src = data_uri(png_bytes(Image.fromarray(shown_rgb, "RGB")), "image/png")
     opaque = None
     if picture.alpha is not None:
-        opaque = (picture.alpha >= picture.max_code)[rows, cols] if size != (w, h) else picture.alpha >= picture.max_code
+        opaque = picture.alpha >= picture.max_code
+        opaque = opaque if size == (w, h) else opaque[rows, cols]
     m = palette.apply(as_picture(shown_rgb), nearest="ciede2000")
     mark = png_bytes(indexed_image(m.indices, palette.rgb8, None if opaque is None else opaque))
     return src, size, data_uri(mark, "image/png")

@@ -531,8 +531,8 @@ def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, wor
     parts.extend(_image_blocks(pics, results, sweep, maps, max_side=max_side, preview_side=preview_side,
                                more_sizes=more_sizes, files=files))
     if len(pics) > 1:
-        parts.append(set_section(pal, [_set_image(p, r, f) for p, r, f in zip(pics, results, files or [None] * len(pics))],
-                                 worst=worst))
+        shown = files or [None] * len(pics)
+        parts.append(set_section(pal, [_set_image(p, r, f) for p, r, f in zip(pics, results, shown)], worst=worst))
     parts.append("<h2>Settings that produced it</h2>"
                  + _table(["setting", "value"], [[e(a), e(b)] for a, b in _settings_rows(pal, sweep, results[0])],
                           left=(0, 1)))
