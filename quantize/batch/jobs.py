@@ -113,10 +113,15 @@ class SampledImage:
         (no per-pixel index: only what pooling needs crosses to the parent).
     error : str or None
         One line saying why the image could not be read.
+    clear : bool
+        Its output needs a transparent colour-index entry
+        (:func:`quantize.io.write.needs_clear_entry`), so the shared
+        palette must leave one free.
     """
 
     sample: Any = None
     error: str | None = None
+    clear: bool = False
 
 
 def _peak_mb() -> float | None:
@@ -147,9 +152,11 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
     ``palette_doc`` is the palette as a JSON dict, or None to fit one with
     the job's settings.
     """
+    from quantize.fit.clustering import PaletteSizeWarning
     from quantize.fit.engine import fit_palette
+    from quantize.fit.index_room import sizes_with_room
     from quantize.io.read import load_image
-    from quantize.io.write import publish_together
+    from quantize.io.write import needs_clear_entry, publish_together
     from quantize.palette import Palette
 
     t0 = time.perf_counter()
@@ -160,7 +167,13 @@ def process_image(job: BatchJob, palette_doc: dict | None = None) -> dict:
         try:
             pic = load_image(job.path, max_pixels=job.max_pixels, cmyk_profile=job.cmyk_profile)
             if palette_doc is None:
-                pal = fit_palette(pic, job.k, settings=job.fit_settings())
+                settings = job.fit_settings()
+                # As reduce: a range reaching 256 leaves transparent pixels their index entry.
+                k, room_note = sizes_with_room(job.k, settings, picture=pic,
+                                               reserve=int(needs_clear_entry(job.outputs[0], pic.alpha, pic.max_code)))
+                if room_note:
+                    warnings.warn(room_note, PaletteSizeWarning, stacklevel=1)
+                pal = fit_palette(pic, k, settings=settings)
             else:
                 pal = Palette.from_dict(palette_doc, source="batch palette")
             res = pal.apply(pic, **job.mapping())
@@ -196,11 +209,14 @@ def sample_image(job: BatchJob) -> SampledImage:
     """Distinct colours and pixel counts of one image, for the shared fit (never raises for bad input)."""
     from quantize.core.sampling import ColourSample, sample_picture
     from quantize.io.read import load_image
+    from quantize.io.write import needs_clear_entry
 
     with _WARNINGS_LOCK, warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the mapping pass reports the same notes
         try:
-            s = sample_picture(load_image(job.path, max_pixels=job.max_pixels, cmyk_profile=job.cmyk_profile))
+            pic = load_image(job.path, max_pixels=job.max_pixels, cmyk_profile=job.cmyk_profile)
+            s = sample_picture(pic)
         except Exception as exc:  # noqa: BLE001 - recorded as this image's failure
             return SampledImage(error=_one_line(exc))
-    return SampledImage(ColourSample(codes=s.codes, weights=s.weights, bit_depth=s.bit_depth, n_pixels=s.n_pixels))
+    return SampledImage(ColourSample(codes=s.codes, weights=s.weights, bit_depth=s.bit_depth, n_pixels=s.n_pixels),
+                        clear=bool(job.outputs) and needs_clear_entry(job.outputs[0], pic.alpha, pic.max_code))

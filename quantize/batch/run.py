@@ -550,6 +550,7 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
         except QuantizeError as exc:
             notes.append(f"{path}: cannot reuse the saved shared palette ({exc}); refitting")
     pool = _Pool(settings["weighting"])
+    clear = False  # some image's output needs a transparent colour-index entry
     total = 2 * len(jobs)
     for i, (job, got) in enumerate(mapper(sample_image, jobs, ()), start=1):
         error = _one_line(got) if isinstance(got, BaseException) else got.error
@@ -558,13 +559,20 @@ def _shared_palette(run: _Run, jobs, mapper, progress):
             doc["shared"]["sampling_failed"].append([job.rel, error])
         else:
             pool.add(got.sample)
+            clear = clear or got.clear
         if progress:
             progress(i, total, job.rel)
     if not pool.pixels:
         return None, len(jobs)
+    from quantize.fit.index_room import sizes_with_room
+
+    # As for one image: a range reaching 256 leaves the transparent pixels their index entry.
+    k, room_note = sizes_with_room(run.settings.k, run.settings.fit, reserve=int(clear))
+    if room_note:
+        notes.append(f"shared palette: {room_note}")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        pal = _fit_pooled(pool.sample(), k=run.settings.k, fit=run.settings.fit, weighting=settings["weighting"],
+        pal = _fit_pooled(pool.sample(), k=k, fit=run.settings.fit, weighting=settings["weighting"],
                           n_images=len(pool.pixels))
     pal.save(path, force=force or prev_shared.get("palette_file") == SHARED_PALETTE)
     doc["shared"]["fit"] = pal.fit.to_dict()

@@ -76,9 +76,19 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
                     # The one decode of this input: mapping, ΔE figures, error map and report share it.
                     pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
                     res = pal.apply(pic, **dopts.apply_kwargs(), nearest=nearest)
-                    res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=inputs,
-                                                             error_map_path=emap)
+                    # A JPEG's error map is drawn from the JPEG as written, so it waits for the file.
+                    late_map = emap if Path(out).suffix.lower() in (".jpg", ".jpeg") else None
+                    res, dextra, dlines = run_dither_outputs(
+                        pic, res, dataclasses.replace(dopts, error_map=None) if late_map else dopts, force=force,
+                        inputs=inputs, error_map_path=None if late_map else emap)
                     saved = res.write(out, picture=pic, force=force, inputs=inputs)
+                    if late_map:
+                        from quantize.report.errormap import save_file_error_map
+
+                        save_file_error_map(late_map, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
+                                            distance_mm=dopts.view_distance, force=force, inputs=inputs)
+                        dextra["error_map"] = str(late_map)
+                        dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {late_map}")
                 except QuantizeError as exc:
                     if results:  # damage found only when decoding: say what is already written
                         done = ", ".join(str(o) for o in outs[:len(results)])
@@ -96,6 +106,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
             from quantize.report.page import write_report
 
             write_report(report_dir, original_picture=pictures, mapped=results, palette=pal,
+                         written=[sv for *_, sv in extras],  # a JPEG's page shows the JPEG as written
                          title=f"quantize apply: {Path(palette).name}", force=force)
         return pal, results, extras
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -67,24 +68,41 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         # Load once: fitting and mapping share the picture and its colour sample.
         pic = load_image(image) if max_pixels is None else load_image(image, max_pixels=max_pixels)
         _check_room_for_transparency(out, k, pic)  # before the fit, not after it
-        pal = _fit_with_progress(pic, k, settings, max_pixels)
-        res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
-        res, dextra, dlines = run_dither_outputs(pic, res, dopts, force=force, inputs=[image])
-        from quantize.io.write import publish_together
+        from quantize.fit.index_room import sizes_with_room
+        from quantize.io.write import needs_clear_entry
 
+        # A range reaching 256 leaves the transparent pixels their index entry: its top is lowered first.
+        k_fit, room_note = sizes_with_room(k, settings, reserve=int(needs_clear_entry(out, pic.alpha, pic.max_code)),
+                                           picture=pic)
+        pal = _fit_with_progress(pic, k_fit, settings, max_pixels)
+        res = pal.apply(pic, **dopts.apply_kwargs(), nearest=fit_opts["nearest"])
+        from quantize.io.write import SAVE_FORMATS, publish_together
+
+        # A JPEG's error map is drawn from the JPEG as written, so it waits for the file.
+        lossy = SAVE_FORMATS[out.suffix.lower()] == "JPEG"
+        res, dextra, dlines = run_dither_outputs(pic, res, dataclasses.replace(dopts, error_map=None) if lossy
+                                                 else dopts, force=force, inputs=[image])
         with publish_together():  # the image and its palette land together, or neither does
             saved = res.write(out, picture=pic, force=force, inputs=[image])
             if pal_path:
                 pal.save(pal_path, force=force)
+        if lossy and dopts.error_map:
+            from quantize.report.errormap import save_file_error_map
+
+            save_file_error_map(dopts.error_map, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
+                                distance_mm=dopts.view_distance, force=force, inputs=[image])
+            dextra["error_map"] = str(dopts.error_map)
+            dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {dopts.error_map}")
         if report_dir:
             from quantize.report.page import write_report
 
-            write_report(report_dir, original_picture=pic, mapped=res, palette=pal,
-                         error_map_path=dextra["error_map"], more_sizes=_untried_sizes(pic, k, pal, settings),
+            write_report(report_dir, original_picture=pic, mapped=res, palette=pal, written=saved,
+                         error_map_path=dextra["error_map"],
+                         more_sizes=_untried_sizes(pic, k_fit if isinstance(k_fit, str) else k, pal, settings),
                          title=f"quantize reduce: {Path(image).name}", force=force)
-        return pal, res, saved, dextra, dlines
+        return pal, res, saved, dextra, dlines, room_note
 
-    pal, res, saved, dextra, dlines = _run(ctx, work)
+    pal, res, saved, dextra, dlines, room_note = _run(ctx, work)
     dextra, dlines = _of_the_file(saved, dextra, dlines)
     rows = _palette_rows(pal, saved.coverage)
     summary = {
@@ -94,7 +112,8 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         "outputs": [str(out)] + ([str(pal_path)] if pal_path else [])
                    + ([str(Path(report_dir) / "index.html")] if report_dir else []),
         "candidates": [c.to_dict() for c in pal.fit.candidates],
-        "notes": list(pal.fit.notes), "seconds": round(time.perf_counter() - t0, 3),
+        "notes": ([room_note] if room_note else []) + list(pal.fit.notes),
+        "seconds": round(time.perf_counter() - t0, 3),
         **_judgement_summary(pal.fit), **dextra,
     }
     if dextra["error_map"]:

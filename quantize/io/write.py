@@ -28,7 +28,7 @@ from quantize.io._decode import dpi_pair, to_8bit
 from quantize.io._encode import ALPHA_STEPS, ALPHA_THRESHOLD, encode
 
 __all__ = ["ALPHA_STEPS", "ALPHA_THRESHOLD", "SAVE_FORMATS", "WrittenImage", "atomic_write_bytes",
-           "atomic_write_text", "publish_together", "save_image", "to_jsonable", "write_image"]
+           "atomic_write_text", "needs_clear_entry", "publish_together", "save_image", "to_jsonable", "write_image"]
 
 PathLike = Union[str, "os.PathLike[str]"]
 
@@ -223,6 +223,40 @@ SAVE_FORMATS: dict[str, str] = {
     ".jpg": "JPEG",
     ".jpeg": "JPEG",
 }
+#: Formats written through a colour index of at most 256 entries (a WebP above 256 colours is not).
+_INDEXED = ("PNG", "GIF", "WEBP")
+
+
+def needs_clear_entry(path: PathLike, alpha: np.ndarray | None, max_code: int = 255) -> bool:
+    """Whether writing an image with this opacity to ``path`` needs a fully transparent colour-index entry.
+
+    True for an indexed output (``.png``, ``.gif``, ``.webp``) of an image
+    with some pixel below :data:`ALPHA_THRESHOLD` once its alpha is rounded
+    to 8 bits: with 256 colours such a file has no entry left for it, and
+    with 255 the entry is there (any partly transparent pixel is then
+    thresholded).  The palette-size range is capped from this before a fit
+    (:func:`quantize.fit.index_room.sizes_with_room`).
+
+    Parameters
+    ----------
+    path : str or path-like
+        The output; its extension names the format.
+    alpha : ndarray of shape (H, W) or None
+        Opacity, 0 = fully transparent, on the scale 0 to ``max_code``.
+    max_code : int, default 255
+        Code of full opacity (65535 for 16-bit alpha).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> needs_clear_entry("a.gif", np.array([[0, 255]], np.uint8)), needs_clear_entry("a.tif", np.zeros((1, 1)))
+    (True, False)
+    """
+    if alpha is None or SAVE_FORMATS.get(Path(path).suffix.lower()) not in _INDEXED:
+        return False
+    return bool((np.rint(np.asarray(alpha) * (255.0 / max_code)) < ALPHA_THRESHOLD).any())
+
+
 #: Formats that record a resolution.
 _KEEPS_DPI = ("PNG", "TIFF", "JPEG")
 

@@ -8,7 +8,8 @@ drives every ``.review`` block of a page on its own:
 * the divider of the before/after comparison follows a pointer drag (or
   the arrow keys) and clips the reduced image to its right;
 * a click on a swatch dims every pixel of the reduced image that is not
-  that colour (read back from the embedded image through a canvas);
+  that colour (read back from the embedded image through a canvas; for a
+  JPEG, from the embedded image of each pixel's nearest palette colour);
 * the 1:1 button shows the embedded images at one screen pixel per image
   pixel, in a scrolling frame.
 
@@ -50,6 +51,7 @@ img.wide { max-width: 100%; height: auto; border: 1px solid #ddd; }
 .divider::after { content: ""; position: absolute; top: 50%; left: -9px; width: 16px; height: 32px;
   margin-top: -16px; background: #fff; border: 1px solid #1b1b1b; border-radius: 3px; }
 .divider:focus::after { background: #ffd54a; }
+img.mark-src { display: none; }
 .legend { display: flex; justify-content: space-between; font-size: .9em; color: #444; }
 """
 
@@ -63,7 +65,10 @@ SCRIPT = r"""
     var mark = root.querySelector("canvas.mark"), divider = root.querySelector(".divider");
     var slider = root.querySelector("input.size"), label = root.querySelector(".size-label");
     var buttons = root.querySelectorAll(".sizes button"), tables = root.querySelectorAll(".palette-at");
-    var dragging = false, initial = after.getAttribute("src");
+    var dragging = false, initial = after.getAttribute("src"), current = data.start;
+    // A JPEG's pixels are no longer exactly palette colours: its nearest-colour image is read instead.
+    var markSrc = root.querySelector("img.mark-src");
+    function source() { return markSrc && data.sizes[current].mark ? markSrc : after; }
 
     function place(pct) {
       pct = Math.max(0, Math.min(100, pct));
@@ -79,6 +84,7 @@ SCRIPT = r"""
     }
     function show(i) {
       var s = data.sizes[i];
+      current = i;
       after.src = s.src || initial;
       root.dataset.k = String(s.k);
       if (slider) { slider.value = String(i); }
@@ -89,10 +95,10 @@ SCRIPT = r"""
     }
     function highlight(button) {
       var rgb = button.dataset.rgb.split(",").map(Number);
-      var w = after.naturalWidth, h = after.naturalHeight;
+      var src = source(), w = src.naturalWidth, h = src.naturalHeight;
       mark.width = w; mark.height = h;
       var ctx = mark.getContext("2d");
-      ctx.drawImage(after, 0, 0);
+      ctx.drawImage(src, 0, 0);
       var img = ctx.getImageData(0, 0, w, h), d = img.data, hits = 0, shown = 0;
       // Dim towards the far end of lightness from the colour, so light and dark colours both stand out.
       var dim = Number(button.dataset.light) > 60 ? 40 : 235;
@@ -129,7 +135,9 @@ SCRIPT = r"""
     root.querySelectorAll("button.swatch").forEach(function (b) {
       b.addEventListener("click", function () {
         if (b.getAttribute("aria-pressed") === "true") { unmark(); return; }
-        if (after.complete) { highlight(b); } else { after.addEventListener("load", function () { highlight(b); }, { once: true }); }
+        var src = source();
+        if (src.complete) { highlight(b); }
+        else { src.addEventListener("load", function () { highlight(b); }, { once: true }); }
       });
     });
     var zoom = root.querySelector("button.zoom");

@@ -111,6 +111,65 @@ def result_uri(mapped, max_side: int | None) -> tuple[str, tuple[int, int]]:
     return data_uri(png_bytes(indexed_image(idx, mapped.palette.rgb8, alpha)), "image/png"), size
 
 
+def _nearest_rows_cols(shape, size):
+    """Row and column indices that scale an (h, w) grid to ``size`` (w, h) by nearest neighbour."""
+    h, w = shape[:2]
+    return (np.arange(size[1]) * h // size[1])[:, None], (np.arange(size[0]) * w // size[0])[None, :]
+
+
+def written_uris(written, picture, palette, max_side: int | None) -> tuple[str, tuple[int, int], str]:
+    """A lossy file as written (a JPEG) for the page: its image, its size, and where each palette colour is.
+
+    The image is the file's own bytes when it fits ``max_side``; a larger
+    one is its decoded pixels scaled by nearest neighbour, as a PNG
+    (exactly those pixels: a second JPEG generation of a subsampled copy
+    moved them by 3 levels on average, nearly as far as the palette image
+    is), so the page shows the JPEG's pixels, not the palette image it was
+    made from.  That PNG of a photograph is larger than the indexed PNG a
+    palette image gives.  The second
+    URI is an indexed PNG of the same size giving each pixel the palette
+    colour nearest to it (CIEDE2000, as the file's coverage counts it;
+    pixels not fully opaque in ``picture`` transparent): the swatch
+    highlight reads it, since a JPEG's pixels are no longer exactly any
+    palette colour.
+
+    Parameters
+    ----------
+    written : quantize.io.write.WrittenImage
+        With ``decoded`` pixels (a lossy file).
+    picture : Picture
+        The input, for which pixels were fully opaque.
+    palette : Palette
+    max_side : int or None
+    """
+    from pathlib import Path
+
+    from PIL import Image
+
+    from quantize.io.read import as_picture
+
+    rgb = written.decoded
+    h, w = rgb.shape[:2]
+    size = fit_size((w, h), max_side)
+    rows, cols = _nearest_rows_cols(rgb.shape, size)
+    shown_rgb = rgb if size == (w, h) else np.ascontiguousarray(rgb[rows, cols])
+    src = None
+    if size == (w, h):
+        try:
+            src = data_uri(Path(written.path).read_bytes(), "image/jpeg")
+        except OSError:  # gone since it was written: its decoded pixels instead
+            src = None
+    if src is None:  # PNG: exactly the JPEG's decoded pixels (another JPEG generation would add its own noise)
+        src = data_uri(png_bytes(Image.fromarray(shown_rgb, "RGB")), "image/png")
+    opaque = None
+    if picture.alpha is not None:
+        opaque = picture.alpha >= picture.max_code
+        opaque = opaque if size == (w, h) else opaque[rows, cols]
+    m = palette.apply(as_picture(shown_rgb), nearest="ciede2000")
+    mark = png_bytes(indexed_image(m.indices, palette.rgb8, None if opaque is None else opaque))
+    return src, size, data_uri(mark, "image/png")
+
+
 @dataclass(frozen=True)
 class Preview:
     """One palette size as the page shows it.

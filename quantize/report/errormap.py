@@ -26,7 +26,7 @@ if TYPE_CHECKING:
     from quantize.io.write import PathLike
     from quantize.render.result import MappedImage
 
-__all__ = ["COLOUR_MAP", "ERROR_MAP_KINDS", "error_map_image", "save_error_map"]
+__all__ = ["COLOUR_MAP", "ERROR_MAP_KINDS", "error_map_image", "save_error_map", "save_file_error_map"]
 
 #: Kinds of ΔE the map can show.
 ERROR_MAP_KINDS = ("plain", "filtered")
@@ -175,3 +175,33 @@ def save_error_map(path: PathLike, original: ImageInput, mapped: MappedImage | n
     Image.fromarray(image).save(buf, format="PNG")
     atomic_write_bytes(path, buf.getvalue(), force=force, inputs=inputs)
     return Path(path)
+
+
+def save_file_error_map(path: PathLike, original, saved, *, kind: Literal["plain", "filtered"] = "plain",
+                        dpi: float | None = None, distance_mm: float | None = None, ppd: float | None = None,
+                        vmax: float = 10.0, force: bool = False, inputs: Iterable[PathLike] = ()) -> Path:
+    """Write the error map of a file as written (:class:`quantize.render.result.SavedImage`), atomically.
+
+    A lossless file holds the mapping's pixels, so its map is the mapping's.
+    A JPEG does not: its map is drawn from the decoded JPEG, over the
+    input's fully opaque pixels (the others are flattened onto white and
+    shown transparent grey), the same pixels its reported ΔE00 is measured
+    on.  Parameters as :func:`save_error_map`, with ``original`` a Picture.
+
+    Raises
+    ------
+    ValueError
+        ``saved`` describes a lossless file whose pixels are not at hand
+        (use :func:`save_error_map` with the mapped image), or as
+        :func:`error_map_image`.
+    """
+    from quantize.quality.perception import delta_e_map
+
+    decoded = saved.file.decoded
+    if decoded is None:
+        raise ValueError(f"{saved.file.path}: a lossless file; its error map is the mapping's (save_error_map)")
+    de = delta_e_map(original, decoded, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd)
+    if original.alpha is not None:
+        de[original.alpha < original.max_code] = np.nan
+    return save_error_map(path, original, decoded, kind=kind, dpi=dpi, distance_mm=distance_mm, ppd=ppd,
+                          vmax=vmax, force=force, inputs=inputs, pixel_delta_e=de)

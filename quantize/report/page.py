@@ -296,16 +296,20 @@ def _settings_rows(pal, sweep, result) -> list[tuple[str, str]]:
     locked = [hx for hx, lk in zip(pal.hex, pal.locked) if lk]
     rows.append(("locked colours in the palette", text(locked)))
     d = result.dither
-    rows.append(("dither", "none" if d is None else
-                 f"{d.method}, strength {d.strength:g}" + ("" if d.serpentine is None else
-                                                          (", serpentine" if d.serpentine else ", raster"))
-                 + f", error in {d.error_space}"))
+    if d is None:
+        rows.append(("dither", "none"))
+    else:
+        # The command line's one-line wording: an ordered dither mixes two colours, it diffuses no error.
+        from quantize.render.methods import describe
+
+        rows.append(("dither", describe(d.method, strength=d.strength,
+                                        serpentine=True if d.serpentine is None else d.serpentine)))
     return rows
 
 
 def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, error_map_path=None,
                  title: str = "quantize report", max_side: int | None = 1600, preview_side: int = 640,
-                 worst: int = 5, force: bool = False, more_sizes=()) -> Path:
+                 worst: int = 5, force: bool = False, more_sizes=(), written=None) -> Path:
     """Write a self-contained HTML review page of a reduction into ``folder``.
 
     The folder receives one file, ``index.html``, with every image inside
@@ -351,6 +355,13 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
         Without a sweep: palette sizes to add to the size slider beside
         those the result's fit tried (see
         :func:`quantize.report.review.size_views`).
+    written : SavedImage or a list of them (or None per image), optional
+        The file each result was written to (:meth:`MappedImage.write`).
+        For a lossy file (JPEG) the page shows the JPEG as written, not the
+        palette image it was made from: the result's image and 1:1 view,
+        its coverage (each decoded pixel counted for its nearest palette
+        colour) and its ΔE00 table (over the input's fully opaque pixels);
+        a swatch click shows the pixels nearest to that colour.
 
     Returns
     -------
@@ -391,11 +402,14 @@ def write_report(folder, *, original_picture, mapped, palette=None, sweep=None, 
     if sweep is not None:
         require_matplotlib("the report page's sweep plot")
     pics, results, maps = _report_inputs(original_picture, mapped, error_map_path)
+    files = _as_list(written) if written is not None else [None] * len(results)
+    if len(files) != len(results):
+        raise ValueError(f"{len(files)} written file(s) for {len(results)} result(s)")
     pal = palette if palette is not None else results[0].palette
     out = Path(folder)
     _make_report_folder(out, [REPORT_PAGE], force)
     page = _page(title, pics, results, pal, sweep, maps, max_side=max_side, preview_side=int(preview_side),
-                 worst=worst, more_sizes=more_sizes)
+                 worst=worst, more_sizes=more_sizes, files=files)
     return atomic_write_text(out / REPORT_PAGE, page, force=force)
 
 
@@ -458,7 +472,7 @@ def _png(img) -> bytes:
     return buf.getvalue()
 
 
-def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side, more_sizes=()) -> list[str]:
+def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side, more_sizes=(), files=None) -> list[str]:
     """Each image's review block, ΔE00 table and error map."""
     from .review import review_block, size_views
 
@@ -466,25 +480,48 @@ def _image_blocks(pics, results, sweep, maps, *, max_side, preview_side, more_si
     picks = {n: c.k for n, c in sweep.choices.items()} if sweep is not None else {}
     parts = []
     for i, (p, r) in enumerate(zip(pics, results)):
-        views = size_views(p, r, sweep, max_side=max_side, preview_side=preview_side, more=more_sizes)
+        f = files[i] if files else None
+        views = size_views(p, r, sweep, max_side=max_side, preview_side=preview_side, more=more_sizes, written=f)
         start = next(n for n, v in enumerate(views) if v.full)
         heading = e(p.source) if len(pics) > 1 else "Original and result"
         parts.append(review_block(p, views, start=start, picks=picks, max_side=max_side, heading=heading))
-        de = r.delta_e
-        rows = [["plain"] + [f"{de[k]:.2f}" for k in ("mean", "median", "p95", "max")]]
-        if "filtered_mean" in de:
-            rows.append(["filtered (S-CIELAB)"] + [f"{de['filtered_' + k]:.2f}" for k in ("mean", "median", "p95", "max")])
-        parts.append(f"<h3>ΔE00 per pixel of the result ({r.palette.k} colours, full image)</h3>" + _table(
-            ["ΔE00", "mean", "median", "95th percentile", "maximum"], rows))
+        parts.append(_delta_e_table(r, f))
         if maps:
             parts.append(f'<h3>Error map</h3><img class="wide" src="{_error_map_uri(maps[i])}" alt="ΔE00 error map">')
     return parts
 
 
-def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, worst, more_sizes=()) -> str:
+def _set_image(picture, result, written):
+    """One image of a set as the consistency section counts it: the file's figures for a JPEG."""
+    from .set_report import SetImage
+
+    if written is not None and written.file.lossy and written.delta_e is not None:
+        return SetImage(picture.source, dict(written.delta_e), list(written.coverage))
+    return SetImage(picture.source, dict(result.delta_e), list(result.coverage))
+
+
+def _delta_e_table(r, written) -> str:
+    """The ΔE00 statistics of one result, or of the JPEG it was written to (decoded, its opaque pixels)."""
+    stats = ("mean", "median", "p95", "max")
+    head = ["ΔE00", "mean", "median", "95th percentile", "maximum"]
+    if written is not None and written.file.lossy:
+        rows = [["plain"] + ([f"{written.delta_e[k]:.2f}" for k in stats] if written.delta_e is not None
+                             else ["not measured"] + [""] * 3)]
+        if written.filtered is not None:
+            rows.append(["filtered (S-CIELAB)"] + [f"{written.filtered.stats[k]:.2f}" for k in stats])
+        return (f"<h3>ΔE00 per pixel of the JPEG as written and decoded again ({r.palette.k} palette colours "
+                "before it re-encoded them; the input's fully opaque pixels)</h3>" + _table(head, rows))
+    de = r.delta_e
+    rows = [["plain"] + [f"{de[k]:.2f}" for k in stats]]
+    if "filtered_mean" in de:
+        rows.append(["filtered (S-CIELAB)"] + [f"{de['filtered_' + k]:.2f}" for k in stats])
+    return f"<h3>ΔE00 per pixel of the result ({r.palette.k} colours, full image)</h3>" + _table(head, rows)
+
+
+def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, worst, more_sizes=(), files=None) -> str:
     from .assets import SCRIPT
     from .embed import data_uri
-    from .set_report import CAUTION, SetImage, html_document, set_section
+    from .set_report import CAUTION, html_document, set_section
 
     e = html.escape
     parts = [f"<h1>{e(title)}</h1>", CAUTION]
@@ -492,10 +529,10 @@ def _page(title, pics, results, pal, sweep, maps, *, max_side, preview_side, wor
     if fit is not None and fit.reason:
         parts.append(f"<p>{pal.k} colours: {e(str(fit.reason))}</p>")
     parts.extend(_image_blocks(pics, results, sweep, maps, max_side=max_side, preview_side=preview_side,
-                               more_sizes=more_sizes))
+                               more_sizes=more_sizes, files=files))
     if len(pics) > 1:
-        parts.append(set_section(pal, [SetImage(p.source, dict(r.delta_e), list(r.coverage))
-                                       for p, r in zip(pics, results)], worst=worst))
+        shown = files or [None] * len(pics)
+        parts.append(set_section(pal, [_set_image(p, r, f) for p, r, f in zip(pics, results, shown)], worst=worst))
     parts.append("<h2>Settings that produced it</h2>"
                  + _table(["setting", "value"], [[e(a), e(b)] for a, b in _settings_rows(pal, sweep, results[0])],
                           left=(0, 1)))

@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
-from .embed import original_uri, result_uri, size_previews
+from .embed import original_uri, result_uri, size_previews, written_uris
 
 if TYPE_CHECKING:
     from quantize.palette import Palette
@@ -44,6 +44,11 @@ class SizeView:
     full : bool
         True for the reported result itself (full mapping, any dither);
         False for a preview mapped from the scaled-down original.
+    mark : str or None, default None
+        For a lossy file (JPEG), the data URI of an indexed image giving
+        each shown pixel its nearest palette colour, which the swatch
+        highlight reads instead of ``src``; None when ``src`` holds the
+        palette's colours themselves.
     """
 
     k: int
@@ -53,9 +58,10 @@ class SizeView:
     coverage: np.ndarray
     delta_e: dict
     full: bool
+    mark: str | None = None
 
 
-def size_views(picture, result, sweep, *, max_side, preview_side, more=()) -> list[SizeView]:
+def size_views(picture, result, sweep, *, max_side, preview_side, more=(), written=None) -> list[SizeView]:
     """The sizes one image is shown at: every row of ``sweep``, or every size the result's fit tried.
 
     The row whose palette is the result's own shows the result itself, at
@@ -67,10 +73,20 @@ def size_views(picture, result, sweep, *, max_side, preview_side, more=()) -> li
     candidates shows just ``result``.  ``more`` (rows with ``k``,
     ``palette`` and ``delta_e``, such as a sweep's) adds sizes the fit's
     rule did not try; a size the fit tried keeps the fit's palette.
+    ``written`` (a :class:`quantize.render.result.SavedImage`) is the file
+    the result was written to: for a lossy file (JPEG) the result's view
+    shows the JPEG as written, with its coverage and ΔE00.
     """
-    src, size = result_uri(result, max_side)
-    own = SizeView(k=result.palette.k, palette=result.palette, src=src, size=size,
-                   coverage=np.asarray(result.coverage, dtype=float), delta_e=dict(result.delta_e), full=True)
+    if written is not None and written.file.lossy:
+        src, size, mark = written_uris(written.file, picture, result.palette, max_side)
+        de = written.delta_e if written.delta_e is not None else dict.fromkeys(("mean", "median", "p95", "max"),
+                                                                                float("nan"))
+        own = SizeView(k=result.palette.k, palette=result.palette, src=src, size=size,
+                       coverage=np.asarray(written.coverage, dtype=float), delta_e=dict(de), full=True, mark=mark)
+    else:
+        src, size = result_uri(result, max_side)
+        own = SizeView(k=result.palette.k, palette=result.palette, src=src, size=size,
+                       coverage=np.asarray(result.coverage, dtype=float), delta_e=dict(result.delta_e), full=True)
     if sweep is None:
         return _fitted_views(picture, result, own, preview_side, more)
     rows = list(sweep.rows)
@@ -82,7 +98,7 @@ def size_views(picture, result, sweep, *, max_side, preview_side, more=()) -> li
         de = r.per_image.get(picture.source, r.delta_e) if r.per_image else r.delta_e
         if mine and r is mine[0]:
             views.append(SizeView(k=r.k, palette=own.palette, src=own.src, size=own.size, coverage=own.coverage,
-                                  delta_e=own.delta_e, full=True))
+                                  delta_e=own.delta_e, full=True, mark=own.mark))
         else:
             p = next(previews)
             views.append(SizeView(k=r.k, palette=r.palette, src=p.src, size=p.size, coverage=p.coverage,
@@ -132,6 +148,8 @@ def size_label(views: Sequence[SizeView], i: int) -> str:
         text += f"; {_change(v.delta_e['mean'], views[i - 1].delta_e['mean'])} mean against k = {views[i - 1].k}"
     if not v.full:
         text += f" (preview, {v.size[0]}×{v.size[1]} px)"
+    elif v.mark is not None:
+        text += " (the JPEG as written)"
     return text
 
 
@@ -153,10 +171,15 @@ def palette_table(view: SizeView, *, shown: bool) -> str:
             f"<td class=\"l\">{e(pal.names[j] or '')}</td></tr>")
     head = ('<tr><th class="l">colour</th><th>#</th><th class="l">hex</th><th>L*</th><th>a*</th><th>b*</th>'
             '<th>coverage %</th><th class="l">locked</th><th class="l">name</th></tr>')
-    where = "of the full image" if view.full else "of the preview"
+    if view.mark is not None:
+        where = ("of the JPEG as written, each decoded pixel counted for the palette colour nearest to it "
+                 "(CIEDE2000); the JPEG holds many more colours than the palette")
+        what = "where the pixels nearest to that colour are"
+    else:
+        where, what = ("of the full image" if view.full else "of the preview"), "where that colour is"
     return (f'<div class="palette-at" data-k="{view.k}"{"" if shown else " hidden"}><h3>Palette at k = {view.k}: {pal.k} colours, '
             f"most used first</h3><table><thead>{head}</thead><tbody>{''.join(rows)}</tbody></table>"
-            f'<p class="note">Coverage is measured {where}. Click a swatch to show where that colour is; '
+            f'<p class="note">Coverage is measured {where}. Click a swatch to show {what}; '
             "click it again to clear.</p></div>")
 
 
@@ -165,8 +188,9 @@ def review_block(picture, views: Sequence[SizeView], *, start: int, picks: dict,
     orig, osize = original_uri(picture, max_side)
     w, h = osize
     # The shown size's image is in the page once, in its <img>; the script reads it from there.
-    sizes = [{"k": v.k, "src": None if i == start else v.src, "label": size_label(views, i)}
-             for i, v in enumerate(views)]
+    sizes = [{"k": v.k, "src": None if i == start else v.src, "label": size_label(views, i),
+              "mark": v.mark is not None} for i, v in enumerate(views)]
+    marks = [v.mark for v in views if v.mark is not None]
     data = json.dumps({"start": start, "sizes": sizes}).replace("</", "<\\/")
     parts = [f'<section class="review" data-k="{views[start].k}">', f"<h2>{heading}</h2>",
              '<div class="controls">']
@@ -196,6 +220,8 @@ def review_block(picture, views: Sequence[SizeView], *, start: int, picks: dict,
         '<canvas class="mark" hidden></canvas></div>'
         '<div class="divider" tabindex="0" role="slider" aria-label="before and after divider" '
         'aria-valuemin="0" aria-valuemax="100" aria-valuenow="50"></div></div></div>')
+    if marks:  # read by the swatch highlight, never shown
+        parts.append(f'<img class="mark-src" hidden src="{marks[0]}" alt="">')
     parts.append('<div class="legend"><span>◀ original</span><span>reduced ▶</span></div>')
     ih, iw = picture.rgb.shape[:2]
     full = "" if (w, h) == (iw, ih) else f", shown from a copy scaled to {w}×{h} px (1:1 shows that copy)"
