@@ -831,6 +831,32 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     opaque = picture.opaque[::scale, ::scale]
     lab = srgb_to_lab(picture.rgb[::scale, ::scale] / float(picture.max_code))
     smooth = np.stack([_gaussian(lab[..., c], SMOOTHING[c > 0]) for c in range(3)], axis=-1)
+    labels, n, flat = _flat_cores(smooth, opaque, threshold)
+    mean, area, centre, spread, even_share = _core_colours(labels, n, lab, opaque, scale)
+    n_opaque = int(np.count_nonzero(picture.opaque))
+    flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
+    # Spots too small or too noisy to be flat, and strokes too thin: regions
+    # too, after the flat ones (which alone decide flat_share and spread).
+    # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
+    if callable(structures):
+        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share))
+    if len(area) and structures:
+        labels, mean, area, centre = _with_structures(lab, smooth, opaque, labels, mean, area, centre, scale)
+        # Artwork only: a photograph's hundred small regions are left as they are, at no cost.
+        core = np.bincount(labels.ravel(), minlength=len(area) + 1)[1:]
+        mean = _interior_colours(lab, smooth, labels, np.asarray(mean, dtype=np.float64).reshape(-1, 3), core,
+                                 INTERIOR_SHARE * np.count_nonzero(opaque))
+        keep = ~_bleeds(labels, mean, area / max(n_opaque, 1))
+        if not keep.all():
+            labels = (np.concatenate([[0], np.cumsum(keep)]) * np.concatenate([[False], keep]))[labels]
+            mean, area, centre = mean[keep], area[keep], centre.reshape(-1, 2)[keep]
+    return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
+                   flat_share=flat_share, labels=labels, scale=scale, spread=spread,
+                   centre=centre, even_share=even_share)
+
+
+def _flat_cores(smooth, opaque, threshold: float):
+    """Label the flat cores of a smoothed CIELAB picture: (labels, their number, the flat mask)."""
     span = np.stack([_window_range(smooth[..., c], _WINDOW) for c in range(3)], axis=-1)
     weight = 1.0 + 0.045 * np.hypot(smooth[..., 1], smooth[..., 2])
     spread = np.sqrt(span[..., 0] ** 2 + (span[..., 1] ** 2 + span[..., 2] ** 2) / weight**2)
@@ -850,60 +876,47 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
         thick[0] = False
         flat = thick[labels]
         labels, n = _label(flat)
-    if n:
-        # The mean of a flat core: its pixels lie within the threshold of each
-        # other, and a bincount is a fraction of a per-label median's cost.
-        count = np.bincount(labels.ravel(), minlength=n + 1)[1:]
-        mean = np.stack([np.bincount(labels.ravel(), weights=lab[..., c].ravel(), minlength=n + 1)[1:] / count
-                         for c in range(3)], axis=1)
-        grown = _grow(labels, opaque, RIM)
-        area = np.bincount(grown.ravel(), minlength=n + 1)[1:].astype(np.float64) * scale * scale
-        yy, xx = np.indices(labels.shape)
-        centre = np.stack([np.bincount(labels.ravel(), weights=xx.ravel(), minlength=n + 1)[1:] / count,
-                           np.bincount(labels.ravel(), weights=yy.ravel(), minlength=n + 1)[1:] / count],
-                          axis=1) / np.array([labels.shape[1], labels.shape[0]])
-        inside = labels > 0
-        step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
-        de = delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1])
-        spread = float(np.percentile(de, 90))
-        even_share = _even_share(de, labels[inside][::step], n)
-    else:
-        mean, area, spread, centre = np.zeros((0, 3)), np.zeros(0), float("inf"), np.zeros((0, 2))
-        even_share = 0.0
-    n_opaque = int(np.count_nonzero(picture.opaque))
-    flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
-    # Spots too small or too noisy to be flat, and strokes too thin: regions
-    # too, after the flat ones (which alone decide flat_share and spread).
-    # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
+    return labels, n, flat
+
+
+def _core_colours(labels, n: int, lab, opaque, scale: int):
+    """Mean colour, area (full-size pixels, rim included) and centre of each core, and the spread inside them."""
+    if not n:
+        return np.zeros((0, 3)), np.zeros(0), np.zeros((0, 2)), float("inf"), 0.0
+    # The mean of a flat core: its pixels lie within the threshold of each
+    # other, and a bincount is a fraction of a per-label median's cost.
+    count = np.bincount(labels.ravel(), minlength=n + 1)[1:]
+    mean = np.stack([np.bincount(labels.ravel(), weights=lab[..., c].ravel(), minlength=n + 1)[1:] / count
+                     for c in range(3)], axis=1)
+    grown = _grow(labels, opaque, RIM)
+    area = np.bincount(grown.ravel(), minlength=n + 1)[1:].astype(np.float64) * scale * scale
+    centre = _centres(labels, n, count)
+    inside = labels > 0
+    step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
+    de = delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1])
+    return mean, area, centre, float(np.percentile(de, 90)), _even_share(de, labels[inside][::step], n)
+
+
+def _centres(labels, n: int, count):
+    """Centre of each of the ``n`` labels, as fractions of the width and the height."""
+    yy, xx = np.indices(labels.shape)
+    return np.stack([np.bincount(labels.ravel(), weights=xx.ravel(), minlength=n + 1)[1:],
+                     np.bincount(labels.ravel(), weights=yy.ravel(), minlength=n + 1)[1:]],
+                    axis=1) / count[:, None] / np.array([labels.shape[1], labels.shape[0]])
+
+
+def _with_structures(lab, smooth, opaque, labels, mean, area, centre, scale: int):
+    """The flat regions with the small spots and thin strokes added after them: (labels, mean, area, centre)."""
     min_pixels = max(STRUCTURE_MIN_PIXELS, int(STRUCTURE_MIN_SHARE * np.count_nonzero(opaque)))
-    s_labels, s_lab = np.zeros_like(labels), np.zeros((0, 3))
-    if callable(structures):
-        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share))
-    if len(area) and structures:
-        s_labels, s_lab = _structures(lab, smooth, opaque, np.asarray(mean).reshape(-1, 3),
-                                      np.asarray(area, dtype=np.float64), min_pixels)
-    if len(s_lab):
-        s_count = np.bincount(s_labels.ravel(), minlength=len(s_lab) + 1)[1:]
-        # Their anti-aliased rim, one pixel that no flat region holds, is theirs.
-        grown = _grow(s_labels, opaque & (labels == 0), 1)
-        s_area = np.bincount(grown.ravel(), minlength=len(s_lab) + 1)[1:].astype(np.float64) * scale * scale
-        yy, xx = np.indices(s_labels.shape)
-        s_centre = np.stack([np.bincount(s_labels.ravel(), weights=xx.ravel(), minlength=len(s_lab) + 1)[1:],
-                             np.bincount(s_labels.ravel(), weights=yy.ravel(), minlength=len(s_lab) + 1)[1:]],
-                            axis=1) / s_count[:, None] / np.array([labels.shape[1], labels.shape[0]])
-        labels = np.where(s_labels > 0, s_labels + len(area), labels)
-        mean = np.vstack([np.asarray(mean).reshape(-1, 3), s_lab])
-        area = np.concatenate([area, s_area])
-        centre = np.vstack([centre.reshape(-1, 2), s_centre])
-    if len(area) and structures:
-        # Artwork only: a photograph's hundred small regions are left as they are, at no cost.
-        core = np.bincount(labels.ravel(), minlength=len(area) + 1)[1:]
-        mean = _interior_colours(lab, smooth, labels, np.asarray(mean, dtype=np.float64).reshape(-1, 3), core,
-                                 INTERIOR_SHARE * np.count_nonzero(opaque))
-        keep = ~_bleeds(labels, mean, area / max(n_opaque, 1))
-        if not keep.all():
-            labels = (np.concatenate([[0], np.cumsum(keep)]) * np.concatenate([[False], keep]))[labels]
-            mean, area, centre = mean[keep], area[keep], centre.reshape(-1, 2)[keep]
-    return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
-                   flat_share=flat_share, labels=labels, scale=scale, spread=spread,
-                   centre=centre, even_share=even_share)
+    s_labels, s_lab = _structures(lab, smooth, opaque, np.asarray(mean).reshape(-1, 3),
+                                  np.asarray(area, dtype=np.float64), min_pixels)
+    if not len(s_lab):
+        return labels, mean, area, centre
+    s_count = np.bincount(s_labels.ravel(), minlength=len(s_lab) + 1)[1:]
+    # Their anti-aliased rim, one pixel that no flat region holds, is theirs.
+    grown = _grow(s_labels, opaque & (labels == 0), 1)
+    s_area = np.bincount(grown.ravel(), minlength=len(s_lab) + 1)[1:].astype(np.float64) * scale * scale
+    s_centre = _centres(s_labels, len(s_lab), s_count)
+    labels = np.where(s_labels > 0, s_labels + len(area), labels)
+    return (labels, np.vstack([np.asarray(mean).reshape(-1, 3), s_lab]), np.concatenate([area, s_area]),
+            np.vstack([centre.reshape(-1, 2), s_centre]))
