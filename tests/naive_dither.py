@@ -33,7 +33,7 @@ def _allowed(own_rgb, pal_pts, pal_lab, space, metric, reach):
 
 
 def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="space", strength=1.0,
-            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf):
+            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf, hull_hold=np.inf):
     """Error diffusion in linear light.
 
     rgb: (H, W, 3) encoded floats; clear: (H, W) bool (transparent);
@@ -41,7 +41,9 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
     mod: tiled mask of lightness offsets (-0.5..0.5) scaled by mod_amp,
     added to the target's lightness for the choice only; reach: the choice
     is limited to palette colours at most this much further from the pixel's
-    own colour than its nearest palette colour.
+    own colour than its nearest palette colour; hull_hold: a pixel further
+    than this outside the palette's hull (linear light) has its target held
+    within the palette's per-channel range instead of low-high.
     """
     mod = np.zeros((1, 1)) if mod is None else mod
     h, w = clear.shape
@@ -51,6 +53,13 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
     pal_lab = srgb_to_lab(palette_rgb8 / 255.0)
     err = np.zeros((h, w, 3))
     out = np.zeros((h, w), dtype=int)
+    far = np.zeros((h, w), bool)
+    if hull_hold != np.inf:
+        from quantize.fit.for_dither import hull_weights
+
+        flat = lin.reshape(-1, 3)
+        resid = flat - hull_weights(flat, pal_lin) @ pal_lin
+        far = (np.sqrt((resid**2).sum(axis=1)) > hull_hold).reshape(h, w)
 
     def is_open(yy, xx):
         return 0 <= yy < h and 0 <= xx < w and not clear[yy, xx] and pinned[yy, xx] < 0
@@ -64,7 +73,10 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
             if pinned[y, x] >= 0:
                 out[y, x] = pinned[y, x]
                 continue
-            target = np.clip(lin[y, x] + err[y, x], low, high)
+            if far[y, x]:
+                target = np.clip(lin[y, x] + err[y, x], pal_lin.min(axis=0), pal_lin.max(axis=0))
+            else:
+                target = np.clip(lin[y, x] + err[y, x], low, high)
             shift = mod_amp * mod[y % mod.shape[0], x % mod.shape[1]]
             allowed = _allowed(rgb[y, x], pal_pts, pal_lab, space, metric, reach)
             j = _choose(target, pal_pts, pal_lab, space, metric, shift, allowed)

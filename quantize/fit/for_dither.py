@@ -295,7 +295,6 @@ def palette_for_dither(palette, sample):
     import dataclasses
 
     from quantize.colour.spaces import linear_to_srgb, srgb_to_linear
-    from quantize.palette import Palette
 
     flat = flat_colours(palette.rgb8, sample)
     if flat.any() and _flat_share(palette.rgb8, flat, sample) >= ARTWORK_SHARE:
@@ -317,4 +316,6 @@ def palette_for_dither(palette, sample):
         note = (f"{moved} of {palette.k} colours moved outward for dithering, so mixtures of them reach "
                 "the image's extreme colours")
         fit = dataclasses.replace(fit, notes=tuple(fit.notes) + (note,))
-    return Palette(rgb8, palette.locked, palette.space, names=palette.names, fit=fit), moved
+    # The palette's own class, not an import of it: the render stage calls
+    # this module's hull_weights, and the palette module imports the render stage.
+    return type(palette)(rgb8, palette.locked, palette.space, names=palette.names, fit=fit), moved

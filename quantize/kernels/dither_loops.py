@@ -12,9 +12,11 @@ Shared conventions
   value of every code (IEC 61966-2-1 decoding), so no power is evaluated per
   pixel.
 * ``state`` (H, W) uint8: :data:`OPEN` (dither normally), :data:`CLEAR`
-  (fully transparent: index 0, never dithered into, receives no error) or
+  (fully transparent: index 0, never dithered into, receives no error),
   :data:`PINNED` (the pixel is exactly a locked palette colour: it takes
-  ``pinned[y, x]``, gives and receives no error).
+  ``pinned[y, x]``, gives and receives no error) or :data:`FAR` (dithered
+  like an open pixel, but its colour lies outside the palette's hull, so
+  its diffusion target is held within the palette's range, ``box``).
 * ``space`` 0 = CIELAB, 1 = OKLab x 100 (the working scales of
   :mod:`quantize.colour.spaces`); ``mat`` is linear RGB -> X/Xn, Y/Yn, Z/Zn for
   CIELAB, linear RGB -> LMS for OKLab, and ``mat2`` is Ottosson's M2.
@@ -40,6 +42,7 @@ import numpy as np
 
 __all__ = [
     "CLEAR",
+    "FAR",
     "OPEN",
     "PINNED",
     "bracket",
@@ -52,7 +55,7 @@ __all__ = [
     "ordered",
 ]
 
-OPEN, CLEAR, PINNED = 0, 1, 2
+OPEN, CLEAR, PINNED, FAR = 0, 1, 2, 3
 #: Bounds of a diffusion target in linear light.  Wide enough that the error
 #: of a normal dither never reaches them (clipping at 0-1 would discard the
 #: negative error a dark pixel receives next to a light choice, and brighten
@@ -293,11 +296,11 @@ def _nearest_allowed(p0, p1, p2, pal_pts, metric, allowed):
 
 @numba.njit(cache=True, nogil=True)
 def diffuse(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-            off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, out):
+            off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, box, out):
     """Error diffusion over the whole image; see :func:`diffuse_rows`."""
     err = np.zeros((error_rows(off_dy), state.shape[1], 3))
     diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, err, 0, state.shape[0],
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, box, err, 0, state.shape[0],
                  out)
 
 
@@ -312,7 +315,7 @@ def error_rows(off_dy):
 
 @numba.njit(cache=True, nogil=True)
 def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, metric,
-                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, err, y0, y1, out):
+                 off_dy, off_dx, off_w, strength, serpentine, mod, mod_amp, reach, box, err, y0, y1, out):
     """Error diffusion in linear light of rows y0..y1; writes palette indices into ``out``.
 
     The target of each open pixel is its linear RGB plus the error it has
@@ -340,6 +343,13 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
     dark purple dot in an orange sky, where the palette holds no dark
     orange); the error that is not discharged stays in the diffusion.
     ``reach = inf`` lets every colour be chosen.
+
+    Pixels outside the hull (state :data:`FAR`): the target is held within
+    ``box`` (2, 3), the lowest and highest linear value of each channel over
+    the palette, instead of LOW-HIGH.  Error that pushes such a pixel further
+    out than any palette colour reaches can never be discharged there; held,
+    it would pile up across a whole out-of-gamut area and come out as far
+    colours (dark dots in a light area) or be dumped at its edge (a dark rim).
     """
     h, w = state.shape
     mh, mw = mod.shape
@@ -363,9 +373,14 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
             if s == PINNED:
                 out[y, x] = pinned[y, x]
                 continue
-            r = min(max(lut[codes[y, x, 0]] + err[cur, x, 0], LOW), HIGH)
-            g = min(max(lut[codes[y, x, 1]] + err[cur, x, 1], LOW), HIGH)
-            b = min(max(lut[codes[y, x, 2]] + err[cur, x, 2], LOW), HIGH)
+            if s == FAR:
+                r = min(max(lut[codes[y, x, 0]] + err[cur, x, 0], box[0, 0]), box[1, 0])
+                g = min(max(lut[codes[y, x, 1]] + err[cur, x, 1], box[0, 1]), box[1, 1])
+                b = min(max(lut[codes[y, x, 2]] + err[cur, x, 2], box[0, 2]), box[1, 2])
+            else:
+                r = min(max(lut[codes[y, x, 0]] + err[cur, x, 0], LOW), HIGH)
+                g = min(max(lut[codes[y, x, 1]] + err[cur, x, 1], LOW), HIGH)
+                b = min(max(lut[codes[y, x, 2]] + err[cur, x, 2], LOW), HIGH)
             p0, p1, p2 = to_space(r, g, b, mat, mat2, space)
             shift = mod_amp * mod[y % mh, x % mw]
             if restrict:
@@ -386,7 +401,7 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
             for i in range(n_off):
                 yy = y + off_dy[i]
                 xx = x - off_dx[i] if backward else x + off_dx[i]
-                if yy < h and 0 <= xx < w and state[yy, xx] == OPEN:
+                if yy < h and 0 <= xx < w and (state[yy, xx] == OPEN or state[yy, xx] == FAR):
                     f = off_w[i]
                     total += f
                     row = ring[i]
@@ -398,7 +413,7 @@ def diffuse_rows(codes, lut, state, pinned, pal_lin, pal_pts, mat, mat2, space, 
                 for i in range(n_off):
                     yy = y + off_dy[i]
                     xx = x - off_dx[i] if backward else x + off_dx[i]
-                    if yy < h and 0 <= xx < w and state[yy, xx] == OPEN:
+                    if yy < h and 0 <= xx < w and (state[yy, xx] == OPEN or state[yy, xx] == FAR):
                         f = off_w[i] * extra
                         row = ring[i]
                         err[row, xx, 0] += er * f

@@ -332,10 +332,10 @@ def compile_all() -> None:
             codes = np.zeros((2, 2, 3), dtype=depth)
             for metric in (0, 1):
                 dk.diffuse(codes, lut, state, pinned, pal, pal, mat, mat, 0, metric, dy, dx, w, 1.0, True, mod, 0.0,
-                           np.inf, out)
+                           np.inf, pal, out)
             err = np.zeros((dk.error_rows(dy), 2, 3))
             dk.diffuse_rows(codes, lut, state, pinned, pal, pal, mat, mat, 0, 0, dy, dx, w, 1.0, True, mod, 0.0,
-                            np.inf, err, 0, 2, out)
+                            np.inf, pal, err, 0, 2, out)
             dk.delta_e_rows(codes, lut, state, out, pal, mat, 0, 2, de2)
             dk.bracket(codes.reshape(-1, 3), lut, pal, pal, pal, mat, mat, mat, 0, 0, near, other, share,
                        de_near, de_other)
