@@ -153,3 +153,33 @@ def test_no_private_attributes_of_another_package_are_read(name):
         if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id in aliases:
             assert not (node.attr.startswith("_") and not node.attr.startswith("__")), \
                 f"{name} reads {aliases[node.value.id]}.{node.attr}"
+
+
+#: Lines of code a function's body may hold, its docstring not counted: a
+#: longer one does several things and gets split (the project's own rule,
+#: DEVELOPERS.md; no outside source).
+MAX_BODY_LINES = 80
+
+
+def _long_functions(path):
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+            body = node.body
+            has_doc = (len(body) > 1 and isinstance(body[0], ast.Expr)
+                       and isinstance(body[0].value, ast.Constant) and isinstance(body[0].value.value, str))
+            first = body[1] if has_doc else body[0]
+            lines = node.end_lineno - first.lineno + 1
+            if lines > MAX_BODY_LINES:
+                yield node.name, lines
+
+
+def test_the_length_check_finds_a_long_function(tmp_path):
+    long_one = tmp_path / "m.py"
+    long_one.write_text("def f():\n    '''doc'''\n" + "    x = 1\n" * (MAX_BODY_LINES + 1)
+                        + "def g():\n" + "    y = 2\n" * MAX_BODY_LINES)
+    assert list(_long_functions(long_one)) == [("f", MAX_BODY_LINES + 1)]
+
+
+@pytest.mark.parametrize("name", sorted(MODULES))
+def test_no_function_is_longer_than_the_limit(name):
+    assert not list(_long_functions(MODULES[name])), f"split: {list(_long_functions(MODULES[name]))}"

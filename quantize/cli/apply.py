@@ -25,7 +25,8 @@ from ._common import (
     _report_targets,
     _run,
 )
-from .dither_options import dither_options, error_map_paths, pop_dither_options, run_dither_outputs
+from .dither_options import (dither_options, error_map_paths, jpeg_error_map, pop_dither_options,
+                             run_dither_outputs)
 
 
 @click.command()
@@ -63,7 +64,7 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
 
     def work():
         from quantize.errors import QuantizeError
-        from quantize.io.read import check_image_file, load_image
+        from quantize.io.read import check_image_file
         pal = Palette.load(palette)
         for im in images:  # a file that is not an image stops the run before any output
             check_image_file(im, max_pixels=max_pixels)
@@ -73,22 +74,8 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
         with _progress(len(images), "mapping") as bar:
             for im, out, emap in zip(images, outs, maps):
                 try:
-                    # The one decode of this input: mapping, ΔE figures, error map and report share it.
-                    pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
-                    res = pal.apply(pic, **dopts.apply_kwargs(), nearest=nearest)
-                    # A JPEG's error map is drawn from the JPEG as written, so it waits for the file.
-                    late_map = emap if Path(out).suffix.lower() in (".jpg", ".jpeg") else None
-                    res, dextra, dlines = run_dither_outputs(
-                        pic, res, dataclasses.replace(dopts, error_map=None) if late_map else dopts, force=force,
-                        inputs=inputs, error_map_path=None if late_map else emap)
-                    saved = res.write(out, picture=pic, force=force, inputs=inputs)
-                    if late_map:
-                        from quantize.report.errormap import save_file_error_map
-
-                        save_file_error_map(late_map, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
-                                            distance_mm=dopts.view_distance, force=force, inputs=inputs)
-                        dextra["error_map"] = str(late_map)
-                        dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {late_map}")
+                    pic, res, saved, dextra, dlines = _map_one(pal, im, out, emap, dopts, nearest, max_pixels,
+                                                               force=force, inputs=inputs)
                 except QuantizeError as exc:
                     if results:  # damage found only when decoding: say what is already written
                         done = ", ".join(str(o) for o in outs[:len(results)])
@@ -132,3 +119,21 @@ def apply(ctx, palette, images, outdir, fmt, nearest, max_pixels, report_dir, fo
             click.echo(f"  wrote {sv.describe()}")
 
     _emit(as_json, summary, human)
+
+
+def _map_one(pal, im, out, emap, dopts, nearest, max_pixels, *, force: bool, inputs: list):
+    """Decode one input once, map it onto ``pal``, write it and its dither outputs: (picture, result, file, summary)."""
+    from quantize.io.read import load_image
+
+    # The one decode of this input: mapping, ΔE figures, error map and report share it.
+    pic = load_image(im) if max_pixels is None else load_image(im, max_pixels=max_pixels)
+    res = pal.apply(pic, **dopts.apply_kwargs(), nearest=nearest)
+    # A JPEG's error map is drawn from the JPEG as written, so it waits for the file.
+    late_map = emap if Path(out).suffix.lower() in (".jpg", ".jpeg") else None
+    res, dextra, dlines = run_dither_outputs(
+        pic, res, dataclasses.replace(dopts, error_map=None) if late_map else dopts, force=force,
+        inputs=inputs, error_map_path=None if late_map else emap)
+    saved = res.write(out, picture=pic, force=force, inputs=inputs)
+    if late_map:
+        jpeg_error_map(dopts, late_map, pic, saved, dextra, dlines, force=force, inputs=inputs)
+    return pic, res, saved, dextra, dlines

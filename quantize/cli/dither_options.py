@@ -231,3 +231,16 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
         summary["error_map"] = str(target)
         lines.append(f"error map ({choice.error_map_kind} ΔE00): {target}")
     return result, summary, lines
+
+
+def jpeg_error_map(dopts, path, pic, saved, dextra: dict, dlines: list, *, force: bool, inputs) -> None:
+    """Write the error map of a JPEG output at ``path``, drawn from the JPEG as written (so after the file).
+
+    ``dextra`` and ``dlines`` (the summary of :func:`run_dither_outputs`) then name it.
+    """
+    from quantize.report.errormap import save_file_error_map
+
+    save_file_error_map(path, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
+                        distance_mm=dopts.view_distance, force=force, inputs=inputs)
+    dextra["error_map"] = str(path)
+    dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {path}")

@@ -16,7 +16,6 @@ from ._common import (
     _check_outputs,
     _emit,
     _of_the_file,
-    _Failure,
     _fit_options,
     _fit_settings,
     _fit_with_progress,
@@ -30,7 +29,7 @@ from ._common import (
     _run,
     _warn_unmet_target,
 )
-from .dither_options import dither_options, pop_dither_options, run_dither_outputs
+from .dither_options import dither_options, jpeg_error_map, pop_dither_options, run_dither_outputs
 
 
 @click.command()
@@ -87,12 +86,7 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
             if pal_path:
                 pal.save(pal_path, force=force)
         if lossy and dopts.error_map:
-            from quantize.report.errormap import save_file_error_map
-
-            save_file_error_map(dopts.error_map, pic, saved, kind=dopts.error_map_kind, dpi=dopts.view_dpi,
-                                distance_mm=dopts.view_distance, force=force, inputs=[image])
-            dextra["error_map"] = str(dopts.error_map)
-            dlines.append(f"error map ({dopts.error_map_kind} ΔE00, of the JPEG as written): {dopts.error_map}")
+            jpeg_error_map(dopts, dopts.error_map, pic, saved, dextra, dlines, force=force, inputs=[image])
         if report_dir:
             from quantize.report.page import write_report
 
@@ -120,29 +114,34 @@ def reduce(ctx, image, output, keep_palette, report_dir, force, as_json, **fit_o
         summary["outputs"].append(dextra["error_map"])
 
     def human():
-        click.echo(f"{image}: {pal.k} colours ({pal.fit.reason})")
-        _print_judgement(pal.fit, settings.target)
-        if len(pal.fit.candidates) > 1:
-            from quantize.fit.sweep_result import format_table
-
-            click.echo(format_table(pal.fit.candidates, chosen=pal.k))
-        if saved.delta_e is None:  # a JPEG measures opaque pixels only
-            click.echo("ΔE00: not measured (the file has no fully opaque pixel to compare)")
-        else:
-            _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", saved.delta_e)
-        if saved.file.lossy and saved.delta_e is not None:
-            click.echo("  (ΔE00 of the JPEG as written and decoded again: it is no longer the palette's colours)")
-        for line in dlines:
-            click.echo(line)
-        _print_palette(rows)
-        for n in summary["notes"]:
-            click.echo(f"note: {n}")
-        click.echo("wrote " + saved.describe())
-        if len(summary["outputs"]) > 1:
-            click.echo("wrote " + ", ".join(summary["outputs"][1:]))
+        _print_summary(image, pal, settings, saved, dopts, dlines, rows, summary)
 
     _warn_unmet_target(pal.fit)
     _emit(as_json, summary, human)
+
+def _print_summary(image, pal, settings, saved, dopts, dlines: list, rows: list, summary: dict) -> None:
+    """The human-readable summary of a reduction: size and why, ΔE00, the dither's lines, the palette, the files."""
+    click.echo(f"{image}: {pal.k} colours ({pal.fit.reason})")
+    _print_judgement(pal.fit, settings.target)
+    if len(pal.fit.candidates) > 1:
+        from quantize.fit.sweep_result import format_table
+
+        click.echo(format_table(pal.fit.candidates, chosen=pal.k))
+    if saved.delta_e is None:  # a JPEG measures opaque pixels only
+        click.echo("ΔE00: not measured (the file has no fully opaque pixel to compare)")
+    else:
+        _print_de("ΔE00 plain" if dopts.viewing else "ΔE00", saved.delta_e)
+    if saved.file.lossy and saved.delta_e is not None:
+        click.echo("  (ΔE00 of the JPEG as written and decoded again: it is no longer the palette's colours)")
+    for line in dlines:
+        click.echo(line)
+    _print_palette(rows)
+    for n in summary["notes"]:
+        click.echo(f"note: {n}")
+    click.echo("wrote " + saved.describe())
+    if len(summary["outputs"]) > 1:
+        click.echo("wrote " + ", ".join(summary["outputs"][1:]))
+
 
 
 def _untried_sizes(pic, k: str | None, pal, settings) -> list:
