@@ -8,6 +8,7 @@ fails that image only.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 from typing import Any, Iterator
@@ -17,12 +18,48 @@ from quantize.errors import QuantizeError
 __all__ = []
 
 
+#: The signals a batch stops on (Ctrl-C and a scheduler's or ``kill``'s SIGTERM).
+_STOP_SIGNALS = ("SIGINT", "SIGTERM")
+
+
+@contextlib.contextmanager
+def _stops_held():
+    """Hold Ctrl-C and SIGTERM while worker processes are started; they arrive as soon as it ends.
+
+    A new worker reads its start-up data from a pipe the batch writes to; an
+    interrupt landing in between left the worker with half of it, and its
+    traceback ("Ran out of input") on the terminal.  Held, the interrupt
+    lands just after, when the worker can start and see the batch gone.
+    Each worker inherits the mask and lifts it (:func:`_init_worker`).
+    """
+    import signal
+
+    held = {getattr(signal, name) for name in _STOP_SIGNALS if hasattr(signal, name)}
+    try:
+        old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    except (AttributeError, OSError, ValueError):  # no POSIX signal masks here
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
 def _init_worker(threads: int) -> None:
     # Spawned workers import numba fresh, so this caps the thread pool of any
     # parallel kernel: two workers with two threads each on two cores only
     # fight over the cores.
     for var in ("NUMBA_NUM_THREADS", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ[var] = str(threads)
+    import signal
+
+    # The batch decides when to stop: a Ctrl-C at the terminal (sent to every process of the
+    # group) lets a worker finish its image; SIGTERM, as the batch's own shut-down sends it,
+    # still ends it.  Then the start-up mask the worker inherited (_stops_held) is lifted.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "pthread_sigmask"):
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {getattr(signal, n) for n in _STOP_SIGNALS if hasattr(signal, n)})
     _exit_with_parent()
 
 
@@ -77,7 +114,9 @@ def _local_map(fn, items: list, extra: tuple, workers: int) -> Iterator[tuple[di
                 while todo and len(pending) < workers and not broken:
                     item = todo.pop()
                     try:
-                        pending[ex.submit(fn, item, *extra)] = item
+                        with _stops_held():  # a submit may start a worker
+                            future = ex.submit(fn, item, *extra)
+                        pending[future] = item
                     except BrokenProcessPool:
                         todo.append(item)
                         broken = True

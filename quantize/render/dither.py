@@ -43,7 +43,7 @@ import numpy as np
 
 # The method table and the threshold arrays live in their own modules; their
 # names stay importable here.
-from .methods import DITHERS, DitherMethod, check_dither, check_modulation, check_strength
+from .methods import DITHERS, DitherMethod, check_dither, check_modulation, check_strength, number_option
 from .result import DitherInfo, MappedImage, nearest_image
 if TYPE_CHECKING:
     # The palette by its public name: palette.py imports the render stage, so a direct import back
@@ -99,15 +99,8 @@ DEFAULT_REACH = float("inf")
 
 def check_reach(reach) -> float:
     """``reach`` (choice-space units, > 0, ``inf`` for no limit) as a float; None means :data:`DEFAULT_REACH`."""
-    if reach is None:
-        return DEFAULT_REACH
-    try:
-        value = float(reach)
-    except (TypeError, ValueError):
-        raise ValueError(f"dither reach must be a positive number of L* units or inf, got {reach!r}") from None
-    if not value > 0.0:  # NaN fails too
-        raise ValueError(f"dither reach must be a positive number of L* units or inf, got {reach!r}")
-    return value
+    return number_option(reach, DEFAULT_REACH, lambda v: v > 0.0,
+                         "dither reach must be a positive number of L* units or inf")
 
 
 #: Error diffusion's hold on colours outside the palette's hull: a pixel whose
@@ -123,15 +116,8 @@ DEFAULT_HULL_HOLD = float("inf")
 
 def check_hull_hold(hold) -> float:
     """``hold`` (linear light, >= 0, ``inf`` for off) as a float; None means :data:`DEFAULT_HULL_HOLD`."""
-    if hold is None:
-        return DEFAULT_HULL_HOLD
-    try:
-        value = float(hold)
-    except (TypeError, ValueError):
-        raise ValueError(f"hull hold must be a distance in linear light >= 0 or inf, got {hold!r}") from None
-    if not value >= 0.0:  # NaN fails too
-        raise ValueError(f"hull hold must be a distance in linear light >= 0 or inf, got {hold!r}")
-    return value
+    return number_option(hold, DEFAULT_HULL_HOLD, lambda v: v >= 0.0,
+                         "hull hold must be a distance in linear light >= 0 or inf")
 
 
 def _mark_outside(pic, a: DitherArrays, hold: float) -> np.ndarray:

@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = ["DITHERS", "DEFAULT_MODULATION", "DitherMethod", "check_dither", "check_modulation", "check_strength",
-           "describe"]
+           "describe", "number_option"]
 
 #: Threshold modulation of error diffusion, in L* units (peak to peak): the
 #: lightness the choice of colour is moved by, at most, at strength 1.
@@ -140,14 +140,24 @@ def check_strength(strength) -> float:
     return value
 
 
+def number_option(value, default: float, accept, what: str) -> float:
+    """``value`` as a float if ``accept(value)``, ``default`` for None; else a ValueError saying ``what`` it must be.
+
+    One validator for the dither's numeric options (NaN is refused by every
+    ``accept`` written as a comparison).
+    """
+    if value is None:
+        return default
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = float("nan")
+    if not accept(number):
+        raise ValueError(f"{what}, got {value!r}")
+    return number
+
+
 def check_modulation(modulation) -> float:
     """``modulation`` (L* units, >= 0) as a float; None means :data:`DEFAULT_MODULATION`."""
-    if modulation is None:
-        return DEFAULT_MODULATION
-    try:
-        value = float(modulation)
-    except (TypeError, ValueError):
-        raise ValueError(f"threshold modulation must be a number of L* units >= 0, got {modulation!r}") from None
-    if not 0.0 <= value < float("inf"):
-        raise ValueError(f"threshold modulation must be a number of L* units >= 0, got {modulation!r}")
-    return value
+    return number_option(modulation, DEFAULT_MODULATION, lambda v: 0.0 <= v < float("inf"),
+                         "threshold modulation must be a number of L* units >= 0")
