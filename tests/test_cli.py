@@ -414,6 +414,19 @@ def test_the_dither_line_describes_the_method_it_ran(art, tmp_path, method, says
     assert says in line and not any(w in line for w in never)
 
 
+@pytest.mark.parametrize("method, scan", [("bayer4", None), ("none", None), ("floyd-steinberg", True)])
+def test_the_json_and_the_manifest_record_a_scan_only_for_error_diffusion(art, tmp_path, method, scan):
+    # An ordered dither scans nothing: its records once said "serpentine": true, the option's default.
+    r = run("reduce", art, "-o", tmp_path / "o.png", "-k", "4", "--restarts", "1", "--dither", method, "--json")
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["dither"]["serpentine"] is scan
+    out = tmp_path / "batch"
+    r = run("batch", art.parent, "-o", out, "--exclude", "o.png", "--exclude", "batch", "--workers", "0",
+            "-k", "4", "--restarts", "1", "--dither", method)
+    assert r.exit_code == 0, r.output
+    assert json.loads((out / "manifest.json").read_text())["settings"]["serpentine"] is scan
+
+
 @pytest.mark.skipif(sys.platform == "win32", reason="a pseudo-terminal needs POSIX")
 @pytest.mark.parametrize("env, flag, coloured", [({}, [], True), ({"NO_COLOR": "1"}, [], False),
                                                  ({"NO_COLOR": "1"}, ["--color", "always"], True),

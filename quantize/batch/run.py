@@ -187,7 +187,9 @@ def _manifest_settings(s: BatchSettings) -> dict:
     # The rest of the fit, named as the command line's options (fit_nearest: the fit's --nearest).
     settings.update(rule=f.rule, kind=f.kind, target=f.target, target_stat=f.target_stat, locked=list(f.locked),
                     seeding=f.seeding, fit_nearest=f.nearest, refine=f.refine, warm=f.warm)
-    settings.update(dither=s.dither, dither_strength=s.dither_strength, serpentine=s.serpentine,
+    from quantize.render.methods import scan_of
+
+    settings.update(dither=s.dither, dither_strength=s.dither_strength, serpentine=scan_of(s.dither, s.serpentine),
                     nearest=s.nearest)
     if s.mode == "shared":
         settings["weighting"] = s.shared_weighting

@@ -201,8 +201,12 @@ def run_dither_outputs(image, result, choice: DitherChoice, *, force: bool = Fal
     lines : list of str
         For the human summary, each naming which ΔE it reports.
     """
+    from quantize.render.methods import scan_of
+
     summary: dict[str, Any] = {
-        "dither": {"method": choice.dither, "strength": choice.strength, "serpentine": choice.serpentine},
+        # An ordered dither or none scans nothing: its serpentine is null, not the option's default.
+        "dither": {"method": choice.dither, "strength": choice.strength,
+                   "serpentine": scan_of(choice.dither, choice.serpentine)},
         "delta_e_filtered": None, "viewing": None, "error_map": None}
     lines = []
     if choice.dither != "none":

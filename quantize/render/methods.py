@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = ["DITHERS", "DEFAULT_MODULATION", "DitherMethod", "check_dither", "check_modulation", "check_strength",
-           "describe", "number_option"]
+           "describe", "number_option", "scan_of"]
 
 #: Threshold modulation of error diffusion, in L* units (peak to peak): the
 #: lightness the choice of colour is moved by, at most, at strength 1.
@@ -108,6 +108,15 @@ def describe(name: str, *, strength: float = 1.0, serpentine: bool = True) -> st
     what = {"blue-noise": "64 x 64 blue-noise mask", "clustered-dot": "8 x 8 clustered-dot cell"}.get(
         m.matrix, f"{m.matrix[5:]} x {m.matrix[5:]} Bayer matrix")
     return f"{head}: ordered, {what}, two palette colours mixed in linear light"
+
+
+def scan_of(name: str, serpentine: bool) -> bool | None:
+    """What a record says of the scan: ``serpentine`` for error diffusion, None for a method that scans nothing.
+
+    >>> scan_of("floyd-steinberg", True), scan_of("bayer4", True), scan_of("none", False)
+    (True, None, None)
+    """
+    return bool(serpentine) if check_dither(name).kind == "diffusion" else None
 
 
 def check_dither(name: str) -> DitherMethod:
