@@ -409,7 +409,8 @@ def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray) -> np.ndarray:
     number of mixes grows with the cube of the colours, and a photograph
     has a hundred.
     """
-    distinct, weight = [], []
+    distinct: list[np.ndarray] = []
+    weight: list[float] = []
     for i in np.argsort(-flat_count, kind="stable"):  # regions of one ink count once
         near = [j for j, d in enumerate(distinct) if np.linalg.norm(flat_lab[i] - d) < 3.0]
         if near:
@@ -893,7 +894,7 @@ def _core_colours(labels, n: int, lab, opaque, scale: int):
     centre = _centres(labels, n, count)
     inside = labels > 0
     step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
-    de = delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1])
+    de = np.asarray(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]))
     return mean, area, centre, float(np.percentile(de, 90)), _even_share(de, labels[inside][::step], n)
 
 

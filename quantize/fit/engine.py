@@ -13,7 +13,7 @@ import functools
 import logging
 import warnings
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence, cast
 
 import numpy as np
 
@@ -27,6 +27,7 @@ from .selection import bic_scores, choose_k, robust_error
 from .settings import DEFAULT_K, FitSettings
 
 if TYPE_CHECKING:
+    from quantize.core.choices import SeedingName
     from quantize.core.picture import ImageInput
     from quantize.core.sampling import ColourSample
 
@@ -100,32 +101,33 @@ def parse_k(k) -> list[int]:
     ValueError
         Below 1, above the engine's maximum, empty, or min > max.
     """
-    if isinstance(k, str):
-        text = k.strip()
+    spec: Any = k  # a string is parsed into the same forms as the other inputs
+    if isinstance(spec, str):
+        text = spec.strip()
         if "-" in text:
-            lo, _, hi = text.partition("-")
+            first, _, last = text.partition("-")
             try:
-                k = (int(lo), int(hi))
+                spec = (int(first), int(last))
             except ValueError:
                 raise ValueError(f"palette size {text!r} is not N or MIN-MAX") from None
         else:
             try:
-                k = int(text)
+                spec = int(text)
             except ValueError:
                 raise ValueError(f"palette size {text!r} is not N or MIN-MAX") from None
-    if isinstance(k, (int, np.integer)) and not isinstance(k, bool):
-        ks = [int(k)]
-    elif isinstance(k, range):
-        ks = list(k)
-    elif isinstance(k, (tuple, list)) and len(k) == 2:
-        if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in k):
-            raise ValueError(f"palette size range must be two whole numbers, got {k!r}")
-        lo, hi = int(k[0]), int(k[1])
+    if isinstance(spec, (int, np.integer)) and not isinstance(spec, bool):
+        ks = [int(spec)]
+    elif isinstance(spec, range):
+        ks = list(spec)
+    elif isinstance(spec, (tuple, list)) and len(spec) == 2:
+        if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in spec):
+            raise ValueError(f"palette size range must be two whole numbers, got {spec!r}")
+        lo, hi = int(spec[0]), int(spec[1])
         if lo > hi:
             raise ValueError(f"palette size range {lo}-{hi} has min > max")
         ks = list(range(lo, hi + 1))
     else:
-        raise ValueError(f"palette size must be an int or a range, got {k!r}")
+        raise ValueError(f"palette size must be an int or a range, got {spec!r}")
     if not ks:
         raise ValueError("palette size range is empty")
     if min(ks) < 1:
@@ -156,7 +158,9 @@ def load_samples(images, *, weighting: str = "equal", max_pixels=None, pictures:
     from quantize.core.sampling import ColourSample, pool_samples, sample_picture
     from quantize.io.read import as_picture, load_image
 
-    samples, sources, notes = [], [], []
+    samples: list = []
+    sources: list[str] = []
+    notes: list[str] = []
     for item in _as_list(images):
         if isinstance(item, ColourSample):  # already sampled (e.g. a batch's pooled histogram)
             samples.append(item)
@@ -452,6 +456,8 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
     # so that every restart's assignment runs on them too (bit-identical).
     load_for(sample.n_colours, max(ks))
     space, m = settings.space, len(settings.locked)
+    # FitSettings has turned the seed into an int and checked the seeding's name.
+    seed, seeding = cast(int, settings.seed), cast("SeedingName", settings.seeding)
     fixed_rgb8 = settings.locked_rgb8
     fixed = srgb8_to_space(fixed_rgb8, space) if m else None
     full_pts, full_w = sample.points(space), sample.weights
@@ -465,17 +471,17 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", PaletteSizeWarning)
                 fresh = coarse = kmeans(bin_pts, k, weights=bin_w, restarts=settings.restarts,
-                                        seed=size_rng(settings.seed, k), fixed=fixed, init=settings.seeding,
+                                        seed=size_rng(seed, k), fixed=fixed, init=seeding,
                                         polish=False)
                 start = "fresh"
                 if settings.warm and prev_coarse is not None and len(prev_coarse.centres) == k - 1:
                     coarse, start = warm_coarse(bin_pts, bin_w, fresh, prev_coarse, m, bin_tol,
-                                                size_rng(settings.seed, k, 1))
+                                                size_rng(seed, k, 1))
                 fine = lloyd_from(full_pts, full_w, coarse.centres, n_fixed=m, max_iter=FINE_ITER,
                                   abs_tol=full_tol)
                 if settings.warm and prev_fine is not None and len(prev_fine.centres) == k - 1:
                     fine, added = warm_fine(full_pts, full_w, fine, prev_fine, m, full_tol, FINE_ITER,
-                                            size_rng(settings.seed, k, 2))
+                                            size_rng(seed, k, 2))
                     start = "add" if added else start
             prev_coarse, prev_fine = coarse, fine
             # The k-medians may also start from every fresh restart but the kept one.
@@ -651,26 +657,28 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
             auto = _auto(sample, [j.result() for j in region_jobs], ks_eff, settings, k_given=k is not None,
                          progress=progress)
         if auto is None:
-            cands = []
+            cands: list[Candidate] = []
             for c in fit_sizes(sample, ks_eff, settings, progress=progress):
                 if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
                     cands.append(c)
             record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
             if has_regions:  # say what was lost, whatever chose the size
-                chosen = cands[[c.palette.k for c in cands].index(record.k)]
+                chosen = cands[[c.palette.k for c in cands].index(cast(int, record.k))]
                 record = _with_lost(record, [j.result() for j in region_jobs], chosen.palette)
         else:
             cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources,
                                                           load_notes + size_notes)
-    chosen = cands[[c.palette.k for c in cands].index(record.k)]
-    record = dataclasses.replace(record, notes=record.notes + tuple(_locked_notes(chosen)))
+    # A fit's record always names its size, its notes and its ΔE00 (_record, _auto_record).
+    k_chosen = cast(int, record.k)
+    chosen = cands[[c.palette.k for c in cands].index(k_chosen)]
+    notes = (record.notes or ()) + tuple(_locked_notes(chosen))
+    record = dataclasses.replace(record, notes=notes)
     # Loading already warned about its own notes; these are the fit's.
-    for n in record.notes[len(load_notes):]:
+    for n in notes[len(load_notes):]:
         warnings.warn(n, PaletteSizeWarning, stacklevel=2)
-    chosen = cands[[c.palette.k for c in cands].index(record.k)]
     pal = Palette(chosen.palette.rgb8, chosen.palette.locked, settings.space, fit=record)
     _log.info("fitted %d colours (rule %s; sizes tried %s): mean ΔE00 %.3f", pal.k, record.rule,
-              ",".join(str(c.palette.k) for c in cands), record.delta_e["mean"])
+              ",".join(str(c.palette.k) for c in cands), cast(dict, record.delta_e)["mean"])
     if settings.for_dither:
         from .for_dither import palette_for_dither
 
@@ -708,7 +716,7 @@ def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
     """``cand`` (fitted on another sample) measured on every distinct colour of ``sample``."""
     from .assign import map_sample
 
-    labels, de = map_sample(sample, cand.palette, metric=settings.nearest)
+    labels, de = map_sample(sample, cand.palette, metric=cast(str, settings.nearest))  # FitSettings resolved it
     w = sample.weights
     pts, centres = sample.points(settings.space), cand.palette.points(settings.space)
     inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())
@@ -727,7 +735,7 @@ def _locked_notes(chosen: Candidate) -> list[str]:
         if chosen.coverage[i] == 0:
             notes.append(f"the locked colour {pal.hex[i]} is not used by any pixel")
         if free.size:
-            de = delta_e_ciede2000(np.broadcast_to(pal.lab[i], pal.lab[free].shape), pal.lab[free])
+            de = np.asarray(delta_e_ciede2000(np.broadcast_to(pal.lab[i], pal.lab[free].shape), pal.lab[free]))
             j = int(np.argmin(de))
             if de[j] < 3.0:
                 notes.append(f"the locked colour {pal.hex[i]} and the fitted colour {pal.hex[free[j]]} are only "
@@ -740,8 +748,8 @@ def _with_lost(record: FitRecord, regions, palette) -> FitRecord:
     from .inkcount import ink_groups, lost_inks
 
     lost = _lost_rows(lost_inks(ink_groups(regions), palette.lab), palette)
-    notes = record.notes + ((f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette "
-                             "colour",) if lost else ())
+    said = (f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette colour",)
+    notes = (record.notes or ()) + (said if lost else ())
     return dataclasses.replace(record, lost=tuple(lost), notes=notes)
 
 
@@ -871,9 +879,9 @@ def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSetti
     """The record of ``chosen`` among ``cands``: the settings, what the fit saw, and ``fields``."""
     return FitRecord(
         k=chosen.palette.k, k_requested=ks[0] if len(ks) == 1 else (ks[0], ks[-1]),
-        space=settings.space, restarts=settings.restarts, seed=settings.seed, seeding=settings.seeding,
+        space=settings.space, restarts=settings.restarts, seed=cast(int, settings.seed), seeding=settings.seeding,
         weighting=settings.weighting, nearest=settings.nearest, refine=settings.refine, target=settings.target,
-        target_stat=settings.target_stat, warm=settings.warm, locked=settings.locked, images=tuple(sources),
+        target_stat=settings.target_stat, warm=settings.warm, locked=tuple(settings.locked), images=tuple(sources),
         for_dither=settings.for_dither,
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,

@@ -35,6 +35,8 @@ l1-ball for learning in high dimensions", ICML 2008.
 
 from __future__ import annotations
 
+from typing import cast
+
 import numpy as np
 
 __all__ = ["extreme_colours", "flat_colours", "hull_weights", "palette_for_dither", "project_simplex",
@@ -195,6 +197,8 @@ def spread_for_dither(pal_lin: np.ndarray, fixed: np.ndarray, colours_lin: np.nd
             track = np.flatnonzero(dist_all > 0.1 * tolerance)
             if len(track) == 0:
                 break
+        # Step 0 is a full check, so bary_all is set from then on.
+        bary_all = cast(np.ndarray, bary_all)
         bary, resid, dist = _outside(pts[track], pal, start=bary_all[track], iterations=50)
         bary_all[track] = bary
         tw = w[track]

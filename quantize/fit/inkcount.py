@@ -221,7 +221,8 @@ def missing_inks(groups: InkGroups, palette_lab: np.ndarray, n_pixels: int) -> n
     if len(groups) == 0:
         return np.zeros(0, dtype=np.intp)
     pal = np.asarray(palette_lab, dtype=np.float64)
-    de = np.min([delta_e_ciede2000(groups.lab, np.broadcast_to(p, groups.lab.shape)) for p in pal], axis=0)
+    de = np.min([np.asarray(delta_e_ciede2000(groups.lab, np.broadcast_to(p, groups.lab.shape))) for p in pal],
+                axis=0)
     big = (groups.share >= MIN_SHARE) & (groups.share * n_pixels >= MIN_PIXELS)
     return np.flatnonzero(big & (de >= FOUND_DE))
 

@@ -36,7 +36,8 @@ ALPHA_THRESHOLD = 128
 #: Entries a PNG, GIF or WebP colour index can hold.
 MAX_ENTRIES = 256
 #: Pillow's options where every colour and alpha is kept as given (TIFF; PNG and WebP above 256 colours).
-_EXACT_OPTIONS = {"TIFF": {"compression": "tiff_lzw"}, "PNG": {}, "WEBP": {"lossless": True, "exact": True}}
+_EXACT_OPTIONS: dict[str, dict[str, object]] = {"TIFF": {"compression": "tiff_lzw"}, "PNG": {},
+                                                 "WEBP": {"lossless": True, "exact": True}}
 #: JPEG settings: quality 95 and no chroma subsampling (4:4:4), so flat-colour edges stay crisp.
 _JPEG = {"quality": 95, "subsampling": 0}
 
@@ -172,6 +173,7 @@ def encode(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None
         rgb = palette[idx]
         image = Image.fromarray(rgb if a8 is None else np.dstack([rgb, a8]))
         return Encoded(_pillow(image, fmt, dict(_EXACT_OPTIONS[fmt]), dpi, name))
+    ia: IndexedAlpha | None
     if a8 is None:
         ia = IndexedAlpha(idx.astype(np.uint8), palette, np.full(k, 255, np.uint8), 1, 0)
     else:
@@ -195,7 +197,7 @@ def encode(fmt: str, idx: np.ndarray, palette: np.ndarray, a8: np.ndarray | None
     if fmt == "GIF":
         image = Image.fromarray(ia.indices, mode="P")
         image.putpalette(ia.rgb.ravel().tolist())
-        options = {"optimize": False}
+        options: dict[str, bool | int] = {"optimize": False}
         if a8 is not None and (ia.alpha == 0).any():
             options["transparency"] = int(np.flatnonzero(ia.alpha == 0)[0])
         return Encoded(_pillow(image, fmt, options, None, name), len(ia.rgb), step, ia.max_change,

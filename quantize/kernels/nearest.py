@@ -164,6 +164,8 @@ class LloydAssigner:
 
     def sums(self, labels: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
         """:func:`centre_sums` of the points with the weights given at construction."""
+        if self._weights is None:
+            raise ValueError("LloydAssigner.sums needs the weights given at construction")
         if _euclid_compiled(len(self.points), k):
             return centre_sums(self.points, self._weights, labels, k)
         wsum = np.bincount(labels, weights=self._weights, minlength=k)
@@ -178,7 +180,7 @@ class LloydAssigner:
         if _euclid_compiled(len(pts), k):
             # The compiled loop measures every centre faster than the bounds' numpy passes.
             return assign_nearest(pts, centres)
-        if self._labels is None or self._centres.shape != centres.shape or k < 2:
+        if self._labels is None or self._centres is None or self._centres.shape != centres.shape or k < 2:
             labels, d2, second = _assign_two(pts, centres)
             self._labels, self._lower, self._centres = labels, np.sqrt(second), centres.copy()
             return labels.copy(), d2
@@ -289,14 +291,16 @@ class CiedeColumns:
     def __init__(self, lab: np.ndarray) -> None:
         self.lab = np.ascontiguousarray(lab, dtype=np.float64)
         self.n = self.lab.shape[0]
-        self._columns = tuple(np.ascontiguousarray(self.lab[:, t], dtype=np.float32) for t in range(3))
+        L, a, b = (np.ascontiguousarray(self.lab[:, t], dtype=np.float32) for t in range(3))
+        self._columns: tuple[np.ndarray, np.ndarray, np.ndarray] = (L, a, b)
 
     def subset(self, rows: np.ndarray) -> "CiedeColumns":
         """The colours ``rows`` (indices), held the same way."""
         out = CiedeColumns.__new__(CiedeColumns)
         out.lab = self.lab[rows]
         out.n = out.lab.shape[0]
-        out._columns = tuple(c[rows] for c in self._columns)
+        L, a, b = self._columns
+        out._columns = (L[rows], a[rows], b[rows])
         return out
 
     def nearest(self, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

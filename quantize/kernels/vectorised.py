@@ -107,7 +107,7 @@ def assign_euclid_two(points: np.ndarray, centres: np.ndarray, *, second: bool =
         rows = np.arange(hi - lo)
         labels[lo:hi] = best
         dist2[lo:hi] = acc[rows, best]
-        if second and k > 1:
+        if second2 is not None and k > 1:
             acc[rows, best] = np.inf
             second2[lo:hi] = acc.min(axis=1)
     return labels, dist2, second2

@@ -37,7 +37,7 @@ Methods (:data:`DITHERS`)
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, cast
 
 import numpy as np
 
@@ -132,7 +132,7 @@ def _mark_outside(pic, a: DitherArrays, hold: float) -> np.ndarray:
     resid = lin - hull_weights(lin, a.pal_lin) @ a.pal_lin
     far = np.sqrt((resid**2).sum(axis=1)) > hold
     state = a.state.copy()
-    state[(state == dk.OPEN) & far[smp.inverse.reshape(pic.shape)]] = dk.FAR
+    state[(state == dk.OPEN) & far[_rows_of(smp).reshape(pic.shape)]] = dk.FAR
     return state
 
 
@@ -368,7 +368,7 @@ def _run_method(m, pic, a: DitherArrays, strength, diffusion, measure, out) -> n
                a.space_code, a.metric_code, near, other, share, de_near, de_other)
     thr = np.ascontiguousarray(threshold_matrix(m.matrix))
     de = np.empty(pic.shape, dtype=np.float64)
-    dk.ordered(smp.inverse.reshape(pic.shape), a.state, a.pinned, thr, strength, near, other, share, de_near,
+    dk.ordered(_rows_of(smp).reshape(pic.shape), a.state, a.pinned, thr, strength, near, other, share, de_near,
                de_other, out, de)
     return de
 
@@ -476,7 +476,7 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
                                  serpentine=serpentine, modulation=modulation, reach=reach,
                                  hull_hold=hull_hold, measure=True)
     dk = compiled("dither_loops")
-    de = arrays.delta_e
+    de = cast(np.ndarray, arrays.delta_e)  # asked for with measure=True
     clear = arrays.state == dk.CLEAR if pic.alpha is not None else None
     if clear is not None and clear.any():
         values, used = de[~clear], idx[~clear]
@@ -501,3 +501,8 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
                           serpentine=bool(serpentine) if m.kind == "diffusion" else None,
                           choice_space=arrays.choice_space, metric=metric),
     )
+
+
+def _rows_of(smp) -> np.ndarray:
+    """Each pixel's row in the colour sample of one picture, which always has them (a pooled sample has not)."""
+    return cast(np.ndarray, smp.inverse)

@@ -105,8 +105,9 @@ def describe(name: str, *, strength: float = 1.0, serpentine: bool = True) -> st
         return "no dither: nearest colour"
     if m.kind == "diffusion":
         return f"{head}: error diffusion, {'serpentine' if serpentine else 'raster'} scan (error in linear light)"
+    matrix = m.matrix or ""  # every ordered method names its matrix
     what = {"blue-noise": "64 x 64 blue-noise mask", "clustered-dot": "8 x 8 clustered-dot cell"}.get(
-        m.matrix, f"{m.matrix[5:]} x {m.matrix[5:]} Bayer matrix")
+        matrix, f"{matrix[5:]} x {matrix[5:]} Bayer matrix")
     return f"{head}: ordered, {what}, two palette colours mixed in linear light"
 
 

@@ -212,7 +212,7 @@ def review_block(picture, views: Sequence[SizeView], *, start: int, picks: dict,
     if picks and len(views) > 1:
         named = ", ".join(f"k = {k} ({n} rule)" for n, k in picks.items())
         parts.append(f'<p class="note">Sizes a rule picked are framed red: {e(named)}.</p>')
-    parts.append(f'<p class="size-label">{e(sizes[start]["label"])}</p>')
+    parts.append(f'<p class="size-label">{e(size_label(views, start))}</p>')
     parts.append(
         '<div class="frame"><div class="stage">'
         f'<img class="before" src="{orig}" width="{w}" height="{h}" alt="original image">'
