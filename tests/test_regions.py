@@ -204,3 +204,28 @@ def test_a_stroke_width_is_the_width_of_the_band_drawn(width, angle):
     # A 3 px band crossed at 45 degrees spans 4.2 px of a row, nearly the whole 5 px
     # window, and one shallower than 30 degrees is read on its column alone: within 10 %.
     assert measured == pytest.approx(width, abs=0.15 if width <= 2 else 0.1 * width)
+
+
+def test_the_analysis_is_kept_with_the_picture_and_run_once(monkeypatch):
+    # A command judges a picture before fitting it (the transparent index entry), and the fit asks again.
+    from skimage import data
+
+    from quantize.core import regions
+    from quantize.core.picture import Picture
+    from quantize.fit.index_room import sizes_with_room
+    from quantize.fit.inkcount import artwork_like
+    from quantize.fit.settings import FitSettings
+
+    calls = []
+    real = regions._find_regions
+    monkeypatch.setattr(regions, "_find_regions", lambda *a: calls.append(a[1:]) or real(*a))
+    rgb = np.ascontiguousarray(data.astronaut()[::4, ::4])  # scikit-image's sample photo
+    alpha = np.full(rgb.shape[:2], 255, np.uint8)
+    alpha[:8] = 0
+    pic = Picture(rgb, alpha=alpha)
+    sizes_with_room(None, FitSettings(), reserve=1, picture=pic)
+    first = regions.find_regions(pic, structures=artwork_like)
+    assert regions.find_regions(pic, structures=artwork_like) is first
+    assert len(calls) == 1
+    regions.find_regions(pic, structures=False)  # other settings: analysed again
+    assert len(calls) == 2

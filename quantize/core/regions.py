@@ -409,17 +409,8 @@ def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray) -> np.ndarray:
     number of mixes grows with the cube of the colours, and a photograph
     has a hundred.
     """
-    distinct: list[np.ndarray] = []
-    weight: list[float] = []
-    for i in np.argsort(-flat_count, kind="stable"):  # regions of one ink count once
-        near = [j for j, d in enumerate(distinct) if np.linalg.norm(flat_lab[i] - d) < 3.0]
-        if near:
-            weight[near[0]] += flat_count[i]
-        else:
-            distinct.append(flat_lab[i])
-            weight.append(float(flat_count[i]))
-    top = np.argsort(-np.asarray(weight), kind="stable")[:MIX_COLOURS]
-    labs = np.asarray(distinct)[top].reshape(-1, 3)
+    # Regions of one ink count once (3 apart in CIELAB).
+    labs = _largest_distinct(flat_lab, flat_count, distance=lambda a, b: float(np.linalg.norm(a - b)))
     if len(labs) < 3:
         labs = np.vstack([labs, np.repeat(labs[:1], 3 - len(labs), axis=0)])
     i, j, k = np.array([(i, j, k) for i in range(len(labs)) for j in range(i + 1, len(labs))
@@ -703,11 +694,13 @@ def _mix_distance(colour: np.ndarray, pair_colours: np.ndarray, mix: np.ndarray)
     return float(_weighted_lab_distance(mix, np.broadcast_to(colour, mix.shape))[:, other][:, :, other].min())
 
 
-def _largest_distinct(colours, weight):
-    """The :data:`MIX_COLOURS` distinct colours (3 apart, chroma weighted) of most weight."""
-    distinct, total = [], []
+def _largest_distinct(colours, weight, *, distance=None):
+    """The :data:`MIX_COLOURS` distinct colours (3 apart by ``distance``, chroma weighted by default) of most weight."""
+    distance = _weighted_lab_distance if distance is None else distance
+    distinct: list[np.ndarray] = []
+    total: list[float] = []
     for i in np.argsort(-weight, kind="stable"):
-        d = [j for j, c in enumerate(distinct) if _weighted_lab_distance(colours[i], c) < 3.0]
+        d = [j for j, c in enumerate(distinct) if distance(colours[i], c) < 3.0]
         if d:
             total[d[0]] += weight[i]
         else:
@@ -823,6 +816,13 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     >>> len(r), [round(float(s), 2) for s in r.share]
     (2, [0.5, 0.5])
     """
+    # Kept with the picture: a command may judge a picture before fitting it, and the fit asks again.
+    return picture._derived.get(("flat regions", threshold, max_pixels, structures),
+                                lambda: _find_regions(picture, threshold, max_pixels, structures))
+
+
+def _find_regions(picture: Picture, threshold: float, max_pixels: int, structures) -> Regions:
+    """:func:`find_regions`, computed."""
     h, w = picture.shape
     scale = 1
     while (h // scale) * (w // scale) > max_pixels:

@@ -98,5 +98,5 @@ def _default_reaches(settings: FitSettings, picture, top: int) -> bool:
 
     from .inkcount import artwork_like, judge
 
-    # The same analysis the fit runs (it runs it again: the engine takes no regions from outside).
+    # The same analysis the fit runs; the picture keeps it, so the fit does not run it again.
     return judge([find_regions(picture, structures=artwork_like)]).kind == "continuous tone"
