@@ -175,6 +175,30 @@ def test_the_path_depends_on_the_input_size_alone():
     assert _kernels.uses_compiled(_kernels.COMPILED_FROM, 1)
 
 
+def test_a_large_sample_is_searched_compiled_at_every_palette_size(monkeypatch):
+    # A sample big enough that 8 palette colours would run the compiled loops
+    # runs them for 2 colours too (NEAREST_SIZE_FLOOR); one colour fewer and
+    # 2 colours stay on numpy.  Which path ran is seen by the compiled kernel's calls.
+    calls = []
+    kernel = ek.assign_ciede2000
+
+    def counted(*args):
+        calls.append(len(args[0]))
+        return kernel(*args)
+
+    monkeypatch.setattr(ek, "assign_ciede2000", counted)
+    monkeypatch.setattr(_kernels, "COMPILED_FROM", 8 * 300)
+    rng = np.random.default_rng(7)
+    lab, pal = _srgb_lab(rng, 300), _srgb_lab(rng, 2)
+    labels, de = _kernels.nearest_ciede2000(lab, pal)
+    assert sum(calls) == 300
+    ref = naive.nearest_ciede2000(lab, pal)[1]  # the numpy CIEDE2000 held to Sharma et al. (2005)
+    assert_allclose(de, ref.min(axis=1), rtol=0, atol=1e-10)
+    calls.clear()
+    _kernels.nearest_ciede2000(lab[:299], pal)
+    assert calls == []
+
+
 def test_a_result_does_not_depend_on_whether_the_compiler_is_loaded():
     # In a fresh process: the same input gives bit-identical palettes before
     # and after the compiled loops were loaded by a larger job.

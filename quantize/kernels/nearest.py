@@ -34,10 +34,27 @@ __all__ = ["COMPILED_FROM", "uses_compiled", "load_for", "assign_nearest", "assi
 #: (benchmarks/bench_everyday.py).
 COMPILED_FROM = 1 << 21
 
+#: Nearest-colour searches count their palette as at least this many
+#: colours when choosing a path, so that a sample of 2^18 (262 144) distinct
+#: colours or more runs the compiled loops at every palette size.  A palette
+#: of 8 colours or more on such a sample needs them anyway; below 8, the
+#: numpy path cost a 2..16 sweep of the 12 MP photo's 586 000 colours about
+#: 0.3 s of CPU (sizes 2 and 3, 0.25 s each against 0.08-0.1 s compiled),
+#: more than everything else the sweep gained or lost since the flat-module
+#: layout (benchmarks/compare_sweep_trees.py).  Samples this large come from
+#: photos of several megapixels, whose fits load the compiled loops for
+#: their Euclidean steps as well.
+NEAREST_SIZE_FLOOR = 8
+
 
 def uses_compiled(n: int, k: int) -> bool:
     """Whether a kernel call on ``n`` points and ``k`` palette colours runs the compiled loops."""
     return n * k >= COMPILED_FROM
+
+
+def _nearest_compiled(n: int, k: int) -> bool:
+    """Whether a nearest-colour search of ``n`` colours among ``k`` runs the compiled loops (size alone)."""
+    return uses_compiled(n, max(k, NEAREST_SIZE_FLOOR))
 
 
 def _euclid_compiled(n: int, k: int) -> bool:
@@ -60,7 +77,7 @@ def load_for(n: int, k: int) -> None:
     loops anyway (:func:`uses_compiled`) then runs its restarts' Euclidean
     assignments on them too.  The choice is by size alone.
     """
-    if uses_compiled(n, k):
+    if _nearest_compiled(n, k):
         compiled("engine_loops")
 
 
@@ -233,7 +250,7 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray,
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     if lab.shape[0] == 0:
         return np.empty(0, dtype=np.intp), np.empty(0)
-    if not uses_compiled(len(lab), len(pal_lab)):
+    if not _nearest_compiled(len(lab), len(pal_lab)):
         return vectorised.nearest_ciede2000(lab, pal_lab)
     labels = np.empty(lab.shape[0], dtype=np.intp)
     de = np.empty(lab.shape[0], dtype=np.float64)
