@@ -29,6 +29,8 @@ from pathlib import Path
 import numpy as np
 from PIL import Image
 
+from installed_bytecode import compile_installed
+
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
@@ -120,6 +122,7 @@ def main() -> None:
     ap.add_argument("--folder", type=Path, default=Path(tempfile.gettempdir()) / "quantize-bench-batch")
     ap.add_argument("--doc", type=Path, default=ROOT / "docs" / "benchmarks_batch.md")
     a = ap.parse_args()
+    compile_installed()  # time what an installed copy runs (installed_bytecode.py)
 
     src = a.folder / f"in-{a.width}x{a.height}"
     t0 = time.perf_counter()

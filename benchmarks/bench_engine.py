@@ -30,6 +30,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from installed_bytecode import compile_installed
 
 RUNNERS = {
     "quantize": """
@@ -123,6 +124,7 @@ def main():
     ap.add_argument("--out", default="bench-out")
     ap.add_argument("--quick", action="store_true", help="smaller photos, fewer repeats")
     args = ap.parse_args()
+    compile_installed()  # time what an installed copy runs (installed_bytecode.py)
     out = Path(args.out)
     out.mkdir(exist_ok=True)
     repeats = 1 if args.quick else 5

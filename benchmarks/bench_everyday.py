@@ -54,6 +54,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from installed_bytecode import compile_installed
 
 MEDIAN_CUT = """
 import sys
@@ -266,6 +267,7 @@ def main():
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--out", default="bench-out/everyday")
     args = ap.parse_args()
+    compile_installed()  # time what an installed copy runs (installed_bytecode.py)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     sizes = [0.3, 1] if args.quick else [0.3, 1, 4, 12, 24]
