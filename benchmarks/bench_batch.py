@@ -8,6 +8,7 @@ worker side by side.  Writes docs/benchmarks_batch.md.
 
     /work/venv/bin/python benchmarks/bench_batch.py               # 200 images
     /work/venv/bin/python benchmarks/bench_batch.py --images 40   # when time is short
+    /work/venv/bin/python benchmarks/bench_batch.py --kernels     # a worker's fits: numpy vs compiled CIEDE2000
 
 Peak memory per worker is the largest ``ru_maxrss`` a worker reported after
 an image (``resource.getrusage(RUSAGE_SELF)`` inside the worker, recorded in
@@ -110,6 +111,65 @@ def run(src: Path, out: Path, workers: int, k, restarts: int, palette):
     }
 
 
+#: What one worker-like process runs for ``--kernels``: every photo of a folder fitted in turn.
+_FITS = """
+import sys, warnings
+from pathlib import Path
+warnings.simplefilter("ignore")
+from quantize.fit.engine import fit_palette
+k = None if sys.argv[2] == "default" else sys.argv[2]
+for p in sorted(Path(sys.argv[1]).glob("*.jpg")):
+    pal = fit_palette(p, k, threads=False, compiled_always=sys.argv[3] == "1")
+    print(p.name, " ".join(pal.hex))
+"""
+
+
+def sample_photos(folder: Path) -> Path:
+    """scikit-image's colour sample photos as JPEGs (quality 90) in ``folder``."""
+    import skimage.data
+
+    folder.mkdir(parents=True, exist_ok=True)
+    for name in ("astronaut", "chelsea", "coffee", "rocket", "immunohistochemistry", "hubble_deep_field",
+                 "stereo_motorcycle", "colorwheel"):
+        p = folder / f"{name}.jpg"
+        if not p.exists():
+            img = getattr(skimage.data, name)()
+            img = img[0] if isinstance(img, tuple) else img
+            Image.fromarray(img[..., :3]).save(p, quality=90)
+    return folder
+
+
+def compare_kernels(folder: Path, ks, reps: int) -> None:
+    """CPU of a batch worker's fits with numpy CIEDE2000 below the size threshold against compiled at every
+    size (``FitSettings.compiled_always``, what a batch sets), in fresh processes (the compiled loops' load
+    counted), alternating, medians; and whether the palettes agree."""
+    import resource
+    import statistics
+    import subprocess
+
+    def once(k, flag):
+        r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        out = subprocess.run([sys.executable, "-c", _FITS, str(folder), k, flag], check=True, capture_output=True,
+                             text=True, env=dict(os.environ, PYTHONPATH=str(ROOT))).stdout
+        r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        return (r1.ru_utime - r0.ru_utime) + (r1.ru_stime - r0.ru_stime), out
+
+    n = len(list(folder.glob("*.jpg")))
+    print(f"{n} photos in {folder}, one process per run, fits on one thread; medians of {reps}")
+    for k in ks:
+        once(k, "1")  # compile or load the cache first
+        cpu: dict = {"0": [], "1": []}
+        pals = {}
+        for _ in range(reps):
+            for flag in ("0", "1"):
+                t, pals[flag] = once(k, flag)
+                cpu[flag].append(t)
+        a, b = statistics.median(cpu["0"]), statistics.median(cpu["1"])
+        same = sum(x == y for x, y in zip(pals["0"].splitlines(), pals["1"].splitlines()))
+        print(f"-k {k}: numpy below the threshold {a:.2f} s CPU, compiled at every size {b:.2f} s "
+              f"({b / a:.2f} x); the same palette for {same} of {n} photos; load average {os.getloadavg()[0]:.1f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--images", type=int, default=200)
@@ -121,8 +181,14 @@ def main() -> None:
                     help="fit a palette per image, or map every image onto one saved palette")
     ap.add_argument("--folder", type=Path, default=Path(tempfile.gettempdir()) / "quantize-bench-batch")
     ap.add_argument("--doc", type=Path, default=ROOT / "docs" / "benchmarks_batch.md")
+    ap.add_argument("--kernels", action="store_true",
+                    help="only compare a worker's fits with numpy and compiled CIEDE2000 (scikit-image photos)")
+    ap.add_argument("--reps", type=int, default=3)
     a = ap.parse_args()
     compile_installed()  # time what an installed copy runs (installed_bytecode.py)
+    if a.kernels:
+        compare_kernels(sample_photos(a.folder / "photos"), ("8", "default"), a.reps)
+        return
 
     src = a.folder / f"in-{a.width}x{a.height}"
     t0 = time.perf_counter()

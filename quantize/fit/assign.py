@@ -37,11 +37,14 @@ def resolve_metric(metric: str | None, dither: str = "none") -> str:
     return check_metric(metric)
 
 
-def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, np.ndarray]:
+def map_sample(sample, palette, *, metric: str = "space", compiled_always: bool = False
+               ) -> tuple[np.ndarray, np.ndarray]:
     """Map the distinct colours of a sample onto a palette.
 
     A mapping the fit kept with the sample for this palette and metric
     (:meth:`ColourSample.keep_mapping`) is returned as it is.
+    ``compiled_always`` runs the compiled CIEDE2000 loops whatever the size
+    (:func:`quantize.kernels.nearest.nearest_ciede2000`).
 
     Returns
     -------
@@ -55,6 +58,6 @@ def map_sample(sample, palette, *, metric: str = "space") -> tuple[np.ndarray, n
         return kept
     lab = sample.points("lab")
     if metric == "ciede2000":
-        return nearest_ciede2000(lab, palette.lab)
+        return nearest_ciede2000(lab, palette.lab, compiled_always=compiled_always)
     labels = assign_nearest(sample.points(palette.space), palette.points())[0]
-    return labels, ciede2000_to(lab, palette.lab, labels)
+    return labels, ciede2000_to(lab, palette.lab, labels, compiled_always=compiled_always)

@@ -203,19 +203,19 @@ def _to_palette(centres, fixed_rgb8, space, locked_n, centre_space=None):
     return Palette(rgb8=rgb[keep], locked=np.arange(len(rgb))[keep] < locked_n, space=space), keep.size < len(rgb)
 
 
-def _binned_delta_e(sample, pal, metric):
+def _binned_delta_e(sample, pal, metric, compiled_always=False):
     """ΔE00 of every cell of the refinement grid to its palette colour."""
     from quantize.kernels.nearest import assign_nearest, ciede2000_to, nearest_ciede2000
 
     lab = sample.binned("lab", bits=None)[0]
     if metric == "ciede2000":
-        return nearest_ciede2000(lab, pal.lab)[1]
+        return nearest_ciede2000(lab, pal.lab, compiled_always=compiled_always)[1]
     labels = assign_nearest(sample.binned(pal.space, bits=None)[0], pal.points())[0]
-    return ciede2000_to(lab, pal.lab, labels)
+    return ciede2000_to(lab, pal.lab, labels, compiled_always=compiled_always)
 
 
 def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000",
-                   refine: str = "robust", others=(), threads: bool = False):
+                   refine: str = "robust", others=(), threads: bool = False, compiled_always: bool = False):
     """Turn k-means centres into the 8-bit palette a job writes (the binned phase).
 
     With ``refine="robust"`` two explicit refinements are tried on the
@@ -255,6 +255,9 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     be needed (about a tenth of a second that may be wasted, on the core
     that would otherwise wait).
 
+    ``compiled_always`` runs every CIEDE2000 measurement on the compiled
+    loops whatever the size (``FitSettings.compiled_always``).
+
     Returns
     -------
     palette, merged, refined
@@ -271,20 +274,21 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     bin_lab = sample.binned("lab", bits=None)[0]
     small = len(centres) <= SECOND_START_K
     kmeans_pal = pal
-    kmeans_cost = float((bin_w * _binned_delta_e(sample, pal, metric)).sum())
+    kmeans_cost = float((bin_w * _binned_delta_e(sample, pal, metric, compiled_always)).sum())
 
     def scored(c, c_space=None):
         """(palette, merged, binned ΔE00 sum) of centres ``c``, or None if rounding merged colours."""
         cpal, cmerged = _to_palette(c, fixed_rgb8, space, m, c_space)
         if cpal.k != kmeans_pal.k:
             return None
-        return cpal, cmerged, float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
+        return cpal, cmerged, float((bin_w * _binned_delta_e(sample, cpal, metric, compiled_always)).sum())
 
     def medians(start):
         from .refine import ciede2000_medians, median_polish
 
         if metric == "ciede2000":
-            return scored(ciede2000_medians(bin_lab, bin_w, start.lab, n_fixed=m, iters=15), "lab")
+            return scored(ciede2000_medians(bin_lab, bin_w, start.lab, n_fixed=m, iters=15,
+                                            compiled_always=compiled_always), "lab")
         return scored(median_polish(bin_pts, bin_w, start.points(space), n_fixed=m))
 
     def robust_branch():
@@ -303,7 +307,8 @@ def refine_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
         from_kmeans = medians(kmeans_pal) if small or threads else None
         alt = alt_medians = None
         if small:
-            alt = _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost)
+            alt = _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kmeans_pal, kmeans_cost,
+                              compiled_always)
             alt_medians = medians(alt) if alt is not None else None
         robust, from_robust = robust_job.result()
 
@@ -350,14 +355,14 @@ def _second_thread(enabled: bool):
         yield pool.submit
 
 
-def _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kept, kept_cost):
+def _best_other(sample, bin_w, others, fixed_rgb8, space, m, metric, kept, kept_cost, compiled_always):
     """The palette of lowest mean ΔE00 among other restarts' centres, if below ``kept_cost``."""
     best, best_cost = None, kept_cost
     for c in others:
         cpal, _ = _to_palette(c, fixed_rgb8, space, m)
         if cpal.k != kept.k or np.array_equal(cpal.rgb8, kept.rgb8):
             continue
-        ccost = float((bin_w * _binned_delta_e(sample, cpal, metric)).sum())
+        ccost = float((bin_w * _binned_delta_e(sample, cpal, metric, compiled_always)).sum())
         if ccost < best_cost:
             best, best_cost = cpal, ccost
     return best
@@ -369,7 +374,7 @@ SECOND_START_K = 8
 
 
 def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ciede2000", refine: str = "robust",
-                   others=(), threads: bool = False):
+                   others=(), threads: bool = False, compiled_always: bool = False):
     """:func:`refine_palette`, then map and measure every distinct colour.
 
     Returns
@@ -381,8 +386,8 @@ def finish_palette(sample, centres, fixed_rgb8, *, space: str, metric: str = "ci
     from .assign import map_sample
 
     pal, merged, refined = refine_palette(sample, centres, fixed_rgb8, space=space, metric=metric, refine=refine,
-                                          others=others, threads=threads)
-    labels, de = map_sample(sample, pal, metric=metric)
+                                          others=others, threads=threads, compiled_always=compiled_always)
+    labels, de = map_sample(sample, pal, metric=metric, compiled_always=compiled_always)
     return pal, merged, labels, de, refined
 
 
@@ -448,13 +453,14 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
         One per size of ``ks``, in order.
     """
     from quantize.colour.spaces import srgb8_to_space
-    from quantize.kernels.nearest import load_for
+    from quantize.kernels.nearest import load_for, sample_runs_compiled
 
     from .warm import warm_coarse, warm_fine
 
     # A job whose final mapping needs the compiled loops loads them first,
     # so that every restart's assignment runs on them too (bit-identical).
-    load_for(sample.n_colours, max(ks))
+    compiled_always = settings.compiled_always or sample_runs_compiled(sample.n_colours)
+    load_for(sample.n_colours, max(ks), always=compiled_always)
     space, m = settings.space, len(settings.locked)
     # FitSettings has turned the seed into an int and checked the seeding's name.
     seed, seeding = cast(int, settings.seed), cast("SeedingName", settings.seeding)
@@ -489,7 +495,8 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             # One size alone refines on two threads; several keep two busy with sizes.
             jobs.append(submit(_finished, sample, k, fine, start, fixed_rgb8, space=space,
                                metric=settings.nearest, refine=settings.refine, others=others,
-                               threads=len(ks) == 1 and settings.threads))
+                               threads=len(ks) == 1 and settings.threads,
+                               compiled_always=compiled_always))
             if progress:
                 progress(k)
         return [job.result() for job in jobs]
@@ -716,7 +723,8 @@ def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
     """``cand`` (fitted on another sample) measured on every distinct colour of ``sample``."""
     from .assign import map_sample
 
-    labels, de = map_sample(sample, cand.palette, metric=cast(str, settings.nearest))  # FitSettings resolved it
+    labels, de = map_sample(sample, cand.palette, metric=cast(str, settings.nearest),  # FitSettings resolved it
+                            compiled_always=settings.compiled_always)
     w = sample.weights
     pts, centres = sample.points(settings.space), cand.palette.points(settings.space)
     inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())

@@ -171,14 +171,16 @@ _FLOOR = 0.3
 
 
 def compass_polish(lab, weights, centres, labels, *, n_fixed: int = 0,
-                   steps=(1.0, 0.5, 0.25), max_rounds: int = 3) -> np.ndarray:
+                   steps=(1.0, 0.5, 0.25), max_rounds: int = 3, compiled_always: bool = False) -> np.ndarray:
     """Compass search on each free centre's sum of ΔE00, labels held fixed.
 
     Every free centre tries a step of ``s`` along +-L*, +-a* and +-b* and
     keeps it if its cluster's pixel-weighted sum of CIEDE2000 falls; when no
     centre moves, the step halves along ``steps``.  Unlike the Weiszfeld
     step this sees the true cost, including how CIEDE2000's weights change
-    with the centre's own chroma and hue.
+    with the centre's own chroma and hue.  ``compiled_always`` runs the
+    compiled CIEDE2000 loops whatever the size
+    (:class:`~quantize.kernels.nearest.CiedeColumns`).
 
     References
     ----------
@@ -195,7 +197,7 @@ def compass_polish(lab, weights, centres, labels, *, n_fixed: int = 0,
     """
     from quantize.kernels.nearest import CiedeColumns
 
-    return _compass(CiedeColumns(lab), np.asarray(weights, dtype=np.float64), centres,
+    return _compass(CiedeColumns(lab, compiled_always=compiled_always), np.asarray(weights, dtype=np.float64), centres,
                     np.asarray(labels, dtype=np.intp), n_fixed, steps, max_rounds)
 
 
@@ -238,7 +240,7 @@ def _compass(cols, w, centres, labels, n_fixed, steps, max_rounds):
 
 
 def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8,
-                      rtol: float = 1e-4, polish=(1.0, 0.5)) -> np.ndarray:
+                      rtol: float = 1e-4, polish=(1.0, 0.5), compiled_always: bool = False) -> np.ndarray:
     """Weighted k-medians under CIEDE2000: lower the pixel-weighted sum of ΔE00.
 
     Alternates two steps, neither of which can raise the sum:
@@ -266,6 +268,10 @@ def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8
     iters : int, default=8
     rtol : float, default=1e-4
     polish : sequence of float, default=(1.0, 0.5)
+    compiled_always : bool, default=False
+        Run the compiled CIEDE2000 loops whatever the size
+        (:class:`~quantize.kernels.nearest.CiedeColumns`); the result agrees
+        with the default's to rounding, not bit for bit.
 
     Returns
     -------
@@ -292,7 +298,7 @@ def ciede2000_medians(lab, weights, centres, *, n_fixed: int = 0, iters: int = 8
     """
     from quantize.kernels.nearest import CiedeColumns
 
-    cols = CiedeColumns(lab)
+    cols = CiedeColumns(lab, compiled_always=compiled_always)
     lab = cols.lab
     w = np.asarray(weights, dtype=np.float64)
     c = np.array(centres, dtype=np.float64)

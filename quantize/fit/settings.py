@@ -102,6 +102,21 @@ class FitSettings:
         other, several sizes' refinements beside the next fit).  The results
         are the same either way; a caller that already keeps every core
         busy (a batch with one worker process per core) turns it off.
+    compiled_always : bool, default=False
+        Measure CIEDE2000 with the compiled loops at every size.  By default
+        a fit's CIEDE2000 runs on numpy below
+        :data:`quantize.kernels.nearest.COMPILED_FROM` point-palette pairs,
+        so that one small file never loads the compiler (about half a
+        second and 100 MB); a process that fits many images (a batch
+        worker, a batch's shared palette) pays that once and then fits
+        each image for about a quarter less CPU.  The palette then
+        depends on this setting, the image and the seed alone, never on
+        timing, load or the number of workers; it agrees with the
+        default's to rounding, not bit for bit by construction: the two
+        paths round ΔE00 differently (the numpy k-medians in float32), and
+        a near tie, within the last bits of a ΔE00, may go either way.  A
+        sample of 2^18 distinct colours or more runs compiled whatever
+        this says (:func:`quantize.kernels.nearest.sample_runs_compiled`).
 
     Raises
     ------
@@ -133,6 +148,7 @@ class FitSettings:
     kind: str = "auto"
     threads: bool = True
     for_dither: bool = False
+    compiled_always: bool = False
 
     def __post_init__(self):
         from quantize.colour.spaces import check_space
@@ -152,12 +168,9 @@ class FitSettings:
         _choice(self.weighting, "weighting", WEIGHTINGS)
         _choice(self.target_stat, "target statistic", TARGET_STATS)
         _choice(self.kind, "image kind", ("auto", "artwork", "continuous tone"))
-        if not isinstance(self.warm, bool):
-            raise ValueError(f"warm must be True or False, got {self.warm!r}")
-        if not isinstance(self.threads, bool):
-            raise ValueError(f"threads must be True or False, got {self.threads!r}")
-        if not isinstance(self.for_dither, bool):
-            raise ValueError(f"for_dither must be True or False, got {self.for_dither!r}")
+        for name in ("warm", "threads", "for_dither", "compiled_always"):
+            if not isinstance(getattr(self, name), bool):
+                raise ValueError(f"{name} must be True or False, got {getattr(self, name)!r}")
         if self.target is not None:
             if isinstance(self.target, bool) or not isinstance(self.target, (int, float)) or not self.target > 0 \
                     or self.target == float("inf"):

@@ -96,7 +96,8 @@ def sweep_sample(sample, ks: Sequence[int], settings: FitSettings | None = None,
     metric = cast(str, settings.nearest)
     for c, score in zip(cands, choices["bic"].scores):
         pal = Palette(c.palette.rgb8, c.palette.locked, settings.space)
-        per = {src: delta_e_stats(map_sample(smp, pal, metric=metric)[1], smp.weights)
+        per = {src: delta_e_stats(map_sample(smp, pal, metric=metric, compiled_always=settings.compiled_always)[1],
+                                  smp.weights)
                for src, smp in per_image}
         rows.append(SweepRow(k=c.k, palette=pal, cost=c.inertia, delta_e=c.delta_e, robust=c.robust,
                              score=float(score), start=c.start, coverage=c.coverage, per_image=per))

@@ -21,8 +21,9 @@ import numpy as np
 from . import vectorised
 from .loading import compiled, run_blocks
 
-__all__ = ["COMPILED_FROM", "uses_compiled", "load_for", "assign_nearest", "assign_nearest_numpy", "LloydAssigner",
-           "centre_sums", "nearest_ciede2000", "ciede2000_to", "CiedeColumns"]
+__all__ = ["COMPILED_FROM", "NEAREST_SIZE_FLOOR", "uses_compiled", "sample_runs_compiled", "load_for",
+           "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums", "nearest_ciede2000",
+           "ciede2000_to", "CiedeColumns"]
 
 #: Point-palette pairs from which a call runs the compiled loops (2^21, about
 #: two million).  Below, numpy takes less time than loading the compiler
@@ -52,6 +53,23 @@ def uses_compiled(n: int, k: int) -> bool:
     return n * k >= COMPILED_FROM
 
 
+def sample_runs_compiled(n_colours: int) -> bool:
+    """Whether a fit to ``n_colours`` distinct colours runs every CIEDE2000 compiled (size alone).
+
+    From 2^18 colours (:data:`NEAREST_SIZE_FLOOR`) the sample's own mapping
+    runs the compiled loops at every palette size, so the fit loads them
+    anyway; its refinements' many small CIEDE2000 measurements on the binned
+    sample then run compiled too (``FitSettings.compiled_always``).  On
+    numpy they cost a 2..16 sweep of the 12 MP photo about 15 % more CPU
+    with both cores busy, where the compiled loops release the interpreter
+    lock and numpy's many small calls contend for it
+    (benchmarks/compare_sweep_trees.py).  The choice depends on the sample
+    alone, so a palette size fitted alone or within a range, on a busy or
+    idle machine, gives the same palette.
+    """
+    return uses_compiled(n_colours, NEAREST_SIZE_FLOOR)
+
+
 def _nearest_compiled(n: int, k: int) -> bool:
     """Whether a nearest-colour search of ``n`` colours among ``k`` runs the compiled loops (size alone)."""
     return uses_compiled(n, max(k, NEAREST_SIZE_FLOOR))
@@ -70,14 +88,15 @@ def _euclid_compiled(n: int, k: int) -> bool:
     return n * k >= COMPILED_FROM or f"{__package__}.engine_loops" in sys.modules
 
 
-def load_for(n: int, k: int) -> None:
+def load_for(n: int, k: int, *, always: bool = False) -> None:
     """Load the compiled loops now if a job on ``n`` distinct colours and ``k`` palette colours will need them.
 
     A fit calls this first: a job whose final mapping will run the compiled
-    loops anyway (:func:`uses_compiled`) then runs its restarts' Euclidean
-    assignments on them too.  The choice is by size alone.
+    loops anyway (:func:`uses_compiled`), or that runs its CIEDE2000
+    compiled at every size (``always``), then runs its restarts' Euclidean
+    assignments on them too.  The choice is by size and ``always`` alone.
     """
-    if _nearest_compiled(n, k):
+    if always or _nearest_compiled(n, k):
         compiled("engine_loops")
 
 
@@ -237,8 +256,15 @@ def centre_sums(points: np.ndarray, weights: np.ndarray, labels: np.ndarray, k: 
     return wsum, sums
 
 
-def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray, *, compiled_always: bool = False
+                      ) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest palette colour of every CIELAB colour by CIEDE2000.
+
+    The compiled loops run from :data:`COMPILED_FROM` pairs (the palette
+    counted as at least :data:`NEAREST_SIZE_FLOOR` colours), or at every
+    size with ``compiled_always`` (a process that fits many images).  The
+    two paths agree to rounding, not bit for bit: a near tie, within the
+    last bits of a ΔE00, may go to either colour.
 
     Returns
     -------
@@ -250,7 +276,7 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray,
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     if lab.shape[0] == 0:
         return np.empty(0, dtype=np.intp), np.empty(0)
-    if not _nearest_compiled(len(lab), len(pal_lab)):
+    if not (compiled_always or _nearest_compiled(len(lab), len(pal_lab))):
         return vectorised.nearest_ciede2000(lab, pal_lab)
     labels = np.empty(lab.shape[0], dtype=np.intp)
     de = np.empty(lab.shape[0], dtype=np.float64)
@@ -265,13 +291,14 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray) -> tuple[np.ndarray,
     return labels, de
 
 
-def ciede2000_to(lab: np.ndarray, pal_lab: np.ndarray, labels: np.ndarray) -> np.ndarray:
-    """CIEDE2000 of every CIELAB colour to the palette colour ``labels`` names."""
+def ciede2000_to(lab: np.ndarray, pal_lab: np.ndarray, labels: np.ndarray, *,
+                 compiled_always: bool = False) -> np.ndarray:
+    """CIEDE2000 of every CIELAB colour to the palette colour ``labels`` names (paths as :func:`nearest_ciede2000`)."""
     lab = np.ascontiguousarray(lab, dtype=np.float64)
     pal_lab = np.ascontiguousarray(pal_lab, dtype=np.float64)
     labels = np.ascontiguousarray(labels, dtype=np.intp)
     n = lab.shape[0]
-    if not uses_compiled(n, 1):
+    if not (compiled_always or uses_compiled(n, 1)):
         de = np.empty(n)
         for lo in range(0, n, vectorised.BLOCK):
             hi = min(n, lo + vectorised.BLOCK)
@@ -294,44 +321,61 @@ class CiedeColumns:
     them, so on the numpy path the colours are held once as contiguous
     float32 columns, which numpy processes about three times as fast as the
     rows of a float64 array.  Where a call's size picks the compiled loops
-    (:func:`uses_compiled`), they run in float64 as elsewhere.  Either way
-    the path depends on the sizes alone, so results never depend on timing.
-    The palette a job writes is still mapped and measured in float64
+    (:func:`uses_compiled`), or at every size with ``compiled_always``,
+    they run in float64 as elsewhere.  Either way the path depends on the
+    sizes and that choice alone, so results never depend on timing.  The
+    palette a job writes is still mapped and measured in float64
     (:func:`nearest_ciede2000`).
 
     Parameters
     ----------
     lab : ndarray of shape (n, 3)
         Clean CIELAB colours, float64.
+    compiled_always : bool, default=False
+        Run the compiled loops whatever the size.
     """
 
-    def __init__(self, lab: np.ndarray) -> None:
+    def __init__(self, lab: np.ndarray, *, compiled_always: bool = False) -> None:
         self.lab = np.ascontiguousarray(lab, dtype=np.float64)
         self.n = self.lab.shape[0]
-        L, a, b = (np.ascontiguousarray(self.lab[:, t], dtype=np.float32) for t in range(3))
-        self._columns: tuple[np.ndarray, np.ndarray, np.ndarray] = (L, a, b)
+        self.compiled_always = compiled_always
+        # The float32 columns serve the numpy path only.
+        self._columns_: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+
+    @property
+    def _columns(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if self._columns_ is None:
+            L, a, b = (np.ascontiguousarray(self.lab[:, t], dtype=np.float32) for t in range(3))
+            self._columns_ = (L, a, b)
+        return self._columns_
 
     def subset(self, rows: np.ndarray) -> "CiedeColumns":
         """The colours ``rows`` (indices), held the same way."""
         out = CiedeColumns.__new__(CiedeColumns)
         out.lab = self.lab[rows]
         out.n = out.lab.shape[0]
-        L, a, b = self._columns
-        out._columns = (L[rows], a[rows], b[rows])
+        out.compiled_always = self.compiled_always
+        out._columns_ = None
+        if self._columns_ is not None:
+            L, a, b = self._columns_
+            out._columns_ = (L[rows], a[rows], b[rows])
         return out
+
+    def _compiled(self, k: int) -> bool:
+        return self.compiled_always or uses_compiled(self.n, k)
 
     def nearest(self, centres: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Nearest of ``centres`` (k, 3) by CIEDE2000 for every colour: labels and ΔE00 (float64)."""
         if self.n == 0:
             return np.empty(0, dtype=np.intp), np.empty(0)
-        if uses_compiled(self.n, len(centres)):
-            return nearest_ciede2000(self.lab, centres)
+        if self._compiled(len(centres)):
+            return nearest_ciede2000(self.lab, centres, compiled_always=True)
         labels, de = vectorised.nearest_ciede2000_columns(*self._columns, np.asarray(centres, dtype=np.float64))
         return labels, de.astype(np.float64)
 
     def to(self, centres: np.ndarray, labels: np.ndarray) -> np.ndarray:
         """CIEDE2000 of every colour to the centre ``labels`` names (float64)."""
-        if uses_compiled(self.n, 1):
-            return ciede2000_to(self.lab, centres, labels)
+        if self._compiled(1):
+            return ciede2000_to(self.lab, centres, labels, compiled_always=True)
         return vectorised.ciede2000_to_columns(*self._columns, np.asarray(centres, dtype=np.float64),
                                                labels).astype(np.float64)
