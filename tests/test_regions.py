@@ -122,6 +122,23 @@ def test_the_grid_operations_agree_with_scipy_ndimage():
     np.testing.assert_allclose(r._gaussian(x, 1.0), ndi.gaussian_filter(x, 1.0, mode="reflect"), atol=1e-12)
     np.testing.assert_array_equal(r._window_range(x, 5),
                                   ndi.maximum_filter(x, 5, mode="nearest") - ndi.minimum_filter(x, 5, mode="nearest"))
+    for shape in [(1, 1), (2, 7), (3, 3), (40, 57)]:  # down to pictures smaller than the window
+        y = rng.random(shape)
+        np.testing.assert_array_equal(r._window_range(y, 5), ndi.maximum_filter(y, 5, mode="nearest")
+                                      - ndi.minimum_filter(y, 5, mode="nearest"))
+        m = rng.random(shape) < 0.7
+        # Erosion with the 3 x 3 square, outside counting as inside (scipy's border_value=1).
+        np.testing.assert_array_equal(r._erode(m, r._SQUARE),
+                                      ndi.binary_erosion(m, np.ones((3, 3)), border_value=1))
+        # Growth into allowed pixels, one 8-neighbour step at a time: each pixel takes the
+        # largest label around it; scipy's grey dilation (3 x 3) is that step.
+        labels = np.where(rng.random(shape) < 0.1, rng.integers(1, 5, shape), 0).astype(np.int32)
+        allowed = rng.random(shape) < 0.8
+        ref = labels.copy()
+        for _ in range(2):
+            grown = ndi.grey_dilation(ref, size=(3, 3), mode="constant", cval=0)
+            ref = np.where((ref == 0) & allowed, grown, ref)
+        np.testing.assert_array_equal(r._grow(labels, allowed, 2), ref)
 
 
 @pytest.mark.parametrize("blur", [0.0, 1.0, 2.0])
@@ -229,3 +246,49 @@ def test_the_analysis_is_kept_with_the_picture_and_run_once(monkeypatch):
     assert len(calls) == 1
     regions.find_regions(pic, structures=False)  # other settings: analysed again
     assert len(calls) == 2
+
+
+def _half_placed_line_and_its_twin(with_pure_ink):
+    """Two pictures with the same pixels and different inks (issue 14, the 1 px line half on two pixels).
+
+    One is a 1 px line of ink X centred on the boundary between rows 100 and
+    101, so that a box filter (the anti-aliasing of a drawing program at 1
+    sample per 1/4 px, or any area-averaging resample) puts half of it on
+    each: both rows hold the 50 % blend of X and the ground, in encoded sRGB.
+    The other is a 2 px line on rows 100-101 in an ink Y that is that blend.
+    ``with_pure_ink`` adds a flat patch of X to both, so that the blend is
+    a mix of two inks the picture holds.  Returns (pixels of the first,
+    pixels of the second, X, Y).
+    """
+    ground, x_ink = np.array([245, 240, 230]), np.array([20, 40, 160])
+    y_ink = np.rint((ground + x_ink) / 2.0).astype(np.uint8)  # box filter: half of each, rounded
+    first = np.tile(ground.astype(np.uint8), (200, 200, 1))
+    if with_pure_ink:
+        first[150:190, 10:60] = x_ink
+    second = first.copy()
+    # First: each row the line half covers takes the mean of the ink and the ground.
+    first[100:102, 20:180] = np.rint((ground + x_ink) / 2.0).astype(np.uint8)
+    # Second: a line 2 px wide, drawn whole, in its own ink.
+    second[100:102, 20:180] = y_ink
+    return first, second, x_ink.astype(np.uint8), y_ink
+
+
+@pytest.mark.parametrize("with_pure_ink", [False, True], ids=["blend-alone", "blend-of-two-present-inks"])
+def test_a_1px_line_half_on_two_pixels_is_the_same_picture_as_a_2px_line_of_its_blend(with_pure_ink):
+    # The evidence that this case of issue 14 cannot be decided from the pixels:
+    # two drawings with different inks give identical files, so any analysis
+    # gives them one answer and one of the two truths is not met.  What the
+    # rule answers (docs/method.md 6a): with ink X held pure elsewhere, the
+    # blend is a mix of two present inks bordered by one of them (a thin line
+    # of X), so no ink; alone, a 2 px line of an ink of its own.
+    first, second, x_ink, y_ink = _half_placed_line_and_its_twin(with_pure_ink)
+    assert np.array_equal(first, second)
+    regions = [find_regions(Picture(p)) for p in (first, second)]
+    assert np.array_equal(regions[0].lab, regions[1].lab) and np.array_equal(regions[0].area, regions[1].area)
+    blend_found = bool((_nearest_de(_big(regions[0])[0], _ink_lab([y_ink])) < 2.0).any())
+    # The blend is 50 % of X and the ground in encoded sRGB; colour-science's
+    # CIEDE2000 puts it far from both (so it is a colour a printer would count).
+    assert _nearest_de(_ink_lab([y_ink]), _ink_lab([x_ink, (245, 240, 230)])).min() > 10.0
+    # Right for the 2 px line of Y, wrong for the half-placed 1 px line (a colour invented) ...
+    # ... or, with X present, right for the 1 px line and wrong for the 2 px line (its ink lost).
+    assert blend_found is (not with_pure_ink)

@@ -29,7 +29,8 @@ inside.  :func:`find_regions` separates the two:
    smoothed colour is :data:`UNEXPLAINED_DE` from every flat colour and
    that are no seam, a mix of the colours on either side of them.  A spot
    is kept if its colour is that far from every flat colour, a stroke if it
-   is that far from every mix of flat colours.  A stroke narrower than
+   is that far from every mix of flat colours (its smoothed colour, from
+   every mix of the flat colours beside it: :func:`_sides`).  A stroke narrower than
    :data:`PRINTABLE_WIDTH` (a line too thin to print, whose ink no pixel
    holds), or within :data:`LINE_MIX_DE` of a mix of such a line's colour
    and its ground, is no ink (:func:`_unprintable_lines`).  They add no
@@ -69,7 +70,7 @@ __all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN
            "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
            "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS", "INTERIOR_SHARE", "INTERIOR_REACH", "INTERIOR_RIM",
            "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE", "BLEED_CHROMA_SHIFT", "PRINTABLE_WIDTH",
-           "LINE_MIX_DE"]
+           "LINE_MIX_DE", "SIDE_REACH"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -175,6 +176,10 @@ PRINTABLE_WIDTH = 1.5
 #: blends lay within 1.8 of such a mix; the pieces of 2 and 3 px lines in
 #: their own ink, 4.8 or more.
 LINE_MIX_DE = 3.0
+#: How far (px) from a stroke :func:`_sides` looks for the flat regions on
+#: either side of it: a flat core begins 3-4 px past a blurred edge (the
+#: 5 x 5 window and the smoothing), so a 3 px line's sides lie within 6.
+SIDE_REACH = 8
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
 _WINDOW = 5
@@ -239,14 +244,12 @@ class Regions:
 # than the whole analysis of an everyday file; these are the few it needs.
 
 
-def _shifted(a: np.ndarray, dy: int, dx: int, fill) -> np.ndarray:
-    """``a`` moved so that ``out[y, x] = a[y + dy, x + dx]``, ``fill`` outside."""
-    out = np.full_like(a, fill)
-    h, w = a.shape[:2]
-    ys, yd = (slice(dy, h), slice(0, h - dy)) if dy >= 0 else (slice(0, h + dy), slice(-dy, h))
-    xs, xd = (slice(dx, w), slice(0, w - dx)) if dx >= 0 else (slice(0, w + dx), slice(-dx, w))
-    out[yd, xd] = a[ys, xs]
-    return out
+def _overlap(shape, dy: int, dx: int):
+    """Slices ``(dst, src)`` with ``out[dst]`` the pixels whose ``(y + dy, x + dx)`` lies inside, at ``a[src]``."""
+    h, w = shape[:2]
+    ys, yd = (slice(dy, h), slice(0, max(h - dy, 0))) if dy >= 0 else (slice(0, max(h + dy, 0)), slice(-dy, h))
+    xs, xd = (slice(dx, w), slice(0, max(w - dx, 0))) if dx >= 0 else (slice(0, max(w + dx, 0)), slice(-dx, w))
+    return (yd, xd), (ys, xs)
 
 
 def _gaussian(a: np.ndarray, sigma: float) -> np.ndarray:
@@ -254,39 +257,68 @@ def _gaussian(a: np.ndarray, sigma: float) -> np.ndarray:
     r = int(4 * sigma + 0.5)
     taps = np.exp(-0.5 * (np.arange(-r, r + 1) / sigma) ** 2)
     taps /= taps.sum()
-    out = a
-    for axis in (0, 1):
-        pad = [(0, 0), (0, 0)]
-        pad[axis] = (r, r)
-        padded = np.pad(out, pad, mode="symmetric")
-        n = out.shape[axis]
-        acc = np.zeros_like(out)
+    h, w = a.shape
+    padded = np.pad(a, ((r, r), (0, 0)), mode="symmetric")
+    out = np.empty_like(a, dtype=np.float64)
+    # Down the columns, then along the rows, a band of rows at a time: the
+    # band's sums stay in the cache, and each output is the same sum of the
+    # same products, in the same order, as over the whole picture at once.
+    band = max(1, _BAND_VALUES // max(w, 1))
+    for y0 in range(0, h, band):
+        n = min(band, h - y0)
+        term = np.empty((n, w))
+        down = np.zeros((n, w))
         for i, t in enumerate(taps):
-            acc += t * (padded[i:i + n] if axis == 0 else padded[:, i:i + n])
-        out = acc
+            down += np.multiply(padded[y0 + i:y0 + i + n], t, out=term)
+        row = np.pad(down, ((0, 0), (r, r)), mode="symmetric")
+        across = out[y0:y0 + n]
+        across[:] = 0.0
+        for i, t in enumerate(taps):
+            across += np.multiply(row[:, i:i + w], t, out=term)
     return out
+
+
+#: Values of a band of rows that the blur and the window ranges work on at a
+#: time: 32 768 float64 values, 256 KiB, stay in a core's cache.
+_BAND_VALUES = 32_768
 
 
 def _window_range(a: np.ndarray, size: int) -> np.ndarray:
     """Max minus min of a 2-D array over a ``size x size`` window (edges: the window inside)."""
     r = size // 2
-    hi, lo = a.copy(), a.copy()
-    for axis in (0, 1):
-        h2, l2 = hi.copy(), lo.copy()
-        for d in range(1, r + 1):
+    h, w = a.shape
+    out = np.empty((h, w), dtype=np.result_type(a, np.float64))
+    band = max(1, _BAND_VALUES // max(w, 1))
+    # A band of rows at a time, as the blur: a maximum is exact in any order.
+    for y0 in range(0, h, band):
+        n = min(band, h - y0)
+        s0 = max(y0 - r, 0)
+        block = a[s0:min(y0 + n + r, h)]
+        off = y0 - s0
+        hi = block[off:off + n].copy()
+        lo = hi.copy()
+        for d in range(1, r + 1):  # down the columns: the rows within r that exist
             for sgn in (-d, d):
-                dy, dx = (sgn, 0) if axis == 0 else (0, sgn)
-                np.maximum(h2, _shifted(hi, dy, dx, -np.inf), out=h2)
-                np.minimum(l2, _shifted(lo, dy, dx, np.inf), out=l2)
-        hi, lo = h2, l2
-    return hi - lo
+                i0, i1 = max(0, -(off + sgn)), min(n, len(block) - off - sgn)
+                if i1 > i0:
+                    np.maximum(hi[i0:i1], block[off + sgn + i0:off + sgn + i1], out=hi[i0:i1])
+                    np.minimum(lo[i0:i1], block[off + sgn + i0:off + sgn + i1], out=lo[i0:i1])
+        h2, l2 = hi.copy(), lo.copy()
+        for d in range(1, r + 1):  # along the rows
+            for sgn in (-d, d):
+                dst, src = _overlap((n, w), 0, sgn)
+                np.maximum(h2[dst], hi[src], out=h2[dst])
+                np.minimum(l2[dst], lo[src], out=l2[dst])
+        np.subtract(h2, l2, out=out[y0:y0 + n])
+    return out
 
 
 def _erode(mask: np.ndarray, offsets) -> np.ndarray:
     """Pixels of ``mask`` whose every offset neighbour is in ``mask`` (outside counts as in)."""
     out = mask.copy()
     for dy, dx in offsets:
-        out &= _shifted(mask, dy, dx, True)
+        dst, src = _overlap(mask.shape, dy, dx)
+        out[dst] &= mask[src]
     return out
 
 
@@ -342,10 +374,15 @@ def _grow(labels: np.ndarray, allowed: np.ndarray, steps: int) -> np.ndarray:
         empty = (out == 0) & allowed
         if not empty.any():
             break
-        best = np.zeros_like(out)
-        for dy, dx in _SQUARE:
-            np.maximum(best, _shifted(out, dy, dx, 0), out=best)
-        out[empty] = best[empty]
+        # The largest label of the 3 x 3 square, by columns then rows; an
+        # empty pixel's own 0 changes no maximum, so it is its neighbours'.
+        best = out.copy()
+        np.maximum(best[1:], out[:-1], out=best[1:])
+        np.maximum(best[:-1], out[1:], out=best[:-1])
+        square = best.copy()
+        np.maximum(square[:, 1:], best[:, :-1], out=square[:, 1:])
+        np.maximum(square[:, :-1], best[:, 1:], out=square[:, :-1])
+        np.copyto(out, square, where=empty)
     return out
 
 
@@ -400,25 +437,33 @@ def _neighbour(smooth: np.ndarray, ys: np.ndarray, xs: np.ndarray) -> np.ndarray
 _MIX_WEIGHTS = np.array([(a, b, 20 - a - b) for a in range(21) for b in range(21 - a)], dtype=np.float64) / 20.0
 
 
-def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray) -> np.ndarray:
-    """Every mix of up to three of the largest distinct flat colours: shape (m, 3).
+def _mixes(flat_lab: np.ndarray, flat_count: np.ndarray):
+    """Every mix of up to three of the largest distinct flat colours.
 
     Mixes of encoded sRGB values, as image filters and resamplers average
     them, and of CIELAB values, as the analysis smooths them.  Only the
     :data:`MIX_COLOURS` distinct colours of most pixels take part: the
     number of mixes grows with the cube of the colours, and a photograph
-    has a hundred.
+    has a hundred.  Returns the mixes (m, 3), the three colours each is
+    made of (m, 3; indices into the third value, -1 for a colour of the trio
+    with no weight in the mix) and those colours (n, 3).
     """
     # Regions of one ink count once (3 apart in CIELAB).
     labs = _largest_distinct(flat_lab, flat_count, distance=lambda a, b: float(np.linalg.norm(a - b)))
-    if len(labs) < 3:
-        labs = np.vstack([labs, np.repeat(labs[:1], 3 - len(labs), axis=0)])
-    i, j, k = np.array([(i, j, k) for i in range(len(labs)) for j in range(i + 1, len(labs))
-                        for k in range(j + 1, len(labs))]).T
+    n = len(labs)
+    if n < 3:
+        labs = np.vstack([labs, np.repeat(labs[:1], 3 - n, axis=0)])
+    trios = np.array([(i, j, k) for i in range(len(labs)) for j in range(i + 1, len(labs))
+                      for k in range(j + 1, len(labs))])
+    i, j, k = trios.T
     trio_lab = np.stack([labs[i], labs[j], labs[k]], axis=1)  # (t, 3, 3)
     trio_rgb = clip_to_gamut(lab_to_srgb(trio_lab))
     in_srgb = srgb_to_lab(np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_rgb).reshape(-1, 3))
-    return np.vstack([in_srgb, np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_lab).reshape(-1, 3)])
+    mixes = np.vstack([in_srgb, np.einsum("wa,tac->twc", _MIX_WEIGHTS, trio_lab).reshape(-1, 3)])
+    # The colours a mix holds: those of the trio with a weight (-1 for none).
+    members = np.where(trios < n, trios, 0)[:, None, :] * (_MIX_WEIGHTS[None] > 0) - (_MIX_WEIGHTS[None] == 0)
+    members = np.tile(members.reshape(-1, 3), (2, 1))
+    return mixes, members, labs[:n]
 
 
 def _stroke_width(lab: np.ndarray, pixels: np.ndarray, colour: np.ndarray) -> float:
@@ -472,7 +517,7 @@ def _is_even(colours: np.ndarray) -> bool:
     return float(np.percentile(_weighted_lab_distance(colours, mean), 80)) <= SPOT_SPREAD
 
 
-def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
+def _structures(lab, smooth, opaque, flat_lab, flat_count, region_labels, min_pixels):
     """Coherent structures of a colour no flat region has: small spots and thin strokes.
 
     A pixel counts when its smoothed colour is :data:`UNEXPLAINED_DE` or
@@ -486,8 +531,9 @@ def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
     that is :data:`UNEXPLAINED_DE` from every flat colour.  Otherwise it is
     a stroke of 1-3 px: its colour is the median of its half farthest from
     the flat colours (the pixels the stroke covers most), and it is kept if
-    no mix of three flat colours comes that close.  Returns the
-    label image (0 outside) and the colours.
+    it is no mix of the flat colours (:func:`_stroke_is_mix`; the flat
+    regions' label image ``region_labels`` says what lies beside it).
+    Returns the label image (0 outside) and the colours.
     """
     far = np.full(smooth.shape[:2], np.inf)
     inv_w2 = 1.0 / (1.0 + 0.045 * np.hypot(smooth[..., 1], smooth[..., 2])) ** 2
@@ -529,27 +575,24 @@ def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
         core = own[inner2[own]]
         # A spot holds a disc of radius 2 px inside its seams; a stroke, or
         # the thin tail of a shape, does not.
-        if n_deep[i] >= SPOT_MIN_DEEP and len(core) >= STRUCTURE_MIN_PIXELS and _is_even(lab2[core]):
+        stroke = not (n_deep[i] >= SPOT_MIN_DEEP and len(core) >= STRUCTURE_MIN_PIXELS and _is_even(lab2[core]))
+        if not stroke:
             colour = lab2[core].mean(axis=0)
-            explained_by, tested = flat_lab, colour[None]
+            explained = _weighted_lab_distance(np.broadcast_to(colour, flat_lab.shape), flat_lab).min() < UNEXPLAINED_DE
         else:
             d = far2[own]
             full = own[d >= np.median(d)]
             colour = np.median(lab2[full], axis=0)
-            # Tested as it is and on the smoothed picture, whose noise is
-            # averaged away: either within reach of a mix explains it.
-            tested = np.stack([colour, np.median(smooth2[full], axis=0)])
-            # A blurred sliver of a flat ink between two others is a mix of
-            # the three: a stroke is an ink of its own only if no mix of
-            # three flat colours comes within UNEXPLAINED_DE of it.
-            mixes = _mixes(flat_lab, flat_count) if mixes is None and len(flat_lab) else mixes
-            explained_by = flat_lab if mixes is None else mixes
-        if not len(explained_by) or min(_weighted_lab_distance(np.broadcast_to(t, explained_by.shape),
-                                                              explained_by).min() for t in tested) >= UNEXPLAINED_DE:
+            if mixes is None:
+                mixes = _mixes(flat_lab, flat_count)
+                mix_ink = _ink_of_regions(flat_lab, mixes[2])[region_labels]
+            explained = _stroke_is_mix(colour, np.median(smooth2[full], axis=0), mixes,
+                                       _sides(mix_ink, own))
+        if not explained:
             colours.append(colour)
-            strokes.append(len(tested) > 1)
+            strokes.append(stroke)
             sizes.append(len(own))
-            widths.append(_stroke_width(lab, full, colour) if strokes[-1] else np.inf)
+            widths.append(_stroke_width(lab, full, colour) if stroke else np.inf)
             kept[i] = True
     colours, strokes, sizes = np.asarray(colours).reshape(-1, 3), np.asarray(strokes, bool), np.asarray(sizes, float)
     line = _unprintable_lines(colours, strokes, sizes, np.asarray(widths, np.float64), flat_lab, flat_count)
@@ -559,6 +602,103 @@ def _structures(lab, smooth, opaque, flat_lab, flat_count, min_pixels):
     labels = (np.cumsum(kept) * kept)[labels]
     colours = _one_ink_per_linework(colours, strokes, sizes)
     return labels, colours
+
+
+def _ink_of_regions(flat_lab: np.ndarray, mix_labs: np.ndarray) -> np.ndarray:
+    """For label image values (0 = no region, ``i + 1`` = region ``i``): the mix colour each region is.
+
+    A region is a mix colour when within 3 (CIELAB) of it, as
+    :func:`_largest_distinct` groups them; -1 for a region that is none,
+    -2 where no region is.
+    """
+    d = np.linalg.norm(flat_lab[:, None, :] - mix_labs[None, :, :], axis=2)
+    ink = np.where(d.min(axis=1) < 3.0, d.argmin(axis=1), -1) if len(mix_labs) else np.full(len(flat_lab), -1)
+    return np.concatenate([[-2], ink]).astype(np.intp)
+
+
+#: The diagonal steps of :func:`_sides` are sqrt(2) px long.
+_SIDE_STEPS = ((0, 1, 1.0), (1, 0, 1.0), (1, 1, 2**0.5), (1, -1, 2**0.5))
+
+
+def _sides(ink: np.ndarray, pixels: np.ndarray):
+    """The inks on either side of a stroke: the commonest pair, or None where no flat region is near.
+
+    ``ink`` holds the mix colour of the flat region at each pixel (-1 for a
+    region that is no mix colour, -2 where no region is); ``pixels`` are flat indices of
+    the stroke's pixels.  From each pixel the nearest flat region is looked
+    for in both senses of four directions, up to :data:`SIDE_REACH` px; the
+    direction with both found nearest is across the stroke, and its pair
+    (sorted) is the pixel's.  A seam between inks A and B has A on one side
+    and B on the other along its length; a line through one ground has that
+    ground on both sides.  Returns ``(a, b)`` with ``a <= b``, or None when
+    no pixel has flat regions on both sides or the commonest pair holds a
+    region that is no mix colour (-1).
+    """
+    h, w = ink.shape
+    ys, xs = np.divmod(pixels, w)
+    best = np.full(len(pixels), np.inf)
+    pair = np.full((len(pixels), 2), -1, np.intp)
+    for dy, dx, step in _SIDE_STEPS:
+        hits, dists = [], []
+        for sgn in (-1, 1):
+            hit = np.full(len(pixels), -2, np.intp)
+            dist = np.full(len(pixels), np.inf)
+            for k in range(SIDE_REACH, 0, -1):  # the nearest, written last, wins
+                yy, xx = ys + sgn * k * dy, xs + sgn * k * dx
+                ok = (yy >= 0) & (yy < h) & (xx >= 0) & (xx < w)
+                at = np.full(len(pixels), -2, np.intp)
+                at[ok] = ink[yy[ok], xx[ok]]
+                # -2: no region there; -1: a region that is no mix colour.
+                found = at > -2
+                hit[found], dist[found] = at[found], k * step
+            hits.append(hit)
+            dists.append(dist)
+        total = dists[0] + dists[1]
+        better = total < best
+        best[better] = total[better]
+        pair[better] = np.sort(np.stack([hits[0], hits[1]], axis=1)[better], axis=1)
+    pair = pair[np.isfinite(best)]
+    if not len(pair):
+        return None
+    values, counts = np.unique(pair, axis=0, return_counts=True)
+    a, b = values[np.argmax(counts)]
+    return None if a < 0 else (int(a), int(b))
+
+
+def _stroke_is_mix(colour: np.ndarray, smoothed: np.ndarray, mixes, sides) -> bool:
+    """Whether a stroke is a mix of flat colours, within :data:`UNEXPLAINED_DE`.
+
+    ``colour`` is the stroke's own (the median of the pixels it covers
+    most): a mix of any flat colours explains it, as a blurred sliver of a
+    flat ink between two others is one.  ``smoothed`` is the same on the
+    smoothed picture, whose noise is averaged away but which mixes every
+    stroke with what lies beside it, so only a mix of those colours may
+    explain it (:func:`_sides`).  A seam between inks A and B, or a sliver
+    of a third ink between them, is a mix of A, B and perhaps that third.
+    A stroke with one ground G on both sides is a thin line of a flat ink X
+    over G, a mix of G and X: a line of an ink of its own over G, smoothed,
+    is a mix of G and that ink, and would pass for a mix of G with a flat
+    ink near it, or of two other inks.  Within :data:`LINE_MIX_DE`, as
+    close as the blends of thin lines come, any mix explains the smoothed
+    colour too.  Without flat regions on both sides (``sides`` None) every
+    mix of up to three may explain either.
+    """
+    mix, members, _ = mixes
+    if not len(mix):
+        return False
+    near = mix
+    if sides is not None:
+        a, b = sides
+        holds = (members == a).any(axis=1) & (members == b).any(axis=1)
+        if a == b:
+            holds &= np.count_nonzero(members >= 0, axis=1) <= 2
+        near = mix[holds]
+    def reach(t, m):
+        return float(_weighted_lab_distance(np.broadcast_to(t, m.shape), m).min()) if len(m) else np.inf
+
+    # Within LINE_MIX_DE a smoothed colour is a blend whatever lies beside it.
+    return (reach(colour, mix) < UNEXPLAINED_DE or reach(smoothed, near) < UNEXPLAINED_DE
+            or reach(smoothed, mix) < LINE_MIX_DE)
 
 
 def _unprintable_lines(colours, stroke, size, width, flat_lab, flat_count):
@@ -858,9 +998,9 @@ def _find_regions(picture: Picture, threshold: float, max_pixels: int, structure
 
 def _flat_cores(smooth, opaque, threshold: float):
     """Label the flat cores of a smoothed CIELAB picture: (labels, their number, the flat mask)."""
-    span = np.stack([_window_range(smooth[..., c], _WINDOW) for c in range(3)], axis=-1)
+    span = [_window_range(smooth[..., c], _WINDOW) for c in range(3)]
     weight = 1.0 + 0.045 * np.hypot(smooth[..., 1], smooth[..., 2])
-    spread = np.sqrt(span[..., 0] ** 2 + (span[..., 1] ** 2 + span[..., 2] ** 2) / weight**2)
+    spread = np.sqrt(span[0] ** 2 + (span[1] ** 2 + span[2] ** 2) / weight**2)
     # A transparent pixel is no ink; nor is an opaque one beside it.
     flat = (spread < threshold) & _erode(opaque, _SQUARE)
     labels, n = _label(flat)
@@ -876,7 +1016,10 @@ def _flat_cores(smooth, opaque, threshold: float):
         thick[np.unique(labels[_erode(flat, _SQUARE) & band])] = True
         thick[0] = False
         flat = thick[labels]
-        labels, n = _label(flat)
+        # Whole components dropped: the rest keep their raster order, so a
+        # renumbering is the labelling of the thick cores.
+        labels = (np.cumsum(thick) * thick)[labels]
+        n = int(np.count_nonzero(thick))
     return labels, n, flat
 
 
@@ -910,7 +1053,7 @@ def _with_structures(lab, smooth, opaque, labels, mean, area, centre, scale: int
     """The flat regions with the small spots and thin strokes added after them: (labels, mean, area, centre)."""
     min_pixels = max(STRUCTURE_MIN_PIXELS, int(STRUCTURE_MIN_SHARE * np.count_nonzero(opaque)))
     s_labels, s_lab = _structures(lab, smooth, opaque, np.asarray(mean).reshape(-1, 3),
-                                  np.asarray(area, dtype=np.float64), min_pixels)
+                                  np.asarray(area, dtype=np.float64), labels, min_pixels)
     if not len(s_lab):
         return labels, mean, area, centre
     s_count = np.bincount(s_labels.ravel(), minlength=len(s_lab) + 1)[1:]
