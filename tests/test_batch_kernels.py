@@ -23,8 +23,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import subprocess
-import sys
 from pathlib import Path
 
 import colour
@@ -104,23 +102,6 @@ def test_a_batch_palette_is_the_library_fit_with_compiled_kernels(photos, tmp_pa
             return float(de.min(axis=1).mean())
 
         assert mean_de(library) == pytest.approx(mean_de(default), rel=5e-3)
-
-
-def test_single_file_fits_still_never_load_the_compiler():
-    # In a fresh process: the default fit of a small image imports no numba;
-    # the batch's setting loads the compiled loops on its first fit.
-    code = (
-        "import sys, numpy as np\n"
-        "from quantize import fit_palette\n"
-        "img = np.random.default_rng(7).integers(0, 256, (60, 80, 3)).astype(np.uint8)\n"
-        "a = fit_palette(img, (2, 5), seed=4)\n"
-        "assert 'numba' not in sys.modules\n"
-        "b = fit_palette(img, (2, 5), seed=4, compiled_always=True)\n"
-        "assert 'quantize.kernels.engine_loops' in sys.modules\n"
-        "print(a.k, b.k)\n"
-    )
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=False)
-    assert proc.returncode == 0, proc.stderr
 
 
 def test_the_setting_is_checked():

@@ -213,6 +213,9 @@ def test_a_result_does_not_depend_on_whether_the_compiler_is_loaded():
         "img = rng.integers(0, 256, (60, 80, 3)).astype(np.uint8)\n"
         "before = fit_palette(img, (2, 5), seed=4)\n"
         "assert 'numba' not in sys.modules\n"
+        # A batch's setting (FitSettings.compiled_always) loads the compiled loops whatever the size.
+        "fit_palette(img, (2, 5), seed=4, compiled_always=True)\n"
+        "assert 'quantize.kernels.engine_loops' in sys.modules\n"
         "lab = rng.uniform(0, 60, (1 << 21, 3)); nearest_ciede2000(lab, lab[:8])\n"
         "assert 'numba' in sys.modules\n"
         "after = fit_palette(img, (2, 5), seed=4)\n"

@@ -149,8 +149,8 @@ def _batch_fit(fit):
     """The run's FitSettings as a batch fits with them: CIEDE2000 compiled at every size.
 
     A batch fits many images in each process, so the compiled loops' load
-    (about half a second and 100 MB) is paid once and then saves about a
-    quarter of each fit's CPU (``FitSettings.compiled_always``).  Set for
+    (about half a second and 100 MB) is paid once and then saves CPU on
+    every fit (``FitSettings.compiled_always``; ``benchmarks/bench_batch.py --kernels``).  Set for
     every batch, whatever the number of workers, so that a batch's
     palettes never depend on it; they agree with ``reduce``'s to rounding.
     """

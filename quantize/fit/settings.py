@@ -109,7 +109,7 @@ class FitSettings:
         so that one small file never loads the compiler (about half a
         second and 100 MB); a process that fits many images (a batch
         worker, a batch's shared palette) pays that once and then fits
-        each image for about a quarter less CPU.  The palette then
+        each photo for less CPU (``benchmarks/bench_batch.py --kernels``).  The palette then
         depends on this setting, the image and the seed alone, never on
         timing, load or the number of workers; it agrees with the
         default's to rounding, not bit for bit by construction: the two
