@@ -233,6 +233,10 @@ class FitRecord:
     for_dither : bool
         Whether the palette was fitted for a dither that follows
         (:mod:`quantize.fit.for_dither`); None in files written before it was recorded.
+    compiled_always : bool
+        True where every CIEDE2000 of the fit ran on the compiled loops by
+        request (a batch: ``FitSettings.compiled_always``), so that a refit
+        from the file takes the same path; None otherwise.
     extra : Mapping
         Other keys of the file's ``fit`` object, kept as read (e.g. what a
         separation adds: the ink library, the snapped colours).
@@ -267,6 +271,7 @@ class FitRecord:
     lost: tuple | None = None
     target_met: bool | None = None
     for_dither: bool | None = None
+    compiled_always: bool | None = None
     extra: Mapping = field(default_factory=dict)
 
     def __post_init__(self):

@@ -155,3 +155,23 @@ def test_a_large_sample_fits_compiled_whatever_the_setting(monkeypatch):
     assert len(np.unique(small.reshape(-1, 3), axis=0)) < 1000
     fit_palette(small, 4, seed=11)
     assert calls
+
+
+def test_a_batch_palette_file_refits_the_same_palette_on_the_same_path(photos, tmp_path):
+    # The file records the compiled path (FitRecord.compiled_always), so the
+    # settings read back from it refit the palette bit for bit; a reduce's
+    # file does not carry the key.  The palettes are read back from the JSON
+    # files with the standard library.
+    from quantize.palette import Palette
+
+    res = run_batch(photos, tmp_path / "out", workers=0, k=6, seed=3)
+    assert res.summary["ok"] == len(PHOTOS)
+    path = tmp_path / "out" / "coffee.palette.json"
+    assert json.loads(path.read_text())["fit"]["compiled_always"] is True
+    settings = FitSettings.from_record(Palette.load(path).fit)
+    assert settings.compiled_always is True
+    refit = fit_palette(load_image(photos / "coffee.png"), 6, settings=settings)
+    assert list(refit.hex) == _hex(path)
+    alone = tmp_path / "alone.json"
+    fit_palette(load_image(photos / "coffee.png"), 6, seed=3).save(alone)
+    assert "compiled_always" not in json.loads(alone.read_text())["fit"]

@@ -890,7 +890,7 @@ def _fit_record(sample, ks, chosen: Candidate, cands, scores, settings: FitSetti
         space=settings.space, restarts=settings.restarts, seed=cast(int, settings.seed), seeding=settings.seeding,
         weighting=settings.weighting, nearest=settings.nearest, refine=settings.refine, target=settings.target,
         target_stat=settings.target_stat, warm=settings.warm, locked=tuple(settings.locked), images=tuple(sources),
-        for_dither=settings.for_dither,
+        for_dither=settings.for_dither, compiled_always=settings.compiled_always or None,
         n_pixels=int(sample.n_pixels), n_distinct=int(sample.n_colours), inertia=chosen.inertia,
         refined=chosen.refined, delta_e=chosen.delta_e,
         candidates=tuple(FitCandidate(k=c.palette.k, inertia=c.inertia, delta_e=c.delta_e, robust_error=c.robust,
