@@ -9,6 +9,8 @@ al. 2005 in test_colourspace.py).  Slow; for small images only.
 import numpy as np
 
 from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
+# The library's defaults, so a twin called without them follows the default dither.
+from quantize.render.dither import DEFAULT_HULL_HOLD, DEFAULT_HULL_HOLD_STEP
 
 
 def _choose(target_lin, pal_pts, pal_lab, space, metric, lightness_offset=0.0, allowed=None):
@@ -32,8 +34,20 @@ def _allowed(own_rgb, pal_pts, pal_lab, space, metric, reach):
     return d <= d.min() + reach
 
 
+def _smooth(rgb, clear, y, x, step):
+    """No 4-neighbour of (y, x) but a clear one is more than ``step`` 8-bit codes away in a channel."""
+    h, w = clear.shape
+    for yy, xx in ((y - 1, x), (y + 1, x), (y, x - 1), (y, x + 1)):
+        if 0 <= yy < h and 0 <= xx < w and not clear[yy, xx] and not clear[y, x]:
+            # Rounded to 1e-9 of a code: a 16-bit step of 514 is exactly 2 codes of 255.
+            if np.round(np.abs(rgb[yy, xx] - rgb[y, x]).max() * 255.0, 9) > step:
+                return False
+    return True
+
+
 def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="space", strength=1.0,
-            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf, hull_hold=np.inf):
+            serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf, hull_hold=DEFAULT_HULL_HOLD,
+            hull_hold_step=DEFAULT_HULL_HOLD_STEP):
     """Error diffusion in linear light.
 
     rgb: (H, W, 3) encoded floats; clear: (H, W) bool (transparent);
@@ -43,7 +57,9 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
     is limited to palette colours at most this much further from the pixel's
     own colour than its nearest palette colour; hull_hold: a pixel further
     than this outside the palette's hull (linear light) has its target held
-    within the palette's per-channel range instead of low-high.
+    within the palette's per-channel range instead of low-high, if it is
+    smooth: no 4-neighbour that is not clear differs from it by more than
+    hull_hold_step codes of 255 in any channel (rgb is encoded 0-1).
     """
     mod = np.zeros((1, 1)) if mod is None else mod
     h, w = clear.shape
@@ -58,8 +74,13 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
         from quantize.fit.for_dither import hull_weights
 
         flat = lin.reshape(-1, 3)
-        resid = flat - hull_weights(flat, pal_lin) @ pal_lin
+        # Run far past convergence, so the distance is exact to well under the hold.
+        resid = flat - hull_weights(flat, pal_lin, iterations=20000) @ pal_lin
         far = (np.sqrt((resid**2).sum(axis=1)) > hull_hold).reshape(h, w)
+        for y in range(h):
+            for x in range(w):
+                if far[y, x] and not _smooth(rgb, clear, y, x, hull_hold_step):
+                    far[y, x] = False
 
     def is_open(yy, xx):
         return 0 <= yy < h and 0 <= xx < w and not clear[yy, xx] and pinned[yy, xx] < 0

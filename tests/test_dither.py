@@ -307,15 +307,106 @@ def test_twin_diffusion_with_a_hull_hold(method, space, metric):
     clear = np.zeros(rgb8.shape[:2], bool)
     clear[3, 2:5] = True
     palette, pic, clear, pinned = _arrays(rgb8, pal, clear=clear, space=space)
-    got, _ = qd.dither_indices(pic, palette, method=method, metric=metric, hull_hold=0.01)
+    # Every far pixel held (no smoothness asked): random pixels are rough.
+    got, _ = qd.dither_indices(pic, palette, method=method, metric=metric, hull_hold=0.01,
+                               hull_hold_step=float("inf"))
     want = naive.diffuse(rgb8 / 255.0, clear, pinned, pal, weights=qd.DITHERS[method].weights, space=space,
                          metric=metric, mod=qd.threshold_matrix("blue-noise") - 0.5, mod_amp=DEFAULT_MODULATION,
-                         reach=qd.DEFAULT_REACH, hull_hold=0.01)
+                         reach=qd.DEFAULT_REACH, hull_hold=0.01, hull_hold_step=float("inf"))
     assert_array_equal(got, want)
     free, _ = qd.dither_indices(pic, palette, method=method, metric=metric, hull_hold=float("inf"))
     # Four random colours leave most random pixels outside their hull: the
     # hold changes some choices (else this test could not fail).
     assert (got != free).any()
+
+
+def _smooth_and_rough_case(seed, bits):
+    """Smooth out-of-hull patches beside rough ones, a transparent run, and four palette colours inside the cube."""
+    rng = np.random.default_rng(seed)
+    h, w = 14, 15
+    top = (1 << bits) - 1
+    scale = top / 255.0
+    base = np.array([240.0, 120.0, 40.0]) * scale  # an orange beyond what the palette mixes
+    codes = np.broadcast_to(base, (h, w, 3)).copy()
+    # A smooth run: steps of 1.6 8-bit codes per column (under 2); a 16-bit
+    # picture's steps are 411 of its codes, far above 2 of them.
+    codes[:7, :, 1] += np.arange(w) * 1.6 * scale
+    # A rough run: steps of 2.4 codes per column (above 2).
+    codes[7:, :, 1] += np.arange(w) * 2.4 * scale
+    codes[10:12, 3:9] = rng.integers(0, top + 1, (2, 6, 3))  # texture
+    rgb = np.rint(codes).astype(np.uint8 if bits == 8 else np.uint16)
+    clear = np.zeros((h, w), bool)
+    clear[5, 4:7] = True
+    pal = np.array([[200, 60, 50], [40, 40, 40], [230, 220, 210], [60, 90, 160]], np.uint8)
+    return rgb, clear, pal
+
+
+@pytest.mark.parametrize("bits", [8, 16])
+@pytest.mark.parametrize("method", DIFFUSIONS)
+@pytest.mark.parametrize("space,metric", [("lab", "space"), ("lab", "ciede2000")])
+def test_twin_diffusion_with_a_smooth_hull_hold(bits, method, space, metric):
+    rgb, clear, pal = _smooth_and_rough_case(zlib.crc32(f"smooth{bits}{method}{space}{metric}".encode()), bits)
+    palette = _palette(pal, space=space)
+    alpha = np.where(clear, 0, (1 << bits) - 1).astype(rgb.dtype)
+    pic = Picture(rgb=rgb, alpha=alpha, bit_depth=bits)
+    none = np.full(clear.shape, -1)
+    runs = {}
+    for step in (2.0, float("inf")):
+        got, _ = qd.dither_indices(pic, palette, method=method, metric=metric, hull_hold=0.01,
+                                   hull_hold_step=step)
+        want = naive.diffuse(rgb / float((1 << bits) - 1), clear, none, pal, weights=qd.DITHERS[method].weights,
+                             space=space, metric=metric, hull_hold=0.01, hull_hold_step=step)
+        assert_array_equal(got, want)
+        runs[step] = got
+    free, _ = qd.dither_indices(pic, palette, method=method, metric=metric, hull_hold=float("inf"))
+    # The smooth-only hold differs both from no hold and from holding every
+    # far pixel (else this test could not fail).
+    assert (runs[2.0] != free).any()
+    assert (runs[2.0] != runs[float("inf")]).any()
+
+
+def test_smooth_pixels_counts_codes_on_the_eight_bit_scale_and_ignores_hidden_colours():
+    rng = np.random.default_rng(11)
+    for bits in (8, 16):
+        top = (1 << bits) - 1
+        codes = rng.integers(0, 4 * (top // 255) + 1, (9, 10, 3)).astype(np.uint8 if bits == 8 else np.uint16)
+        clear = rng.random((9, 10)) < 0.2
+        got = qd.smooth_pixels(codes, clear, 2.0, top)
+        # Brute force, in 8-bit code units (a 16-bit code is 1/257 of one).
+        unit = codes / (top / 255.0)
+        want = np.ones((9, 10), bool)
+        for y in range(9):
+            for x in range(10):
+                for yy, xx in ((y - 1, x), (y + 1, x), (y, x - 1), (y, x + 1)):
+                    if 0 <= yy < 9 and 0 <= xx < 10 and not (clear[y, x] or clear[yy, xx]):
+                        want[y, x] &= bool(np.abs(unit[y, x] - unit[yy, xx]).max() <= 2.0 + 1e-9)
+        assert_array_equal(got, want)
+        assert want.any() and not want.all()  # both kinds occur, so the check can fail
+        hidden = codes.copy()
+        hidden[clear] = top  # whatever hides under transparency must not matter
+        assert_array_equal(qd.smooth_pixels(hidden, clear, 2.0, top), got)
+
+
+def test_hull_distance_against_a_converged_projection():
+    from quantize.fit.for_dither import hull_weights
+
+    rng = np.random.default_rng(21)
+    pts = rng.random((300, 3))
+    for vertices in (rng.random((7, 3)) * 0.8 + 0.1,  # a solid hull: facets
+                     np.linspace(0.1, 0.9, 4)[:, None].repeat(3, axis=1)):  # a grey line: no solid hull
+        got = qd.hull_distance(pts, vertices)
+        # Reference: the accelerated projected gradient run far past
+        # convergence (Beck & Teboulle 2009), a different route to the same point.
+        resid = pts - hull_weights(pts, vertices, iterations=20000) @ vertices
+        assert_allclose(got, np.sqrt((resid**2).sum(axis=1)), atol=1e-6)
+        assert (got == 0).any() == (vertices.shape[0] == 7)  # some inside a solid hull; none on a line
+        assert (got > 0.05).any()
+
+
+@pytest.mark.parametrize("bad", [-0.1, float("nan"), "x"])
+def test_hull_hold_step_is_refused_when_negative(bad):
+    with pytest.raises(ValueError, match="hull hold step"):
+        qd.check_hull_hold_step(bad)
 
 
 @pytest.mark.parametrize("bad", [-0.1, float("nan"), "x"])
@@ -748,10 +839,12 @@ def test_a_reach_removes_the_dark_speckles_in_the_orange_of_the_dusk_sky():
         # at least 25 L* off, a dark dot on a light ground.
         return float((srgb_to_lab(result.rgb / 255.0)[..., 0][orange] < 30).mean())
 
-    free = qd.dither_picture(img, pal, method="floyd-steinberg")
-    near = qd.dither_picture(img, pal, method="floyd-steinberg", reach=40.0)
-    # Unrestricted diffusion (the default) reproduces the issue (measured
-    # 1.8 %); a reach of 40 leaves under 0.1 %, a twentieth of it (our threshold).
+    # The reach alone, without the hull hold (tests/test_dither_hold.py).
+    free = qd.dither_picture(img, pal, method="floyd-steinberg", hull_hold=float("inf"))
+    near = qd.dither_picture(img, pal, method="floyd-steinberg", reach=40.0, hull_hold=float("inf"))
+    # Unrestricted diffusion with no hold (the default until the hold)
+    # reproduces the issue (measured 1.8 %); a reach of 40 leaves under
+    # 0.1 %, a twentieth of it (our threshold).
     assert speckles(free) > 0.01
     assert speckles(near) < 0.001
     # Over the whole picture the result is also closer to the original as
@@ -790,8 +883,11 @@ def test_a_hull_hold_removes_the_rim_below_a_sun(h, w):
     def rim(result):
         return float(delta_e_ciede2000(local_mean(img), local_mean(result.rgb))[hill].max())
 
-    free = qd.dither_picture(img, pal, method="floyd-steinberg")
-    held = qd.dither_picture(img, pal, method="floyd-steinberg", hull_hold=0.01)
+    free = qd.dither_picture(img, pal, method="floyd-steinberg", hull_hold=float("inf"))
+    # Smooth pixels up to 2 codes apart: this made sky is steeper than the
+    # default's 1 code per pixel (with it, measured: the 200 x 300 hill's
+    # worst local mean only drops from 32 to 20).
+    held = qd.dither_picture(img, pal, method="floyd-steinberg", hull_hold=0.01, hull_hold_step=2.0)
     # Unheld, the error the sun's out-of-hull colours pile up is dumped into
     # the hill below them as a dark blue patch (measured: local means 32-33
     # ΔE00 off); held, the hill's worst local mean is under half of that.

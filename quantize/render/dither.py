@@ -67,6 +67,7 @@ __all__ = [
     "CLUSTERED_CELL",
     "CLUSTERED_MIN_DOT",
     "DEFAULT_HULL_HOLD",
+    "DEFAULT_HULL_HOLD_STEP",
     "DEFAULT_REACH",
     "DITHERS",
     "DitherArrays",
@@ -76,12 +77,15 @@ __all__ = [
     "cache_dir",
     "check_dither",
     "check_hull_hold",
+    "check_hull_hold_step",
     "check_reach",
     "check_strength",
     "clustered_dot_matrix",
     "clustered_dot_size_mm",
     "dither_indices",
     "dither_picture",
+    "hull_distance",
+    "smooth_pixels",
     "threshold_matrix",
 ]
 
@@ -103,15 +107,27 @@ def check_reach(reach) -> float:
                          "dither reach must be a positive number of L* units or inf")
 
 
-#: Error diffusion's hold on colours outside the palette's hull: a pixel whose
-#: own colour lies further than this (linear light, Euclidean) outside the
-#: hull has its diffusion target held within the palette's per-channel range,
-#: so error that no palette mix can discharge does not pile up there.
-#: ``inf`` (off) by default: 0.01 removes the dark speckles and the dark rim
-#: of the dusk sample and lowers its filtered ΔE00, but raises the filtered
-#: ΔE00 of scikit-image's coffee photograph at 16 colours above the tool's
-#: earlier result (docs/dithering.md, "Colours outside the hull").
-DEFAULT_HULL_HOLD = float("inf")
+#: Error diffusion's hold on colours outside the palette's hull: a smooth
+#: pixel (see :data:`DEFAULT_HULL_HOLD_STEP`) whose own colour lies further
+#: than this (linear light, Euclidean) outside the hull has its diffusion
+#: target held within the palette's per-channel range, so error that no
+#: palette mix can discharge does not pile up there and come out as dark
+#: speckles in a light area or a dark rim where the area ends.  ``inf`` turns
+#: the hold off (the default before the smooth-only hold: measured, the hold
+#: lowers the dusk sample's filtered ΔE00 and keeps every test picture's below
+#: the tool's first result; docs/dithering.md, "Colours outside the hull").
+DEFAULT_HULL_HOLD = 0.01
+
+#: The hold applies only to *smooth* pixels: no 4-neighbour (transparent ones
+#: aside) differs by more than this many codes in any channel, counted on the
+#: 8-bit scale (a 16-bit picture's codes over 257).  A colourful photograph's
+#: out-of-hull colours sit in textured patches, whose mean colour the carried
+#: error keeps; a sky's sit in smooth areas, where it piles up.  ``inf`` holds
+#: every far pixel (that raises scikit-image's coffee at 16 colours above the
+#: tool's first result; so does 4).  2 holds whole generated sky ramps and
+#: breaks issue 17's row-band limit on them (the held ends lose their mean);
+#: 1 keeps it, but leaves gradients steeper than a code per pixel unheld.
+DEFAULT_HULL_HOLD_STEP = 1.0
 
 
 def check_hull_hold(hold) -> float:
@@ -120,20 +136,133 @@ def check_hull_hold(hold) -> float:
                          "hull hold must be a distance in linear light >= 0 or inf")
 
 
-def _mark_outside(pic, a: DitherArrays, hold: float) -> np.ndarray:
-    """``a.state`` with the open pixels further than ``hold`` outside the palette's hull marked FAR."""
+def check_hull_hold_step(step) -> float:
+    """``step`` (8-bit codes, >= 0, ``inf`` for every pixel) as a float; None means :data:`DEFAULT_HULL_HOLD_STEP`."""
+    return number_option(step, DEFAULT_HULL_HOLD_STEP, lambda v: v >= 0.0,
+                         "hull hold step must be a number of 8-bit codes >= 0 or inf")
+
+
+def smooth_pixels(codes: np.ndarray, clear: np.ndarray | None, step: float, max_code: int) -> np.ndarray:
+    """Pixels none of whose 4-neighbours differs by more than ``step`` 8-bit codes in any channel.
+
+    Parameters
+    ----------
+    codes : ndarray of shape (H, W, 3), uint8 or uint16
+    clear : ndarray of shape (H, W), bool, or None
+        Fully transparent pixels: their hidden colour is no neighbour.
+    step : float
+        On the 8-bit scale; a code of a ``max_code`` picture counts
+        ``255 / max_code`` of one.
+    max_code : int
+        255 or 65535.
+
+    Returns
+    -------
+    ndarray of shape (H, W), bool
+    """
+    limit = step * max_code / 255.0
+    rough = np.zeros(codes.shape[:2], dtype=bool)
+    for axis in (0, 1):
+        head = [slice(None)] * 2
+        tail = [slice(None)] * 2
+        head[axis], tail[axis] = slice(1, None), slice(None, -1)
+        a, b = codes[tuple(head)], codes[tuple(tail)]
+        # max - min stays within the unsigned dtype, so no wider copy is made.
+        jump = (np.maximum(a, b) - np.minimum(a, b)).max(axis=2) > limit
+        if clear is not None:
+            jump &= ~(clear[tuple(head)] | clear[tuple(tail)])
+        rough[tuple(head)] |= jump
+        rough[tuple(tail)] |= jump
+    return ~rough
+
+
+def _mark_outside(pic, a: DitherArrays, hold: float, step: float) -> np.ndarray:
+    """``a.state`` with the open, smooth pixels further than ``hold`` outside the palette's hull marked FAR."""
     from quantize.core.sampling import sample_picture
-    from quantize.fit.for_dither import hull_weights
     from quantize.kernels.loading import compiled
 
     dk = compiled("dither_loops")
-    smp = sample_picture(pic)
-    lin = a.lut[smp.codes]
-    resid = lin - hull_weights(lin, a.pal_lin) @ a.pal_lin
-    far = np.sqrt((resid**2).sum(axis=1)) > hold
     state = a.state.copy()
-    state[(state == dk.OPEN) & far[_rows_of(smp).reshape(pic.shape)]] = dk.FAR
+    held = state == dk.OPEN
+    if step != np.inf:
+        held &= smooth_pixels(a.codes, state == dk.CLEAR, step, pic.max_code)
+    if not held.any():
+        return state
+    smp = sample_picture(pic)
+    rows = _rows_of(smp).reshape(pic.shape)
+    # Only the colours of pixels that may be held are looked at.
+    wanted = np.unique(rows[held])
+    far = np.zeros(smp.n_colours, dtype=bool)
+    far[wanted] = hull_distance(a.lut[smp.codes[wanted]], a.pal_lin) > hold
+    state[held & far[rows]] = dk.FAR
     return state
+
+
+#: Colours set against the hull at a time: bounds the (n, facets, 3) arrays.
+_HULL_BLOCK = 1 << 13
+
+
+def hull_distance(points: np.ndarray, vertices: np.ndarray) -> np.ndarray:
+    """Euclidean distance of each point to the convex hull of ``vertices`` (0 inside).
+
+    Parameters
+    ----------
+    points : ndarray of shape (n, 3)
+    vertices : ndarray of shape (k, 3)
+        A solid hull (Qhull, Barber et al. 1996) gives exact distances: 0
+        where no facet plane has the point outside, else the distance to the
+        nearest boundary triangle (closest point on a triangle, Ericson,
+        *Real-Time Collision Detection*, 2005, sec. 5.1.5, in vector form).
+        A flat or tiny palette has no solid hull; then the hull projection of
+        :func:`quantize.fit.for_dither.hull_weights` is used.
+
+    Returns
+    -------
+    ndarray of shape (n,)
+    """
+    from scipy.spatial import ConvexHull, QhullError
+
+    from quantize.fit.for_dither import hull_weights
+
+    out = np.zeros(len(points))
+    try:
+        hull = ConvexHull(vertices)
+    except (QhullError, ValueError):
+        for i in range(0, len(points), _HULL_BLOCK):
+            p = points[i:i + _HULL_BLOCK]
+            out[i:i + _HULL_BLOCK] = np.sqrt(((p - hull_weights(p, vertices) @ vertices) ** 2).sum(axis=1))
+        return out
+    eq = hull.equations  # unit outward normals and offsets
+    tri = vertices[hull.simplices]  # (T, 3 corners, 3)
+    for i in range(0, len(points), _HULL_BLOCK):
+        p = points[i:i + _HULL_BLOCK]
+        outside = (p @ eq[:, :3].T + eq[:, 3]).max(axis=1) > 0.0
+        if outside.any():
+            out[i:i + _HULL_BLOCK][outside] = np.sqrt(_triangle_distance2(p[outside], tri).min(axis=1))
+    return out
+
+
+def _triangle_distance2(p: np.ndarray, tri: np.ndarray) -> np.ndarray:
+    """Squared distance of each point (n, 3) to each triangle (T, 3, 3): (n, T)."""
+    a, b, c = tri[None, :, 0], tri[None, :, 1], tri[None, :, 2]
+    q = p[:, None, :]
+    n = np.cross(b - a, c - a)
+    nn = (n * n).sum(axis=-1)
+    h = ((q - a) * n).sum(axis=-1) / nn
+    foot = q - h[..., None] * n  # the point's projection onto the triangle's plane
+    inside = ((np.cross(b - a, foot - a) * n).sum(axis=-1) >= 0.0) \
+        & ((np.cross(c - b, foot - b) * n).sum(axis=-1) >= 0.0) \
+        & ((np.cross(a - c, foot - c) * n).sum(axis=-1) >= 0.0)
+    edge = np.minimum(np.minimum(_segment_distance2(q, a, b), _segment_distance2(q, b, c)),
+                      _segment_distance2(q, c, a))
+    return np.where(inside, h * h * nn, edge)
+
+
+def _segment_distance2(q: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    ab = b - a
+    t = np.clip(((q - a) * ab).sum(axis=-1) / (ab * ab).sum(axis=-1), 0.0, 1.0)
+    d = q - (a + t[..., None] * ab)
+    return (d * d).sum(axis=-1)
 
 
 @dataclass(frozen=True, eq=False)
@@ -302,7 +431,8 @@ def _diffuse_measured(a: DitherArrays, diffusion: _Diffusion, out) -> np.ndarray
 
 def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: str = "space",
                    serpentine: bool = True, modulation: float | None = None, reach: float | None = None,
-                   hull_hold: float | None = None, measure: bool = False) -> tuple[np.ndarray, DitherArrays]:
+                   hull_hold: float | None = None, hull_hold_step: float | None = None,
+                   measure: bool = False) -> tuple[np.ndarray, DitherArrays]:
     """Palette index of every pixel under a dither, without the statistics.
 
     Parameters are those of :func:`dither_picture` (``method`` must not be
@@ -321,7 +451,7 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     ValueError
         Unknown or ``"none"`` method, unknown metric, strength outside 0-1,
         a negative modulation, a reach that is not positive or a negative
-        hull hold.
+        hull hold or hull hold step.
     """
     from quantize.fit.assign import check_metric
     from quantize.io.read import as_picture
@@ -341,7 +471,8 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
         diffusion = _Diffusion.of(m, strength, bool(serpentine), check_modulation(modulation), check_reach(reach),
                                   check_hull_hold(hull_hold))
         if diffusion.hold != np.inf:
-            arrays = replace(arrays, state=_mark_outside(pic, arrays, diffusion.hold))
+            arrays = replace(arrays, state=_mark_outside(pic, arrays, diffusion.hold,
+                                                         check_hull_hold_step(hull_hold_step)))
     de = with_fresh_cache(lambda: _run_method(m, pic, arrays, strength, diffusion, measure, out))
     return out, replace(arrays, delta_e=de)
 
@@ -375,7 +506,8 @@ def _run_method(m, pic, a: DitherArrays, strength, diffusion, measure, out) -> n
 
 def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: DitherName, strength: float = 1.0,
                    metric: str = "space", serpentine: bool = True, modulation: float | None = None,
-                   reach: float | None = None, hull_hold: float | None = None) -> MappedImage:
+                   reach: float | None = None, hull_hold: float | None = None,
+                   hull_hold_step: float | None = None) -> MappedImage:
     """Reduce an image to ``palette`` with a dither.
 
     Parameters
@@ -412,14 +544,19 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
         filtered ΔE00 of several photographs, so the default
         :data:`DEFAULT_REACH` is ``inf`` (docs/dithering.md, "Dark speckles").
     hull_hold : float, optional
-        Error diffusion only: a pixel whose own colour lies further than this
-        outside the palette's convex hull (linear light, Euclidean) has its
-        diffusion target held within the palette's per-channel range, so
-        error no palette mix can discharge does not pile up over an
-        out-of-gamut area.  0.01 removes the dark speckles and the dark rim
-        of the dusk sample; default :data:`DEFAULT_HULL_HOLD` (``inf``, off:
-        it raises the filtered ΔE00 of a colourful photograph at 16 colours,
-        docs/dithering.md, "Colours outside the hull").
+        Error diffusion only: a smooth pixel (``hull_hold_step``) whose own
+        colour lies further than this outside the palette's convex hull
+        (linear light, Euclidean) has its diffusion target held within the
+        palette's per-channel range, so error no palette mix can discharge
+        does not pile up over an out-of-gamut area.  Default
+        :data:`DEFAULT_HULL_HOLD` (0.01: it takes most dark speckles and the
+        dark rim out of the dusk sample); ``inf`` turns it off
+        (docs/dithering.md, "Colours outside the hull").
+    hull_hold_step : float, optional
+        Error diffusion only: the hold applies to pixels none of whose
+        4-neighbours differs by more than this many codes in any channel,
+        counted on the 8-bit scale (16-bit codes over 257); ``inf`` holds
+        every far pixel.  Default :data:`DEFAULT_HULL_HOLD_STEP` (1).
 
     Returns
     -------
@@ -434,7 +571,8 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
     ------
     ValueError
         Unknown method or metric; strength outside 0-1; a negative
-        modulation or a reach that is not positive.
+        modulation, hull hold or hull hold step, or a reach that is not
+        positive.
 
     References
     ----------
@@ -474,7 +612,7 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
         return nearest_image(pic, palette, metric=metric)
     idx, arrays = dither_indices(pic, palette, method=m.name, strength=strength, metric=metric,
                                  serpentine=serpentine, modulation=modulation, reach=reach,
-                                 hull_hold=hull_hold, measure=True)
+                                 hull_hold=hull_hold, hull_hold_step=hull_hold_step, measure=True)
     dk = compiled("dither_loops")
     de = cast(np.ndarray, arrays.delta_e)  # asked for with measure=True
     clear = arrays.state == dk.CLEAR if pic.alpha is not None else None
