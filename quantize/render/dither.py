@@ -36,6 +36,7 @@ Methods (:data:`DITHERS`)
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, cast
 
@@ -160,15 +161,23 @@ def smooth_pixels(codes: np.ndarray, clear: np.ndarray | None, step: float, max_
     -------
     ndarray of shape (H, W), bool
     """
-    limit = step * max_code / 255.0
     rough = np.zeros(codes.shape[:2], dtype=bool)
+    limit = step * max_code / 255.0
+    if limit >= np.iinfo(codes.dtype).max:
+        return ~rough
+    # Codes are whole numbers, so "more than limit" is "more than its floor";
+    # compared in the codes' own dtype, nothing is widened to float.
+    lim = codes.dtype.type(math.floor(limit))
     for axis in (0, 1):
         head = [slice(None)] * 2
         tail = [slice(None)] * 2
         head[axis], tail[axis] = slice(1, None), slice(None, -1)
         a, b = codes[tuple(head)], codes[tuple(tail)]
-        # max - min stays within the unsigned dtype, so no wider copy is made.
-        jump = (np.maximum(a, b) - np.minimum(a, b)).max(axis=2) > limit
+        jump = np.zeros(a.shape[:2], dtype=bool)
+        for c in range(codes.shape[2]):
+            ac, bc = a[..., c], b[..., c]
+            # max - min stays within the unsigned dtype, so no wider copy is made.
+            jump |= (np.maximum(ac, bc) - np.minimum(ac, bc)) > lim
         if clear is not None:
             jump &= ~(clear[tuple(head)] | clear[tuple(tail)])
         rough[tuple(head)] |= jump
