@@ -90,6 +90,22 @@ def test_photos_get_the_smallest_palette_meeting_the_visual_target(name):
     assert 12 < pal.k <= 256
 
 
+@pytest.mark.xfail(strict=True, reason="open (issue 14): scikit-image's deep-field photo at 0.4 of its size is judged "
+                   "artwork (57 % flat black sky, spread 2.6) and gets 2 colours, mean ΔE00 3.74 (measured)")
+def test_a_small_copy_of_a_deep_field_photo_is_continuous_tone():
+    # Held out (found after the rule was built): scikit-image's hubble_deep_field,
+    # resized to 0.4 with Pillow's Lanczos filter.  At full size, 0.6 and 0.8 it
+    # is judged continuous tone and meets the target; at 0.4 the downscaling
+    # has evened the black sky into what the rule takes for flat ink.
+    img = Image.fromarray(skimage.data.hubble_deep_field())
+    small = np.asarray(img.resize((int(img.width * 0.4), int(img.height * 0.4)), Image.LANCZOS))
+    pal = fit_palette(small, restarts=2)
+    assert pal.fit.judged == "continuous tone"
+    lab = rgb2lab(small.reshape(-1, 3) / 255.0)  # D65, as the tool's CIELAB
+    mapped = rgb2lab(np.asarray(pal.apply(small).rgb).reshape(-1, 3) / 255.0)
+    assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
+
+
 def test_a_small_ink_a_fixed_size_drops_is_named():
     rgb, inks = add_spot(*flat_artwork(4, 3), 0.004, 3)
     pal = fit_palette(rgb, 4)  # one colour short: the spot or another ink is lost
