@@ -130,3 +130,12 @@ def test_a_held_out_gradient_has_no_row_band_with_the_default_dither(bits):
 
     band = _de00(local_means(codes / top), local_means(out))
     assert band.max() <= 1.5
+
+
+@pytest.mark.parametrize("hold", [0.01, float("inf")])
+def test_a_bad_hold_step_is_refused_whatever_the_hold(hold):
+    # Checked with the other diffusion options, also when the hold is off.
+    img = np.zeros((4, 4, 3), dtype=np.uint8)
+    pal = Palette(rgb8=np.array([[0, 0, 0], [255, 255, 255]], dtype=np.uint8), locked=None)
+    with pytest.raises(ValueError, match="hull hold step"):
+        qd.dither_picture(img, pal, method="floyd-steinberg", hull_hold=hold, hull_hold_step=-1)

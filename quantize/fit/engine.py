@@ -453,13 +453,13 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
         One per size of ``ks``, in order.
     """
     from quantize.colour.spaces import srgb8_to_space
-    from quantize.kernels.nearest import load_for, sample_runs_compiled
+    from quantize.kernels.nearest import load_for
 
     from .warm import warm_coarse, warm_fine
 
     # A job whose final mapping needs the compiled loops loads them first,
     # so that every restart's assignment runs on them too (bit-identical).
-    compiled_always = settings.compiled_always or sample_runs_compiled(sample.n_colours)
+    compiled_always = _runs_compiled(sample, settings)
     load_for(sample.n_colours, max(ks), always=compiled_always)
     space, m = settings.space, len(settings.locked)
     # FitSettings has turned the seed into an int and checked the seeding's name.
@@ -500,6 +500,17 @@ def fit_sizes(sample, ks: Sequence[int], settings: FitSettings, *,
             if progress:
                 progress(k)
         return [job.result() for job in jobs]
+
+
+def _runs_compiled(sample, settings: FitSettings) -> bool:
+    """Whether every CIEDE2000 measured on ``sample`` runs compiled: asked for, or by the sample's size.
+
+    One decision for the fit and for measuring its candidates on the sample
+    (:func:`quantize.kernels.nearest.sample_runs_compiled`).
+    """
+    from quantize.kernels.nearest import sample_runs_compiled
+
+    return settings.compiled_always or sample_runs_compiled(sample.n_colours)
 
 
 def _finished(sample, k: int, fine, start: str, fixed_rgb8, **options) -> Candidate:
@@ -724,7 +735,7 @@ def _measured(cand: Candidate, sample, settings: FitSettings) -> Candidate:
     from .assign import map_sample
 
     labels, de = map_sample(sample, cand.palette, metric=cast(str, settings.nearest),  # FitSettings resolved it
-                            compiled_always=settings.compiled_always)
+                            compiled_always=_runs_compiled(sample, settings))
     w = sample.weights
     pts, centres = sample.points(settings.space), cand.palette.points(settings.space)
     inertia = float((w * ((pts - centres[labels]) ** 2).sum(axis=1)).sum())

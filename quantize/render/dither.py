@@ -479,9 +479,9 @@ def dither_indices(pic, palette, *, method: str, strength: float = 1.0, metric: 
     if m.kind == "diffusion":
         diffusion = _Diffusion.of(m, strength, bool(serpentine), check_modulation(modulation), check_reach(reach),
                                   check_hull_hold(hull_hold))
+        step = check_hull_hold_step(hull_hold_step)  # checked with the other options, whatever the hold
         if diffusion.hold != np.inf:
-            arrays = replace(arrays, state=_mark_outside(pic, arrays, diffusion.hold,
-                                                         check_hull_hold_step(hull_hold_step)))
+            arrays = replace(arrays, state=_mark_outside(pic, arrays, diffusion.hold, step))
     de = with_fresh_cache(lambda: _run_method(m, pic, arrays, strength, diffusion, measure, out))
     return out, replace(arrays, delta_e=de)
 
