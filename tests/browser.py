@@ -25,6 +25,23 @@ def chromium(args, url, tmp_path: Path):
     return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
 
 
+def dump_until(args, url, tmp_path: Path, marker: str, tries: int = 3):
+    """``--dump-dom`` of ``url`` until ``<pre id="MARKER">`` appears; (probe text or None, last run).
+
+    A driving script that waits for an image's decode writes its marker
+    after real (not virtual) time, which a loaded machine can push past
+    the virtual-time budget; the page is then loaded again, at most
+    ``tries`` times.  A script that throws or never writes its marker
+    still fails the test after the last try.
+    """
+    for _ in range(tries):
+        run = chromium([*args, "--dump-dom"], url, tmp_path)
+        text = probe_text(run.stdout, marker)
+        if text:
+            return text, run
+    return None, run
+
+
 def console_lines(stderr: str) -> list[str]:
     """The page's console messages in chromium's log."""
     return [ln for ln in stderr.splitlines() if ":CONSOLE" in ln]

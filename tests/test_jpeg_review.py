@@ -108,7 +108,7 @@ def test_the_error_map_is_that_of_the_decoded_jpeg(jpeg_case):
 
 def test_a_swatch_click_on_the_jpeg_page_marks_its_nearest_pixels_in_a_browser(jpeg_case, tmp_path):
     """Headless Chromium (tests/browser.py): no console error; the share marked is that colour's share."""
-    from browser import CHROMIUM, NO_CHROMIUM, chromium, console_lines, probe_text
+    from browser import CHROMIUM, NO_CHROMIUM, console_lines, dump_until
 
     if CHROMIUM is None:
         pytest.skip(NO_CHROMIUM)
@@ -125,8 +125,7 @@ def test_a_swatch_click_on_the_jpeg_page_marks_its_nearest_pixels_in_a_browser(j
              "document.body.appendChild(pre); }, 100); });</script>")
     copy = tmp_path / "drive.html"
     copy.write_text(page.replace("</body>", drive + "</body>"), encoding="utf-8")
-    run = chromium(["--window-size=1280,1600", "--dump-dom"], copy.as_uri(), tmp_path)
-    text = probe_text(run.stdout, "drive")
+    text, run = dump_until(["--window-size=1280,1600"], copy.as_uri(), tmp_path, "drive")
     assert text, run.stderr[-500:]
     assert console_lines(run.stderr) == []
     assert json.loads(text)["marked"] == pytest.approx(share, abs=0.01)

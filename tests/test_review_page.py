@@ -17,7 +17,7 @@ import re
 import numpy as np
 import pytest
 from artwork import flat_artwork
-from browser import CHROMIUM, NO_CHROMIUM, chromium, console_lines, probe_text, with_script
+from browser import CHROMIUM, NO_CHROMIUM, chromium, console_lines, dump_until, with_script
 from PIL import Image
 
 from quantize.fit.sweep import sweep
@@ -87,9 +87,8 @@ def case(tmp_path_factory):
 def _drive(page, tmp_path, then, name):
     """Run the driving script with ``then`` after the slider and divider; (result dict, console, copy)."""
     copy = with_script(page, _DRIVE % {"i": SIZE_I, "frac": FRAC, "then": then}, name)
-    run = chromium([f"--window-size={WINDOW[0]},{WINDOW[1]}", "--hide-scrollbars", "--dump-dom"],
-                   copy.as_uri(), tmp_path)
-    text = probe_text(run.stdout, "drive")
+    text, run = dump_until([f"--window-size={WINDOW[0]},{WINDOW[1]}", "--hide-scrollbars"], copy.as_uri(),
+                           tmp_path, "drive")
     assert text, f"driving script did not finish (chromium exit {run.returncode}): {run.stderr[-500:]}"
     out = json.loads(text)
     assert out["errors"] == []
