@@ -344,3 +344,19 @@ def test_a_fit_without_extra_threads_gives_the_same_palette(k):
     assert a.fit.to_dict() == b.fit.to_dict()
     with pytest.raises(ValueError, match="threads must be True or False"):
         fit_palette(img, 4, threads="yes")
+
+
+def test_the_photo_search_refines_few_sizes_and_records_each_it_refined():
+    # The size search reads the k-means fits to guess where the target is
+    # crossed and refines only around the guess (quantize/fit/size_search.py);
+    # the answer is checked against fixed-size fits in
+    # tests/test_auto_rule.py.  scikit-image's "coffee" sample photo, half size.
+    from skimage import data
+
+    img = np.ascontiguousarray(data.coffee()[::2, ::2])
+    refined = []
+    pal = fit_palette(img, restarts=2, progress=refined.append)
+    assert pal.fit.judged == "continuous tone" and pal.fit.target_met is True
+    assert pal.k in refined and pal.k - 1 in refined  # the size found and the one below it that misses
+    assert sorted(refined) == sorted(set(refined)) == [c.k for c in pal.fit.candidates]
+    assert len(refined) <= 5  # a bisection from 2 to the size found refines 10 or more

@@ -823,42 +823,39 @@ def _tone_target() -> float:
 
 def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float, progress, *,
                  top_first: bool = False) -> list:
-    """Fit sizes from ``lo`` doubling up to ``hi`` until the target is met, then bisect: about 2 log2(hi/lo) fits.
+    """The fully fitted sizes that find the smallest one in ``lo``..``hi`` meeting the target.
 
     Each size is fitted on its own stream, so the size found is the one a
-    fixed ``-k`` of that size gives.  With ``top_first`` (a range the user
-    gave) ``hi`` is fitted first: a photo rarely meets the target within a
-    screen-print range such as 2-12, and then ``hi`` is the answer after one
-    fit instead of four or five.  The search assumes, as the doubling does,
-    that a larger palette never has a higher error, so the answer is the
-    same either way; only the candidates recorded differ.
+    fixed ``-k`` of that size gives.  The k-means fits alone (no
+    refinements: a fifth to a tenth of a full fit's cost) guess where the
+    target is crossed (:mod:`quantize.fit.size_search`); full fits are then
+    spent around the guess, usually two.  With ``top_first`` (a range the
+    user gave) ``hi`` is fitted first: a photo rarely meets the target
+    within a screen-print range such as 2-12, and then ``hi`` is the answer
+    after one fit.  The search assumes that a larger palette never has a
+    higher error, so the answer does not depend on the guess; only the
+    candidates recorded do.
     """
-    fitted: dict[int, Candidate] = {}
+    from .size_search import REFINE_GAIN, guess_size, smallest_meeting
 
-    def fit(k):
-        if k not in fitted:
-            fitted[k] = fit_sizes(sample, [k], settings, progress=progress)[0]
-        return fitted[k]
+    fitted: dict[int, Candidate] = {}
+    stat = settings.target_stat
 
     def meets(k):
-        return fit(k).delta_e[settings.target_stat] <= target
+        if k not in fitted:
+            fitted[k] = fit_sizes(sample, [k], settings, progress=progress)[0]
+        return fitted[k].delta_e[stat] <= target
 
+    lo = max(lo, 1)
     if top_first and not meets(hi):
         return [fitted[hi]]
-    k = max(lo, 1)
-    while k < hi and not meets(k):
-        k = min(2 * k, hi)
-    if meets(k):
-        below = max([j for j in fitted if j < k and not meets(j)], default=lo - 1)
-        a, b = below, k  # a fails (or is below the range), b meets
-        while b - a > 1:
-            mid = (a + b) // 2
-            if meets(mid):
-                b = mid
-            else:
-                a = mid
-    else:
-        fit(hi)
+    cheap = dataclasses.replace(settings, refine="none")
+    guess = guess_size(lambda k: fit_sizes(sample, [k], cheap)[0].delta_e[stat], lo, hi, target / REFINE_GAIN)
+    # A right guess needs the size below it too: fitted together, one's
+    # refinements overlap the other's k-means on the second core.
+    pair = [j for j in (guess - 1, guess) if j >= lo and j not in fitted]
+    fitted.update(zip(pair, fit_sizes(sample, pair, settings, progress=progress)))
+    smallest_meeting(meets, guess, lo, hi)
     return [fitted[j] for j in sorted(fitted)]
 
 
