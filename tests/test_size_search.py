@@ -80,3 +80,21 @@ def test_a_cheap_error_of_zero_guesses_the_first_size_reaching_the_goal():
     assert guess_size(lambda k: 5.0 if k <= 8 else 2.0, 2, 256, 3.0) == 12
     assert guess_size(lambda k: 2.0, 2, 256, 3.0) == 2
     assert guess_size(lambda k: 5.0, 2, 256, 3.0) == 256
+
+
+@pytest.mark.parametrize("scale, exponent, goal", [(12.0, -1 / 3, 2.5), (9.0, -0.45, 2.5), (30.0, -0.5, 3.0)])
+def test_the_guess_never_tries_a_size_beyond_a_power_laws_crossing(scale, exponent, goal):
+    # A size tried in vain above the answer is the costliest step of the search.
+    tried = []
+
+    def err(k):
+        tried.append(k)
+        return scale * k ** exponent
+
+    g = guess_size(err, 2, 256, goal)
+    assert max(tried) == g == _brute(lambda k: scale * k ** exponent <= goal, 2, 256)
+
+
+def test_an_error_that_hardly_falls_steps_to_the_top_of_the_range():
+    # 5.0, then a hair less at each doubling: the line predicts a size beyond any range.
+    assert guess_size(lambda k: 5.0 - 1e-12 * k, 2, 256, 3.0) == 256

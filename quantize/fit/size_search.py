@@ -27,7 +27,15 @@ REFINE_GAIN = 0.97
 
 
 def guess_size(cheap_error: Callable[[int], float], lo: int, hi: int, goal: float) -> int:
-    """Where ``cheap_error`` first falls to ``goal``: doubling from ``lo``, then log-log interpolation.
+    """Where ``cheap_error`` first falls to ``goal``: secant steps on log-log scales, then interpolation.
+
+    Quantisation error falls roughly with a power of the palette size, a
+    straight line on log-log scales.  From ``lo`` the size doubles until two
+    sizes miss the goal; the line through the last two then predicts the
+    crossing, and the next size tried is that prediction (never more than
+    double the last size), so the search rarely overshoots far: a large
+    size tried in vain costs most, and may load the compiled loops a small
+    image would not otherwise need.
 
     Parameters
     ----------
@@ -42,27 +50,38 @@ def guess_size(cheap_error: Callable[[int], float], lo: int, hi: int, goal: floa
     -------
     int
         A size in ``[lo, hi]``: ``lo`` if it already reaches the goal, ``hi``
-        if no size does, else a size between the last doubling that missed
-        and the first that reached it, where the error, linear in log size
-        on a log scale between the two (as quantisation error falls with a
-        power of the palette size), crosses the goal.
+        if no size does, else a size between the last size that missed and
+        the first that reached it, where the line between the two crosses
+        the goal.
     """
-    prev: tuple[int, float] | None = None
+    missed: list[tuple[int, float]] = []
     k = lo
     while True:
         err = cheap_error(k)
         if err <= goal:
-            if prev is None:
-                return k
-            k0, e0 = prev
-            if not (0 < err < e0):
-                return k
-            t = math.log(e0 / goal) / math.log(e0 / err)
-            crossing = math.exp(math.log(k0) + t * (math.log(k) - math.log(k0)))
-            return min(max(math.ceil(crossing), k0 + 1), k)
+            return _crossing(missed[-1], (k, err), goal) if missed else k
         if k >= hi:
             return hi
-        prev, k = (k, err), min(2 * k, hi)
+        missed.append((k, err))
+        step = min(2 * k, hi)
+        if len(missed) >= 2 and missed[-1][1] < missed[-2][1]:
+            step = min(max(_crossing(missed[-2], missed[-1], goal, extrapolate=True), k + 1), step)
+        k = step
+
+
+def _crossing(a: tuple[int, float], b: tuple[int, float], goal: float, *, extrapolate: bool = False) -> int:
+    """The size where the line on log-log scales through ``a`` and ``b`` reaches ``goal``, rounded up.
+
+    Interpolating (``a`` missed, ``b`` reached it), the size lies in
+    ``(a, b]``; extrapolating (both missed, ``b`` the lower) it lies above ``b``.
+    """
+    (k0, e0), (k1, e1) = a, b
+    if not 0 < e1 < e0:  # no fall to follow: the size that reached it, or one step on
+        return k1 if not extrapolate else k1 + 1
+    t = math.log(e0 / goal) / math.log(e0 / e1)
+    log_size = math.log(k0) + t * (math.log(k1) - math.log(k0))
+    size = math.ceil(math.exp(min(log_size, 40.0)))  # a hair's fall predicts an astronomic size: capped
+    return size if extrapolate else min(max(size, k0 + 1), k1)
 
 
 def smallest_meeting(meets: Callable[[int], bool], guess: int, lo: int, hi: int) -> int | None:
