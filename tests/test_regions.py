@@ -292,3 +292,36 @@ def test_a_1px_line_half_on_two_pixels_is_the_same_picture_as_a_2px_line_of_its_
     # Right for the 2 px line of Y, wrong for the half-placed 1 px line (a colour invented) ...
     # ... or, with X present, right for the 1 px line and wrong for the 2 px line (its ink lost).
     assert blend_found is (not with_pure_ink)
+
+
+def _dots_on_flat_inks(colour):
+    """Invented demo data: white ground, a red and a navy block, and rows of 2 x 2 px dots of ``colour`` between them.
+
+    The 96 dots cover 0.96 % of the picture, each of 4 px, below the structure minimum (12 px).
+    """
+    rgb = np.full((200, 200, 3), 250, np.uint8)
+    rgb[20:80, 20:180] = (200, 30, 40)
+    rgb[120:180, 20:180] = (30, 40, 160)
+    for y in range(84, 118, 10):
+        for x in range(6, 194, 8):
+            rgb[y:y + 2, x:x + 2] = colour
+    return rgb
+
+
+@pytest.mark.parametrize(("colour", "detail"), [((40, 170, 60), True), ((115, 35, 100), False), ((225, 140, 145), False)],
+                         ids=["green", "red-navy-mix", "red-white-mix"])
+def test_specks_count_only_colours_no_mix_of_flat_inks_makes(colour, detail):
+    # Dots too small to be inks: green ones (no mix of white, red and navy makes green)
+    # are specks, a photograph's kind of detail; dots of the exact 50 % mixes of two of
+    # the inks in 8-bit sRGB (red and navy, red and white: arithmetic on the codes drawn)
+    # are the blends artwork's lettering leaves, and count for nothing (core/regions.py SPECK_SHARE).
+    from quantize.core.regions import SPECK_SHARE
+    from quantize.fit.inkcount import judge
+
+    regions = find_regions(Picture(_dots_on_flat_inks(colour)))
+    assert (regions.speck_share >= SPECK_SHARE) == detail
+    assert judge([regions]).kind == ("continuous tone" if detail else "artwork")
+    # The flat inks are found either way, and no dot is a region of 0.1 % or more.
+    labs, _ = _big(regions)
+    assert _nearest_de(_ink_lab([(250, 250, 250), (200, 30, 40), (30, 40, 160)]), labs).max() < 2.0
+    assert len(labs) == 3

@@ -32,7 +32,11 @@ Constants and why (docs/method.md §"How many inks"):
   (shading and gradients, not ink), and less than :data:`MIN_EVEN_SHARE` of
   the flat area is in regions that are even on their own.  Flat artwork, scanned or JPEG-compressed,
   stays under 3 in the project's generated tests; photos and colour ramps
-  exceed 4.
+  exceed 4.  Or when :data:`~quantize.core.regions.SPECK_SHARE` (0.5 %) or
+  more of it is specks: bits of colour too small to be an ink that no mix of
+  its flat colours explains (a photograph's small detail on an even ground,
+  such as a deep-field photo's galaxies on its black sky; artwork's are
+  fragments of lettering, blends of its inks).
 """
 
 from __future__ import annotations
@@ -43,7 +47,7 @@ from typing import Sequence
 import numpy as np
 
 from quantize.colour.spaces import delta_e_ciede2000
-from quantize.core.regions import Regions
+from quantize.core.regions import SPECK_SHARE, Regions
 
 __all__ = ["InkGroups", "Judgement", "ink_groups", "artwork_like", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
            "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE", "MIN_EVEN_SHARE",
@@ -190,8 +194,8 @@ def artwork_like(*, flat_share: float, spread: float, even_share: float) -> bool
 def judge(regions: Sequence[Regions]) -> Judgement:
     """Flat artwork or continuous tone, from the images' regions and how even they are.
 
-    Several images (a product set) are judged together: the flat share is
-    pooled by pixels and the spread is the largest of any image.
+    Several images (a product set) are judged together: the flat and speck
+    shares are pooled by pixels and the spread is the largest of any image.
     """
     total = sum(r.n_pixels for r in regions) or 1
     flat = sum(r.flat_share * r.n_pixels for r in regions) / total
@@ -199,6 +203,11 @@ def judge(regions: Sequence[Regions]) -> Judgement:
     if flat < MIN_FLAT_SHARE:
         return Judgement("continuous tone", f"only {flat:.0%} of the image is flat colour (texture everywhere)",
                          flat, spread)
+    specks = sum(r.speck_share * r.n_pixels for r in regions) / total
+    if specks >= SPECK_SHARE:
+        return Judgement("continuous tone", f"at least {specks:.1%} of the image is small detail in colours that no "
+                         f"mix of its flat colours makes (artwork leaves under {SPECK_SHARE:.1%}: the fragments of "
+                         "its lettering are blends of its inks)", flat, spread)
     even = min(r.even_share for r in regions)
     if spread > TONE_SPREAD_DE and even < MIN_EVEN_SHARE:
         return Judgement("continuous tone", f"colours vary inside its flat areas (90 % within ΔE00 {spread:.1f} "
