@@ -10,7 +10,7 @@ import numpy as np
 
 from quantize.colour.spaces import delta_e_ciede2000, linear_to_srgb, srgb_to_lab, srgb_to_linear, to_space
 # The library's defaults, so a twin called without them follows the default dither.
-from quantize.render.dither import DEFAULT_HULL_HOLD, DEFAULT_HULL_HOLD_STEP
+from quantize.render.dither import DEFAULT_HULL_HOLD, DEFAULT_HULL_HOLD_STEP, HULL_HOLD_ONSET, hold_onset_thresholds
 
 
 def _choose(target_lin, pal_pts, pal_lab, space, metric, lightness_offset=0.0, allowed=None):
@@ -47,7 +47,7 @@ def _smooth(rgb, clear, y, x, step):
 
 def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="space", strength=1.0,
             serpentine=True, low=-1.0, high=2.0, mod=None, mod_amp=0.0, reach=np.inf, hull_hold=DEFAULT_HULL_HOLD,
-            hull_hold_step=DEFAULT_HULL_HOLD_STEP):
+            hull_hold_step=DEFAULT_HULL_HOLD_STEP, hull_hold_onset=HULL_HOLD_ONSET):
     """Error diffusion in linear light.
 
     rgb: (H, W, 3) encoded floats; clear: (H, W) bool (transparent);
@@ -59,7 +59,9 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
     than this outside the palette's hull (linear light) has its target held
     within the palette's per-channel range instead of low-high, if it is
     smooth: no 4-neighbour that is not clear differs from it by more than
-    hull_hold_step codes of 255 in any channel (rgb is encoded 0-1).
+    hull_hold_step codes of 255 in any channel (rgb is encoded 0-1); the
+    distance must exceed hull_hold * (1 + hull_hold_onset * t), t the
+    library's onset threshold tile (hold_onset_thresholds) at the pixel's place.
     """
     mod = np.zeros((1, 1)) if mod is None else mod
     h, w = clear.shape
@@ -76,7 +78,9 @@ def diffuse(rgb, clear, pinned, palette_rgb8, *, weights, space="lab", metric="s
         flat = lin.reshape(-1, 3)
         # Run far past convergence, so the distance is exact to well under the hold.
         resid = flat - hull_weights(flat, pal_lin, iterations=20000) @ pal_lin
-        far = (np.sqrt((resid**2).sum(axis=1)) > hull_hold).reshape(h, w)
+        tile = hold_onset_thresholds()
+        place = tile[np.arange(h)[:, None] % tile.shape[0], np.arange(w)[None, :] % tile.shape[1]]
+        far = np.sqrt((resid**2).sum(axis=1)).reshape(h, w) > hull_hold * (1.0 + hull_hold_onset * place)
         for y in range(h):
             for x in range(w):
                 if far[y, x] and not _smooth(rgb, clear, y, x, hull_hold_step):

@@ -95,6 +95,46 @@ def test_the_default_dither_leaves_few_dark_speckles_in_the_dusk_orange(dusk):
     assert speckles(hull_hold=float("inf")) > 1.0
 
 
+
+def _streak_share(rgb, *, run=6, share=0.6, window=15):
+    """Share of the pixels in horizontal runs of ``run`` or more of one colour where that colour is scarce.
+
+    A colour is scarce at a run when it is under ``share`` of the pixels of the
+    ``window`` x ``window`` squares around the run's pixels (mean): a run of a
+    colour that fills its area is a flat patch, one of a colour mixed in with
+    others is a streak.  Measured on the output pixels; the local shares with
+    scipy.ndimage.uniform_filter.
+    """
+    from scipy.ndimage import uniform_filter
+
+    key = (rgb[..., 0].astype(np.int64) << 16) | (rgb[..., 1].astype(np.int64) << 8) | rgb[..., 2]
+    total = 0
+    for value in np.unique(key):
+        hit = key == value
+        local = uniform_filter(hit.astype(float), size=window, mode="nearest")
+        edges = np.diff(np.pad(hit.astype(np.int8), ((0, 0), (1, 1))), axis=1)
+        ys, starts = np.nonzero(edges == 1)
+        _, ends = np.nonzero(edges == -1)  # row-major order, so each start meets its own end
+        for y, a, b in zip(ys, starts, ends):
+            if b - a >= run and local[y, a:b].mean() < share:
+                total += b - a
+    return total / key.size
+
+
+def test_the_default_dither_lays_no_light_streaks_in_the_dusk_sky(dusk):
+    # Where the sky leaves the palette's hull, its colours (whole runs of one
+    # code along a row) crossed the hold's distance row run by row run; a held
+    # run took the lightest colour along its length.  Measured over the sky
+    # above the hills (rows 0-559), against the dither with no hold.
+    pic, pal = dusk
+    default = _streak_share(qd.dither_picture(pic, pal, method="floyd-steinberg").rgb[:560])
+    free = _streak_share(qd.dither_picture(pic, pal, method="floyd-steinberg", hull_hold=float("inf")).rgb[:560])
+    # Measured: 0.0025 with the hold's onset spread (HULL_HOLD_ONSET 0.5),
+    # 0.0049 with a single threshold (before), 0.0020 with no hold.  The bound
+    # of 1.5 times the no-hold figure is our choice.
+    assert free > 0.0
+    assert default <= 1.5 * free
+
 def _ramp(stops, h, w, bits):
     """A vertical ramp through ``stops`` (encoded sRGB 0-1), made here; 8 or 16 bits."""
     stops = np.asarray(stops, float)
@@ -106,8 +146,10 @@ def _ramp(stops, h, w, bits):
     return np.rint(np.broadcast_to(rows[:, None, :], (h, w, 3)) * top).astype(np.uint8 if bits == 8 else np.uint16)
 
 
-@pytest.mark.xfail(strict=True, reason="open (issue 17): measured 2.54 (8-bit) and 3.75 (16-bit) with the "
-                   "default, 2.24 and 3.75 with no hold: the ramp's ends lie outside what the 8 colours mix")
+@pytest.mark.xfail(strict=True, reason="open (issue 17): measured 2.53 (8-bit, rows 233-235: the magenta end, "
+                   "rows 228-239, lies ΔE00 0.5-2.5 outside the palette's hull) and 3.75 (16-bit, rows 122-131: "
+                   "error piles up past the sand peak, 0.004-0.023 outside the hull, where no 16-bit pixel is "
+                   "smooth enough to be held) with the default; 2.24 and 3.75 with no hold")
 @pytest.mark.parametrize("bits", [8, 16])
 def test_a_held_out_gradient_has_no_row_band_with_the_default_dither(bits):
     from quantize.fit.engine import fit_palette

@@ -72,6 +72,7 @@ __all__ = [
     "DEFAULT_REACH",
     "DITHERS",
     "DitherArrays",
+    "HULL_HOLD_ONSET",
     "DitherMethod",
     "bayer_matrix",
     "blue_noise_ranks",
@@ -85,6 +86,7 @@ __all__ = [
     "clustered_dot_size_mm",
     "dither_indices",
     "dither_picture",
+    "hold_onset_thresholds",
     "hull_distance",
     "smooth_pixels",
     "threshold_matrix",
@@ -110,7 +112,8 @@ def check_reach(reach) -> float:
 
 #: Error diffusion's hold on colours outside the palette's hull: a smooth
 #: pixel (see :data:`DEFAULT_HULL_HOLD_STEP`) whose own colour lies further
-#: than this (linear light, Euclidean) outside the hull has its diffusion
+#: than this (linear light, Euclidean; the onset is spread,
+#: :data:`HULL_HOLD_ONSET`) outside the hull has its diffusion
 #: target held within the palette's per-channel range, so error that no
 #: palette mix can discharge does not pile up there and come out as dark
 #: speckles in a light area or a dark rim where the area ends.  ``inf`` turns
@@ -129,6 +132,17 @@ DEFAULT_HULL_HOLD = 0.01
 #: breaks issue 17's row-band limit on them (the held ends lose their mean);
 #: 1 keeps it, but leaves gradients steeper than a code per pixel unheld.
 DEFAULT_HULL_HOLD_STEP = 1.0
+
+#: The hold sets in over a range of distances, not at one: a pixel is held
+#: where its distance exceeds the hold times 1 + this times a blue-noise
+#: threshold of its place (:func:`hold_onset_thresholds`).  A smooth sky's
+#: colours are whole runs of one code along a row, so at one threshold the
+#: held and free pixels came in alternating row runs where the sky left the
+#: hull; a held run cut off the error that its free neighbours had piled up
+#: and took the lightest colour along its length (short light streaks in the
+#: dusk sample).  Scattered, the held pixels make no runs
+#: (tests/test_dither_hold.py, docs/dithering.md).
+HULL_HOLD_ONSET = 0.5
 
 
 def check_hull_hold(hold) -> float:
@@ -201,10 +215,23 @@ def _mark_outside(pic, a: DitherArrays, hold: float, step: float) -> np.ndarray:
     rows = _rows_of(smp).reshape(pic.shape)
     # Only the colours of pixels that may be held are looked at.
     wanted = np.unique(rows[held])
-    far = np.zeros(smp.n_colours, dtype=bool)
-    far[wanted] = hull_distance(a.lut[smp.codes[wanted]], a.pal_lin) > hold
-    state[held & far[rows]] = dk.FAR
+    dist = np.zeros(smp.n_colours)
+    dist[wanted] = hull_distance(a.lut[smp.codes[wanted]], a.pal_lin)
+    ys, xs = np.nonzero(held & (dist[rows] > hold))
+    t = hold_onset_thresholds()
+    keep = dist[rows[ys, xs]] > hold * (1.0 + HULL_HOLD_ONSET * t[ys % t.shape[0], xs % t.shape[1]])
+    state[ys[keep], xs[keep]] = dk.FAR
     return state
+
+
+def hold_onset_thresholds() -> np.ndarray:
+    """The tile of per-place thresholds (0-1) of the hold's onset (:data:`HULL_HOLD_ONSET`).
+
+    The blue-noise matrix shifted by half its size, so it does not line up
+    with the same matrix's threshold modulation of the choice.
+    """
+    t = threshold_matrix("blue-noise")
+    return np.roll(t, (t.shape[0] // 2, t.shape[1] // 2), axis=(0, 1))
 
 
 #: Colours set against the hull at a time: bounds the (n, facets, 3) arrays.
@@ -557,7 +584,9 @@ def dither_picture(pic: ImageInput, palette: quantize.Palette, *, method: Dither
         colour lies further than this outside the palette's convex hull
         (linear light, Euclidean) has its diffusion target held within the
         palette's per-channel range, so error no palette mix can discharge
-        does not pile up over an out-of-gamut area.  Default
+        does not pile up over an out-of-gamut area.  Up to 1.5 times this,
+        only some pixels, scattered by place, are held
+        (:data:`HULL_HOLD_ONSET`).  Default
         :data:`DEFAULT_HULL_HOLD` (0.01: it takes most dark speckles and the
         dark rim out of the dusk sample); ``inf`` turns it off
         (docs/dithering.md, "Colours outside the hull").
