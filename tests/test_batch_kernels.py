@@ -127,8 +127,8 @@ def test_the_two_ciede2000_paths_can_part_on_a_near_tie():
 
 
 def test_a_large_sample_fits_compiled_whatever_the_setting(monkeypatch):
-    # From 2^18 distinct colours (NEAREST_SIZE_FLOOR x COMPILED_FROM, moved
-    # down here to 8 x 1000 so that a small photo stands for a 12 MP one) a
+    # From 2^18 distinct colours (SAMPLE_COMPILED_FROM, moved down here to
+    # 1000 so that a small photo stands for a 12 MP one) a
     # fit runs every CIEDE2000 compiled, as compiled_always does: no numpy
     # CIEDE2000 runs, the palette is compiled_always's bit for bit, and a
     # size fitted alone equals it fitted in a range.  A sample below the
@@ -143,7 +143,7 @@ def test_a_large_sample_fits_compiled_whatever_the_setting(monkeypatch):
             return _f(*args, **kwargs)
 
         monkeypatch.setattr(vectorised, name, counted)
-    monkeypatch.setattr(nearest, "COMPILED_FROM", 8 * 1000)
+    monkeypatch.setattr(nearest, "SAMPLE_COMPILED_FROM", 1000)
     img = Image.fromarray(skimage.data.coffee())
     big = np.asarray(img.resize((img.width // 4, img.height // 4), Image.LANCZOS))
     assert len(np.unique(big.reshape(-1, 3), axis=0)) >= 1000

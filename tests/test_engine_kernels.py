@@ -176,9 +176,9 @@ def test_the_path_depends_on_the_input_size_alone():
 
 
 def test_a_large_sample_is_searched_compiled_at_every_palette_size(monkeypatch):
-    # A sample big enough that 8 palette colours would run the compiled loops
-    # runs them for 2 colours too (NEAREST_SIZE_FLOOR); one colour fewer and
-    # 2 colours stay on numpy.  Which path ran is seen by the compiled kernel's calls.
+    # A sample of SAMPLE_COMPILED_FROM colours (moved down here to 300) runs
+    # the compiled loops for 2 colours too; one colour fewer and 2 colours
+    # stay on numpy.  Which path ran is seen by the compiled kernel's calls.
     calls = []
     kernel = ek.assign_ciede2000
 
@@ -187,7 +187,7 @@ def test_a_large_sample_is_searched_compiled_at_every_palette_size(monkeypatch):
         return kernel(*args)
 
     monkeypatch.setattr(ek, "assign_ciede2000", counted)
-    monkeypatch.setattr(_kernels, "COMPILED_FROM", 8 * 300)
+    monkeypatch.setattr(_kernels, "SAMPLE_COMPILED_FROM", 300)
     rng = np.random.default_rng(7)
     lab, pal = _srgb_lab(rng, 300), _srgb_lab(rng, 2)
     labels, de = _kernels.nearest_ciede2000(lab, pal)

@@ -360,3 +360,18 @@ def test_the_photo_search_refines_few_sizes_and_records_each_it_refined():
     assert pal.k in refined and pal.k - 1 in refined  # the size found and the one below it that misses
     assert sorted(refined) == sorted(set(refined)) == [c.k for c in pal.fit.candidates]
     assert len(refined) <= 5  # a bisection from 2 to the size found refines 10 or more
+
+
+def test_the_target_rule_over_a_long_range_refines_few_sizes():
+    # The target rule's smallest size meeting the target, over 2-64, by the
+    # size search rather than 63 fits; the answer held against fixed-size
+    # fits.  scikit-image's "coffee" sample photo, half size.
+    from skimage import data
+
+    img = np.ascontiguousarray(data.coffee()[::2, ::2])
+    refined = []
+    pal = fit_palette(img, (2, 64), restarts=2, rule="target", target=3.0, progress=refined.append)
+    assert pal.fit.delta_e["mean"] <= 3.0
+    assert fit_palette(img, pal.k - 1, restarts=2).fit.delta_e["mean"] > 3.0
+    assert len(refined) <= 8
+    assert [c.k for c in pal.fit.candidates] == sorted(set(refined))

@@ -676,7 +676,7 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
                          progress=progress)
         if auto is None:
             cands: list[Candidate] = []
-            for c in fit_sizes(sample, ks_eff, settings, progress=progress):
+            for c in _fitted_for_rule(sample, ks_eff, settings, progress):
                 if all(c.palette.k != o.palette.k for o in cands):  # sizes that collapsed appear once
                     cands.append(c)
             record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
@@ -706,6 +706,21 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
     # Mapping this sample's picture onto the palette returned (as reduce does) then reuses this.
     sample.keep_mapping(pal, settings.nearest, chosen.labels, chosen.per_colour_de)
     return pal
+
+
+def _fitted_for_rule(sample, ks: list[int], settings: FitSettings, progress) -> list[Candidate]:
+    """The sizes a rule needs fitted: all of ``ks``, or for the target rule over a range, a search.
+
+    The target rule's answer is the smallest size meeting the target; over
+    a range of consecutive sizes it is found as the continuous-tone size is
+    (:func:`_tone_search`, the top of the range first), with a few full fits
+    instead of one per size (a ``-k 2-256`` range would otherwise fit 255
+    sizes), under the same assumption that a larger palette never has a
+    higher error.  Only the sizes fitted are recorded.
+    """
+    if settings.rule == "target" and len(ks) > 2 and ks == list(range(ks[0], ks[-1] + 1)):
+        return _tone_search(sample, ks[0], ks[-1], settings, cast(float, settings.target), progress, top_first=True)
+    return fit_sizes(sample, ks, settings, progress=progress)
 
 
 def _structures_wanted(settings: FitSettings):

@@ -21,31 +21,32 @@ import numpy as np
 from . import vectorised
 from .loading import compiled, run_blocks
 
-__all__ = ["COMPILED_FROM", "NEAREST_SIZE_FLOOR", "uses_compiled", "sample_runs_compiled", "load_for",
+__all__ = ["COMPILED_FROM", "SAMPLE_COMPILED_FROM", "uses_compiled", "sample_runs_compiled", "load_for",
            "assign_nearest", "assign_nearest_numpy", "LloydAssigner", "centre_sums", "nearest_ciede2000",
            "ciede2000_to", "CiedeColumns"]
 
-#: Point-palette pairs from which a call runs the compiled loops (2^21, about
-#: two million).  Below, numpy takes less time than loading the compiler
-#: does (about half a second, and 100 MB), even on a busy machine; above it
-#: the compiled loops win: a 2..16 sweep of a 12 MP photo's 586 000 colours
-#: took 8.1 s with the threshold at 2^24 and 5.1 s at 2^21
-#: (benchmarks/bench_sweep.py), while 1 MP photos (fewer than 260 000
-#: colours at k = 8) still never load the compiler
-#: (benchmarks/bench_everyday.py).
-COMPILED_FROM = 1 << 21
+#: Point-palette pairs from which a call runs the compiled loops (2^24,
+#: about 17 million).  Below, numpy takes less time than loading the
+#: compiler does (about half a second, and 100 MB), even on a busy machine.
+#: Whole `quantize reduce` processes, this threshold against 2^21 (the
+#: ninth session's), quiet machine, same images written: a 1 MP photo
+#: (60 000 distinct colours) at -k 37 1.18 s against 1.62 s, -k 64 1.42
+#: against 1.89, -k 128 1.98 against 2.22, with no -k (the continuous-tone
+#: search, 37 colours) 2.25-2.29 against 2.35-2.44 s; 162 000 colours at
+#: -k 16 1.06 against 1.65 s; every one 119-143 MiB against 208-252.
+#: A large sample runs compiled whatever its palette's size
+#: (:data:`SAMPLE_COMPILED_FROM`).
+COMPILED_FROM = 1 << 24
 
-#: Nearest-colour searches count their palette as at least this many
-#: colours when choosing a path, so that a sample of 2^18 (262 144) distinct
-#: colours or more runs the compiled loops at every palette size.  A palette
-#: of 8 colours or more on such a sample needs them anyway; below 8, the
-#: numpy path cost a 2..16 sweep of the 12 MP photo's 586 000 colours about
-#: 0.3 s of CPU (sizes 2 and 3, 0.25 s each against 0.08-0.1 s compiled),
-#: more than everything else the sweep gained or lost since the flat-module
-#: layout (benchmarks/compare_sweep_trees.py).  Samples this large come from
-#: photos of several megapixels, whose fits load the compiled loops for
-#: their Euclidean steps as well.
-NEAREST_SIZE_FLOOR = 8
+#: Distinct colours from which a sample runs the compiled loops at every
+#: palette size (2^18, 262 144).  Samples this large come from photos of
+#: several megapixels, whose sweeps call the nearest-colour search and
+#: CIEDE2000 often enough to repay the loading: on numpy, sizes 2 and 3 of
+#: the 12 MP sweep photo's 586 000 colours took 0.25 s each against
+#: 0.08-0.1 s compiled, more than everything else the sweep gained or lost
+#: since the flat-module layout (benchmarks/compare_sweep_trees.py), and its
+#: refinements' many small numpy calls contended for the interpreter lock.
+SAMPLE_COMPILED_FROM = 1 << 18
 
 
 def uses_compiled(n: int, k: int) -> bool:
@@ -56,7 +57,7 @@ def uses_compiled(n: int, k: int) -> bool:
 def sample_runs_compiled(n_colours: int) -> bool:
     """Whether a fit to ``n_colours`` distinct colours runs every CIEDE2000 compiled (size alone).
 
-    From 2^18 colours (:data:`NEAREST_SIZE_FLOOR`) the sample's own mapping
+    From :data:`SAMPLE_COMPILED_FROM` colours the sample's own mapping
     runs the compiled loops at every palette size, so the fit loads them
     anyway; its refinements' many small CIEDE2000 measurements on the binned
     sample then run compiled too (``FitSettings.compiled_always``).  On
@@ -67,12 +68,12 @@ def sample_runs_compiled(n_colours: int) -> bool:
     alone, so a palette size fitted alone or within a range, on a busy or
     idle machine, gives the same palette.
     """
-    return uses_compiled(n_colours, NEAREST_SIZE_FLOOR)
+    return n_colours >= SAMPLE_COMPILED_FROM
 
 
 def _nearest_compiled(n: int, k: int) -> bool:
     """Whether a nearest-colour search of ``n`` colours among ``k`` runs the compiled loops (size alone)."""
-    return uses_compiled(n, max(k, NEAREST_SIZE_FLOOR))
+    return n >= SAMPLE_COMPILED_FROM or uses_compiled(n, k)
 
 
 def _euclid_compiled(n: int, k: int) -> bool:
@@ -260,9 +261,9 @@ def nearest_ciede2000(lab: np.ndarray, pal_lab: np.ndarray, *, compiled_always: 
                       ) -> tuple[np.ndarray, np.ndarray]:
     """Exact nearest palette colour of every CIELAB colour by CIEDE2000.
 
-    The compiled loops run from :data:`COMPILED_FROM` pairs (the palette
-    counted as at least :data:`NEAREST_SIZE_FLOOR` colours), or at every
-    size with ``compiled_always`` (a process that fits many images).  The
+    The compiled loops run from :data:`COMPILED_FROM` pairs or
+    :data:`SAMPLE_COMPILED_FROM` colours, or at every size with
+    ``compiled_always`` (a process that fits many images).  The
     two paths agree to rounding, not bit for bit: a near tie, within the
     last bits of a ΔE00, may go to either colour.
 
