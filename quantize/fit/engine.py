@@ -889,7 +889,8 @@ def _auto_record(auto: _Auto, sample, ks, settings: FitSettings, sources, notes)
 def _record(sample, ks, cands, settings: FitSettings, sources, notes) -> FitRecord:
     """Choose among the candidates by the rule, and record how the palette was made."""
     ks_c = [c.palette.k for c in cands]
-    one = len(cands) == 1
+    # One candidate is a fixed size, unless a target search over a range stopped after one fit (its top).
+    one = len(cands) == 1 and not (settings.rule == "target" and len(ks) > 1)
     choice = choose_k(ks_c, [c.delta_e for c in cands], [c.robust for c in cands],
                       rule="bic" if one else settings.rule, target=settings.target,
                       target_stat=settings.target_stat)
