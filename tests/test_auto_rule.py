@@ -90,6 +90,15 @@ def test_photos_get_the_smallest_palette_meeting_the_visual_target(name):
     assert 12 < pal.k <= 256
 
 
+def _assert_continuous_tone_on_target(small):
+    """``small`` is judged continuous tone and its palette meets mean ΔE00 <= 2.5 (colour-science's CIEDE2000)."""
+    pal = fit_palette(small, restarts=2)
+    assert pal.fit.judged == "continuous tone"
+    lab = rgb2lab(small.reshape(-1, 3) / 255.0)  # D65, as the tool's CIELAB
+    mapped = rgb2lab(np.asarray(pal.apply(small).rgb).reshape(-1, 3) / 255.0)
+    assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
+
+
 def _deep_field(scale):
     """scikit-image's hubble_deep_field photograph resized by ``scale`` with Pillow's Lanczos filter."""
     img = Image.fromarray(skimage.data.hubble_deep_field())
@@ -104,12 +113,7 @@ def test_a_small_copy_of_a_deep_field_photo_is_continuous_tone():
     # Its galaxies, specks of colours no mix of its flat colours makes, now say
     # photograph (core/regions.py SPECK_SHARE).  Expected: continuous tone, and the
     # visual target of docs/method.md met (mean ΔE00 <= 2.5, colour-science's CIEDE2000).
-    small = _deep_field(0.4)
-    pal = fit_palette(small, restarts=2)
-    assert pal.fit.judged == "continuous tone"
-    lab = rgb2lab(small.reshape(-1, 3) / 255.0)  # D65, as the tool's CIELAB
-    mapped = rgb2lab(np.asarray(pal.apply(small).rgb).reshape(-1, 3) / 255.0)
-    assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
+    _assert_continuous_tone_on_target(_deep_field(0.4))
 
 
 @pytest.mark.parametrize("scale", [0.3, 0.5])
@@ -136,12 +140,7 @@ def test_a_small_copy_of_the_moon_photo_is_continuous_tone():
     # flat ink, scanned, 0.27 at most: inkcount.TONE_TEXTURE_L).  Expected:
     # continuous tone and the visual target of docs/method.md met (mean ΔE00 <= 2.5,
     # colour-science's CIEDE2000).
-    small = _moon(0.4)
-    pal = fit_palette(small, restarts=2)
-    assert pal.fit.judged == "continuous tone"
-    lab = rgb2lab(small.reshape(-1, 3) / 255.0)  # D65, as the tool's CIELAB
-    mapped = rgb2lab(np.asarray(pal.apply(small).rgb).reshape(-1, 3) / 255.0)
-    assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
+    _assert_continuous_tone_on_target(_moon(0.4))
 
 
 @pytest.mark.parametrize("scale", [1, 0.3, 0.5])
