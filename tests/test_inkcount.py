@@ -46,6 +46,20 @@ def test_artwork_is_judged_artwork(name):
     assert j.kind == "artwork", j.reason
 
 
+@pytest.mark.xfail(strict=True, reason=(
+    "open (issue 14): generated demo lettering (6 inks, seed 1011) through the scan simulation is judged "
+    "continuous tone: flat 0.747, spread 3.64 (> 3.5), even share 0.18 (< 0.5), specks 0, lightness texture "
+    "0.25 (< 0.55).  Its olive background (54 % of the image) holds the 1 px strokes and small lettering of "
+    "low-contrast inks, which stay under the flatness threshold: its median ΔE00 from its colour is 0.51 but "
+    "11 % of its pixels lie over 3.5 (90th percentile 3.75), so it is not even.  Requiring the spread rule's "
+    "tone to be everywhere (texture >= 0.3) would fix it but leaves scikit-image's deep-field photo at full "
+    "size, 0.6 and 0.8 (texture 0.36-0.39, called continuous tone by that rule only) too close; docs/method.md 6a"))
+def test_scanned_lettering_with_low_contrast_hairlines_is_judged_artwork():
+    rgb, _ = lettering_artwork(6, 1011)
+    j = judge([_regions(scan(rgb, 1011))])
+    assert j.kind == "artwork", j.reason
+
+
 @pytest.mark.parametrize("name", PHOTOS)
 def test_photos_and_ramps_are_judged_continuous_tone(name):
     j = judge([_regions(getattr(skimage.data, name)())])

@@ -15,7 +15,9 @@ inside.  :func:`find_regions` separates the two:
    weighting ``S_C`` of CIEDE2000, Sharma et al. 2005, eq. 17), so that
    the noise of a saturated ink counts as the eye and CIEDE2000 weigh it.
    An edge between two inks, however soft, crosses the window and is not
-   flat; a gentle shading is.
+   flat; a gentle shading is.  How much the lightness of flat pixels varies
+   about a plane fitted to each region's (``Regions.texture``) tells a
+   photograph's texture, under the threshold, from an ink's noise.
 3. Flat pixels that touch (8-connected) form a region, if its core holds
    a disc of :data:`MIN_CORE_RADIUS` pixels (thin flat runs are hairlines
    and the length of a seam).  A region's colour
@@ -241,6 +243,13 @@ class Regions:
         is settled whether it reaches :data:`SPECK_SHARE`, so above it (or
         below) it is a lower bound.  0 where spots and strokes were not
         looked for.
+    texture : float
+        How much the lightness varies all through the flat regions: the
+        median distance (L*) of their pixels' smoothed lightness from a
+        plane fitted to each region's (:func:`_texture`).  A plane is an
+        even ink or a gentle shading across it; what is left is noise the
+        smoothing averaged (flat ink, scanned: under 0.3) or a photograph's
+        texture (0 without regions).
     """
 
     lab: np.ndarray
@@ -253,6 +262,7 @@ class Regions:
     centre: np.ndarray
     even_share: float = 1.0
     speck_share: float = 0.0
+    texture: float = 0.0
 
     @property
     def share(self) -> np.ndarray:
@@ -1011,7 +1021,7 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     structures : bool or callable, default=True
         Whether to look for small spots and thin strokes too (the costliest
         step on a photograph).  A callable is asked with the flat regions'
-        ``flat_share``, ``spread`` and ``even_share`` (as keywords): the
+        ``flat_share``, ``spread``, ``even_share`` and ``texture`` (as keywords): the
         fitting engine looks for them only in a picture that those alone
         would not call continuous tone.
 
@@ -1045,14 +1055,14 @@ def _find_regions(picture: Picture, threshold: float, max_pixels: int, structure
     lab = srgb_to_lab(picture.rgb[::scale, ::scale] / float(picture.max_code))
     smooth = np.stack([_gaussian(lab[..., c], SMOOTHING[c > 0]) for c in range(3)], axis=-1)
     labels, n, flat = _flat_cores(smooth, opaque, threshold)
-    mean, area, centre, spread, even_share = _core_colours(labels, n, lab, opaque, scale)
+    mean, area, centre, spread, even_share, texture = _core_colours(labels, n, lab, smooth, opaque, scale)
     n_opaque = int(np.count_nonzero(picture.opaque))
     flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
     # Spots too small or too noisy to be flat, and strokes too thin: regions
     # too, after the flat ones (which alone decide flat_share and spread).
     # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
     if callable(structures):
-        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share))
+        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share, texture=texture))
     speck_share = 0.0
     if len(area) and structures:
         labels, mean, area, centre, speck_share = _with_structures(lab, smooth, opaque, labels, mean, area, centre,
@@ -1067,7 +1077,7 @@ def _find_regions(picture: Picture, threshold: float, max_pixels: int, structure
             mean, area, centre = mean[keep], area[keep], centre.reshape(-1, 2)[keep]
     return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
                    flat_share=flat_share, labels=labels, scale=scale, spread=spread,
-                   centre=centre, even_share=even_share, speck_share=speck_share)
+                   centre=centre, even_share=even_share, speck_share=speck_share, texture=texture)
 
 
 def _flat_cores(smooth, opaque, threshold: float):
@@ -1097,10 +1107,10 @@ def _flat_cores(smooth, opaque, threshold: float):
     return labels, n, flat
 
 
-def _core_colours(labels, n: int, lab, opaque, scale: int):
+def _core_colours(labels, n: int, lab, smooth, opaque, scale: int):
     """Mean colour, area (full-size pixels, rim included) and centre of each core, and the spread inside them."""
     if not n:
-        return np.zeros((0, 3)), np.zeros(0), np.zeros((0, 2)), float("inf"), 0.0
+        return np.zeros((0, 3)), np.zeros(0), np.zeros((0, 2)), float("inf"), 0.0, 0.0
     # The mean of a flat core: its pixels lie within the threshold of each
     # other, and a bincount is a fraction of a per-label median's cost.
     count = np.bincount(labels.ravel(), minlength=n + 1)[1:]
@@ -1112,7 +1122,31 @@ def _core_colours(labels, n: int, lab, opaque, scale: int):
     inside = labels > 0
     step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
     de = np.asarray(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]))
-    return mean, area, centre, float(np.percentile(de, 90)), _even_share(de, labels[inside][::step], n)
+    return (mean, area, centre, float(np.percentile(de, 90)), _even_share(de, labels[inside][::step], n),
+            _texture(labels, n, smooth, inside, step))
+
+
+def _texture(labels, n: int, smooth, inside, step: int) -> float:
+    """Median distance (L*) of the flat pixels' smoothed lightness from a plane fitted to each region's."""
+    yy, xx = np.nonzero(inside)
+    lbl = labels[inside][::step] - 1
+    light = smooth[..., 0][inside][::step]
+    count = np.maximum(np.bincount(lbl, minlength=n), 1).astype(np.float64)  # a region the sampling missed: 1
+
+    def total(w):
+        return np.bincount(lbl, weights=w, minlength=n)
+
+    # Coordinates from each region's centre keep the 3 x 3 normal equations well conditioned.
+    x, y = xx[::step].astype(np.float64), yy[::step].astype(np.float64)
+    x -= (total(x) / count)[lbl]
+    y -= (total(y) / count)[lbl]
+    m = np.zeros((n, 3, 3))
+    m[:, 0, 0] = count
+    m[:, 1, 1], m[:, 2, 2] = total(x * x) + 1e-9, total(y * y) + 1e-9  # a one-pixel-wide region: no slope across it
+    m[:, 1, 2] = m[:, 2, 1] = total(x * y)
+    rhs = np.stack([total(light), total(x * light), total(y * light)], axis=1)
+    coef = np.linalg.solve(m, rhs[..., None])[..., 0]
+    return float(np.median(np.abs(light - coef[lbl, 0] - coef[lbl, 1] * x - coef[lbl, 2] * y)))
 
 
 def _centres(labels, n: int, count):
