@@ -34,6 +34,10 @@ __all__ = ["COMPILED_FROM", "SAMPLE_COMPILED_FROM", "uses_compiled", "sample_run
 #: against 1.89, -k 128 1.98 against 2.22, with no -k (the continuous-tone
 #: search, 37 colours) 2.25-2.29 against 2.35-2.44 s; 162 000 colours at
 #: -k 16 1.06 against 1.65 s; every one 119-143 MiB against 208-252.
+#: The price: a whole sweep 2..16 of that 162 000-colour file, which calls
+#: the search at every size in one process, took 4.9-5.0 s (5.7-5.9 s CPU)
+#: on numpy against 4.2-4.7 s (4.7-4.9 s CPU) with the compiled loops, at
+#: 150 MiB against 259.  Single fits, what `reduce` runs, won.
 #: A large sample runs compiled whatever its palette's size
 #: (:data:`SAMPLE_COMPILED_FROM`).
 COMPILED_FROM = 1 << 24
@@ -73,7 +77,7 @@ def sample_runs_compiled(n_colours: int) -> bool:
 
 def _nearest_compiled(n: int, k: int) -> bool:
     """Whether a nearest-colour search of ``n`` colours among ``k`` runs the compiled loops (size alone)."""
-    return n >= SAMPLE_COMPILED_FROM or uses_compiled(n, k)
+    return sample_runs_compiled(n) or uses_compiled(n, k)
 
 
 def _euclid_compiled(n: int, k: int) -> bool:
