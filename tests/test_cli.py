@@ -211,6 +211,32 @@ def test_real_subprocess_entry_points(art, tmp_path):
     assert p.returncode == 0 and "reduce" in p.stdout
 
 
+@pytest.mark.parametrize("user_value, expected", [(None, "False"), ("1", "True")])
+def test_the_program_turns_numpys_huge_pages_off_unless_the_user_chose(user_value, expected):
+    # quantize.cli.entry: numpy reads NUMPY_MADVISE_HUGEPAGE once, at import; the program sets it to 0
+    # before numpy loads unless the user set it.  Measured from numpy itself: its setter returns the
+    # setting in force (numpy's own API; private, but the only way to read it back).
+    code = ("import sys; from quantize.cli import entry; sys.argv = ['quantize', '--help']\n"
+            "try:\n    entry.run()\nexcept SystemExit:\n    pass\n"
+            "import numpy as np; core = getattr(np, '_core', None) or np.core\n"
+            "sys.stderr.write(str(core.multiarray._set_madvise_hugepage(True)))")
+    env = {k: v for k, v in os.environ.items() if k != "NUMPY_MADVISE_HUGEPAGE"}
+    if user_value is not None:
+        env["NUMPY_MADVISE_HUGEPAGE"] = user_value
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
+    assert p.returncode == 0, p.stderr
+    assert p.stderr.strip() == expected
+
+
+def test_importing_the_library_leaves_numpys_huge_pages_alone():
+    code = ("import os, quantize, quantize.fit.engine; "
+            "print(os.environ.get('NUMPY_MADVISE_HUGEPAGE'))")
+    env = {k: v for k, v in os.environ.items() if k != "NUMPY_MADVISE_HUGEPAGE"}
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env)
+    assert p.returncode == 0, p.stderr
+    assert p.stdout.strip() == "None"
+
+
 def test_help_does_not_import_heavy_modules():
     code = ("import sys; from click.testing import CliRunner; from quantize.cli.main import main; "
             "CliRunner().invoke(main, ['--help']); "
