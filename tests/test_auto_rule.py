@@ -99,6 +99,46 @@ def _assert_continuous_tone_on_target(small):
     assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
 
 
+def _retina(scale=0.4):
+    """scikit-image's retina photograph (a fundus image) resized by ``scale`` with Pillow's Lanczos filter."""
+    img = Image.fromarray(skimage.data.retina())
+    return np.asarray(img.resize((int(img.width * scale), int(img.height * scale)), Image.LANCZOS))
+
+
+def _optic_disc_de(img, palette):
+    """Worst ΔE00 (colour-science) from the optic disc's two tones to their nearest palette colours.
+
+    The disc is the retina photograph's only bright area: its rim, the pixels of CIELAB L* 65 to 80
+    (scikit-image's rgb2lab, D65), and its core, L* 80 or more; each tone is the median of its pixels.
+    """
+    lab = rgb2lab(img / 255.0).reshape(-1, 3)
+    pal = rgb2lab(palette.rgb8[None].astype(np.float64) / 255.0)[0]
+    worst = 0.0
+    for lo, hi in ((65.0, 80.0), (80.0, 101.0)):
+        tone = np.median(lab[(lab[:, 0] >= lo) & (lab[:, 0] < hi)], axis=0)
+        worst = max(worst, float(delta_E(np.broadcast_to(tone, pal.shape), pal, method="CIE 2000").min()))
+    return worst
+
+
+def test_a_photo_on_a_black_ground_keeps_its_bright_disc():
+    # Found on a photo no rule was tuned on (eleventh session): scikit-image's retina at 0.4.  About 40 %
+    # of it is the black ground around the eye, mapped exactly, which carries the mean: 4 colours met mean
+    # ΔE00 2.5 (2.32), and the optic disc (0.6 % of the image, L* 72-85) became the fundus's orange,
+    # ΔE00 13-30 away (looked at).  A size that leaves a flat area of 0.1 % or more ΔE00 10 or more from
+    # every colour no longer meets the target (docs/method.md section 5).  Expected: the mean target met
+    # (colour-science's CIEDE2000 on the written colours) and both tones of the disc within ΔE00 10 of a
+    # palette colour; one colour fewer misses one or the other.
+    img = _retina()
+    pal = fit_palette(img, restarts=2)
+    assert pal.fit.judged == "continuous tone"
+    lab = rgb2lab(img.reshape(-1, 3) / 255.0)
+    mapped = rgb2lab(np.asarray(pal.apply(img).rgb).reshape(-1, 3) / 255.0)
+    assert float(np.mean(delta_E(lab, mapped, method="CIE 2000"))) <= 2.5
+    assert _optic_disc_de(img, pal) < 10.0
+    fewer = fit_palette(img, pal.k - 1, restarts=2)
+    assert fewer.apply(img).delta_e["mean"] > 2.5 or _optic_disc_de(img, fewer) >= 10.0
+
+
 def _deep_field(scale):
     """scikit-image's hubble_deep_field photograph resized by ``scale`` with Pillow's Lanczos filter."""
     img = Image.fromarray(skimage.data.hubble_deep_field())

@@ -579,7 +579,8 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
         (:mod:`quantize.fit.inkcount`): artwork gets the fewest inks that
         print every flat area of at least 0.1 % within ΔE00 5; continuous
         tone the smallest palette whose mean ΔE00 meets ``target`` (default
-        2.5).  ``"bic"`` and ``"target"``: :mod:`quantize.fit.selection`.
+        2.5) and, unless ``target`` is given, that leaves no flat area of
+        0.1 % or more mapped ΔE00 10 or more away.  ``"bic"`` and ``"target"``: :mod:`quantize.fit.selection`.
     kind : {"auto", "artwork", "continuous tone"}, default="auto"
         Overrides the ``"auto"`` rule's judgement of the image.
     target : float, optional
@@ -787,6 +788,33 @@ def _with_lost(record: FitRecord, regions, palette) -> FitRecord:
     return dataclasses.replace(record, lost=tuple(lost), notes=notes)
 
 
+def _keeps_flat_areas(sample, regions, per_colour_de: np.ndarray) -> bool:
+    """Whether every flat area of 0.1 % or more has half its pixels mapped within ΔE00 10.
+
+    Read from the pixels, not from an area's mean colour: a photograph's
+    smooth gradient (a colour wheel) can be one flat area whose mean is a
+    colour it does not hold, and such an area is served when its own pixels are.
+    """
+    from .inkcount import DISTINCT_DE, MIN_SHARE
+
+    big = np.flatnonzero(regions.share >= MIN_SHARE)
+    if big.size == 0:
+        return True
+    step = regions.scale
+    de = sample.index_image(per_colour_de, dtype=np.float32)[::step, ::step]
+    labels = regions.labels[:de.shape[0], :de.shape[1]]
+    de = de[:labels.shape[0], :labels.shape[1]]
+    inside = labels > 0
+    lab, d = labels[inside], de[inside]
+    order = np.lexsort((d, lab))
+    lab, d = lab[order], d[order]
+    count = np.bincount(lab, minlength=len(regions.share) + 1)[1:]
+    start = np.cumsum(count) - count
+    have = count[big] > 0
+    median = d[start[big][have] + count[big][have] // 2]
+    return bool(np.all(median < DISTINCT_DE))
+
+
 def _lost_rows(lost, palette) -> list:
     return [{**item, "nearest_hex": "#{:02x}{:02x}{:02x}".format(*(int(v) for v in palette.rgb8[item["nearest"]]))}
             for item in lost]
@@ -815,14 +843,33 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         target = settings.target or _tone_target()
         top = TONE_MAX_K if not k_given else ks[-1]
         top = min(top, sample.n_colours)
-        cands = _tone_search(sample, ks[0], top, settings, target, progress, top_first=k_given)
-        met = [c for c in cands if c.delta_e[settings.target_stat] <= target]
+
+        def keeps(c: Candidate) -> bool:
+            """No flat area of 0.1 % or more is mapped ΔE00 10 or more away (docs/method.md §5)."""
+            if sample.shape is None or len(regions) != 1:  # a pooled set: its groups' colours
+                return not lost_inks(groups, c.palette.lab)
+            return _keeps_flat_areas(sample, regions[0], c.per_colour_de)
+
+        stat = settings.target_stat
+        # A target the user gave is taken as given: the smallest size meeting it (a lost area is still named).
+        guard = keeps if settings.target is None else None
+        cands = _tone_search(sample, ks[0], top, settings, target, progress, top_first=k_given, keeps=guard)
+        met_stat = [c for c in cands if c.delta_e[stat] <= target]
+        met = [c for c in met_stat if guard is None or guard(c)]
         chosen = min(met, key=lambda c: c.palette.k) if met else max(cands, key=lambda c: c.palette.k)
-        target_met = bool(met)
-        reason = (f"continuous tone: the smallest palette with ΔE00 {settings.target_stat} "
-                  f"{chosen.delta_e[settings.target_stat]:.2f} <= {target:g}" if met else
-                  f"continuous tone: no palette up to {top} colours meets ΔE00 {settings.target_stat} <= {target:g} "
-                  f"(best {chosen.delta_e[settings.target_stat]:.2f}); took the largest")
+        target_met = chosen.delta_e[stat] <= target
+        if met:
+            reason = f"continuous tone: the smallest palette with ΔE00 {stat} {chosen.delta_e[stat]:.2f} <= {target:g}"
+            fewer = [c.palette.k for c in met_stat if c.palette.k < chosen.palette.k]
+            if fewer:
+                reason += (f" that keeps every flat area of at least 0.1 % within ΔE00 10 ({max(fewer)} colours met "
+                           "the target but lost one)")
+        elif met_stat:
+            reason = (f"continuous tone: ΔE00 {stat} {chosen.delta_e[stat]:.2f} <= {target:g}, but even {top} "
+                      "colours leave a flat area of at least 0.1 % ΔE00 10 or more from every colour; took the largest")
+        else:
+            reason = (f"continuous tone: no palette up to {top} colours meets ΔE00 {stat} <= {target:g} "
+                      f"(best {chosen.delta_e[stat]:.2f}); took the largest")
     lost = tuple(lost_inks(groups, chosen.palette.lab))
     if settings.kind != "auto":
         judgement = dataclasses.replace(judgement, kind=kind, reason=f"set as {kind} (the image would have been "
@@ -837,7 +884,7 @@ def _tone_target() -> float:
 
 
 def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float, progress, *,
-                 top_first: bool = False) -> list:
+                 top_first: bool = False, keeps: Callable[[Candidate], bool] | None = None) -> list:
     """The fully fitted sizes that find the smallest one in ``lo``..``hi`` meeting the target.
 
     Each size is fitted on its own stream, so the size found is the one a
@@ -849,7 +896,9 @@ def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float,
     within a screen-print range such as 2-12, and then ``hi`` is the answer
     after one fit.  The search assumes that a larger palette never has a
     higher error, so the answer does not depend on the guess; only the
-    candidates recorded do.
+    candidates recorded do.  ``keeps``, if given, is a second condition a
+    size must meet, assumed to hold from some size on as the target does
+    (the automatic rule's: no flat area lost).
     """
     from .size_search import REFINE_GAIN, guess_size, smallest_meeting
 
@@ -859,7 +908,7 @@ def _tone_search(sample, lo: int, hi: int, settings: FitSettings, target: float,
     def meets(k):
         if k not in fitted:
             fitted[k] = fit_sizes(sample, [k], settings, progress=progress)[0]
-        return fitted[k].delta_e[stat] <= target
+        return fitted[k].delta_e[stat] <= target and (keeps is None or keeps(fitted[k]))
 
     lo = max(lo, 1)
     if top_first and not meets(hi):
