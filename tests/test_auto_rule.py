@@ -139,6 +139,16 @@ def test_a_photo_on_a_black_ground_keeps_its_bright_disc():
     assert fewer.apply(img).delta_e["mean"] > 2.5 or _optic_disc_de(img, fewer) >= 10.0
 
 
+def test_a_set_fitted_together_keeps_the_bright_disc_of_each_image():
+    # The same rule for a set (one palette for several images, each image's areas read from its own
+    # pixels): scikit-image's retina at 0.4 with its chelsea at half size.  Expected: continuous tone,
+    # the disc's two tones within ΔE00 10 of a palette colour (colour-science's CIEDE2000).
+    img = _retina()
+    pal = fit_palette([img, np.ascontiguousarray(skimage.data.chelsea()[::2, ::2])], restarts=2)
+    assert pal.fit.judged == "continuous tone"
+    assert _optic_disc_de(img, pal) < 10.0
+
+
 def _deep_field(scale):
     """scikit-image's hubble_deep_field photograph resized by ``scale`` with Pillow's Lanczos filter."""
     img = Image.fromarray(skimage.data.hubble_deep_field())

@@ -674,7 +674,7 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
         auto = None
         if settings.rule == "auto" and len(ks_eff) > 1 and has_regions:
             auto = _auto(sample, [j.result() for j in region_jobs], ks_eff, settings, k_given=k is not None,
-                         progress=progress)
+                         progress=progress, pictures=pictures)
         if auto is None:
             cands: list[Candidate] = []
             for c in _fitted_for_rule(sample, ks_eff, settings, progress):
@@ -820,7 +820,7 @@ def _lost_rows(lost, palette) -> list:
             for item in lost]
 
 
-def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress) -> _Auto:
+def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress, pictures=()) -> _Auto:
     """The automatic rule (:mod:`quantize.fit.inkcount`) on the images' flat regions."""
     from .inkcount import TONE_MAX_K, group_sample, ink_groups, judge, lost_inks, missing_inks
 
@@ -845,10 +845,16 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         top = min(top, sample.n_colours)
 
         def keeps(c: Candidate) -> bool:
-            """No flat area of 0.1 % or more is mapped ΔE00 10 or more away (docs/method.md §5)."""
-            if sample.shape is None or len(regions) != 1:  # a pooled set: its groups' colours
-                return not lost_inks(groups, c.palette.lab)
-            return _keeps_flat_areas(sample, regions[0], c.per_colour_de)
+            """No flat area of 0.1 % or more is mapped ΔE00 10 or more away, in any image (docs/method.md §5)."""
+            if len(regions) == 1 and sample.shape is not None:
+                return _keeps_flat_areas(sample, regions[0], c.per_colour_de)
+            from quantize.core.sampling import sample_picture
+
+            from .assign import map_sample
+
+            return all(_keeps_flat_areas(own, r, map_sample(own, c.palette, metric=cast(str, settings.nearest),
+                                                            compiled_always=_runs_compiled(own, settings))[1])
+                       for own, r in zip((sample_picture(pic) for pic in pictures), regions))
 
         stat = settings.target_stat
         # A target the user gave is taken as given: the smallest size meeting it (a lost area is still named).
