@@ -17,7 +17,9 @@ inside.  :func:`find_regions` separates the two:
    An edge between two inks, however soft, crosses the window and is not
    flat; a gentle shading is.  How much the lightness of flat pixels varies
    about a plane fitted to each region's (``Regions.texture``) tells a
-   photograph's texture, under the threshold, from an ink's noise.
+   photograph's texture, under the threshold, from an ink's noise, and
+   the part of it at 9 to 33 px (``Regions.grain``) a photograph's grain
+   from a scan's noise, which lies under 9 px.
 3. Flat pixels that touch (8-connected) form a region, if its core holds
    a disc of :data:`MIN_CORE_RADIUS` pixels (thin flat runs are hairlines
    and the length of a seam).  A region's colour
@@ -77,7 +79,7 @@ __all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN
            "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
            "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS", "INTERIOR_SHARE", "INTERIOR_REACH", "INTERIOR_RIM",
            "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE", "BLEED_CHROMA_SHIFT", "PRINTABLE_WIDTH",
-           "LINE_MIX_DE", "SIDE_REACH", "SPECK_SHARE"]
+           "LINE_MIX_DE", "SIDE_REACH", "SPECK_SHARE", "GRAIN_REACH", "GRAIN_SURROUND", "GRAIN_QUANTILE"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -198,6 +200,28 @@ SIDE_REACH = 8
 #: scikit-image's deep-field photo at full size and at 0.4, 0.6 and 0.8 of
 #: it, 1.7 % to 2.3 %.  0.5 % lies between, about 3 times from each.
 SPECK_SHARE = 0.005
+#: Half-widths (px) of the windows of :func:`_grain`: the lightness's
+#: distance from each region's plane is averaged over 9 x 9 flat pixels, less
+#: its average over 33 x 33 (a band of scales, as a difference of two box
+#: filters passes), and that is squared and averaged over 9 x 9 again.  A
+#: photograph's grain (the blotches of a brick, the faint sky of a deep-field
+#: photo) lies in that band and survives; scan noise and JPEG's, a pixel or a
+#: block across, mostly average out of the small window, and what a plane
+#: leaves of a shading that clips at full ink (a kink across the sheet) out of
+#: the difference.  Chosen on the tuning set of fit/inkcount.TONE_GRAIN_L:
+#: with the 9 x 9 average alone, shaded and scanned flat art (seed 5102, its
+#: ground's green at 254 clipped by the shading) measured 0.174, as much as
+#: scikit-image's brick at 0.4 (0.181); less the 25 x 25, 33 x 33, 41 x 41 and
+#: 49 x 49 averages it measured 0.082 to 0.097, and the brick at 0.4 to 1 of
+#: its size stood 1.32, 1.47, 1.47 and 1.50 times above the generated scans
+#: (this band alone, on 122 tuning files; docs/method.md *Grain*).
+GRAIN_REACH = 4
+GRAIN_SURROUND = 16
+#: The share of the flat pixels below which the grain is read: its first
+#: quartile, so that three quarters of the flat area must hold it.  Artwork may
+#: hold some tone (scikit-image's logo: a tinted photograph over about a third
+#: of its flat area; its white ground, 32 % of it, is even).
+GRAIN_QUANTILE = 0.25
 #: Pictures above this many pixels are analysed at a reduced scale.
 ANALYSIS_PIXELS = 300_000
 _WINDOW = 5
@@ -250,6 +274,25 @@ class Regions:
         even ink or a gentle shading across it; what is left is noise the
         smoothing averaged (flat ink, scanned: under 0.3) or a photograph's
         texture (0 without regions).
+    grain : float
+        Lightness variation at the scale of a photograph's grain: the first
+        quartile over the flat pixels of the RMS, over a 9 x 9 window, of the
+        9 x 9 mean less the 33 x 33 mean of their lightness's distance from
+        their region's plane (:func:`_grain`; 0 without regions).
+    grain_ratio : float
+        How that band compares with the finer variation (the distance less
+        its 9 x 9 mean), RMS over the same window: the median over the flat
+        pixels of their ratio.  Noise, white after a scan's blur, puts most
+        of its variation under 9 px (generated scans: 0.15 to 0.51); a
+        photograph's surface does not (scikit-image's brick: 0.57 to 0.66; 0
+        without regions).
+    ramp_spread : float
+        The spread measured from each region's plane instead of its mean
+        colour: the 90th percentile CIEDE2000 of the flat pixels from a plane
+        fitted to their region's L*, a* and b* (:func:`_ramp_spread`).  Well
+        under ``spread`` where the regions' colours run in ramps (shading, a
+        colour wheel); about equal where they vary in strokes or grain (0:
+        not measured).
     """
 
     lab: np.ndarray
@@ -263,6 +306,9 @@ class Regions:
     even_share: float = 1.0
     speck_share: float = 0.0
     texture: float = 0.0
+    grain: float = 0.0
+    grain_ratio: float = 0.0
+    ramp_spread: float = 0.0
 
     @property
     def share(self) -> np.ndarray:
@@ -1021,9 +1067,10 @@ def find_regions(picture: Picture, *, threshold: float = FLAT_THRESHOLD,
     structures : bool or callable, default=True
         Whether to look for small spots and thin strokes too (the costliest
         step on a photograph).  A callable is asked with the flat regions'
-        ``flat_share``, ``spread``, ``even_share`` and ``texture`` (as keywords): the
-        fitting engine looks for them only in a picture that those alone
-        would not call continuous tone.
+        ``flat_share``, ``spread``, ``even_share``, ``texture``, ``grain``,
+        ``grain_ratio`` and ``ramp_spread`` (as keywords): the fitting engine
+        looks for them only in a picture that those alone would not call
+        continuous tone.
 
     Returns
     -------
@@ -1055,14 +1102,16 @@ def _find_regions(picture: Picture, threshold: float, max_pixels: int, structure
     lab = srgb_to_lab(picture.rgb[::scale, ::scale] / float(picture.max_code))
     smooth = np.stack([_gaussian(lab[..., c], SMOOTHING[c > 0]) for c in range(3)], axis=-1)
     labels, n, flat = _flat_cores(smooth, opaque, threshold)
-    mean, area, centre, spread, even_share, texture = _core_colours(labels, n, lab, smooth, opaque, scale)
+    (mean, area, centre, spread, even_share, texture, grain, grain_ratio,
+     ramp_spread) = _core_colours(labels, n, lab, smooth, opaque, scale)
     n_opaque = int(np.count_nonzero(picture.opaque))
     flat_share = float(np.count_nonzero(flat)) / max(int(np.count_nonzero(opaque)), 1)
     # Spots too small or too noisy to be flat, and strokes too thin: regions
     # too, after the flat ones (which alone decide flat_share and spread).
     # Without a flat region nothing explains any colour: noise or a photograph, no spots or strokes.
     if callable(structures):
-        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share, texture=texture))
+        structures = bool(structures(flat_share=flat_share, spread=spread, even_share=even_share, texture=texture,
+                                     grain=grain, grain_ratio=grain_ratio, ramp_spread=ramp_spread))
     speck_share = 0.0
     if len(area) and structures:
         labels, mean, area, centre, speck_share = _with_structures(lab, smooth, opaque, labels, mean, area, centre,
@@ -1077,7 +1126,8 @@ def _find_regions(picture: Picture, threshold: float, max_pixels: int, structure
             mean, area, centre = mean[keep], area[keep], centre.reshape(-1, 2)[keep]
     return Regions(lab=np.asarray(mean, dtype=np.float64).reshape(-1, 3), area=area, n_pixels=n_opaque,
                    flat_share=flat_share, labels=labels, scale=scale, spread=spread,
-                   centre=centre, even_share=even_share, speck_share=speck_share, texture=texture)
+                   centre=centre, even_share=even_share, speck_share=speck_share, texture=texture, grain=grain,
+                   grain_ratio=grain_ratio, ramp_spread=ramp_spread)
 
 
 def _flat_cores(smooth, opaque, threshold: float):
@@ -1108,9 +1158,12 @@ def _flat_cores(smooth, opaque, threshold: float):
 
 
 def _core_colours(labels, n: int, lab, smooth, opaque, scale: int):
-    """Mean colour, area (full-size pixels, rim included) and centre of each core, and the spread inside them."""
+    """Mean colour, area (full-size pixels, rim included) and centre of each core, and how even they are inside.
+
+    Returns (mean, area, centre, spread, even share, texture, grain, grain ratio, ramp spread).
+    """
     if not n:
-        return np.zeros((0, 3)), np.zeros(0), np.zeros((0, 2)), float("inf"), 0.0, 0.0
+        return np.zeros((0, 3)), np.zeros(0), np.zeros((0, 2)), float("inf"), 0.0, 0.0, 0.0, 0.0, float("inf")
     # The mean of a flat core: its pixels lie within the threshold of each
     # other, and a bincount is a fraction of a per-label median's cost.
     count = np.bincount(labels.ravel(), minlength=n + 1)[1:]
@@ -1123,14 +1176,18 @@ def _core_colours(labels, n: int, lab, smooth, opaque, scale: int):
     step = max(1, int(np.count_nonzero(inside)) // 50_000)  # a percentile needs no more
     de = np.asarray(delta_e_ciede2000(lab[inside][::step], mean[labels[inside][::step] - 1]))
     return (mean, area, centre, float(np.percentile(de, 90)), _even_share(de, labels[inside][::step], n),
-            _texture(labels, n, smooth, inside, step))
+            _texture(labels, n, smooth, inside, step), *_grain(labels, n, lab, inside),
+            _ramp_spread(labels, n, lab, inside, step))
 
 
-def _texture(labels, n: int, smooth, inside, step: int) -> float:
-    """Median distance (L*) of the flat pixels' smoothed lightness from a plane fitted to each region's."""
+def _plane_residuals(labels, n: int, values, inside, step: int) -> np.ndarray:
+    """Distance of every ``step``-th pixel of ``inside`` from a plane fitted to its region's ``values``.
+
+    ``values`` is (h, w) or (h, w, c); the residuals are (m,) or (m, c), one
+    least-squares plane ``a + b x + c y`` per region and channel.
+    """
     yy, xx = np.nonzero(inside)
     lbl = labels[inside][::step] - 1
-    light = smooth[..., 0][inside][::step]
     count = np.maximum(np.bincount(lbl, minlength=n), 1).astype(np.float64)  # a region the sampling missed: 1
 
     def total(w):
@@ -1144,9 +1201,61 @@ def _texture(labels, n: int, smooth, inside, step: int) -> float:
     m[:, 0, 0] = count
     m[:, 1, 1], m[:, 2, 2] = total(x * x) + 1e-9, total(y * y) + 1e-9  # a one-pixel-wide region: no slope across it
     m[:, 1, 2] = m[:, 2, 1] = total(x * y)
-    rhs = np.stack([total(light), total(x * light), total(y * light)], axis=1)
-    coef = np.linalg.solve(m, rhs[..., None])[..., 0]
-    return float(np.median(np.abs(light - coef[lbl, 0] - coef[lbl, 1] * x - coef[lbl, 2] * y)))
+    out = []
+    for v in np.moveaxis(np.atleast_3d(values), -1, 0):
+        v = v[inside][::step]
+        rhs = np.stack([total(v), total(x * v), total(y * v)], axis=1)
+        coef = np.linalg.solve(m, rhs[..., None])[..., 0]
+        out.append(v - coef[lbl, 0] - coef[lbl, 1] * x - coef[lbl, 2] * y)
+    return out[0] if np.ndim(values) == 2 else np.stack(out, axis=1)
+
+
+def _texture(labels, n: int, smooth, inside, step: int) -> float:
+    """Median distance (L*) of the flat pixels' smoothed lightness from a plane fitted to each region's."""
+    return float(np.median(np.abs(_plane_residuals(labels, n, smooth[..., 0], inside, step))))
+
+
+def _box_sum(a: np.ndarray, reach: int) -> np.ndarray:
+    """Sum of a 2-D array over the ``(2 reach + 1)`` square window around each pixel (zero outside)."""
+    c = np.cumsum(np.pad(a, ((reach + 1, reach), (0, 0))), axis=0)
+    a = c[2 * reach + 1:] - c[:-2 * reach - 1]
+    c = np.cumsum(np.pad(a, ((0, 0), (reach + 1, reach))), axis=1)
+    return c[:, 2 * reach + 1:] - c[:, :-2 * reach - 1]
+
+
+def _grain(labels, n: int, lab, inside) -> tuple[float, float]:
+    """Lightness variation of the flat areas at the scale of a photograph's grain, and against finer variation.
+
+    The lightness's distance from its region's plane is split into bands by
+    box averages over the flat pixels of the :data:`GRAIN_REACH` and
+    :data:`GRAIN_SURROUND` windows around each flat pixel: the *grain* band
+    (the small average less the large) and the *fine* band (the distance less
+    the small average).  Each band's square is averaged over the small window
+    again (the local energy of a band-pass filtered image, as texture energy
+    measures take it: K. I. Laws, "Rapid texture identification", Proc. SPIE
+    238, 376-381, 1980).  Returns (the :data:`GRAIN_QUANTILE` of the grain
+    band's root over the flat pixels, the median over them of the grain band's
+    root over the fine band's): ``Regions.grain`` and ``Regions.grain_ratio``.
+    """
+    residual = np.zeros(labels.shape)
+    residual[inside] = _plane_residuals(labels, n, lab[..., 0], inside, 1)
+    flat = inside.astype(np.float64)
+    count = np.maximum(_box_sum(flat, GRAIN_REACH), 1.0)
+    wide = np.maximum(_box_sum(flat, GRAIN_SURROUND), 1.0)
+    # The residual is 0 off the flat pixels, so the sums are over flat pixels only.
+    local = _box_sum(residual, GRAIN_REACH) / count
+    grain = np.sqrt(_box_sum((local - _box_sum(residual, GRAIN_SURROUND) / wide) ** 2 * flat, GRAIN_REACH) / count)
+    fine = np.sqrt(_box_sum((residual - local) ** 2 * flat, GRAIN_REACH) / count)
+    grain, fine = grain[inside], fine[inside]
+    return (float(np.quantile(grain, GRAIN_QUANTILE)),
+            float(np.median(grain / np.maximum(fine, 1e-9))))
+
+
+def _ramp_spread(labels, n: int, lab, inside, step: int) -> float:
+    """90th percentile CIEDE2000 of the flat pixels from a plane fitted to their region's L*, a*, b*."""
+    colours = lab[inside][::step]
+    ramp = colours - _plane_residuals(labels, n, lab, inside, step)
+    return float(np.percentile(delta_e_ciede2000(colours, ramp), 90))
 
 
 def _centres(labels, n: int, count):

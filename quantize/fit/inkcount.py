@@ -40,7 +40,15 @@ Constants and why (docs/method.md §"How many inks"):
   all through its flat areas: half of their pixels lie :data:`TONE_TEXTURE_L`
   (L* 0.55) or more from a plane fitted to their region (a smooth photograph
   whose texture stays under the flatness threshold, such as scikit-image's
-  moon; flat ink, scanned or shaded, stays under 0.3).
+  moon; flat ink, scanned or shaded, stays under 0.3).  Or when they hold a
+  photograph's grain: :data:`TONE_GRAIN_L` (L* 0.12) or more at scales of 9
+  to 33 px in three quarters of them, and at least :data:`TONE_GRAIN_RATIO`
+  (0.45) of their variation under 9 px (scikit-image's brick; scan noise
+  lies under 9 px).  The spread rule holds only where the variation lies all
+  through the flat areas (texture :data:`TONE_SPREAD_TEXTURE_L`, L* 0.4, or
+  more) or runs in ramps (planes fitted to the regions take a fifth off the
+  spread, :data:`TONE_RAMP_SHARE`): strokes of low-contrast inks through a
+  ground, under the flatness threshold, are neither.
 """
 
 from __future__ import annotations
@@ -53,9 +61,10 @@ import numpy as np
 from quantize.colour.spaces import delta_e_ciede2000
 from quantize.core.regions import SPECK_SHARE, Regions
 
-__all__ = ["InkGroups", "Judgement", "ink_groups", "artwork_like", "judge", "missing_inks", "lost_inks", "group_sample", "KINDS",
-           "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE", "TONE_SPREAD_DE", "MIN_EVEN_SHARE", "TONE_TEXTURE_L",
-           "TONE_TARGET_DE", "TONE_MAX_K", "auto_choice"]
+__all__ = ["InkGroups", "Judgement", "ink_groups", "artwork_like", "judge", "missing_inks", "lost_inks", "group_sample",
+           "KINDS", "DISTINCT_DE", "FOUND_DE", "MIN_SHARE", "MIN_PIXELS", "SAME_INK_DE", "MIN_FLAT_SHARE",
+           "TONE_SPREAD_DE", "MIN_EVEN_SHARE", "TONE_TEXTURE_L", "TONE_GRAIN_L", "TONE_GRAIN_RATIO",
+           "TONE_SPREAD_TEXTURE_L", "TONE_RAMP_SHARE", "TONE_TARGET_DE", "TONE_MAX_K", "auto_choice"]
 
 DISTINCT_DE = 10.0
 FOUND_DE = DISTINCT_DE / 2
@@ -81,6 +90,44 @@ MIN_EVEN_SHARE = 0.5
 #: logo 0.30; scikit-image's moon (grey, taken as RGB) at full size and at
 #: 0.3 to 0.8 of it, 1.07 to 1.12: 0.55 lies about 2 times from each.
 TONE_TEXTURE_L = 0.55
+#: A photograph's grain, not ink: the flat areas are continuous tone when
+#: three quarters of their pixels hold this much lightness (L*) in the band of
+#: 9 to 33 px (``Regions.grain``) and, at the median flat pixel, that band
+#: holds at least :data:`TONE_GRAIN_RATIO` of the variation under 9 px
+#: (``Regions.grain_ratio``).  Scan noise is white after the scan's blur: what
+#: it leaves in the band grows with it, but its finer variation grows faster,
+#: so a noisy scan fails the ratio; JPEG'd and shaded flat art, with ratios up
+#: to 5, holds under L* 0.07 in the band.  Tuning (288 generated files:
+#: lettering seeds 1000-1023 through the scan and JPEG q75, 5000-5023 also
+#: shaded then scanned; flat art seeds 1100-1111 at 160 and 200 px through the
+#: scan, JPEG and shading then the scan, 5100-5111 at 200 and 320 px also
+#: shaded alone; 54 scans of lettering and flat art, seeds 1000-1011 and
+#: 1100-1105, with 4, 6 and 8 codes of noise against the simulation's 3):
+#: ratio 0.39 at most where the band holds over 0.101 (0.30 with 0.12 or
+#: more), band 0.100 at most where the ratio is 0.45 or more (lettering seed
+#: 1022 through the scan, ratio 0.51); scikit-image's brick at 0.3 to 1 of its
+#: size, band 0.151 to 0.177 and ratio 0.57 to 0.66; its logo, band 0.04 at
+#: most.  0.12 lies 1.2 times from the lettering and 1.26 from the brick;
+#: the ratio 0.45, 1.5 and 1.27 times from the noisy scans and the brick.
+TONE_GRAIN_L = 0.12
+TONE_GRAIN_RATIO = 0.45
+#: The spread rule (colours vary inside the flat areas, which are not even)
+#: holds only for variation that lies all through the flat areas (texture, L*
+#: this much or more) or runs in ramps (``TONE_RAMP_SHARE``).  Variation in
+#: neither is strokes of other inks running through a ground, under the
+#: flatness threshold: the generated lettering with 6 inks (seed 1011),
+#: through the scan, spread 3.64 and 18 % even, has texture 0.25 (the tuning
+#: lettering 0.28 at most); the photographs the spread rule alone called
+#: continuous tone, scikit-image's camera at 0.3 of its size and its colour
+#: wheel at 0.6, 0.53 and 0.55.  0.4 lies about 1.4 times from each (its
+#: wheel at 0.5, texture 0.07, is a ramp).  docs/method.md 6a.
+TONE_SPREAD_TEXTURE_L = 0.4
+#: The flat areas' colours run in ramps when a plane fitted to each region
+#: (``Regions.ramp_spread``) takes a fifth or more off the spread: measured
+#: from its region's plane, the 90th percentile is at most this share of the
+#: spread.  scikit-image's colour wheel, 0.34 to 0.62 at 0.5 to 1 of its size;
+#: the lettering 0.98, the photographs with texture 0.78 to 1.
+TONE_RAMP_SHARE = 0.8
 #: The visual target of the automatic size for continuous tone: mean ΔE00
 #: 2.5.  On scikit-image's sample photos each doubling of the palette beyond
 #: it buys less than 0.5 ΔE00 (astronaut 2.34 at 64 colours, 1.82 at 128),
@@ -202,17 +249,40 @@ class Judgement:
     spread: float
 
 
-def artwork_like(*, flat_share: float, spread: float, even_share: float, texture: float = 0.0) -> bool:
-    """Whether one picture's flat regions alone would be judged artwork by :func:`judge`."""
-    return not (flat_share < MIN_FLAT_SHARE or texture >= TONE_TEXTURE_L
-                or (spread > TONE_SPREAD_DE and even_share < MIN_EVEN_SHARE))
+def _tone_in_spread(*, spread: float, even_share: float, texture: float, ramp: bool) -> bool:
+    """The spread rule: colours vary inside the flat areas, not evenly, and all through them or in ramps."""
+    return (spread > TONE_SPREAD_DE and even_share < MIN_EVEN_SHARE
+            and (texture >= TONE_SPREAD_TEXTURE_L or ramp))
+
+
+def _grainy(grain: float, grain_ratio: float) -> bool:
+    """Whether the flat areas hold a photograph's grain (:data:`TONE_GRAIN_L`, :data:`TONE_GRAIN_RATIO`)."""
+    return grain >= TONE_GRAIN_L and grain_ratio >= TONE_GRAIN_RATIO
+
+
+def _ramp(r) -> bool:
+    """Whether planes fitted to the regions take :data:`TONE_RAMP_SHARE` or less of the spread (a ramp)."""
+    return r.ramp_spread <= TONE_RAMP_SHARE * r.spread
+
+
+def artwork_like(*, flat_share: float, spread: float, even_share: float, texture: float = 0.0, grain: float = 0.0,
+                 grain_ratio: float = 0.0, ramp_spread: float = 0.0) -> bool:
+    """Whether one picture's flat regions alone would be judged artwork by :func:`judge`.
+
+    The measures are those of :class:`~quantize.core.regions.Regions`; a
+    ``ramp_spread`` of 0 (not measured) takes any variation for a ramp.
+    """
+    return not (flat_share < MIN_FLAT_SHARE or texture >= TONE_TEXTURE_L or _grainy(grain, grain_ratio)
+                or _tone_in_spread(spread=spread, even_share=even_share, texture=texture,
+                                   ramp=ramp_spread <= TONE_RAMP_SHARE * spread))
 
 
 def judge(regions: Sequence[Regions]) -> Judgement:
     """Flat artwork or continuous tone, from the images' regions and how even they are.
 
     Several images (a product set) are judged together: the flat and speck
-    shares are pooled by pixels and the spread is the largest of any image.
+    shares are pooled by pixels, the spread, texture and grain are the
+    largest of any image.
     """
     total = sum(r.n_pixels for r in regions) or 1
     flat = sum(r.flat_share * r.n_pixels for r in regions) / total
@@ -230,14 +300,29 @@ def judge(regions: Sequence[Regions]) -> Judgement:
         return Judgement("continuous tone", f"its lightness varies all through its flat areas (half of their pixels "
                          f"lie L* {texture:.2f} or more from an even ramp across their area; flat ink, scanned or "
                          f"shaded, stays well under {TONE_TEXTURE_L:g})", flat, spread)
+    grainy = [r for r in regions if _grainy(r.grain, r.grain_ratio)]
+    if grainy:
+        r = max(grainy, key=lambda r: r.grain)
+        return Judgement("continuous tone", f"its flat areas hold a photograph's grain (in three quarters of them the "
+                         f"lightness varies L* {r.grain:.2f} or more over 9 to 33 pixels, {r.grain_ratio:.0%} of its "
+                         f"variation under 9 pixels; the noise of flat ink lies under 9 pixels, its band under "
+                         f"{TONE_GRAIN_RATIO:.0%} of that)", flat, spread)
     even = min(r.even_share for r in regions)
-    if spread > TONE_SPREAD_DE and even < MIN_EVEN_SHARE:
+    ramp = any(_ramp(r) for r in regions)
+    if _tone_in_spread(spread=spread, even_share=even, texture=texture, ramp=ramp):
+        where = ("in ramps across them" if ramp else
+                 f"all through them (half of their pixels lie L* {texture:.2f} or more from an even ramp)")
         return Judgement("continuous tone", f"colours vary inside its flat areas (90 % within ΔE00 {spread:.1f} "
                          f"of their area's colour; flat ink stays within {TONE_SPREAD_DE:g}; only {even:.0%} of the "
-                         "flat area is even)", flat, spread)
-    if spread > TONE_SPREAD_DE:
+                         f"flat area is even), {where}", flat, spread)
+    if spread > TONE_SPREAD_DE and even >= MIN_EVEN_SHARE:
         return Judgement("artwork", f"{flat:.0%} of the image is flat areas, {even:.0%} of them of even colour "
                          "(the rest holds some tone)", flat, spread)
+    if spread > TONE_SPREAD_DE:
+        return Judgement("artwork", f"{flat:.0%} of the image is flat areas of even colour but for strokes running "
+                         f"through them (90 % within ΔE00 {spread:.1f} of their area's colour, only {even:.0%} of the "
+                         f"flat area even, but its lightness varies under L* {TONE_SPREAD_TEXTURE_L:g} in half of it "
+                         "and no ramp explains it)", flat, spread)
     return Judgement("artwork", f"{flat:.0%} of the image is flat areas of even colour (90 % within ΔE00 "
                      f"{spread:.1f} of their area's colour)", flat, spread)
 
