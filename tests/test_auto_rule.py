@@ -139,6 +139,32 @@ def test_a_photo_on_a_black_ground_keeps_its_bright_disc():
     assert fewer.apply(img).delta_e["mean"] > 2.5 or _optic_disc_de(img, fewer) >= 10.0
 
 
+def _largest_far_blob(img, palette):
+    """Share of the image in the largest 4-connected blob of pixels mapped ΔE00 10 or more away.
+
+    Measured on the written colours with colour-science's CIEDE2000 and scipy's connected-component
+    labelling, independently of the tool's own region analysis.
+    """
+    from scipy import ndimage
+
+    mapped = np.asarray(palette.apply(img).rgb)
+    de = delta_E(rgb2lab(img / 255.0), rgb2lab(mapped / 255.0), method="CIE 2000")
+    labels, n = ndimage.label(de >= 10.0)
+    return 0.0 if n == 0 else float(np.bincount(labels.ravel())[1:].max()) / de.size
+
+
+def test_the_summary_names_an_area_whose_pixels_are_mapped_far():
+    # scikit-image's retina at 0.4 with 4 colours: the optic disc's pixels are mapped 10 or more
+    # away in a blob of over 0.1 % of the image (measured independently), and the fit names lost areas;
+    # with the default size none are named and no such blob is left.
+    img = _retina()
+    four = fit_palette(img, 4, restarts=2)
+    assert _largest_far_blob(img, four) >= 0.001
+    assert len(four.fit.lost) >= 1 and all(row["delta_e"] >= 10.0 for row in four.fit.lost)
+    auto = fit_palette(img, restarts=2)
+    assert auto.fit.lost == () and _largest_far_blob(img, auto) < 0.001
+
+
 def test_a_set_fitted_together_keeps_the_bright_disc_of_each_image():
     # The same rule for a set (one palette for several images, each image's areas read from its own
     # pixels): scikit-image's retina at 0.4 with its chelsea at half size.  Expected: continuous tone,

@@ -160,6 +160,21 @@ def test_index_image_matches_labels_of_inverse(path, alpha, dtype):
         assert (idx[pic.alpha == 0] == 0).all() and (idx[pic.alpha > 0] > 0).all()
 
 
+@pytest.mark.parametrize("step", [2, 3, 7])
+@pytest.mark.parametrize("alpha", ["none", "some"])
+def test_index_image_every_step_th_pixel_is_the_full_image_subsampled(path, alpha, step):
+    # index_image(step=s) is index_image()[::s, ::s], checked against the naive reference
+    # (labels of np.unique's inverse), on both sampling paths (``path``) and with transparency.
+    rng = np.random.default_rng([RNG_SEED, 11, step, ["none", "some"].index(alpha)])
+    pic = random_picture(rng, (45, 31), alpha=alpha)
+    smp, inverse = check_against_reference(pic, path)
+    labels = rng.integers(1, 1000, size=smp.n_colours)
+    idx = smp.index_image(labels, dtype=np.int32, step=step)
+    full = reference_index_image(inverse, labels, np.int32, pic.shape)
+    assert idx.shape == full[::step, ::step].shape
+    np.testing.assert_array_equal(idx, full[::step, ::step])
+
+
 def test_index_image_keeps_label_dtype_by_default(path):
     rng = np.random.default_rng(RNG_SEED + 4)
     pic = random_picture(rng, (20, 20))

@@ -124,7 +124,7 @@ class ColourSample:
         return (f"ColourSample(n_colours={self.n_colours}, bit_depth={self.bit_depth}, "
                 f"shape={self.shape}, n_pixels={self.n_pixels})")
 
-    def index_image(self, labels: np.ndarray, *, dtype: npt.DTypeLike | None = None) -> np.ndarray:
+    def index_image(self, labels: np.ndarray, *, dtype: npt.DTypeLike | None = None, step: int = 1) -> np.ndarray:
         """Spread one value per distinct colour onto the pixels of the image.
 
         Parameters
@@ -134,10 +134,13 @@ class ColourSample:
         dtype : dtype, optional
             Of the result, default that of ``labels``.  ``labels`` are cast
             to it as by ``labels.astype(dtype)``.
+        step : int, default=1
+            Spread onto every ``step``-th pixel of every ``step``-th row only
+            (the pixels of ``image[::step, ::step]``).
 
         Returns
         -------
-        ndarray of shape (H, W)
+        ndarray of shape (H, W), or of ``image[::step, ::step]``'s shape
             ``labels[inverse]`` for every opaque pixel, 0 for fully
             transparent ones.
 
@@ -164,10 +167,16 @@ class ColourSample:
                 f"labels must hold one value per distinct colour, shape ({self.n_colours},); got {labels.shape}"
             )
         values = labels.astype(labels.dtype if dtype is None else dtype)
-        return self._spread(values, 0).reshape(self.shape)
+        if step == 1:
+            return self._spread(values, 0).reshape(self.shape)
+        h, w = self.shape
+        return self._spread(values, 0, step).reshape(-(-h // step), -(-w // step))
 
-    def _spread(self, values: np.ndarray, fill) -> np.ndarray:
-        """``values`` of each pixel's colour, ``fill`` where transparent; flat."""
+    def _spread(self, values: np.ndarray, fill, step: int = 1) -> np.ndarray:
+        """``values`` of each pixel's colour (of every ``step``-th pixel and row), ``fill`` where transparent; flat."""
+        def every(index: np.ndarray) -> np.ndarray:
+            return index if step == 1 else np.ascontiguousarray(index.reshape(self.shape)[::step, ::step]).ravel()
+
         if self._packed is not None:
             # np.empty, not np.zeros: only rows of present colours (and the
             # transparent slot) are ever read, and an untouched page of a
@@ -175,14 +184,14 @@ class ColourSample:
             table = np.empty(_CLEAR + 1, dtype=values.dtype)
             table[_pack(self.codes, 8)] = values
             table[_CLEAR] = fill
-            return _take_blocks(table, self._packed)
+            return _take_blocks(table, every(self._packed))
         table = np.empty(values.size + 1, dtype=values.dtype)
         table[:-1] = values
         table[-1] = fill  # the row -1 of transparent pixels reads this slot
         inverse = self.inverse
         if inverse is None:  # a pooled sample: index_image refuses it before coming here
             raise ValueError("a pooled colour sample has no pixels to spread values onto")
-        return _take_blocks(table, inverse)
+        return _take_blocks(table, every(inverse))
 
     def keep_mapping(self, palette: quantize.Palette, metric: str, labels: np.ndarray, delta_e: np.ndarray) -> None:
         """Keep the mapping of these colours onto ``palette`` by ``metric``, for reuse.

@@ -683,7 +683,7 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
             record = _record(sample, ks, cands, settings, sources, load_notes + size_notes)
             if has_regions:  # say what was lost, whatever chose the size
                 chosen = cands[[c.palette.k for c in cands].index(cast(int, record.k))]
-                record = _with_lost(record, [j.result() for j in region_jobs], chosen.palette)
+                record = _with_lost(record, [j.result() for j in region_jobs], chosen, sample, pictures, settings)
         else:
             cands, record = auto.candidates, _auto_record(auto, sample, ks, settings, sources,
                                                           load_notes + size_notes)
@@ -778,41 +778,73 @@ def _locked_notes(chosen: Candidate) -> list[str]:
     return notes
 
 
-def _with_lost(record: FitRecord, regions, palette) -> FitRecord:
+def _with_lost(record: FitRecord, regions, chosen: Candidate, sample, pictures, settings: FitSettings) -> FitRecord:
     """``record`` naming the flat areas the palette lost (ΔE00 10 or more from every colour)."""
-    from .inkcount import ink_groups, lost_inks
+    from .inkcount import ink_groups
 
-    lost = _lost_rows(lost_inks(ink_groups(regions), palette.lab), palette)
+    lost = _lost_rows(_lost_areas(ink_groups(regions), regions, chosen, sample, pictures, settings), chosen.palette)
     said = (f"{len(lost)} flat area(s) of at least 0.1 % are ΔE00 10 or more from every palette colour",)
     notes = (record.notes or ()) + (said if lost else ())
     return dataclasses.replace(record, lost=tuple(lost), notes=notes)
 
 
-def _keeps_flat_areas(sample, regions, per_colour_de: np.ndarray) -> bool:
-    """Whether every flat area of 0.1 % or more has half its pixels mapped within ΔE00 10.
-
-    Read from the pixels, not from an area's mean colour: a photograph's
-    smooth gradient (a colour wheel) can be one flat area whose mean is a
-    colour it does not hold, and such an area is served when its own pixels are.
-    """
-    from .inkcount import DISTINCT_DE, MIN_SHARE
-
-    big = np.flatnonzero(regions.share >= MIN_SHARE)
-    if big.size == 0:
-        return True
-    step = regions.scale
-    de = sample.index_image(per_colour_de, dtype=np.float32)[::step, ::step]
+def _area_errors(sample, regions, per_colour_de: np.ndarray) -> np.ndarray:
+    """The median ΔE00 at which each flat area's pixels are mapped (at the analysis scale; inf if none read)."""
+    de = sample.index_image(per_colour_de, dtype=np.float32, step=regions.scale)
     labels = regions.labels[:de.shape[0], :de.shape[1]]
-    de = de[:labels.shape[0], :labels.shape[1]]
     inside = labels > 0
-    lab, d = labels[inside], de[inside]
+    lab, d = labels[inside], de[:labels.shape[0], :labels.shape[1]][inside]
     order = np.lexsort((d, lab))
     lab, d = lab[order], d[order]
-    count = np.bincount(lab, minlength=len(regions.share) + 1)[1:]
+    n = len(regions.share)
+    count = np.bincount(lab, minlength=n + 1)[1:]
     start = np.cumsum(count) - count
-    have = count[big] > 0
-    median = d[start[big][have] + count[big][have] // 2]
-    return bool(np.all(median < DISTINCT_DE))
+    out = np.full(n, np.inf)
+    have = count > 0
+    out[have] = d[start[have] + count[have] // 2]
+    return out
+
+
+def _served_groups(groups, regions, errors) -> np.ndarray:
+    """Per ink group: whether its flat areas, by share, are mostly mapped within ΔE00 10 (read from pixels).
+
+    ``errors`` holds :func:`_area_errors` of each image's regions.  A
+    photograph's smooth gradient can be one flat area whose median colour
+    it does not hold: it is served when its own pixels are.
+    """
+    from .inkcount import DISTINCT_DE
+
+    served = np.concatenate([e < DISTINCT_DE for e in errors]) if errors else np.zeros(0, bool)
+    share = np.concatenate([r.share / len(regions) for r in regions]) if regions else np.zeros(0)
+    held = np.bincount(groups.of_region, weights=share * served, minlength=len(groups))
+    total = np.bincount(groups.of_region, weights=share, minlength=len(groups))
+    return held >= 0.5 * total
+
+
+def _lost_areas(groups, regions, cand: Candidate, sample, pictures, settings: FitSettings) -> list[dict]:
+    """The ink groups ``cand``'s palette loses (:func:`quantize.fit.inkcount.lost_inks`), each image read from its pixels.
+
+    An image's pixels come from ``sample`` (one image) or from its own
+    sample (a set: each image mapped onto the palette); without pictures,
+    from the groups' colours alone.
+    """
+    from quantize.core.sampling import sample_picture
+
+    from .assign import map_sample
+    from .inkcount import lost_inks
+
+    if len(regions) == 1 and sample.shape is not None:
+        errors = [_area_errors(sample, regions[0], cand.per_colour_de)]
+    elif len(pictures) == len(regions) and all(p is not None for p in pictures):
+        errors = []
+        for pic, r in zip(pictures, regions):
+            own = sample_picture(pic)
+            de = map_sample(own, cand.palette, metric=cast(str, settings.nearest),
+                            compiled_always=_runs_compiled(own, settings))[1]
+            errors.append(_area_errors(own, r, de))
+    else:
+        return lost_inks(groups, cand.palette.lab)
+    return lost_inks(groups, cand.palette.lab, served=_served_groups(groups, regions, errors))
 
 
 def _lost_rows(lost, palette) -> list:
@@ -822,7 +854,7 @@ def _lost_rows(lost, palette) -> list:
 
 def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress, pictures=()) -> _Auto:
     """The automatic rule (:mod:`quantize.fit.inkcount`) on the images' flat regions."""
-    from .inkcount import TONE_MAX_K, group_sample, ink_groups, judge, lost_inks, missing_inks
+    from .inkcount import TONE_MAX_K, group_sample, ink_groups, judge, missing_inks
 
     judgement = judge(regions)
     kind = judgement.kind if settings.kind == "auto" else settings.kind
@@ -845,16 +877,8 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         top = min(top, sample.n_colours)
 
         def keeps(c: Candidate) -> bool:
-            """No flat area of 0.1 % or more is mapped ΔE00 10 or more away, in any image (docs/method.md §5)."""
-            if len(regions) == 1 and sample.shape is not None:
-                return _keeps_flat_areas(sample, regions[0], c.per_colour_de)
-            from quantize.core.sampling import sample_picture
-
-            from .assign import map_sample
-
-            return all(_keeps_flat_areas(own, r, map_sample(own, c.palette, metric=cast(str, settings.nearest),
-                                                            compiled_always=_runs_compiled(own, settings))[1])
-                       for own, r in zip((sample_picture(pic) for pic in pictures), regions))
+            """No flat area of 0.1 % or more is lost, in any image (docs/method.md §5)."""
+            return not _lost_areas(groups, regions, c, sample, pictures, settings)
 
         stat = settings.target_stat
         # A target the user gave is taken as given: the smallest size meeting it (a lost area is still named).
@@ -876,7 +900,7 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         else:
             reason = (f"continuous tone: no palette up to {top} colours meets ΔE00 {stat} <= {target:g} "
                       f"(best {chosen.delta_e[stat]:.2f}); took the largest")
-    lost = tuple(lost_inks(groups, chosen.palette.lab))
+    lost = tuple(_lost_areas(groups, regions, chosen, sample, pictures, settings))
     if settings.kind != "auto":
         judgement = dataclasses.replace(judgement, kind=kind, reason=f"set as {kind} (the image would have been "
                                         f"judged {judgement.kind}: {judgement.reason})")

@@ -156,12 +156,15 @@ class InkGroups:
     where : ndarray of shape (g, 2)
         Centre of that largest region, (x, y) as shares of its image's width
         and height.
+    of_region : ndarray of shape (r,), int
+        The group of every region, the images' regions in turn.
     """
 
     lab: np.ndarray
     share: np.ndarray
     largest: np.ndarray
     where: np.ndarray
+    of_region: np.ndarray
 
     def __len__(self) -> int:
         return len(self.share)
@@ -197,7 +200,7 @@ def ink_groups(regions: Sequence[Regions]) -> InkGroups:
     centre = np.concatenate([r.centre for r in regions]) if regions else np.zeros((0, 2))
     n = len(share)
     if n == 0:
-        return InkGroups(np.zeros((0, 3)), np.zeros(0), np.zeros(0), np.zeros((0, 2)))
+        return InkGroups(np.zeros((0, 3)), np.zeros(0), np.zeros(0), np.zeros((0, 2)), np.zeros(0, np.intp))
     # Single linkage under CIEDE2000: union-find over the pairs closer than SAME_INK_DE.
     parent = np.arange(n)
 
@@ -216,7 +219,8 @@ def ink_groups(regions: Sequence[Regions]) -> InkGroups:
                 parent[b] = a
     roots = np.array([root(i) for i in range(n)])
     out_lab, out_share, out_largest, out_where = [], [], [], []
-    for r in np.unique(roots):
+    unique_roots, of_root = np.unique(roots, return_inverse=True)
+    for r in unique_roots:
         m = np.flatnonzero(roots == r)
         w = share[m]
         out_lab.append([_weighted_median(lab[m, c], w) for c in range(3)])
@@ -224,8 +228,10 @@ def ink_groups(regions: Sequence[Regions]) -> InkGroups:
         out_largest.append(w.max())
         out_where.append(centre[m[np.argmax(w)]])
     order = np.argsort(-np.asarray(out_share), kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
     return InkGroups(np.asarray(out_lab)[order], np.asarray(out_share)[order], np.asarray(out_largest)[order],
-                     np.asarray(out_where).reshape(-1, 2)[order])
+                     np.asarray(out_where).reshape(-1, 2)[order], rank[of_root.ravel()])
 
 
 @dataclass(frozen=True)
@@ -343,8 +349,13 @@ def missing_inks(groups: InkGroups, palette_lab: np.ndarray, n_pixels: int) -> n
     return np.flatnonzero(big & (de >= FOUND_DE))
 
 
-def lost_inks(groups: InkGroups, palette_lab: np.ndarray) -> list[dict]:
+def lost_inks(groups: InkGroups, palette_lab: np.ndarray, served: np.ndarray | None = None) -> list[dict]:
     """The groups of at least :data:`MIN_SHARE` that are :data:`DISTINCT_DE` or more from every palette colour.
+
+    ``served``, if given, is one flag per group: a group whose pixels were
+    read and found mapped within :data:`DISTINCT_DE` is not lost, whatever its
+    colour (a photograph's smooth gradient can be one flat area whose median
+    colour it does not hold).
 
     Each is a dict: ``lab`` (its colour), ``share`` (percent of the image),
     ``where`` ((x, y) percent of the width and height, the centre of its
@@ -357,7 +368,10 @@ def lost_inks(groups: InkGroups, palette_lab: np.ndarray) -> list[dict]:
     de = np.stack([delta_e_ciede2000(groups.lab, np.broadcast_to(p, groups.lab.shape)) for p in pal], axis=1)
     nearest = np.argmin(de, axis=1)
     out = []
-    for g in np.flatnonzero((groups.share >= MIN_SHARE) & (de.min(axis=1) >= DISTINCT_DE)):
+    lost = (groups.share >= MIN_SHARE) & (de.min(axis=1) >= DISTINCT_DE)
+    if served is not None:
+        lost &= ~np.asarray(served, bool)
+    for g in np.flatnonzero(lost):
         out.append({"lab": [round(float(v), 2) for v in groups.lab[g]], "share": round(float(100.0 * groups.share[g]), 3),
                     "where": [round(100.0 * float(v), 1) for v in groups.where[g]],
                     "nearest": int(nearest[g]), "delta_e": round(float(de[g, nearest[g]]), 2)})
