@@ -580,7 +580,8 @@ def fit_palette(images: ImageInput | ColourSample | Sequence[ImageInput | Colour
         print every flat area of at least 0.1 % within ΔE00 5; continuous
         tone the smallest palette whose mean ΔE00 meets ``target`` (default
         2.5) and, unless ``target`` is given, that leaves no flat area of
-        0.1 % or more mapped ΔE00 10 or more away.  ``"bic"`` and ``"target"``: :mod:`quantize.fit.selection`.
+        0.1 % or more mapped ΔE00 10 or more away.  ``"bic"`` and
+        ``"target"``: :mod:`quantize.fit.selection`.
     kind : {"auto", "artwork", "continuous tone"}, default="auto"
         Overrides the ``"auto"`` rule's judgement of the image.
     target : float, optional
@@ -822,11 +823,13 @@ def _served_groups(groups, regions, errors) -> np.ndarray:
 
 
 def _lost_areas(groups, regions, cand: Candidate, sample, pictures, settings: FitSettings) -> list[dict]:
-    """The ink groups ``cand``'s palette loses (:func:`quantize.fit.inkcount.lost_inks`), each image read from its pixels.
+    """The ink groups ``cand``'s palette loses, each image read from its pixels.
 
-    An image's pixels come from ``sample`` (one image) or from its own
-    sample (a set: each image mapped onto the palette); without pictures,
-    from the groups' colours alone.
+    :func:`~quantize.fit.inkcount.lost_inks`, with each group's flat areas
+    judged by their pixels (:func:`_served_groups`).  An image's pixels come
+    from ``sample`` (one image) or from its own sample (a set: each image
+    mapped onto the palette); without pictures, from the groups' colours
+    alone.
     """
     from quantize.core.sampling import sample_picture
 
@@ -887,7 +890,7 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         met_stat = [c for c in cands if c.delta_e[stat] <= target]
         met = [c for c in met_stat if guard is None or guard(c)]
         chosen = min(met, key=lambda c: c.palette.k) if met else max(cands, key=lambda c: c.palette.k)
-        target_met = chosen.delta_e[stat] <= target
+        target_met = bool(chosen.delta_e[stat] <= target)
         if met:
             reason = f"continuous tone: the smallest palette with ΔE00 {stat} {chosen.delta_e[stat]:.2f} <= {target:g}"
             fewer = [c.palette.k for c in met_stat if c.palette.k < chosen.palette.k]
@@ -896,7 +899,8 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
                            "the target but lost one)")
         elif met_stat:
             reason = (f"continuous tone: ΔE00 {stat} {chosen.delta_e[stat]:.2f} <= {target:g}, but even {top} "
-                      "colours leave a flat area of at least 0.1 % ΔE00 10 or more from every colour; took the largest")
+                      "colours leave a flat area of at least 0.1 % ΔE00 10 or more from every colour; "
+                      "took the largest")
         else:
             reason = (f"continuous tone: no palette up to {top} colours meets ΔE00 {stat} <= {target:g} "
                       f"(best {chosen.delta_e[stat]:.2f}); took the largest")
