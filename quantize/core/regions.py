@@ -79,7 +79,8 @@ __all__ = ["Regions", "find_regions", "FLAT_THRESHOLD", "SMOOTHING", "RIM", "MIN
            "UNEXPLAINED_DE", "STRUCTURE_MIN_SHARE", "STRUCTURE_MIN_PIXELS", "SEAM_TOLERANCE", "SPOT_MIN_DEEP",
            "SPOT_SPREAD", "EVEN_DE", "MIX_COLOURS", "INTERIOR_SHARE", "INTERIOR_REACH", "INTERIOR_RIM",
            "BLEED_DEPTH", "BLEED_SHARE", "BLEED_DE", "BLEED_CHROMA_SHIFT", "PRINTABLE_WIDTH",
-           "LINE_MIX_DE", "SIDE_REACH", "SPECK_SHARE", "GRAIN_REACH", "GRAIN_SURROUND", "GRAIN_QUANTILE"]
+           "LINE_MIX_DE", "SIDE_REACH", "SPECK_SHARE", "GRAIN_REACH", "GRAIN_SURROUND", "GRAIN_QUANTILE",
+           "sorted_by_region"]
 
 #: Colour range (ΔE, chroma weighted as CIEDE2000 weighs it) within a 5 x 5
 #: window below which a pixel is flat.  Chosen on generated flat artwork
@@ -1039,12 +1040,20 @@ def _interior_colours(lab, smooth, labels, colours, count, limit):
     return out
 
 
+def sorted_by_region(values: np.ndarray, label: np.ndarray, n: int):
+    """``values`` sorted by region, then by value: (sorted values, start and count of each region 1..n).
+
+    ``label`` holds each value's region, 1 to ``n`` (no 0).  A region's
+    ``q`` quantile is then one lookup: ``sorted[start + rank]``.
+    """
+    order = np.lexsort((values, label))
+    count = np.bincount(label, minlength=n + 1)[1:]
+    return values[order], np.cumsum(count) - count, count
+
+
 def _even_share(de: np.ndarray, label: np.ndarray, n: int) -> float:
     """Share of the pixels in regions whose 90th percentile ``de`` is at most :data:`EVEN_DE`."""
-    order = np.lexsort((de, label))
-    de, label = de[order], label[order]
-    count = np.bincount(label, minlength=n + 1)[1:]
-    start = np.cumsum(count) - count
+    de, start, count = sorted_by_region(de, label, n)
     have = count > 0
     p90 = np.full(n, np.inf)
     p90[have] = de[start[have] + (0.9 * (count[have] - 1)).astype(np.intp)]

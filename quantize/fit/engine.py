@@ -791,15 +791,13 @@ def _with_lost(record: FitRecord, regions, chosen: Candidate, sample, pictures, 
 
 def _area_errors(sample, regions, per_colour_de: np.ndarray) -> np.ndarray:
     """The median ΔE00 at which each flat area's pixels are mapped (at the analysis scale; inf if none read)."""
+    from quantize.core.regions import sorted_by_region
+
+    # The analysis reads every scale-th pixel of every scale-th row: the same pixels as the step.
     de = sample.index_image(per_colour_de, dtype=np.float32, step=regions.scale)
-    labels = regions.labels[:de.shape[0], :de.shape[1]]
-    inside = labels > 0
-    lab, d = labels[inside], de[:labels.shape[0], :labels.shape[1]][inside]
-    order = np.lexsort((d, lab))
-    lab, d = lab[order], d[order]
+    inside = regions.labels > 0
     n = len(regions.share)
-    count = np.bincount(lab, minlength=n + 1)[1:]
-    start = np.cumsum(count) - count
+    d, start, count = sorted_by_region(de[inside], regions.labels[inside], n)
     out = np.full(n, np.inf)
     have = count > 0
     out[have] = d[start[have] + count[have] // 2]
@@ -862,6 +860,13 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
     judgement = judge(regions)
     kind = judgement.kind if settings.kind == "auto" else settings.kind
     groups = ink_groups(regions)
+    lost_by_size: dict[int, list] = {}
+
+    def lost_of(c: Candidate) -> list:
+        """The flat areas ``c`` loses, read once per size (the search and the choice both ask)."""
+        if c.palette.k not in lost_by_size:
+            lost_by_size[c.palette.k] = _lost_areas(groups, regions, c, sample, pictures, settings)
+        return lost_by_size[c.palette.k]
     if kind == "artwork":
         gs = group_sample(groups, sample.n_pixels)
         top = len(gs.weights) + len(settings.locked)  # a locked colour may print none of the groups
@@ -881,7 +886,7 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
 
         def keeps(c: Candidate) -> bool:
             """No flat area of 0.1 % or more is lost, in any image (docs/method.md §5)."""
-            return not _lost_areas(groups, regions, c, sample, pictures, settings)
+            return not lost_of(c)
 
         stat = settings.target_stat
         # A target the user gave is taken as given: the smallest size meeting it (a lost area is still named).
@@ -904,7 +909,7 @@ def _auto(sample, regions, ks, settings: FitSettings, *, k_given: bool, progress
         else:
             reason = (f"continuous tone: no palette up to {top} colours meets ΔE00 {stat} <= {target:g} "
                       f"(best {chosen.delta_e[stat]:.2f}); took the largest")
-    lost = tuple(_lost_areas(groups, regions, chosen, sample, pictures, settings))
+    lost = tuple(lost_of(chosen))
     if settings.kind != "auto":
         judgement = dataclasses.replace(judgement, kind=kind, reason=f"set as {kind} (the image would have been "
                                         f"judged {judgement.kind}: {judgement.reason})")
